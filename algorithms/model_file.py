@@ -1,0 +1,171 @@
+"""The model file: a fitted model as a JSON document, and back.
+
+This document is what one toolbox algorithm hands to the next (fit, then
+predict, cross-validate or simulate), so every field a later step needs is
+in it. See the README section "The model file" for the layout.
+"""
+from __future__ import annotations
+
+import json
+import math
+import os
+import tempfile
+import dataclasses
+from dataclasses import dataclass
+
+import numpy as np
+
+from .covariance import CovarianceModel
+from .errors import FieldcastError
+from .mean import MeanModel
+from .transform import Transform
+from .version import __version__
+
+FORMAT_NAME = "fieldcast-model"
+FORMAT_VERSION = 1
+
+
+@dataclass
+class ModelDocument:
+    """A fitted model with everything needed to reuse it.
+
+    Attributes
+    ----------
+    covariance : CovarianceModel
+        Nugget and structures, variances in transformed-attribute units squared.
+    mean : MeanModel
+        The mean model (kind, frame, covariate names).
+    coefficients : ndarray
+        Generalised-least-squares estimates of the mean coefficients, in
+        the order of ``mean.term_names`` (informative; kriging re-estimates
+        them from the data it is given).
+    transform : Transform
+        Transform applied to the attribute before modelling.
+    crs_wkt : str
+        WKT of the projected CRS the distances are measured in.
+    units : str
+        Linear unit of that CRS (e.g. ``"metre"``).
+    field : str
+        Name of the attribute the model was fitted to.
+    fit : dict
+        Method, log-likelihood, AIC, BIC, n, warnings and other fit facts.
+    """
+
+    covariance: CovarianceModel
+    mean: MeanModel
+    coefficients: np.ndarray
+    transform: Transform
+    crs_wkt: str
+    units: str
+    field: str = ""
+    fit: dict = dataclasses.field(default_factory=dict)
+
+    def to_dict(self) -> dict:
+        """The JSON-ready document."""
+        mean = self.mean.to_dict()
+        mean["terms"] = list(self.mean.term_names)
+        mean["coefficients"] = [float(c) for c in np.asarray(self.coefficients, dtype=float)]
+        return {
+            "format": FORMAT_NAME,
+            "format_version": FORMAT_VERSION,
+            "software_version": __version__,
+            "field": self.field,
+            **self.covariance.to_dict(),
+            "mean": mean,
+            "transform": self.transform.to_dict(),
+            "crs": self.crs_wkt,
+            "units": self.units,
+            "fit": _json_safe(self.fit),
+        }
+
+    @classmethod
+    def from_dict(cls, data: dict) -> ModelDocument:
+        """Rebuild a document, with a clear error for anything missing or malformed."""
+        if not isinstance(data, dict) or data.get("format") != FORMAT_NAME:
+            raise FieldcastError(
+                "This file is not a Fieldcast model file (no \"format\": \"fieldcast-model\"). "
+                "Choose a file written by 'Fit covariance model'."
+            )
+        if int(data.get("format_version", 0)) > FORMAT_VERSION:
+            raise FieldcastError(
+                f"The model file has format version {data.get('format_version')}, newer than this plugin "
+                f"reads ({FORMAT_VERSION}). Update Fieldcast or refit the model."
+            )
+        try:
+            covariance = CovarianceModel.from_dict(data)
+            mean = MeanModel.from_dict(data["mean"])
+            coefficients = np.asarray(data["mean"].get("coefficients", []), dtype=float)
+            transform = Transform.from_dict(data["transform"])
+            crs_wkt = str(data["crs"])
+            units = str(data["units"])
+        except FieldcastError:
+            raise
+        except (KeyError, TypeError, ValueError) as exc:
+            raise FieldcastError(
+                f"The model file is malformed ({type(exc).__name__}: {exc}). "
+                "Refit the model with 'Fit covariance model' and use the new file."
+            ) from exc
+        if coefficients.size not in (0, mean.n_terms):
+            raise FieldcastError(
+                f"The model file lists {coefficients.size} mean coefficients for a {mean.kind} mean with "
+                f"{mean.n_terms} terms. Refit the model."
+            )
+        return cls(covariance, mean, coefficients, transform, crs_wkt, units,
+                   str(data.get("field", "")), dict(data.get("fit", {})))
+
+    def to_json(self) -> str:
+        """The document as indented JSON text."""
+        return json.dumps(self.to_dict(), indent=2, allow_nan=False)
+
+    @classmethod
+    def from_json(cls, text: str) -> ModelDocument:
+        """Parse JSON text; malformed JSON gives a clear error."""
+        try:
+            data = json.loads(text)
+        except json.JSONDecodeError as exc:
+            raise FieldcastError(
+                f"The model file is not valid JSON (line {exc.lineno}, column {exc.colno}: {exc.msg}). "
+                "Choose a file written by 'Fit covariance model'."
+            ) from exc
+        return cls.from_dict(data)
+
+    def save(self, path: str) -> None:
+        """Write the document to ``path`` through a temporary file (never half-written)."""
+        text = self.to_json()
+        folder = os.path.dirname(os.path.abspath(path))
+        if not os.path.isdir(folder):
+            raise FieldcastError(f"The folder {folder} does not exist; choose an existing folder for the model file.")
+        handle, temporary = tempfile.mkstemp(prefix=".fieldcast-", suffix=".json.part", dir=folder)
+        try:
+            with os.fdopen(handle, "w", encoding="utf-8") as stream:
+                stream.write(text)
+            os.replace(temporary, path)
+        except BaseException:
+            if os.path.exists(temporary):
+                os.remove(temporary)
+            raise
+
+    @classmethod
+    def load(cls, path: str) -> ModelDocument:
+        """Read a model file with a clear error when it cannot be read."""
+        try:
+            with open(path, encoding="utf-8") as stream:
+                text = stream.read()
+        except (OSError, UnicodeDecodeError) as exc:
+            raise FieldcastError(f"Cannot read the model file {path}: {exc}. Check the path.") from exc
+        return cls.from_json(text)
+
+
+def _json_safe(value):
+    """Replace numpy scalars and arrays with plain Python, non-finite floats with None."""
+    if isinstance(value, dict):
+        return {str(k): _json_safe(v) for k, v in value.items()}
+    if isinstance(value, (list, tuple)):
+        return [_json_safe(v) for v in value]
+    if isinstance(value, np.ndarray):
+        return _json_safe(value.tolist())
+    if isinstance(value, (np.floating, float)):
+        return float(value) if math.isfinite(value) else None
+    if isinstance(value, np.integer):
+        return int(value)
+    return value
