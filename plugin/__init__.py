@@ -1,0 +1,1 @@
+"""Everything QGIS: plugin bootstrap, Processing provider and toolbox algorithms."""

@@ -1,0 +1,155 @@
+"""What the Fieldcast toolbox algorithms share: common parameters, sample and model reading, error handling.
+
+Each algorithm subclasses :class:`FieldcastAlgorithm`, declares its own
+parameters in ``initAlgorithm`` with the helpers here, and does its work in
+``compute``; ``processAlgorithm`` turns engine errors into Processing errors.
+"""
+from __future__ import annotations
+
+from collections.abc import Callable, Sequence
+
+from qgis.core import (
+    QgsProcessing,
+    QgsProcessingAlgorithm,
+    QgsProcessingException,
+    QgsProcessingParameterCrs,
+    QgsProcessingParameterEnum,
+    QgsProcessingParameterFeatureSource,
+    QgsProcessingParameterField,
+    QgsProcessingParameterFile,
+)
+from qgis.PyQt.QtCore import QCoreApplication
+
+from ..algorithms.errors import Cancelled, FieldcastError
+from ..algorithms.model_file import ModelDocument
+from ..algorithms.transform import Transform
+from .icons import icon, icon_path
+from .model_source import FitSettings, describe_document, fit_document, load_document
+from .sample_reader import LayerSamples, ModelSamples, prepare_samples, read_layer_samples
+
+
+def progress_callback(feedback, start: float = 0.0, stop: float = 100.0) -> Callable[[float], None]:
+    """A ``progress(fraction)`` for the engine that moves the Processing bar from ``start`` to ``stop`` percent."""
+    return lambda fraction: feedback.setProgress(start + (stop - start) * min(max(fraction, 0.0), 1.0))
+
+
+class FieldcastAlgorithm(QgsProcessingAlgorithm):
+    """Base of the Fieldcast algorithms.
+
+    Subclasses set ``NAME`` (the id after ``fieldcast:``), ``DISPLAY_NAME``, ``HELP`` (HTML from
+    :func:`.help_text.compose_help`) and ``ICON``, add their parameters in ``initAlgorithm`` and do
+    their work in ``compute``.
+    """
+
+    NAME = ""
+    DISPLAY_NAME = ""
+    HELP = ""
+    INPUT = "INPUT"
+    FIELD = "FIELD"
+    MODEL = "MODEL"
+    TARGET_CRS = "TARGET_CRS"
+    ICON = "fieldcast.svg"
+
+    def tr(self, text: str) -> str:
+        return QCoreApplication.translate("Fieldcast", text)
+
+    def name(self) -> str:
+        return self.NAME
+
+    def displayName(self) -> str:
+        return self.tr(self.DISPLAY_NAME)
+
+    def shortHelpString(self) -> str:
+        return self.HELP
+
+    def createInstance(self):
+        return type(self)()
+
+    def group(self) -> str:
+        return self.tr("Kriging")
+
+    def groupId(self) -> str:
+        return "kriging"
+
+    def icon(self):
+        return icon(self.ICON)
+
+    def svgIconPath(self) -> str:
+        return icon_path(self.ICON)
+
+    # --- parameters shared by several algorithms -------------------------------------------------------
+
+    def add_sample_parameters(self) -> None:
+        """INPUT (point layer) and FIELD (numeric attribute of INPUT)."""
+        self.addParameter(QgsProcessingParameterFeatureSource(
+            self.INPUT, self.tr("Sample points"), [QgsProcessing.TypeVectorPoint]))
+        self.addParameter(QgsProcessingParameterField(
+            self.FIELD, self.tr("Value field"), parentLayerParameterName=self.INPUT,
+            type=QgsProcessingParameterField.Numeric))
+
+    def add_model_parameter(self) -> None:
+        """MODEL: optional model file written by 'Fit covariance model'."""
+        self.addParameter(QgsProcessingParameterFile(
+            self.MODEL, self.tr("Model file (from 'Fit covariance model'; empty = fit with the defaults)"),
+            extension="json", optional=True))
+
+    def add_target_crs_parameter(self) -> None:
+        """TARGET_CRS: optional projected CRS to work in."""
+        self.addParameter(QgsProcessingParameterCrs(
+            self.TARGET_CRS, self.tr("Target CRS (projected; empty = automatic)"), optional=True))
+
+    def add_choice(self, name: str, description: str, options: Sequence[str], default: str) -> None:
+        """An enum parameter whose values are the option words themselves (e.g. ``KERNEL=spherical``)."""
+        self.addParameter(QgsProcessingParameterEnum(
+            name, description, options=list(options), defaultValue=default, usesStaticStrings=True))
+
+    def choice(self, parameters, name: str, context) -> str:
+        """The chosen word of an enum parameter made by :meth:`add_choice`."""
+        return self.parameterAsEnumString(parameters, name, context)
+
+    # --- reading samples and models ----------------------------------------------------------------------
+
+    def read_samples(self, parameters, context, feedback) -> LayerSamples:
+        """Samples of INPUT/FIELD in the working CRS (chosen from TARGET_CRS and the layer CRS)."""
+        source = self.parameterAsSource(parameters, self.INPUT, context)
+        if source is None:
+            raise QgsProcessingException(self.invalidSourceError(parameters, self.INPUT))
+        field = self.parameterAsString(parameters, self.FIELD, context)
+        target = self.parameterAsCrs(parameters, self.TARGET_CRS, context)
+        return read_layer_samples(source, field, target, feedback)
+
+    def model_and_samples(self, parameters, context, feedback,
+                          progress: Callable[[float], None]) -> tuple[ModelDocument, ModelSamples]:
+        """The model from MODEL, or one fitted with the default settings, and the samples in its scale."""
+        layer_samples = self.read_samples(parameters, context, feedback)
+        path = self.parameterAsFile(parameters, self.MODEL, context)
+        if path:
+            document = load_document(path, layer_samples.working)
+            feedback.pushInfo(f"Model read from {path}.")
+            if document.field and document.field != layer_samples.field:
+                feedback.pushWarning(f"The model was fitted to field {document.field!r}; "
+                                     f"it is applied here to {layer_samples.field!r}.")
+            samples = prepare_samples(layer_samples, document.transform, feedback)
+        else:
+            settings = FitSettings()
+            feedback.pushInfo(f"No model file given: fitting a model with the default settings "
+                              f"({settings.describe()}, no transform). Run 'Fit covariance model' to choose them.")
+            samples = prepare_samples(layer_samples, Transform(), feedback)
+            document = fit_document(samples.xy, samples.values, Transform(), layer_samples.working,
+                                    layer_samples.field, settings, progress, feedback.isCanceled)
+        feedback.pushInfo(describe_document(document))
+        return document, samples
+
+    # --- running -------------------------------------------------------------------------------------------
+
+    def processAlgorithm(self, parameters, context, feedback):
+        try:
+            return self.compute(parameters, context, feedback)
+        except Cancelled as exc:
+            raise QgsProcessingException(self.tr("Cancelled; no output was written.")) from exc
+        except FieldcastError as exc:
+            raise QgsProcessingException(str(exc)) from exc
+
+    def compute(self, parameters, context, feedback) -> dict:
+        """Do the work of ``processAlgorithm``; engine errors become Processing errors there."""
+        raise NotImplementedError

@@ -1,0 +1,87 @@
+"""Toolbox algorithm 'Cross-validate model' (fieldcast:crossvalidate)."""
+from __future__ import annotations
+
+from qgis.core import (
+    QgsFeature,
+    QgsFeatureSink,
+    QgsField,
+    QgsFields,
+    QgsGeometry,
+    QgsPointXY,
+    QgsProcessingException,
+    QgsProcessingOutputNumber,
+    QgsProcessingParameterFeatureSink,
+    QgsWkbTypes,
+)
+
+from ..algorithms.crossval import leave_one_out
+from .algorithm_base import FieldcastAlgorithm, progress_callback
+from .field_types import field_type
+from .help_text import MODEL_FILE_HELP, TARGET_CRS_HELP, compose_help
+
+SUMMARY_OUTPUTS = (
+    ("ME", "Mean error (modelling units)"),
+    ("RMSE", "Root mean squared error (modelling units)"),
+    ("MSDR", "Mean squared standardised residual"),
+    ("COVERAGE95", "Share of samples inside their 95 % interval"),
+)
+RESULT_FIELDS = ("observed", "predicted", "variance", "residual", "stdresid")
+
+
+class CrossValidateAlgorithm(FieldcastAlgorithm):
+    """Leave-one-out cross-validation of a model on the samples it describes."""
+
+    OUTPUT = "OUTPUT"
+    ICON = "crossvalidate.svg"
+
+    NAME = "crossvalidate"
+    DISPLAY_NAME = "Cross-validate model"
+    HELP = compose_help(
+        "Leaves each sample out in turn, predicts it by kriging from all the others with the model, and "
+        "compares: a check of the model's predictions and of its stated uncertainty.",
+        [("Sample points / Value field", "The samples to check (NULL values skipped, samples at one "
+          "location averaged)."),
+         MODEL_FILE_HELP,
+         TARGET_CRS_HELP],
+        [("Cross-validation points", "One point per sample with sample_id (feature id), observed, predicted, "
+          "variance (prediction-error variance of the observation, nugget included), residual (observed - "
+          "predicted) and stdresid (residual / sqrt(variance)). All in the modelling scale: for a log model "
+          "these are natural logs of value + offset."),
+         ("ME", "Mean residual; near 0 when predictions are unbiased."),
+         ("RMSE", "Root mean squared residual, the typical prediction error (modelling units)."),
+         ("MSDR", "Mean squared standardised residual; near 1 when the variances are right, above 1 when the "
+          "model is over-confident."),
+         ("COVERAGE95", "Share of samples within 1.96 standard errors of their prediction; near 0.95 when the "
+          "uncertainty is right.")],
+    )
+
+    def initAlgorithm(self, config=None):
+        self.add_sample_parameters()
+        self.add_model_parameter()
+        self.add_target_crs_parameter()
+        self.addParameter(QgsProcessingParameterFeatureSink(self.OUTPUT, self.tr("Cross-validation points")))
+        for name, description in SUMMARY_OUTPUTS:
+            self.addOutput(QgsProcessingOutputNumber(name, self.tr(description)))
+
+    def compute(self, parameters, context, feedback) -> dict:
+        document, samples = self.model_and_samples(parameters, context, feedback, progress_callback(feedback, 0, 80))
+        result = leave_one_out(samples.xy, samples.values, document.covariance, document.mean)
+        fields = QgsFields()
+        fields.append(QgsField("sample_id", field_type("LongLong")))
+        for name in RESULT_FIELDS:
+            fields.append(QgsField(name, field_type("Double")))
+        sink, destination = self.parameterAsSink(parameters, self.OUTPUT, context, fields, QgsWkbTypes.Point,
+                                                 samples.layer_crs)
+        if sink is None:
+            raise QgsProcessingException(self.invalidSinkError(parameters, self.OUTPUT))
+        columns = (result.observed, result.predicted, result.variance, result.residual, result.standardized)
+        for row, (fid, (x, y)) in enumerate(zip(samples.fids, samples.layer_xy)):
+            feature = QgsFeature(fields)
+            feature.setGeometry(QgsGeometry.fromPointXY(QgsPointXY(float(x), float(y))))
+            feature.setAttributes([int(fid)] + [float(column[row]) for column in columns])
+            sink.addFeature(feature, QgsFeatureSink.FastInsert)
+        feedback.setProgress(100)
+        summary = result.summary()
+        feedback.pushInfo("Leave-one-out on {n} samples: ME {ME:.4g}, RMSE {RMSE:.4g}, MSDR {MSDR:.4g}, "
+                          "COVERAGE95 {COVERAGE95:.3f}.".format(**summary))
+        return {self.OUTPUT: destination, **{name: summary[name] for name, _ in SUMMARY_OUTPUTS}}

@@ -1,0 +1,49 @@
+"""Help text shared by the toolbox algorithms: layout and the cautions every tool repeats."""
+from __future__ import annotations
+
+from html import escape
+
+CAUTIONS = (
+    "The surfaces and numbers are model-based estimates: they assume the chosen covariance model and a "
+    "stationary field (the same kind of spatial variation everywhere). Read the variance together with the "
+    "prediction. Decisions on contamination or health follow local regulations and licensed professional "
+    "judgement, not this output alone."
+)
+
+WORKING_CRS_NOTE = (
+    "Distances are measured in a projected working CRS: the layer's own CRS when it is projected; for a "
+    "longitude/latitude layer the UTM zone of the data centre, unless you set a target CRS. The log says "
+    "which CRS was used."
+)
+
+TARGET_CRS_HELP = ("Target CRS", "Projected CRS to work in; empty = the layer CRS, or a UTM zone for degrees.")
+
+MODEL_FILE_HELP = (
+    "Model file",
+    "Written by 'Fit covariance model'; its CRS must be the working CRS. Empty: a model is fitted with the "
+    "defaults (auto family, anisotropy, constant mean, REML, no transform) and the log says so.",
+)
+
+
+def compose_help(summary: str, parameters: list[tuple[str, str]], outputs: list[tuple[str, str]]) -> str:
+    """HTML help: a summary, the parameters and outputs in plain words, the working CRS and the cautions.
+
+    Parameters
+    ----------
+    summary : str
+        What the tool does, one or two sentences.
+    parameters, outputs : list of (label, explanation)
+        Shown as definition lists in the order given.
+    """
+    def definitions(items: list[tuple[str, str]]) -> str:
+        rows = "".join(f"<dt><b>{escape(label, quote=False)}</b></dt><dd>{escape(text, quote=False)}</dd>"
+                       for label, text in items)
+        return f"<dl>{rows}</dl>"
+
+    return (
+        f"<p>{escape(summary, quote=False)}</p>"
+        f"<h3>Parameters</h3>{definitions(parameters)}"
+        f"<h3>Outputs</h3>{definitions(outputs)}"
+        f"<p>{escape(WORKING_CRS_NOTE, quote=False)}</p>"
+        f"<p><b>Cautions.</b> {escape(CAUTIONS, quote=False)}</p>"
+    )

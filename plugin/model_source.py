@@ -1,0 +1,72 @@
+"""Fitting a model into a model document, and reading one back for a working CRS."""
+from __future__ import annotations
+
+from collections.abc import Callable
+from dataclasses import dataclass
+
+import numpy as np
+
+from ..algorithms.crs import parse_crs, same_crs
+from ..algorithms.errors import FieldcastError
+from ..algorithms.fitting import fit_model
+from ..algorithms.model_file import ModelDocument
+from ..algorithms.transform import Transform
+from .working_crs import WorkingCrs
+
+
+@dataclass(frozen=True)
+class FitSettings:
+    """The choices of 'Fit covariance model'; the defaults are what the other tools use without a model file."""
+
+    kernel: str = "auto"
+    anisotropy: bool = True
+    trend: str = "constant"
+    method: str = "reml"
+
+    def describe(self) -> str:
+        """The settings in words, for the log."""
+        return (f"kernel {self.kernel}, anisotropy {'on' if self.anisotropy else 'off'}, "
+                f"{self.trend} trend, {self.method.upper()}")
+
+
+def fit_document(xy: np.ndarray, values: np.ndarray, transform: Transform, working: WorkingCrs, field: str,
+                 settings: FitSettings, progress: Callable[[float], None] | None = None,
+                 should_stop: Callable[[], bool] | None = None) -> ModelDocument:
+    """Fit a covariance and mean model and wrap it, with its CRS and transform, as a model document.
+
+    ``xy`` is in the working CRS and ``values`` in the modelling scale (after ``transform``).
+    """
+    result = fit_model(xy, values, kernel=settings.kernel, anisotropy=settings.anisotropy, mean=settings.trend,
+                       method=settings.method, progress=progress, should_stop=should_stop)
+    return ModelDocument(result.covariance, result.mean, result.coefficients, transform, working.wkt,
+                         working.units, field, result.summary())
+
+
+def load_document(path: str, working: WorkingCrs) -> ModelDocument:
+    """Read a model file and check it was fitted in the working CRS.
+
+    Raises
+    ------
+    FieldcastError
+        If the file is unreadable or malformed, or its CRS differs from the working CRS.
+    """
+    document = ModelDocument.load(path)
+    if not same_crs(document.crs_wkt, working.wkt):
+        model_crs = parse_crs(document.crs_wkt)
+        code = model_crs.to_authority()
+        named = model_crs.name + (f" ({code[0]}:{code[1]})" if code else "")
+        raise FieldcastError(f"The model was fitted in {model_crs.name!r}, but the samples are worked in "
+                             f"{parse_crs(working.wkt).name!r}, so its ranges would be read in the wrong units "
+                             f"or axes. Set 'Target CRS' to {named}, or refit the model on these samples.")
+    return document
+
+
+def describe_document(document: ModelDocument) -> str:
+    """One paragraph for the log: structures, nugget, mean and transform of a model."""
+    parts = [f"nugget {document.covariance.nugget:.4g}"]
+    for structure in document.covariance.structures:
+        parts.append(f"{structure.family} partial sill {structure.partial_sill:.4g}, range {structure.range:.4g} "
+                     f"{document.units}, azimuth {structure.azimuth:.1f}°, ratio {structure.ratio:.3g}")
+    transform = "no transform" if document.transform.kind == "none" else \
+        f"log transform (offset {document.transform.offset:g})"
+    return f"Model: {'; '.join(parts)}; {document.mean.kind} mean; {transform}."

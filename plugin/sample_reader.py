@@ -1,0 +1,175 @@
+"""Point layer to sample arrays: values, locations in the working CRS, feature ids.
+
+Reading refuses what cannot be modelled (non-numeric field, missing CRS, empty
+layer, true multipoints) with a message that says what to change, skips
+features whose value is NULL or NaN and says how many in the log. The
+layer itself is only read.
+"""
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+from qgis.core import QgsCoordinateReferenceSystem, QgsFeatureRequest, QgsProcessingFeatureSource
+
+from ..algorithms.crs import same_crs, transform_points
+from ..algorithms.errors import FieldcastError
+from ..algorithms.samples import check_samples, merge_coincident
+from ..algorithms.transform import Transform
+from .working_crs import WorkingCrs, choose_working_crs
+
+
+@dataclass(frozen=True)
+class LayerSamples:
+    """Samples with a value, as read from the layer (before transform and merging).
+
+    Attributes
+    ----------
+    xy : ndarray (n, 2)
+        Locations in the working CRS.
+    layer_xy : ndarray (n, 2)
+        Locations in the layer CRS.
+    values : ndarray (n,)
+        Attribute values in the layer's units.
+    fids : ndarray (n,)
+        Feature ids.
+    layer_crs : QgsCoordinateReferenceSystem
+        The layer's CRS.
+    working : WorkingCrs
+        The CRS of ``xy`` and why it was chosen.
+    field : str
+        Name of the attribute.
+    """
+
+    xy: np.ndarray
+    layer_xy: np.ndarray
+    values: np.ndarray
+    fids: np.ndarray
+    layer_crs: QgsCoordinateReferenceSystem
+    working: WorkingCrs
+    field: str
+
+
+@dataclass(frozen=True)
+class ModelSamples:
+    """Samples ready for the engine: transformed values, coincident points merged.
+
+    ``xy`` is in the working CRS, ``values`` in the modelling scale; ``fids``
+    and ``layer_xy`` (layer CRS ``layer_crs``) belong to the first feature of
+    each merged group; ``field`` names the attribute.
+    """
+
+    xy: np.ndarray
+    values: np.ndarray
+    fids: np.ndarray
+    layer_xy: np.ndarray
+    layer_crs: QgsCoordinateReferenceSystem
+    field: str
+
+
+def crs_wkt(crs: QgsCoordinateReferenceSystem) -> str:
+    """WKT2 text of a QGIS CRS."""
+    return crs.toWkt(QgsCoordinateReferenceSystem.WKT2_2019)
+
+
+def _number(value) -> float:
+    """An attribute as a float; NULL and unreadable values become NaN."""
+    try:
+        return float(value)
+    except (TypeError, ValueError):
+        return math.nan
+
+
+def _point(geometry, fid: int) -> tuple[float, float] | None:
+    """The point of a feature, None without geometry; FieldcastError for several parts."""
+    if geometry is None or geometry.isNull() or geometry.isEmpty():
+        return None
+    if geometry.isMultipart():
+        parts = geometry.asMultiPoint()
+        if len(parts) != 1:
+            raise FieldcastError(f"Feature {fid} is a multipoint with {len(parts)} points. Run 'Multipart to "
+                                 "singleparts' on the layer first, so each sample is its own point feature.")
+        point = parts[0]
+    else:
+        point = geometry.asPoint()
+    return point.x(), point.y()
+
+
+def read_layer_samples(source: QgsProcessingFeatureSource, field: str, target_crs: QgsCoordinateReferenceSystem,
+                       feedback) -> LayerSamples:
+    """Read point locations and one numeric attribute from a layer.
+
+    Parameters
+    ----------
+    source : QgsProcessingFeatureSource
+        The point layer (only read).
+    field : str
+        Name of a numeric attribute.
+    target_crs : QgsCoordinateReferenceSystem
+        Working CRS chosen by the user; an invalid CRS means "choose for me".
+    feedback : QgsProcessingFeedback
+        Receives the log lines.
+    """
+    layer_crs = source.sourceCrs()
+    if not layer_crs.isValid():
+        raise FieldcastError("The sample layer has no coordinate reference system. Assign one in Layer "
+                             "Properties > Source (or with 'Assign projection') and run again.")
+    index = source.fields().lookupField(field)
+    if index < 0:
+        raise FieldcastError(f"The sample layer has no field {field!r}; choose one of its numeric fields.")
+    if not source.fields().at(index).isNumeric():
+        kind = source.fields().at(index).typeName()
+        raise FieldcastError(f"Field {field!r} holds {kind} values, not numbers. Choose a numeric field, or "
+                             "make one with the Field calculator (e.g. to_real(\"field\")).")
+    if source.featureCount() == 0:
+        raise FieldcastError("The sample layer is empty. Choose a point layer that holds samples.")
+    request = QgsFeatureRequest().setSubsetOfAttributes([index])
+    points, values, fids = [], [], []
+    skipped_values = skipped_geometry = 0
+    for feature in source.getFeatures(request):
+        point = _point(feature.geometry(), feature.id())
+        value = _number(feature.attributes()[index])
+        if point is None:
+            skipped_geometry += 1
+        elif not math.isfinite(value):
+            skipped_values += 1
+        else:
+            points.append(point)
+            values.append(value)
+            fids.append(feature.id())
+    if skipped_values:
+        feedback.pushInfo(f"Skipped {skipped_values} feature(s) whose {field} is NULL or not a number.")
+    if skipped_geometry:
+        feedback.pushInfo(f"Skipped {skipped_geometry} feature(s) without a geometry.")
+    if not points:
+        raise FieldcastError(f"The sample layer has no point with a value in {field!r} "
+                             f"({skipped_values} NULL/NaN values, {skipped_geometry} empty geometries). "
+                             "Choose a layer with samples, or another field.")
+    layer_xy = np.array(points, dtype=float)
+    layer_wkt = crs_wkt(layer_crs)
+    target_wkt = crs_wkt(target_crs) if target_crs.isValid() else None
+    working = choose_working_crs(layer_wkt, layer_xy, target_wkt)
+    feedback.pushInfo(working.reason)
+    xy = layer_xy if same_crs(layer_wkt, working.wkt) else transform_points(layer_xy, layer_wkt, working.wkt)
+    return LayerSamples(xy, layer_xy, np.array(values, dtype=float), np.array(fids, dtype=np.int64),
+                        layer_crs, working, field)
+
+
+def prepare_samples(samples: LayerSamples, transform: Transform, feedback) -> ModelSamples:
+    """Transform values, average coincident points and check the result can be modelled.
+
+    Raises
+    ------
+    FieldcastError
+        For values the transform cannot take, fewer than three samples or a constant attribute.
+    """
+    values = transform.forward(samples.values)
+    merged = merge_coincident(samples.xy, values, ids=np.arange(len(values)))
+    if merged.merged_groups:
+        feedback.pushInfo(f"Averaged {merged.merged_points} samples at {merged.merged_groups} shared locations "
+                          f"(in the modelling scale); {len(merged.values)} samples remain.")
+    check_samples(merged.xy, merged.values)
+    feedback.pushInfo(f"Using {len(merged.values)} samples of {samples.field}.")
+    return ModelSamples(merged.xy, merged.values, samples.fids[merged.ids], samples.layer_xy[merged.ids],
+                        samples.layer_crs, samples.field)

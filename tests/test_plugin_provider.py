@@ -1,0 +1,90 @@
+"""Plugin bootstrap: metadata, provider registration, the public parameter contract, help and icons."""
+from __future__ import annotations
+
+import configparser
+import xml.etree.ElementTree as ElementTree
+
+import pytest
+from qgis.core import QgsApplication, QgsProcessingParameterEnum
+from qgis.PyQt.QtSvg import QSvgRenderer
+
+from algorithms.version import __version__
+from qgis_support import REPO_ROOT, fieldcast_plugin, qgis_processing  # noqa: F401 - fixtures
+
+CONTRACT = {
+    "fitmodel": ("Fit covariance model",
+                 {"INPUT", "FIELD", "TRANSFORM", "LOG_OFFSET", "KERNEL", "ANISOTROPY", "TREND", "METHOD",
+                  "TARGET_CRS", "OUTPUT_MODEL"},
+                 {"OUTPUT_MODEL", "PARTIAL_SILL", "RANGE", "NUGGET", "AZIMUTH", "RATIO", "LOG_LIKELIHOOD", "AIC"}),
+    "predict": ("Predict surface",
+                {"INPUT", "FIELD", "MODEL", "EXTENT", "PIXEL_SIZE", "MASK", "BACKTRANSFORM", "TARGET_CRS",
+                 "OUTPUT", "OUTPUT_VARIANCE"},
+                {"OUTPUT", "OUTPUT_VARIANCE"}),
+    "crossvalidate": ("Cross-validate model",
+                      {"INPUT", "FIELD", "MODEL", "TARGET_CRS", "OUTPUT"},
+                      {"OUTPUT", "ME", "RMSE", "MSDR", "COVERAGE95"}),
+}
+CHOICES = {
+    ("fitmodel", "TRANSFORM"): ["none", "log"],
+    ("fitmodel", "KERNEL"): ["auto", "exponential", "spherical", "gaussian", "matern32", "matern52", "matern"],
+    ("fitmodel", "TREND"): ["constant", "linear", "quadratic"],
+    ("fitmodel", "METHOD"): ["reml", "ml", "wls"],
+    ("predict", "BACKTRANSFORM"): ["median", "mean"],
+}
+
+
+def metadata() -> configparser.SectionProxy:
+    # QGIS reads metadata.txt with configparser (interpolation on), so a stray '%' would break it.
+    parser = configparser.ConfigParser()
+    parser.read(REPO_ROOT / "metadata.txt", encoding="utf-8")
+    return parser["general"]
+
+
+def test_metadata_declares_a_processing_plugin_of_this_version():
+    general = metadata()
+    assert general["name"] == "Fieldcast"
+    assert general["version"] == __version__
+    assert general["qgisMinimumVersion"] == "3.22"
+    assert general["hasProcessingProvider"] == "yes"
+    assert general["license"] == "GPL-2.0-or-later"
+    assert "kriging" in general["description"].lower() and "licensed professional" in general["about"]
+    assert (REPO_ROOT / general["icon"]).is_file()
+
+
+def test_class_factory_registers_the_provider_with_three_algorithms(fieldcast_plugin):  # noqa: F811
+    provider = QgsApplication.processingRegistry().providerById("fieldcast")
+    assert provider is not None and provider.name() == "Fieldcast"
+    assert sorted(a.name() for a in provider.algorithms()) == sorted(CONTRACT)
+    assert QSvgRenderer(provider.svgIconPath()).isValid()
+
+
+def test_unload_removes_the_provider(fieldcast_plugin):  # noqa: F811
+    registry = QgsApplication.processingRegistry()
+    fieldcast_plugin.unload()
+    assert registry.providerById("fieldcast") is None
+    fieldcast_plugin.initProcessing()
+    assert registry.providerById("fieldcast") is not None
+
+
+@pytest.mark.parametrize("name", sorted(CONTRACT))
+def test_parameters_and_outputs_are_the_public_contract(fieldcast_plugin, name):  # noqa: F811
+    algorithm = QgsApplication.processingRegistry().algorithmById(f"fieldcast:{name}")
+    display, parameters, outputs = CONTRACT[name]
+    assert algorithm.displayName() == display
+    assert {p.name() for p in algorithm.parameterDefinitions()} == parameters
+    assert {o.name() for o in algorithm.outputDefinitions()} == outputs
+    help_text = algorithm.shortHelpString()
+    for caution in ("covariance model", "stationary", "variance together with the prediction",
+                    "local regulations", "licensed professional judgement"):
+        assert caution in help_text
+    root = ElementTree.parse(algorithm.svgIconPath()).getroot()
+    assert root.tag.endswith("svg") and QSvgRenderer(algorithm.svgIconPath()).isValid()
+
+
+@pytest.mark.parametrize("key", sorted(CHOICES))
+def test_choices_take_the_words_as_values(fieldcast_plugin, key):  # noqa: F811
+    name, parameter = key
+    definition = QgsApplication.processingRegistry().algorithmById(f"fieldcast:{name}").parameterDefinition(parameter)
+    assert isinstance(definition, QgsProcessingParameterEnum)
+    assert definition.usesStaticStrings() and definition.options() == CHOICES[key]
+    assert definition.defaultValue() == CHOICES[key][0]
