@@ -1,0 +1,107 @@
+"""Rendering a report page from its template, and writing it to disk.
+
+A page is rendered from ``templates/<name>.html.j2`` with jinja2 (HTML
+autoescaping on) and carries, besides the visible tables and plots, one
+machine-readable block ``<script type="application/json" id="fieldcast-data">``
+with the numbers the page shows, so a run can be checked or compared with
+another without parsing tables. Pages hold no timestamps or random ids:
+the same inputs give the same bytes.
+"""
+from __future__ import annotations
+
+import json
+import math
+import os
+import tempfile
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+TEMPLATE_DIR = Path(__file__).resolve().parent / "templates"
+
+
+class ReportError(ValueError):
+    """A report cannot be written; the message says what to change."""
+
+
+def plain(value: Any) -> Any:
+    """``value`` as JSON-ready Python data: numpy to lists and scalars, non-finite floats to None."""
+    if isinstance(value, dict):
+        return {str(key): plain(item) for key, item in value.items()}
+    if isinstance(value, (list, tuple, np.ndarray)):
+        return [plain(item) for item in value]
+    if isinstance(value, (bool, np.bool_)):
+        return bool(value)
+    if isinstance(value, (int, np.integer)):
+        return int(value)
+    if isinstance(value, (float, np.floating)):
+        return float(value) if math.isfinite(value) else None
+    return value
+
+
+def script_json(data: Any) -> str:
+    """JSON text safe to place inside a ``<script>`` element.
+
+    Keys are sorted so the text is reproducible; every ``<`` is written
+    ``\\u003c`` (the same string to a JSON parser) so no value can close the
+    element or open an HTML comment in it.
+    """
+    text = json.dumps(plain(data), sort_keys=True, allow_nan=False, ensure_ascii=False, separators=(",", ":"))
+    return text.replace("<", "\\u003c")
+
+
+def format_number(value: Any, digits: int = 4) -> str:
+    """Short text for a number: ``digits`` significant figures, whole thousands without exponent.
+
+    None, NaN and infinity show as an en dash.
+    """
+    if value is None:
+        return "\u2013"
+    number = float(value)
+    if not math.isfinite(number):
+        return "\u2013"
+    if number == round(number) and 1e4 <= abs(number) < 1e12:
+        return f"{number:,.0f}"
+    return f"{number:.{digits}g}"
+
+
+def render(template_name: str, context: dict[str, Any]) -> str:
+    """Render ``templates/<template_name>`` with ``context``.
+
+    jinja2 is imported here, not at module import, so loading the plugin
+    does not pay for it.
+    """
+    import jinja2
+
+    environment = jinja2.Environment(
+        loader=jinja2.FileSystemLoader(str(TEMPLATE_DIR)),
+        autoescape=True,
+        undefined=jinja2.StrictUndefined,
+        trim_blocks=True,
+        lstrip_blocks=True,
+        keep_trailing_newline=True,
+    )
+    environment.filters["num"] = format_number
+    environment.filters["script_json"] = script_json
+    return environment.get_template(template_name).render(**context)
+
+
+def write_atomically(path: str | os.PathLike, text: str) -> None:
+    """Write ``text`` to ``path`` through a temporary file in the same folder, then move it into place.
+
+    A failure or interruption leaves no partly written report behind.
+    """
+    target = os.path.abspath(os.fspath(path))
+    folder = os.path.dirname(target)
+    if not os.path.isdir(folder):
+        raise ReportError(f"The folder {folder} does not exist; choose an existing folder for the report.")
+    handle, temporary = tempfile.mkstemp(prefix=".fieldcast-", suffix=".html.part", dir=folder)
+    try:
+        with os.fdopen(handle, "w", encoding="utf-8", newline="\n") as stream:
+            stream.write(text)
+        os.replace(temporary, target)
+    except BaseException:
+        if os.path.exists(temporary):
+            os.remove(temporary)
+        raise
