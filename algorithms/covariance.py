@@ -144,7 +144,7 @@ class Structure:
         }
 
     @classmethod
-    def from_dict(cls, data: dict) -> "Structure":
+    def from_dict(cls, data: dict) -> Structure:
         """Inverse of :meth:`to_dict` (``effective_range`` is recomputed)."""
         smooth = data.get("smoothness")
         return cls(
@@ -208,7 +208,7 @@ class CovarianceModel:
         h = np.hypot(dx, dy)
         return np.where(h > 0, self.sill - self.covariance_from_offsets(dx, dy), 0.0)
 
-    def scaled(self, factor: float) -> "CovarianceModel":
+    def scaled(self, factor: float) -> CovarianceModel:
         """The same model with every variance multiplied by ``factor``."""
         return CovarianceModel(
             tuple(replace(s, partial_sill=s.partial_sill * factor) for s in self.structures),
@@ -220,6 +220,6 @@ class CovarianceModel:
         return {"nugget": float(self.nugget), "structures": [s.to_dict() for s in self.structures]}
 
     @classmethod
-    def from_dict(cls, data: dict) -> "CovarianceModel":
+    def from_dict(cls, data: dict) -> CovarianceModel:
         """Inverse of :meth:`to_dict`."""
         return cls(tuple(Structure.from_dict(s) for s in data["structures"]), float(data.get("nugget", 0.0)))

@@ -6,11 +6,11 @@ in it. See the README section "The model file" for the layout.
 """
 from __future__ import annotations
 
+import dataclasses
 import json
 import math
 import os
 import tempfile
-import dataclasses
 from dataclasses import dataclass
 
 import numpy as np
