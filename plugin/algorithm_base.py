@@ -6,6 +6,7 @@ parameters in ``initAlgorithm`` with the helpers here, and does its work in
 """
 from __future__ import annotations
 
+import os
 from collections.abc import Callable, Sequence
 
 from qgis.core import (
@@ -17,6 +18,7 @@ from qgis.core import (
     QgsProcessingParameterFeatureSource,
     QgsProcessingParameterField,
     QgsProcessingParameterFile,
+    QgsProcessingParameterFileDestination,
 )
 from qgis.PyQt.QtCore import QCoreApplication
 
@@ -25,6 +27,7 @@ from ..algorithms.model_file import ModelDocument
 from ..algorithms.transform import Transform
 from .icons import icon, icon_path
 from .model_source import FitSettings, describe_document, fit_document, load_document
+from .report.page import ReportError
 from .sample_reader import LayerSamples, ModelSamples, prepare_samples, read_layer_samples
 
 
@@ -48,6 +51,7 @@ class FieldcastAlgorithm(QgsProcessingAlgorithm):
     FIELD = "FIELD"
     MODEL = "MODEL"
     TARGET_CRS = "TARGET_CRS"
+    OUTPUT_REPORT = "OUTPUT_REPORT"
     ICON = "fieldcast.svg"
 
     def tr(self, text: str) -> str:
@@ -98,6 +102,11 @@ class FieldcastAlgorithm(QgsProcessingAlgorithm):
         self.addParameter(QgsProcessingParameterCrs(
             self.TARGET_CRS, self.tr("Target CRS (projected; empty = automatic)"), optional=True))
 
+    def add_report_parameter(self, description: str) -> None:
+        """OUTPUT_REPORT: optional HTML report; the dialog writes it to a temporary file unless skipped."""
+        self.addParameter(QgsProcessingParameterFileDestination(
+            self.OUTPUT_REPORT, description, self.tr("HTML files (*.html)"), optional=True, createByDefault=True))
+
     def add_choice(self, name: str, description: str, options: Sequence[str], default: str) -> None:
         """An enum parameter whose values are the option words themselves (e.g. ``KERNEL=spherical``)."""
         self.addParameter(QgsProcessingParameterEnum(
@@ -106,6 +115,20 @@ class FieldcastAlgorithm(QgsProcessingAlgorithm):
     def choice(self, parameters, name: str, context) -> str:
         """The chosen word of an enum parameter made by :meth:`add_choice`."""
         return self.parameterAsEnumString(parameters, name, context)
+
+    def report_destination(self, parameters, context) -> str:
+        """The OUTPUT_REPORT path, "" when no report is wanted.
+
+        Raises
+        ------
+        FieldcastError
+            If the report's folder does not exist: checked before any work, so no other output is written either.
+        """
+        path = self.parameterAsFileOutput(parameters, self.OUTPUT_REPORT, context)
+        folder = os.path.dirname(os.path.abspath(path))
+        if path and not os.path.isdir(folder):
+            raise FieldcastError(f"The folder {folder} does not exist; choose an existing folder for the report.")
+        return path
 
     # --- reading samples and models ----------------------------------------------------------------------
 
@@ -135,8 +158,8 @@ class FieldcastAlgorithm(QgsProcessingAlgorithm):
             feedback.pushInfo(f"No model file given: fitting a model with the default settings "
                               f"({settings.describe()}, no transform). Run 'Fit covariance model' to choose them.")
             samples = prepare_samples(layer_samples, Transform(), feedback)
-            document = fit_document(samples.xy, samples.values, Transform(), layer_samples.working,
-                                    layer_samples.field, settings, progress, feedback.isCanceled)
+            document, _ = fit_document(samples.xy, samples.values, Transform(), layer_samples.working,
+                                       layer_samples.field, settings, progress, feedback.isCanceled)
         feedback.pushInfo(describe_document(document))
         return document, samples
 
@@ -147,9 +170,9 @@ class FieldcastAlgorithm(QgsProcessingAlgorithm):
             return self.compute(parameters, context, feedback)
         except Cancelled as exc:
             raise QgsProcessingException(self.tr("Cancelled; no output was written.")) from exc
-        except FieldcastError as exc:
+        except (FieldcastError, ReportError) as exc:
             raise QgsProcessingException(str(exc)) from exc
 
     def compute(self, parameters, context, feedback) -> dict:
-        """Do the work of ``processAlgorithm``; engine errors become Processing errors there."""
+        """Do the work of ``processAlgorithm``; engine and report errors become Processing errors there."""
         raise NotImplementedError

@@ -15,9 +15,11 @@ from qgis.core import (
 )
 
 from ..algorithms.crossval import leave_one_out
+from ..algorithms.crs import parse_crs
 from .algorithm_base import FieldcastAlgorithm, progress_callback
 from .field_types import field_type
 from .help_text import MODEL_FILE_HELP, TARGET_CRS_HELP, compose_help
+from .report.crossvalidation_report import write_crossvalidation_report
 
 SUMMARY_OUTPUTS = (
     ("ME", "Mean error (modelling units)"),
@@ -47,6 +49,10 @@ class CrossValidateAlgorithm(FieldcastAlgorithm):
           "variance (prediction-error variance of the observation, nugget included), residual (observed - "
           "predicted) and stdresid (residual / sqrt(variance)). All in the modelling scale: for a log model "
           "these are natural logs of value + offset."),
+         ("Cross-validation report", "HTML page (a temporary file unless you name one or skip it): the four "
+          "numbers below with their ideal values, a rough band and how to read them, observed against "
+          "predicted, a map and a histogram of the standardised residuals, the worst-predicted samples and the "
+          "model checked. Read it before trusting a map made with this model."),
          ("ME", "Mean residual; near 0 when predictions are unbiased."),
          ("RMSE", "Root mean squared residual, the typical prediction error (modelling units)."),
          ("MSDR", "Mean squared standardised residual; near 1 when the variances are right, above 1 when the "
@@ -60,10 +66,12 @@ class CrossValidateAlgorithm(FieldcastAlgorithm):
         self.add_model_parameter()
         self.add_target_crs_parameter()
         self.addParameter(QgsProcessingParameterFeatureSink(self.OUTPUT, self.tr("Cross-validation points")))
+        self.add_report_parameter(self.tr("Cross-validation report"))
         for name, description in SUMMARY_OUTPUTS:
             self.addOutput(QgsProcessingOutputNumber(name, self.tr(description)))
 
     def compute(self, parameters, context, feedback) -> dict:
+        report_path = self.report_destination(parameters, context)
         document, samples = self.model_and_samples(parameters, context, feedback, progress_callback(feedback, 0, 80))
         result = leave_one_out(samples.xy, samples.values, document.covariance, document.mean)
         fields = QgsFields()
@@ -80,8 +88,13 @@ class CrossValidateAlgorithm(FieldcastAlgorithm):
             feature.setGeometry(QgsGeometry.fromPointXY(QgsPointXY(float(x), float(y))))
             feature.setAttributes([int(fid)] + [float(column[row]) for column in columns])
             sink.addFeature(feature, QgsFeatureSink.FastInsert)
-        feedback.setProgress(100)
         summary = result.summary()
         feedback.pushInfo("Leave-one-out on {n} samples: ME {ME:.4g}, RMSE {RMSE:.4g}, MSDR {MSDR:.4g}, "
                           "COVERAGE95 {COVERAGE95:.3f}.".format(**summary))
-        return {self.OUTPUT: destination, **{name: summary[name] for name, _ in SUMMARY_OUTPUTS}}
+        outputs = {self.OUTPUT: destination, **{name: summary[name] for name, _ in SUMMARY_OUTPUTS}}
+        if report_path:
+            write_crossvalidation_report(report_path, cv=result, ids=samples.fids, xy=samples.xy, model=document,
+                                         crs_name=parse_crs(document.crs_wkt).name)
+            outputs[self.OUTPUT_REPORT] = report_path
+        feedback.setProgress(100)
+        return outputs

@@ -1,6 +1,8 @@
 """Toolbox algorithm 'Fit covariance model' (fieldcast:fitmodel)."""
 from __future__ import annotations
 
+from collections.abc import Callable, Mapping
+
 from qgis.core import (
     QgsProcessingOutputNumber,
     QgsProcessingParameterBoolean,
@@ -9,12 +11,18 @@ from qgis.core import (
     QgsProcessingParameterNumber,
 )
 
-from ..algorithms.fitting import FIT_METHODS, KERNEL_CHOICES
+from ..algorithms.crossval import leave_one_out
+from ..algorithms.crs import parse_crs
+from ..algorithms.errors import Cancelled
+from ..algorithms.fitting import FIT_METHODS, KERNEL_CHOICES, FitResult
+from ..algorithms.model_file import ModelDocument
 from ..algorithms.transform import TRANSFORM_KINDS, Transform
+from ..algorithms.variogram import directional_semivariograms, empirical_semivariogram
 from .algorithm_base import FieldcastAlgorithm, progress_callback
 from .help_text import TARGET_CRS_HELP, compose_help
 from .model_source import FitSettings, fit_document
-from .sample_reader import prepare_samples
+from .report.fit_report import write_fit_report
+from .sample_reader import ModelSamples, prepare_samples
 
 TREND_CHOICES = ("constant", "linear", "quadratic")
 
@@ -27,6 +35,38 @@ NUMBER_OUTPUTS = (
     ("LOG_LIKELIHOOD", "Log-likelihood"),
     ("AIC", "AIC"),
 )
+
+FIT_PERCENT_WITH_REPORT = 80.0
+"""Share of the progress bar (percent) the fit takes when a report is asked for; the report's
+leave-one-out runs of the candidate models fill the rest."""
+
+
+def fit_report_arguments(samples: ModelSamples, skipped: Mapping[str, int], result: FitResult,
+                         document: ModelDocument, progress: Callable[[float], None],
+                         should_stop: Callable[[], bool]) -> dict:
+    """Everything :func:`.report.fit_report.write_fit_report` takes besides the path.
+
+    The semivariograms (omnidirectional, and at 0, 45, 90 and 135 degrees) are of the residuals
+    ``values - F beta`` from the fitted mean, in the modelling scale. Each candidate model is
+    cross-validated by leave-one-out with the fitted mean kind, for its RMSE (modelling units);
+    ``should_stop`` is asked before each candidate.
+
+    Raises
+    ------
+    Cancelled
+        When ``should_stop()`` turns True.
+    """
+    residuals = samples.values - result.mean.design(samples.xy) @ result.coefficients
+    variograms = [empirical_semivariogram(samples.xy, residuals), *directional_semivariograms(samples.xy, residuals)]
+    loo_rmse = []
+    for index, candidate in enumerate(result.candidates):
+        if should_stop():
+            raise Cancelled("Cancelled while cross-validating the candidate models for the report.")
+        cv = leave_one_out(samples.xy, samples.values, candidate.covariance, result.mean)
+        loo_rmse.append(cv.summary()["RMSE"])
+        progress((index + 1) / len(result.candidates))
+    return dict(samples=samples.engine_samples(), fit=result, model=document, variograms=variograms,
+                crs_name=parse_crs(document.crs_wkt).name, skipped=skipped, candidate_loo_rmse=loo_rmse)
 
 
 class FitModelAlgorithm(FieldcastAlgorithm):
@@ -62,6 +102,12 @@ class FitModelAlgorithm(FieldcastAlgorithm):
           "squares on the empirical semivariogram)."),
          TARGET_CRS_HELP],
         [("Model file", "JSON file with the fitted model, its CRS, transform and fit statistics."),
+         ("Fit report", "HTML page (a temporary file unless you name one or skip it): the samples "
+          "used and left out, their histogram and map, the empirical semivariogram of the residuals from the mean "
+          "in all directions and in four, with the fitted model drawn over it, every candidate model with its AIC "
+          "and leave-one-out RMSE and the chosen one marked, the parameters in words, and the fit warnings. Read "
+          "it before trusting a map made with this model. The model file and the report are written only when "
+          "all the computing is done: cancelling leaves neither."),
          ("Numbers", "Partial sill, range (working CRS units, e.g. metres), nugget, azimuth (degrees), ratio "
           "of the first structure, log-likelihood and AIC, in the modelling scale (after the transform). "
           "Fit warnings appear in the log.")],
@@ -81,6 +127,7 @@ class FitModelAlgorithm(FieldcastAlgorithm):
         self.add_target_crs_parameter()
         self.addParameter(QgsProcessingParameterFileDestination(
             self.OUTPUT_MODEL, self.tr("Model file"), self.tr("Fieldcast model (*.json)")))
+        self.add_report_parameter(self.tr("Fit report"))
         for name, description in NUMBER_OUTPUTS:
             self.addOutput(QgsProcessingOutputNumber(name, self.tr(description)))
 
@@ -91,19 +138,31 @@ class FitModelAlgorithm(FieldcastAlgorithm):
                                anisotropy=self.parameterAsBoolean(parameters, self.ANISOTROPY, context),
                                trend=self.choice(parameters, self.TREND, context),
                                method=self.choice(parameters, self.METHOD, context))
+        report_path = self.report_destination(parameters, context)
         layer_samples = self.read_samples(parameters, context, feedback)
         samples = prepare_samples(layer_samples, transform, feedback)
         feedback.pushInfo(f"Fitting with {settings.describe()}.")
-        document = fit_document(samples.xy, samples.values, transform, layer_samples.working, layer_samples.field,
-                                settings, progress_callback(feedback, 0.0, 99.0), feedback.isCanceled)
+        fit_percent = FIT_PERCENT_WITH_REPORT if report_path else 99.0
+        document, result = fit_document(samples.xy, samples.values, transform, layer_samples.working,
+                                        layer_samples.field, settings, progress_callback(feedback, 0.0, fit_percent),
+                                        feedback.isCanceled)
         for warning in document.fit.get("warnings", []):
             feedback.pushWarning(warning)
+        report = None
+        if report_path:
+            feedback.pushInfo(f"Leave-one-out of the {len(result.candidates)} candidate model(s) for the report.")
+            report = fit_report_arguments(samples, layer_samples.skipped, result, document,
+                                          progress_callback(feedback, fit_percent, 99.0), feedback.isCanceled)
         path = self.parameterAsFileOutput(parameters, self.OUTPUT_MODEL, context)
         document.save(path)
+        outputs = {self.OUTPUT_MODEL: path}
+        if report is not None:
+            write_fit_report(report_path, **report)
+            outputs[self.OUTPUT_REPORT] = report_path
         feedback.setProgress(100.0)
         first = document.covariance.structures[0]
         return {
-            self.OUTPUT_MODEL: path,
+            **outputs,
             "PARTIAL_SILL": first.partial_sill,
             "RANGE": first.range,
             "NUGGET": document.covariance.nugget,

@@ -8,7 +8,7 @@ import numpy as np
 
 from ..algorithms.crs import parse_crs, same_crs
 from ..algorithms.errors import FieldcastError
-from ..algorithms.fitting import fit_model
+from ..algorithms.fitting import FitResult, fit_model
 from ..algorithms.model_file import ModelDocument
 from ..algorithms.transform import Transform
 from .working_crs import WorkingCrs
@@ -31,15 +31,17 @@ class FitSettings:
 
 def fit_document(xy: np.ndarray, values: np.ndarray, transform: Transform, working: WorkingCrs, field: str,
                  settings: FitSettings, progress: Callable[[float], None] | None = None,
-                 should_stop: Callable[[], bool] | None = None) -> ModelDocument:
+                 should_stop: Callable[[], bool] | None = None) -> tuple[ModelDocument, FitResult]:
     """Fit a covariance and mean model and wrap it, with its CRS and transform, as a model document.
 
     ``xy`` is in the working CRS and ``values`` in the modelling scale (after ``transform``).
+    Returns the document and the engine's fit result (candidates and all), which the fit report reads.
     """
     result = fit_model(xy, values, kernel=settings.kernel, anisotropy=settings.anisotropy, mean=settings.trend,
                        method=settings.method, progress=progress, should_stop=should_stop)
-    return ModelDocument(result.covariance, result.mean, result.coefficients, transform, working.wkt,
-                         working.units, field, result.summary())
+    document = ModelDocument(result.covariance, result.mean, result.coefficients, transform, working.wkt,
+                             working.units, field, result.summary())
+    return document, result
 
 
 def load_document(path: str, working: WorkingCrs) -> ModelDocument:

@@ -2,8 +2,8 @@
 
 Reading refuses what cannot be modelled (non-numeric field, missing CRS, empty
 layer, true multipoints) with a message that says what to change, skips
-features whose value is NULL or NaN and says how many in the log. The
-layer itself is only read.
+features whose value is NULL or NaN or that have no geometry, and counts them
+(in the log and in :attr:`LayerSamples.skipped`). The layer itself is only read.
 """
 from __future__ import annotations
 
@@ -15,7 +15,7 @@ from qgis.core import QgsCoordinateReferenceSystem, QgsFeatureRequest, QgsProces
 
 from ..algorithms.crs import same_crs, transform_points
 from ..algorithms.errors import FieldcastError
-from ..algorithms.samples import check_samples, merge_coincident
+from ..algorithms.samples import Samples, check_samples, merge_coincident
 from ..algorithms.transform import Transform
 from .working_crs import WorkingCrs, choose_working_crs
 
@@ -40,6 +40,9 @@ class LayerSamples:
         The CRS of ``xy`` and why it was chosen.
     field : str
         Name of the attribute.
+    skipped : dict of str to int
+        Features left out, by reason (only reasons that occurred), e.g.
+        ``{"value is NULL or not a number": 2}``.
     """
 
     xy: np.ndarray
@@ -49,6 +52,7 @@ class LayerSamples:
     layer_crs: QgsCoordinateReferenceSystem
     working: WorkingCrs
     field: str
+    skipped: dict[str, int]
 
 
 @dataclass(frozen=True)
@@ -57,7 +61,8 @@ class ModelSamples:
 
     ``xy`` is in the working CRS, ``values`` in the modelling scale; ``fids``
     and ``layer_xy`` (layer CRS ``layer_crs``) belong to the first feature of
-    each merged group; ``field`` names the attribute.
+    each merged group; ``field`` names the attribute. ``merged_points``
+    samples were averaged into ``merged_groups`` shared locations.
     """
 
     xy: np.ndarray
@@ -66,6 +71,12 @@ class ModelSamples:
     layer_xy: np.ndarray
     layer_crs: QgsCoordinateReferenceSystem
     field: str
+    merged_groups: int
+    merged_points: int
+
+    def engine_samples(self) -> Samples:
+        """The samples as the engine's :class:`Samples` (ids are the feature ids), e.g. for the fit report."""
+        return Samples(self.xy, self.values, self.fids, self.merged_groups, self.merged_points)
 
 
 def crs_wkt(crs: QgsCoordinateReferenceSystem) -> str:
@@ -152,8 +163,10 @@ def read_layer_samples(source: QgsProcessingFeatureSource, field: str, target_cr
     working = choose_working_crs(layer_wkt, layer_xy, target_wkt)
     feedback.pushInfo(working.reason)
     xy = layer_xy if same_crs(layer_wkt, working.wkt) else transform_points(layer_xy, layer_wkt, working.wkt)
+    skipped = {reason: count for reason, count in (("value is NULL or not a number", skipped_values),
+                                                   ("no geometry", skipped_geometry)) if count}
     return LayerSamples(xy, layer_xy, np.array(values, dtype=float), np.array(fids, dtype=np.int64),
-                        layer_crs, working, field)
+                        layer_crs, working, field, skipped)
 
 
 def prepare_samples(samples: LayerSamples, transform: Transform, feedback) -> ModelSamples:
@@ -172,4 +185,4 @@ def prepare_samples(samples: LayerSamples, transform: Transform, feedback) -> Mo
     check_samples(merged.xy, merged.values)
     feedback.pushInfo(f"Using {len(merged.values)} samples of {samples.field}.")
     return ModelSamples(merged.xy, merged.values, samples.fids[merged.ids], samples.layer_xy[merged.ids],
-                        samples.layer_crs, samples.field)
+                        samples.layer_crs, samples.field, merged.merged_groups, merged.merged_points)

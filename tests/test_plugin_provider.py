@@ -14,15 +14,16 @@ from qgis_support import REPO_ROOT, fieldcast_plugin, qgis_processing  # noqa: F
 CONTRACT = {
     "fitmodel": ("Fit covariance model",
                  {"INPUT", "FIELD", "TRANSFORM", "LOG_OFFSET", "KERNEL", "ANISOTROPY", "TREND", "METHOD",
-                  "TARGET_CRS", "OUTPUT_MODEL"},
-                 {"OUTPUT_MODEL", "PARTIAL_SILL", "RANGE", "NUGGET", "AZIMUTH", "RATIO", "LOG_LIKELIHOOD", "AIC"}),
+                  "TARGET_CRS", "OUTPUT_MODEL", "OUTPUT_REPORT"},
+                 {"OUTPUT_MODEL", "OUTPUT_REPORT", "PARTIAL_SILL", "RANGE",
+                  "NUGGET", "AZIMUTH", "RATIO", "LOG_LIKELIHOOD", "AIC"}),
     "predict": ("Predict surface",
                 {"INPUT", "FIELD", "MODEL", "EXTENT", "PIXEL_SIZE", "MASK", "BACKTRANSFORM", "TARGET_CRS",
                  "OUTPUT", "OUTPUT_VARIANCE"},
                 {"OUTPUT", "OUTPUT_VARIANCE"}),
     "crossvalidate": ("Cross-validate model",
-                      {"INPUT", "FIELD", "MODEL", "TARGET_CRS", "OUTPUT"},
-                      {"OUTPUT", "ME", "RMSE", "MSDR", "COVERAGE95"}),
+                      {"INPUT", "FIELD", "MODEL", "TARGET_CRS", "OUTPUT", "OUTPUT_REPORT"},
+                      {"OUTPUT", "OUTPUT_REPORT", "ME", "RMSE", "MSDR", "COVERAGE95"}),
 }
 CHOICES = {
     ("fitmodel", "TRANSFORM"): ["none", "log"],
