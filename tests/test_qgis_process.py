@@ -103,6 +103,14 @@ def check_meuse_grid(path: Path) -> np.ndarray:
     return values
 
 
+def meuse_grid_cells() -> tuple[np.ndarray, np.ndarray]:
+    """Row and column indices of the published 40 m Meuse grid cells in the rasters of :func:`predict`."""
+    cells = np.genfromtxt(DATA_DIR / "meuse_grid.csv", delimiter=",", names=True)
+    rows = np.round((333760.0 - cells["y"]) / MEUSE_CELL - 0.5).astype(int)
+    cols = np.round((cells["x"] - 178440.0) / MEUSE_CELL - 0.5).astype(int)
+    return rows, cols
+
+
 def test_fit_predict_crossvalidate_meuse_zinc(profile, meuse_layer, tmp_path):
     model_path = tmp_path / "zinc.json"
     document = fit(profile, meuse_layer, "zinc", model_path)
@@ -114,9 +122,11 @@ def test_fit_predict_crossvalidate_meuse_zinc(profile, meuse_layer, tmp_path):
     estimate = check_meuse_grid(prediction)
     spread = check_meuse_grid(variance)
     assert np.isfinite(estimate).all() and np.isfinite(spread).all()
-    # Meuse zinc ranges from 113 to 1839 ppm (tests/data/meuse.csv); a median back-transformed kriging
-    # estimate of ln(zinc) is a weighted mean of the logs plus a trend term, so it stays near that range.
-    assert 50.0 < estimate.min() and estimate.max() < 2500.0
+    # Meuse zinc ranges from 113 to 1839 ppm (tests/data/meuse.csv). On the published grid cells (the flood
+    # plain the samples cover) a median back-transformed kriging estimate of ln(zinc) stays near that range;
+    # the bounding-box corners, up to 2 km from any sample, are extrapolations and are not checked here.
+    on_grid = estimate[meuse_grid_cells()]
+    assert 50.0 < on_grid.min() and on_grid.max() < 2500.0
     assert (spread >= 0).all()
 
     table = tmp_path / "crossvalidation.gpkg"
