@@ -54,13 +54,18 @@ class Transform:
         values = np.asarray(values, dtype=float)
         if self.kind == "none":
             return values.copy()
+        missing = int(np.count_nonzero(~np.isfinite(values)))
+        if missing:
+            raise FieldcastError(
+                f"{missing} value(s) are NaN or infinite; drop or fill them before the log transform."
+            )
         shifted = values + self.offset
         bad = int(np.count_nonzero(~(shifted > 0)))
         if bad:
             raise FieldcastError(
-                f"The log transform needs values above {-self.offset:g} (value + offset > 0), but {bad} "
-                f"value(s) are not (smallest {np.nanmin(values):g}). Set a log offset larger than "
-                f"{-np.nanmin(values):g}, or use no transform."
+                f"The log transform needs values above {0.0 - self.offset:g} (value + offset > 0), but {bad} "
+                f"value(s) are not (smallest {np.min(values):g}). Set a log offset larger than "
+                f"{0.0 - np.min(values):g}, or use no transform."
             )
         return np.log(shifted)
 
