@@ -22,6 +22,7 @@ import math
 from dataclasses import dataclass, replace
 
 import numpy as np
+from scipy.spatial import distance
 
 from .correlation import check_family, correlation, correlation_derivative, effective_range_factor
 
@@ -98,6 +99,26 @@ class Structure:
         major, minor = self.axis_offsets(dx, dy)
         a = self.range
         return np.sqrt((major / a) ** 2 + (minor / (a * self.ratio)) ** 2)
+
+    def scaled_coordinates(self, xy: np.ndarray, origin: np.ndarray) -> np.ndarray:
+        """Coordinates rotated to the axes and divided by the axis ranges (dimensionless).
+
+        Euclidean distances between scaled coordinates are the scaled
+        distances ``r``; ``origin`` is subtracted first to keep precision.
+        """
+        major, minor = self.axis_offsets(xy[:, 0] - origin[0], xy[:, 1] - origin[1])
+        return np.column_stack([major / self.range, minor / (self.range * self.ratio)])
+
+    def covariance_between(self, a_xy: np.ndarray, b_xy: np.ndarray) -> np.ndarray:
+        """Covariance between two point sets, shape (n, m).
+
+        Equal to ``covariance_from_offsets(*pairwise_offsets(a_xy, b_xy))``
+        but faster: the points are scaled once each and the distances
+        computed by :func:`scipy.spatial.distance.cdist`.
+        """
+        origin = a_xy[0] if len(a_xy) else np.zeros(2)
+        r = distance.cdist(self.scaled_coordinates(a_xy, origin), self.scaled_coordinates(b_xy, origin))
+        return self.partial_sill * correlation(self.family, r, self.smoothness)
 
     def covariance_from_offsets(self, dx: np.ndarray, dy: np.ndarray) -> np.ndarray:
         """Covariance ``partial_sill * rho(r)`` for offsets ``dx, dy``."""
@@ -195,11 +216,16 @@ class CovarianceModel:
 
     def cross_covariance(self, a_xy: np.ndarray, b_xy: np.ndarray) -> np.ndarray:
         """Latent-field covariance between two point sets, shape (n, m), no nugget."""
-        return self.covariance_from_offsets(*pairwise_offsets(a_xy, b_xy))
+        a_xy = np.asarray(a_xy, dtype=float)
+        b_xy = np.asarray(b_xy, dtype=float)
+        total = self.structures[0].covariance_between(a_xy, b_xy)
+        for s in self.structures[1:]:
+            total += s.covariance_between(a_xy, b_xy)
+        return total
 
     def data_covariance(self, xy: np.ndarray) -> np.ndarray:
         """Covariance matrix of observations at ``xy``: structures plus nugget on the diagonal."""
-        matrix = self.covariance_from_offsets(*pairwise_offsets(xy))
+        matrix = self.cross_covariance(xy, xy)
         matrix[np.diag_indices_from(matrix)] += self.nugget
         return matrix
 

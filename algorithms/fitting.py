@@ -282,10 +282,16 @@ def fit_model(
     chosen, layout = min(scored, key=lambda pair: pair[0].aic)
     evaluation = evaluate_model(xy, values, chosen.covariance, mean_model, problem.method, covariates)
     messages = list(chosen.warnings)
-    if evaluation.jitter and not any("positive definite" in m for m in messages):
-        messages.append(jitter_message(evaluation.jitter))
+    covariance = chosen.covariance
+    if evaluation.jitter:
+        # Keep the jitter in the nugget, so kriging factorises the same matrix the likelihood did.
+        covariance = CovarianceModel(covariance.structures, covariance.nugget + evaluation.jitter)
+        if not any("positive definite" in m for m in messages):
+            messages.append(jitter_message(evaluation.jitter))
+        messages.append(f"The model's nugget includes that {evaluation.jitter:.3g}, so predictions use the same "
+                        "covariance matrix as the fit.")
     _, _, k = _criteria(problem, chosen.log_likelihood, layout)
     if progress is not None:
         progress(1.0)
-    return FitResult(chosen.covariance, mean_model, evaluation.coefficients, method, chosen.log_likelihood,
+    return FitResult(covariance, mean_model, evaluation.coefficients, method, chosen.log_likelihood,
                      chosen.aic, chosen.bic, len(values), k, messages, candidates=[pair[0] for pair in scored])
