@@ -5,16 +5,19 @@ points at the centres of its sub-cells, offsets ``((i + 0.5) / d - 0.5) p`` for
 ``i = 0 .. d - 1`` on each axis (block kriging as in Journel & Huijbregts 1978, *Mining Geostatistics*, and
 Isaaks & Srivastava 1989, *An Introduction to Applied Geostatistics*; 4 x 4
 points per block is common practice). The block average ``Z_B`` is the mean of the field
-at those points, so by linearity its kriging weights are the mean of the point
-weights, ``lambda_B = mean_j lambda_j``, and its prediction the mean of the point
-predictions. Its error variance is that of any unbiased linear predictor::
+at those points, a linear functional of the field, so it is kriged with the point
+system in which the target's covariances are replaced by block averages: ``c_B``
+the mean covariance between each sample and the discretisation points, ``f_B`` the
+mean of the trend terms over those points, and ``C_BB`` the mean of the latent
+covariance over all ``d^4`` pairs of discretisation points (the same for every cell
+of a grid)::
 
-    var_B = C_BB - 2 lambda_B^T c_B + lambda_B^T K lambda_B
+    mean_B = f_B^T beta + c_B^T K^-1 (y - F beta)
+    var_B  = C_BB - c_B^T K^-1 c_B + g^T A^-1 g,   g = f_B - F^T K^-1 c_B
 
-with ``C_BB`` the mean of the latent covariance over all ``d^4`` pairs of
-discretisation points (the same for every cell of a grid), ``c_B`` the mean
-covariance between the samples and the discretisation points, and ``K`` the
-covariance matrix of the samples (nugget on the diagonal). The nugget does not
+(:meth:`.kriging.KrigingPredictor.predict_from_covariances`, one solve with the
+predictor's factorisation). By linearity ``mean_B`` is the mean of the point
+predictions and the weights are the mean of the point weights. The nugget does not
 enter ``C_BB``: measurement error and micro-scale variation average out over a
 block. The block variance is below the point variance at the cell centre, except
 where a sample lies within a few per cent of the cell size from that centre: there
@@ -28,7 +31,7 @@ import numpy as np
 
 from .covariance import CovarianceModel, pairwise_offsets
 from .errors import Cancelled, FieldcastError
-from .kriging import KrigingPredictor
+from .kriging import KrigingPredictor, as_points
 
 DEFAULT_POINTS_PER_SIDE = 4
 """Discretisation points per cell side (4 x 4 = 16 per cell, common practice)."""
@@ -51,7 +54,7 @@ def block_covariance(covariance: CovarianceModel, pixel_size: float,
     return float(np.mean(covariance.covariance_from_offsets(*pairwise_offsets(offsets))))
 
 
-def block_predict(predictor: KrigingPredictor, sample_xy: np.ndarray, centres: np.ndarray, pixel_size: float,
+def block_predict(predictor: KrigingPredictor, centres: np.ndarray, pixel_size: float,
                   covariates0: np.ndarray | None = None, *, points_per_side: int = DEFAULT_POINTS_PER_SIDE,
                   chunk_size: int = 256, progress: Callable[[float], None] | None = None,
                   should_stop: Callable[[], bool] | None = None) -> tuple[np.ndarray, np.ndarray]:
@@ -60,9 +63,7 @@ def block_predict(predictor: KrigingPredictor, sample_xy: np.ndarray, centres: n
     Parameters
     ----------
     predictor : KrigingPredictor
-        Predictor built from the samples (its factorisation is reused).
-    sample_xy : ndarray of shape (n, 2)
-        The sample locations the predictor was built with (CRS units).
+        Predictor built from the samples (its factorisation and sample locations are reused).
     centres : ndarray of shape (m, 2)
         Cell centres (CRS units), e.g. ``GridSpec.cell_centres()``.
     pixel_size : float
@@ -72,7 +73,7 @@ def block_predict(predictor: KrigingPredictor, sample_xy: np.ndarray, centres: n
     points_per_side : int
         Discretisation ``d``; ``d * d`` points per cell.
     chunk_size : int
-        Cells per chunk (memory about ``3 * 8 n d^2 chunk_size`` bytes).
+        Cells per chunk (memory about ``8 n d^2 chunk_size`` bytes).
     progress, should_stop : callable, optional
         Progress per chunk; ``should_stop()`` raises :class:`Cancelled`.
 
@@ -81,12 +82,8 @@ def block_predict(predictor: KrigingPredictor, sample_xy: np.ndarray, centres: n
     mean, variance : ndarray of shape (m,)
         Block prediction (modelling units) and block error variance (units squared, >= 0).
     """
-    sample_xy = np.asarray(sample_xy, dtype=float)
-    if len(sample_xy) != predictor.n:
-        raise FieldcastError(f"Got {len(sample_xy)} sample locations but the predictor holds {predictor.n}; pass "
-                             "the locations the predictor was built with.")
-    blocks = _BlockSystem(predictor, sample_xy, pixel_size, points_per_side)
-    centres = np.asarray(centres, dtype=float)
+    blocks = _BlockSystem(predictor, pixel_size, points_per_side)
+    centres = as_points(centres, "Cell centres")
     covariates0 = None if covariates0 is None else np.asarray(covariates0, dtype=float)
     starts = range(0, len(centres), int(chunk_size))
     parts = []
@@ -100,33 +97,25 @@ def block_predict(predictor: KrigingPredictor, sample_xy: np.ndarray, centres: n
     if not parts:
         return np.empty(0), np.empty(0)
     mean, variance = (np.concatenate(column) for column in zip(*parts))
-    return mean, np.clip(variance, 0.0, None)
+    return mean, variance
 
 
 class _BlockSystem:
-    """What every chunk of blocks shares: discretisation, sample covariance ``K`` and ``C_BB``."""
+    """What every chunk of blocks shares: the predictor, the discretisation offsets and ``C_BB``."""
 
-    def __init__(self, predictor: KrigingPredictor, sample_xy: np.ndarray, pixel_size: float,
-                 points_per_side: int) -> None:
+    def __init__(self, predictor: KrigingPredictor, pixel_size: float, points_per_side: int) -> None:
         self.predictor = predictor
-        self.sample_xy = sample_xy
         self.offsets = block_offsets(pixel_size, points_per_side)
-        self.sample_covariance = predictor.covariance.data_covariance(sample_xy)
         self.within = block_covariance(predictor.covariance, pixel_size, points_per_side)
 
     def predict(self, centres: np.ndarray, covariates0: np.ndarray | None) -> tuple[np.ndarray, np.ndarray]:
-        """Block mean and (unclipped) error variance for cells centred at ``centres`` (m, 2)."""
+        """Block mean and error variance for cells centred at ``centres`` (m, 2)."""
         per_cell = len(self.offsets)
         points = (centres[:, None, :] + self.offsets[None, :, :]).reshape(-1, 2)
         point_covariates = None if covariates0 is None else np.repeat(covariates0, per_cell, axis=0)
-        point_mean, _ = self.predictor.predict(points, point_covariates, chunk_size=len(points))
-        weights = _cell_means(self.predictor.weights(points, point_covariates), per_cell)
-        cross = _cell_means(self.predictor.covariance.cross_covariance(self.sample_xy, points), per_cell)
-        variance = (self.within - 2.0 * np.einsum("ij,ij->j", weights, cross)
-                    + np.einsum("ij,ij->j", weights, self.sample_covariance @ weights))
-        return point_mean.reshape(-1, per_cell).mean(axis=1), variance
-
-
-def _cell_means(matrix: np.ndarray, per_cell: int) -> np.ndarray:
-    """Average consecutive groups of ``per_cell`` columns of an (n, m * per_cell) matrix."""
-    return matrix.reshape(len(matrix), -1, per_cell).mean(axis=2)
+        predictor = self.predictor
+        cross = predictor.covariance.cross_covariance(predictor.xy, points)
+        cross = cross.reshape(predictor.n, -1, per_cell).mean(axis=2)  # c_B, (n, m)
+        design = predictor.mean.design(points, point_covariates)
+        design = design.reshape(len(centres), per_cell, -1).mean(axis=1)  # f_B, (m, p)
+        return predictor.predict_from_covariances(cross, design, self.within)

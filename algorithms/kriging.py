@@ -25,6 +25,13 @@ is the product ``alpha^T C0`` with ``alpha = K^-1 (y - F beta)``, and
 ``W = L^-1 C0`` (one matrix product, done by row blocks that skip the zero
 upper triangle of ``L^-1``) gives ``c0^T K^-1 c0`` as the squared column
 norms of ``W`` and ``F^T K^-1 c0 = (L^-1 F)^T W``.
+
+The formulas hold for any target that is a linear functional of the latent
+field, such as its average over a block: replace ``c0`` by the target's
+covariance with the observations, ``f0`` by its mean-model terms and ``C(0)``
+by its own variance (:meth:`KrigingPredictor.predict_from_covariances`, used
+for points by :meth:`KrigingPredictor.predict` and for blocks by
+:func:`.block.block_predict`).
 """
 from __future__ import annotations
 
@@ -149,6 +156,8 @@ class KrigingPredictor:
     ----------
     n : int
         Number of samples.
+    xy : ndarray of shape (n, 2)
+        Sample locations (a copy of the input), CRS units.
     coefficients : ndarray of shape (p,)
         GLS trend coefficients ``beta`` in the order of ``mean.term_names``
         (empty for a known mean).
@@ -171,7 +180,7 @@ class KrigingPredictor:
             check_distinct(points)
         self.covariance = covariance
         self.mean = mean
-        self._xy = points.copy()
+        self.xy = points.copy()
         factor = cholesky_factor(
             covariance.data_covariance(points), "covariance matrix of the samples",
             "Samples are too close together for a model without nugget (or the covariance is too smooth); "
@@ -242,25 +251,19 @@ class KrigingPredictor:
 
         def fill(start: int) -> None:
             stop = start + _PIECE_COLUMNS
-            cross[:, start:stop] = self.covariance.cross_covariance(self._xy, xy0[start:stop])
+            cross[:, start:stop] = self.covariance.cross_covariance(self.xy, xy0[start:stop])
 
         list(pool.map(fill, range(0, len(xy0), _PIECE_COLUMNS)))
         return cross
 
-    def _solve_targets(self, xy0: np.ndarray, covariates0: np.ndarray | None, pool: ThreadPoolExecutor
-                       ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
-        """Mean, ``c0^T K^-1 c0``, ``W = L^-1 C0`` and ``g = F0^T - F^T K^-1 C0`` for targets."""
-        cross = self._cross_covariance(xy0, pool)
+    def _whitened_gap(self, cross: np.ndarray, design0: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """``W = L^-1 C0`` and the trend gap ``g = F0^T - F^T K^-1 C0`` ((0, m) for a known mean)."""
         whitened = self._whiten(cross)
-        prediction = self._alpha @ cross + self.mean.known_mean(len(xy0))
-        explained = column_squared_norms(whitened)
-        target_design = self.mean.design(xy0, covariates0)
-        if target_design.shape[1]:
-            prediction += target_design @ self.coefficients
-            gap = target_design.T - self._whitened_design.T @ whitened
+        if design0.shape[1]:
+            gap = design0.T - self._whitened_design.T @ whitened
         else:
-            gap = np.zeros((0, len(xy0)))
-        return prediction, explained, whitened, gap
+            gap = np.zeros((0, cross.shape[1]))
+        return whitened, gap
 
     def _checked_variance(self, variance: np.ndarray) -> np.ndarray:
         """Clip round-off below zero; refuse clearly negative or non-finite variances."""
@@ -316,17 +319,57 @@ class KrigingPredictor:
                     raise Cancelled("Kriging prediction was cancelled.")
                 stop = min(start + int(chunk_size), total)
                 chunk_covariates = None if covariates0 is None else covariates0[start:stop]
-                mean, explained, _, gap = self._solve_targets(targets[start:stop], chunk_covariates, pool)
-                chunk_variance = self.covariance.field_variance - explained
-                if len(gap):
-                    chunk_variance += column_squared_norms(self._trend_whiten(gap))
-                prediction[start:stop] = mean
-                variance[start:stop] = self._checked_variance(chunk_variance)
+                cross = self._cross_covariance(targets[start:stop], pool)
+                design0 = self.mean.design(targets[start:stop], chunk_covariates)
+                prediction[start:stop], variance[start:stop] = self.predict_from_covariances(
+                    cross, design0, self.covariance.field_variance)
                 if progress is not None:
                     progress(stop / total)
         if include_nugget:
             variance += self.covariance.nugget
         return prediction, variance
+
+    def predict_from_covariances(self, cross: np.ndarray, design0: np.ndarray,
+                                 prior_variance: float | np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """Kriging mean and error variance of targets given by their covariances with the samples.
+
+        A target is any linear functional of the latent field: a point, or the
+        average over a block. With ``c0`` its column of ``cross``, ``f0`` its row
+        of ``design0`` and ``C(0)`` its ``prior_variance``::
+
+            mean     = f0^T beta + c0^T K^-1 (y - F beta)     (+ the known mean)
+            variance = C(0) - c0^T K^-1 c0 + g^T A^-1 g,   g = f0 - F^T K^-1 c0
+
+        Parameters
+        ----------
+        cross : ndarray of shape (n, m)
+            Covariance between the latent field at the samples and each target (u2, no nugget).
+        design0 : ndarray of shape (m, p)
+            Mean-model terms of the targets (``p = mean.n_terms``; for a block, the block
+            average of the terms); shape (m, 0) for a known mean.
+        prior_variance : float or ndarray of shape (m,)
+            Variance of each target itself (u2): the field variance for a point, the mean
+            covariance over pairs of block points for a block.
+
+        Returns
+        -------
+        mean, variance : ndarray of shape (m,)
+            Prediction (u) and error variance of the latent target (u2, never negative).
+        """
+        cross = np.asarray(cross, dtype=float)
+        design0 = np.asarray(design0, dtype=float)
+        if cross.ndim != 2 or len(cross) != self.n or design0.shape != (cross.shape[1], self.mean.n_terms):
+            raise FieldcastError(
+                f"Expected covariances of shape ({self.n}, m) and mean terms of shape (m, {self.mean.n_terms}); "
+                f"got {cross.shape} and {design0.shape}."
+            )
+        whitened, gap = self._whitened_gap(cross, design0)
+        mean = self._alpha @ cross + self.mean.known_mean(cross.shape[1])
+        variance = np.asarray(prior_variance, dtype=float) - column_squared_norms(whitened)
+        if len(gap):
+            mean += design0 @ self.coefficients
+            variance += column_squared_norms(self._trend_whiten(gap))
+        return mean, self._checked_variance(variance)
 
     def weights(self, xy0: np.ndarray, covariates0: np.ndarray | None = None) -> np.ndarray:
         """Kriging weights ``lambda`` with ``mean(x0) = lambda^T y`` (plus the known mean term).
@@ -342,7 +385,8 @@ class KrigingPredictor:
         targets = as_points(xy0, "Prediction locations")
         covariates0 = self._target_covariates(covariates0, len(targets))
         with ThreadPoolExecutor(max_workers=_WORKERS) as pool:
-            _, _, whitened, gap = self._solve_targets(targets, covariates0, pool)
+            cross = self._cross_covariance(targets, pool)
+        whitened, gap = self._whitened_gap(cross, self.mean.design(targets, covariates0))
         if len(gap):
             whitened = whitened + self._whitened_design @ self._trend_solve(gap)
         return self._inverse_factor.T @ whitened

@@ -24,6 +24,21 @@ MODEL_FILE_HELP = (
     "defaults (auto family, anisotropy, constant mean, REML, no transform) and the log says so.",
 )
 
+GRID_HELP = [
+    ("Extent", "Area of the raster; empty = extent of the samples. Cell edges fall on whole multiples of the pixel "
+     "size, so rasters from several runs line up."),
+    ("Pixel size", "Cell width in working CRS units (e.g. metres). Empty: half the median distance between "
+     "neighbouring samples, rounded, and coarser if the grid would exceed a million cells."),
+    ("Mask", "Optional polygon layer: cells whose centre is outside every polygon are nodata (and, in "
+     "'Simulate conditional fields', left out of the areas and means)."),
+]
+
+THRESHOLD_HELP = (
+    "Threshold",
+    "A limit in the attribute's own units (e.g. 500 for 500 ppm), also for a log model: the tool transforms it "
+    "the same way as the data. Needed for the exceedance output.",
+)
+
 
 def compose_help(summary: str, parameters: list[tuple[str, str]], outputs: list[tuple[str, str]]) -> str:
     """HTML help: a summary, the parameters and outputs in plain words, the working CRS and the cautions.

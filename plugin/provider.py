@@ -8,12 +8,14 @@ from .cross_validate import CrossValidateAlgorithm
 from .fit_model import FitModelAlgorithm
 from .icons import icon, icon_path
 from .predict_surface import PredictSurfaceAlgorithm
+from .simulate import SimulateAlgorithm
 
 PROVIDER_ICON = "fieldcast.svg"
 
 
 class FieldcastProvider(QgsProcessingProvider):
-    """Processing provider listing Fit covariance model, Predict surface and Cross-validate model."""
+    """Processing provider listing Fit covariance model, Predict surface, Simulate conditional fields and
+    Cross-validate model."""
 
     def id(self) -> str:
         return "fieldcast"
@@ -38,5 +40,6 @@ class FieldcastProvider(QgsProcessingProvider):
         return ["tif"]
 
     def loadAlgorithms(self) -> None:
-        for algorithm in (FitModelAlgorithm(), PredictSurfaceAlgorithm(), CrossValidateAlgorithm()):
+        for algorithm in (FitModelAlgorithm(), PredictSurfaceAlgorithm(), SimulateAlgorithm(),
+                          CrossValidateAlgorithm()):
             self.addAlgorithm(algorithm)

@@ -1,26 +1,49 @@
-"""Kriging a grid in row blocks and writing the prediction (and variance) GeoTIFFs.
+"""Kriging a grid in row blocks and writing the prediction, variance and exceedance GeoTIFFs.
 
 Memory stays bounded by one block of rows at a time; the files appear only
 when every block is written (see :class:`..algorithms.geotiff.GeoTiffWriter`).
+Each cell is predicted at its centre (point support) or as the average over the
+cell (cell support, block kriging: :func:`..algorithms.block.block_predict`).
 """
 from __future__ import annotations
 
 import contextlib
 from collections.abc import Callable, Mapping
 from dataclasses import dataclass
+from typing import Optional
 
 import numpy as np
 
+from ..algorithms.block import DEFAULT_POINTS_PER_SIDE, block_predict
 from ..algorithms.errors import Cancelled
+from ..algorithms.exceedance import exceedance_probability
 from ..algorithms.geotiff import GeoTiffWriter
 from ..algorithms.grid import GridSpec
 from ..algorithms.kriging import KrigingPredictor
 from ..algorithms.transform import Transform
 
 BACKTRANSFORMS = ("median", "mean")
+SUPPORTS = ("point", "cell")
+SURFACE_KINDS = ("prediction", "variance", "exceedance")
+"""The rasters :func:`write_surface` can write, in band-description order."""
 BLOCK_CELLS = 1 << 20
 """Most cells predicted per block of rows (about 50 MB of working arrays with a few hundred samples)."""
 TILE_ROWS = 256
+
+CellPredictor = Callable[[np.ndarray, Callable[[float], None], Optional[Callable[[], bool]]],
+                         tuple[np.ndarray, np.ndarray]]
+"""``predict(centres (m, 2), progress, should_stop) -> (mean, variance)`` in the modelling scale."""
+
+
+def cell_predictor(predictor: KrigingPredictor, support: str, pixel_size: float) -> CellPredictor:
+    """Kriging at cell centres (``support == "point"``) or of cell averages (``"cell"``, block kriging)."""
+    if support == "cell":
+        def predict(centres, progress, should_stop):
+            return block_predict(predictor, centres, pixel_size, progress=progress, should_stop=should_stop)
+    else:
+        def predict(centres, progress, should_stop):
+            return predictor.predict(centres, progress=progress, should_stop=should_stop)
+    return predict
 
 
 @dataclass(frozen=True)
@@ -33,10 +56,16 @@ class SurfaceScale:
         Transform of the model.
     backtransform : str
         ``"median"`` (``exp(mu) - offset``) or ``"mean"`` (``exp(mu + s2/2) - offset``) for a log model.
+    support : str
+        ``"point"`` (value at the cell centre) or ``"cell"`` (average over the cell).
+    threshold : float or None
+        Threshold of the exceedance probability, attribute units.
     """
 
     transform: Transform
     backtransform: str = "median"
+    support: str = "point"
+    threshold: float | None = None
 
     def values(self, mean: np.ndarray, variance: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         """Prediction and variance in attribute units (squared for the variance)."""
@@ -46,17 +75,32 @@ class SurfaceScale:
             prediction = self.transform.back_median(mean)
         return prediction, self.transform.back_variance(mean, variance)
 
-    def descriptions(self, field: str) -> tuple[str, str]:
-        """Band descriptions of the prediction and variance rasters."""
+    def layers(self, mean: np.ndarray, variance: np.ndarray, kinds) -> dict[str, np.ndarray]:
+        """The rasters named in ``kinds`` (of :data:`SURFACE_KINDS`) for modelling-scale ``mean`` and ``variance``."""
+        prediction, back_variance = self.values(mean, variance)
+        layers = {"prediction": prediction, "variance": back_variance}
+        if "exceedance" in kinds:
+            layers["exceedance"] = exceedance_probability(mean, variance, self.threshold, transform=self.transform)
+        return {kind: layers[kind] for kind in kinds}
+
+    def descriptions(self, field: str) -> dict[str, str]:
+        """Band descriptions of the prediction, variance and exceedance rasters."""
+        where = "at the cell centre" if self.support == "point" else \
+            f"average over the cell (block kriging, {DEFAULT_POINTS_PER_SIDE} x {DEFAULT_POINTS_PER_SIDE} points)"
+        exceedance = (f"probability that {field} ({where}) exceeds {self.threshold:g} attribute units, under the "
+                      "Gaussian model of the kriging mean and variance" if self.threshold is not None else "")
         if self.transform.kind == "none":
-            return (f"prediction of {field} (attribute units; kriging prediction)",
-                    f"variance of {field} (attribute units squared; kriging error variance, nugget excluded)")
+            return {"prediction": f"prediction of {field} (attribute units; kriging prediction {where})",
+                    "variance": f"variance of {field} (attribute units squared; kriging error variance {where}, "
+                                "nugget excluded)",
+                    "exceedance": exceedance}
         offset = self.transform.offset
         formula = "exp(mu) - offset" if self.backtransform == "median" else "exp(mu + s2/2) - offset"
-        return (f"prediction of {field} (attribute units; log model back-transformed to the {self.backtransform}: "
-                f"{formula}, offset {offset:g})",
-                f"variance of {field} (attribute units squared; lognormal: exp(2 mu + s2) (exp(s2) - 1), "
-                "nugget excluded)")
+        return {"prediction": f"prediction of {field} (attribute units; log model back-transformed to the "
+                              f"{self.backtransform}: {formula}, offset {offset:g}; {where} in the log scale)",
+                "variance": f"variance of {field} (attribute units squared; lognormal: exp(2 mu + s2) (exp(s2) - 1), "
+                            f"nugget excluded; {where} in the log scale)",
+                "exceedance": exceedance + (" (threshold log-transformed like the data)" if exceedance else "")}
 
 
 def block_rows(grid: GridSpec) -> int:
@@ -65,12 +109,13 @@ def block_rows(grid: GridSpec) -> int:
     return TILE_ROWS * (rows // TILE_ROWS) if rows >= TILE_ROWS else rows
 
 
-def write_surface(predictor: KrigingPredictor, grid: GridSpec, inside: np.ndarray | None, scale: SurfaceScale,
-                  field: str, crs_wkt: str, prediction_path: str, variance_path: str | None,
-                  metadata: Mapping[str, object], progress: Callable[[float], None] | None = None,
+def write_surface(predict: CellPredictor, grid: GridSpec, inside: np.ndarray | None, scale: SurfaceScale,
+                  field: str, crs_wkt: str, paths: Mapping[str, str], metadata: Mapping[str, object],
+                  progress: Callable[[float], None] | None = None,
                   should_stop: Callable[[], bool] | None = None) -> None:
-    """Predict every cell centre (those with ``inside`` True) and write the GeoTIFF(s).
+    """Predict every cell (those with ``inside`` True) and write the GeoTIFFs.
 
+    ``paths`` maps kinds of :data:`SURFACE_KINDS` to destination files (kinds left out are not written).
     Cells outside the mask, and values that do not fit Float32, are stored as nodata.
 
     Raises
@@ -79,28 +124,29 @@ def write_surface(predictor: KrigingPredictor, grid: GridSpec, inside: np.ndarra
         When ``should_stop()`` turns True; no output file is left.
     """
     descriptions = scale.descriptions(field)
-    paths = [prediction_path] + ([variance_path] if variance_path else [])
+    kinds = [kind for kind in SURFACE_KINDS if paths.get(kind)]
     step = block_rows(grid)
     with contextlib.ExitStack() as stack:
-        writers = [stack.enter_context(GeoTiffWriter(path, grid, 1, crs_wkt, [description], metadata))
-                   for path, description in zip(paths, descriptions)]
+        writers = {kind: stack.enter_context(GeoTiffWriter(paths[kind], grid, 1, crs_wkt, [descriptions[kind]],
+                                                            metadata)) for kind in kinds}
         for start in range(0, grid.n_rows, step):
             if should_stop is not None and should_stop():
                 raise Cancelled("Prediction was cancelled.")
             stop = min(start + step, grid.n_rows)
             centres = grid.cell_centres(start, stop)
             keep = np.ones(len(centres), bool) if inside is None else inside[start:stop].ravel()
-            bands = [np.full(len(centres), np.nan), np.full(len(centres), np.nan)]
+            bands = {kind: np.full(len(centres), np.nan) for kind in kinds}
             if keep.any():
                 def block_progress(fraction: float, start: int = start, stop: int = stop) -> None:
                     if progress is not None:
                         progress((start + fraction * (stop - start)) / grid.n_rows)
 
-                mean, variance = predictor.predict(centres[keep], progress=block_progress, should_stop=should_stop)
-                bands[0][keep], bands[1][keep] = scale.values(mean, variance)
-            for writer, band in zip(writers, bands):
-                writer.write_block(0, start, band)
+                mean, variance = predict(centres[keep], block_progress, should_stop)
+                for kind, values in scale.layers(mean, variance, kinds).items():
+                    bands[kind][keep] = values
+            for kind, writer in writers.items():
+                writer.write_block(0, start, bands[kind])
             if progress is not None:
                 progress(stop / grid.n_rows)
-        for writer in writers:
+        for writer in writers.values():
             writer.commit()

@@ -33,7 +33,7 @@ def test_simple_block_kriging_equals_scikit_learn_posterior_averages():
     predictor = KrigingPredictor(xy, values, model, MeanModel("known", 0.0))
     centres = np.array([[100.0, 200.0], [512.0, 488.0], [900.0, 950.0]])
     pixel = 60.0
-    mean, variance = block_predict(predictor, xy, centres, pixel, points_per_side=4)
+    mean, variance = block_predict(predictor, centres, pixel, points_per_side=4)
     for centre, block_mean, block_variance in zip(centres, mean, variance):
         points = centre + block_offsets(pixel, 4)
         posterior_mean, posterior_covariance = reference.predict(points, return_cov=True)
@@ -50,12 +50,12 @@ def test_fine_discretisation_tends_to_the_average_of_point_predictions(meuse):
     centres = np.array([[179500.0, 331000.0], [180620.0, 332100.0], [181100.0, 333500.0]])
     pixel = 200.0
     fine = np.array([predictor.predict(c + block_offsets(pixel, 24))[0].mean() for c in centres])
-    errors = [np.max(np.abs(block_predict(predictor, xy, centres, pixel, points_per_side=d)[0] - fine))
+    errors = [np.max(np.abs(block_predict(predictor, centres, pixel, points_per_side=d)[0] - fine))
               for d in (1, 2, 4, 8)]
     assert errors[-1] < 0.1 * errors[0]
     assert errors[-1] < 1e-3
-    coarse_variance = block_predict(predictor, xy, centres, pixel, points_per_side=8)[1]
-    fine_variance = block_predict(predictor, xy, centres, pixel, points_per_side=16)[1]
+    coarse_variance = block_predict(predictor, centres, pixel, points_per_side=8)[1]
+    fine_variance = block_predict(predictor, centres, pixel, points_per_side=16)[1]
     assert np.allclose(coarse_variance, fine_variance, rtol=0.02)
 
 
@@ -68,7 +68,7 @@ def test_block_variance_is_below_point_variance_away_from_samples(meuse, meuse_g
     predictor = KrigingPredictor(xy, np.log(meuse.zinc), MEUSE_MODEL, MeanModel.for_data("constant", xy))
     centres = np.asarray(meuse_grid.xy)
     _, point_variance = predictor.predict(centres)
-    _, block_variance = block_predict(predictor, xy, centres, 40.0)
+    _, block_variance = block_predict(predictor, centres, 40.0)
     nearest = cKDTree(xy).query(centres)[0]
     away = nearest > 5.0
     assert np.count_nonzero(~away) < 10
@@ -76,12 +76,25 @@ def test_block_variance_is_below_point_variance_away_from_samples(meuse, meuse_g
     assert block_covariance(MEUSE_MODEL, 40.0) < MEUSE_MODEL.field_variance
 
 
+def test_one_point_per_block_is_point_kriging_with_a_trend(meuse):
+    # A block discretised by its centre alone is the point at the centre, and C_BB is then C(0): block kriging
+    # must reproduce universal (point) kriging exactly (the kriging equations of Cressie 1993, Statistics for
+    # Spatial Data, section 3.4, as KrigingPredictor.predict solves them).
+    xy = np.asarray(meuse.xy)
+    predictor = KrigingPredictor(xy, np.log(meuse.zinc), MEUSE_MODEL, MeanModel.for_data("linear", xy))
+    centres = np.array([[179500.0, 331000.0], [180620.0, 332100.0], [181100.0, 333500.0], xy[7]])
+    point_mean, point_variance = predictor.predict(centres)
+    block_mean, block_variance = block_predict(predictor, centres, 40.0, points_per_side=1)
+    np.testing.assert_allclose(block_mean, point_mean, rtol=1e-12)
+    np.testing.assert_allclose(block_variance, point_variance, rtol=1e-9, atol=1e-12)
+
+
 def test_bad_input_and_cancel(meuse):
     xy = np.asarray(meuse.xy)
     predictor = KrigingPredictor(xy, np.log(meuse.zinc), MEUSE_MODEL, MeanModel.for_data("constant", xy))
     with pytest.raises(FieldcastError, match="points per side"):
-        block_predict(predictor, xy, xy[:2], 40.0, points_per_side=0)
-    with pytest.raises(FieldcastError, match="sample locations"):
-        block_predict(predictor, xy[:10], xy[:2], 40.0)
+        block_predict(predictor, xy[:2], 40.0, points_per_side=0)
+    with pytest.raises(FieldcastError, match="must be an"):
+        block_predict(predictor, xy[:, 0], 40.0)
     with pytest.raises(Cancelled):
-        block_predict(predictor, xy, xy[:2], 40.0, should_stop=lambda: True)
+        block_predict(predictor, xy[:2], 40.0, should_stop=lambda: True)

@@ -18,9 +18,15 @@ CONTRACT = {
                  {"OUTPUT_MODEL", "OUTPUT_REPORT", "PARTIAL_SILL", "RANGE",
                   "NUGGET", "AZIMUTH", "RATIO", "LOG_LIKELIHOOD", "AIC"}),
     "predict": ("Predict surface",
-                {"INPUT", "FIELD", "MODEL", "EXTENT", "PIXEL_SIZE", "MASK", "BACKTRANSFORM", "TARGET_CRS",
-                 "OUTPUT", "OUTPUT_VARIANCE"},
-                {"OUTPUT", "OUTPUT_VARIANCE"}),
+                {"INPUT", "FIELD", "MODEL", "EXTENT", "PIXEL_SIZE", "MASK", "BACKTRANSFORM", "SUPPORT", "THRESHOLD",
+                 "TARGET_CRS", "OUTPUT", "OUTPUT_VARIANCE", "OUTPUT_EXCEEDANCE"},
+                {"OUTPUT", "OUTPUT_VARIANCE", "OUTPUT_EXCEEDANCE"}),
+    "simulate": ("Simulate conditional fields",
+                 {"INPUT", "FIELD", "MODEL", "EXTENT", "PIXEL_SIZE", "MASK", "REALIZATIONS", "SEED", "THRESHOLD",
+                  "TARGET_CRS", "OUTPUT", "OUTPUT_MEAN", "OUTPUT_STDDEV", "OUTPUT_EXCEEDANCE", "OUTPUT_P10",
+                  "OUTPUT_P90", "OUTPUT_TABLE"},
+                 {"OUTPUT", "OUTPUT_MEAN", "OUTPUT_STDDEV", "OUTPUT_EXCEEDANCE", "OUTPUT_P10", "OUTPUT_P90",
+                  "OUTPUT_TABLE", "AREA_P10", "AREA_P50", "AREA_P90"}),
     "crossvalidate": ("Cross-validate model",
                       {"INPUT", "FIELD", "MODEL", "TARGET_CRS", "OUTPUT", "OUTPUT_REPORT"},
                       {"OUTPUT", "OUTPUT_REPORT", "ME", "RMSE", "MSDR", "COVERAGE95"}),
@@ -31,6 +37,7 @@ CHOICES = {
     ("fitmodel", "TREND"): ["constant", "linear", "quadratic"],
     ("fitmodel", "METHOD"): ["reml", "ml", "wls"],
     ("predict", "BACKTRANSFORM"): ["median", "mean"],
+    ("predict", "SUPPORT"): ["point", "cell"],
 }
 
 
@@ -52,7 +59,7 @@ def test_metadata_declares_a_processing_plugin_of_this_version():
     assert (REPO_ROOT / general["icon"]).is_file()
 
 
-def test_class_factory_registers_the_provider_with_three_algorithms(fieldcast_plugin):  # noqa: F811
+def test_class_factory_registers_the_provider_with_four_algorithms(fieldcast_plugin):  # noqa: F811
     provider = QgsApplication.processingRegistry().providerById("fieldcast")
     assert provider is not None and provider.name() == "Fieldcast"
     assert sorted(a.name() for a in provider.algorithms()) == sorted(CONTRACT)

@@ -62,7 +62,7 @@ def _exceedance_and_block_meuse() -> str:
     xy, values = _meuse_log_zinc()
     grid = _meuse_grid(100)
     predictor = KrigingPredictor(xy, values, MEUSE_MODEL, MeanModel.for_data("constant", xy))
-    mean, variance = block_predict(predictor, xy, grid.cell_centres(), grid.pixel_size)
+    mean, variance = block_predict(predictor, grid.cell_centres(), grid.pixel_size)
     probability = exceedance_probability(mean, variance, 500.0, transform=Transform("log"))
     return f"{grid.n_cells:,} blocks of 4 x 4 points; share of cells with P > 0.5: {np.mean(probability > 0.5):.2f}"
 

@@ -1,0 +1,229 @@
+"""Toolbox algorithm 'Simulate conditional fields' (fieldcast:simulate)."""
+from __future__ import annotations
+
+import contextlib
+
+import numpy as np
+from qgis.core import (
+    QgsCoordinateReferenceSystem,
+    QgsFeature,
+    QgsFeatureSink,
+    QgsField,
+    QgsFields,
+    QgsProcessing,
+    QgsProcessingException,
+    QgsProcessingOutputNumber,
+    QgsProcessingParameterFeatureSink,
+    QgsProcessingParameterNumber,
+    QgsProcessingParameterRasterDestination,
+    QgsWkbTypes,
+)
+
+from ..algorithms.errors import Cancelled, FieldcastError
+from ..algorithms.geotiff import GeoTiffWriter
+from ..algorithms.simulation import RealisationSummary, SimulationResult, simulate_conditional, summarise_realisations
+from .algorithm_base import progress_callback
+from .field_types import field_type
+from .help_text import GRID_HELP, MODEL_FILE_HELP, TARGET_CRS_HELP, THRESHOLD_HELP, compose_help
+from .raster_algorithm import RasterAlgorithm
+
+SUMMARY_RASTERS = (
+    ("OUTPUT_MEAN", "Mean of the realisations", "mean"),
+    ("OUTPUT_STDDEV", "Standard deviation of the realisations", "std"),
+    ("OUTPUT_P10", "10th percentile of the realisations", "p10"),
+    ("OUTPUT_P90", "90th percentile of the realisations", "p90"),
+)
+"""Summary rasters: parameter name, description, attribute of :class:`RealisationSummary`."""
+
+AREA_OUTPUTS = (
+    ("AREA_P10", "Area above the threshold, 10th percentile over realisations (CRS units squared)", 10),
+    ("AREA_P50", "Area above the threshold, median over realisations (CRS units squared)", 50),
+    ("AREA_P90", "Area above the threshold, 90th percentile over realisations (CRS units squared)", 90),
+)
+
+SIMULATION_PERCENT = (5.0, 90.0)
+"""Share of the progress bar (percent) taken by the realisations; writing the files fills the rest."""
+
+
+class SimulateAlgorithm(RasterAlgorithm):
+    """Draw conditional realisations of the field on a grid and summarise them."""
+
+    REALIZATIONS = "REALIZATIONS"
+    SEED = "SEED"
+    OUTPUT = "OUTPUT"
+    OUTPUT_TABLE = "OUTPUT_TABLE"
+    ICON = "simulate.svg"
+
+    NAME = "simulate"
+    DISPLAY_NAME = "Simulate conditional fields"
+    HELP = compose_help(
+        "Draws equally plausible fields under the model that all honour the samples (conditional simulation: "
+        "circulant embedding, conditioned by kriging). One realisation looks like the real field, rough where it "
+        "is rough, unlike the smooth kriging map; the spread over many realisations shows the uncertainty of "
+        "areas and totals, such as the area above a limit, which a per-cell variance map cannot give.",
+        [("Sample points / Value field", "The samples to condition on (NULL values skipped, samples at one "
+          "location averaged)."),
+         MODEL_FILE_HELP,
+         *GRID_HELP,
+         ("Realisations", "How many fields to draw (default 100). Shares and percentiles from 100 realisations "
+          "are good to a few per cent; more give steadier summaries, at the cost of time and memory (8 bytes per "
+          "cell and realisation)."),
+         ("Seed", "Seed of the random numbers: the same seed, data and settings give the same fields."),
+         THRESHOLD_HELP,
+         TARGET_CRS_HELP],
+        [("Realisations", "Multiband Float32 GeoTIFF, one band per realisation, in attribute units (a log model "
+          "is simulated in the log scale and back-transformed cell by cell)."),
+         ("Mean / Standard deviation / P10 / P90", "Optional rasters over the realisations, attribute units: the "
+          "mean (close to the kriging mean-back-transformed map), the spread, and the 10th and 90th percentiles "
+          "per cell."),
+         ("Exceedance share", "Optional raster, 0 to 1: the share of realisations above the threshold per cell, "
+          "a Monte Carlo estimate of the exceedance probability under the model (not a certainty)."),
+         ("Realisation table", "One row per realisation (no geometry): its number, the area of the masked cells "
+          "above the threshold (CRS units squared, e.g. m2; empty without a threshold) and the mean over the "
+          "masked cells (attribute units). The spread of the area over the rows is the uncertainty of the area "
+          "to act on."),
+         ("AREA_P10 / AREA_P50 / AREA_P90", "Percentiles of that area over the realisations (with a threshold); "
+          "the log states them too.")],
+    )
+
+    def initAlgorithm(self, config=None):
+        self.add_sample_parameters()
+        self.add_model_parameter()
+        self.add_grid_parameters()
+        self.addParameter(QgsProcessingParameterNumber(
+            self.REALIZATIONS, self.tr("Number of realisations"), type=QgsProcessingParameterNumber.Integer,
+            defaultValue=100, minValue=1))
+        self.addParameter(QgsProcessingParameterNumber(
+            self.SEED, self.tr("Random seed"), type=QgsProcessingParameterNumber.Integer, defaultValue=1,
+            minValue=0))
+        self.add_threshold_parameter()
+        self.add_target_crs_parameter()
+        self.addParameter(QgsProcessingParameterRasterDestination(self.OUTPUT, self.tr("Realisations")))
+        for name, description, _ in SUMMARY_RASTERS[:2]:
+            self.addParameter(QgsProcessingParameterRasterDestination(
+                name, self.tr(description), optional=True, createByDefault=False))
+        self.addParameter(QgsProcessingParameterRasterDestination(
+            self.OUTPUT_EXCEEDANCE, self.tr("Exceedance share"), optional=True, createByDefault=False))
+        for name, description, _ in SUMMARY_RASTERS[2:]:
+            self.addParameter(QgsProcessingParameterRasterDestination(
+                name, self.tr(description), optional=True, createByDefault=False))
+        self.addParameter(QgsProcessingParameterFeatureSink(
+            self.OUTPUT_TABLE, self.tr("Realisation table"), QgsProcessing.TypeVector, optional=True,
+            createByDefault=True))
+        for name, description, _ in AREA_OUTPUTS:
+            self.addOutput(QgsProcessingOutputNumber(name, self.tr(description)))
+
+    def checkParameterValues(self, parameters, context):
+        """Refuse a number of realisations below 1 with advice (before Processing's generic range message)."""
+        if parameters.get(self.REALIZATIONS) not in (None, ""):
+            count = self.parameterAsInt(parameters, self.REALIZATIONS, context)
+            if count < 1:
+                return False, (f"The number of realisations must be at least 1; got {count}. Set REALIZATIONS "
+                               "to 1 or more (100 is a good start).")
+        return super().checkParameterValues(parameters, context)
+
+    def compute(self, parameters, context, feedback) -> dict:
+        count = self.parameterAsInt(parameters, self.REALIZATIONS, context)
+        seed = self.parameterAsInt(parameters, self.SEED, context)
+        exceedance_path, threshold = self.exceedance_destination(parameters, context)
+        paths = {name: self.raster_destination(parameters, name, context)
+                 for name in (self.OUTPUT, *(name for name, _, _ in SUMMARY_RASTERS))}
+        paths[self.OUTPUT_EXCEEDANCE] = exceedance_path
+        wants_table = parameters.get(self.OUTPUT_TABLE) not in (None, "")
+        summaries = [name for name, path in paths.items() if path and name != self.OUTPUT]
+        if count < 2 and (summaries or wants_table):
+            raise FieldcastError(f"Summaries and the realisation table need at least 2 realisations; got {count}. "
+                                 "Ask for more realisations (100 is a good start), or only for the realisations.")
+        document, samples = self.model_and_samples(parameters, context, feedback,
+                                                   progress_callback(feedback, 0, SIMULATION_PERCENT[0]))
+        grid, inside = self.grid_and_mask(parameters, context, samples.xy, document.crs_wkt, document.units,
+                                          feedback, n_bands=1 + len(summaries))  # realisations: checked below
+        feedback.pushInfo(f"Simulating {count} realisations (seed {seed}).")
+        # The engine estimates the memory of the realisations before any work and refuses with advice.
+        result = simulate_conditional(samples.xy, samples.values, document.covariance, document.mean, grid,
+                                      n_realisations=count, seed=seed, transform=document.transform,
+                                      progress=progress_callback(feedback, *SIMULATION_PERCENT),
+                                      should_stop=feedback.isCanceled)
+        self.log_method(result, feedback)
+        summary = None
+        if count >= 2 and (summaries or wants_table or threshold is not None):
+            summary = summarise_realisations(result.realisations, grid.pixel_size ** 2, threshold=threshold,
+                                             mask=inside)
+        if feedback.isCanceled():
+            raise Cancelled("Simulation was cancelled.")
+        metadata = {"fieldcast_model": document.to_dict(), "fieldcast_seed": seed,
+                    "fieldcast_realisations": count, "fieldcast_simulation": result.method}
+        self.write_rasters(result, summary, inside, paths, threshold, samples.field, document.crs_wkt, metadata)
+        outputs = {name: path for name, path in paths.items() if path}
+        if wants_table:
+            outputs[self.OUTPUT_TABLE] = self.write_table(parameters, context, summary)
+        if summary is not None and summary.area_above is not None:
+            areas = np.percentile(summary.area_above, [percent for _, _, percent in AREA_OUTPUTS])
+            outputs.update({name: float(area) for (name, _, _), area in zip(AREA_OUTPUTS, areas)})
+            feedback.pushInfo(
+                f"Area of the masked cells above {threshold:g}: P10 {areas[0]:.6g}, P50 {areas[1]:.6g}, "
+                f"P90 {areas[2]:.6g} square {document.units}s, of {summary.mask_area:.6g} in all, over {count} "
+                "realisations.")
+        feedback.setProgress(100.0)
+        return outputs
+
+    @staticmethod
+    def log_method(result: SimulationResult, feedback) -> None:
+        """Say how the fields were drawn, and pass the engine's warnings on."""
+        padded = "" if result.padded_shape is None else \
+            f" on a {result.padded_shape[0]} x {result.padded_shape[1]} torus"
+        feedback.pushInfo(f"Unconditional fields by {result.method}{padded}; samples drawn from their "
+                          f"{result.neighbourhood_side} x {result.neighbourhood_side} nearest lattice nodes.")
+        for warning in result.warnings:
+            feedback.pushWarning(warning)
+
+    def write_rasters(self, result: SimulationResult, summary: RealisationSummary | None,
+                      inside: np.ndarray | None, paths: dict, threshold: float | None, field: str, crs_wkt: str,
+                      metadata: dict) -> None:
+        """Write every requested raster; the files appear together, after all are complete."""
+        grid = result.grid
+        bands = {name: getattr(summary, attribute) for name, _, attribute in SUMMARY_RASTERS if paths[name]}
+        descriptions = {name: f"{description.lower()} of {field} (attribute units)"
+                        for name, description, _ in SUMMARY_RASTERS}
+        if paths[self.OUTPUT_EXCEEDANCE]:
+            bands[self.OUTPUT_EXCEEDANCE] = summary.share_above
+            descriptions[self.OUTPUT_EXCEEDANCE] = (f"share of {len(result.realisations)} realisations with {field} "
+                                                    f"above {threshold:g} attribute units")
+        with contextlib.ExitStack() as stack:
+            count = len(result.realisations)
+            writer = stack.enter_context(GeoTiffWriter(
+                paths[self.OUTPUT], grid, count, crs_wkt,
+                [f"realisation {index + 1} of {count}: {field} (attribute units)" for index in range(count)],
+                metadata))
+            for index, realisation in enumerate(result.realisations):
+                writer.write_block(index, 0, masked(realisation, inside))
+            writers = [writer]
+            for name, band in bands.items():
+                summary_writer = stack.enter_context(GeoTiffWriter(paths[name], grid, 1, crs_wkt,
+                                                                   [descriptions[name]], metadata))
+                summary_writer.write_block(0, 0, masked(band, inside))
+                writers.append(summary_writer)
+            for finished in writers:
+                finished.commit()
+
+    def write_table(self, parameters, context, summary: RealisationSummary) -> str:
+        """The realisation table: number, area above the threshold and mean over the mask, one row each."""
+        fields = QgsFields()
+        fields.append(QgsField("realisation", field_type("Int")))
+        fields.append(QgsField("area_above", field_type("Double")))
+        fields.append(QgsField("mask_mean", field_type("Double")))
+        sink, destination = self.parameterAsSink(parameters, self.OUTPUT_TABLE, context, fields,
+                                                 QgsWkbTypes.NoGeometry, QgsCoordinateReferenceSystem())
+        if sink is None:
+            raise QgsProcessingException(self.invalidSinkError(parameters, self.OUTPUT_TABLE))
+        for index, mean in enumerate(summary.mask_mean):
+            feature = QgsFeature(fields)
+            area = None if summary.area_above is None else float(summary.area_above[index])
+            feature.setAttributes([index + 1, area, float(mean)])
+            sink.addFeature(feature, QgsFeatureSink.FastInsert)
+        return destination
+
+
+def masked(values: np.ndarray, inside: np.ndarray | None) -> np.ndarray:
+    """``values`` (n_rows, n_cols) with cells outside the mask set to NaN (written as nodata)."""
+    return values if inside is None else np.where(inside, values, np.nan)
