@@ -9,12 +9,11 @@ from __future__ import annotations
 import dataclasses
 import json
 import math
-import os
-import tempfile
 from dataclasses import dataclass
 
 import numpy as np
 
+from .atomic import write_text_atomically
 from .covariance import CovarianceModel
 from .errors import FieldcastError
 from .mean import MeanModel
@@ -131,19 +130,7 @@ class ModelDocument:
 
     def save(self, path: str) -> None:
         """Write the document to ``path`` through a temporary file (never half-written)."""
-        text = self.to_json()
-        folder = os.path.dirname(os.path.abspath(path))
-        if not os.path.isdir(folder):
-            raise FieldcastError(f"The folder {folder} does not exist; choose an existing folder for the model file.")
-        handle, temporary = tempfile.mkstemp(prefix=".fieldcast-", suffix=".json.part", dir=folder)
-        try:
-            with os.fdopen(handle, "w", encoding="utf-8") as stream:
-                stream.write(text)
-            os.replace(temporary, path)
-        except BaseException:
-            if os.path.exists(temporary):
-                os.remove(temporary)
-            raise
+        write_text_atomically(path, self.to_json(), "the model file")
 
     @classmethod
     def load(cls, path: str) -> ModelDocument:

@@ -14,11 +14,12 @@ from pathlib import Path
 import numpy as np
 import pytest
 
+from repo_package import load_repo_package
+
 REPO_ROOT = Path(__file__).resolve().parent.parent
 DATA_DIR = Path(__file__).resolve().parent / "data"
 
-if str(REPO_ROOT) not in sys.path:
-    sys.path.insert(0, str(REPO_ROOT))
+load_repo_package()  # tests import fieldcast.algorithms... and fieldcast.plugin...
 
 # In a venv sys.prefix is the venv, so pyproj cannot find the system PROJ database by
 # itself and warns on import; point it at the base interpreter's copy.

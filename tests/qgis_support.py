@@ -1,7 +1,7 @@
 """A QgsApplication with Processing and the Fieldcast provider, for the plugin tests.
 
-The plugin is loaded from the repository folder by file path under the package
-name :data:`PACKAGE_NAME`, as QGIS would load it from a folder of any name.
+The plugin is the repository loaded as the package ``fieldcast`` (tests/repo_package.py),
+as QGIS would load it from a folder of any name.
 Import the fixtures into a test module with
 ``from qgis_support import fieldcast_plugin, qgis_processing  # noqa: F401`` (both names, as
 pytest looks fixtures up in the test module).
@@ -9,13 +9,13 @@ pytest looks fixtures up in the test module).
 from __future__ import annotations
 
 import importlib
-import importlib.util
 import os
 import sys
-from pathlib import Path
 
 import numpy as np
 import pytest
+
+from repo_package import PACKAGE_NAME, load_repo_package
 
 os.environ.setdefault("QT_QPA_PLATFORM", "offscreen")
 
@@ -29,26 +29,12 @@ from qgis.core import (  # noqa: E402 - QT_QPA_PLATFORM must be set before Qt lo
     QgsVectorLayer,
 )
 
-REPO_ROOT = Path(__file__).resolve().parent.parent
-PACKAGE_NAME = "fieldcast_plugin_under_test"
 PROCESSING_PLUGINS = "/usr/share/qgis/python/plugins"
 _STARTED: list = []  # the QgsApplication and the plugin object, once started
 
 
-def load_plugin_package():
-    """Import the repository as a QGIS plugin package named :data:`PACKAGE_NAME` (once)."""
-    if PACKAGE_NAME not in sys.modules:
-        spec = importlib.util.spec_from_file_location(
-            PACKAGE_NAME, REPO_ROOT / "__init__.py", submodule_search_locations=[str(REPO_ROOT)])
-        package = importlib.util.module_from_spec(spec)
-        sys.modules[PACKAGE_NAME] = package
-        spec.loader.exec_module(package)
-    return sys.modules[PACKAGE_NAME]
-
-
 def field_type(name: str):
     """The plugin's version-proof attribute type ``name`` (e.g. ``"Double"``) for ``QgsField``."""
-    load_plugin_package()
     return importlib.import_module(f"{PACKAGE_NAME}.plugin.field_types").field_type(name)
 
 
@@ -67,7 +53,7 @@ def started_plugin():
         from processing.core.Processing import Processing
 
         Processing.initialize()
-        plugin = load_plugin_package().classFactory(None)
+        plugin = load_repo_package().classFactory(None)
         plugin.initProcessing()
         _STARTED.extend([app, plugin])
     return _STARTED[1]

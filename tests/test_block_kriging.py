@@ -7,11 +7,11 @@ from scipy.spatial import cKDTree
 from sklearn.gaussian_process import GaussianProcessRegressor
 from sklearn.gaussian_process.kernels import ConstantKernel, Matern
 
-from algorithms.block import block_covariance, block_offsets, block_predict
-from algorithms.covariance import CovarianceModel, Structure
-from algorithms.errors import Cancelled, FieldcastError
-from algorithms.kriging import KrigingPredictor
-from algorithms.mean import MeanModel
+from fieldcast.algorithms.block import block_covariance, block_offsets, block_predict
+from fieldcast.algorithms.covariance import CovarianceModel, Structure
+from fieldcast.algorithms.errors import Cancelled, FieldcastError
+from fieldcast.algorithms.kriging import KrigingPredictor
+from fieldcast.algorithms.mean import MeanModel
 
 # Spherical model for log(zinc) of the Meuse data: nugget 0.05, partial sill 0.59, range 900 m, the usual
 # fit to this data set's log-zinc variogram (from memory).

@@ -4,8 +4,8 @@ from __future__ import annotations
 import numpy as np
 from scipy import linalg
 
-from algorithms.circulant import UnconditionalGenerator, embedding_eigenvalues, odd_fast_length
-from algorithms.covariance import CovarianceModel, Structure
+from fieldcast.algorithms.circulant import UnconditionalGenerator, embedding_eigenvalues, odd_fast_length
+from fieldcast.algorithms.covariance import CovarianceModel, Structure
 
 # Anisotropic model: major axis towards azimuth 45 degrees (north-east), minor range half the major.
 ANISOTROPIC = CovarianceModel((Structure("spherical", 2.0, 12.0, azimuth=45.0, ratio=0.5),))

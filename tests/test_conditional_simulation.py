@@ -4,15 +4,15 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from algorithms import simulation
-from algorithms.conditioning import SampleDraw, choose_neighbourhood
-from algorithms.covariance import CovarianceModel, Structure
-from algorithms.errors import Cancelled, FieldcastError
-from algorithms.grid import GridSpec
-from algorithms.kriging import KrigingPredictor
-from algorithms.mean import MeanModel
-from algorithms.simulation import simulate_conditional, simulation_lattice, summarise_realisations
-from algorithms.transform import Transform
+from fieldcast.algorithms import simulation
+from fieldcast.algorithms.conditioning import SampleDraw, choose_neighbourhood
+from fieldcast.algorithms.covariance import CovarianceModel, Structure
+from fieldcast.algorithms.errors import Cancelled, FieldcastError
+from fieldcast.algorithms.grid import GridSpec
+from fieldcast.algorithms.kriging import KrigingPredictor
+from fieldcast.algorithms.mean import MeanModel
+from fieldcast.algorithms.simulation import simulate_conditional, simulation_lattice, summarise_realisations
+from fieldcast.algorithms.transform import Transform
 
 # Spherical model for log(zinc) of the Meuse data: nugget 0.05, partial sill 0.59, range 900 m, the usual
 # fit to this data set's log-zinc variogram (from memory).

@@ -5,11 +5,11 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from algorithms.covariance import CovarianceModel, Structure
-from algorithms.crossval import NORMAL_95_QUANTILE, CrossValidation, k_fold, leave_one_out, random_folds
-from algorithms.errors import FieldcastError
-from algorithms.kriging import KrigingPredictor
-from algorithms.mean import MeanModel
+from fieldcast.algorithms.covariance import CovarianceModel, Structure
+from fieldcast.algorithms.crossval import NORMAL_95_QUANTILE, CrossValidation, k_fold, leave_one_out, random_folds
+from fieldcast.algorithms.errors import FieldcastError
+from fieldcast.algorithms.kriging import KrigingPredictor
+from fieldcast.algorithms.mean import MeanModel
 
 SUBSET = slice(0, 155, 3)  # 52 Meuse samples keep the brute-force refits quick
 

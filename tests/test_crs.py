@@ -7,7 +7,7 @@ from osgeo import osr
 from pyproj.aoi import AreaOfInterest
 from pyproj.database import query_utm_crs_info
 
-from algorithms.crs import (
+from fieldcast.algorithms.crs import (
     is_geographic,
     linear_units,
     same_crs,
@@ -16,7 +16,7 @@ from algorithms.crs import (
     utm_crs_for,
     utm_zone_number,
 )
-from algorithms.errors import FieldcastError
+from fieldcast.algorithms.errors import FieldcastError
 
 LOCAL_UNKNOWN_UNIT = 'LOCAL_CS["site",LOCAL_DATUM["site",0],UNIT["unknown",1],AXIS["X",EAST],AXIS["Y",NORTH]]'
 LOCAL_METRE = 'LOCAL_CS["site",LOCAL_DATUM["site",0],UNIT["Meter",1],AXIS["X",EAST],AXIS["Y",NORTH]]'

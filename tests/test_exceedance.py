@@ -5,14 +5,14 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from algorithms.covariance import CovarianceModel, Structure
-from algorithms.errors import FieldcastError
-from algorithms.exceedance import exceedance_probability
-from algorithms.grid import GridSpec
-from algorithms.kriging import KrigingPredictor
-from algorithms.mean import MeanModel
-from algorithms.simulation import simulate_conditional, summarise_realisations
-from algorithms.transform import Transform
+from fieldcast.algorithms.covariance import CovarianceModel, Structure
+from fieldcast.algorithms.errors import FieldcastError
+from fieldcast.algorithms.exceedance import exceedance_probability
+from fieldcast.algorithms.grid import GridSpec
+from fieldcast.algorithms.kriging import KrigingPredictor
+from fieldcast.algorithms.mean import MeanModel
+from fieldcast.algorithms.simulation import simulate_conditional, summarise_realisations
+from fieldcast.algorithms.transform import Transform
 
 # Spherical model for log(zinc) of the Meuse data: nugget 0.05, partial sill 0.59, range 900 m, the usual
 # fit to this data set's log-zinc variogram (from memory).

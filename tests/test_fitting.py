@@ -9,15 +9,21 @@ import pytest
 from sklearn.gaussian_process import GaussianProcessRegressor
 from sklearn.gaussian_process.kernels import ConstantKernel, Matern, WhiteKernel
 
-from algorithms import fit_search
-from algorithms.covariance import CovarianceModel, Structure
-from algorithms.errors import Cancelled, FieldcastError
-from algorithms.fit_warnings import bound_warnings
-from algorithms.fitting import AUTO_FAMILIES, FIT_METHODS, KERNEL_CHOICES, fit_model
-from algorithms.likelihood import log_likelihood
-from algorithms.mean import MeanModel
-from algorithms.parameters import NUGGET_BOUNDS, SMOOTHNESS_BOUNDS, DataScales, ParameterLayout, parameter_bounds
-from algorithms.variogram import fit_wls
+from fieldcast.algorithms import fit_search
+from fieldcast.algorithms.covariance import CovarianceModel, Structure
+from fieldcast.algorithms.errors import Cancelled, FieldcastError
+from fieldcast.algorithms.fit_warnings import bound_warnings
+from fieldcast.algorithms.fitting import AUTO_FAMILIES, FIT_METHODS, KERNEL_CHOICES, fit_model
+from fieldcast.algorithms.likelihood import log_likelihood
+from fieldcast.algorithms.mean import MeanModel
+from fieldcast.algorithms.parameters import (
+    NUGGET_BOUNDS,
+    SMOOTHNESS_BOUNDS,
+    DataScales,
+    ParameterLayout,
+    parameter_bounds,
+)
+from fieldcast.algorithms.variogram import fit_wls
 
 
 def simulate(model: CovarianceModel, n: int, seed: int, side: float = 1000.0,

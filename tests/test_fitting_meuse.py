@@ -4,8 +4,8 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from algorithms.crossval import leave_one_out
-from algorithms.fitting import fit_model
+from fieldcast.algorithms.crossval import leave_one_out
+from fieldcast.algorithms.fitting import fit_model
 
 
 @pytest.fixture(scope="module")

@@ -8,12 +8,12 @@ import numpy as np
 import pytest
 from osgeo import gdal
 
-from algorithms import geotiff
-from algorithms.crs import same_crs, to_wkt2
-from algorithms.errors import FieldcastError
-from algorithms.geotiff import NODATA, GeoTiffWriter, gdal_errors, write_geotiff
-from algorithms.grid import GridSpec
-from algorithms.version import __version__
+from fieldcast.algorithms import geotiff
+from fieldcast.algorithms.crs import same_crs, to_wkt2
+from fieldcast.algorithms.errors import FieldcastError
+from fieldcast.algorithms.geotiff import NODATA, GeoTiffWriter, gdal_errors, write_geotiff
+from fieldcast.algorithms.grid import GridSpec
+from fieldcast.algorithms.version import __version__
 
 RD_NEW = to_wkt2("EPSG:28992")
 # 300 x 270 cells: crosses the 256-cell tile edges in both directions.

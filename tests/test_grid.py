@@ -6,8 +6,8 @@ import pytest
 from osgeo import gdal
 from sklearn.neighbors import NearestNeighbors
 
-from algorithms.errors import FieldcastError
-from algorithms.grid import GridSpec, default_pixel_size, readable_ceil, readable_floor
+from fieldcast.algorithms.errors import FieldcastError
+from fieldcast.algorithms.grid import GridSpec, default_pixel_size, readable_ceil, readable_floor
 
 
 def meuse_grid_spec(meuse_grid) -> GridSpec:

@@ -8,11 +8,11 @@ import pytest
 from sklearn.gaussian_process import GaussianProcessRegressor
 from sklearn.gaussian_process.kernels import RBF, ConstantKernel, Matern, WhiteKernel
 
-from algorithms.correlation import FAMILIES
-from algorithms.covariance import CovarianceModel, Structure
-from algorithms.errors import Cancelled, FieldcastError
-from algorithms.kriging import KrigingPredictor
-from algorithms.mean import MeanModel
+from fieldcast.algorithms.correlation import FAMILIES
+from fieldcast.algorithms.covariance import CovarianceModel, Structure
+from fieldcast.algorithms.errors import Cancelled, FieldcastError
+from fieldcast.algorithms.kriging import KrigingPredictor
+from fieldcast.algorithms.mean import MeanModel
 
 RANGE = 500.0  # metres; the Meuse samples span about 2.8 km x 4 km
 

@@ -10,11 +10,11 @@ from scipy import linalg, optimize, stats
 from sklearn.gaussian_process import GaussianProcessRegressor
 from sklearn.gaussian_process.kernels import RBF, ConstantKernel, Matern, WhiteKernel
 
-from algorithms.covariance import CovarianceModel, Structure
-from algorithms.errors import FieldcastError
-from algorithms.likelihood import LikelihoodObjective, MeanBasis, evaluate_model, log_likelihood
-from algorithms.mean import MeanModel
-from algorithms.parameters import ParameterLayout
+from fieldcast.algorithms.covariance import CovarianceModel, Structure
+from fieldcast.algorithms.errors import FieldcastError
+from fieldcast.algorithms.likelihood import LikelihoodObjective, MeanBasis, evaluate_model, log_likelihood
+from fieldcast.algorithms.mean import MeanModel
+from fieldcast.algorithms.parameters import ParameterLayout
 
 
 def scattered_samples(n: int, seed: int) -> tuple[np.ndarray, np.ndarray]:

@@ -9,9 +9,9 @@ import numpy as np
 import pytest
 from osgeo import ogr
 
-from algorithms.errors import FieldcastError
-from algorithms.grid import GridSpec
-from algorithms.mask import cell_mask
+from fieldcast.algorithms.errors import FieldcastError
+from fieldcast.algorithms.grid import GridSpec
+from fieldcast.algorithms.mask import cell_mask
 
 GRID = GridSpec(x_min=1000.0, y_max=2000.0, pixel_size=10.0, n_cols=30, n_rows=20)
 

@@ -18,7 +18,7 @@ from qgis.core import (
     QgsVectorLayer,
 )
 
-from algorithms.crs import same_crs
+from fieldcast.algorithms.crs import same_crs
 from qgis_support import (  # noqa: F401 - fieldcast_plugin and qgis_processing are fixtures
     CancelAfterFirstProgress,
     field_type,

@@ -21,10 +21,10 @@ from qgis.core import (
 from scipy import stats
 from scipy.spatial import cKDTree
 
-from algorithms.block import block_predict
-from algorithms.grid import GridSpec
-from algorithms.kriging import KrigingPredictor
-from algorithms.model_file import ModelDocument
+from fieldcast.algorithms.block import block_predict
+from fieldcast.algorithms.grid import GridSpec
+from fieldcast.algorithms.kriging import KrigingPredictor
+from fieldcast.algorithms.model_file import ModelDocument
 from qgis_support import fieldcast_plugin, point_layer, qgis_processing  # noqa: F401 - fixtures
 from test_plugin_meuse import MEUSE_GRID_EXTENT, band, cell_centres
 

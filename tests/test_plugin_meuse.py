@@ -20,13 +20,13 @@ from qgis.core import (
     QgsVectorLayer,
 )
 
-from algorithms.crossval import leave_one_out
-from algorithms.crs import same_crs
-from algorithms.fitting import fit_model
-from algorithms.grid import default_pixel_size
-from algorithms.kriging import KrigingPredictor
-from algorithms.model_file import ModelDocument
-from algorithms.version import __version__
+from fieldcast.algorithms.crossval import leave_one_out
+from fieldcast.algorithms.crs import same_crs
+from fieldcast.algorithms.fitting import fit_model
+from fieldcast.algorithms.grid import default_pixel_size
+from fieldcast.algorithms.kriging import KrigingPredictor
+from fieldcast.algorithms.model_file import ModelDocument
+from fieldcast.algorithms.version import __version__
 from qgis_support import CancelAfterFirstProgress, fieldcast_plugin, point_layer, qgis_processing  # noqa: F401 - fixtures
 
 FIT_SETTINGS = {"TRANSFORM": "log", "KERNEL": "spherical", "ANISOTROPY": True, "TREND": "constant",

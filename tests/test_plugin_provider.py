@@ -8,8 +8,9 @@ import pytest
 from qgis.core import QgsApplication, QgsProcessingParameterEnum
 from qgis.PyQt.QtSvg import QSvgRenderer
 
-from algorithms.version import __version__
-from qgis_support import REPO_ROOT, fieldcast_plugin, qgis_processing  # noqa: F401 - fixtures
+from fieldcast.algorithms.version import __version__
+from qgis_support import fieldcast_plugin, qgis_processing  # noqa: F401 - fixtures
+from repo_package import REPO_ROOT
 
 CONTRACT = {
     "fitmodel": ("Fit covariance model",

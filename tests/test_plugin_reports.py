@@ -15,7 +15,7 @@ import numpy as np
 import pytest
 from qgis.core import QgsFeature, QgsProcessingException, QgsProcessingFeedback
 
-from algorithms.model_file import ModelDocument
+from fieldcast.algorithms.model_file import ModelDocument
 from qgis_support import (  # noqa: F401 - fieldcast_plugin and qgis_processing are fixtures
     PACKAGE_NAME,
     CancelAfterFirstProgress,

@@ -20,7 +20,7 @@ from qgis.core import (
     QgsVectorFileWriter,
 )
 
-from algorithms.crs import same_crs
+from fieldcast.algorithms.crs import same_crs
 from qgis_process_support import QGIS_PROCESS, make_profile, run_algorithm
 from qgis_support import CancelAfterFirstProgress, fieldcast_plugin, point_layer, qgis_processing  # noqa: F401
 from test_plugin_decision_maps import (  # noqa: F401 - zinc_model is a fixture

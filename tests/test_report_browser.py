@@ -15,10 +15,10 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from algorithms.crossval import leave_one_out
-from plugin.report.crossvalidation_report import write_crossvalidation_report
-from plugin.report.fit_report import write_fit_report
-from plugin.report.plotting import AMBER
+from fieldcast.algorithms.crossval import leave_one_out
+from fieldcast.plugin.report.crossvalidation_report import write_crossvalidation_report
+from fieldcast.plugin.report.fit_report import write_fit_report
+from fieldcast.plugin.report.plotting import AMBER
 from test_report_fit import all_semivariograms, log_zinc_model
 
 CHROMIUM = Path("/usr/bin/chromium")

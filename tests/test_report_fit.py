@@ -10,15 +10,16 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from algorithms.crossval import leave_one_out
-from algorithms.fitting import AUTO_FAMILIES, fit_model
-from algorithms.likelihood import jitter_message, log_likelihood
-from algorithms.model_file import ModelDocument
-from algorithms.samples import merge_coincident
-from algorithms.transform import Transform
-from algorithms.variogram import directional_semivariograms, empirical_semivariogram
-from plugin.report.fit_report import write_fit_report
-from plugin.report.page import ReportError, format_number
+from fieldcast.algorithms.crossval import leave_one_out
+from fieldcast.algorithms.errors import FieldcastError
+from fieldcast.algorithms.fitting import AUTO_FAMILIES, fit_model
+from fieldcast.algorithms.likelihood import jitter_message, log_likelihood
+from fieldcast.algorithms.model_file import ModelDocument
+from fieldcast.algorithms.samples import merge_coincident
+from fieldcast.algorithms.transform import Transform
+from fieldcast.algorithms.variogram import directional_semivariograms, empirical_semivariogram
+from fieldcast.plugin.report.fit_report import write_fit_report
+from fieldcast.plugin.report.page import ReportError, format_number
 
 DATA_BLOCK = re.compile(r'<script type="application/json" id="fieldcast-data">(.*?)</script>', re.S)
 
@@ -186,7 +187,7 @@ def test_report_is_deterministic_and_written_atomically(zinc_case, zinc_report, 
     write_fit_report(second, **zinc_case.arguments)
     assert first.read_bytes() == second.read_bytes() == zinc_report.encode("utf-8")
     assert sorted(p.name for p in tmp_path.iterdir()) == ["a.html", "b.html"]
-    with pytest.raises(ReportError, match="does not exist"):
+    with pytest.raises(FieldcastError, match="does not exist"):
         write_fit_report(tmp_path / "missing" / "fit.html", **zinc_case.arguments)
 
 

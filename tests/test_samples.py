@@ -4,8 +4,8 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from algorithms.errors import FieldcastError
-from algorithms.samples import check_samples, merge_coincident
+from fieldcast.algorithms.errors import FieldcastError
+from fieldcast.algorithms.samples import check_samples, merge_coincident
 
 
 def read_only(array) -> np.ndarray:

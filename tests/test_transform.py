@@ -5,8 +5,8 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from algorithms.errors import FieldcastError
-from algorithms.transform import Transform
+from fieldcast.algorithms.errors import FieldcastError
+from fieldcast.algorithms.transform import Transform
 
 MU = np.array([-1.5, 0.0, 2.3, 5.9, 7.4])
 S2 = np.array([0.01, 0.5, 0.2, 1.3, 0.0])

@@ -8,17 +8,17 @@ import pytest
 from scipy.optimize import approx_fprime
 from scipy.stats import spearmanr
 
-from algorithms import variogram
-from algorithms.covariance import CovarianceModel, Structure
-from algorithms.errors import FieldcastError
-from algorithms.variogram import (
+from fieldcast.algorithms import variogram
+from fieldcast.algorithms.covariance import CovarianceModel, Structure
+from fieldcast.algorithms.errors import FieldcastError
+from fieldcast.algorithms.variogram import (
     EmpiricalVariogram,
     default_cutoff,
     directional_semivariograms,
     empirical_semivariogram,
     fit_wls,
 )
-from algorithms.variogram_fit import _collect_lags, _Criterion, fit_semivariogram_model
+from fieldcast.algorithms.variogram_fit import _collect_lags, _Criterion, fit_semivariogram_model
 
 
 def brute_force_semivariogram(xy, values, edges, azimuth=None, tolerance=90.0):

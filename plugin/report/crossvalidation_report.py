@@ -13,9 +13,10 @@ from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
+from ...algorithms.atomic import write_text_atomically
 from .crossvalidation_figures import observed_predicted_plot, residual_map_plot, standardized_histogram_plot
 from .model_tables import parameter_rows, scale_words, variance_units
-from .page import ReportError, render, write_atomically
+from .page import ReportError, render
 from .plotting import load_plotly, plotly_context
 from .statistics import histogram
 
@@ -170,4 +171,4 @@ def write_crossvalidation_report(
         "parameters": parameter_rows(model.covariance, model.units, variance_units(model.transform, model.field)),
         "plots": plots, "embedded": embedded, **plotly_context(plotly),
     })
-    write_atomically(path, text)
+    write_text_atomically(path, text, "the report")

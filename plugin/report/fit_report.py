@@ -13,9 +13,10 @@ from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
+from ...algorithms.atomic import write_text_atomically
 from .fit_figures import directional_plot, histogram_plot, omnidirectional_plot, sample_map_plot
 from .model_tables import family_name, parameter_rows, scale_words, variance_units
-from .page import ReportError, render, write_atomically
+from .page import ReportError, render
 from .plotting import load_plotly, plotly_context
 from .statistics import STATISTIC_LABELS, describe, histogram
 
@@ -239,4 +240,4 @@ def write_fit_report(
         "candidates": candidates, "parameters": parameters, "mean": mean, "fit": fit, "warnings": warnings,
         "plots": plots, "embedded": embedded, **plotly_context(plotly),
     })
-    write_atomically(path, text)
+    write_text_atomically(path, text, "the report")

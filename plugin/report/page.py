@@ -11,8 +11,6 @@ from __future__ import annotations
 
 import json
 import math
-import os
-import tempfile
 from pathlib import Path
 from typing import Any
 
@@ -85,23 +83,3 @@ def render(template_name: str, context: dict[str, Any]) -> str:
     environment.filters["num"] = format_number
     environment.filters["script_json"] = script_json
     return environment.get_template(template_name).render(**context)
-
-
-def write_atomically(path: str | os.PathLike, text: str) -> None:
-    """Write ``text`` to ``path`` through a temporary file in the same folder, then move it into place.
-
-    A failure or interruption leaves no partly written report behind.
-    """
-    target = os.path.abspath(os.fspath(path))
-    folder = os.path.dirname(target)
-    if not os.path.isdir(folder):
-        raise ReportError(f"The folder {folder} does not exist; choose an existing folder for the report.")
-    handle, temporary = tempfile.mkstemp(prefix=".fieldcast-", suffix=".html.part", dir=folder)
-    try:
-        with os.fdopen(handle, "w", encoding="utf-8", newline="\n") as stream:
-            stream.write(text)
-        os.replace(temporary, target)
-    except BaseException:
-        if os.path.exists(temporary):
-            os.remove(temporary)
-        raise
