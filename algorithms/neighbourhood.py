@@ -1,0 +1,332 @@
+"""Local (moving-neighbourhood) kriging: each target is predicted from its nearest samples only.
+
+Neighbour search. The samples and targets are mapped into the anisotropy
+frame of the first covariance structure, ``(major, minor / ratio)`` with the
+axes of :meth:`.covariance.Structure.axis_offsets`, so that the Euclidean
+distance there is the structure's range times its scaled distance ``r``: the
+search circle of that frame is an ellipse that follows the model (major
+semi-axis ``search_radius``, minor semi-axis ``ratio * search_radius``, CRS
+units). A :class:`scipy.spatial.cKDTree` returns the ``neighbours`` nearest
+samples within the radius (all samples when there are fewer).
+
+Kriging system. With the ``k`` neighbours, their covariance ``K`` (nugget on
+the diagonal), their design ``F`` (``k x p``, see :mod:`.mean`), the latent
+covariance ``c0`` between the target and the neighbours and the target's
+design row ``f0``, the kriging weights ``lambda`` and Lagrange multipliers
+``nu`` solve the system (Cressie 1993, *Statistics for Spatial Data*, rev.
+ed., section 3.4 on universal kriging; ordinary kriging is ``p = 1``)::
+
+    [ K    F ] [lambda]   [c0]
+    [ F^T  0 ] [  nu  ] = [f0]
+
+    mean(x0)     = lambda^T y                (plus the known mean for p = 0)
+    variance(x0) = C(0) - lambda^T c0 - nu^T f0
+
+``C(0)`` is the latent-field variance (sill without nugget); with a known
+mean (simple kriging) ``p = 0`` and ``y`` is the data minus that mean. The
+system is solved by block elimination: ``K = L L^T`` (Cholesky), then the
+Schur complement ``A = F^T K^-1 F = R R^T``, which gives the same numbers as
+the GLS form of :mod:`.kriging`::
+
+    beta = A^-1 F^T K^-1 y
+    mean(x0)     = f0^T beta + (L^-1 c0)^T L^-1 (y - F beta)
+    variance(x0) = C(0) - |L^-1 c0|^2 + |R^-1 (f0 - F^T K^-1 c0)|^2
+
+The trend terms are evaluated in the search frame, centred on the
+neighbours and scaled by their spread: a linear change of coordinates, so
+it spans the same polynomials as the global frame (the result is unchanged)
+but keeps ``A`` well conditioned; covariances are divided by the sill for
+the same reason. When every structure shares the first one's azimuth and
+ratio (as fitted models do), covariances are computed directly from
+distances in the search frame.
+
+Batches. Targets are taken ``chunk_size`` at a time and grouped by
+neighbour set (as a set of samples): each distinct set is factorised once
+(``L``, ``R``, ``beta``, ``L^-1 (y - F beta)``; stacks of Cholesky factors
+and triangular solves from :mod:`.batched`), and every target then needs one
+triangular solve with its set's factor. Everything is done on
+stacks of up to :data:`STACK_SIZE` sets or targets; there is no Python
+loop per target.
+
+Nodata. A target with fewer than ``n_terms + 1`` neighbours within the
+search radius (at least one more sample than trend terms; common practice),
+or whose local system is singular (``K`` or ``A`` not numerically positive
+definite, e.g. collinear neighbours under a linear trend), gets NaN for mean
+and variance; :attr:`LocalKrigingPredictor.last_unresolved` counts them.
+"""
+from __future__ import annotations
+
+import math
+import os
+from collections.abc import Callable
+from concurrent.futures import ThreadPoolExecutor
+
+import numpy as np
+from scipy.spatial import cKDTree
+
+from .batched import back_substitution, cholesky_stack, forward_substitution
+from .correlation import correlation
+from .covariance import CovarianceModel, Structure
+from .errors import Cancelled, FieldcastError
+from .kriging import NEGATIVE_VARIANCE_TOLERANCE, as_points, as_values, check_distinct
+from .mean import MeanModel
+
+WORKERS = min(4, os.cpu_count() or 1)
+"""Threads factorising and solving stacks at once (numpy releases the GIL in its loops and LAPACK)."""
+
+STACK_SIZE = 2048
+"""Largest number of neighbour sets factorised, or targets solved, at once (bounds temporary memory)."""
+
+
+def search_frame(structure: Structure, xy: np.ndarray) -> np.ndarray:
+    """Coordinates ``(major, minor / ratio)`` in which distances follow the structure's anisotropy.
+
+    Parameters
+    ----------
+    structure : Structure
+        Supplies the azimuth and the minor/major ratio.
+    xy : ndarray of shape (n, 2)
+        Points in CRS units.
+
+    Returns
+    -------
+    ndarray of shape (n, 2)
+        Points in the stretched frame (CRS units along the major axis).
+    """
+    major, minor = structure.axis_offsets(xy[:, 0], xy[:, 1])
+    return np.column_stack([major, minor / structure.ratio])
+
+
+class LocalKrigingPredictor:
+    """Kriging from the nearest samples of each target (moving neighbourhood).
+
+    ``xy``, ``values``, ``mean`` and ``covariates`` are as for
+    :class:`.kriging.KrigingPredictor` (simple, ordinary or universal kriging
+    by the kind of mean); the first structure of ``covariance`` also shapes
+    the search ellipse.
+
+    Parameters
+    ----------
+    neighbours : int
+        Largest number of samples per target (at least ``mean.n_terms + 1``).
+    search_radius : float, optional
+        Major semi-axis of the search ellipse (CRS units); None searches all samples.
+
+    After construction ``n`` is the number of samples, ``neighbours`` the
+    number used per target (``min(neighbours, n)``) and
+    ``minimum_neighbours`` the fewest a target needs (``mean.n_terms + 1``);
+    after each :meth:`predict`, ``last_unresolved`` counts its targets left
+    as NaN (too few neighbours in range, or a singular local system).
+    """
+
+    def __init__(self, xy: np.ndarray, values: np.ndarray, covariance: CovarianceModel, mean: MeanModel, *,
+                 neighbours: int = 32, search_radius: float | None = None,
+                 covariates: np.ndarray | None = None) -> None:
+        points = as_points(xy, "Sample coordinates")
+        observed = as_values(values, len(points))
+        self.n = len(points)
+        self.minimum_neighbours = mean.n_terms + 1
+        if int(neighbours) != neighbours or neighbours < self.minimum_neighbours:
+            raise FieldcastError(
+                f"The number of neighbours must be a whole number of at least {self.minimum_neighbours} "
+                f"(one more than the {mean.n_terms} trend term(s) of the {mean.kind} mean); got {neighbours!r}."
+            )
+        if self.n < self.minimum_neighbours:
+            raise FieldcastError(
+                f"The {mean.kind} mean model needs at least {self.minimum_neighbours} samples; there are {self.n}."
+            )
+        if search_radius is not None and not (math.isfinite(search_radius) and search_radius > 0):
+            raise FieldcastError(
+                f"The search radius must be a positive distance in CRS units (or empty for no limit); "
+                f"got {search_radius!r}."
+            )
+        if covariance.nugget == 0:
+            check_distinct(points)
+        self.covariance = covariance
+        self.mean = mean
+        self.neighbours = min(int(neighbours), self.n)
+        self.search_radius = search_radius
+        self.last_unresolved = 0
+        self._covariates = None if covariates is None else np.array(covariates, dtype=float).reshape(self.n, -1)
+        mean.design(points[:1], None if self._covariates is None else self._covariates[:1])  # checks the columns
+        self._residual = observed - mean.known_mean(self.n)
+        self._local_mean = MeanModel(mean.kind, mean.known_value, (0.0, 0.0), 1.0, mean.covariate_names)
+        first = covariance.structures[0]
+        self._isotropic_in_frame = all(s.azimuth == first.azimuth and s.ratio == first.ratio
+                                       for s in covariance.structures)
+        self._frame_xy = search_frame(first, points)
+        self._tree = cKDTree(self._frame_xy)
+
+    def _covariance(self, dx: np.ndarray, dy: np.ndarray) -> np.ndarray:
+        """Latent covariance for offsets in the search frame (see :func:`search_frame`)."""
+        if self._isotropic_in_frame:
+            return self._covariance_at(np.hypot(dx, dy))
+        first = self.covariance.structures[0]
+        theta = math.radians(first.azimuth)
+        minor = dy * first.ratio  # back to CRS offsets: the frame's rotation is orthogonal
+        return self.covariance.covariance_from_offsets(dx * math.sin(theta) + minor * math.cos(theta),
+                                                       dx * math.cos(theta) - minor * math.sin(theta))
+
+    def _covariance_at(self, distance: np.ndarray) -> np.ndarray:
+        """Latent covariance at search-frame distances (all structures share the frame)."""
+        first, *others = self.covariance.structures
+        total = correlation(first.family, distance / first.range, first.smoothness)
+        total *= first.partial_sill
+        for s in others:
+            total += s.partial_sill * correlation(s.family, distance / s.range, s.smoothness)
+        return total
+
+    def _set_covariances(self, points: np.ndarray) -> np.ndarray:
+        """Latent covariance matrices (u, k, k) of point sets (u, k, 2) in the search frame.
+
+        With a shared frame the squared distances come from the Gram matrix
+        of the centred points, ``|a - b|^2 = |a|^2 + |b|^2 - 2 a.b`` (one
+        batched product instead of gathering every pair).
+        """
+        if not self._isotropic_in_frame:
+            return self._covariance(points[:, :, None, 0] - points[:, None, :, 0],
+                                    points[:, :, None, 1] - points[:, None, :, 1])
+        centred = points - points.mean(axis=1, keepdims=True)
+        squared = np.einsum("ukj,ukj->uk", centred, centred)
+        gap = centred @ np.swapaxes(centred, 1, 2)
+        gap *= -2.0
+        gap += squared[:, :, None]
+        gap += squared[:, None, :]
+        np.maximum(gap, 0.0, out=gap)
+        return self._covariance_at(np.sqrt(gap, out=gap))
+
+    def _design(self, offsets: np.ndarray, covariates: np.ndarray | None) -> np.ndarray:
+        """Trend rows at scaled offsets of any leading shape ``(..., 2)``: shape ``(..., p)``."""
+        flat = offsets.reshape(-1, 2)
+        flat_covariates = None if covariates is None else covariates.reshape(len(flat), -1)
+        return self._local_mean.design(flat, flat_covariates).reshape(offsets.shape[:-1] + (-1,))
+
+    def _factorise(self, sets: np.ndarray) -> dict[str, np.ndarray]:
+        """Block elimination of the kriging systems of neighbour sets (u, k); see the module docstring."""
+        points = self._frame_xy[sets]
+        centre = points.mean(axis=1)
+        spread = np.abs(points - centre[:, None, :]).max(axis=(1, 2))
+        scale = np.where(spread > 0, spread, 1.0)
+        k = sets.shape[1]
+        sill = self.covariance.sill
+        matrices = self._set_covariances(points) / sill
+        matrices[:, np.arange(k), np.arange(k)] = 1.0  # (field variance + nugget) / sill
+        factors, solvable = cholesky_stack(matrices)  # K / sill = L L^T
+        covariates = None if self._covariates is None else self._covariates[sets]
+        design = self._design((points - centre[:, None, :]) / scale[:, None, None], covariates)
+        white = forward_substitution(factors, np.concatenate([self._residual[sets][:, :, None], design], axis=2))
+        white_values, white_design = white[:, :, 0], white[:, :, 1:]
+        trend_factors, trend_solvable = cholesky_stack(np.swapaxes(white_design, 1, 2) @ white_design)
+        projected = np.einsum("uji,uj->ui", white_design, white_values)[:, :, None]
+        coefficients = back_substitution(trend_factors, forward_substitution(trend_factors, projected))[:, :, 0]
+        white_residual = white_values - np.einsum("uij,uj->ui", white_design, coefficients)  # L^-1 (y - F beta)
+        return {"factors": factors, "white_design": white_design, "trend_factors": trend_factors,
+                "coefficients": coefficients, "white_residual": white_residual,
+                "solvable": solvable & trend_solvable, "centre": centre, "scale": scale}
+
+    def _predict_group(self, targets: np.ndarray, covariates0: np.ndarray | None, neighbour_index: np.ndarray,
+                       pool: ThreadPoolExecutor) -> tuple[np.ndarray, np.ndarray]:
+        """Mean and variance of targets (b, 2, search frame) that all have ``k`` neighbours (b, k)."""
+        ordered = np.sort(neighbour_index, axis=1)
+        sets, set_of_target = np.unique(ordered, axis=0, return_inverse=True)
+        set_of_target = set_of_target.reshape(-1)
+        systems = list(pool.map(self._factorise, [sets[s:s + STACK_SIZE] for s in range(0, len(sets), STACK_SIZE)]))
+        system = {key: np.concatenate([part[key] for part in systems]) for key in systems[0]}
+        mean = np.empty(len(targets))
+        variance = np.empty(len(targets))
+
+        def solve(start: int) -> None:
+            rows = slice(start, start + STACK_SIZE)
+            chosen = set_of_target[rows]
+            points = self._frame_xy[sets[chosen]]
+            cross = self._covariance(targets[rows, None, 0] - points[:, :, 0],
+                                     targets[rows, None, 1] - points[:, :, 1]) / self.covariance.sill
+            white_cross = forward_substitution(system["factors"][chosen], cross[:, :, None])[:, :, 0]
+            gap = self._design((targets[rows] - system["centre"][chosen]) / system["scale"][chosen, None],
+                               None if covariates0 is None else covariates0[rows])
+            mean[rows] = (np.einsum("bi,bi->b", system["white_residual"][chosen], white_cross)
+                          + np.einsum("bi,bi->b", system["coefficients"][chosen], gap)
+                          + self.mean.known_mean(len(chosen)))
+            gap -= np.einsum("bji,bj->bi", system["white_design"][chosen], white_cross)
+            white_gap = forward_substitution(system["trend_factors"][chosen], gap[:, :, None])[:, :, 0]
+            variance[rows] = self.covariance.field_variance + self.covariance.sill * (
+                np.einsum("bi,bi->b", white_gap, white_gap) - np.einsum("bi,bi->b", white_cross, white_cross))
+            unsolvable = ~system["solvable"][chosen]
+            mean[rows][unsolvable] = np.nan
+            variance[rows][unsolvable] = np.nan
+
+        list(pool.map(solve, range(0, len(targets), STACK_SIZE)))
+        return mean, variance
+
+    def _checked_variance(self, variance: np.ndarray) -> np.ndarray:
+        """Clip round-off below zero; refuse clearly negative variances (NaN stays NaN)."""
+        sill = self.covariance.sill
+        lowest = float(np.nanmin(variance, initial=0.0))
+        if lowest < -NEGATIVE_VARIANCE_TOLERANCE * sill:
+            raise FieldcastError(
+                f"Local kriging gave a clearly negative variance ({lowest:.3g} with sill {sill:.3g}): some "
+                "neighbourhood system is too close to singular. Merge near-duplicate points or use a model with "
+                "a (larger) nugget."
+            )
+        return np.where(variance < 0, 0.0, variance)
+
+    def _predict_chunk(self, targets: np.ndarray, covariates0: np.ndarray | None, pool: ThreadPoolExecutor
+                       ) -> tuple[np.ndarray, np.ndarray]:
+        """Mean and variance (NaN where unresolved) for one chunk of targets."""
+        radius = np.inf if self.search_radius is None else self.search_radius
+        targets = search_frame(self.covariance.structures[0], targets)
+        _, found = self._tree.query(targets, k=self.neighbours, distance_upper_bound=radius, workers=WORKERS)
+        found = found.reshape(len(targets), self.neighbours)
+        count = np.count_nonzero(found < self.n, axis=1)  # the tree marks missing neighbours with index n
+        mean = np.full(len(targets), np.nan)
+        variance = np.full(len(targets), np.nan)
+        for k in np.unique(count[count >= self.minimum_neighbours]):
+            rows = np.flatnonzero(count == k)
+            mean[rows], variance[rows] = self._predict_group(
+                targets[rows], None if covariates0 is None else covariates0[rows], found[rows, :k], pool)
+        return mean, self._checked_variance(variance)
+
+    def predict(self, xy0: np.ndarray, covariates0: np.ndarray | None = None, *, include_nugget: bool = False,
+                chunk_size: int = 8192, progress: Callable[[float], None] | None = None,
+                should_stop: Callable[[], bool] | None = None) -> tuple[np.ndarray, np.ndarray]:
+        """Local kriging mean and error variance at target locations.
+
+        Same arguments and results as :meth:`.kriging.KrigingPredictor.predict`
+        (targets ``xy0`` (M, 2), ``covariates0`` (M, q), ``include_nugget``,
+        ``progress``, ``should_stop``), except:
+
+        chunk_size : int
+            Targets per chunk; targets of one chunk that share a neighbour set
+            share its factorisation. Memory is about ``3 * chunk_size * k**2 * 8`` bytes.
+
+        Returns
+        -------
+        mean, variance : ndarray of shape (M,)
+            NaN for targets with too few neighbours within the search radius
+            (or a singular local system), counted in :attr:`last_unresolved`.
+        """
+        targets = as_points(xy0, "Prediction locations")
+        size = int(chunk_size)
+        if size < 1:
+            raise FieldcastError(f"chunk_size must be a positive number of locations; got {chunk_size!r}.")
+        if covariates0 is not None:
+            covariates0 = np.asarray(covariates0, dtype=float)
+            if len(covariates0) != len(targets):
+                raise FieldcastError(f"Got covariate values for {len(covariates0)} prediction locations but there "
+                                     f"are {len(targets)} locations.")
+            covariates0 = covariates0.reshape(len(targets), -1)
+        prediction = np.empty(len(targets))
+        variance = np.empty(len(targets))
+        chunks = [slice(start, start + size) for start in range(0, len(targets), size)]
+        with ThreadPoolExecutor(max_workers=WORKERS) as pool:
+            for done, chunk in enumerate(chunks, start=1):
+                if should_stop is not None and should_stop():
+                    raise Cancelled("Local kriging was cancelled.")
+                prediction[chunk], variance[chunk] = self._predict_chunk(
+                    targets[chunk], None if covariates0 is None else covariates0[chunk], pool)
+                if progress is not None:
+                    progress(done / len(chunks))
+        self.last_unresolved = int(np.count_nonzero(np.isnan(prediction)))
+        if include_nugget:
+            variance += self.covariance.nugget
+        return prediction, variance
