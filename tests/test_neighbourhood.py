@@ -4,11 +4,11 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from algorithms.covariance import CovarianceModel, Structure
-from algorithms.errors import Cancelled, FieldcastError
-from algorithms.kriging import KrigingPredictor
-from algorithms.mean import MEAN_KINDS, MeanModel
-from algorithms.neighbourhood import LocalKrigingPredictor
+from fieldcast.algorithms.covariance import CovarianceModel, Structure
+from fieldcast.algorithms.errors import Cancelled, FieldcastError
+from fieldcast.algorithms.kriging import KrigingPredictor
+from fieldcast.algorithms.mean import MEAN_KINDS, MeanModel
+from fieldcast.algorithms.neighbourhood import LocalKrigingPredictor
 
 # Spherical log-zinc model with a nugget of 0.05, partial sill 0.59 and range 897 m: the magnitudes usually
 # quoted for the Meuse log-zinc variogram (from memory); anisotropic variant rotated to the river's course.

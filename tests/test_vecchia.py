@@ -5,16 +5,16 @@ import numpy as np
 import pytest
 from scipy.stats import chi2
 
-from algorithms.circulant import UnconditionalGenerator
-from algorithms.covariance import CovarianceModel, Structure
-from algorithms.errors import FieldcastError
-from algorithms.fitting import fit_model
-from algorithms.likelihood import MeanBasis, log_likelihood
-from algorithms.mean import MeanModel
-from algorithms.neighbourhood import search_frame
-from algorithms.parameters import ParameterLayout
-from algorithms.vecchia import VecchiaData, VecchiaObjective, VecchiaPlan, vecchia_log_likelihood
-from algorithms.vecchia_fit import fit_vecchia
+from fieldcast.algorithms.circulant import UnconditionalGenerator
+from fieldcast.algorithms.covariance import CovarianceModel, Structure
+from fieldcast.algorithms.errors import FieldcastError
+from fieldcast.algorithms.fitting import fit_model
+from fieldcast.algorithms.likelihood import MeanBasis, log_likelihood
+from fieldcast.algorithms.mean import MeanModel
+from fieldcast.algorithms.neighbourhood import search_frame
+from fieldcast.algorithms.parameters import ParameterLayout
+from fieldcast.algorithms.vecchia import VecchiaData, VecchiaObjective, VecchiaPlan, vecchia_log_likelihood
+from fieldcast.algorithms.vecchia_fit import fit_vecchia
 
 ANISOTROPIC = CovarianceModel((Structure("exponential", 0.6, 400.0, azimuth=40.0, ratio=0.5),), 0.05)
 TRUE_MODEL = CovarianceModel((Structure("exponential", 1.0, 1500.0, azimuth=30.0, ratio=0.5),), 0.1)
