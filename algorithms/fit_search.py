@@ -42,9 +42,10 @@ from dataclasses import dataclass, replace
 
 import numpy as np
 from scipy import optimize
+from scipy.spatial import ConvexHull, QhullError, cKDTree
 
 from .correlation import effective_range_factor
-from .covariance import CovarianceModel, pairwise_offsets
+from .covariance import CovarianceModel
 from .errors import FieldcastError
 from .likelihood import LikelihoodObjective, MeanBasis
 from .parameters import DataScales, ParameterLayout, parameter_bounds
@@ -87,6 +88,22 @@ WARM_START_THRESHOLD = 600
 
 WARM_START_SIZE = 400
 """Size of that subset."""
+
+
+def smallest_spacing(xy: np.ndarray) -> float:
+    """Smallest nonzero distance between two points, by a k-d tree (``O(n log n)``)."""
+    distinct = np.unique(xy, axis=0)
+    spacing, _ = cKDTree(distinct).query(distinct, k=2)
+    return float(spacing[:, 1].min())
+
+
+def diameter(xy: np.ndarray) -> float:
+    """Largest distance between two points, over the vertices of their convex hull."""
+    try:
+        corners = xy[ConvexHull(xy).vertices]
+    except QhullError:  # collinear points: the ends of their bounding box span them
+        corners = np.array([xy.min(axis=0), xy.max(axis=0)])
+    return float(np.max(np.hypot(*(corners[:, None, :] - corners[None, :, :]).T)))
 
 
 @dataclass(frozen=True)
@@ -137,8 +154,7 @@ class SearchProblem:
             raise FieldcastError("All samples are at the same location; a covariance model needs samples at "
                                  "different places.")
         internal_xy = (xy - (low + high) / 2.0) / length_scale
-        distance = np.hypot(*pairwise_offsets(internal_xy))
-        scales = DataScales(float(distance[distance > 0].min()), float(distance.max()), 1.0)
+        scales = DataScales(smallest_spacing(internal_xy), diameter(internal_xy), 1.0)
         return cls(internal_xy, y / value_scale, design, basis, method, length_scale, value_scale, scales,
                    should_stop)
 

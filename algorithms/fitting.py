@@ -52,6 +52,10 @@ FIT_METHODS = ("reml", "ml", "wls")
 KERNEL_CHOICES = ("auto", "exponential", "spherical", "gaussian", "matern32", "matern52", "matern")
 """Covariance families a fit may use; "auto" compares the five closed-form families by AIC."""
 
+VECCHIA_THRESHOLD = 2000
+"""Above this many samples, likelihood fits use the Vecchia approximation (:mod:`.vecchia_fit`), whose
+cost grows about linearly with n; up to it, the exact likelihood (cost n^3)."""
+
 AUTO_FAMILIES = ("exponential", "spherical", "gaussian", "matern32", "matern52")
 """Families compared by ``kernel="auto"``."""
 
@@ -107,7 +111,7 @@ class FitResult:
         ``k`` used in AIC and BIC.
     warnings : list of str
     likelihood : str
-        "exact" (no approximation of the likelihood is used).
+        "exact", or "vecchia (m neighbours)" above :data:`VECCHIA_THRESHOLD` samples.
     candidates : list of CandidateFit
         Every model compared, the chosen one included.
     """
@@ -141,7 +145,8 @@ class FitResult:
         }
 
 
-def _criteria(problem: SearchProblem, log_likelihood: float, layout: ParameterLayout) -> tuple[float, float, int]:
+def information_criteria(problem: SearchProblem, log_likelihood: float,
+                         layout: ParameterLayout) -> tuple[float, float, int]:
     """AIC, BIC and the parameter count ``k`` (see the module docstring)."""
     k = layout.n_parameters + (problem.basis.q.shape[1] if problem.method == "ml" else 0)
     return -2.0 * log_likelihood + 2 * k, -2.0 * log_likelihood + k * math.log(problem.contrasts), k
@@ -151,7 +156,7 @@ def _candidate(problem: SearchProblem, fit: SearchFit) -> CandidateFit:
     """A likelihood fit converted to data units, with its criteria and warnings."""
     model = problem.to_data_units(fit.layout.unpack(fit.theta))
     log_likelihood = problem.log_likelihood(fit.minus_two_log_likelihood)
-    aic, bic, _ = _criteria(problem, log_likelihood, fit.layout)
+    aic, bic, _ = information_criteria(problem, log_likelihood, fit.layout)
     bounds = parameter_bounds(fit.layout, problem.data_scales)
     messages = bound_warnings(fit.layout, fit.layout.pack(model), bounds)
     if fit.jitter:
@@ -159,7 +164,7 @@ def _candidate(problem: SearchProblem, fit: SearchFit) -> CandidateFit:
     return CandidateFit(fit.layout.family, fit.layout.anisotropy, log_likelihood, aic, bic, model, messages)
 
 
-def _mean_model(mean: str | MeanModel, xy: np.ndarray, covariates: np.ndarray | None,
+def mean_model_for(mean: str | MeanModel, xy: np.ndarray, covariates: np.ndarray | None,
                 known_mean: float) -> MeanModel:
     """The mean model to fit, checked against the covariates given."""
     if isinstance(mean, MeanModel):
@@ -175,7 +180,7 @@ def _mean_model(mean: str | MeanModel, xy: np.ndarray, covariates: np.ndarray | 
     return MeanModel.for_data(mean, xy, names, known_value=known_mean)
 
 
-def _check_choices(kernel: str, method: str, nested: bool, smoothness: float | None) -> None:
+def check_fit_choices(kernel: str, method: str, nested: bool, smoothness: float | None) -> None:
     """FieldcastError for an unknown method or kernel, or settings that do not go together."""
     if method not in FIT_METHODS:
         raise FieldcastError(f"Unknown fitting method {method!r}; choose one of {', '.join(FIT_METHODS)}.")
@@ -204,7 +209,7 @@ def _wls_candidates(xy: np.ndarray, values: np.ndarray, mean: MeanModel, covaria
             raise Cancelled("Fitting was cancelled.")
         model = fit_wls(xy, residual, layout.family, anisotropy=layout.anisotropy, smoothness=layout.smoothness)
         evaluation = evaluate_model(xy, values, model, mean, "reml", covariates)
-        aic, bic, _ = _criteria(problem, evaluation.log_likelihood, layout)
+        aic, bic, _ = information_criteria(problem, evaluation.log_likelihood, layout)
         messages = [jitter_message(evaluation.jitter)] if evaluation.jitter else []
         scored.append((CandidateFit(layout.family, layout.anisotropy, evaluation.log_likelihood, aic, bic, model,
                                     messages), layout))
@@ -261,11 +266,40 @@ def fit_model(
     FitResult
         Ranges in CRS units, variances in value units squared.
     """
-    _check_choices(kernel, method, nested, smoothness)
+    check_fit_choices(kernel, method, nested, smoothness)
+    check_samples(xy, values)
+    if method != "wls" and len(values) > VECCHIA_THRESHOLD:
+        from .vecchia_fit import fit_vecchia  # imported here: vecchia_fit builds on this module
+
+        return fit_vecchia(xy, values, kernel=kernel, anisotropy=anisotropy, mean=mean, method=method,
+                           covariates=covariates, nested=nested, smoothness=smoothness, known_mean=known_mean,
+                           progress=progress, should_stop=should_stop)
+    return fit_exact(xy, values, kernel=kernel, anisotropy=anisotropy, mean=mean, method=method,
+                     covariates=covariates, nested=nested, smoothness=smoothness, known_mean=known_mean,
+                     progress=progress, should_stop=should_stop)
+
+
+def fit_exact(
+    xy: np.ndarray,
+    values: np.ndarray,
+    *,
+    kernel: str = "auto",
+    anisotropy: bool = True,
+    mean: str | MeanModel = "constant",
+    method: str = "reml",
+    covariates: np.ndarray | None = None,
+    nested: bool = False,
+    smoothness: float | None = None,
+    known_mean: float = 0.0,
+    progress: Callable[[float], None] | None = None,
+    should_stop: Callable[[], bool] | None = None,
+) -> FitResult:
+    """:func:`fit_model` with the exact likelihood whatever the number of samples (parameters alike)."""
+    check_fit_choices(kernel, method, nested, smoothness)
     check_samples(xy, values)
     xy = np.asarray(xy, dtype=float)
     values = np.asarray(values, dtype=float)
-    mean_model = _mean_model(mean, xy, covariates, known_mean)
+    mean_model = mean_model_for(mean, xy, covariates, known_mean)
     y = values - mean_model.known_mean(len(values))
     problem = SearchProblem.standardise(xy, y, mean_model.design(xy, covariates), "ml" if method == "ml" else "reml",
                                         should_stop)
@@ -290,7 +324,7 @@ def fit_model(
             messages.append(jitter_message(evaluation.jitter))
         messages.append(f"The model's nugget includes that {evaluation.jitter:.3g}, so predictions use the same "
                         "covariance matrix as the fit.")
-    _, _, k = _criteria(problem, chosen.log_likelihood, layout)
+    _, _, k = information_criteria(problem, chosen.log_likelihood, layout)
     if progress is not None:
         progress(1.0)
     return FitResult(covariance, mean_model, evaluation.coefficients, method, chosen.log_likelihood,

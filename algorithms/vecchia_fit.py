@@ -1,7 +1,7 @@
 """Covariance fitting at scale: REML or ML with the Vecchia likelihood of :mod:`.vecchia`.
 
 The exact likelihood costs ``O(n^3)`` time and ``O(n^2)`` memory per
-evaluation; above :data:`VECCHIA_THRESHOLD` samples :func:`.fitting.fit_model`
+evaluation; above :data:`.fitting.VECCHIA_THRESHOLD` samples :func:`.fitting.fit_model`
 hands over to :func:`fit_vecchia`, whose cost per evaluation is ``O(n m^3)``
 time and ``O(n m)`` memory (``m`` conditioning neighbours). The fit runs in
 two steps:
@@ -27,26 +27,22 @@ approximation at the estimate; ``FitResult.likelihood`` says
 """
 from __future__ import annotations
 
-import math
 from collections.abc import Callable
 from dataclasses import replace
 
 import numpy as np
 from scipy import optimize
-from scipy.spatial import ConvexHull, QhullError, cKDTree
 
 from .covariance import CovarianceModel
 from .errors import FieldcastError
 from .fit_search import SearchProblem
 from .fit_warnings import bound_warnings
-from .fitting import CandidateFit, FitResult, _check_choices, _criteria, _mean_model, fit_model
-from .likelihood import MeanBasis
+from .fitting import CandidateFit, FitResult, check_fit_choices, fit_exact, information_criteria, mean_model_for
 from .mean import MeanModel
-from .parameters import DataScales, ParameterLayout, parameter_bounds
+from .parameters import ParameterLayout, parameter_bounds
 from .samples import check_samples
 from .vecchia import DEFAULT_NEIGHBOURS, VecchiaData, VecchiaObjective, VecchiaPlan
 
-VECCHIA_THRESHOLD = 2000
 """Above this many samples :func:`.fitting.fit_model` should use :func:`fit_vecchia` (exact up to it)."""
 
 SUBSET_SIZE = 1000
@@ -58,35 +54,6 @@ statistical uncertainty: a change of 0.5 in ``l`` is about one standard error al
 
 GRADIENT_TOLERANCE = 1e-2
 """... or when no log-likelihood derivative (per log-parameter) exceeds this."""
-
-
-def _standardised_problem(xy: np.ndarray, y: np.ndarray, design: np.ndarray, method: str,
-                          should_stop: Callable[[], bool] | None) -> SearchProblem:
-    """The :class:`.fit_search.SearchProblem` of all samples, measured in ``O(n log n)``.
-
-    Same units as :meth:`.fit_search.SearchProblem.standardise`; the smallest
-    spacing comes from a k-d tree and the diameter from the convex hull
-    instead of all ``n^2`` distances.
-    """
-    basis = MeanBasis.from_design(design)
-    residual = y - basis.q @ (basis.q.T @ y)
-    value_scale = math.sqrt(float(np.mean(residual ** 2)))
-    if not value_scale > 0:
-        raise FieldcastError("The mean model reproduces the values exactly, leaving nothing for a covariance "
-                             "model; choose a simpler mean model or fewer covariates.")
-    low, high = xy.min(axis=0), xy.max(axis=0)
-    length_scale = float(np.hypot(*(high - low)))
-    internal_xy = (xy - (low + high) / 2.0) / length_scale
-    spacing, _ = cKDTree(internal_xy).query(internal_xy, k=2)
-    nonzero = spacing[:, 1][spacing[:, 1] > 0]
-    try:
-        corners = internal_xy[ConvexHull(internal_xy).vertices]
-    except QhullError:  # points on a line: their bounding box spans them
-        corners = np.array([internal_xy.min(axis=0), internal_xy.max(axis=0)])
-    diameter = float(np.max(np.hypot(*(corners[:, None, :] - corners[None, :, :]).T)))
-    scales = DataScales(float(nonzero.min()), diameter, 1.0)
-    return SearchProblem(internal_xy, y / value_scale, design, basis, method, length_scale, value_scale, scales,
-                         should_stop)
 
 
 def _to_internal(problem: SearchProblem, model: CovarianceModel) -> CovarianceModel:
@@ -162,28 +129,28 @@ def fit_vecchia(
         ``likelihood`` is ``"vecchia (m neighbours)"``; ``candidates`` holds
         the chosen model only.
     """
-    _check_choices(kernel, method, nested, smoothness)
+    check_fit_choices(kernel, method, nested, smoothness)
     if method == "wls":
         raise FieldcastError("The Vecchia fit maximises a likelihood; choose method 'reml' or 'ml'.")
     check_samples(xy, values)
     points = np.asarray(xy, dtype=float)
     observed = np.asarray(values, dtype=float)
-    mean_model = _mean_model(mean, points, covariates, known_mean)
+    mean_model = mean_model_for(mean, points, covariates, known_mean)
     design = mean_model.design(points, covariates)
     n = len(observed)
     subset = np.sort(np.random.default_rng(0).choice(n, min(subset_size, n), replace=False))
-    rough = fit_model(points[subset], observed[subset], kernel=kernel, anisotropy=anisotropy, mean=mean_model,
+    rough = fit_exact(points[subset], observed[subset], kernel=kernel, anisotropy=anisotropy, mean=mean_model,
                       method=method, covariates=None if covariates is None else np.asarray(covariates)[subset],
                       nested=nested, smoothness=smoothness, known_mean=known_mean,
                       progress=None if progress is None else (lambda f: progress(0.5 * f)), should_stop=should_stop)
     chosen = min(rough.candidates, key=lambda c: c.aic)
     layout = ParameterLayout(chosen.family, len(chosen.covariance.structures), chosen.anisotropy, smoothness)
-    problem = _standardised_problem(points, observed - mean_model.known_mean(n), design, method, should_stop)
+    problem = SearchProblem.standardise(points, observed - mean_model.known_mean(n), design, method, should_stop)
     start = layout.pack(_to_internal(problem, chosen.covariance))
     theta, minus_two, basis_coefficients = _optimise(problem, layout, start, neighbours, progress)
     model = problem.to_data_units(layout.unpack(theta))
     log_likelihood = problem.log_likelihood(minus_two)
-    aic, bic, k = _criteria(problem, log_likelihood, layout)
+    aic, bic, k = information_criteria(problem, log_likelihood, layout)
     messages = bound_warnings(layout, layout.pack(model), parameter_bounds(layout, problem.data_scales))
     coefficients = problem.basis.coefficients(basis_coefficients) * problem.value_scale
     if progress is not None:

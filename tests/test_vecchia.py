@@ -5,6 +5,7 @@ import numpy as np
 import pytest
 from scipy.stats import chi2
 
+from fieldcast.algorithms import fitting
 from fieldcast.algorithms.circulant import UnconditionalGenerator
 from fieldcast.algorithms.covariance import CovarianceModel, Structure
 from fieldcast.algorithms.errors import FieldcastError
@@ -158,3 +159,13 @@ def test_bad_settings_say_what_to_change(meuse, log_zinc):
         vecchia_log_likelihood(meuse.xy, log_zinc, ANISOTROPIC, mean, method="wls")
     with pytest.raises(FieldcastError, match="'reml' or 'ml'"):
         fit_vecchia(meuse.xy, log_zinc, kernel="exponential", method="wls")
+
+
+def test_fit_model_hands_large_data_to_the_vecchia_fit(monkeypatch):
+    # Above fitting.VECCHIA_THRESHOLD samples fit_model uses the Vecchia likelihood and says so; the threshold is
+    # lowered here so the hand-over runs on a small simulated set.
+    monkeypatch.setattr(fitting, "VECCHIA_THRESHOLD", 300)
+    xy, values = simulated_samples(400, seed=3)
+    result = fit_model(xy, values, kernel="exponential", anisotropy=False, mean="constant")
+    assert result.likelihood.startswith("vecchia")
+    assert fit_model(xy[:300], values[:300], kernel="exponential", anisotropy=False).likelihood == "exact"
