@@ -14,6 +14,7 @@ DATA="$REPO/demo/hollmark_basin.gpkg"
 SAMPLES="$DATA|layername=sediment_samples"
 BOUNDARY="$DATA|layername=basin_boundary"
 PYTHON=/usr/bin/python3  # the interpreter with the QGIS bindings
+ACTION_LEVEL=150  # lead, ppm: the invented basin's (invented) action level for dredged sediment
 
 PROFILE="$(mktemp -d -t fieldcast-profile.XXXXXX)"
 trap 'rm -rf "$PROFILE"' EXIT
@@ -39,12 +40,13 @@ for kind, lines in log.items():
 }
 
 run fit fieldcast:fitmodel INPUT="$SAMPLES" FIELD=lead_ppm TRANSFORM=log KERNEL=auto \
-    ANISOTROPY=true TREND=constant METHOD=reml OUTPUT_MODEL="$OUT/model.json"
+    ANISOTROPY=true TREND=constant METHOD=reml OUTPUT_MODEL="$OUT/model.json" OUTPUT_REPORT="$OUT/fit_report.html"
 run predict fieldcast:predict INPUT="$SAMPLES" FIELD=lead_ppm MODEL="$OUT/model.json" \
     EXTENT="$BOUNDARY" PIXEL_SIZE=10 MASK="$BOUNDARY" \
-    OUTPUT="$OUT/prediction.tif" OUTPUT_VARIANCE="$OUT/variance.tif"
+    THRESHOLD="$ACTION_LEVEL" OUTPUT="$OUT/prediction.tif" OUTPUT_VARIANCE="$OUT/variance.tif" \
+    OUTPUT_EXCEEDANCE="$OUT/exceedance.tif"
 run crossvalidate fieldcast:crossvalidate INPUT="$SAMPLES" FIELD=lead_ppm MODEL="$OUT/model.json" \
-    OUTPUT="$OUT/crossvalidation.gpkg"
+    OUTPUT="$OUT/crossvalidation.gpkg" OUTPUT_REPORT="$OUT/crossvalidation_report.html"
 
 echo "== quick looks"
 "$PYTHON" "$REPO/tools/quicklook.py" "$OUT/prediction.tif" "$OUT/quicklook.png" \
@@ -53,9 +55,12 @@ echo "== quick looks"
 "$PYTHON" "$REPO/tools/quicklook.py" "$OUT/variance.tif" "$OUT/quicklook_variance.png" \
     --points "$SAMPLES" --boundary "$BOUNDARY" --ramp spread \
     --title "Hollmark Basin (invented): lead, variance of the estimate, ppm²"
+"$PYTHON" "$REPO/tools/quicklook.py" "$OUT/exceedance.tif" "$OUT/quicklook_exceedance.png" \
+    --points "$SAMPLES" --boundary "$BOUNDARY" --ramp spread \
+    --title "Hollmark Basin (invented): probability that lead exceeds $ACTION_LEVEL ppm"
 
 echo "== summary"
-"$PYTHON" - "$OUT" "$PROFILE/crossvalidate.json" <<'EOF'
+"$PYTHON" - "$OUT" "$PROFILE/crossvalidate.json" "$REPO/tools" <<'EOF'
 import json
 import sys
 from pathlib import Path
@@ -67,6 +72,18 @@ for s in model["structures"]:
     print(f"structure {s['family']}: partial sill {s['partial_sill']:.4g}, range {s['range']:.4g} "
           f"(effective {s['effective_range']:.4g}) {model['units']}, azimuth {s['azimuth']:.1f} deg, "
           f"ratio {s['ratio']:.3g}")
+sys.path.insert(0, str(Path(sys.argv[3])))
+from engine import load_engine  # noqa: E402
+from make_demo_data import TRUE_MEAN_LOG_PPM, true_covariance  # noqa: E402
+
+load_engine()
+from fieldcast_engine import covariance  # noqa: E402
+
+truth = true_covariance(covariance)
+for s in truth.structures:
+    print(f"true model (demo/README.md): {s.family}, partial sill {s.partial_sill:.4g}, range {s.range:.4g} "
+          f"(effective {s.effective_range:.4g}) m, azimuth {s.azimuth:.1f} deg, ratio {s.ratio:.3g}, "
+          f"nugget {truth.nugget:.4g}, mean of ln(lead) {TRUE_MEAN_LOG_PPM:.4g}")
 fit = model["fit"]
 print(f"fit: {fit['method']}, n {fit['n']}, log-likelihood {fit['log_likelihood']:.2f}, AIC {fit['aic']:.2f}")
 results = json.load(open(sys.argv[2]))["results"]
