@@ -13,22 +13,28 @@ from qgis.core import (
     QgsProcessing,
     QgsProcessingAlgorithm,
     QgsProcessingException,
+    QgsProcessingParameterBoolean,
     QgsProcessingParameterCrs,
+    QgsProcessingParameterDefinition,
     QgsProcessingParameterEnum,
     QgsProcessingParameterFeatureSource,
     QgsProcessingParameterField,
     QgsProcessingParameterFile,
     QgsProcessingParameterFileDestination,
+    QgsProcessingParameterNumber,
 )
 from qgis.PyQt.QtCore import QCoreApplication
 
 from ..algorithms.errors import Cancelled, FieldcastError
+from ..algorithms.fitting import FIT_METHODS, KERNEL_CHOICES
 from ..algorithms.model_file import ModelDocument
-from ..algorithms.transform import Transform
+from ..algorithms.transform import TRANSFORM_KINDS, Transform
 from .icons import icon, icon_path
 from .model_source import FitSettings, describe_document, fit_document, load_document
 from .report.page import ReportError
 from .sample_reader import LayerSamples, ModelSamples, prepare_samples, read_layer_samples
+
+TREND_CHOICES = ("constant", "linear", "quadratic")
 
 
 def progress_callback(feedback, start: float = 0.0, stop: float = 100.0) -> Callable[[float], None]:
@@ -52,6 +58,12 @@ class FieldcastAlgorithm(QgsProcessingAlgorithm):
     MODEL = "MODEL"
     TARGET_CRS = "TARGET_CRS"
     OUTPUT_REPORT = "OUTPUT_REPORT"
+    TRANSFORM = "TRANSFORM"
+    LOG_OFFSET = "LOG_OFFSET"
+    KERNEL = "KERNEL"
+    ANISOTROPY = "ANISOTROPY"
+    TREND = "TREND"
+    METHOD = "METHOD"
     ICON = "fieldcast.svg"
 
     def tr(self, text: str) -> str:
@@ -83,10 +95,14 @@ class FieldcastAlgorithm(QgsProcessingAlgorithm):
 
     # --- parameters shared by several algorithms -------------------------------------------------------
 
-    def add_sample_parameters(self) -> None:
-        """INPUT (point layer) and FIELD (numeric attribute of INPUT)."""
+    def add_input_parameter(self) -> None:
+        """INPUT (point layer)."""
         self.addParameter(QgsProcessingParameterFeatureSource(
             self.INPUT, self.tr("Sample points"), [QgsProcessing.TypeVectorPoint]))
+
+    def add_sample_parameters(self) -> None:
+        """INPUT (point layer) and FIELD (numeric attribute of INPUT)."""
+        self.add_input_parameter()
         self.addParameter(QgsProcessingParameterField(
             self.FIELD, self.tr("Value field"), parentLayerParameterName=self.INPUT,
             type=QgsProcessingParameterField.Numeric))
@@ -106,6 +122,28 @@ class FieldcastAlgorithm(QgsProcessingAlgorithm):
         """OUTPUT_REPORT: optional HTML report; the dialog writes it to a temporary file unless skipped."""
         self.addParameter(QgsProcessingParameterFileDestination(
             self.OUTPUT_REPORT, description, self.tr("HTML files (*.html)"), optional=True, createByDefault=True))
+
+    def add_fit_parameters(self) -> None:
+        """TRANSFORM, LOG_OFFSET (advanced), KERNEL, ANISOTROPY, TREND and METHOD: the choices of a fit."""
+        self.add_choice(self.TRANSFORM, self.tr("Transform"), TRANSFORM_KINDS, "none")
+        offset = QgsProcessingParameterNumber(self.LOG_OFFSET, self.tr("Log offset (attribute units)"),
+                                              type=QgsProcessingParameterNumber.Double, defaultValue=0.0)
+        offset.setFlags(offset.flags() | QgsProcessingParameterDefinition.FlagAdvanced)
+        self.addParameter(offset)
+        self.add_choice(self.KERNEL, self.tr("Covariance family"), KERNEL_CHOICES, "auto")
+        self.addParameter(QgsProcessingParameterBoolean(self.ANISOTROPY, self.tr("Anisotropy"), defaultValue=True))
+        self.add_choice(self.TREND, self.tr("Trend"), TREND_CHOICES, "constant")
+        self.add_choice(self.METHOD, self.tr("Fitting method"), FIT_METHODS, "reml")
+
+    def fit_choices(self, parameters, context) -> tuple[Transform, FitSettings]:
+        """The transform and fit settings chosen with the parameters of :meth:`add_fit_parameters`."""
+        transform = Transform(self.choice(parameters, self.TRANSFORM, context),
+                              self.parameterAsDouble(parameters, self.LOG_OFFSET, context))
+        settings = FitSettings(kernel=self.choice(parameters, self.KERNEL, context),
+                               anisotropy=self.parameterAsBoolean(parameters, self.ANISOTROPY, context),
+                               trend=self.choice(parameters, self.TREND, context),
+                               method=self.choice(parameters, self.METHOD, context))
+        return transform, settings
 
     def add_choice(self, name: str, description: str, options: Sequence[str], default: str) -> None:
         """An enum parameter whose values are the option words themselves (e.g. ``KERNEL=spherical``)."""

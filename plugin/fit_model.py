@@ -3,28 +3,19 @@ from __future__ import annotations
 
 from collections.abc import Callable, Mapping
 
-from qgis.core import (
-    QgsProcessingOutputNumber,
-    QgsProcessingParameterBoolean,
-    QgsProcessingParameterDefinition,
-    QgsProcessingParameterFileDestination,
-    QgsProcessingParameterNumber,
-)
+from qgis.core import QgsProcessingOutputNumber, QgsProcessingParameterFileDestination
 
 from ..algorithms.crossval import leave_one_out
 from ..algorithms.crs import parse_crs
 from ..algorithms.errors import Cancelled
-from ..algorithms.fitting import FIT_METHODS, KERNEL_CHOICES, FitResult
+from ..algorithms.fitting import FitResult
 from ..algorithms.model_file import ModelDocument
-from ..algorithms.transform import TRANSFORM_KINDS, Transform
 from ..algorithms.variogram import directional_semivariograms, empirical_semivariogram
 from .algorithm_base import FieldcastAlgorithm, progress_callback
-from .help_text import TARGET_CRS_HELP, compose_help
-from .model_source import FitSettings, fit_document
+from .help_text import FIT_HELP, TARGET_CRS_HELP, compose_help
+from .model_source import fit_document
 from .report.fit_report import write_fit_report
 from .sample_reader import ModelSamples, prepare_samples
-
-TREND_CHOICES = ("constant", "linear", "quadratic")
 
 NUMBER_OUTPUTS = (
     ("PARTIAL_SILL", "Partial sill (modelling units squared)"),
@@ -72,12 +63,6 @@ def fit_report_arguments(samples: ModelSamples, skipped: Mapping[str, int], resu
 class FitModelAlgorithm(FieldcastAlgorithm):
     """Fit a covariance model (nugget, family, range, anisotropy, trend) to point samples."""
 
-    TRANSFORM = "TRANSFORM"
-    LOG_OFFSET = "LOG_OFFSET"
-    KERNEL = "KERNEL"
-    ANISOTROPY = "ANISOTROPY"
-    TREND = "TREND"
-    METHOD = "METHOD"
     OUTPUT_MODEL = "OUTPUT_MODEL"
     ICON = "fitmodel.svg"
 
@@ -90,16 +75,7 @@ class FitModelAlgorithm(FieldcastAlgorithm):
         "model'.",
         [("Sample points / Value field", "Point layer and its numeric attribute. NULL values are skipped; "
           "samples at the same location are averaged. Multipoints with several points are refused."),
-         ("Transform", "none, or log: model ln(value + log offset), for skewed positive data such as metal "
-          "concentrations. Log needs every value + offset > 0."),
-         ("Log offset", "Added to the values before the logarithm (attribute units, default 0)."),
-         ("Covariance family", "auto tries exponential, spherical, Gaussian, Matérn 3/2 and 5/2 and keeps "
-          "the best by AIC; or choose one; matern also fits the smoothness."),
-         ("Anisotropy", "Let the range depend on direction (an ellipse with an azimuth and a minor/major "
-          "ratio)."),
-         ("Trend", "Mean of the field: constant, or a linear or quadratic surface of the coordinates."),
-         ("Fitting method", "reml (restricted maximum likelihood, the default), ml, or wls (weighted least "
-          "squares on the empirical semivariogram)."),
+         *FIT_HELP,
          TARGET_CRS_HELP],
         [("Model file", "JSON file with the fitted model, its CRS, transform and fit statistics."),
          ("Fit report", "HTML page (a temporary file unless you name one or skip it): the samples "
@@ -115,15 +91,7 @@ class FitModelAlgorithm(FieldcastAlgorithm):
 
     def initAlgorithm(self, config=None):
         self.add_sample_parameters()
-        self.add_choice(self.TRANSFORM, self.tr("Transform"), TRANSFORM_KINDS, "none")
-        offset = QgsProcessingParameterNumber(self.LOG_OFFSET, self.tr("Log offset (attribute units)"),
-                                              type=QgsProcessingParameterNumber.Double, defaultValue=0.0)
-        offset.setFlags(offset.flags() | QgsProcessingParameterDefinition.FlagAdvanced)
-        self.addParameter(offset)
-        self.add_choice(self.KERNEL, self.tr("Covariance family"), KERNEL_CHOICES, "auto")
-        self.addParameter(QgsProcessingParameterBoolean(self.ANISOTROPY, self.tr("Anisotropy"), defaultValue=True))
-        self.add_choice(self.TREND, self.tr("Trend"), TREND_CHOICES, "constant")
-        self.add_choice(self.METHOD, self.tr("Fitting method"), FIT_METHODS, "reml")
+        self.add_fit_parameters()
         self.add_target_crs_parameter()
         self.addParameter(QgsProcessingParameterFileDestination(
             self.OUTPUT_MODEL, self.tr("Model file"), self.tr("Fieldcast model (*.json)")))
@@ -132,12 +100,7 @@ class FitModelAlgorithm(FieldcastAlgorithm):
             self.addOutput(QgsProcessingOutputNumber(name, self.tr(description)))
 
     def compute(self, parameters, context, feedback) -> dict:
-        transform = Transform(self.choice(parameters, self.TRANSFORM, context),
-                              self.parameterAsDouble(parameters, self.LOG_OFFSET, context))
-        settings = FitSettings(kernel=self.choice(parameters, self.KERNEL, context),
-                               anisotropy=self.parameterAsBoolean(parameters, self.ANISOTROPY, context),
-                               trend=self.choice(parameters, self.TREND, context),
-                               method=self.choice(parameters, self.METHOD, context))
+        transform, settings = self.fit_choices(parameters, context)
         report_path = self.report_destination(parameters, context)
         layer_samples = self.read_samples(parameters, context, feedback)
         samples = prepare_samples(layer_samples, transform, feedback)

@@ -24,6 +24,19 @@ MODEL_FILE_HELP = (
     "defaults (auto family, anisotropy, constant mean, REML, no transform) and the log says so.",
 )
 
+FIT_HELP = [
+    ("Transform", "none, or log: model ln(value + log offset), for skewed positive data such as metal "
+     "concentrations. Log needs every value + offset > 0."),
+    ("Log offset", "Added to the values before the logarithm (attribute units, default 0)."),
+    ("Covariance family", "auto tries exponential, spherical, Gaussian, Matérn 3/2 and 5/2 and keeps "
+     "the best by AIC; or choose one; matern also fits the smoothness."),
+    ("Anisotropy", "Let the range depend on direction (an ellipse with an azimuth and a minor/major "
+     "ratio)."),
+    ("Trend", "Mean of the field: constant, or a linear or quadratic surface of the coordinates."),
+    ("Fitting method", "reml (restricted maximum likelihood, the default), ml, or wls (weighted least "
+     "squares on the empirical semivariogram)."),
+]
+
 GRID_HELP = [
     ("Extent", "Area of the raster; empty = extent of the samples. Cell edges fall on whole multiples of the pixel "
      "size, so rasters from several runs line up."),
@@ -31,6 +44,20 @@ GRID_HELP = [
      "neighbouring samples, rounded, and coarser if the grid would exceed a million cells."),
     ("Mask", "Optional polygon layer: cells whose centre is outside every polygon are nodata (and, in "
      "'Simulate conditional fields', left out of the areas and means)."),
+]
+
+BACKTRANSFORM_HELP = ("Back-transform", "For a log model only: median (exp(mu) - offset, the default, robust) or "
+                      "mean (exp(mu + s2/2) - offset).")
+
+NEIGHBOURHOOD_HELP = [
+    ("Neighbours per cell", "0 (the default): every sample takes part in every cell (global kriging), up to "
+     "5,000 samples; with more, each cell uses its 64 nearest samples and the log says so. A number k: each "
+     "cell is kriged from its k nearest samples (local kriging; 16 to 64 is common practice), faster for many "
+     "samples and following local changes of the mean. It must be more than the number of trend terms (at "
+     "least 2 for a constant mean)."),
+    ("Search radius", "With local kriging only: neighbours farther than this (working CRS units, along the "
+     "major axis; the search ellipse follows the model's anisotropy) are left out. Cells with too few samples "
+     "in range are nodata, and the log says how many. Empty: no limit."),
 ]
 
 THRESHOLD_HELP = (

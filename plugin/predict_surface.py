@@ -3,17 +3,23 @@ from __future__ import annotations
 
 from qgis.core import QgsProcessingParameterRasterDestination
 
-from ..algorithms.kriging import KrigingPredictor
 from .algorithm_base import progress_callback
-from .help_text import GRID_HELP, MODEL_FILE_HELP, TARGET_CRS_HELP, THRESHOLD_HELP, compose_help
-from .raster_algorithm import RasterAlgorithm
-from .surface import BACKTRANSFORMS, SUPPORTS, SurfaceScale, cell_predictor, write_surface
+from .help_text import (
+    BACKTRANSFORM_HELP,
+    GRID_HELP,
+    MODEL_FILE_HELP,
+    NEIGHBOURHOOD_HELP,
+    TARGET_CRS_HELP,
+    THRESHOLD_HELP,
+    compose_help,
+)
+from .surface import SUPPORTS, SurfaceScale
+from .surface_algorithm import SurfaceAlgorithm
 
 
-class PredictSurfaceAlgorithm(RasterAlgorithm):
+class PredictSurfaceAlgorithm(SurfaceAlgorithm):
     """Krige a raster of predictions (and their variance and exceedance probability) from point samples and a model."""
 
-    BACKTRANSFORM = "BACKTRANSFORM"
     SUPPORT = "SUPPORT"
     OUTPUT = "OUTPUT"
     OUTPUT_VARIANCE = "OUTPUT_VARIANCE"
@@ -29,13 +35,13 @@ class PredictSurfaceAlgorithm(RasterAlgorithm):
           "to). NULL values are skipped; samples at one location are averaged."),
          MODEL_FILE_HELP,
          *GRID_HELP,
-         ("Back-transform", "For a log model only: median (exp(mu) - offset, the default, robust) or mean "
-          "(exp(mu + s2/2) - offset)."),
+         BACKTRANSFORM_HELP,
          ("Support", "point (default): the value at each cell centre, for maps of the attribute itself. cell: "
           "the average over each cell (block kriging with 4 x 4 points per cell), for decisions taken per area, "
           "such as whether a cell-sized unit must be remediated. Cell averages are smoother and their variance "
           "is smaller, because small-scale variation averages out. For a log model the average is taken in the "
-          "log scale."),
+          "log scale. Cell support uses all samples (NEIGHBOURS 0)."),
+         *NEIGHBOURHOOD_HELP,
          THRESHOLD_HELP,
          TARGET_CRS_HELP],
         [("Prediction", "Float32 GeoTIFF in attribute units (for a log model back-transformed as chosen; "
@@ -55,9 +61,10 @@ class PredictSurfaceAlgorithm(RasterAlgorithm):
         self.add_sample_parameters()
         self.add_model_parameter()
         self.add_grid_parameters()
-        self.add_choice(self.BACKTRANSFORM, self.tr("Back-transform (log models)"), BACKTRANSFORMS, "median")
+        self.add_backtransform_parameter()
         self.add_choice(self.SUPPORT, self.tr("Support (point = cell centre, cell = cell average)"), SUPPORTS,
                         "point")
+        self.add_neighbourhood_parameters()
         self.add_threshold_parameter()
         self.add_target_crs_parameter()
         self.addParameter(QgsProcessingParameterRasterDestination(self.OUTPUT, self.tr("Prediction")))
@@ -77,14 +84,8 @@ class PredictSurfaceAlgorithm(RasterAlgorithm):
         support = self.choice(parameters, self.SUPPORT, context)
         scale = SurfaceScale(document.transform, self.choice(parameters, self.BACKTRANSFORM, context), support,
                              threshold)
-        predictor = KrigingPredictor(samples.xy, samples.values, document.covariance, document.mean)
-        metadata = {"fieldcast_model": document.to_dict(), "fieldcast_backtransform": scale.backtransform,
-                    "fieldcast_support": support}
-        if threshold is not None:
-            metadata["fieldcast_threshold"] = threshold
-        write_surface(cell_predictor(predictor, support, grid.pixel_size), grid, inside, scale,
-                      samples.field, document.crs_wkt, paths, metadata, progress_callback(feedback, 30, 100),
-                      feedback.isCanceled)
+        self.krige_surface(document, samples, grid, inside, scale, self.neighbourhood(parameters, context), paths,
+                           feedback, progress_callback(feedback, 30, 100))
         outputs = {self.OUTPUT: paths["prediction"], self.OUTPUT_VARIANCE: paths["variance"],
                    self.OUTPUT_EXCEEDANCE: paths["exceedance"]}
         return {name: path for name, path in outputs.items() if path}

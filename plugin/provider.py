@@ -7,6 +7,7 @@ from ..algorithms.version import __version__
 from .cross_validate import CrossValidateAlgorithm
 from .fit_model import FitModelAlgorithm
 from .icons import icon, icon_path
+from .predict_many import PredictManyAlgorithm
 from .predict_surface import PredictSurfaceAlgorithm
 from .simulate import SimulateAlgorithm
 
@@ -14,8 +15,8 @@ PROVIDER_ICON = "fieldcast.svg"
 
 
 class FieldcastProvider(QgsProcessingProvider):
-    """Processing provider listing Fit covariance model, Predict surface, Simulate conditional fields and
-    Cross-validate model."""
+    """Processing provider listing Fit covariance model, Predict surface, Predict surfaces for several fields,
+    Simulate conditional fields and Cross-validate model."""
 
     def id(self) -> str:
         return "fieldcast"
@@ -40,6 +41,6 @@ class FieldcastProvider(QgsProcessingProvider):
         return ["tif"]
 
     def loadAlgorithms(self) -> None:
-        for algorithm in (FitModelAlgorithm(), PredictSurfaceAlgorithm(), SimulateAlgorithm(),
-                          CrossValidateAlgorithm()):
+        for algorithm in (FitModelAlgorithm(), PredictSurfaceAlgorithm(), PredictManyAlgorithm(),
+                          SimulateAlgorithm(), CrossValidateAlgorithm()):
             self.addAlgorithm(algorithm)

@@ -1,6 +1,7 @@
 """Kriging a grid in row blocks and writing the prediction, variance and exceedance GeoTIFFs.
 
-Memory stays bounded by one block of rows at a time; the files appear only
+Blocks are whole rows of 256 x 256 GeoTIFF tiles; memory stays bounded by one
+block of rows at a time, whatever the raster's height; the files appear only
 when every block is written (see :class:`..algorithms.geotiff.GeoTiffWriter`).
 Each cell is predicted at its centre (point support) or as the average over the
 cell (cell support, block kriging: :func:`..algorithms.block.block_predict`).
@@ -20,6 +21,7 @@ from ..algorithms.exceedance import exceedance_probability
 from ..algorithms.geotiff import GeoTiffWriter
 from ..algorithms.grid import GridSpec
 from ..algorithms.kriging import KrigingPredictor
+from ..algorithms.neighbourhood import LocalKrigingPredictor
 from ..algorithms.transform import Transform
 
 BACKTRANSFORMS = ("median", "mean")
@@ -35,8 +37,10 @@ CellPredictor = Callable[[np.ndarray, Callable[[float], None], Optional[Callable
 """``predict(centres (m, 2), progress, should_stop) -> (mean, variance)`` in the modelling scale."""
 
 
-def cell_predictor(predictor: KrigingPredictor, support: str, pixel_size: float) -> CellPredictor:
-    """Kriging at cell centres (``support == "point"``) or of cell averages (``"cell"``, block kriging)."""
+def cell_predictor(predictor: KrigingPredictor | LocalKrigingPredictor, support: str,
+                   pixel_size: float) -> CellPredictor:
+    """Kriging at cell centres (``support == "point"``) or of cell averages (``"cell"``, block kriging;
+    global :class:`KrigingPredictor` only)."""
     if support == "cell":
         def predict(centres, progress, should_stop):
             return block_predict(predictor, centres, pixel_size, progress=progress, should_stop=should_stop)
@@ -104,19 +108,24 @@ class SurfaceScale:
 
 
 def block_rows(grid: GridSpec) -> int:
-    """Rows per block: whole tiles of 256 rows when they hold at most :data:`BLOCK_CELLS` cells."""
-    rows = max(1, BLOCK_CELLS // grid.n_cols)
-    return TILE_ROWS * (rows // TILE_ROWS) if rows >= TILE_ROWS else rows
+    """Rows per block: as many whole 256-row tile rows as fit in :data:`BLOCK_CELLS` cells, at least one.
+
+    Blocks aligned to the GeoTIFF tiles are written as whole tiles, so GDAL never
+    holds a partly written tile; memory grows with the raster's width only.
+    """
+    return TILE_ROWS * max(1, BLOCK_CELLS // (TILE_ROWS * grid.n_cols))
 
 
 def write_surface(predict: CellPredictor, grid: GridSpec, inside: np.ndarray | None, scale: SurfaceScale,
                   field: str, crs_wkt: str, paths: Mapping[str, str], metadata: Mapping[str, object],
                   progress: Callable[[float], None] | None = None,
-                  should_stop: Callable[[], bool] | None = None) -> None:
-    """Predict every cell (those with ``inside`` True) and write the GeoTIFFs.
+                  should_stop: Callable[[], bool] | None = None) -> int:
+    """Predict every cell (those with ``inside`` True) and write the GeoTIFFs; returns the unresolved cells.
 
     ``paths`` maps kinds of :data:`SURFACE_KINDS` to destination files (kinds left out are not written).
-    Cells outside the mask, and values that do not fit Float32, are stored as nodata.
+    Cells outside the mask, cells the predictor leaves NaN (a local neighbourhood with too few
+    samples in range) and values that do not fit Float32 are stored as nodata; the count returned
+    is of the NaN cells inside the mask.
 
     Raises
     ------
@@ -126,6 +135,7 @@ def write_surface(predict: CellPredictor, grid: GridSpec, inside: np.ndarray | N
     descriptions = scale.descriptions(field)
     kinds = [kind for kind in SURFACE_KINDS if paths.get(kind)]
     step = block_rows(grid)
+    unresolved = 0
     with contextlib.ExitStack() as stack:
         writers = {kind: stack.enter_context(GeoTiffWriter(paths[kind], grid, 1, crs_wkt, [descriptions[kind]],
                                                             metadata)) for kind in kinds}
@@ -142,6 +152,7 @@ def write_surface(predict: CellPredictor, grid: GridSpec, inside: np.ndarray | N
                         progress((start + fraction * (stop - start)) / grid.n_rows)
 
                 mean, variance = predict(centres[keep], block_progress, should_stop)
+                unresolved += int(np.count_nonzero(np.isnan(mean)))
                 for kind, values in scale.layers(mean, variance, kinds).items():
                     bands[kind][keep] = values
             for kind, writer in writers.items():
@@ -150,3 +161,4 @@ def write_surface(predict: CellPredictor, grid: GridSpec, inside: np.ndarray | N
                 progress(stop / grid.n_rows)
         for writer in writers.values():
             writer.commit()
+    return unresolved

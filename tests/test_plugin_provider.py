@@ -19,9 +19,14 @@ CONTRACT = {
                  {"OUTPUT_MODEL", "OUTPUT_REPORT", "PARTIAL_SILL", "RANGE",
                   "NUGGET", "AZIMUTH", "RATIO", "LOG_LIKELIHOOD", "AIC"}),
     "predict": ("Predict surface",
-                {"INPUT", "FIELD", "MODEL", "EXTENT", "PIXEL_SIZE", "MASK", "BACKTRANSFORM", "SUPPORT", "THRESHOLD",
-                 "TARGET_CRS", "OUTPUT", "OUTPUT_VARIANCE", "OUTPUT_EXCEEDANCE"},
+                {"INPUT", "FIELD", "MODEL", "EXTENT", "PIXEL_SIZE", "MASK", "BACKTRANSFORM", "SUPPORT", "NEIGHBOURS",
+                 "SEARCH_RADIUS", "THRESHOLD", "TARGET_CRS", "OUTPUT", "OUTPUT_VARIANCE", "OUTPUT_EXCEEDANCE"},
                 {"OUTPUT", "OUTPUT_VARIANCE", "OUTPUT_EXCEEDANCE"}),
+    "predictmany": ("Predict surfaces for several fields",
+                    {"INPUT", "FIELDS", "TRANSFORM", "LOG_OFFSET", "KERNEL", "ANISOTROPY", "TREND", "METHOD", "EXTENT",
+                     "PIXEL_SIZE", "MASK", "BACKTRANSFORM", "NEIGHBOURS", "SEARCH_RADIUS", "TARGET_CRS",
+                     "OUTPUT_FOLDER"},
+                    {"OUTPUT_FOLDER", "COUNT"}),
     "simulate": ("Simulate conditional fields",
                  {"INPUT", "FIELD", "MODEL", "EXTENT", "PIXEL_SIZE", "MASK", "REALIZATIONS", "SEED", "THRESHOLD",
                   "TARGET_CRS", "OUTPUT", "OUTPUT_MEAN", "OUTPUT_STDDEV", "OUTPUT_EXCEEDANCE", "OUTPUT_P10",
@@ -39,6 +44,11 @@ CHOICES = {
     ("fitmodel", "METHOD"): ["reml", "ml", "wls"],
     ("predict", "BACKTRANSFORM"): ["median", "mean"],
     ("predict", "SUPPORT"): ["point", "cell"],
+    ("predictmany", "TRANSFORM"): ["none", "log"],
+    ("predictmany", "KERNEL"): ["auto", "exponential", "spherical", "gaussian", "matern32", "matern52", "matern"],
+    ("predictmany", "TREND"): ["constant", "linear", "quadratic"],
+    ("predictmany", "METHOD"): ["reml", "ml", "wls"],
+    ("predictmany", "BACKTRANSFORM"): ["median", "mean"],
 }
 
 
@@ -60,7 +70,7 @@ def test_metadata_declares_a_processing_plugin_of_this_version():
     assert (REPO_ROOT / general["icon"]).is_file()
 
 
-def test_class_factory_registers_the_provider_with_four_algorithms(fieldcast_plugin):  # noqa: F811
+def test_class_factory_registers_the_provider_with_five_algorithms(fieldcast_plugin):  # noqa: F811
     provider = QgsApplication.processingRegistry().providerById("fieldcast")
     assert provider is not None and provider.name() == "Fieldcast"
     assert sorted(a.name() for a in provider.algorithms()) == sorted(CONTRACT)

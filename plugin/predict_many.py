@@ -1,0 +1,187 @@
+"""Toolbox algorithm 'Predict surfaces for several fields' (fieldcast:predictmany)."""
+from __future__ import annotations
+
+import os
+import re
+
+from qgis.core import (
+    QgsProcessingException,
+    QgsProcessingOutputNumber,
+    QgsProcessingParameterField,
+    QgsProcessingParameterFolderDestination,
+)
+
+from ..algorithms.errors import Cancelled, FieldcastError
+from ..algorithms.mean import MeanModel
+from .algorithm_base import progress_callback
+from .help_text import BACKTRANSFORM_HELP, FIT_HELP, GRID_HELP, NEIGHBOURHOOD_HELP, TARGET_CRS_HELP, compose_help
+from .model_source import describe_document, fit_document
+from .sample_reader import prepare_samples, read_layer_samples
+from .surface import SurfaceScale
+from .surface_algorithm import SurfaceAlgorithm
+
+FIT_SHARE = 0.4
+"""Share of each field's part of the progress bar taken by the fit; kriging and writing take the rest."""
+
+NO_FIELDS = "No value field chosen. Choose one or more numeric fields of the sample layer in 'Value fields' (FIELDS)."
+
+
+def file_stems(fields: list[str]) -> dict[str, str]:
+    """A distinct file-name stem per field: characters other than letters, digits, ``-`` and ``.`` become ``_``.
+
+    Names that clash after this (``"Pb ppm"`` and ``"Pb_ppm"``) get ``_2``, ``_3``, ... in FIELDS order.
+    """
+    stems: dict[str, str] = {}
+    for field in fields:
+        stem = re.sub(r"[^\w.-]", "_", field, flags=re.ASCII).strip(".") or "field"
+        candidate, number = stem, 1
+        while candidate.lower() in {taken.lower() for taken in stems.values()}:
+            number += 1
+            candidate = f"{stem}_{number}"
+        stems[field] = candidate
+    return stems
+
+
+class PredictManyAlgorithm(SurfaceAlgorithm):
+    """Fit a model and krige prediction and variance rasters for each of several fields of one layer."""
+
+    FIELDS = "FIELDS"
+    OUTPUT_FOLDER = "OUTPUT_FOLDER"
+    COUNT = "COUNT"
+    ICON = "predictmany.svg"
+
+    NAME = "predictmany"
+    DISPLAY_NAME = "Predict surfaces for several fields"
+    HELP = compose_help(
+        "For each chosen field of one point layer: fits a covariance model with the settings below (as 'Fit "
+        "covariance model') and kriges its prediction and variance rasters (as 'Predict surface' with that model), "
+        "writing three files per field into one folder. The same as one fit and one prediction per field, in one "
+        "run: fields sampled at the same locations share the grid and mask.",
+        [("Sample points", "The point layer."),
+         ("Value fields", "One or more numeric attributes. Each field's NULL values are skipped "
+          "separately, so the fields may have different samples; samples at one location are averaged."),
+         *FIT_HELP,
+         *GRID_HELP,
+         BACKTRANSFORM_HELP,
+         *NEIGHBOURHOOD_HELP,
+         TARGET_CRS_HELP],
+        [("Output folder", "Receives, per field, <field>_model.json (the model file, as 'Fit covariance model' "
+          "writes it), <field>_prediction.tif and <field>_variance.tif (Float32 GeoTIFFs as 'Predict surface' "
+          "writes them: attribute units, and the variance of the smooth field in attribute units squared). Field "
+          "names are made safe for file names: characters other than letters, digits, '-' and '.' become '_'. "
+          "Every field's samples are checked before any file is written. Fields are done one after another and "
+          "each field's files appear when they are complete: cancelling leaves the files of the fields already "
+          "finished (the log lists them) and nothing of the field in progress."),
+         ("Count", "Number of fields predicted.")],
+    )
+
+    def initAlgorithm(self, config=None):
+        self.add_input_parameter()
+        self.addParameter(QgsProcessingParameterField(
+            self.FIELDS, self.tr("Value fields"), parentLayerParameterName=self.INPUT,
+            type=QgsProcessingParameterField.Numeric, allowMultiple=True))
+        self.add_fit_parameters()
+        self.add_grid_parameters()
+        self.add_backtransform_parameter()
+        self.add_neighbourhood_parameters()
+        self.add_target_crs_parameter()
+        self.addParameter(QgsProcessingParameterFolderDestination(self.OUTPUT_FOLDER, self.tr("Output folder")))
+        self.addOutput(QgsProcessingOutputNumber(self.COUNT, self.tr("Number of fields predicted")))
+
+    def checkParameterValues(self, parameters, context):
+        """Refuse an empty FIELDS list with advice (before Processing's generic message)."""
+        if not self.parameterAsFields(parameters, self.FIELDS, context):
+            return False, NO_FIELDS
+        return super().checkParameterValues(parameters, context)
+
+    def output_folder(self, parameters, context) -> str:
+        """OUTPUT_FOLDER, created when missing.
+
+        Raises
+        ------
+        FieldcastError
+            If the folder cannot be created or written to.
+        """
+        folder = self.parameterAsFileOutput(parameters, self.OUTPUT_FOLDER, context)
+        if not folder:
+            raise FieldcastError("No output folder given. Choose a folder for the model and raster files.")
+        try:
+            os.makedirs(folder, exist_ok=True)
+        except OSError as exc:
+            raise FieldcastError(f"Cannot create the output folder {folder}: {exc.strerror}. Choose a folder you "
+                                 "can write to.") from exc
+        if not os.access(folder, os.W_OK | os.X_OK):
+            raise FieldcastError(f"The output folder {folder} is not writable. Choose a folder where you can save "
+                                 "files.")
+        return folder
+
+    def chosen_fields(self, parameters, context, source) -> list[str]:
+        """FIELDS without repeats (never empty: see :meth:`checkParameterValues`), each checked to be numeric."""
+        fields = list(dict.fromkeys(self.parameterAsFields(parameters, self.FIELDS, context)))
+        for field in fields:
+            index = source.fields().lookupField(field)
+            if index < 0:
+                raise FieldcastError(f"The sample layer has no field {field!r}; choose among its numeric fields.")
+            if not source.fields().at(index).isNumeric():
+                raise FieldcastError(f"Field {field!r} holds {source.fields().at(index).typeName()} values, not "
+                                     "numbers. Leave it out of 'Value fields', or make a numeric copy with the "
+                                     "Field calculator (e.g. to_real(\"field\")).")
+        return fields
+
+    def compute(self, parameters, context, feedback) -> dict:
+        source = self.parameterAsSource(parameters, self.INPUT, context)
+        if source is None:
+            raise QgsProcessingException(self.invalidSourceError(parameters, self.INPUT))
+        fields = self.chosen_fields(parameters, context, source)
+        folder = self.output_folder(parameters, context)
+        transform, settings = self.fit_choices(parameters, context)
+        neighbourhood = self.neighbourhood(parameters, context)
+        scale = SurfaceScale(transform, self.choice(parameters, self.BACKTRANSFORM, context))
+        target = self.parameterAsCrs(parameters, self.TARGET_CRS, context)
+        stems = file_stems(fields)
+        prepared = []
+        for field in fields:  # every field is checked before any file is written
+            layer_samples = read_layer_samples(source, field, target, feedback)
+            prepared.append((layer_samples, prepare_samples(layer_samples, transform, feedback)))
+        minimum = MeanModel.for_data(settings.trend, prepared[0][1].xy).n_terms + 1
+        if 0 < neighbourhood.neighbours < minimum:
+            raise FieldcastError(f"NEIGHBOURS is {neighbourhood.neighbours}, but the {settings.trend} trend needs "
+                                 f"at least {minimum} samples per cell. Set NEIGHBOURS to {minimum} or more, or "
+                                 "to 0 for all samples.")
+        grids: dict[tuple[str, bytes], tuple] = {}
+        finished: list[str] = []
+        share = 100.0 / len(fields)
+        for index, (layer_samples, samples) in enumerate(prepared):
+            field, start = layer_samples.field, index * share
+            try:
+                if feedback.isCanceled():
+                    raise Cancelled("Cancelled between fields.")
+                feedback.pushInfo(f"Field {index + 1} of {len(fields)}: {field}. Fitting with {settings.describe()}.")
+                document, _ = fit_document(samples.xy, samples.values, transform, layer_samples.working, field,
+                                           settings, progress_callback(feedback, start, start + FIT_SHARE * share),
+                                           feedback.isCanceled)
+                for warning in document.fit.get("warnings", []):
+                    feedback.pushWarning(f"{field}: {warning}")
+                feedback.pushInfo(describe_document(document))
+                key = (document.crs_wkt, samples.xy.tobytes())
+                if key in grids:
+                    feedback.pushInfo("Same sample locations as an earlier field: its grid and mask are reused.")
+                else:
+                    grids[key] = self.grid_and_mask(parameters, context, samples.xy, document.crs_wkt,
+                                                    document.units, feedback, n_bands=2)
+                grid, inside = grids[key]
+                stem = os.path.join(folder, stems[field])
+                self.krige_surface(document, samples, grid, inside, scale, neighbourhood,
+                                   {"prediction": f"{stem}_prediction.tif", "variance": f"{stem}_variance.tif"},
+                                   feedback, progress_callback(feedback, start + FIT_SHARE * share, start + share))
+                document.save(f"{stem}_model.json")
+            except Cancelled as exc:
+                kept = f"the files of {', '.join(finished)} are complete and stay in {folder}" if finished else \
+                    "no file was written"
+                raise QgsProcessingException(self.tr(f"Cancelled at field {field}: none of its files was written; "
+                                                     f"{kept}.")) from exc
+            finished.append(field)
+            feedback.pushInfo(f"Wrote {stems[field]}_model.json, {stems[field]}_prediction.tif and "
+                              f"{stems[field]}_variance.tif.")
+        feedback.setProgress(100.0)
+        return {self.OUTPUT_FOLDER: folder, self.COUNT: len(finished)}

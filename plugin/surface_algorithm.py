@@ -1,0 +1,142 @@
+"""What the kriging-surface algorithms (predict, predictmany) share: back-transform, local neighbourhood, writing.
+
+:class:`SurfaceAlgorithm` adds to :class:`.raster_algorithm.RasterAlgorithm` the
+BACKTRANSFORM, NEIGHBOURS and SEARCH_RADIUS parameters, the choice between
+global kriging (:class:`KrigingPredictor`, every sample) and local kriging
+(:class:`LocalKrigingPredictor`, the nearest samples of each cell), and the
+kriging of a grid into GeoTIFF files with its log lines.
+"""
+from __future__ import annotations
+
+from collections.abc import Callable, Mapping
+from dataclasses import dataclass
+
+import numpy as np
+from qgis.core import QgsProcessingParameterNumber
+
+from ..algorithms.errors import FieldcastError
+from ..algorithms.grid import GridSpec
+from ..algorithms.kriging import KrigingPredictor
+from ..algorithms.model_file import ModelDocument
+from ..algorithms.neighbourhood import LocalKrigingPredictor
+from .raster_algorithm import RasterAlgorithm
+from .sample_reader import ModelSamples
+from .surface import BACKTRANSFORMS, SurfaceScale, cell_predictor, write_surface
+
+GLOBAL_SAMPLE_LIMIT = 5000
+"""Most samples kriged all together when NEIGHBOURS is 0; above it each cell uses its nearest
+:data:`AUTOMATIC_NEIGHBOURS` (a dense system of 5,000 samples already holds 200 MB and solves slowly)."""
+AUTOMATIC_NEIGHBOURS = 64
+"""Neighbours per cell chosen for NEIGHBOURS = 0 with more than :data:`GLOBAL_SAMPLE_LIMIT` samples."""
+
+
+@dataclass(frozen=True)
+class Neighbourhood:
+    """The samples each cell is kriged from.
+
+    Attributes
+    ----------
+    neighbours : int
+        0 = every sample (up to :data:`GLOBAL_SAMPLE_LIMIT`); otherwise the nearest ``neighbours``.
+    search_radius : float or None
+        Largest distance of a neighbour along the model's major axis (working CRS units; the search
+        ellipse follows the anisotropy), None = no limit. Used with local kriging only.
+    """
+
+    neighbours: int = 0
+    search_radius: float | None = None
+
+    def predictor(self, samples: ModelSamples, document: ModelDocument, support: str,
+                  feedback) -> KrigingPredictor | LocalKrigingPredictor:
+        """The kriging predictor for these samples and model, with the choice said in the log.
+
+        Raises
+        ------
+        FieldcastError
+            If NEIGHBOURS is too small for the mean model, or local kriging is asked for cell support.
+        """
+        count = len(samples.values)
+        neighbours = self.neighbours
+        if neighbours == 0 and count > GLOBAL_SAMPLE_LIMIT and support == "point":
+            neighbours = AUTOMATIC_NEIGHBOURS
+            feedback.pushInfo(f"NEIGHBOURS is 0 but there are {count:,} samples, more than the "
+                              f"{GLOBAL_SAMPLE_LIMIT:,} kriged all together: each cell uses its {neighbours} "
+                              "nearest samples instead. Set NEIGHBOURS to choose another number.")
+        if neighbours == 0:
+            if self.search_radius is not None:
+                feedback.pushWarning("SEARCH_RADIUS is ignored: every sample is used (NEIGHBOURS is 0).")
+            if count > GLOBAL_SAMPLE_LIMIT:
+                feedback.pushWarning(f"Cell support krigs all {count:,} samples together, which is slow and "
+                                     "memory-hungry at this size; point support would use local neighbourhoods.")
+            feedback.pushInfo(f"Kriging from all {count} samples.")
+            return KrigingPredictor(samples.xy, samples.values, document.covariance, document.mean)
+        if support == "cell":
+            raise FieldcastError("Cell support is computed from all samples (block kriging); local "
+                                 "neighbourhoods are for point support. Set NEIGHBOURS to 0, or SUPPORT to point.")
+        minimum = document.mean.n_terms + 1
+        if neighbours < minimum:
+            raise FieldcastError(f"NEIGHBOURS is {neighbours}, but the {document.mean.kind} mean of the model needs "
+                                 f"at least {minimum} samples per cell. Set NEIGHBOURS to {minimum} or more (16 to "
+                                 "64 is common practice), or to 0 for all samples.")
+        within = "" if self.search_radius is None else \
+            f" within {self.search_radius:g} {document.units} (along the major axis of the model's anisotropy)"
+        feedback.pushInfo(f"Local kriging: each cell from its {min(neighbours, count)} nearest samples{within}.")
+        return LocalKrigingPredictor(samples.xy, samples.values, document.covariance, document.mean,
+                                     neighbours=neighbours, search_radius=self.search_radius)
+
+    def log_unresolved(self, unresolved: int, feedback) -> None:
+        """Say how many cells were left nodata for want of neighbours (nothing when none were)."""
+        if unresolved:
+            feedback.pushWarning(f"{unresolved:,} cell(s) are nodata: fewer samples than the mean model needs lie "
+                                 "within SEARCH_RADIUS of them (or their neighbours make a singular system). "
+                                 "Enlarge SEARCH_RADIUS, or leave it empty, to fill them.")
+
+
+class SurfaceAlgorithm(RasterAlgorithm):
+    """Base of the algorithms that krige prediction and variance rasters."""
+
+    BACKTRANSFORM = "BACKTRANSFORM"
+    NEIGHBOURS = "NEIGHBOURS"
+    SEARCH_RADIUS = "SEARCH_RADIUS"
+
+    def add_backtransform_parameter(self) -> None:
+        """BACKTRANSFORM: median (default) or mean, for log models."""
+        self.add_choice(self.BACKTRANSFORM, self.tr("Back-transform (log models)"), BACKTRANSFORMS, "median")
+
+    def add_neighbourhood_parameters(self) -> None:
+        """NEIGHBOURS (0 = all samples) and SEARCH_RADIUS (optional)."""
+        self.addParameter(QgsProcessingParameterNumber(
+            self.NEIGHBOURS, self.tr("Neighbours per cell (0 = all samples)"),
+            type=QgsProcessingParameterNumber.Integer, defaultValue=0, minValue=0))
+        self.addParameter(QgsProcessingParameterNumber(
+            self.SEARCH_RADIUS, self.tr("Search radius (working CRS units; empty = no limit)"),
+            type=QgsProcessingParameterNumber.Double, optional=True, minValue=0.0))
+
+    def neighbourhood(self, parameters, context) -> Neighbourhood:
+        """The NEIGHBOURS and SEARCH_RADIUS chosen."""
+        return Neighbourhood(self.parameterAsInt(parameters, self.NEIGHBOURS, context),
+                             self.optional_number(parameters, self.SEARCH_RADIUS, context))
+
+    @staticmethod
+    def krige_surface(document: ModelDocument, samples: ModelSamples, grid: GridSpec, inside: np.ndarray | None,
+                      scale: SurfaceScale, neighbourhood: Neighbourhood, paths: Mapping[str, str], feedback,
+                      progress: Callable[[float], None]) -> None:
+        """Krige every cell of ``grid`` and write the rasters named in ``paths`` (see :func:`.surface.write_surface`).
+
+        Raises
+        ------
+        Cancelled
+            When the feedback is cancelled; no file of ``paths`` is left.
+        """
+        predictor = neighbourhood.predictor(samples, document, scale.support, feedback)
+        metadata = {"fieldcast_model": document.to_dict(), "fieldcast_backtransform": scale.backtransform,
+                    "fieldcast_support": scale.support}
+        if isinstance(predictor, LocalKrigingPredictor):
+            metadata["fieldcast_neighbours"] = predictor.neighbours
+            if neighbourhood.search_radius is not None:
+                metadata["fieldcast_search_radius"] = neighbourhood.search_radius
+        if scale.threshold is not None:
+            metadata["fieldcast_threshold"] = scale.threshold
+        unresolved = write_surface(cell_predictor(predictor, scale.support, grid.pixel_size), grid, inside, scale,
+                                   samples.field, document.crs_wkt, paths, metadata, progress, feedback.isCanceled)
+        neighbourhood.log_unresolved(unresolved, feedback)
