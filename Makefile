@@ -2,7 +2,7 @@
 #   make deps     system packages (QGIS, GDAL, pyproj, SciPy, Meuse data, Chromium) via apt when missing
 #   make venv     .venv with the test-only tools, sharing the system numpy/scipy/GDAL/QGIS
 #   make lint     ruff
-#   make test     deps, venv, lint, then the test suite
+#   make test     deps, venv, lint, then the test suite (FIELDCAST_REQUIRE_ALL=1: a missing tool fails, not skips)
 #   make bench    speed benchmark (tools/bench.py)
 #   make demo     end-to-end demo (tools/run_demo.sh)
 #   make package  dist/fieldcast.zip, installable with QGIS's "Install from ZIP"
@@ -13,7 +13,7 @@ SYSTEM_PYTHON := /usr/bin/python3
 VENV := .venv
 PY := $(VENV)/bin/python
 APT_PACKAGES := qgis python3-qgis qgis-providers python3-gdal python3-pyproj python3-scipy python3-venv \
-	python3-pip r-cran-sp chromium libopenblas0-pthread
+	python3-pip python3-pil r-cran-sp chromium libopenblas0-pthread
 TEST_PACKAGES := pytest ruff scikit-learn rdata
 PYTHON_MODULES := qgis.core, osgeo.gdal, pyproj, scipy, numpy
 PACKAGE_CONTENT := __init__.py metadata.txt LICENSE README.md plugin algorithms icons
@@ -54,7 +54,7 @@ lint: venv
 	$(VENV)/bin/ruff check .
 
 test: deps venv lint
-	QT_QPA_PLATFORM=offscreen $(PY) -m pytest -q tests
+	FIELDCAST_REQUIRE_ALL=1 QT_QPA_PLATFORM=offscreen $(PY) -m pytest -q tests
 
 bench: deps venv
 	$(PY) tools/bench.py

@@ -147,21 +147,33 @@ def correlation_derivative(
 
 @lru_cache(maxsize=256)
 def effective_range_factor(family: str, smoothness: float | None = None) -> float:
-    """Scaled distance at which correlation falls to :data:`EFFECTIVE_CORRELATION`.
+    """Scaled distance ``r`` at which correlation falls to :data:`EFFECTIVE_CORRELATION` (0.05).
 
-    Multiply by the range ``a`` to get the effective range in CRS units.
-    The spherical family reaches zero at ``r = 1`` and reports 1 (its
-    support), as is usual in practice.
+    Multiply by the range ``a`` to get the effective range in CRS units. With
+    ``c = EFFECTIVE_CORRELATION`` the closed forms are ``-ln c`` (exponential,
+    ``ln 20`` ~ 2.996) and ``sqrt(-ln c)`` (gaussian, ~ 1.731); for the
+    spherical family ``r`` is the root in (0, 1) of the cubic
+    ``1 - 1.5 r + 0.5 r**3 = c`` (~ 0.811, before the support ``r = 1``); the
+    Matérn families are solved numerically with Brent's method.
     """
     check_family(family, smoothness)
-    if family == "spherical":
-        return 1.0
     if family == "exponential":
         return -math.log(EFFECTIVE_CORRELATION)
     if family == "gaussian":
         return math.sqrt(-math.log(EFFECTIVE_CORRELATION))
+    upper = 1.0 if family == "spherical" else 100.0
 
     def gap(r: float) -> float:
         return float(correlation(family, np.array([r]), smoothness)[0]) - EFFECTIVE_CORRELATION
 
-    return float(optimize.brentq(gap, 1e-9, 100.0, xtol=1e-12))
+    return float(optimize.brentq(gap, 1e-9, upper, xtol=1e-12))
+
+
+def reach_factor(family: str, smoothness: float | None = None) -> float:
+    """Scaled distance the fits' start values take as a structure's reach.
+
+    The :func:`effective_range_factor`, except for the spherical family, whose
+    support ``r = 1`` (where its correlation reaches 0) is used: the start
+    grids of the likelihood and least-squares fits were tuned with it.
+    """
+    return 1.0 if family == "spherical" else effective_range_factor(family, smoothness)

@@ -8,9 +8,9 @@ which keeps the optimiser well conditioned; the fitter converts back.
 
 Starts, per family:
 
-1. isotropic: effective range 0.03, 0.06, 0.12, 0.25, 0.5 or 1 times the
-   diameter, nugget 2, 20 or 50 % of the variance (Matérn with free
-   smoothness: ``nu = 1``);
+1. isotropic: reach (effective range; spherical: its support) 0.03, 0.06,
+   0.12, 0.25, 0.5 or 1 times the diameter, nugget 2, 20 or 50 % of the
+   variance (Matérn with free smoothness: ``nu = 1``);
 2. anisotropic: the best isotropic fit with ratio 0.3 or 0.6, geometric-mean
    range 0.5, 1 or 2 times the isotropic one, and azimuth 0, 45, 90 or 135
    degrees, because the likelihood can have one mode per direction; if the
@@ -44,7 +44,7 @@ import numpy as np
 from scipy import optimize
 from scipy.spatial import ConvexHull, QhullError, cKDTree
 
-from .correlation import effective_range_factor
+from .correlation import reach_factor
 from .covariance import CovarianceModel
 from .errors import FieldcastError
 from .likelihood import LikelihoodObjective, MeanBasis
@@ -313,7 +313,7 @@ def _vector(layout: ParameterLayout, value: dict[str, float]) -> np.ndarray:
 
 
 def _isotropic_starts(layout: ParameterLayout) -> list[np.ndarray]:
-    factor = effective_range_factor(layout.family, 1.0 if layout.fits_smoothness else layout.smoothness)
+    factor = reach_factor(layout.family, 1.0 if layout.fits_smoothness else layout.smoothness)
     return [_vector(layout, {"log_partial_sill_1": math.log(1.0 - share), "log_range_1": math.log(fraction / factor),
                              "log_smoothness": 0.0, "log_nugget": math.log(share)})
             for fraction in ISOTROPIC_START_RANGES for share in NUGGET_START_SHARES]

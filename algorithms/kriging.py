@@ -110,6 +110,48 @@ def check_distinct(xy: np.ndarray) -> None:
         )
 
 
+def checked_variance(variance: np.ndarray, sill: float, *, unresolved_allowed: bool = False,
+                     system: str = "the covariance matrix") -> np.ndarray:
+    """Kriging variances with round-off below zero set to 0; clearly negative ones refused.
+
+    A variance below ``-NEGATIVE_VARIANCE_TOLERANCE * sill`` cannot come from
+    round-off in a well-posed system, so it raises instead of being hidden.
+
+    Parameters
+    ----------
+    variance : ndarray
+        Kriging error variances (u2); not modified.
+    sill : float
+        Total sill of the covariance model (u2), the scale of the tolerance.
+    unresolved_allowed : bool
+        True keeps NaN (a target left unresolved, as in local kriging);
+        False refuses any non-finite variance.
+    system : str
+        What was solved, for the message (e.g. "some neighbourhood system").
+
+    Returns
+    -------
+    ndarray
+        A new array, ``max(variance, 0)`` (NaN kept when allowed).
+
+    Raises
+    ------
+    FieldcastError
+        For a clearly negative variance, or a non-finite one when not allowed.
+    """
+    variance = np.asarray(variance, dtype=float)
+    if not unresolved_allowed and not np.all(np.isfinite(variance)):
+        raise FieldcastError("Kriging produced non-finite variances; check the covariance model parameters.")
+    lowest = float(np.nanmin(variance, initial=0.0))
+    if lowest < -NEGATIVE_VARIANCE_TOLERANCE * sill:
+        raise FieldcastError(
+            f"Kriging variance came out clearly negative ({lowest:.3g} with sill {sill:.3g}): {system} is too "
+            "close to singular for reliable results. Merge near-duplicate points or use a model with a (larger) "
+            "nugget."
+        )
+    return np.where(variance < 0.0, 0.0, variance)
+
+
 def cholesky_factor(matrix: np.ndarray, what: str, remedy: str) -> np.ndarray:
     """Lower Cholesky factor of a symmetric (k, k) matrix, refusing numerically singular ones.
 
@@ -265,22 +307,6 @@ class KrigingPredictor:
             gap = np.zeros((0, cross.shape[1]))
         return whitened, gap
 
-    def _checked_variance(self, variance: np.ndarray) -> np.ndarray:
-        """Clip round-off below zero; refuse clearly negative or non-finite variances."""
-        sill = self.covariance.sill
-        if not np.all(np.isfinite(variance)):
-            raise FieldcastError(
-                "Kriging produced non-finite variances; check the covariance model parameters."
-            )
-        lowest = float(variance.min(initial=0.0))
-        if lowest < -NEGATIVE_VARIANCE_TOLERANCE * sill:
-            raise FieldcastError(
-                f"Kriging variance came out clearly negative ({lowest:.3g} with sill {sill:.3g}): the "
-                "covariance matrix is too close to singular for reliable results. Merge near-duplicate "
-                "points or use a model with a (larger) nugget."
-            )
-        return np.maximum(variance, 0.0, out=variance)
-
     def predict(self, xy0: np.ndarray, covariates0: np.ndarray | None = None, *, include_nugget: bool = False,
                 chunk_size: int = 2048, progress: Callable[[float], None] | None = None,
                 should_stop: Callable[[], bool] | None = None) -> tuple[np.ndarray, np.ndarray]:
@@ -369,7 +395,7 @@ class KrigingPredictor:
         if len(gap):
             mean += design0 @ self.coefficients
             variance += column_squared_norms(self._trend_whiten(gap))
-        return mean, self._checked_variance(variance)
+        return mean, checked_variance(variance, self.covariance.sill)
 
     def weights(self, xy0: np.ndarray, covariates0: np.ndarray | None = None) -> np.ndarray:
         """Kriging weights ``lambda`` with ``mean(x0) = lambda^T y`` (plus the known mean term).

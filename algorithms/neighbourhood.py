@@ -68,7 +68,7 @@ from .batched import back_substitution, cholesky_stack, forward_substitution
 from .correlation import correlation
 from .covariance import CovarianceModel, Structure
 from .errors import Cancelled, FieldcastError
-from .kriging import NEGATIVE_VARIANCE_TOLERANCE, as_points, as_values, check_distinct
+from .kriging import as_points, as_values, check_distinct, checked_variance
 from .mean import MeanModel
 
 WORKERS = min(4, os.cpu_count() or 1)
@@ -258,18 +258,6 @@ class LocalKrigingPredictor:
         list(pool.map(solve, range(0, len(targets), STACK_SIZE)))
         return mean, variance
 
-    def _checked_variance(self, variance: np.ndarray) -> np.ndarray:
-        """Clip round-off below zero; refuse clearly negative variances (NaN stays NaN)."""
-        sill = self.covariance.sill
-        lowest = float(np.nanmin(variance, initial=0.0))
-        if lowest < -NEGATIVE_VARIANCE_TOLERANCE * sill:
-            raise FieldcastError(
-                f"Local kriging gave a clearly negative variance ({lowest:.3g} with sill {sill:.3g}): some "
-                "neighbourhood system is too close to singular. Merge near-duplicate points or use a model with "
-                "a (larger) nugget."
-            )
-        return np.where(variance < 0, 0.0, variance)
-
     def _predict_chunk(self, targets: np.ndarray, covariates0: np.ndarray | None, pool: ThreadPoolExecutor
                        ) -> tuple[np.ndarray, np.ndarray]:
         """Mean and variance (NaN where unresolved) for one chunk of targets."""
@@ -284,7 +272,8 @@ class LocalKrigingPredictor:
             rows = np.flatnonzero(count == k)
             mean[rows], variance[rows] = self._predict_group(
                 targets[rows], None if covariates0 is None else covariates0[rows], found[rows, :k], pool)
-        return mean, self._checked_variance(variance)
+        return mean, checked_variance(variance, self.covariance.sill, unresolved_allowed=True,
+                                      system="some neighbourhood system")
 
     def predict(self, xy0: np.ndarray, covariates0: np.ndarray | None = None, *, include_nugget: bool = False,
                 chunk_size: int = 8192, progress: Callable[[float], None] | None = None,

@@ -156,12 +156,14 @@ def simulate_conditional(xy: np.ndarray, values: np.ndarray, covariance: Covaria
     rng = np.random.default_rng(seed)
     realisations = np.empty((count, grid.n_rows, grid.n_cols))
     at_samples = np.empty((count, predictor.n))
-    for index in range(0, count, 2):
+    for index in range(count):  # one FFT gives two realisations; progress and cancel go one by one
         steps.check()
-        for offset, unconditional in enumerate(generator.draw_pair(rng)[: count - index]):
-            realisations[index + offset] = unconditional[window]
-            at_samples[index + offset] = sampler.draw(unconditional, rng)
-        steps.advance(min(2, count - index))
+        if index % 2 == 0:
+            pair = generator.draw_pair(rng)
+        unconditional = pair[index % 2]
+        realisations[index] = unconditional[window]
+        at_samples[index] = sampler.draw(unconditional, rng)
+        steps.advance(1)
 
     known = mean.known_mean(1)[0]
     residuals = (np.asarray(values, dtype=float) - known)[None, :] - at_samples  # (R, n)

@@ -47,7 +47,7 @@ from .correlation import (
     SMOOTHNESS_BOUNDS,
     check_family,
     correlation,
-    effective_range_factor,
+    reach_factor,
 )
 from .covariance import CovarianceModel, Structure
 from .errors import FieldcastError
@@ -173,13 +173,13 @@ class _Criterion:
 def _isotropic_starts(
     lags: _Lags, family: str, smoothness: float | None, fit_smoothness: bool
 ) -> list[np.ndarray]:
-    """Starting vectors: nugget share 0.1 or 0.5, effective range 1/4, 1/2 or 1 of the largest lag
-    distance, and a free Matérn smoothness of 0.5 or 2."""
+    """Starting vectors: nugget share 0.1 or 0.5, reach (effective range; spherical: its support) 1/4,
+    1/2 or 1 of the largest lag distance, and a free Matérn smoothness of 0.5 or 2."""
     log_sill = math.log(float(np.max(lags.gamma)))
     h_max = float(np.max(np.hypot(lags.dx, lags.dy)))
     starts = []
     for nu in (0.5, 2.0) if fit_smoothness else (smoothness,):
-        factor = effective_range_factor(family, nu)
+        factor = reach_factor(family, nu)
         for share in (0.1, 0.5):
             for fraction in (0.25, 0.5, 1.0):
                 theta = [log_sill, share, math.log(fraction * h_max / factor)]

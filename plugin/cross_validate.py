@@ -2,6 +2,7 @@
 from __future__ import annotations
 
 from qgis.core import (
+    QgsCoordinateReferenceSystem,
     QgsFeature,
     QgsFeatureSink,
     QgsField,
@@ -79,11 +80,11 @@ class CrossValidateAlgorithm(FieldcastAlgorithm):
         for name in RESULT_FIELDS:
             fields.append(QgsField(name, field_type("Double")))
         sink, destination = self.parameterAsSink(parameters, self.OUTPUT, context, fields, QgsWkbTypes.Point,
-                                                 samples.layer_crs)
+                                                 QgsCoordinateReferenceSystem.fromWkt(document.crs_wkt))
         if sink is None:
             raise QgsProcessingException(self.invalidSinkError(parameters, self.OUTPUT))
         columns = (result.observed, result.predicted, result.variance, result.residual, result.standardized)
-        for row, (fid, (x, y)) in enumerate(zip(samples.fids, samples.layer_xy)):
+        for row, (fid, (x, y)) in enumerate(zip(samples.fids, samples.xy)):
             feature = QgsFeature(fields)
             feature.setGeometry(QgsGeometry.fromPointXY(QgsPointXY(float(x), float(y))))
             feature.setAttributes([int(fid)] + [float(column[row]) for column in columns])

@@ -28,14 +28,10 @@ class LayerSamples:
     ----------
     xy : ndarray (n, 2)
         Locations in the working CRS.
-    layer_xy : ndarray (n, 2)
-        Locations in the layer CRS.
     values : ndarray (n,)
         Attribute values in the layer's units.
     fids : ndarray (n,)
         Feature ids.
-    layer_crs : QgsCoordinateReferenceSystem
-        The layer's CRS.
     working : WorkingCrs
         The CRS of ``xy`` and why it was chosen.
     field : str
@@ -46,10 +42,8 @@ class LayerSamples:
     """
 
     xy: np.ndarray
-    layer_xy: np.ndarray
     values: np.ndarray
     fids: np.ndarray
-    layer_crs: QgsCoordinateReferenceSystem
     working: WorkingCrs
     field: str
     skipped: dict[str, int]
@@ -60,16 +54,13 @@ class ModelSamples:
     """Samples ready for the engine: transformed values, coincident points merged.
 
     ``xy`` is in the working CRS, ``values`` in the modelling scale; ``fids``
-    and ``layer_xy`` (layer CRS ``layer_crs``) belong to the first feature of
-    each merged group; ``field`` names the attribute. ``merged_points``
+    belong to the first feature of each merged group; ``field`` names the attribute. ``merged_points``
     samples were averaged into ``merged_groups`` shared locations.
     """
 
     xy: np.ndarray
     values: np.ndarray
     fids: np.ndarray
-    layer_xy: np.ndarray
-    layer_crs: QgsCoordinateReferenceSystem
     field: str
     merged_groups: int
     merged_points: int
@@ -165,8 +156,7 @@ def read_layer_samples(source: QgsProcessingFeatureSource, field: str, target_cr
     xy = layer_xy if same_crs(layer_wkt, working.wkt) else transform_points(layer_xy, layer_wkt, working.wkt)
     skipped = {reason: count for reason, count in (("value is NULL or not a number", skipped_values),
                                                    ("no geometry", skipped_geometry)) if count}
-    return LayerSamples(xy, layer_xy, np.array(values, dtype=float), np.array(fids, dtype=np.int64),
-                        layer_crs, working, field, skipped)
+    return LayerSamples(xy, np.array(values, dtype=float), np.array(fids, dtype=np.int64), working, field, skipped)
 
 
 def prepare_samples(samples: LayerSamples, transform: Transform, feedback) -> ModelSamples:
@@ -184,5 +174,5 @@ def prepare_samples(samples: LayerSamples, transform: Transform, feedback) -> Mo
                           f"(in the modelling scale); {len(merged.values)} samples remain.")
     check_samples(merged.xy, merged.values)
     feedback.pushInfo(f"Using {len(merged.values)} samples of {samples.field}.")
-    return ModelSamples(merged.xy, merged.values, samples.fids[merged.ids], samples.layer_xy[merged.ids],
-                        samples.layer_crs, samples.field, merged.merged_groups, merged.merged_points)
+    return ModelSamples(merged.xy, merged.values, samples.fids[merged.ids], samples.field, merged.merged_groups,
+                        merged.merged_points)

@@ -120,19 +120,22 @@ def test_progress_and_cancel(meuse_log_zinc):
     xy, values = meuse_log_zinc
     mean_model = MeanModel.for_data("constant", xy)
     grid = meuse_grid_spec(160.0)
+    assert grid.n_cells <= 4096  # one block of kriging weights (the default chunk size)
     fractions = []
     simulate_conditional(xy, values, MEUSE_MODEL, mean_model, grid, n_realisations=6, seed=1,
                          progress=fractions.append)
-    assert fractions == sorted(fractions) and fractions[-1] == pytest.approx(1.0)
-    asked = []
+    # One report after each of the 6 realisations, then one for the single block: 7 steps in all.
+    assert fractions == pytest.approx([step / 7 for step in range(1, 8)])
+    reports = []
 
-    def stop_at_third_question() -> bool:
-        asked.append(True)
-        return len(asked) == 3
+    def stop_after_three_realisations() -> bool:
+        return len(reports) >= 3
 
     with pytest.raises(Cancelled):
         simulate_conditional(xy, values, MEUSE_MODEL, mean_model, grid, n_realisations=6, seed=1,
-                             should_stop=stop_at_third_question)
+                             progress=reports.append, should_stop=stop_after_three_realisations)
+    # The cancel took effect between the third and the fourth realisation, inside a drawn pair.
+    assert reports == pytest.approx([1 / 7, 2 / 7, 3 / 7])
     with pytest.raises(FieldcastError, match="number of realisations"):
         simulate_conditional(xy, values, MEUSE_MODEL, mean_model, grid, n_realisations=0)
     flat_model = CovarianceModel((Structure("spherical", 0.0, 900.0),), nugget=0.6)

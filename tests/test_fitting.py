@@ -7,7 +7,7 @@ import math
 import numpy as np
 import pytest
 from sklearn.gaussian_process import GaussianProcessRegressor
-from sklearn.gaussian_process.kernels import ConstantKernel, Matern, WhiteKernel
+from sklearn.gaussian_process.kernels import RBF, ConstantKernel, Matern, WhiteKernel
 
 from fieldcast.algorithms import fit_search
 from fieldcast.algorithms.covariance import CovarianceModel, Structure
@@ -72,17 +72,32 @@ def test_auto_keeps_the_lowest_aic_and_lists_every_candidate():
         assert candidate.bic == pytest.approx(-2 * candidate.log_likelihood + k * math.log(120 - 1))
 
 
-def test_ml_optimum_is_at_least_sklearns_optimum():
+@pytest.mark.parametrize(("family", "reference_kernel"), [
+    ("matern32", Matern(length_scale=100.0, nu=1.5)),
+    # scikit-learn's RBF is exp(-d^2 / (2 l^2)); our gaussian exp(-(d/a)^2) is the same with a = sqrt(2) l,
+    # a rescaling of the range that leaves the maximised likelihood unchanged.
+    ("gaussian", RBF(length_scale=100.0)),
+])
+def test_ml_optimum_is_at_least_sklearns_optimum(family, reference_kernel):
     # Reference: scikit-learn GaussianProcessRegressor maximising the log marginal likelihood (zero mean,
-    # Matern(nu=1.5) * constant + white noise, 5 restarts); ours: matern32, known mean 0, ML.
-    xy, values = simulate(ISOTROPIC, 120, seed=2)
+    # isotropic Matern(nu=1.5) or RBF, times a constant, plus white noise, 5 restarts); ours: the same
+    # family, known mean 0, ML.
+    xy, values = simulate(CovarianceModel((Structure(family, 1.0, 150.0),), 0.1), 120, seed=2)
     centred = values - values.mean()
-    kernel = ConstantKernel(1.0) * Matern(length_scale=100.0, nu=1.5) + WhiteKernel(0.1)
+    kernel = ConstantKernel(1.0) * reference_kernel + WhiteKernel(0.1)
     regressor = GaussianProcessRegressor(kernel, alpha=0.0, n_restarts_optimizer=5, random_state=0)
     regressor.fit(xy, centred)
-    result = fit_model(xy, centred, kernel="matern32", anisotropy=False, mean="known", known_mean=0.0,
+    result = fit_model(xy, centred, kernel=family, anisotropy=False, mean="known", known_mean=0.0,
                        method="ml")
     assert result.log_likelihood >= regressor.log_marginal_likelihood_value_ - 1e-6
+    if family == "gaussian":
+        # Same model at the reference's optimum (a = sqrt(2) l): our likelihood equals scikit-learn's.
+        fitted = regressor.kernel_
+        reference = CovarianceModel((Structure("gaussian", fitted.k1.k1.constant_value,
+                                               math.sqrt(2.0) * fitted.k1.k2.length_scale),),
+                                    fitted.k2.noise_level)
+        direct = log_likelihood(xy, centred, reference, MeanModel.for_data("known", xy), "ml")
+        assert direct == pytest.approx(regressor.log_marginal_likelihood_value_, rel=1e-8, abs=1e-6)
 
 
 @pytest.mark.parametrize(("method", "kind"), [("reml", "linear"), ("ml", "constant"), ("reml", "known")])

@@ -11,7 +11,7 @@ from sklearn.gaussian_process.kernels import RBF, ConstantKernel, Matern, WhiteK
 from fieldcast.algorithms.correlation import FAMILIES
 from fieldcast.algorithms.covariance import CovarianceModel, Structure
 from fieldcast.algorithms.errors import Cancelled, FieldcastError
-from fieldcast.algorithms.kriging import KrigingPredictor
+from fieldcast.algorithms.kriging import NEGATIVE_VARIANCE_TOLERANCE, KrigingPredictor, checked_variance
 from fieldcast.algorithms.mean import MeanModel
 
 RANGE = 500.0  # metres; the Meuse samples span about 2.8 km x 4 km
@@ -272,6 +272,32 @@ def test_nearly_coincident_points_without_nugget_fail_clearly(meuse, log_zinc):
     model = CovarianceModel((Structure("gaussian", 0.6, RANGE),), 0.0)
     with pytest.raises(FieldcastError, match="nugget"):
         KrigingPredictor(xy, values, model, MeanModel.for_data("constant", xy))
+
+
+def test_clearly_negative_variance_is_refused_with_advice(meuse, log_zinc):
+    # Constructed case: targets whose own variance C(0) is given as 0 while their covariances with the
+    # samples are real, so C(0) - c0^T K^-1 c0 (Rasmussen & Williams 2006, section 2.2) is clearly below 0.
+    model = CovarianceModel((Structure("exponential", 0.6, RANGE),), 0.05)
+    predictor = KrigingPredictor(meuse.xy, log_zinc, model, MeanModel.for_data("known", meuse.xy))
+    cross = model.cross_covariance(meuse.xy, meuse.xy[:3] + 10.0)
+    with pytest.raises(FieldcastError, match=r"clearly negative \(-0\.\d+ with sill 0\.65\).*\(larger\) nugget"):
+        predictor.predict_from_covariances(cross, np.zeros((3, 0)), 0.0)
+    _, variance = predictor.predict_from_covariances(cross, np.zeros((3, 0)), model.field_variance)
+    assert np.all(variance > 0)
+
+
+def test_round_off_below_zero_becomes_zero_and_nan_is_refused_unless_allowed():
+    sill = 2.0
+    round_off = -0.5 * NEGATIVE_VARIANCE_TOLERANCE * sill
+    variance = np.array([0.3, round_off, 0.0])
+    np.testing.assert_array_equal(checked_variance(variance, sill), [0.3, 0.0, 0.0])
+    assert variance[1] == round_off  # the input is not modified
+    with pytest.raises(FieldcastError, match="clearly negative"):
+        checked_variance(np.array([0.3, -2.0 * NEGATIVE_VARIANCE_TOLERANCE * sill]), sill)
+    with pytest.raises(FieldcastError, match="non-finite"):
+        checked_variance(np.array([0.3, np.nan]), sill)
+    kept = checked_variance(np.array([np.nan, round_off]), sill, unresolved_allowed=True)
+    assert np.isnan(kept[0]) and kept[1] == 0.0
 
 
 def test_bad_inputs_are_refused(meuse, log_zinc):

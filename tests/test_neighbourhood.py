@@ -141,3 +141,18 @@ def test_bad_settings_say_what_to_change(meuse, log_zinc):
         LocalKrigingPredictor(meuse.xy, log_zinc, SPHERICAL, linear, search_radius=0.0)
     with pytest.raises(FieldcastError, match="NaN"):
         LocalKrigingPredictor(meuse.xy, np.where(np.arange(155) == 3, np.nan, log_zinc), SPHERICAL, linear)
+
+
+def test_clearly_negative_local_variance_is_refused_with_advice(meuse, meuse_grid, log_zinc, monkeypatch):
+    # Constructed case: every neighbourhood solve reports a variance one sill below zero.
+    local = LocalKrigingPredictor(meuse.xy, log_zinc, SPHERICAL, mean_model("constant", meuse, log_zinc),
+                                  neighbours=16)
+    solve = local._predict_group
+
+    def below_zero(*args):
+        mean, variance = solve(*args)
+        return mean, variance - SPHERICAL.sill
+
+    monkeypatch.setattr(local, "_predict_group", below_zero)
+    with pytest.raises(FieldcastError, match="clearly negative.*neighbourhood system.*nugget"):
+        local.predict(meuse_grid.xy[:20])

@@ -17,6 +17,7 @@ import pytest
 
 from qgis_process_support import QGIS_PROCESS, make_profile, run_qgis_process
 from repo_package import REPO_ROOT
+from requirements_check import skip_unless_available
 
 LEFT_OUT = {"tests", "tools", "demo", ".ci", "Makefile", "pyproject.toml", "DEVELOPERS.md", ".venv", ".git"}
 
@@ -40,7 +41,7 @@ def test_zip_holds_one_plugin_folder_without_development_files(built_zip):
     assert not any("__pycache__" in name or name.endswith(".pyc") for name in names)
 
 
-@pytest.mark.skipif(QGIS_PROCESS is None, reason="qgis_process.bin is not installed")
+@skip_unless_available(QGIS_PROCESS is not None, "qgis_process.bin is not installed")
 def test_unpacked_zip_loads_as_a_plugin(built_zip, tmp_path):
     plugins = tmp_path / "unpacked"
     zipfile.ZipFile(built_zip).extractall(plugins)

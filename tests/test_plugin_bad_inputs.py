@@ -5,6 +5,8 @@ particular defect. Fits use one family without anisotropy to stay quick.
 """
 from __future__ import annotations
 
+import math
+
 import numpy as np
 import pytest
 from osgeo import gdal
@@ -31,8 +33,8 @@ QUICK_FIT = {"KERNEL": "exponential", "ANISOTROPY": False}
 
 
 def layer_state(layer: QgsVectorLayer) -> list:
-    """Everything a run could change in a layer: ids, attributes and geometries."""
-    return [(f.id(), f.attributes(), f.geometry().asWkt()) for f in layer.getFeatures()]
+    """Everything a run could change in a layer: ids, attributes and geometries (repr, so NaN equals NaN)."""
+    return [(f.id(), [repr(value) for value in f.attributes()], f.geometry().asWkt()) for f in layer.getFeatures()]
 
 
 def leftovers(folder) -> list[str]:
@@ -48,14 +50,14 @@ def run_refused(qgis_processing, tmp_path):  # noqa: F811
         layers = [value for value in parameters.values() if isinstance(value, QgsVectorLayer)]
         before = [layer_state(layer) for layer in layers]
         files_before = leftovers(tmp_path)
-        outputs = {name: str(tmp_path / f"out_{name.lower()}.{'json' if name == 'OUTPUT_MODEL' else 'tif'}")
-                   for name in ("OUTPUT", "OUTPUT_VARIANCE", "OUTPUT_MODEL") if name not in parameters}
+        report = str(tmp_path / "out_report.html")
         if algorithm == "fieldcast:fitmodel":
-            outputs = {"OUTPUT_MODEL": outputs["OUTPUT_MODEL"]}
+            outputs = {"OUTPUT_MODEL": str(tmp_path / "out_model.json"), "OUTPUT_REPORT": report}
         elif algorithm == "fieldcast:crossvalidate":
-            outputs = {"OUTPUT": "memory:"}
+            outputs = {"OUTPUT": str(tmp_path / "out_points.gpkg"), "OUTPUT_REPORT": report}
         else:
-            outputs.pop("OUTPUT_MODEL", None)
+            outputs = {name: str(tmp_path / f"out_{name.lower()}.tif") for name in ("OUTPUT", "OUTPUT_VARIANCE")}
+        outputs = {name: path for name, path in outputs.items() if name not in parameters}
         with pytest.raises(QgsProcessingException) as error:
             qgis_processing.run(algorithm, {**parameters, **outputs}, feedback=feedback or QgsProcessingFeedback())
         for fragment in fragments:
@@ -104,7 +106,8 @@ def test_layer_without_crs_is_refused(run_refused, meuse):
 
 def test_empty_layer_is_refused(run_refused):
     layer = point_layer(np.zeros((0, 2)), {"zinc": np.zeros(0)})
-    run_refused("fieldcast:fitmodel", {"INPUT": layer, "FIELD": "zinc"}, "empty")
+    run_refused("fieldcast:fitmodel", {"INPUT": layer, "FIELD": "zinc"}, "The sample layer is empty",
+                "Choose a point layer that holds samples")
 
 
 def test_multipoint_with_several_points_is_refused_with_advice(run_refused, meuse):
@@ -123,7 +126,7 @@ def test_single_part_multipoints_are_read(qgis_processing, meuse, tmp_path):  # 
     assert "Using 155 samples" in log and (tmp_path / "m.json").exists()
 
 
-def test_null_and_nan_values_are_skipped_and_counted(qgis_processing, meuse, tmp_path):  # noqa: F811
+def test_null_values_are_skipped_and_counted(qgis_processing, meuse, tmp_path):  # noqa: F811
     zinc = np.array(meuse.zinc)
     zinc[[3, 10]] = np.nan  # stored as NULL by point_layer
     layer = point_layer(meuse.xy, {"zinc": zinc})
@@ -131,6 +134,20 @@ def test_null_and_nan_values_are_skipped_and_counted(qgis_processing, meuse, tmp
     _, log = run_logged(qgis_processing, "fieldcast:fitmodel", {
         "INPUT": layer, "FIELD": "zinc", **QUICK_FIT, "OUTPUT_MODEL": str(tmp_path / "m.json")})
     assert "Skipped 2 feature(s) whose zinc is NULL" in log and "Using 153 samples" in log
+    assert layer_state(layer) == before
+
+
+def test_nan_and_infinite_values_are_skipped_and_counted(qgis_processing, meuse, tmp_path):  # noqa: F811
+    layer = point_layer(meuse.xy, {"zinc": meuse.zinc})
+    fids = [feature.id() for feature in layer.getFeatures()]
+    # Real IEEE NaN and infinity in the double field (not NULL): the provider stores what it is given.
+    assert layer.dataProvider().changeAttributeValues({fids[3]: {0: math.nan}, fids[10]: {0: math.inf}})
+    stored = [feature.attributes()[0] for feature in layer.getFeatures()]
+    assert math.isnan(stored[3]) and stored[10] == math.inf
+    before = layer_state(layer)
+    _, log = run_logged(qgis_processing, "fieldcast:fitmodel", {
+        "INPUT": layer, "FIELD": "zinc", **QUICK_FIT, "OUTPUT_MODEL": str(tmp_path / "m.json")})
+    assert "Skipped 2 feature(s) whose zinc is NULL or not a number" in log and "Using 153 samples" in log
     assert layer_state(layer) == before
 
 
@@ -155,12 +172,14 @@ def test_fewer_than_three_values_are_refused(run_refused, meuse):
     run_refused("fieldcast:fitmodel", {"INPUT": layer, "FIELD": "zinc"}, "only 2 usable samples")
 
 
-def test_log_of_zero_or_negative_values_is_refused_with_advice(run_refused, meuse):
+@pytest.mark.parametrize("bad", [0.0, -5.0])
+def test_log_of_zero_or_negative_values_is_refused_with_advice(run_refused, meuse, bad):
     zinc = np.array(meuse.zinc)
-    zinc[5] = 0.0
+    zinc[5] = bad
     layer = point_layer(meuse.xy, {"zinc": zinc})
     run_refused("fieldcast:fitmodel", {"INPUT": layer, "FIELD": "zinc", "TRANSFORM": "log"},
-                "log transform", "offset")
+                "The log transform needs values above 0", f"but 1 value(s) are not (smallest {bad:g})",
+                f"Set a log offset larger than {0.0 - bad:g}, or use no transform")
 
 
 # --- working CRS ---------------------------------------------------------------------------------------------
@@ -179,7 +198,7 @@ def test_geographic_layer_is_worked_in_its_utm_zone(qgis_processing, lonlat_laye
     results, log = run_logged(qgis_processing, "fieldcast:crossvalidate", {
         "INPUT": lonlat_layer, "FIELD": "zinc", "OUTPUT": "memory:"})
     assert "UTM zone 31N" in log and "EPSG:32631" in log
-    assert results["OUTPUT"].crs().authid() == "EPSG:4326"
+    assert results["OUTPUT"].crs().authid() == "EPSG:32631"  # outputs are in the working CRS
 
 
 def test_geographic_layer_is_predicted_on_a_utm_grid(qgis_processing, lonlat_layer, tmp_path):  # noqa: F811
@@ -214,20 +233,21 @@ def test_model_fitted_in_another_crs_is_refused(run_refused, meuse_layer, model_
 
 # --- model files ---------------------------------------------------------------------------------------------
 
-def test_missing_model_file_is_refused(run_refused, meuse_layer, tmp_path):
-    run_refused("fieldcast:crossvalidate", {"INPUT": meuse_layer, "FIELD": "zinc",
-                                            "MODEL": str(tmp_path / "missing.json")},
+def test_missing_model_file_is_refused(run_refused, meuse_layer, tmp_path_factory):
+    missing = tmp_path_factory.mktemp("no-model") / "missing.json"
+    run_refused("fieldcast:crossvalidate", {"INPUT": meuse_layer, "FIELD": "zinc", "MODEL": str(missing)},
                 "Cannot read the model file", "Check the path")
 
 
+@pytest.mark.parametrize("algorithm", ["fieldcast:predict", "fieldcast:crossvalidate"])
 @pytest.mark.parametrize("text, fragment", [
     ("{not json", "not valid JSON"),
     ('{"format": "something else"}', "not a Fieldcast model file"),
 ])
-def test_malformed_model_file_is_refused(run_refused, meuse_layer, tmp_path_factory, text, fragment):
+def test_malformed_model_file_is_refused(run_refused, meuse_layer, tmp_path_factory, text, fragment, algorithm):
     path = tmp_path_factory.mktemp("bad-model") / "model.json"
     path.write_text(text, encoding="utf-8")
-    run_refused("fieldcast:predict", {"INPUT": meuse_layer, "FIELD": "zinc", "MODEL": str(path)}, fragment)
+    run_refused(algorithm, {"INPUT": meuse_layer, "FIELD": "zinc", "MODEL": str(path)}, fragment)
     assert path.read_text(encoding="utf-8") == text
 
 
@@ -236,7 +256,7 @@ def test_malformed_model_file_is_refused(run_refused, meuse_layer, tmp_path_fact
 def test_extent_of_zero_area_is_refused(run_refused, meuse_layer, model_file):
     run_refused("fieldcast:predict", {"INPUT": meuse_layer, "FIELD": "zinc", "MODEL": model_file,
                                       "EXTENT": "180000,180000,330000,331000 [EPSG:28992]", "PIXEL_SIZE": 40},
-                "zero or negative width")
+                "zero or negative width (0.0)", "Choose an extent with x_max > x_min and y_max > y_min")
 
 
 def test_extent_away_from_the_samples_is_refused(run_refused, meuse_layer, model_file):

@@ -16,6 +16,7 @@ from qgis.core import (
     QgsGeometry,
     QgsProcessingException,
     QgsProcessingFeedback,
+    QgsRasterLayer,
     QgsRectangle,
     QgsVectorLayer,
 )
@@ -120,6 +121,14 @@ def test_prediction_raster_is_epsg_28992_at_40_m_aligned_on_the_grid(meuse_run):
         stored = ModelDocument.from_json(dataset.GetMetadataItem("fieldcast_model"))
         assert stored.covariance == ModelDocument.load(meuse_run.model_path).covariance
     assert "median" in meuse_run.prediction.GetRasterBand(1).GetDescription()
+
+
+def test_rasters_open_in_qgis_with_their_crs(meuse_run):
+    # The Meuse data are published in EPSG:28992 (Amersfoort / RD New; tests/data/README.md).
+    for dataset in (meuse_run.prediction, meuse_run.variance):
+        layer = QgsRasterLayer(dataset.GetDescription(), "surface", "gdal")
+        assert layer.isValid()
+        assert layer.crs().authid() == "EPSG:28992"
     assert "lognormal" in meuse_run.variance.GetRasterBand(1).GetDescription()
 
 

@@ -23,6 +23,7 @@ from qgis.core import (
 from fieldcast.algorithms.crs import same_crs
 from qgis_process_support import QGIS_PROCESS, make_profile, run_algorithm
 from qgis_support import CancelAfterFirstProgress, fieldcast_plugin, point_layer, qgis_processing  # noqa: F401
+from requirements_check import skip_unless_available
 from test_plugin_decision_maps import (  # noqa: F401 - zinc_model is a fixture
     COARSE_CELL,
     COARSE_GRID,
@@ -195,7 +196,7 @@ def test_cancel_during_simulation_leaves_no_file(qgis_processing, meuse, meuse_g
 
 # --- qgis_process ---------------------------------------------------------------------------------------------
 
-@pytest.mark.skipif(QGIS_PROCESS is None, reason="qgis_process.bin is not installed")
+@skip_unless_available(QGIS_PROCESS is not None, "qgis_process.bin is not installed")
 def test_qgis_process_writes_a_band_per_realisation(meuse, zinc_model, tmp_path_factory):  # noqa: F811
     folder = tmp_path_factory.mktemp("simulate-qgis-process")
     samples = folder / "meuse.gpkg"

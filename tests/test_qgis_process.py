@@ -19,8 +19,9 @@ from osgeo import gdal, ogr, osr
 
 from qgis_process_support import QGIS_PROCESS, make_profile, run_algorithm, write_fit_then_predict_model
 from qgis_support import fieldcast_plugin  # noqa: F401 - fixture: a QgsApplication to build the .model3 in
+from requirements_check import skip_unless_available
 
-pytestmark = pytest.mark.skipif(QGIS_PROCESS is None, reason="qgis_process.bin is not installed")
+pytestmark = skip_unless_available(QGIS_PROCESS is not None, "qgis_process.bin is not installed")
 
 DATA_DIR = Path(__file__).resolve().parent / "data"
 METALS = ("zinc", "copper", "lead")
@@ -153,6 +154,13 @@ def test_graphical_model_chains_fit_into_predict(profile, meuse_layer, tmp_path,
     run = run_algorithm(profile, model_file, {"samples": meuse_layer, "predict:surface": raster})
     assert run.returncode == 0, run.messages
     check_meuse_grid(raster)
+    # Predict used the fit's model file: it says it read one and did not fit the defaults itself, and the
+    # model stored in the raster is the one FIT_SETTINGS asked for (the defaults have no transform).
+    assert "Model read from" in run.messages
+    assert "No model file given" not in run.messages
+    stored = json.loads(gdal.Open(str(raster)).GetMetadataItem("fieldcast_model"))
+    assert stored["transform"]["kind"] == "log"
+    assert [structure["family"] for structure in stored["structures"]] == ["spherical"]
 
 
 def test_three_fields_in_sequence_like_batch_mode(profile, meuse_layer, tmp_path):

@@ -14,18 +14,20 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from PIL import Image
 
 from fieldcast.algorithms.crossval import leave_one_out
 from fieldcast.plugin.report.crossvalidation_report import write_crossvalidation_report
 from fieldcast.plugin.report.fit_report import write_fit_report
 from fieldcast.plugin.report.plotting import AMBER
+from requirements_check import skip_unless_available
 from test_report_fit import all_semivariograms, log_zinc_model
 
 CHROMIUM = Path("/usr/bin/chromium")
 ARTIFACTS = Path(__file__).resolve().parent.parent / "test-artifacts" / "report-browser"
 BROWSER_TIMEOUT = 180
 
-pytestmark = pytest.mark.skipif(not CHROMIUM.exists(), reason="Chromium is not installed at /usr/bin/chromium")
+pytestmark = skip_unless_available(CHROMIUM.exists(), "Chromium is not installed at /usr/bin/chromium")
 
 
 def run_chromium(url: str, workdir: Path, *extra: str) -> tuple[str, str]:
@@ -85,8 +87,8 @@ def screenshot(page: Path, workdir: Path, height: int) -> Path:
 
 
 def colour_pixels(path: Path, colour: str) -> int:
-    """Number of pixels of exactly ``colour`` ("#rrggbb") in a PNG (needs Pillow)."""
-    image = pytest.importorskip("PIL.Image").open(path).convert("RGB")
+    """Number of pixels of exactly ``colour`` ("#rrggbb") in a PNG."""
+    image = Image.open(path).convert("RGB")
     target = np.array([int(colour[i:i + 2], 16) for i in (1, 3, 5)])
     return int(np.count_nonzero(np.all(np.asarray(image) == target, axis=-1)))
 

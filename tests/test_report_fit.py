@@ -29,6 +29,12 @@ def embedded_data(html: str) -> dict:
     return json.loads(DATA_BLOCK.search(html).group(1))
 
 
+def plot_spec(html: str, div_id: str) -> dict:
+    """The plotly figure (``data`` and ``layout``) drawn into the div ``div_id`` of a report page."""
+    return json.loads(re.search(f'<script type="application/json" id="{div_id}-spec">(.*?)</script>', html,
+                                re.S).group(1))
+
+
 @dataclasses.dataclass
 class FitCase:
     """Everything the fit report is built from, and the arguments passed to it."""
@@ -109,6 +115,47 @@ def test_semivariograms_in_page_equal_engine_and_classical_estimator(zinc_case, 
         assert omni["gamma"][j] == pytest.approx(np.sum((z[i] - z[k])[inside] ** 2) / (2 * inside.sum()), rel=1e-12)
     # The lag table on the page shows the same values.
     assert f'<td class="fc-num">{format_number(omni["gamma"][0])}</td>' in zinc_report
+
+
+def test_marker_sizes_grow_with_the_pair_counts(zinc_report):
+    # Each empirical point is sized by its number of pairs (larger samples of pairs, more reliable estimates;
+    # common practice): sizes rise strictly with the counts embedded in the page, empty lags left out.
+    data = embedded_data(zinc_report)
+    figures = [plot_spec(zinc_report, "fc-plot-variogram")["data"][:1],
+               plot_spec(zinc_report, "fc-plot-directional")["data"][::2]]
+    points = [trace for traces in figures for trace in traces]
+    assert len(points) == len(data["variograms"]) == 5
+    for trace, record in zip(points, data["variograms"]):
+        pairs = np.asarray(record["pairs"])
+        assert trace["customdata"] == pairs[pairs > 0].tolist()
+        order = np.argsort(trace["customdata"], kind="stable")
+        counts, sizes = np.asarray(trace["customdata"])[order], np.asarray(trace["marker"]["size"])[order]
+        assert np.all(np.diff(sizes)[np.diff(counts) > 0] > 0)
+        assert np.all(np.diff(sizes)[np.diff(counts) == 0] == 0)
+        assert len(set(counts)) > 3  # the check compares several different counts
+
+
+def test_sample_map_ellipse_has_the_effective_ranges_along_the_azimuth(zinc_case, zinc_report):
+    structure = zinc_case.fit.covariance.structures[0]
+    assert len(zinc_case.fit.covariance.structures) == 1 and structure.ratio < 0.9  # an anisotropic fit
+    traces = plot_spec(zinc_report, "fc-plot-sample-map")["data"]
+    outline = next(trace for trace in traces if trace["name"].startswith("effective range"))
+    xy = zinc_case.samples.xy
+    centre = 0.5 * (xy.min(axis=0) + xy.max(axis=0))
+    # Drawn full size unless that exceeds half the samples' extent (the legend then gives the scale).
+    scale = min(1.0, 0.5 * float(np.max(xy.max(axis=0) - xy.min(axis=0))) / structure.effective_range)
+    assert (scale < 1.0) == ("drawn at 1:" in outline["name"])
+    dx, dy = np.asarray(outline["x"]) - centre[0], np.asarray(outline["y"]) - centre[1]
+    distance = np.hypot(dx, dy)
+    farthest, nearest = int(np.argmax(distance)), int(np.argmin(distance))
+    assert distance[farthest] == pytest.approx(scale * structure.effective_range, rel=1e-9)
+    assert distance[nearest] == pytest.approx(scale * structure.effective_range * structure.ratio, rel=1e-3)
+    # Bearing of the farthest point, degrees clockwise from grid north (atan2 of easting over northing),
+    # is the azimuth (modulo 180: the ellipse is symmetric); the nearest point lies at right angles to it.
+    bearing = np.degrees(np.arctan2(dx[farthest], dy[farthest])) % 180.0
+    assert (bearing - structure.azimuth + 90.0) % 180.0 - 90.0 == pytest.approx(0.0, abs=1e-6)
+    across = np.degrees(np.arctan2(dx[nearest], dy[nearest])) % 180.0
+    assert (across - structure.azimuth) % 180.0 == pytest.approx(90.0, abs=5.0)
 
 
 def test_candidate_table_lists_every_family_with_its_aic(zinc_case, zinc_report):

@@ -6,7 +6,10 @@ Every ``tools/bench_*.py`` module exposes ``cases()``, a list of dicts with
 - ``target``: the target in words (e.g. ``"< 1 s"``);
 - ``seconds``: time limit in seconds, or None when only reported;
 - ``memory_mb``: peak-memory limit in MiB, or None;
-- ``run``: a callable doing the work; it may return a short note (str).
+- ``run``: a callable doing the work; it may return nothing, a short note
+  (str), or ``(note, met)`` where ``met`` (bool) says whether targets the
+  case checks itself (e.g. time ratios) were met; ``met = False`` makes the
+  verdict MISSED.
 
 Each case runs in a fresh Python process so its peak resident memory is
 its own. Run as ``python tools/bench.py [substring ...]`` to pick cases.
@@ -32,10 +35,11 @@ def _run_one(module_name: str, case_name: str) -> None:
     sys.path.insert(0, str(TOOLS))
     case = next(c for c in importlib.import_module(module_name).cases() if c["name"] == case_name)
     start = time.perf_counter()
-    note = case["run"]()
+    outcome = case["run"]()
     seconds = time.perf_counter() - start
+    note, met = outcome if isinstance(outcome, tuple) else (outcome, True)
     peak_mb = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0
-    print(json.dumps({"seconds": seconds, "peak_mb": peak_mb, "note": note or ""}))
+    print(json.dumps({"seconds": seconds, "peak_mb": peak_mb, "note": note or "", "met": bool(met)}))
 
 
 def _verdict(case: dict, result: dict) -> str:
@@ -44,6 +48,8 @@ def _verdict(case: dict, result: dict) -> str:
         missed.append("time")
     if case.get("memory_mb") is not None and result["peak_mb"] > case["memory_mb"]:
         missed.append("memory")
+    if not result["met"]:
+        missed.append("case check")
     return "MISSED " + "+".join(missed) if missed else "met"
 
 

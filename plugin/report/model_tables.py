@@ -52,8 +52,8 @@ def parameter_rows(covariance: CovarianceModel, distance_units: str, variance_un
     """Rows ``{"name", "value", "units"}`` for the nugget and every structure's parameters.
 
     The effective range is the distance at which correlation falls to 0.05
-    (for the spherical family, its range); along the minor axis it is the
-    effective range times the ratio.
+    (for the spherical family about 0.81 times its range); along the minor
+    axis it is the effective range times the ratio.
     """
     rows: list[dict[str, Any]] = [{"name": "nugget", "value": covariance.nugget, "units": variance_unit}]
     several = len(covariance.structures) > 1
