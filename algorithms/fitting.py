@@ -35,6 +35,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from .blas_threads import single_blas_thread
 from .correlation import SMOOTHNESS_BOUNDS
 from .covariance import CovarianceModel
 from .errors import Cancelled, FieldcastError
@@ -55,6 +56,9 @@ KERNEL_CHOICES = ("auto", "exponential", "spherical", "gaussian", "matern32", "m
 VECCHIA_THRESHOLD = 2000
 """Above this many samples, likelihood fits use the Vecchia approximation (:mod:`.vecchia_fit`), whose
 cost grows about linearly with n; up to it, the exact likelihood (cost n^3)."""
+
+SINGLE_THREAD_LIMIT = 1000
+"""Up to this many samples the exact fit runs its small solves on one BLAS thread (:mod:`.blas_threads`)."""
 
 AUTO_FAMILIES = ("exponential", "spherical", "gaussian", "matern32", "matern52")
 """Families compared by ``kernel="auto"``."""
@@ -274,9 +278,10 @@ def fit_model(
         return fit_vecchia(xy, values, kernel=kernel, anisotropy=anisotropy, mean=mean, method=method,
                            covariates=covariates, nested=nested, smoothness=smoothness, known_mean=known_mean,
                            progress=progress, should_stop=should_stop)
-    return fit_exact(xy, values, kernel=kernel, anisotropy=anisotropy, mean=mean, method=method,
-                     covariates=covariates, nested=nested, smoothness=smoothness, known_mean=known_mean,
-                     progress=progress, should_stop=should_stop)
+    with single_blas_thread(len(values) <= SINGLE_THREAD_LIMIT):
+        return fit_exact(xy, values, kernel=kernel, anisotropy=anisotropy, mean=mean, method=method,
+                         covariates=covariates, nested=nested, smoothness=smoothness, known_mean=known_mean,
+                         progress=progress, should_stop=should_stop)
 
 
 def fit_exact(
