@@ -88,6 +88,13 @@ def run_logged(processing, algorithm: str, parameters: dict) -> tuple[dict, str]
     return results, feedback.textLog()
 
 
+def quick_fit_log(processing, layer, tmp_path) -> str:
+    """Fit ``zinc`` of ``layer`` with :data:`QUICK_FIT` into ``tmp_path/m.json``; return the log text."""
+    _, log = run_logged(processing, "fieldcast:fitmodel", {
+        "INPUT": layer, "FIELD": "zinc", **QUICK_FIT, "OUTPUT_MODEL": str(tmp_path / "m.json")})
+    return log
+
+
 # --- layer reading -------------------------------------------------------------------------------------------
 
 def test_text_field_is_refused(run_refused, meuse):
@@ -131,8 +138,7 @@ def test_null_values_are_skipped_and_counted(qgis_processing, meuse, tmp_path): 
     zinc[[3, 10]] = np.nan  # stored as NULL by point_layer
     layer = point_layer(meuse.xy, {"zinc": zinc})
     before = layer_state(layer)
-    _, log = run_logged(qgis_processing, "fieldcast:fitmodel", {
-        "INPUT": layer, "FIELD": "zinc", **QUICK_FIT, "OUTPUT_MODEL": str(tmp_path / "m.json")})
+    log = quick_fit_log(qgis_processing, layer, tmp_path)
     assert "Skipped 2 feature(s) whose zinc is NULL" in log and "Using 153 samples" in log
     assert layer_state(layer) == before
 
@@ -145,8 +151,7 @@ def test_nan_and_infinite_values_are_skipped_and_counted(qgis_processing, meuse,
     stored = [feature.attributes()[0] for feature in layer.getFeatures()]
     assert math.isnan(stored[3]) and stored[10] == math.inf
     before = layer_state(layer)
-    _, log = run_logged(qgis_processing, "fieldcast:fitmodel", {
-        "INPUT": layer, "FIELD": "zinc", **QUICK_FIT, "OUTPUT_MODEL": str(tmp_path / "m.json")})
+    log = quick_fit_log(qgis_processing, layer, tmp_path)
     assert "Skipped 2 feature(s) whose zinc is NULL or not a number" in log and "Using 153 samples" in log
     assert layer_state(layer) == before
 
@@ -155,8 +160,7 @@ def test_coincident_points_are_averaged_and_counted(qgis_processing, meuse, tmp_
     xy = np.vstack([meuse.xy, meuse.xy[:2]])
     zinc = np.concatenate([meuse.zinc, [500.0, 600.0]])
     layer = point_layer(xy, {"zinc": zinc})
-    _, log = run_logged(qgis_processing, "fieldcast:fitmodel", {
-        "INPUT": layer, "FIELD": "zinc", **QUICK_FIT, "OUTPUT_MODEL": str(tmp_path / "m.json")})
+    log = quick_fit_log(qgis_processing, layer, tmp_path)
     assert "Averaged 4 samples at 2 shared locations" in log and "Using 155 samples" in log
 
 
