@@ -4,6 +4,7 @@
 #   make lint     ruff
 #   make test     deps, venv, lint, then the test suite (FIELDCAST_REQUIRE_ALL=1: a missing tool fails, not skips)
 #   make bench    speed benchmark (tools/bench.py)
+#   make profile  where the time goes in the hot paths (pyinstrument)
 #   make demo     end-to-end demo (tools/run_demo.sh)
 #   make package  dist/fieldcast.zip, installable with QGIS's "Install from ZIP"
 #   make clean    remove build outputs and caches (keeps .venv)
@@ -14,11 +15,11 @@ VENV := .venv
 PY := $(VENV)/bin/python
 APT_PACKAGES := qgis python3-qgis qgis-providers python3-gdal python3-pyproj python3-scipy python3-venv \
 	python3-pip python3-pil r-cran-sp chromium libopenblas0-pthread
-TEST_PACKAGES := pytest ruff scikit-learn rdata
+TEST_PACKAGES := pytest ruff scikit-learn rdata pyinstrument
 PYTHON_MODULES := qgis.core, osgeo.gdal, pyproj, scipy, numpy
 PACKAGE_CONTENT := __init__.py metadata.txt LICENSE README.md plugin algorithms icons
 
-.PHONY: deps venv lint test bench demo package clean
+.PHONY: deps venv lint test bench profile demo package clean
 
 deps:
 	@missing=""; \
@@ -58,6 +59,9 @@ test: deps venv lint
 
 bench: deps venv
 	$(PY) tools/bench.py
+
+profile: deps venv
+	$(PY) tools/profile_hot_paths.py
 
 demo: deps
 	bash tools/run_demo.sh
