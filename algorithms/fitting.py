@@ -221,6 +221,22 @@ def _wls_candidates(xy: np.ndarray, values: np.ndarray, mean: MeanModel, covaria
     return scored
 
 
+@dataclass(frozen=True)
+class FitOptions:
+    """The settings of one fit, as :func:`fit_model` takes them (see its parameters)."""
+
+    kernel: str = "auto"
+    anisotropy: bool = True
+    mean: str | MeanModel = "constant"
+    method: str = "reml"
+    covariates: np.ndarray | None = None
+    nested: bool = False
+    smoothness: float | None = None
+    known_mean: float = 0.0
+    progress: Callable[[float], None] | None = None
+    should_stop: Callable[[], bool] | None = None
+
+
 def fit_model(
     xy: np.ndarray,
     values: np.ndarray,
@@ -270,36 +286,21 @@ def fit_model(
     FitResult
         Ranges in CRS units, variances in value units squared.
     """
-    check_fit_choices(kernel, method, nested, smoothness)
-    check_samples(xy, values)
+    options = FitOptions(kernel, anisotropy, mean, method, covariates, nested, smoothness, known_mean, progress,
+                         should_stop)
     if method != "wls" and len(values) > VECCHIA_THRESHOLD:
         from .vecchia_fit import fit_vecchia  # imported here: vecchia_fit builds on this module
 
-        return fit_vecchia(xy, values, kernel=kernel, anisotropy=anisotropy, mean=mean, method=method,
-                           covariates=covariates, nested=nested, smoothness=smoothness, known_mean=known_mean,
-                           progress=progress, should_stop=should_stop)
+        return fit_vecchia(xy, values, options)
     with single_blas_thread(len(values) <= SINGLE_THREAD_LIMIT):
-        return fit_exact(xy, values, kernel=kernel, anisotropy=anisotropy, mean=mean, method=method,
-                         covariates=covariates, nested=nested, smoothness=smoothness, known_mean=known_mean,
-                         progress=progress, should_stop=should_stop)
+        return fit_exact(xy, values, options)
 
 
-def fit_exact(
-    xy: np.ndarray,
-    values: np.ndarray,
-    *,
-    kernel: str = "auto",
-    anisotropy: bool = True,
-    mean: str | MeanModel = "constant",
-    method: str = "reml",
-    covariates: np.ndarray | None = None,
-    nested: bool = False,
-    smoothness: float | None = None,
-    known_mean: float = 0.0,
-    progress: Callable[[float], None] | None = None,
-    should_stop: Callable[[], bool] | None = None,
-) -> FitResult:
-    """:func:`fit_model` with the exact likelihood whatever the number of samples (parameters alike)."""
+def fit_exact(xy: np.ndarray, values: np.ndarray, options: FitOptions) -> FitResult:
+    """:func:`fit_model` with the exact likelihood whatever the number of samples."""
+    kernel, anisotropy, mean, method, covariates, nested, smoothness, known_mean, progress, should_stop = (
+        options.kernel, options.anisotropy, options.mean, options.method, options.covariates, options.nested,
+        options.smoothness, options.known_mean, options.progress, options.should_stop)
     check_fit_choices(kernel, method, nested, smoothness)
     check_samples(xy, values)
     xy = np.asarray(xy, dtype=float)

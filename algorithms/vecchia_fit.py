@@ -37,8 +37,15 @@ from .covariance import CovarianceModel
 from .errors import FieldcastError
 from .fit_search import SearchProblem
 from .fit_warnings import bound_warnings
-from .fitting import CandidateFit, FitResult, check_fit_choices, fit_exact, information_criteria, mean_model_for
-from .mean import MeanModel
+from .fitting import (
+    CandidateFit,
+    FitOptions,
+    FitResult,
+    check_fit_choices,
+    fit_exact,
+    information_criteria,
+    mean_model_for,
+)
 from .parameters import ParameterLayout, parameter_bounds
 from .samples import check_samples
 from .vecchia import DEFAULT_NEIGHBOURS, VecchiaData, VecchiaObjective, VecchiaPlan
@@ -96,28 +103,16 @@ def _optimise(problem: SearchProblem, layout: ParameterLayout, start: np.ndarray
     return theta, terms.minus_two_log_likelihood, terms.basis_coefficients
 
 
-def fit_vecchia(
-    xy: np.ndarray,
-    values: np.ndarray,
-    *,
-    kernel: str = "auto",
-    anisotropy: bool = True,
-    mean: str | MeanModel = "constant",
-    method: str = "reml",
-    covariates: np.ndarray | None = None,
-    nested: bool = False,
-    smoothness: float | None = None,
-    known_mean: float = 0.0,
-    neighbours: int = DEFAULT_NEIGHBOURS,
-    subset_size: int = SUBSET_SIZE,
-    progress: Callable[[float], None] | None = None,
-    should_stop: Callable[[], bool] | None = None,
-) -> FitResult:
+def fit_vecchia(xy: np.ndarray, values: np.ndarray, options: FitOptions, *,
+                neighbours: int = DEFAULT_NEIGHBOURS, subset_size: int = SUBSET_SIZE) -> FitResult:
     """Fit a covariance model to many samples with the Vecchia likelihood (see the module docstring).
 
-    Parameters are those of :func:`.fitting.fit_model` (``method`` "reml" or
-    "ml"), plus:
-
+    Parameters
+    ----------
+    xy, values : ndarray
+        As for :func:`.fitting.fit_model`.
+    options : FitOptions
+        The settings of :func:`.fitting.fit_model` (``method`` "reml" or "ml").
     neighbours : int
         Conditioning-set size ``m`` of the Vecchia likelihood.
     subset_size : int
@@ -129,23 +124,25 @@ def fit_vecchia(
         ``likelihood`` is ``"vecchia (m neighbours)"``; ``candidates`` holds
         the chosen model only.
     """
-    check_fit_choices(kernel, method, nested, smoothness)
+    kernel, method, progress = options.kernel, options.method, options.progress
+    check_fit_choices(kernel, method, options.nested, options.smoothness)
     if method == "wls":
         raise FieldcastError("The Vecchia fit maximises a likelihood; choose method 'reml' or 'ml'.")
     check_samples(xy, values)
     points = np.asarray(xy, dtype=float)
     observed = np.asarray(values, dtype=float)
-    mean_model = mean_model_for(mean, points, covariates, known_mean)
-    design = mean_model.design(points, covariates)
+    mean_model = mean_model_for(options.mean, points, options.covariates, options.known_mean)
+    design = mean_model.design(points, options.covariates)
     n = len(observed)
     subset = np.sort(np.random.default_rng(0).choice(n, min(subset_size, n), replace=False))
-    rough = fit_exact(points[subset], observed[subset], kernel=kernel, anisotropy=anisotropy, mean=mean_model,
-                      method=method, covariates=None if covariates is None else np.asarray(covariates)[subset],
-                      nested=nested, smoothness=smoothness, known_mean=known_mean,
-                      progress=None if progress is None else (lambda f: progress(0.5 * f)), should_stop=should_stop)
+    covariates = None if options.covariates is None else np.asarray(options.covariates)[subset]
+    rough = fit_exact(points[subset], observed[subset], replace(
+        options, mean=mean_model, covariates=covariates,
+        progress=None if progress is None else (lambda f: progress(0.5 * f))))
     chosen = min(rough.candidates, key=lambda c: c.aic)
-    layout = ParameterLayout(chosen.family, len(chosen.covariance.structures), chosen.anisotropy, smoothness)
-    problem = SearchProblem.standardise(points, observed - mean_model.known_mean(n), design, method, should_stop)
+    layout = ParameterLayout(chosen.family, len(chosen.covariance.structures), chosen.anisotropy, options.smoothness)
+    problem = SearchProblem.standardise(points, observed - mean_model.known_mean(n), design, method,
+                                        options.should_stop)
     start = layout.pack(_to_internal(problem, chosen.covariance))
     theta, minus_two, basis_coefficients = _optimise(problem, layout, start, neighbours, progress)
     model = problem.to_data_units(layout.unpack(theta))

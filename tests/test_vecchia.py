@@ -9,7 +9,7 @@ from fieldcast.algorithms import fitting
 from fieldcast.algorithms.circulant import UnconditionalGenerator
 from fieldcast.algorithms.covariance import CovarianceModel, Structure
 from fieldcast.algorithms.errors import FieldcastError
-from fieldcast.algorithms.fitting import fit_model
+from fieldcast.algorithms.fitting import FitOptions, fit_model
 from fieldcast.algorithms.likelihood import MeanBasis, log_likelihood
 from fieldcast.algorithms.mean import MeanModel
 from fieldcast.algorithms.neighbourhood import search_frame
@@ -128,7 +128,7 @@ def test_vecchia_fit_equals_exact_reml_fit_on_the_same_samples():
     # one, i.e. inside its 95 % likelihood-ratio region (Wilks 1938); in fact it is much closer.
     xy, values = simulated_samples(1500, seed=5)
     exact = fit_model(xy, values, kernel="exponential", anisotropy=False, mean="constant")
-    approximate = fit_vecchia(xy, values, kernel="exponential", anisotropy=False, mean="constant",
+    approximate = fit_vecchia(xy, values, FitOptions(kernel="exponential", anisotropy=False, mean="constant"),
                               subset_size=600)
     assert approximate.likelihood == "vecchia (30 neighbours)"
     assert within_likelihood_ratio_region(xy, values, exact, approximate.covariance, 3)
@@ -145,7 +145,8 @@ def test_vecchia_fit_on_many_samples_agrees_with_exact_reml_on_a_subset():
     xy, values = simulated_samples(4000, seed=8)
     subset = np.random.default_rng(99).choice(len(values), 1000, replace=False)
     exact = fit_model(xy[subset], values[subset], kernel="exponential", anisotropy=True, mean="constant")
-    approximate = fit_vecchia(xy, values, kernel="exponential", anisotropy=True, mean="constant", subset_size=500)
+    approximate = fit_vecchia(xy, values, FitOptions(kernel="exponential", anisotropy=True, mean="constant"),
+                              subset_size=500)
     assert within_likelihood_ratio_region(xy[subset], values[subset], exact, approximate.covariance, 5)
     structure = approximate.covariance.structures[0]
     assert abs(structure.azimuth - 30.0) < 10.0 and abs(structure.ratio - 0.5) < 0.1
@@ -158,7 +159,7 @@ def test_bad_settings_say_what_to_change(meuse, log_zinc):
     with pytest.raises(FieldcastError, match="Unknown likelihood"):
         vecchia_log_likelihood(meuse.xy, log_zinc, ANISOTROPIC, mean, method="wls")
     with pytest.raises(FieldcastError, match="'reml' or 'ml'"):
-        fit_vecchia(meuse.xy, log_zinc, kernel="exponential", method="wls")
+        fit_vecchia(meuse.xy, log_zinc, FitOptions(kernel="exponential", method="wls"))
 
 
 def test_fit_model_hands_large_data_to_the_vecchia_fit(monkeypatch):

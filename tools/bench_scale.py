@@ -23,7 +23,7 @@ if "PROJ_LIB" not in os.environ:
 load_engine()
 from fieldcast_engine.circulant import UnconditionalGenerator  # noqa: E402
 from fieldcast_engine.covariance import CovarianceModel, Structure  # noqa: E402
-from fieldcast_engine.fitting import fit_model  # noqa: E402
+from fieldcast_engine.fitting import FitOptions, fit_model  # noqa: E402
 from fieldcast_engine.geotiff import GeoTiffWriter  # noqa: E402
 from fieldcast_engine.grid import GridSpec, default_pixel_size  # noqa: E402
 from fieldcast_engine.likelihood import log_likelihood  # noqa: E402
@@ -140,7 +140,7 @@ def _many_fields() -> str:
 def _vecchia_fifty_thousand() -> str:
     xy, values = simulated(50_000)
     start = time.perf_counter()
-    result = fit_vecchia(xy, values, kernel="exponential", anisotropy=True, mean="constant")
+    result = fit_vecchia(xy, values, FitOptions(kernel="exponential", anisotropy=True, mean="constant"))
     seconds = time.perf_counter() - start
     subset = np.random.default_rng(1).choice(len(values), 2000, replace=False)
     exact = fit_model(xy[subset], values[subset], kernel="exponential", anisotropy=True, mean="constant")
