@@ -14,9 +14,15 @@ with ``Q = K^-1`` for a known mean (``y`` replaced by ``y - m``) and
 estimated. ``K`` includes the nugget, so the variance is that of the error
 in predicting the observation itself. Leave-one-out is the case of
 one-point sets: ``e_i = (Q y)_i / Q_ii`` and ``var_i = 1 / Q_ii``.
+
+Local leave-one-out (:func:`local_leave_one_out`) has no such closed form:
+each sample is kriged from its nearest other samples by the batched local
+systems of :mod:`.neighbourhood`.
 """
 from __future__ import annotations
 
+import math
+from collections.abc import Callable
 from dataclasses import dataclass
 
 import numpy as np
@@ -26,6 +32,7 @@ from .covariance import CovarianceModel
 from .errors import FieldcastError
 from .kriging import UNIT_ROUNDOFF, KrigingPredictor, cholesky_factor
 from .mean import MeanModel
+from .neighbourhood import LocalKrigingPredictor
 
 NORMAL_95_QUANTILE = 1.959963984540054
 """Two-sided 95 % quantile of the standard normal distribution."""
@@ -58,20 +65,40 @@ class CrossValidation:
     standardized: np.ndarray
     fold: np.ndarray
 
+    @property
+    def resolved_rows(self) -> np.ndarray:
+        """Boolean mask (n,) of the samples that got a prediction (finite prediction and variance).
+
+        Local leave-one-out leaves NaN for samples with too few neighbours; the
+        global schemes resolve every sample.
+        """
+        return np.isfinite(self.predicted) & np.isfinite(self.variance)
+
+    def resolved(self) -> CrossValidation:
+        """The results of the samples of :attr:`resolved_rows` only, in their order."""
+        rows = self.resolved_rows
+        return CrossValidation(**{name: getattr(self, name)[rows] for name in
+                                  ("observed", "predicted", "variance", "residual", "standardized", "fold")})
+
     def summary(self) -> dict:
-        """Summary statistics as plain floats.
+        """Summary statistics over the resolved samples (see :meth:`resolved`), as plain floats.
 
         ``ME`` mean residual (u), ``RMSE`` root mean squared residual (u),
         ``MSDR`` mean squared standardised residual (about 1 when the
         variances are right), ``COVERAGE95`` share of samples with
-        ``|standardized| <= 1.959964`` (about 0.95 under normal errors), ``n``.
+        ``|standardized| <= 1.959964`` (about 0.95 under normal errors), ``n``
+        the number of resolved samples they are computed from (NaN
+        statistics when it is 0).
         """
+        rows = self.resolved()
+        if not len(rows.residual):
+            return {"ME": math.nan, "RMSE": math.nan, "MSDR": math.nan, "COVERAGE95": math.nan, "n": 0}
         return {
-            "ME": float(np.mean(self.residual)),
-            "RMSE": float(np.sqrt(np.mean(self.residual**2))),
-            "MSDR": float(np.mean(self.standardized**2)),
-            "COVERAGE95": float(np.mean(np.abs(self.standardized) <= NORMAL_95_QUANTILE)),
-            "n": len(self.residual),
+            "ME": float(np.mean(rows.residual)),
+            "RMSE": float(np.sqrt(np.mean(rows.residual**2))),
+            "MSDR": float(np.mean(rows.standardized**2)),
+            "COVERAGE95": float(np.mean(np.abs(rows.standardized) <= NORMAL_95_QUANTILE)),
+            "n": len(rows.residual),
         }
 
 
@@ -105,6 +132,39 @@ def leave_one_out(xy: np.ndarray, values: np.ndarray, covariance: CovarianceMode
             "estimate from the others; use a simpler mean model."
         )
     return _result(values, precision_values / diagonal, 1.0 / diagonal, np.arange(predictor.n))
+
+
+def local_leave_one_out(xy: np.ndarray, values: np.ndarray, covariance: CovarianceModel, mean: MeanModel, *,
+                        neighbours: int, search_radius: float | None = None, covariates: np.ndarray | None = None,
+                        progress: Callable[[float], None] | None = None,
+                        should_stop: Callable[[], bool] | None = None) -> CrossValidation:
+    """Leave-one-out cross-validation with local kriging from each sample's nearest other samples.
+
+    Each sample is predicted as by :class:`.neighbourhood.LocalKrigingPredictor`
+    (same arguments) from its ``neighbours`` nearest other samples within
+    ``search_radius``, the trend re-estimated from them; the variance is that
+    of the error in predicting the observation (nugget included), as for
+    :func:`leave_one_out`. With ``neighbours >= n - 1`` this is global
+    leave-one-out. Samples with fewer than ``mean.n_terms + 1`` other samples
+    in range (or a singular local system) get NaN prediction, residual and
+    variance; :meth:`CrossValidation.summary` leaves them out and
+    :meth:`CrossValidation.resolved` drops them.
+
+    Raises
+    ------
+    FieldcastError
+        For fewer than ``mean.n_terms + 2`` samples, or the arguments refused by
+        :class:`.neighbourhood.LocalKrigingPredictor`.
+    """
+    predictor = LocalKrigingPredictor(xy, values, covariance, mean, neighbours=neighbours,
+                                      search_radius=search_radius, covariates=covariates)
+    if predictor.n <= predictor.minimum_neighbours:
+        raise FieldcastError(
+            f"Leave-one-out with a {mean.kind} mean needs at least {predictor.minimum_neighbours + 1} samples; "
+            f"got {predictor.n}."
+        )
+    predicted, variance = predictor.leave_one_out(progress=progress, should_stop=should_stop)
+    return _result(values, np.asarray(values, dtype=float) - predicted, variance, np.arange(predictor.n))
 
 
 def random_folds(n: int, k: int, seed: int) -> np.ndarray:

@@ -53,6 +53,12 @@ search radius (at least one more sample than trend terms; common practice),
 or whose local system is singular (``K`` or ``A`` not numerically positive
 definite, e.g. collinear neighbours under a linear trend), gets NaN for mean
 and variance; :attr:`LocalKrigingPredictor.last_unresolved` counts them.
+
+Leave-one-out. :meth:`LocalKrigingPredictor.leave_one_out` predicts each
+sample from its ``k`` nearest other samples: the ``k + 1`` nearest are found
+in the search frame, the sample itself (at distance 0) is dropped, and the
+same batched systems give the prediction and latent variance, to which the
+nugget is added (the error in predicting the observation).
 """
 from __future__ import annotations
 
@@ -76,6 +82,9 @@ WORKERS = min(4, os.cpu_count() or 1)
 
 STACK_SIZE = 2048
 """Largest number of neighbour sets factorised, or targets solved, at once (bounds temporary memory)."""
+
+LEAVE_ONE_OUT_CHUNK = 8192
+"""Samples predicted at once by :meth:`LocalKrigingPredictor.leave_one_out` (between progress reports)."""
 
 
 def search_frame(structure: Structure, xy: np.ndarray) -> np.ndarray:
@@ -261,10 +270,21 @@ class LocalKrigingPredictor:
     def _predict_chunk(self, targets: np.ndarray, covariates0: np.ndarray | None, pool: ThreadPoolExecutor
                        ) -> tuple[np.ndarray, np.ndarray]:
         """Mean and variance (NaN where unresolved) for one chunk of targets."""
-        radius = np.inf if self.search_radius is None else self.search_radius
         targets = search_frame(self.covariance.structures[0], targets)
-        _, found = self._tree.query(targets, k=self.neighbours, distance_upper_bound=radius, workers=WORKERS)
-        found = found.reshape(len(targets), self.neighbours)
+        return self._predict_found(targets, covariates0, self._nearest(targets, self.neighbours), pool)
+
+    def _nearest(self, targets: np.ndarray, k: int) -> np.ndarray:
+        """Indices (b, k) of the ``k`` nearest samples within the search radius of targets (b, 2, search frame).
+
+        Missing neighbours (fewer samples in range) are marked with index ``n`` and come last in each row.
+        """
+        radius = np.inf if self.search_radius is None else self.search_radius
+        _, found = self._tree.query(targets, k=k, distance_upper_bound=radius, workers=WORKERS)
+        return found.reshape(len(targets), k)
+
+    def _predict_found(self, targets: np.ndarray, covariates0: np.ndarray | None, found: np.ndarray,
+                       pool: ThreadPoolExecutor) -> tuple[np.ndarray, np.ndarray]:
+        """Mean and latent variance (NaN where unresolved) of targets (b, 2, search frame) from neighbours (b, k)."""
         count = np.count_nonzero(found < self.n, axis=1)  # the tree marks missing neighbours with index n
         mean = np.full(len(targets), np.nan)
         variance = np.full(len(targets), np.nan)
@@ -304,18 +324,62 @@ class LocalKrigingPredictor:
                 raise FieldcastError(f"Got covariate values for {len(covariates0)} prediction locations but there "
                                      f"are {len(targets)} locations.")
             covariates0 = covariates0.reshape(len(targets), -1)
-        prediction = np.empty(len(targets))
-        variance = np.empty(len(targets))
-        chunks = [slice(start, start + size) for start in range(0, len(targets), size)]
+        prediction, variance = self._in_chunks(
+            len(targets), size, lambda chunk, pool: self._predict_chunk(
+                targets[chunk], None if covariates0 is None else covariates0[chunk], pool), progress, should_stop)
+        if include_nugget:
+            variance += self.covariance.nugget
+        return prediction, variance
+
+    def _in_chunks(self, count: int, size: int,
+                   solve: Callable[[slice, ThreadPoolExecutor], tuple[np.ndarray, np.ndarray]],
+                   progress: Callable[[float], None] | None,
+                   should_stop: Callable[[], bool] | None) -> tuple[np.ndarray, np.ndarray]:
+        """Mean and variance of ``count`` targets, ``solve``-d ``size`` at a time with progress and cancel.
+
+        Sets :attr:`last_unresolved`.
+        """
+        prediction = np.empty(count)
+        variance = np.empty(count)
+        chunks = [slice(start, start + size) for start in range(0, count, size)]
         with ThreadPoolExecutor(max_workers=WORKERS) as pool:
             for done, chunk in enumerate(chunks, start=1):
                 if should_stop is not None and should_stop():
                     raise Cancelled("Local kriging was cancelled.")
-                prediction[chunk], variance[chunk] = self._predict_chunk(
-                    targets[chunk], None if covariates0 is None else covariates0[chunk], pool)
+                prediction[chunk], variance[chunk] = solve(chunk, pool)
                 if progress is not None:
                     progress(done / len(chunks))
         self.last_unresolved = int(np.count_nonzero(np.isnan(prediction)))
-        if include_nugget:
-            variance += self.covariance.nugget
         return prediction, variance
+
+    def leave_one_out(self, *, progress: Callable[[float], None] | None = None,
+                      should_stop: Callable[[], bool] | None = None) -> tuple[np.ndarray, np.ndarray]:
+        """Each sample predicted by local kriging from its ``neighbours`` nearest other samples.
+
+        The ``k + 1`` nearest samples of each sample are searched in the
+        anisotropy frame and the sample itself is dropped (if coincident
+        samples tie with it, the farthest of the ``k + 1`` is dropped
+        instead), so ``k = min(neighbours, n - 1)`` others remain. The local
+        system is the one of :meth:`predict`, its trend re-estimated from
+        those neighbours. ``progress`` and ``should_stop`` are as for
+        :meth:`predict`; samples are taken :data:`LEAVE_ONE_OUT_CHUNK` at a time.
+
+        Returns
+        -------
+        mean, variance : ndarray of shape (n,)
+            Prediction of each sample value (u) and prediction-error variance
+            of the observation, nugget included (u2): the latent kriging
+            variance plus the nugget. NaN for samples with too few other
+            samples within the search radius (or a singular local system),
+            counted in :attr:`last_unresolved`.
+        """
+        k = min(self.neighbours, self.n - 1)
+        found = self._nearest(self._frame_xy, k + 1)
+        keep = found != np.arange(self.n)[:, None]
+        keep[keep.all(axis=1), -1] = False
+        others = found[keep].reshape(self.n, k)
+        mean, variance = self._in_chunks(
+            self.n, LEAVE_ONE_OUT_CHUNK, lambda chunk, pool: self._predict_found(
+                self._frame_xy[chunk], None if self._covariates is None else self._covariates[chunk], others[chunk],
+                pool), progress, should_stop)
+        return mean, variance + self.covariance.nugget

@@ -27,6 +27,7 @@ from qgis.PyQt.QtCore import QCoreApplication
 
 from ..algorithms.errors import Cancelled, FieldcastError
 from ..algorithms.fitting import FIT_METHODS, KERNEL_CHOICES
+from ..algorithms.mean import MeanModel
 from ..algorithms.model_file import ModelDocument
 from ..algorithms.transform import TRANSFORM_KINDS, Transform
 from .icons import icon, icon_path
@@ -35,6 +36,25 @@ from .report.page import ReportError
 from .sample_reader import LayerSamples, ModelSamples, prepare_samples, read_layer_samples
 
 TREND_CHOICES = ("constant", "linear", "quadratic")
+
+
+def check_neighbours(neighbours: int, mean: MeanModel, per: str) -> None:
+    """Refuse a NEIGHBOURS of 1 up to the number of trend terms (0 = all samples is fine).
+
+    ``per`` names what each neighbourhood serves ("cell", "sample") in the message.
+    """
+    minimum = mean.n_terms + 1
+    if 0 < neighbours < minimum:
+        raise FieldcastError(f"NEIGHBOURS is {neighbours}, but the {mean.kind} mean of the model needs at least "
+                             f"{minimum} samples per {per}. Set NEIGHBOURS to {minimum} or more (16 to 64 is common "
+                             "practice), or to 0 for all samples.")
+
+
+def search_words(search_radius: float | None, units: str) -> str:
+    """Log words for a search radius, `` within 300 m (along the major axis ...)``; "" without one."""
+    if search_radius is None:
+        return ""
+    return f" within {search_radius:g} {units} (along the major axis of the model's anisotropy)"
 
 
 def progress_callback(feedback, start: float = 0.0, stop: float = 100.0) -> Callable[[float], None]:
@@ -64,6 +84,8 @@ class FieldcastAlgorithm(QgsProcessingAlgorithm):
     ANISOTROPY = "ANISOTROPY"
     TREND = "TREND"
     METHOD = "METHOD"
+    NEIGHBOURS = "NEIGHBOURS"
+    SEARCH_RADIUS = "SEARCH_RADIUS"
     ICON = "fieldcast.svg"
 
     def tr(self, text: str) -> str:
@@ -144,6 +166,26 @@ class FieldcastAlgorithm(QgsProcessingAlgorithm):
                                trend=self.choice(parameters, self.TREND, context),
                                method=self.choice(parameters, self.METHOD, context))
         return transform, settings
+
+    def add_neighbourhood_parameters(self, per: str = "cell") -> None:
+        """NEIGHBOURS (0 = all samples) and SEARCH_RADIUS (optional); ``per`` is what each neighbourhood serves."""
+        self.addParameter(QgsProcessingParameterNumber(
+            self.NEIGHBOURS, self.tr(f"Neighbours per {per} (0 = all samples)"),
+            type=QgsProcessingParameterNumber.Integer, defaultValue=0, minValue=0))
+        self.addParameter(QgsProcessingParameterNumber(
+            self.SEARCH_RADIUS, self.tr("Search radius (working CRS units; empty = no limit)"),
+            type=QgsProcessingParameterNumber.Double, optional=True, minValue=0.0))
+
+    def neighbourhood_choice(self, parameters, context) -> tuple[int, float | None]:
+        """The NEIGHBOURS and SEARCH_RADIUS chosen (SEARCH_RADIUS None when empty)."""
+        return (self.parameterAsInt(parameters, self.NEIGHBOURS, context),
+                self.optional_number(parameters, self.SEARCH_RADIUS, context))
+
+    def optional_number(self, parameters, name: str, context) -> float | None:
+        """The value of an optional number parameter, None when it is left empty."""
+        if parameters.get(name) in (None, ""):
+            return None
+        return self.parameterAsDouble(parameters, name, context)
 
     def add_choice(self, name: str, description: str, options: Sequence[str], default: str) -> None:
         """An enum parameter whose values are the option words themselves (e.g. ``KERNEL=spherical``)."""

@@ -13,7 +13,7 @@ from qgis.core import (
 
 from ..algorithms.errors import Cancelled, FieldcastError
 from ..algorithms.mean import MeanModel
-from .algorithm_base import progress_callback
+from .algorithm_base import check_neighbours, progress_callback
 from .help_text import BACKTRANSFORM_HELP, FIT_HELP, GRID_HELP, NEIGHBOURHOOD_HELP, TARGET_CRS_HELP, compose_help
 from .model_source import describe_document, fit_document
 from .sample_reader import prepare_samples, read_layer_samples
@@ -143,11 +143,7 @@ class PredictManyAlgorithm(SurfaceAlgorithm):
         for field in fields:  # every field is checked before any file is written
             layer_samples = read_layer_samples(source, field, target, feedback)
             prepared.append((layer_samples, prepare_samples(layer_samples, transform, feedback)))
-        minimum = MeanModel.for_data(settings.trend, prepared[0][1].xy).n_terms + 1
-        if 0 < neighbourhood.neighbours < minimum:
-            raise FieldcastError(f"NEIGHBOURS is {neighbourhood.neighbours}, but the {settings.trend} trend needs "
-                                 f"at least {minimum} samples per cell. Set NEIGHBOURS to {minimum} or more, or "
-                                 "to 0 for all samples.")
+        check_neighbours(neighbourhood.neighbours, MeanModel.for_data(settings.trend, prepared[0][1].xy), "cell")
         grids: dict[tuple[str, bytes], tuple] = {}
         finished: list[str] = []
         share = 100.0 / len(fields)

@@ -61,12 +61,6 @@ class RasterAlgorithm(FieldcastAlgorithm):
             self.THRESHOLD, self.tr("Threshold (attribute units; for exceedance)"),
             type=QgsProcessingParameterNumber.Double, optional=True))
 
-    def optional_number(self, parameters, name: str, context) -> float | None:
-        """The value of an optional number parameter, None when it is left empty."""
-        if parameters.get(name) in (None, ""):
-            return None
-        return self.parameterAsDouble(parameters, name, context)
-
     def raster_destination(self, parameters, name: str, context) -> str:
         """Path of a GeoTIFF destination parameter, "" when skipped; FieldcastError for other formats."""
         return geotiff_path(self.parameterAsOutputLayer(parameters, name, context) or "")

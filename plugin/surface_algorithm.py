@@ -1,7 +1,7 @@
 """What the kriging-surface algorithms (predict, predictmany) share: back-transform, local neighbourhood, writing.
 
 :class:`SurfaceAlgorithm` adds to :class:`.raster_algorithm.RasterAlgorithm` the
-BACKTRANSFORM, NEIGHBOURS and SEARCH_RADIUS parameters, the choice between
+BACKTRANSFORM parameter, the choice (from NEIGHBOURS and SEARCH_RADIUS) between
 global kriging (:class:`KrigingPredictor`, every sample) and local kriging
 (:class:`LocalKrigingPredictor`, the nearest samples of each cell), and the
 kriging of a grid into GeoTIFF files with its log lines.
@@ -12,13 +12,13 @@ from collections.abc import Callable, Mapping
 from dataclasses import dataclass
 
 import numpy as np
-from qgis.core import QgsProcessingParameterNumber
 
 from ..algorithms.errors import FieldcastError
 from ..algorithms.grid import GridSpec
 from ..algorithms.kriging import KrigingPredictor
 from ..algorithms.model_file import ModelDocument
 from ..algorithms.neighbourhood import LocalKrigingPredictor
+from .algorithm_base import check_neighbours, search_words
 from .raster_algorithm import RasterAlgorithm
 from .sample_reader import ModelSamples
 from .surface import BACKTRANSFORMS, SurfaceScale, cell_predictor, write_surface
@@ -73,14 +73,9 @@ class Neighbourhood:
         if support == "cell":
             raise FieldcastError("Cell support is computed from all samples (block kriging); local "
                                  "neighbourhoods are for point support. Set NEIGHBOURS to 0, or SUPPORT to point.")
-        minimum = document.mean.n_terms + 1
-        if neighbours < minimum:
-            raise FieldcastError(f"NEIGHBOURS is {neighbours}, but the {document.mean.kind} mean of the model needs "
-                                 f"at least {minimum} samples per cell. Set NEIGHBOURS to {minimum} or more (16 to "
-                                 "64 is common practice), or to 0 for all samples.")
-        within = "" if self.search_radius is None else \
-            f" within {self.search_radius:g} {document.units} (along the major axis of the model's anisotropy)"
-        feedback.pushInfo(f"Local kriging: each cell from its {min(neighbours, count)} nearest samples{within}.")
+        check_neighbours(neighbours, document.mean, "cell")
+        feedback.pushInfo(f"Local kriging: each cell from its {min(neighbours, count)} nearest "
+                          f"samples{search_words(self.search_radius, document.units)}.")
         return LocalKrigingPredictor(samples.xy, samples.values, document.covariance, document.mean,
                                      neighbours=neighbours, search_radius=self.search_radius)
 
@@ -96,26 +91,14 @@ class SurfaceAlgorithm(RasterAlgorithm):
     """Base of the algorithms that krige prediction and variance rasters."""
 
     BACKTRANSFORM = "BACKTRANSFORM"
-    NEIGHBOURS = "NEIGHBOURS"
-    SEARCH_RADIUS = "SEARCH_RADIUS"
 
     def add_backtransform_parameter(self) -> None:
         """BACKTRANSFORM: median (default) or mean, for log models."""
         self.add_choice(self.BACKTRANSFORM, self.tr("Back-transform (log models)"), BACKTRANSFORMS, "median")
 
-    def add_neighbourhood_parameters(self) -> None:
-        """NEIGHBOURS (0 = all samples) and SEARCH_RADIUS (optional)."""
-        self.addParameter(QgsProcessingParameterNumber(
-            self.NEIGHBOURS, self.tr("Neighbours per cell (0 = all samples)"),
-            type=QgsProcessingParameterNumber.Integer, defaultValue=0, minValue=0))
-        self.addParameter(QgsProcessingParameterNumber(
-            self.SEARCH_RADIUS, self.tr("Search radius (working CRS units; empty = no limit)"),
-            type=QgsProcessingParameterNumber.Double, optional=True, minValue=0.0))
-
     def neighbourhood(self, parameters, context) -> Neighbourhood:
-        """The NEIGHBOURS and SEARCH_RADIUS chosen."""
-        return Neighbourhood(self.parameterAsInt(parameters, self.NEIGHBOURS, context),
-                             self.optional_number(parameters, self.SEARCH_RADIUS, context))
+        """The NEIGHBOURS and SEARCH_RADIUS chosen (parameters of :meth:`add_neighbourhood_parameters`)."""
+        return Neighbourhood(*self.neighbourhood_choice(parameters, context))
 
     @staticmethod
     def krige_surface(document: ModelDocument, samples: ModelSamples, grid: GridSpec, inside: np.ndarray | None,

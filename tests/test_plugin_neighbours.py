@@ -1,4 +1,4 @@
-"""Local neighbourhoods in 'Predict surface' (NEIGHBOURS, SEARCH_RADIUS) and its tile-aligned block writing.
+"""Local neighbourhoods in 'Predict surface' and 'Cross-validate model' (NEIGHBOURS, SEARCH_RADIUS), tiled writing.
 
 Data: the published Meuse topsoil samples (Rikken & Van Rijn 1993, as shipped in Debian's r-cran-sp package;
 tests/data/README.md), EPSG:28992 metres, log(zinc). The algorithms run in-process through ``processing.run``.
@@ -8,10 +8,11 @@ from __future__ import annotations
 import numpy as np
 import pytest
 from osgeo import gdal
-from qgis.core import QgsProcessingException, QgsProcessingFeedback
+from qgis.core import NULL, QgsProcessingException, QgsProcessingFeedback
 from scipy.spatial import cKDTree
 
 from fieldcast.algorithms.covariance import CovarianceModel, Structure
+from fieldcast.algorithms.crossval import local_leave_one_out
 from fieldcast.algorithms.grid import GridSpec
 from fieldcast.algorithms.kriging import KrigingPredictor
 from fieldcast.algorithms.mean import MeanModel
@@ -137,6 +138,56 @@ def test_bad_neighbourhoods_are_refused_without_output(qgis_processing, zinc, ex
     with pytest.raises(QgsProcessingException, match=message):
         predict(qgis_processing, zinc, "refused", **extra)
     assert not list(zinc[2].glob("refused*"))
+
+
+def crossvalidate(processing, zinc, feedback=None, **extra) -> tuple[dict, list]:
+    """Run fieldcast:crossvalidate into a memory layer; (outputs, features sorted by sample_id)."""
+    layer, model, _ = zinc
+    outputs = processing.run("fieldcast:crossvalidate", {"INPUT": layer, "FIELD": "zinc", "MODEL": model,
+                                                          "OUTPUT": "memory:", "OUTPUT_REPORT": "", **extra},
+                             feedback=feedback)
+    return outputs, sorted(outputs["OUTPUT"].getFeatures(), key=lambda f: f["sample_id"])
+
+
+def test_crossvalidate_with_neighbours_is_the_engine_local_leave_one_out(qgis_processing, zinc, meuse):  # noqa: F811
+    feedback = QgsProcessingFeedback()
+    outputs, features = crossvalidate(qgis_processing, zinc, feedback, NEIGHBOURS=16)
+    document = ModelDocument.load(zinc[1])
+    engine = local_leave_one_out(meuse.xy, np.log(meuse.zinc), document.covariance, document.mean, neighbours=16)
+    for name, value in engine.summary().items():
+        if name != "n":
+            assert outputs[name] == pytest.approx(value, rel=1e-9, abs=1e-12), name
+    for field, column in (("observed", engine.observed), ("predicted", engine.predicted),
+                          ("variance", engine.variance), ("residual", engine.residual),
+                          ("stdresid", engine.standardized)):
+        np.testing.assert_allclose([f[field] for f in features], column, rtol=1e-9, atol=1e-12)
+    assert "Local leave-one-out: each sample from its 16 nearest other samples." in feedback.textLog()
+
+
+def test_crossvalidate_with_a_short_radius_counts_the_samples_left_out(qgis_processing, zinc, meuse):  # noqa: F811
+    feedback = QgsProcessingFeedback()
+    report = zinc[2] / "radius_cv.html"
+    outputs, features = crossvalidate(qgis_processing, zinc, feedback, NEIGHBOURS=8, SEARCH_RADIUS=150.0,
+                                      OUTPUT_REPORT=str(report))
+    document = ModelDocument.load(zinc[1])
+    engine = local_leave_one_out(meuse.xy, np.log(meuse.zinc), document.covariance, document.mean, neighbours=8,
+                                 search_radius=150.0)
+    left_out = len(features) - engine.summary()["n"]
+    assert 0 < left_out < len(features)
+    empty = [f["sample_id"] for f in features if f["predicted"] == NULL]
+    assert empty == list(meuse.ids[np.isnan(engine.predicted)])
+    assert outputs["RMSE"] == pytest.approx(engine.summary()["RMSE"], rel=1e-9)
+    assert f"{left_out:,} sample(s) have too few other samples within SEARCH_RADIUS" in feedback.textLog()
+    assert report.is_file() and outputs["OUTPUT_REPORT"] == str(report)  # the report covers the resolved samples
+
+
+def test_crossvalidate_refuses_one_neighbour_without_output(qgis_processing, zinc):  # noqa: F811
+    output = zinc[2] / "refused_cv.gpkg"
+    with pytest.raises(QgsProcessingException, match="Set NEIGHBOURS to 2 or more"):
+        qgis_processing.run("fieldcast:crossvalidate", {"INPUT": zinc[0], "FIELD": "zinc", "MODEL": zinc[1],
+                                                        "NEIGHBOURS": 1, "OUTPUT": str(output),
+                                                        "OUTPUT_REPORT": str(zinc[2] / "refused_cv.html")})
+    assert not list(zinc[2].glob("refused_cv*"))
 
 
 def test_blocks_are_whole_tile_rows():

@@ -34,7 +34,8 @@ CONTRACT = {
                  {"OUTPUT", "OUTPUT_MEAN", "OUTPUT_STDDEV", "OUTPUT_EXCEEDANCE", "OUTPUT_P10", "OUTPUT_P90",
                   "OUTPUT_TABLE", "AREA_P10", "AREA_P50", "AREA_P90"}),
     "crossvalidate": ("Cross-validate model",
-                      {"INPUT", "FIELD", "MODEL", "TARGET_CRS", "OUTPUT", "OUTPUT_REPORT"},
+                      {"INPUT", "FIELD", "MODEL", "NEIGHBOURS", "SEARCH_RADIUS", "TARGET_CRS", "OUTPUT",
+                       "OUTPUT_REPORT"},
                       {"OUTPUT", "OUTPUT_REPORT", "ME", "RMSE", "MSDR", "COVERAGE95"}),
 }
 CHOICES = {
