@@ -54,6 +54,11 @@ or whose local system is singular (``K`` or ``A`` not numerically positive
 definite, e.g. collinear neighbours under a linear trend), gets NaN for mean
 and variance; :attr:`LocalKrigingPredictor.last_unresolved` counts them.
 
+Weights. :meth:`LocalKrigingPredictor.weights` returns the kriging weights
+``lambda`` of the same systems in sparse form, each target's neighbour
+indices and weights (conditional simulation gathers the residuals with
+them); unresolved targets are marked with NaN weights.
+
 Leave-one-out. :meth:`LocalKrigingPredictor.leave_one_out` predicts each
 sample from its ``k`` nearest other samples: the ``k + 1`` nearest are found
 in the search frame, the sample itself (at distance 0) is dropped, and the
@@ -233,26 +238,37 @@ class LocalKrigingPredictor:
                 "coefficients": coefficients, "white_residual": white_residual,
                 "solvable": solvable & trend_solvable, "centre": centre, "scale": scale}
 
+    def _systems(self, neighbour_index: np.ndarray, pool: ThreadPoolExecutor
+                 ) -> tuple[np.ndarray, np.ndarray, dict[str, np.ndarray]]:
+        """Distinct neighbour sets (u, k, sorted), the set of each target (b,), and their factorisations."""
+        ordered = np.sort(neighbour_index, axis=1)
+        sets, set_of_target = np.unique(ordered, axis=0, return_inverse=True)
+        systems = list(pool.map(self._factorise, [sets[s:s + STACK_SIZE] for s in range(0, len(sets), STACK_SIZE)]))
+        return sets, set_of_target.reshape(-1), {key: np.concatenate([part[key] for part in systems])
+                                                 for key in systems[0]}
+
+    def _target_terms(self, targets: np.ndarray, covariates0: np.ndarray | None, sets: np.ndarray,
+                      chosen: np.ndarray, system: dict[str, np.ndarray]) -> tuple[np.ndarray, np.ndarray]:
+        """``L^-1 c0 / sill`` (b, k) and the scaled trend row ``f0`` (b, p) of targets whose sets are ``chosen``."""
+        points = self._frame_xy[sets[chosen]]
+        cross = self._covariance(targets[:, None, 0] - points[:, :, 0],
+                                 targets[:, None, 1] - points[:, :, 1]) / self.covariance.sill
+        white_cross = forward_substitution(system["factors"][chosen], cross[:, :, None])[:, :, 0]
+        return white_cross, self._design((targets - system["centre"][chosen]) / system["scale"][chosen, None],
+                                         covariates0)
+
     def _predict_group(self, targets: np.ndarray, covariates0: np.ndarray | None, neighbour_index: np.ndarray,
                        pool: ThreadPoolExecutor) -> tuple[np.ndarray, np.ndarray]:
         """Mean and variance of targets (b, 2, search frame) that all have ``k`` neighbours (b, k)."""
-        ordered = np.sort(neighbour_index, axis=1)
-        sets, set_of_target = np.unique(ordered, axis=0, return_inverse=True)
-        set_of_target = set_of_target.reshape(-1)
-        systems = list(pool.map(self._factorise, [sets[s:s + STACK_SIZE] for s in range(0, len(sets), STACK_SIZE)]))
-        system = {key: np.concatenate([part[key] for part in systems]) for key in systems[0]}
+        sets, set_of_target, system = self._systems(neighbour_index, pool)
         mean = np.empty(len(targets))
         variance = np.empty(len(targets))
 
         def solve(start: int) -> None:
             rows = slice(start, start + STACK_SIZE)
             chosen = set_of_target[rows]
-            points = self._frame_xy[sets[chosen]]
-            cross = self._covariance(targets[rows, None, 0] - points[:, :, 0],
-                                     targets[rows, None, 1] - points[:, :, 1]) / self.covariance.sill
-            white_cross = forward_substitution(system["factors"][chosen], cross[:, :, None])[:, :, 0]
-            gap = self._design((targets[rows] - system["centre"][chosen]) / system["scale"][chosen, None],
-                               None if covariates0 is None else covariates0[rows])
+            white_cross, gap = self._target_terms(targets[rows], None if covariates0 is None else covariates0[rows],
+                                                  sets, chosen, system)
             mean[rows] = (np.einsum("bi,bi->b", system["white_residual"][chosen], white_cross)
                           + np.einsum("bi,bi->b", system["coefficients"][chosen], gap)
                           + self.mean.known_mean(len(chosen)))
@@ -282,14 +298,17 @@ class LocalKrigingPredictor:
         _, found = self._tree.query(targets, k=k, distance_upper_bound=radius, workers=WORKERS)
         return found.reshape(len(targets), k)
 
+    def _groups_by_count(self, found: np.ndarray) -> list[tuple[int, np.ndarray]]:
+        """``(k, rows)`` for each neighbour count ``k`` of at least :attr:`minimum_neighbours` in ``found`` (b, k)."""
+        count = np.count_nonzero(found < self.n, axis=1)  # the tree marks missing neighbours with index n
+        return [(int(k), np.flatnonzero(count == k)) for k in np.unique(count[count >= self.minimum_neighbours])]
+
     def _predict_found(self, targets: np.ndarray, covariates0: np.ndarray | None, found: np.ndarray,
                        pool: ThreadPoolExecutor) -> tuple[np.ndarray, np.ndarray]:
         """Mean and latent variance (NaN where unresolved) of targets (b, 2, search frame) from neighbours (b, k)."""
-        count = np.count_nonzero(found < self.n, axis=1)  # the tree marks missing neighbours with index n
         mean = np.full(len(targets), np.nan)
         variance = np.full(len(targets), np.nan)
-        for k in np.unique(count[count >= self.minimum_neighbours]):
-            rows = np.flatnonzero(count == k)
+        for k, rows in self._groups_by_count(found):
             mean[rows], variance[rows] = self._predict_group(
                 targets[rows], None if covariates0 is None else covariates0[rows], found[rows, :k], pool)
         return mean, checked_variance(variance, self.covariance.sill, unresolved_allowed=True,
@@ -318,18 +337,81 @@ class LocalKrigingPredictor:
         size = int(chunk_size)
         if size < 1:
             raise FieldcastError(f"chunk_size must be a positive number of locations; got {chunk_size!r}.")
-        if covariates0 is not None:
-            covariates0 = np.asarray(covariates0, dtype=float)
-            if len(covariates0) != len(targets):
-                raise FieldcastError(f"Got covariate values for {len(covariates0)} prediction locations but there "
-                                     f"are {len(targets)} locations.")
-            covariates0 = covariates0.reshape(len(targets), -1)
+        covariates0 = _target_covariates(covariates0, len(targets))
         prediction, variance = self._in_chunks(
             len(targets), size, lambda chunk, pool: self._predict_chunk(
                 targets[chunk], None if covariates0 is None else covariates0[chunk], pool), progress, should_stop)
         if include_nugget:
             variance += self.covariance.nugget
         return prediction, variance
+
+    def weights(self, xy0: np.ndarray, covariates0: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:
+        """Sparse kriging weights: each target's neighbours and their weights in :meth:`predict`.
+
+        ``lambda = K^-1 c0 + K^-1 F A^-1 (f0 - F^T K^-1 c0)`` over the target's
+        neighbours (module docstring), so that
+        ``mean(x0) = sum_j weights[j] * (y[indices[j]] - m) + m`` with ``m``
+        the known mean of simple kriging (0 otherwise; then the weights of a
+        target sum to one under ordinary kriging). All targets are solved at
+        once: pass a few thousand at a time.
+
+        Parameters
+        ----------
+        xy0 : ndarray of shape (m, 2)
+            Target locations (CRS units).
+        covariates0 : ndarray of shape (m, q), optional
+            External-drift values at the targets.
+
+        Returns
+        -------
+        indices : ndarray of int, shape (m, k)
+            Sample indices of each target's neighbours, ``k = neighbours``.
+            A target with fewer neighbours in range fills its last slots with
+            index 0 and weight 0.
+        weights : ndarray of shape (m, k)
+            Kriging weights (unitless). Unresolved targets (too few neighbours
+            within the search radius, or a singular local system) are marked
+            with NaN in every slot, so any sum over them is NaN; they are
+            counted in :attr:`last_unresolved`.
+        """
+        targets = search_frame(self.covariance.structures[0], as_points(xy0, "Prediction locations"))
+        covariates0 = _target_covariates(covariates0, len(targets))
+        found = self._nearest(targets, self.neighbours)
+        indices = np.zeros(found.shape, dtype=np.intp)
+        weights = np.full(found.shape, np.nan)
+        with ThreadPoolExecutor(max_workers=WORKERS) as pool:
+            for k, rows in self._groups_by_count(found):
+                indices[rows, :k], weights[rows, :k] = self._weights_group(
+                    targets[rows], None if covariates0 is None else covariates0[rows], found[rows, :k], pool)
+                weights[rows, k:] = np.where(np.isnan(weights[rows, :1]), np.nan, 0.0)  # singular: NaN throughout
+        self.last_unresolved = int(np.count_nonzero(np.isnan(weights[:, 0])))
+        return indices, weights
+
+    def _weights_group(self, targets: np.ndarray, covariates0: np.ndarray | None, neighbour_index: np.ndarray,
+                       pool: ThreadPoolExecutor) -> tuple[np.ndarray, np.ndarray]:
+        """Neighbours (b, k) and weights (b, k; NaN if singular) of targets (b, 2, search frame) with ``k`` each.
+
+        In whitened terms ``lambda = L^-T (L^-1 c0 + L^-1 F A^-1 (f0 - F^T K^-1 c0))``
+        (covariances divided by the sill throughout, which leaves ``lambda`` unchanged).
+        """
+        sets, set_of_target, system = self._systems(neighbour_index, pool)
+        weights = np.empty(neighbour_index.shape)
+
+        def solve(start: int) -> None:
+            rows = slice(start, start + STACK_SIZE)
+            chosen = set_of_target[rows]
+            white_cross, gap = self._target_terms(targets[rows], None if covariates0 is None else covariates0[rows],
+                                                  sets, chosen, system)
+            white_design = system["white_design"][chosen]
+            gap -= np.einsum("bji,bj->bi", white_design, white_cross)
+            trend_factors = system["trend_factors"][chosen]
+            multipliers = back_substitution(trend_factors, forward_substitution(trend_factors, gap[:, :, None]))
+            white_cross += (white_design @ multipliers)[:, :, 0]
+            weights[rows] = back_substitution(system["factors"][chosen], white_cross[:, :, None])[:, :, 0]
+            weights[rows][~system["solvable"][chosen]] = np.nan
+
+        list(pool.map(solve, range(0, len(targets), STACK_SIZE)))
+        return sets[set_of_target], weights
 
     def _in_chunks(self, count: int, size: int,
                    solve: Callable[[slice, ThreadPoolExecutor], tuple[np.ndarray, np.ndarray]],
@@ -383,3 +465,14 @@ class LocalKrigingPredictor:
                 self._frame_xy[chunk], None if self._covariates is None else self._covariates[chunk], others[chunk],
                 pool), progress, should_stop)
         return mean, variance + self.covariance.nugget
+
+
+def _target_covariates(covariates0: np.ndarray | None, count: int) -> np.ndarray | None:
+    """External-drift values at ``count`` targets as a float array (count, q); None stays None."""
+    if covariates0 is None:
+        return None
+    covariates0 = np.asarray(covariates0, dtype=float)
+    if len(covariates0) != count:
+        raise FieldcastError(f"Got covariate values for {len(covariates0)} prediction locations but there "
+                             f"are {count} locations.")
+    return covariates0.reshape(count, -1)

@@ -10,6 +10,11 @@ with ``S`` an unconditional realisation of the latent field (circulant embedding
 (drawn jointly with ``S``, :mod:`.conditioning`), ``lambda(x)`` the kriging weights
 of the data (:meth:`.kriging.KrigingPredictor.weights`), ``y`` the data and ``m0``
 the known mean (simple kriging; 0 otherwise, where the weights carry the trend).
+With ``neighbours > 0`` the weights are local
+(:meth:`.neighbourhood.LocalKrigingPredictor.weights`): each cell's kriged
+residual is ``sum_k w[cell, k] * r[idx[cell, k]]`` over its ``k`` nearest
+samples, gathered for all realisations at once; cells with too few neighbours
+within the search radius are NaN in every realisation.
 Over realisations ``Z_cond(x)`` has the kriging mean and, per cell, the kriging
 variance of the latent field (nugget excluded). The weights do not depend on the
 realisation: they are computed once per block of cells, and all realisations of
@@ -35,6 +40,7 @@ from .errors import Cancelled, FieldcastError
 from .grid import GridSpec, format_bytes
 from .kriging import KrigingPredictor
 from .mean import MeanModel
+from .neighbourhood import LocalKrigingPredictor
 from .transform import Transform
 
 MAX_REALISATION_BYTES = 4e9
@@ -64,6 +70,9 @@ class SimulationResult:
         Seed of the random generator.
     warnings : list of str
         Enlarged paddings, fall-backs and approximations, in plain words.
+    unresolved : int
+        Cells left as NaN in every realisation (local conditioning: too few
+        neighbours within the search radius, or a singular local system).
     """
 
     realisations: np.ndarray
@@ -73,6 +82,7 @@ class SimulationResult:
     neighbourhood_side: int
     seed: int | None
     warnings: list[str] = field(default_factory=list)
+    unresolved: int = 0
 
 
 def simulation_lattice(grid: GridSpec, rows: np.ndarray, cols: np.ndarray) -> tuple[GridSpec, int, int]:
@@ -103,7 +113,8 @@ def _check_count(n_realisations: int) -> int:
 def simulate_conditional(xy: np.ndarray, values: np.ndarray, covariance: CovarianceModel, mean: MeanModel,
                          grid: GridSpec, *, n_realisations: int, seed: int | None = None,
                          transform: Transform | None = None, covariates: np.ndarray | None = None,
-                         grid_covariates: np.ndarray | None = None, chunk_size: int = 4096,
+                         grid_covariates: np.ndarray | None = None, neighbours: int = 0,
+                         search_radius: float | None = None, chunk_size: int = 4096,
                          max_bytes: float = MAX_REALISATION_BYTES,
                          progress: Callable[[float], None] | None = None,
                          should_stop: Callable[[], bool] | None = None) -> SimulationResult:
@@ -128,6 +139,11 @@ def simulate_conditional(xy: np.ndarray, values: np.ndarray, covariance: Covaria
     covariates, grid_covariates : ndarray, optional
         External-drift values at the samples (n, k) and at the cells in raster order
         (n_rows * n_cols, k), when the mean model names covariates.
+    neighbours : int
+        Samples conditioning each cell (local kriging weights); 0 uses all samples.
+    search_radius : float, optional
+        Major semi-axis of the search ellipse (CRS units) when ``neighbours > 0``;
+        None searches all samples.
     chunk_size : int
         Cells per block of kriging weights; memory about ``8 n chunk_size`` bytes.
     max_bytes : float
@@ -150,7 +166,11 @@ def simulate_conditional(xy: np.ndarray, values: np.ndarray, covariance: Covaria
     if not covariance.field_variance > 0:
         raise FieldcastError("The covariance model has no spatial structure (every partial sill is zero), so there "
                              "is no field to simulate; fit a model with a structure, or map the kriging mean.")
-    predictor = KrigingPredictor(xy, values, covariance, mean, covariates)
+    if neighbours:
+        predictor = LocalKrigingPredictor(xy, values, covariance, mean, neighbours=neighbours,
+                                          search_radius=search_radius, covariates=covariates)
+    else:
+        predictor = KrigingPredictor(xy, values, covariance, mean, covariates)
     generator, sampler, window = _unconditional_sources(covariance, grid, np.asarray(xy, dtype=float))
     steps = _Steps(count + -(-grid.n_cells // int(chunk_size)), progress, should_stop)
     rng = np.random.default_rng(seed)
@@ -169,11 +189,20 @@ def simulate_conditional(xy: np.ndarray, values: np.ndarray, covariance: Covaria
     residuals = (np.asarray(values, dtype=float) - known)[None, :] - at_samples  # (R, n)
     flat = realisations.reshape(count, -1)
     cells = grid.cell_centres()
+    unresolved = 0
     for start in range(0, grid.n_cells, int(chunk_size)):
         steps.check()
         stop = min(start + int(chunk_size), grid.n_cells)
         block_covariates = None if grid_covariates is None else np.asarray(grid_covariates)[start:stop]
-        flat[:, start:stop] += known + residuals @ predictor.weights(cells[start:stop], block_covariates)
+        if neighbours:
+            indices, weights = predictor.weights(cells[start:stop], block_covariates)
+            unresolved += predictor.last_unresolved
+            block = flat[:, start:stop]
+            block += known
+            for slot in range(indices.shape[1]):  # gather one neighbour slot at a time: memory 8 R chunk_size
+                block += residuals[:, indices[:, slot]] * weights[:, slot]
+        else:
+            flat[:, start:stop] += known + residuals @ predictor.weights(cells[start:stop], block_covariates)
         steps.advance(1)
     if transform is not None and transform.kind != "none":
         for realisation in realisations:  # one at a time, in place: back_median(y) = exp(y) - offset
@@ -184,7 +213,7 @@ def simulate_conditional(xy: np.ndarray, values: np.ndarray, covariance: Covaria
                         "smooth model); a jitter of at most 1e-6 of the field variance was added to draw the "
                         "unconditional values at the samples.")
     return SimulationResult(realisations, grid, generator.method, generator.padded_shape, sampler.side, seed,
-                            warnings)
+                            warnings, unresolved)
 
 
 class _Steps:
@@ -268,6 +297,10 @@ def summarise_realisations(realisations: np.ndarray, cell_area: float, *, thresh
         Value (attribute units) for the share above it and the area above it.
     mask : ndarray of bool, shape (n_rows, n_cols), optional
         Cells counted in the per-realisation area and mean; all cells by default.
+
+    Cells that are NaN in any realisation (nodata, e.g. cells local conditioning
+    left unresolved) get NaN in every per-cell summary and are left out of the
+    masked area and mean.
     """
     stack = np.asarray(realisations, dtype=float)
     if stack.ndim != 3 or len(stack) < 2:
@@ -281,18 +314,24 @@ def summarise_realisations(realisations: np.ndarray, cell_area: float, *, thresh
         raise FieldcastError("The mask leaves no cell to summarise; use a mask that covers part of the grid.")
     per_cell = np.empty((5,) + stack.shape[1:])  # mean, std, p10, p90, share above
     per_realisation = np.zeros((2, len(stack)))  # sum over masked cells, masked cells above
+    n_inside = 0
     for first in range(0, stack.shape[1], SUMMARY_ROWS):
         rows = slice(first, first + SUMMARY_ROWS)
-        block, block_mask = stack[:, rows], inside[rows]
+        block = stack[:, rows]
+        resolved = np.isfinite(block).all(axis=0)
+        block_mask = inside[rows] & resolved
+        n_inside += int(block_mask.sum())
         per_cell[0, rows], per_cell[1, rows] = block.mean(axis=0), block.std(axis=0, ddof=1)
         per_cell[2:4, rows] = np.quantile(block, [0.1, 0.9], axis=0)
         per_realisation[0] += block[:, block_mask].sum(axis=1)
         if threshold is not None:
             above = block > threshold
-            per_cell[4, rows] = above.mean(axis=0)
+            per_cell[4, rows] = np.where(resolved, above.mean(axis=0), np.nan)
             per_realisation[1] += above[:, block_mask].sum(axis=1)
+    if n_inside == 0:
+        raise FieldcastError("Every cell of the mask is nodata in the realisations (no neighbours within the search "
+                             "radius); use a larger search radius, or a mask or extent near the samples.")
     cell_area = float(cell_area)
     share_above, area_above = (None, None) if threshold is None else (per_cell[4], per_realisation[1] * cell_area)
-    n_inside = int(inside.sum())
     return RealisationSummary(per_cell[0], per_cell[1], per_cell[2], per_cell[3], share_above, area_above,
                               per_realisation[0] / n_inside, n_inside * cell_area)

@@ -22,7 +22,7 @@ from qgis.core import (
 from ..algorithms.errors import Cancelled, FieldcastError
 from ..algorithms.geotiff import GeoTiffWriter
 from ..algorithms.simulation import RealisationSummary, SimulationResult, simulate_conditional, summarise_realisations
-from .algorithm_base import progress_callback
+from .algorithm_base import check_neighbours, progress_callback, search_words
 from .field_types import field_type
 from .help_text import GRID_HELP, MODEL_FILE_HELP, TARGET_CRS_HELP, THRESHOLD_HELP, compose_help
 from .raster_algorithm import RasterAlgorithm
@@ -69,6 +69,14 @@ class SimulateAlgorithm(RasterAlgorithm):
           "are good to a few per cent; more give steadier summaries, at the cost of time and memory (8 bytes per "
           "cell and realisation)."),
          ("Seed", "Seed of the random numbers: the same seed, data and settings give the same fields."),
+         ("Neighbours per cell", "0 (the default): every sample conditions every cell (global kriging weights). "
+          "A number k: each cell is conditioned on its k nearest samples (local kriging weights; 16 to 64 is "
+          "common practice), faster for many samples; the realisations then have the local kriging mean and "
+          "variance. It must be more than the number of trend terms (at least 2 for a constant mean)."),
+         ("Search radius", "With neighbours only: samples farther than this (working CRS units, along the major "
+          "axis; the search ellipse follows the model's anisotropy) are left out. Cells with too few samples in "
+          "range are nodata in every realisation and left out of the summaries, areas and means; the log says "
+          "how many. Empty: no limit."),
          THRESHOLD_HELP,
          TARGET_CRS_HELP],
         [("Realisations", "Multiband Float32 GeoTIFF, one band per realisation, in attribute units (a log model "
@@ -96,6 +104,7 @@ class SimulateAlgorithm(RasterAlgorithm):
         self.addParameter(QgsProcessingParameterNumber(
             self.SEED, self.tr("Random seed"), type=QgsProcessingParameterNumber.Integer, defaultValue=1,
             minValue=0))
+        self.add_neighbourhood_parameters(per="cell")
         self.add_threshold_parameter()
         self.add_target_crs_parameter()
         self.addParameter(QgsProcessingParameterRasterDestination(self.OUTPUT, self.tr("Realisations")))
@@ -136,15 +145,20 @@ class SimulateAlgorithm(RasterAlgorithm):
                                  "Ask for more realisations (100 is a good start), or only for the realisations.")
         document, samples = self.model_and_samples(parameters, context, feedback,
                                                    progress_callback(feedback, 0, SIMULATION_PERCENT[0]))
+        neighbours, search_radius = self.neighbourhood_choice(parameters, context)
+        check_neighbours(neighbours, document.mean, "cell")
         grid, inside = self.grid_and_mask(parameters, context, samples.xy, document.crs_wkt, document.units,
                                           feedback, n_bands=1 + len(summaries))  # realisations: checked below
         feedback.pushInfo(f"Simulating {count} realisations (seed {seed}).")
+        self.log_conditioning(neighbours, search_radius, len(samples.values), document.units, feedback)
         # The engine estimates the memory of the realisations before any work and refuses with advice.
         result = simulate_conditional(samples.xy, samples.values, document.covariance, document.mean, grid,
                                       n_realisations=count, seed=seed, transform=document.transform,
+                                      neighbours=neighbours, search_radius=search_radius,
                                       progress=progress_callback(feedback, *SIMULATION_PERCENT),
                                       should_stop=feedback.isCanceled)
         self.log_method(result, feedback)
+        self.log_unresolved(result, inside, feedback)
         summary = None
         if count >= 2 and (summaries or wants_table or threshold is not None):
             summary = summarise_realisations(result.realisations, grid.pixel_size ** 2, threshold=threshold,
@@ -168,6 +182,17 @@ class SimulateAlgorithm(RasterAlgorithm):
         return outputs
 
     @staticmethod
+    def log_conditioning(neighbours: int, search_radius: float | None, count: int, units: str, feedback) -> None:
+        """Say which samples condition each cell (all, or the nearest ``neighbours``)."""
+        if neighbours == 0:
+            if search_radius is not None:
+                feedback.pushWarning("SEARCH_RADIUS is ignored: every sample is used (NEIGHBOURS is 0).")
+            feedback.pushInfo(f"Conditioning every cell on all {count} samples.")
+        else:
+            feedback.pushInfo(f"Local conditioning: each cell on its {min(neighbours, count)} nearest "
+                              f"samples{search_words(search_radius, units)}.")
+
+    @staticmethod
     def log_method(result: SimulationResult, feedback) -> None:
         """Say how the fields were drawn, and pass the engine's warnings on."""
         padded = "" if result.padded_shape is None else \
@@ -176,6 +201,18 @@ class SimulateAlgorithm(RasterAlgorithm):
                           f"{result.neighbourhood_side} x {result.neighbourhood_side} nearest lattice nodes.")
         for warning in result.warnings:
             feedback.pushWarning(warning)
+
+    @staticmethod
+    def log_unresolved(result: SimulationResult, inside: np.ndarray | None, feedback) -> None:
+        """Count the cells (of the mask) that local conditioning left nodata; nothing when there are none."""
+        unresolved = result.unresolved
+        if unresolved and inside is not None:
+            unresolved = int(np.count_nonzero(np.isnan(result.realisations[0]) & inside))
+        if unresolved:
+            feedback.pushWarning(f"{unresolved:,} cell(s) are nodata in every realisation: fewer samples "
+                                 "than the mean model needs lie within SEARCH_RADIUS of them (or their neighbours "
+                                 "make a singular system); they are left out of the summaries. Enlarge "
+                                 "SEARCH_RADIUS, or leave it empty, to fill them.")
 
     def write_rasters(self, result: SimulationResult, summary: RealisationSummary | None,
                       inside: np.ndarray | None, paths: dict, threshold: float | None, field: str, crs_wkt: str,

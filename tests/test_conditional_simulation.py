@@ -11,6 +11,7 @@ from fieldcast.algorithms.errors import Cancelled, FieldcastError
 from fieldcast.algorithms.grid import GridSpec
 from fieldcast.algorithms.kriging import KrigingPredictor
 from fieldcast.algorithms.mean import MeanModel
+from fieldcast.algorithms.neighbourhood import LocalKrigingPredictor
 from fieldcast.algorithms.simulation import simulate_conditional, simulation_lattice, summarise_realisations
 from fieldcast.algorithms.transform import Transform
 
@@ -48,6 +49,14 @@ def meuse_log_zinc(meuse):
     return np.asarray(meuse.xy), np.log(meuse.zinc)
 
 
+def simulate_meuse(meuse_log_zinc, kind: str, pixel: float, count: int, seed: int,
+                   **options) -> simulation.SimulationResult:
+    """Realisations of Meuse log(zinc) under MEUSE_MODEL with a ``kind`` mean on the samples' extent."""
+    xy, values = meuse_log_zinc
+    return simulate_conditional(xy, values, MEUSE_MODEL, MeanModel.for_data(kind, xy), meuse_grid_spec(pixel),
+                                n_realisations=count, seed=seed, **options)
+
+
 def test_meuse_realisations_converge_to_ordinary_kriging(meuse_log_zinc):
     # Conditioning by kriging gives realisations whose mean is the kriging prediction and whose variance is
     # the kriging variance (Journel & Huijbregts 1978, Mining Geostatistics); Meuse data (Rikken & Van Rijn
@@ -74,6 +83,40 @@ def test_anisotropic_universal_kriging_with_samples_off_the_grid():
     result = simulate_conditional(xy, values, model, mean_model, grid, n_realisations=600, seed=8)
     mean, variance = KrigingPredictor(xy, values, model, mean_model).predict(grid.cell_centres())
     assert_converges_to_kriging(result.realisations, mean, variance, model.field_variance)
+
+
+def test_local_conditioning_with_all_samples_is_the_global_conditioning(meuse_log_zinc):
+    # With every sample as neighbour the local kriging weights are the global ones (Cressie 1993, Statistics
+    # for Spatial Data, 3.2), so the same seed gives the same realisations up to round-off; Meuse data.
+    dense = simulate_meuse(meuse_log_zinc, "linear", 160.0, 4, 5)
+    local = simulate_meuse(meuse_log_zinc, "linear", 160.0, 4, 5, neighbours=len(meuse_log_zinc[0]))
+    assert local.unresolved == 0
+    np.testing.assert_allclose(local.realisations, dense.realisations, rtol=0, atol=1e-8)
+
+
+def test_meuse_local_realisations_converge_to_local_kriging(meuse_log_zinc):
+    # Conditioning by kriging reproduces the kriging mean and variance of the weights it uses (Journel &
+    # Huijbregts 1978, Mining Geostatistics): with 32 neighbours, those of local kriging; Meuse data.
+    xy, values = meuse_log_zinc
+    mean_model = MeanModel.for_data("constant", xy)
+    result = simulate_meuse(meuse_log_zinc, "constant", 80.0, 200, 31, neighbours=32)
+    mean, variance = LocalKrigingPredictor(xy, values, MEUSE_MODEL, mean_model,
+                                           neighbours=32).predict(meuse_grid_spec(80.0).cell_centres())
+    assert_converges_to_kriging(result.realisations, mean, variance, MEUSE_MODEL.field_variance)
+
+
+def test_cells_beyond_the_search_radius_are_nodata_and_left_out_of_summaries(meuse_log_zinc):
+    # A 200 m search leaves the corners of the Meuse extent without samples: NaN in every realisation.
+    grid = meuse_grid_spec(160.0)
+    result = simulate_meuse(meuse_log_zinc, "constant", 160.0, 3, 2, neighbours=16, search_radius=200.0)
+    missing = np.isnan(result.realisations)
+    assert (missing == missing[0]).all()
+    assert 0 < result.unresolved == int(missing[0].sum()) < grid.n_cells
+    summary = summarise_realisations(result.realisations, 160.0 ** 2, threshold=6.0)
+    assert np.isnan(summary.mean[missing[0]]).all() and np.isnan(summary.share_above[missing[0]]).all()
+    assert np.isfinite(summary.mean[~missing[0]]).all()
+    assert summary.mask_area == 160.0 ** 2 * (grid.n_cells - result.unresolved)
+    np.testing.assert_allclose(summary.mask_mean, result.realisations[:, ~missing[0]].mean(axis=1))
 
 
 def test_data_on_cell_centres_are_honoured_exactly_without_nugget():
@@ -104,13 +147,9 @@ def test_sample_draw_reproduces_sample_to_node_covariance(meuse_log_zinc):
 
 
 def test_seed_makes_runs_reproducible_and_log_models_back_transform_cell_by_cell(meuse_log_zinc):
-    xy, values = meuse_log_zinc
-    mean_model = MeanModel.for_data("constant", xy)
-    grid = meuse_grid_spec(160.0)
-    first = simulate_conditional(xy, values, MEUSE_MODEL, mean_model, grid, n_realisations=3, seed=7)
-    again = simulate_conditional(xy, values, MEUSE_MODEL, mean_model, grid, n_realisations=3, seed=7,
-                                 transform=Transform("log"))
-    other = simulate_conditional(xy, values, MEUSE_MODEL, mean_model, grid, n_realisations=3, seed=8)
+    first = simulate_meuse(meuse_log_zinc, "constant", 160.0, 3, 7)
+    again = simulate_meuse(meuse_log_zinc, "constant", 160.0, 3, 7, transform=Transform("log"))
+    other = simulate_meuse(meuse_log_zinc, "constant", 160.0, 3, 8)
     # ln is inverted by exp cell by cell (Transform.back_median is exp(y) - offset).
     assert np.allclose(again.realisations, np.exp(first.realisations), rtol=1e-12)
     assert not np.allclose(first.realisations, other.realisations)

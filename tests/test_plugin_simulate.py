@@ -151,6 +151,36 @@ def test_the_same_seed_gives_the_same_fields(qgis_processing, meuse, meuse_grid,
     np.testing.assert_array_equal(first, second)
 
 
+def test_local_conditioning_writes_bands_and_counts_nodata(qgis_processing, meuse, meuse_grid, zinc_model,  # noqa: F811
+                                                           tmp_path):
+    # NEIGHBOURS=16 (common practice): every masked cell is conditioned and written, as with all samples.
+    feedback = QgsProcessingFeedback()
+    qgis_processing.run("fieldcast:simulate", {**grid_parameters(meuse, meuse_grid, zinc_model), "REALIZATIONS": 4,
+                                               "SEED": 5, "NEIGHBOURS": 16, "OUTPUT": str(tmp_path / "local.tif")},
+                        feedback=feedback)
+    local, dataset = bands(tmp_path / "local.tif")
+    assert dataset.RasterCount == 4
+    expected = np.zeros(COARSE_GRID.n_cells, bool)
+    expected[coarse_cell_index(meuse_grid.xy)] = True
+    for realisation in local:
+        assert np.array_equal(np.isfinite(realisation).ravel(), expected)
+    assert np.nanmin(local) > 0.0
+    assert "each cell on its 16 nearest samples" in feedback.textLog()
+    assert "nodata in every realisation" not in feedback.textLog()
+    # A 100 m search leaves some masked cells with fewer than 2 samples in range: nodata in every band, logged,
+    # and left out of the mean raster.
+    feedback = QgsProcessingFeedback()
+    qgis_processing.run("fieldcast:simulate", {
+        **grid_parameters(meuse, meuse_grid, zinc_model), "REALIZATIONS": 4, "SEED": 5, "NEIGHBOURS": 16,
+        "SEARCH_RADIUS": 100.0, "OUTPUT": str(tmp_path / "near.tif"), "OUTPUT_MEAN": str(tmp_path / "mean.tif")},
+        feedback=feedback)
+    near = bands(tmp_path / "near.tif")[0]
+    unresolved = expected.reshape(near.shape[1:]) & np.isnan(near[0])
+    assert unresolved.any() and np.isnan(near[:, unresolved]).all()
+    assert f"{int(unresolved.sum()):,} cell(s) are nodata in every realisation" in feedback.textLog()
+    assert np.array_equal(np.isfinite(bands(tmp_path / "mean.tif")[0][0]), np.isfinite(near[0]))
+
+
 # --- bad inputs: a clear message and no file at all --------------------------------------------------------------
 
 def refused(processing, parameters: dict, folder, feedback=None) -> str:
@@ -167,6 +197,12 @@ def test_fewer_than_one_realisation_is_refused(qgis_processing, meuse, meuse_gri
     message = refused(qgis_processing, {**grid_parameters(meuse, meuse_grid, zinc_model), "REALIZATIONS": 0,
                                         "THRESHOLD": ZINC_THRESHOLD}, tmp_path)
     assert "at least 1" in message and "REALIZATIONS" in message
+
+
+def test_one_neighbour_is_refused(qgis_processing, meuse, meuse_grid, zinc_model, tmp_path):  # noqa: F811
+    message = refused(qgis_processing, {**grid_parameters(meuse, meuse_grid, zinc_model), "REALIZATIONS": 5,
+                                        "NEIGHBOURS": 1, "THRESHOLD": ZINC_THRESHOLD}, tmp_path)
+    assert "NEIGHBOURS is 1" in message and "Set NEIGHBOURS to 2 or more" in message
 
 
 def test_exceedance_share_without_threshold_is_refused(qgis_processing, meuse, meuse_grid, zinc_model,  # noqa: F811
@@ -219,5 +255,5 @@ def test_qgis_process_writes_a_band_per_realisation(meuse, zinc_model, tmp_path_
 def test_help_explains_realisations(fieldcast_plugin):  # noqa: F811
     help_text = QgsApplication.processingRegistry().algorithmById("fieldcast:simulate").shortHelpString()
     for phrase in ("equally plausible fields", "uncertainty of areas and totals", "not a certainty",
-                   "CRS units squared", "same seed"):
+                   "CRS units squared", "same seed", "local kriging weights"):
         assert phrase in help_text
