@@ -10,6 +10,7 @@ import dataclasses
 import json
 import math
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 
@@ -74,7 +75,7 @@ class ModelDocument:
             "transform": self.transform.to_dict(),
             "crs": self.crs_wkt,
             "units": self.units,
-            "fit": _json_safe(self.fit),
+            "fit": json_ready(self.fit),
         }
 
     @classmethod
@@ -143,16 +144,16 @@ class ModelDocument:
         return cls.from_json(text)
 
 
-def _json_safe(value):
-    """Replace numpy scalars and arrays with plain Python, non-finite floats with None."""
+def json_ready(value: Any) -> Any:
+    """``value`` as JSON-ready data: numpy arrays to lists, numpy scalars to Python, non-finite floats to None."""
     if isinstance(value, dict):
-        return {str(k): _json_safe(v) for k, v in value.items()}
-    if isinstance(value, (list, tuple)):
-        return [_json_safe(v) for v in value]
-    if isinstance(value, np.ndarray):
-        return _json_safe(value.tolist())
-    if isinstance(value, (np.floating, float)):
-        return float(value) if math.isfinite(value) else None
-    if isinstance(value, np.integer):
+        return {str(key): json_ready(item) for key, item in value.items()}
+    if isinstance(value, (list, tuple, np.ndarray)):
+        return [json_ready(item) for item in value]
+    if isinstance(value, (bool, np.bool_)):
+        return bool(value)
+    if isinstance(value, (int, np.integer)):
         return int(value)
+    if isinstance(value, (float, np.floating)):
+        return float(value) if math.isfinite(value) else None
     return value

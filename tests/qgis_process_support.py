@@ -19,6 +19,7 @@ REPO_ROOT = Path(__file__).resolve().parent.parent
 PLUGIN_NAME = "fieldcast"
 QGIS_PROCESS = shutil.which("qgis_process.bin")
 RUN_TIMEOUT_SECONDS = 900  # a hang guard, not a speed target
+MEUSE_METALS = ("zinc", "copper", "lead")
 
 
 def make_profile(root: Path, plugin_folder: Path = REPO_ROOT) -> Path:
@@ -86,20 +87,25 @@ def run_qgis_process(profile: Path, *arguments: str) -> ProcessRun:
 def run_algorithm(profile: Path, algorithm: str, parameters: dict[str, object]) -> ProcessRun:
     """Run one algorithm (an id such as ``fieldcast:fitmodel`` or a ``.model3`` path) with ``NAME=value`` pairs.
 
-    Booleans are passed as ``true``/``false``; everything else as ``str(value)``.
+    Booleans are passed as ``true``/``false``; a list as one ``NAME=item`` pair per item (how
+    qgis_process takes several values, e.g. several fields); everything else as ``str(value)``.
     """
-    pairs = [f"{name}={str(value).lower() if isinstance(value, bool) else value}" for name, value in parameters.items()]
+    def text(value: object) -> str:
+        return str(value).lower() if isinstance(value, bool) else str(value)
+
+    pairs = [f"{name}={text(item)}" for name, value in parameters.items()
+             for item in (value if isinstance(value, list) else [value])]
     return run_qgis_process(profile, "run", str(algorithm), "--", *pairs)
 
 
-def write_fit_then_predict_model(path: Path, fit_parameters: dict, predict_parameters: dict) -> None:
-    """Save a graphical model (``.model3``) that chains ``fieldcast:fitmodel`` into ``fieldcast:predict``.
+def write_graphical_model(path: Path, name: str, steps: list[tuple[str, str, dict, dict]],
+                          output: tuple[str, str, str]) -> None:
+    """Save a graphical model (``.model3``) with one input, ``samples``, the INPUT of every step.
 
-    The model has one input, ``samples`` (the INPUT of both steps); the predict
-    step's MODEL is the fit step's OUTPUT_MODEL, a temporary file; the predict
-    step's OUTPUT is the model output ``surface``, set on the command line as
-    ``predict:surface=PATH``. The other parameters are fixed values. Building the
-    model needs a running ``QgsApplication`` in this process.
+    ``steps`` are ``(child_id, algorithm, fixed, linked)``: ``fixed`` maps parameter names to static
+    values, ``linked`` maps parameter names to ``(child_id, output_name)`` of an earlier step. ``output``
+    is ``(model_output, child_id, child_output)``, set on the command line as ``child_id:model_output=PATH``.
+    Building the model needs a running ``QgsApplication`` in this process.
     """
     from qgis.core import (
         QgsProcessingModelAlgorithm,
@@ -110,27 +116,69 @@ def write_fit_then_predict_model(path: Path, fit_parameters: dict, predict_param
         QgsProcessingParameterFeatureSource,
     )
 
-    model = QgsProcessingModelAlgorithm("Fit then predict", "Fieldcast tests")
+    model = QgsProcessingModelAlgorithm(name, "Fieldcast tests")
     model.addModelParameter(QgsProcessingParameterFeatureSource("samples", "Samples"),
                             QgsProcessingModelParameter("samples"))
     samples = QgsProcessingModelChildParameterSource.fromModelParameter("samples")
-    fitted_model = QgsProcessingModelChildParameterSource.fromChildOutput("fit", "OUTPUT_MODEL")
-    steps = [("fit", "fieldcast:fitmodel", fit_parameters, {}),
-             ("predict", "fieldcast:predict", predict_parameters, {"MODEL": fitted_model})]
+    output_name, output_child, child_output = output
     for child_id, algorithm, fixed, linked in steps:
         step = QgsProcessingModelChildAlgorithm(algorithm)
         step.setChildId(child_id)
         # one name at a time: setParameterSources with a dict crashes the QGIS 3.22 Python bindings
         step.addParameterSources("INPUT", [samples])
-        for name, value in fixed.items():
-            step.addParameterSources(name, [QgsProcessingModelChildParameterSource.fromStaticValue(value)])
-        for name, source in linked.items():
-            step.addParameterSources(name, [source])
-        if child_id == "predict":
-            surface = QgsProcessingModelOutput("surface", "Surface")
-            surface.setChildId(child_id)
-            surface.setChildOutputName("OUTPUT")
-            step.setModelOutputs({"surface": surface})
+        for parameter, value in fixed.items():
+            step.addParameterSources(parameter, [QgsProcessingModelChildParameterSource.fromStaticValue(value)])
+        for parameter, (source_child, source_output) in linked.items():
+            step.addParameterSources(
+                parameter, [QgsProcessingModelChildParameterSource.fromChildOutput(source_child, source_output)])
+        if child_id == output_child:
+            model_output = QgsProcessingModelOutput(output_name, output_name.capitalize())
+            model_output.setChildId(child_id)
+            model_output.setChildOutputName(child_output)
+            step.setModelOutputs({output_name: model_output})
         model.addChildAlgorithm(step)
     if not model.toFile(str(path)):
         raise OSError(f"could not write the model file {path}")
+
+
+def write_fit_then_predict_model(path: Path, fit_parameters: dict, predict_parameters: dict) -> None:
+    """A ``.model3`` chaining ``fieldcast:fitmodel`` into ``fieldcast:predict``.
+
+    The predict step's MODEL is the fit step's OUTPUT_MODEL, a temporary file; the predict step's
+    OUTPUT is the model output ``surface`` (``predict:surface=PATH`` on the command line).
+    """
+    write_graphical_model(path, "Fit then predict",
+                          [("fit", "fieldcast:fitmodel", fit_parameters, {}),
+                           ("predict", "fieldcast:predict", predict_parameters, {"MODEL": ("fit", "OUTPUT_MODEL")})],
+                          ("surface", "predict", "OUTPUT"))
+
+
+def write_meuse_geopackage(path: Path) -> str:
+    """The Meuse samples (tests/data/meuse.csv) as a GeoPackage point layer ``meuse`` in EPSG:28992.
+
+    Fields: ``id``, ``zinc``, ``copper``, ``lead`` (ppm) and the text field ``landuse``. Returns the
+    layer's OGR URI. The data set is the published Meuse survey (see tests/data/README.md).
+    """
+    from osgeo import ogr, osr
+
+    srs = osr.SpatialReference()
+    srs.ImportFromEPSG(28992)
+    source = ogr.GetDriverByName("GPKG").CreateDataSource(str(path))
+    layer = source.CreateLayer("meuse", srs, ogr.wkbPoint)
+    layer.CreateField(ogr.FieldDefn("id", ogr.OFTInteger))
+    for name in MEUSE_METALS:
+        layer.CreateField(ogr.FieldDefn(name, ogr.OFTReal))
+    layer.CreateField(ogr.FieldDefn("landuse", ogr.OFTString))
+    csv_source = ogr.Open(str(REPO_ROOT / "tests" / "data" / "meuse.csv"))
+    for row in csv_source.GetLayer():
+        feature = ogr.Feature(layer.GetLayerDefn())
+        feature.SetField("id", int(row["id"]))
+        for name in MEUSE_METALS:
+            feature.SetField(name, float(row[name]))
+        feature.SetField("landuse", row["landuse"])
+        point = ogr.Geometry(ogr.wkbPoint)
+        point.AddPoint_2D(float(row["x"]), float(row["y"]))
+        feature.SetGeometry(point)
+        layer.CreateFeature(feature)
+    source = None
+    return f"{path}|layername=meuse"

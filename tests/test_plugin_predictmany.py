@@ -10,21 +10,23 @@ from pathlib import Path
 
 import numpy as np
 import pytest
-from osgeo import gdal, ogr, osr
+from osgeo import gdal
 from qgis.core import (
     QgsField,
     QgsProcessingException,
     QgsProcessingFeedback,
-    QgsProcessingModelAlgorithm,
-    QgsProcessingModelChildAlgorithm,
-    QgsProcessingModelChildParameterSource,
-    QgsProcessingModelOutput,
-    QgsProcessingModelParameter,
-    QgsProcessingParameterFeatureSource,
 )
 
-from qgis_process_support import QGIS_PROCESS, make_profile, run_qgis_process
+from qgis_process_support import (
+    QGIS_PROCESS,
+    make_profile,
+    run_algorithm,
+    run_qgis_process,
+    write_graphical_model,
+    write_meuse_geopackage,
+)
 from qgis_support import CancelAfterFirstProgress, field_type, fieldcast_plugin, point_layer, qgis_processing  # noqa: F401
+from requirements_check import skip_unless_available
 
 FIT = {"TRANSFORM": "log", "KERNEL": "spherical", "ANISOTROPY": False, "TREND": "constant", "METHOD": "reml"}
 GRID = {"EXTENT": "178440,181560,329600,333760 [EPSG:28992]", "PIXEL_SIZE": 80.0}
@@ -120,65 +122,27 @@ def test_bad_inputs_are_refused_without_output(qgis_processing, meuse, tmp_path,
     assert not (tmp_path / "out").exists() or not list((tmp_path / "out").iterdir())
 
 
-def write_gpkg(path: Path, meuse) -> None:
-    """The Meuse samples' zinc and copper as a GeoPackage layer ``meuse`` in EPSG:28992, for qgis_process."""
-    srs = osr.SpatialReference()
-    srs.ImportFromEPSG(28992)
-    source = ogr.GetDriverByName("GPKG").CreateDataSource(str(path))
-    layer = source.CreateLayer("meuse", srs, ogr.wkbPoint)
-    for name in ("zinc", "copper"):
-        layer.CreateField(ogr.FieldDefn(name, ogr.OFTReal))
-    for (x, y), zinc, copper in zip(meuse.xy, meuse.zinc, meuse.copper):
-        feature = ogr.Feature(layer.GetLayerDefn())
-        feature.SetField("zinc", float(zinc))
-        feature.SetField("copper", float(copper))
-        point = ogr.Geometry(ogr.wkbPoint)
-        point.AddPoint_2D(float(x), float(y))
-        feature.SetGeometry(point)
-        layer.CreateFeature(feature)
-    source = None
-
-
-@pytest.mark.skipif(QGIS_PROCESS is None, reason="qgis_process.bin is not installed")
-def test_fields_are_repeated_on_the_qgis_process_command_line(meuse, tmp_path):
-    path = tmp_path / "meuse.gpkg"
-    write_gpkg(path, meuse)
-    settings = [f"{name}={str(value).lower() if isinstance(value, bool) else value}" for name, value in FIT.items()]
-    run = run_qgis_process(make_profile(tmp_path / "profile"), "run", "fieldcast:predictmany", "--",
-                           f"INPUT={path}|layername=meuse", "FIELDS=zinc", "FIELDS=copper", *settings,
-                           "PIXEL_SIZE=200", f"OUTPUT_FOLDER={tmp_path / 'out'}")
+@skip_unless_available(QGIS_PROCESS is not None, "qgis_process.bin is not installed")
+def test_fields_are_repeated_on_the_qgis_process_command_line(tmp_path):
+    samples = write_meuse_geopackage(tmp_path / "meuse.gpkg")
+    run = run_algorithm(make_profile(tmp_path / "profile"), "fieldcast:predictmany", {
+        "INPUT": samples, "FIELDS": ["zinc", "copper"], **FIT, "PIXEL_SIZE": 200,
+        "OUTPUT_FOLDER": tmp_path / "out"})
     assert run.returncode == 0, run.messages
     assert run.results["COUNT"] == 2
     assert sorted(p.name for p in (tmp_path / "out").iterdir()) == sorted(
         f"{field}_{kind}" for field in ("zinc", "copper") for kind in ("model.json", "prediction.tif", "variance.tif"))
 
 
-def write_predictmany_model(path: Path, fixed: dict) -> None:
-    """A graphical model (``.model3``) with one input ``samples`` and one step ``many`` (fieldcast:predictmany)
-    whose OUTPUT_FOLDER is the model output ``folder``, set on the command line as ``many:folder=PATH``."""
-    model = QgsProcessingModelAlgorithm("Several fields", "Fieldcast tests")
-    model.addModelParameter(QgsProcessingParameterFeatureSource("samples", "Samples"),
-                            QgsProcessingModelParameter("samples"))
-    step = QgsProcessingModelChildAlgorithm("fieldcast:predictmany")
-    step.setChildId("many")
-    step.addParameterSources("INPUT", [QgsProcessingModelChildParameterSource.fromModelParameter("samples")])
-    for name, value in fixed.items():  # one name at a time (see qgis_process_support.write_fit_then_predict_model)
-        step.addParameterSources(name, [QgsProcessingModelChildParameterSource.fromStaticValue(value)])
-    folder = QgsProcessingModelOutput("folder", "Folder")
-    folder.setChildId("many")
-    folder.setChildOutputName("OUTPUT_FOLDER")
-    step.setModelOutputs({"folder": folder})
-    model.addChildAlgorithm(step)
-    assert model.toFile(str(path))
-
-
-@pytest.mark.skipif(QGIS_PROCESS is None, reason="qgis_process.bin is not installed")
-def test_predictmany_runs_in_a_graphical_model(fieldcast_plugin, meuse, tmp_path):  # noqa: F811
-    samples = tmp_path / "meuse.gpkg"
-    write_gpkg(samples, meuse)
-    write_predictmany_model(tmp_path / "many.model3", {"FIELDS": ["zinc", "copper"], **FIT, "PIXEL_SIZE": 200.0})
+@skip_unless_available(QGIS_PROCESS is not None, "qgis_process.bin is not installed")
+def test_predictmany_runs_in_a_graphical_model(fieldcast_plugin, tmp_path):  # noqa: F811
+    samples = write_meuse_geopackage(tmp_path / "meuse.gpkg")
+    write_graphical_model(tmp_path / "many.model3", "Several fields",
+                          [("many", "fieldcast:predictmany", {"FIELDS": ["zinc", "copper"], **FIT, "PIXEL_SIZE": 200.0},
+                            {})],
+                          ("folder", "many", "OUTPUT_FOLDER"))
     run = run_qgis_process(make_profile(tmp_path / "profile"), "run", str(tmp_path / "many.model3"), "--",
-                           f"samples={samples}|layername=meuse", f"many:folder={tmp_path / 'out'}")
+                           f"samples={samples}", f"many:folder={tmp_path / 'out'}")
     assert run.returncode == 0, run.messages
     assert sorted(p.name for p in (tmp_path / "out").iterdir()) == sorted(
         f"{field}_{kind}" for field in ("zinc", "copper") for kind in ("model.json", "prediction.tif", "variance.tif"))

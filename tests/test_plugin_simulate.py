@@ -14,14 +14,12 @@ import pytest
 from osgeo import gdal
 from qgis.core import (
     QgsApplication,
-    QgsCoordinateTransformContext,
     QgsProcessingException,
     QgsProcessingFeedback,
-    QgsVectorFileWriter,
 )
 
 from fieldcast.algorithms.crs import same_crs
-from qgis_process_support import QGIS_PROCESS, make_profile, run_algorithm
+from qgis_process_support import QGIS_PROCESS, make_profile, run_algorithm, write_meuse_geopackage
 from qgis_support import CancelAfterFirstProgress, fieldcast_plugin, point_layer, qgis_processing  # noqa: F401
 from requirements_check import skip_unless_available
 from test_plugin_decision_maps import (  # noqa: F401 - zinc_model is a fixture
@@ -233,14 +231,9 @@ def test_cancel_during_simulation_leaves_no_file(qgis_processing, meuse, meuse_g
 # --- qgis_process ---------------------------------------------------------------------------------------------
 
 @skip_unless_available(QGIS_PROCESS is not None, "qgis_process.bin is not installed")
-def test_qgis_process_writes_a_band_per_realisation(meuse, zinc_model, tmp_path_factory):  # noqa: F811
+def test_qgis_process_writes_a_band_per_realisation(zinc_model, tmp_path_factory):  # noqa: F811
     folder = tmp_path_factory.mktemp("simulate-qgis-process")
-    samples = folder / "meuse.gpkg"
-    options = QgsVectorFileWriter.SaveVectorOptions()
-    options.driverName = "GPKG"
-    error = QgsVectorFileWriter.writeAsVectorFormatV3(point_layer(meuse.xy, {"zinc": meuse.zinc}), str(samples),
-                                                      QgsCoordinateTransformContext(), options)
-    assert error[0] == QgsVectorFileWriter.NoError, error
+    samples = write_meuse_geopackage(folder / "meuse.gpkg")
     output = folder / "realisations.tif"
     run = run_algorithm(make_profile(folder / "profile"), "fieldcast:simulate", {
         "INPUT": samples, "FIELD": "zinc", "MODEL": zinc_model, "PIXEL_SIZE": 200, "REALIZATIONS": 20,

@@ -17,14 +17,20 @@ import numpy as np
 import pytest
 from osgeo import gdal, ogr, osr
 
-from qgis_process_support import QGIS_PROCESS, make_profile, run_algorithm, write_fit_then_predict_model
+from qgis_process_support import (
+    MEUSE_METALS,
+    QGIS_PROCESS,
+    make_profile,
+    run_algorithm,
+    write_fit_then_predict_model,
+    write_meuse_geopackage,
+)
 from qgis_support import fieldcast_plugin  # noqa: F401 - fixture: a QgsApplication to build the .model3 in
 from requirements_check import skip_unless_available
 
 pytestmark = skip_unless_available(QGIS_PROCESS is not None, "qgis_process.bin is not installed")
 
 DATA_DIR = Path(__file__).resolve().parent / "data"
-METALS = ("zinc", "copper", "lead")
 FIT_SETTINGS = {"TRANSFORM": "log", "KERNEL": "spherical", "ANISOTROPY": False, "TREND": "constant",
                 "METHOD": "reml"}
 # Cell centres of the published 40 m Meuse grid (tests/data/meuse_grid.csv) run from x 178460 to 181540
@@ -41,29 +47,8 @@ def profile(tmp_path_factory) -> Path:
 
 @pytest.fixture(scope="module")
 def meuse_layer(tmp_path_factory) -> str:
-    """The Meuse samples (tests/data/meuse.csv) as a GeoPackage point layer; returns its OGR URI."""
-    path = tmp_path_factory.mktemp("meuse") / "meuse.gpkg"
-    srs = osr.SpatialReference()
-    srs.ImportFromEPSG(28992)
-    source = ogr.GetDriverByName("GPKG").CreateDataSource(str(path))
-    layer = source.CreateLayer("meuse", srs, ogr.wkbPoint)
-    layer.CreateField(ogr.FieldDefn("id", ogr.OFTInteger))
-    for name in METALS:
-        layer.CreateField(ogr.FieldDefn(name, ogr.OFTReal))
-    layer.CreateField(ogr.FieldDefn("landuse", ogr.OFTString))
-    csv_source = ogr.Open(str(DATA_DIR / "meuse.csv"))
-    for row in csv_source.GetLayer():
-        feature = ogr.Feature(layer.GetLayerDefn())
-        feature.SetField("id", int(row["id"]))
-        for name in METALS:
-            feature.SetField(name, float(row[name]))
-        feature.SetField("landuse", row["landuse"])
-        point = ogr.Geometry(ogr.wkbPoint)
-        point.AddPoint_2D(float(row["x"]), float(row["y"]))
-        feature.SetGeometry(point)
-        layer.CreateFeature(feature)
-    source = None
-    return f"{path}|layername=meuse"
+    """The Meuse samples as a GeoPackage point layer; returns its OGR URI."""
+    return write_meuse_geopackage(tmp_path_factory.mktemp("meuse") / "meuse.gpkg")
 
 
 def fit(profile: Path, layer: str, field: str, model_path: Path) -> dict:
@@ -165,7 +150,7 @@ def test_graphical_model_chains_fit_into_predict(profile, meuse_layer, tmp_path,
 
 def test_three_fields_in_sequence_like_batch_mode(profile, meuse_layer, tmp_path):
     surfaces = {}
-    for field in METALS:
+    for field in MEUSE_METALS:
         model_path = tmp_path / f"{field}.json"
         assert fit(profile, meuse_layer, field, model_path)["field"] == field
         predict(profile, meuse_layer, field, model_path, tmp_path / f"{field}.tif")

@@ -14,28 +14,13 @@ import math
 from pathlib import Path
 from typing import Any
 
-import numpy as np
+from ...algorithms.model_file import json_ready
 
 TEMPLATE_DIR = Path(__file__).resolve().parent / "templates"
 
 
 class ReportError(ValueError):
     """A report cannot be written; the message says what to change."""
-
-
-def plain(value: Any) -> Any:
-    """``value`` as JSON-ready Python data: numpy to lists and scalars, non-finite floats to None."""
-    if isinstance(value, dict):
-        return {str(key): plain(item) for key, item in value.items()}
-    if isinstance(value, (list, tuple, np.ndarray)):
-        return [plain(item) for item in value]
-    if isinstance(value, (bool, np.bool_)):
-        return bool(value)
-    if isinstance(value, (int, np.integer)):
-        return int(value)
-    if isinstance(value, (float, np.floating)):
-        return float(value) if math.isfinite(value) else None
-    return value
 
 
 def script_json(data: Any) -> str:
@@ -45,7 +30,7 @@ def script_json(data: Any) -> str:
     ``\\u003c`` (the same string to a JSON parser) so no value can close the
     element or open an HTML comment in it.
     """
-    text = json.dumps(plain(data), sort_keys=True, allow_nan=False, ensure_ascii=False, separators=(",", ":"))
+    text = json.dumps(json_ready(data), sort_keys=True, allow_nan=False, ensure_ascii=False, separators=(",", ":"))
     return text.replace("<", "\\u003c")
 
 
