@@ -296,6 +296,20 @@ def fit_model(
         return fit_exact(xy, values, options)
 
 
+def with_jitter_in_nugget(covariance: CovarianceModel, jitter: float, messages: list[str]) -> CovarianceModel:
+    """The model with a factorisation's diagonal jitter added to its nugget, said in ``messages`` (appended to).
+
+    Kriging then factorises the same matrix the likelihood did.
+    """
+    if not jitter:
+        return covariance
+    if not any("positive definite" in m for m in messages):
+        messages.append(jitter_message(jitter))
+    messages.append(f"The model's nugget includes that {jitter:.3g}, so predictions use the same covariance matrix "
+                    "as the fit.")
+    return CovarianceModel(covariance.structures, covariance.nugget + jitter)
+
+
 def fit_exact(xy: np.ndarray, values: np.ndarray, options: FitOptions) -> FitResult:
     """:func:`fit_model` with the exact likelihood whatever the number of samples."""
     kernel, anisotropy, mean, method, covariates, nested, smoothness, known_mean, progress, should_stop = (
@@ -322,14 +336,7 @@ def fit_exact(xy: np.ndarray, values: np.ndarray, options: FitOptions) -> FitRes
     chosen, layout = min(scored, key=lambda pair: pair[0].aic)
     evaluation = evaluate_model(xy, values, chosen.covariance, mean_model, problem.method, covariates)
     messages = list(chosen.warnings)
-    covariance = chosen.covariance
-    if evaluation.jitter:
-        # Keep the jitter in the nugget, so kriging factorises the same matrix the likelihood did.
-        covariance = CovarianceModel(covariance.structures, covariance.nugget + evaluation.jitter)
-        if not any("positive definite" in m for m in messages):
-            messages.append(jitter_message(evaluation.jitter))
-        messages.append(f"The model's nugget includes that {evaluation.jitter:.3g}, so predictions use the same "
-                        "covariance matrix as the fit.")
+    covariance = with_jitter_in_nugget(chosen.covariance, evaluation.jitter, messages)
     _, _, k = information_criteria(problem, chosen.log_likelihood, layout)
     if progress is not None:
         progress(1.0)

@@ -26,6 +26,13 @@ is the product ``alpha^T C0`` with ``alpha = K^-1 (y - F beta)``, and
 upper triangle of ``L^-1``) gives ``c0^T K^-1 c0`` as the squared column
 norms of ``W`` and ``F^T K^-1 c0 = (L^-1 F)^T W``.
 
+Several fields. The weights and the variance do not depend on ``y``, and
+the mean is linear in it (Cressie 1993, section 3.4), so ``m`` fields
+observed at the same samples and sharing one covariance and mean model are
+predicted with one factorisation: ``y`` becomes an (n, m) matrix, ``beta``
+(p, m) and ``alpha`` (n, m), one column per field, and the variance is
+shared. A known mean is one value subtracted from every field.
+
 The formulas hold for any target that is a linear functional of the latent
 field, such as its average over a block: replace ``c0`` by the target's
 covariance with the observations, ``f0`` by its mean-model terms and ``C(0)``
@@ -76,17 +83,25 @@ def as_points(xy: np.ndarray, what: str) -> np.ndarray:
     return points
 
 
-def as_values(values: np.ndarray, n: int) -> np.ndarray:
-    """Validate the (n,) sample values; raise FieldcastError on NaN or a length mismatch."""
+def as_value_columns(values: np.ndarray, n: int) -> np.ndarray:
+    """Validate sample values of one field (n,) or of m fields at the same points (n, m).
+
+    Raises FieldcastError on another shape, no field, or NaN/infinite values (naming the columns of an (n, m) array).
+    """
     array = np.asarray(values, dtype=float)
-    if array.shape != (n,):
+    if array.ndim not in (1, 2) or len(array) != n or array.shape[1:] == (0,):
         raise FieldcastError(
-            f"Expected {n} sample values (one per point); got an array of shape {array.shape}."
+            f"Expected {n} sample values (one per point): an array of shape ({n},) for one field or "
+            f"({n}, m) for m fields observed at the same points; got an array of shape {array.shape}."
         )
-    bad = int(np.count_nonzero(~np.isfinite(array)))
+    not_finite = ~np.isfinite(array)
+    bad = int(np.count_nonzero(not_finite))
     if bad:
+        columns = ""
+        if array.ndim == 2:
+            columns = " (in column(s) " + ", ".join(str(j) for j in np.flatnonzero(not_finite.any(axis=0))) + ")"
         raise FieldcastError(
-            f"{bad} sample value(s) are NaN or infinite; drop those samples or fill them in."
+            f"{bad} sample value(s){columns} are NaN or infinite; drop those samples or fill them in."
         )
     return array
 
@@ -183,12 +198,16 @@ class KrigingPredictor:
     ----------
     xy : ndarray of shape (n, 2)
         Sample locations in CRS units.
-    values : ndarray of shape (n,)
-        Sample values in the modelling scale (attribute units).
+    values : ndarray of shape (n,) or (n, m)
+        Sample values in the modelling scale (attribute units); (n, m) for m
+        fields observed at the same points that share ``covariance`` and
+        ``mean`` (predicted together, one factorisation).
     covariance : CovarianceModel
         Covariance of the field; its nugget is the measurement-error variance.
     mean : MeanModel
-        ``kind == "known"`` gives simple kriging around ``known_value``;
+        ``kind == "known"`` gives simple kriging around ``known_value`` (one
+        value for every field: subtract per-field means from the columns
+        first and add them back to the predictions if they differ);
         ``"constant"`` ordinary kriging; ``"linear"``/``"quadratic"`` and
         covariate columns universal kriging (external drift).
     covariates : ndarray of shape (n, k), optional
@@ -200,15 +219,15 @@ class KrigingPredictor:
         Number of samples.
     xy : ndarray of shape (n, 2)
         Sample locations (a copy of the input), CRS units.
-    coefficients : ndarray of shape (p,)
-        GLS trend coefficients ``beta`` in the order of ``mean.term_names``
-        (empty for a known mean).
+    coefficients : ndarray of shape (p,) or (p, m)
+        GLS trend coefficients ``beta`` in the order of ``mean.term_names``,
+        one column per field for 2-D values (no rows for a known mean).
     """
 
     def __init__(self, xy: np.ndarray, values: np.ndarray, covariance: CovarianceModel, mean: MeanModel,
                  covariates: np.ndarray | None = None) -> None:
         points = as_points(xy, "Sample coordinates")
-        observed = as_values(values, len(points))
+        observed = as_value_columns(values, len(points))
         self.n = len(points)
         if self.n == 0:
             raise FieldcastError("Kriging needs at least one sample; none were given.")
@@ -231,13 +250,13 @@ class KrigingPredictor:
         self._inverse_factor = linalg.solve_triangular(factor, np.eye(self.n), lower=True, check_finite=False)
         self._blocks = [(start, min(start + _BLOCK_ROWS, self.n)) for start in range(0, self.n, _BLOCK_ROWS)]
         design = mean.design(points, covariates)
-        whitened_values = self._inverse_factor @ (observed - mean.known_mean(self.n))
+        whitened_values = self._inverse_factor @ (observed - mean.known_mean(1)[0])
         self._whitened_design = self._inverse_factor @ design  # L^-1 F, (n, p)
         if n_terms:
             self._trend_scale, self._trend_factor = self._factor_trend()
             self.coefficients = self._trend_solve(self._whitened_design.T @ whitened_values)
         else:
-            self.coefficients = np.zeros(0)
+            self.coefficients = np.zeros((0,) + observed.shape[1:])
         self._alpha = self._inverse_factor.T @ (whitened_values - self._whitened_design @ self.coefficients)
 
     def _factor_trend(self) -> tuple[np.ndarray, np.ndarray]:
@@ -329,15 +348,17 @@ class KrigingPredictor:
 
         Returns
         -------
-        mean, variance : ndarray of shape (M,)
-            Prediction (u) and error variance (u2, never negative).
+        mean : ndarray of shape (M,), or (M, m) for m fields
+            Prediction (u), one column per field.
+        variance : ndarray of shape (M,)
+            Error variance (u2, never negative), shared by the fields.
         """
         targets = as_points(xy0, "Prediction locations")
         if int(chunk_size) < 1:
             raise FieldcastError(f"chunk_size must be a positive number of locations; got {chunk_size!r}.")
         total = len(targets)
         covariates0 = self._target_covariates(covariates0, total)
-        prediction = np.empty(total)
+        prediction = np.empty((total,) + self._alpha.shape[1:])
         variance = np.empty(total)
         with ThreadPoolExecutor(max_workers=_WORKERS) as pool:
             for start in range(0, total, int(chunk_size)):
@@ -379,8 +400,10 @@ class KrigingPredictor:
 
         Returns
         -------
-        mean, variance : ndarray of shape (m,)
-            Prediction (u) and error variance of the latent target (u2, never negative).
+        mean : ndarray of shape (m,), or (m, fields) for 2-D sample values
+            Prediction (u), one column per field.
+        variance : ndarray of shape (m,)
+            Error variance of the latent target (u2, never negative), shared by the fields.
         """
         cross = np.asarray(cross, dtype=float)
         design0 = np.asarray(design0, dtype=float)
@@ -390,7 +413,7 @@ class KrigingPredictor:
                 f"got {cross.shape} and {design0.shape}."
             )
         whitened, gap = self._whitened_gap(cross, design0)
-        mean = self._alpha @ cross + self.mean.known_mean(cross.shape[1])
+        mean = cross.T @ self._alpha + self.mean.known_mean(1)[0]
         variance = np.asarray(prior_variance, dtype=float) - column_squared_norms(whitened)
         if len(gap):
             mean += design0 @ self.coefficients
@@ -427,7 +450,7 @@ class KrigingPredictor:
         Returns
         -------
         Q : ndarray of shape (n, n), u2^-1
-        Qy : ndarray of shape (n,), u^-1
+        Qy : ndarray of shape (n,), or (n, m) for m fields, u^-1
         """
         precision = self._inverse_factor.T @ self._inverse_factor
         if len(self.coefficients):

@@ -178,6 +178,64 @@ def factorise(matrix: np.ndarray) -> tuple[tuple[np.ndarray, bool], float]:
             jitter, step = step, step * 10.0
 
 
+@dataclass(frozen=True)
+class GlsSolution:
+    """The solves one likelihood evaluation shares between its value and its gradient.
+
+    Attributes
+    ----------
+    factor : tuple
+        Lower Cholesky factor of ``K`` (with any jitter), as from ``scipy.linalg.cho_factor``.
+    jitter : float
+        Value added to the diagonal of ``K`` to factorise it (0 normally).
+    log_det_k : float
+        ``log|K|``.
+    solved_q : ndarray of shape (n, p)
+        ``K^-1 Q``.
+    gram_factor : tuple or None
+        Cholesky factor of ``Q^T K^-1 Q`` (None when p = 0).
+    log_det_gram : float
+        ``log|F^T K^-1 F|`` (0 when p = 0).
+    basis_coefficients : ndarray of shape (p,) or (p, m)
+        GLS coefficients of each column of ``y`` for the columns of ``Q``.
+    weights : ndarray of shape (n,) or (n, m)
+        ``a = P y = K^-1 r`` for each column of ``y``.
+    """
+
+    factor: tuple
+    jitter: float
+    log_det_k: float
+    solved_q: np.ndarray
+    gram_factor: tuple | None
+    log_det_gram: float
+    basis_coefficients: np.ndarray
+    weights: np.ndarray
+
+    @classmethod
+    def solve(cls, matrix: np.ndarray, y: np.ndarray, basis: MeanBasis) -> GlsSolution:
+        """Factorise ``K`` (lower triangle read) and solve for one (n,) or several (n, m) columns ``y``."""
+        factor, jitter = factorise(matrix)
+        log_det_k = 2.0 * float(np.sum(np.log(np.diag(factor[0]))))
+        solved_y = linalg.cho_solve(factor, y, check_finite=False)
+        if not basis.q.shape[1]:
+            return cls(factor, jitter, log_det_k, basis.q, None, 0.0, np.zeros((0,) + y.shape[1:]), solved_y)
+        solved_q = linalg.cho_solve(factor, basis.q, check_finite=False)
+        gram_factor = linalg.cho_factor(basis.q.T @ solved_q, lower=True, check_finite=False)
+        beta = linalg.cho_solve(gram_factor, basis.q.T @ solved_y, check_finite=False)
+        log_det_gram = 2.0 * float(np.sum(np.log(np.diag(gram_factor[0])))) + basis.log_det_r_squared
+        return cls(factor, jitter, log_det_k, solved_q, gram_factor, log_det_gram, beta, solved_y - solved_q @ beta)
+
+    def precision(self, method: str) -> np.ndarray:
+        """Lower triangle of ``W``: ``P = K^-1 - K^-1 Q (Q^T K^-1 Q)^-1 Q^T K^-1`` (REML) or ``K^-1`` (ML)."""
+        precision, info = lapack.dpotri(self.factor[0], lower=1)  # lower triangle of K^-1
+        if info != 0:
+            raise FieldcastError("The covariance matrix could not be inverted; use a model with a nugget.")
+        if method == "reml" and self.gram_factor is not None:
+            half = linalg.solve_triangular(self.gram_factor[0], self.solved_q.T, lower=True, check_finite=False)
+            precision -= half.T @ half
+        return precision
+
+
 def likelihood_terms(
     matrix: np.ndarray, y: np.ndarray, basis: MeanBasis, method: str, pairs: np.ndarray | None = None
 ) -> LikelihoodTerms:
@@ -197,35 +255,21 @@ def likelihood_terms(
         Flat indices ``i * n + j`` (``i > j``) of the sample pairs at which
         the gradient weights are wanted (see :class:`LikelihoodTerms`).
     """
-    factor, jitter = factorise(matrix)
+    solution = GlsSolution.solve(matrix, y, basis)
     n, p = basis.q.shape
-    log_det_k = 2.0 * float(np.sum(np.log(np.diag(factor[0]))))
-    solved_y = linalg.cho_solve(factor, y, check_finite=False)
-    if p:
-        solved_q = linalg.cho_solve(factor, basis.q, check_finite=False)
-        gram_factor = linalg.cho_factor(basis.q.T @ solved_q, lower=True, check_finite=False)
-        beta = linalg.cho_solve(gram_factor, basis.q.T @ solved_y, check_finite=False)
-        weights = solved_y - solved_q @ beta
-        log_det_gram = 2.0 * float(np.sum(np.log(np.diag(gram_factor[0])))) + basis.log_det_r_squared
-    else:
-        beta, weights, log_det_gram = np.zeros(0), solved_y, 0.0
+    weights = solution.weights
     quadratic = float(y @ weights)
     if method == "reml":
-        value = (n - p) * LOG_2PI + log_det_k + log_det_gram + quadratic
+        value = (n - p) * LOG_2PI + solution.log_det_k + solution.log_det_gram + quadratic
     else:
-        value = n * LOG_2PI + log_det_k + quadratic
+        value = n * LOG_2PI + solution.log_det_k + quadratic
     if pairs is None:
-        return LikelihoodTerms(value, weights, beta, None, 0.0, None, jitter)
-    precision, info = lapack.dpotri(factor[0], lower=1)  # lower triangle of K^-1
-    if info != 0:
-        raise FieldcastError("The covariance matrix could not be inverted; use a model with a nugget.")
-    if method == "reml" and p:
-        half = linalg.solve_triangular(gram_factor[0], solved_q.T, lower=True, check_finite=False)
-        precision -= half.T @ half  # P = K^-1 - K^-1 Q (Q^T K^-1 Q)^-1 Q^T K^-1
+        return LikelihoodTerms(value, weights, solution.basis_coefficients, None, 0.0, None, solution.jitter)
+    precision = solution.precision(method)
     residual = precision.take(pairs) - np.outer(weights, weights).take(pairs)
     residual *= 2.0
-    return LikelihoodTerms(value, weights, beta, residual, float(np.trace(precision) - weights @ weights), precision,
-                           jitter)
+    return LikelihoodTerms(value, weights, solution.basis_coefficients, residual,
+                           float(np.trace(precision) - weights @ weights), precision, solution.jitter)
 
 
 @dataclass(frozen=True)
@@ -390,6 +434,15 @@ class LikelihoodObjective:
         self._last = (key, result)
         return result
 
+    def gradient(self, model: CovarianceModel, derivatives: list[tuple[int, np.ndarray, float]],
+                 terms: LikelihoodTerms) -> np.ndarray:
+        """Gradient of ``-2 l`` from the derivatives of :func:`.parameters.covariance_derivatives` at ``model``."""
+        gradient = np.zeros(self.layout.n_parameters)
+        for index, pair_derivative, diagonal_derivative in derivatives:
+            gradient[index] += terms.gradient_term(pair_derivative, diagonal_derivative)
+        gradient[self.layout.index("log_nugget")] = model.nugget * terms.diagonal_weight  # dK/dlog(nugget) = nugget I
+        return gradient
+
     def _evaluate_anew(self, theta: np.ndarray, with_information: bool
                        ) -> tuple[float, np.ndarray, np.ndarray | None]:
         self._check_stop()
@@ -398,11 +451,8 @@ class LikelihoodObjective:
         terms = likelihood_terms(self._matrix(pair_covariance, model.sill), self.y, self.basis, self.method,
                                  self.pairs)
         self.jitter = terms.jitter
-        gradient = np.zeros(self.layout.n_parameters)
-        for index, pair_derivative, diagonal_derivative in derivatives:
-            gradient[index] += terms.gradient_term(pair_derivative, diagonal_derivative)
+        gradient = self.gradient(model, derivatives, terms)
         nugget_index = self.layout.index("log_nugget")
-        gradient[nugget_index] = model.nugget * terms.diagonal_weight
         if not with_information:
             return terms.minus_two_log_likelihood, gradient, None
         a = terms.weights

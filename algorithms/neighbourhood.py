@@ -48,11 +48,18 @@ triangular solve with its set's factor. Everything is done on
 stacks of up to :data:`STACK_SIZE` sets or targets; there is no Python
 loop per target.
 
+Several fields. ``y`` may be an (n, m) matrix of fields observed at the
+same samples that share the covariance and mean model: each neighbour set
+whitens all columns at once (``beta`` is (p, m) per set) and a target's
+``m`` means come from the same ``L^-1 c0`` and trend row; the variance is
+shared (the weights do not depend on ``y``; Cressie 1993, section 3.4).
+Internally ``y`` is always (n, m), with ``m = 1`` for one field.
+
 Nodata. A target with fewer than ``n_terms + 1`` neighbours within the
 search radius (at least one more sample than trend terms; common practice),
 or whose local system is singular (``K`` or ``A`` not numerically positive
 definite, e.g. collinear neighbours under a linear trend), gets NaN for mean
-and variance; :attr:`LocalKrigingPredictor.last_unresolved` counts them.
+(every field) and variance; :attr:`LocalKrigingPredictor.last_unresolved` counts them.
 
 Weights. :meth:`LocalKrigingPredictor.weights` returns the kriging weights
 ``lambda`` of the same systems in sparse form, each target's neighbour
@@ -79,7 +86,7 @@ from .batched import back_substitution, cholesky_stack, forward_substitution
 from .correlation import correlation
 from .covariance import CovarianceModel, Structure
 from .errors import Cancelled, FieldcastError
-from .kriging import as_points, as_values, check_distinct, checked_variance
+from .kriging import as_points, as_value_columns, check_distinct, checked_variance
 from .mean import MeanModel
 
 WORKERS = min(4, os.cpu_count() or 1)
@@ -116,8 +123,9 @@ class LocalKrigingPredictor:
 
     ``xy``, ``values``, ``mean`` and ``covariates`` are as for
     :class:`.kriging.KrigingPredictor` (simple, ordinary or universal kriging
-    by the kind of mean); the first structure of ``covariance`` also shapes
-    the search ellipse.
+    by the kind of mean; ``values`` (n,) for one field or (n, m) for m fields
+    at the same points, with one known mean for all); the first structure of
+    ``covariance`` also shapes the search ellipse.
 
     Parameters
     ----------
@@ -137,7 +145,7 @@ class LocalKrigingPredictor:
                  neighbours: int = 32, search_radius: float | None = None,
                  covariates: np.ndarray | None = None) -> None:
         points = as_points(xy, "Sample coordinates")
-        observed = as_values(values, len(points))
+        observed = as_value_columns(values, len(points))
         self.n = len(points)
         self.minimum_neighbours = mean.n_terms + 1
         if int(neighbours) != neighbours or neighbours < self.minimum_neighbours:
@@ -163,7 +171,8 @@ class LocalKrigingPredictor:
         self.last_unresolved = 0
         self._covariates = None if covariates is None else np.array(covariates, dtype=float).reshape(self.n, -1)
         mean.design(points[:1], None if self._covariates is None else self._covariates[:1])  # checks the columns
-        self._residual = observed - mean.known_mean(self.n)
+        self._single_field = observed.ndim == 1
+        self._residual = (observed - mean.known_mean(1)[0]).reshape(self.n, -1)  # (n, fields)
         self._local_mean = MeanModel(mean.kind, mean.known_value, (0.0, 0.0), 1.0, mean.covariate_names)
         first = covariance.structures[0]
         self._isotropic_in_frame = all(s.azimuth == first.azimuth and s.ratio == first.ratio
@@ -174,7 +183,9 @@ class LocalKrigingPredictor:
     def _covariance(self, dx: np.ndarray, dy: np.ndarray) -> np.ndarray:
         """Latent covariance for offsets in the search frame (see :func:`search_frame`)."""
         if self._isotropic_in_frame:
-            return self._covariance_at(np.hypot(dx, dy))
+            distance = dx * dx
+            distance += dy * dy
+            return self._covariance_at(np.sqrt(distance, out=distance))
         first = self.covariance.structures[0]
         theta = math.radians(first.azimuth)
         minor = dy * first.ratio  # back to CRS offsets: the frame's rotation is orthogonal
@@ -191,23 +202,9 @@ class LocalKrigingPredictor:
         return total
 
     def _set_covariances(self, points: np.ndarray) -> np.ndarray:
-        """Latent covariance matrices (u, k, k) of point sets (u, k, 2) in the search frame.
-
-        With a shared frame the squared distances come from the Gram matrix
-        of the centred points, ``|a - b|^2 = |a|^2 + |b|^2 - 2 a.b`` (one
-        batched product instead of gathering every pair).
-        """
-        if not self._isotropic_in_frame:
-            return self._covariance(points[:, :, None, 0] - points[:, None, :, 0],
-                                    points[:, :, None, 1] - points[:, None, :, 1])
-        centred = points - points.mean(axis=1, keepdims=True)
-        squared = np.einsum("ukj,ukj->uk", centred, centred)
-        gap = centred @ np.swapaxes(centred, 1, 2)
-        gap *= -2.0
-        gap += squared[:, :, None]
-        gap += squared[:, None, :]
-        np.maximum(gap, 0.0, out=gap)
-        return self._covariance_at(np.sqrt(gap, out=gap))
+        """Latent covariance matrices (u, k, k) of point sets (u, k, 2) in the search frame."""
+        return self._covariance(points[:, :, None, 0] - points[:, None, :, 0],
+                                points[:, :, None, 1] - points[:, None, :, 1])
 
     def _design(self, offsets: np.ndarray, covariates: np.ndarray | None) -> np.ndarray:
         """Trend rows at scaled offsets of any leading shape ``(..., 2)``: shape ``(..., p)``."""
@@ -228,12 +225,13 @@ class LocalKrigingPredictor:
         factors, solvable = cholesky_stack(matrices)  # K / sill = L L^T
         covariates = None if self._covariates is None else self._covariates[sets]
         design = self._design((points - centre[:, None, :]) / scale[:, None, None], covariates)
-        white = forward_substitution(factors, np.concatenate([self._residual[sets][:, :, None], design], axis=2))
-        white_values, white_design = white[:, :, 0], white[:, :, 1:]
+        fields = self._residual.shape[1]
+        white = forward_substitution(factors, np.concatenate([self._residual[sets], design], axis=2))
+        white_values, white_design = white[:, :, :fields], white[:, :, fields:]
         trend_factors, trend_solvable = cholesky_stack(np.swapaxes(white_design, 1, 2) @ white_design)
-        projected = np.einsum("uji,uj->ui", white_design, white_values)[:, :, None]
-        coefficients = back_substitution(trend_factors, forward_substitution(trend_factors, projected))[:, :, 0]
-        white_residual = white_values - np.einsum("uij,uj->ui", white_design, coefficients)  # L^-1 (y - F beta)
+        projected = np.einsum("uji,ujf->uif", white_design, white_values)
+        coefficients = back_substitution(trend_factors, forward_substitution(trend_factors, projected))  # (u, p, m)
+        white_residual = white_values - np.einsum("uij,ujf->uif", white_design, coefficients)  # L^-1 (y - F beta)
         return {"factors": factors, "white_design": white_design, "trend_factors": trend_factors,
                 "coefficients": coefficients, "white_residual": white_residual,
                 "solvable": solvable & trend_solvable, "centre": centre, "scale": scale}
@@ -259,9 +257,9 @@ class LocalKrigingPredictor:
 
     def _predict_group(self, targets: np.ndarray, covariates0: np.ndarray | None, neighbour_index: np.ndarray,
                        pool: ThreadPoolExecutor) -> tuple[np.ndarray, np.ndarray]:
-        """Mean and variance of targets (b, 2, search frame) that all have ``k`` neighbours (b, k)."""
+        """Means (b, fields) and variance (b,) of targets (b, 2, search frame) that all have ``k`` neighbours (b, k)."""
         sets, set_of_target, system = self._systems(neighbour_index, pool)
-        mean = np.empty(len(targets))
+        mean = np.empty((len(targets), self._residual.shape[1]))
         variance = np.empty(len(targets))
 
         def solve(start: int) -> None:
@@ -269,9 +267,9 @@ class LocalKrigingPredictor:
             chosen = set_of_target[rows]
             white_cross, gap = self._target_terms(targets[rows], None if covariates0 is None else covariates0[rows],
                                                   sets, chosen, system)
-            mean[rows] = (np.einsum("bi,bi->b", system["white_residual"][chosen], white_cross)
-                          + np.einsum("bi,bi->b", system["coefficients"][chosen], gap)
-                          + self.mean.known_mean(len(chosen)))
+            mean[rows] = (np.einsum("bif,bi->bf", system["white_residual"][chosen], white_cross)
+                          + np.einsum("bif,bi->bf", system["coefficients"][chosen], gap)
+                          + self.mean.known_mean(1)[0])
             gap -= np.einsum("bji,bj->bi", system["white_design"][chosen], white_cross)
             white_gap = forward_substitution(system["trend_factors"][chosen], gap[:, :, None])[:, :, 0]
             variance[rows] = self.covariance.field_variance + self.covariance.sill * (
@@ -285,7 +283,7 @@ class LocalKrigingPredictor:
 
     def _predict_chunk(self, targets: np.ndarray, covariates0: np.ndarray | None, pool: ThreadPoolExecutor
                        ) -> tuple[np.ndarray, np.ndarray]:
-        """Mean and variance (NaN where unresolved) for one chunk of targets."""
+        """Means (b, fields) and variance (b,) (NaN where unresolved) for one chunk of targets."""
         targets = search_frame(self.covariance.structures[0], targets)
         return self._predict_found(targets, covariates0, self._nearest(targets, self.neighbours), pool)
 
@@ -305,8 +303,11 @@ class LocalKrigingPredictor:
 
     def _predict_found(self, targets: np.ndarray, covariates0: np.ndarray | None, found: np.ndarray,
                        pool: ThreadPoolExecutor) -> tuple[np.ndarray, np.ndarray]:
-        """Mean and latent variance (NaN where unresolved) of targets (b, 2, search frame) from neighbours (b, k)."""
-        mean = np.full(len(targets), np.nan)
+        """Means (b, fields) and latent variance (b,), NaN where unresolved, of targets (b, 2) from neighbours (b, k).
+
+        Targets are in the search frame.
+        """
+        mean = np.full((len(targets), self._residual.shape[1]), np.nan)
         variance = np.full(len(targets), np.nan)
         for k, rows in self._groups_by_count(found):
             mean[rows], variance[rows] = self._predict_group(
@@ -329,8 +330,11 @@ class LocalKrigingPredictor:
 
         Returns
         -------
-        mean, variance : ndarray of shape (M,)
-            NaN for targets with too few neighbours within the search radius
+        mean : ndarray of shape (M,), or (M, m) for m fields
+            Prediction (u), one column per field.
+        variance : ndarray of shape (M,)
+            Error variance (u2), shared by the fields. Both are NaN (in every
+            column) for targets with too few neighbours within the search radius
             (or a singular local system), counted in :attr:`last_unresolved`.
         """
         targets = as_points(xy0, "Prediction locations")
@@ -419,9 +423,10 @@ class LocalKrigingPredictor:
                    should_stop: Callable[[], bool] | None) -> tuple[np.ndarray, np.ndarray]:
         """Mean and variance of ``count`` targets, ``solve``-d ``size`` at a time with progress and cancel.
 
+        The mean is (count,) for one field given as (n,) values, else (count, fields).
         Sets :attr:`last_unresolved`.
         """
-        prediction = np.empty(count)
+        prediction = np.empty((count, self._residual.shape[1]))
         variance = np.empty(count)
         chunks = [slice(start, start + size) for start in range(0, count, size)]
         with ThreadPoolExecutor(max_workers=WORKERS) as pool:
@@ -431,8 +436,8 @@ class LocalKrigingPredictor:
                 prediction[chunk], variance[chunk] = solve(chunk, pool)
                 if progress is not None:
                     progress(done / len(chunks))
-        self.last_unresolved = int(np.count_nonzero(np.isnan(prediction)))
-        return prediction, variance
+        self.last_unresolved = int(np.count_nonzero(np.isnan(variance)))
+        return (prediction[:, 0] if self._single_field else prediction), variance
 
     def leave_one_out(self, *, progress: Callable[[float], None] | None = None,
                       should_stop: Callable[[], bool] | None = None) -> tuple[np.ndarray, np.ndarray]:
@@ -448,10 +453,12 @@ class LocalKrigingPredictor:
 
         Returns
         -------
-        mean, variance : ndarray of shape (n,)
-            Prediction of each sample value (u) and prediction-error variance
-            of the observation, nugget included (u2): the latent kriging
-            variance plus the nugget. NaN for samples with too few other
+        mean : ndarray of shape (n,), or (n, m) for m fields
+            Prediction of each sample value (u).
+        variance : ndarray of shape (n,)
+            Prediction-error variance of the observation, nugget included
+            (u2): the latent kriging variance plus the nugget, shared by the
+            fields. Both NaN for samples with too few other
             samples within the search radius (or a singular local system),
             counted in :attr:`last_unresolved`.
         """

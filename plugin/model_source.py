@@ -8,8 +8,9 @@ import numpy as np
 
 from ..algorithms.crs import parse_crs, same_crs
 from ..algorithms.errors import FieldcastError
-from ..algorithms.fitting import FitResult, fit_model
+from ..algorithms.fitting import FitOptions, FitResult, fit_model
 from ..algorithms.model_file import ModelDocument
+from ..algorithms.shared_fit import fit_shared
 from ..algorithms.transform import Transform
 from .working_crs import WorkingCrs
 
@@ -39,9 +40,26 @@ def fit_document(xy: np.ndarray, values: np.ndarray, transform: Transform, worki
     """
     result = fit_model(xy, values, kernel=settings.kernel, anisotropy=settings.anisotropy, mean=settings.trend,
                        method=settings.method, progress=progress, should_stop=should_stop)
-    document = ModelDocument(result.covariance, result.mean, result.coefficients, transform, working.wkt,
-                             working.units, field, result.summary())
-    return document, result
+    return result_document(result, transform, working, field), result
+
+
+def result_document(result: FitResult, transform: Transform, working: WorkingCrs, field: str) -> ModelDocument:
+    """A fit result as a model document of ``field`` in the working CRS."""
+    return ModelDocument(result.covariance, result.mean, result.coefficients, transform, working.wkt, working.units,
+                         field, result.summary())
+
+
+def fit_shared_documents(xy: np.ndarray, values: np.ndarray, transform: Transform, working: WorkingCrs,
+                         fields: list[str], settings: FitSettings, progress: Callable[[float], None] | None = None,
+                         should_stop: Callable[[], bool] | None = None) -> list[ModelDocument]:
+    """One correlation model fitted jointly to several fields (``values`` (n, k)), as one document per field.
+
+    See :mod:`..algorithms.shared_fit`: every document holds the shared model at its field's scale.
+    """
+    options = FitOptions(kernel=settings.kernel, anisotropy=settings.anisotropy, mean=settings.trend,
+                         method=settings.method, progress=progress, should_stop=should_stop)
+    results = fit_shared(xy, values, options, fields)
+    return [result_document(result, transform, working, field) for result, field in zip(results, fields)]
 
 
 def load_document(path: str, working: WorkingCrs) -> ModelDocument:

@@ -3,22 +3,26 @@ from __future__ import annotations
 
 import os
 import re
+from dataclasses import dataclass
 
+import numpy as np
 from qgis.core import (
     QgsProcessingException,
     QgsProcessingOutputNumber,
+    QgsProcessingParameterBoolean,
     QgsProcessingParameterField,
     QgsProcessingParameterFolderDestination,
 )
 
 from ..algorithms.errors import Cancelled, FieldcastError
 from ..algorithms.mean import MeanModel
+from ..algorithms.transform import Transform
 from .algorithm_base import check_neighbours, progress_callback
 from .help_text import BACKTRANSFORM_HELP, FIT_HELP, GRID_HELP, NEIGHBOURHOOD_HELP, TARGET_CRS_HELP, compose_help
-from .model_source import describe_document, fit_document
+from .model_source import FitSettings, describe_document, fit_document, fit_shared_documents
 from .sample_reader import prepare_samples, read_layer_samples
 from .surface import SurfaceScale
-from .surface_algorithm import SurfaceAlgorithm
+from .surface_algorithm import Neighbourhood, SurfaceAlgorithm
 
 FIT_SHARE = 0.4
 """Share of each field's part of the progress bar taken by the fit; kriging and writing take the rest."""
@@ -46,6 +50,7 @@ class PredictManyAlgorithm(SurfaceAlgorithm):
     """Fit a model and krige prediction and variance rasters for each of several fields of one layer."""
 
     FIELDS = "FIELDS"
+    SHARED_MODEL = "SHARED_MODEL"
     OUTPUT_FOLDER = "OUTPUT_FOLDER"
     COUNT = "COUNT"
     ICON = "predictmany.svg"
@@ -56,11 +61,19 @@ class PredictManyAlgorithm(SurfaceAlgorithm):
         "For each chosen field of one point layer: fits a covariance model with the settings below (as 'Fit "
         "covariance model') and kriges its prediction and variance rasters (as 'Predict surface' with that model), "
         "writing three files per field into one folder. The same as one fit and one prediction per field, in one "
-        "run: fields sampled at the same locations share the grid and mask.",
+        "run: fields sampled at the same locations share the grid and mask, and with one correlation model for "
+        "all fields also the kriging systems.",
         [("Sample points", "The point layer."),
          ("Value fields", "One or more numeric attributes. Each field's NULL values are skipped "
           "separately, so the fields may have different samples; samples at one location are averaged."),
          *FIT_HELP,
+         ("One correlation model for all fields", "Off (default): each field gets a model of its own. On: one "
+          "correlation model (family, ranges, anisotropy, nugget share) is fitted to all fields jointly, each field "
+          "keeping its own sill and mean (the intrinsic correlation model: the fields' REML log-likelihoods are "
+          "summed, each field's scale estimated from its own data). Every field must then have values at the same "
+          "samples, and the fit takes up to 2,000 samples. The kriging weights are then the same for every field, "
+          "so one kriging pass writes all the rasters: much faster for many fields. Choose it when the fields vary "
+          "alike in space (e.g. metals from one source); check it with 'Cross-validate' on a field's model file."),
          *GRID_HELP,
          BACKTRANSFORM_HELP,
          *NEIGHBOURHOOD_HELP,
@@ -71,7 +84,8 @@ class PredictManyAlgorithm(SurfaceAlgorithm):
           "names are made safe for file names: characters other than letters, digits, '-' and '.' become '_'. "
           "Every field's samples are checked before any file is written. Fields are done one after another and "
           "each field's files appear when they are complete: cancelling leaves the files of the fields already "
-          "finished (the log lists them) and nothing of the field in progress."),
+          "finished (the log lists them) and nothing of the field in progress. With one model for all fields, all "
+          "files appear together at the end, and cancelling leaves none."),
          ("Count", "Number of fields predicted.")],
     )
 
@@ -81,6 +95,8 @@ class PredictManyAlgorithm(SurfaceAlgorithm):
             self.FIELDS, self.tr("Value fields"), parentLayerParameterName=self.INPUT,
             type=QgsProcessingParameterField.Numeric, allowMultiple=True))
         self.add_fit_parameters()
+        self.addParameter(QgsProcessingParameterBoolean(
+            self.SHARED_MODEL, self.tr("One correlation model for all fields"), defaultValue=False))
         self.add_grid_parameters()
         self.add_backtransform_parameter()
         self.add_neighbourhood_parameters()
@@ -135,49 +151,117 @@ class PredictManyAlgorithm(SurfaceAlgorithm):
         fields = self.chosen_fields(parameters, context, source)
         folder = self.output_folder(parameters, context)
         transform, settings = self.fit_choices(parameters, context)
-        neighbourhood = self.neighbourhood(parameters, context)
-        scale = SurfaceScale(transform, self.choice(parameters, self.BACKTRANSFORM, context))
         target = self.parameterAsCrs(parameters, self.TARGET_CRS, context)
-        stems = file_stems(fields)
         prepared = []
         for field in fields:  # every field is checked before any file is written
             layer_samples = read_layer_samples(source, field, target, feedback)
             prepared.append((layer_samples, prepare_samples(layer_samples, transform, feedback)))
-        check_neighbours(neighbourhood.neighbours, MeanModel.for_data(settings.trend, prepared[0][1].xy), "cell")
+        run = FieldsRun(prepared, file_stems(fields), folder, transform, settings,
+                        self.neighbourhood(parameters, context),
+                        SurfaceScale(transform, self.choice(parameters, self.BACKTRANSFORM, context)))
+        check_neighbours(run.neighbourhood.neighbours, MeanModel.for_data(settings.trend, prepared[0][1].xy), "cell")
+        if self.parameterAsBoolean(parameters, self.SHARED_MODEL, context):
+            self.predict_shared(run, parameters, context, feedback)
+        else:
+            self.predict_each(run, parameters, context, feedback)
+        feedback.setProgress(100.0)
+        return {self.OUTPUT_FOLDER: folder, self.COUNT: len(fields)}
+
+    def predict_each(self, run: FieldsRun, parameters, context, feedback) -> None:
+        """A model of its own per field, fitted and kriged field after field (see the help)."""
         grids: dict[tuple[str, bytes], tuple] = {}
         finished: list[str] = []
-        share = 100.0 / len(fields)
-        for index, (layer_samples, samples) in enumerate(prepared):
+        share = 100.0 / len(run.prepared)
+        for index, (layer_samples, samples) in enumerate(run.prepared):
             field, start = layer_samples.field, index * share
             try:
                 if feedback.isCanceled():
                     raise Cancelled("Cancelled between fields.")
-                feedback.pushInfo(f"Field {index + 1} of {len(fields)}: {field}. Fitting with {settings.describe()}.")
-                document, _ = fit_document(samples.xy, samples.values, transform, layer_samples.working, field,
-                                           settings, progress_callback(feedback, start, start + FIT_SHARE * share),
+                feedback.pushInfo(f"Field {index + 1} of {len(run.prepared)}: {field}. Fitting with "
+                                  f"{run.settings.describe()}.")
+                document, _ = fit_document(samples.xy, samples.values, run.transform, layer_samples.working, field,
+                                           run.settings, progress_callback(feedback, start, start + FIT_SHARE * share),
                                            feedback.isCanceled)
-                for warning in document.fit.get("warnings", []):
-                    feedback.pushWarning(f"{field}: {warning}")
-                feedback.pushInfo(describe_document(document))
+                log_document(document, feedback)
                 key = (document.crs_wkt, samples.xy.tobytes())
                 if key in grids:
                     feedback.pushInfo("Same sample locations as an earlier field: its grid and mask are reused.")
                 else:
                     grids[key] = self.grid_and_mask(parameters, context, samples.xy, document.crs_wkt,
                                                     document.units, feedback, n_bands=2)
-                grid, inside = grids[key]
-                stem = os.path.join(folder, stems[field])
-                self.krige_surface(document, samples, grid, inside, scale, neighbourhood,
-                                   {"prediction": f"{stem}_prediction.tif", "variance": f"{stem}_variance.tif"},
-                                   feedback, progress_callback(feedback, start + FIT_SHARE * share, start + share))
-                document.save(f"{stem}_model.json")
+                self.krige_surface([document], samples.xy, samples.values, *grids[key], run.scale, run.neighbourhood,
+                                   [(field, run.raster_paths(field))], feedback,
+                                   progress_callback(feedback, start + FIT_SHARE * share, start + share))
+                document.save(run.model_path(field))
             except Cancelled as exc:
-                kept = f"the files of {', '.join(finished)} are complete and stay in {folder}" if finished else \
+                kept = f"the files of {', '.join(finished)} are complete and stay in {run.folder}" if finished else \
                     "no file was written"
                 raise QgsProcessingException(self.tr(f"Cancelled at field {field}: none of its files was written; "
                                                      f"{kept}.")) from exc
             finished.append(field)
-            feedback.pushInfo(f"Wrote {stems[field]}_model.json, {stems[field]}_prediction.tif and "
-                              f"{stems[field]}_variance.tif.")
-        feedback.setProgress(100.0)
-        return {self.OUTPUT_FOLDER: folder, self.COUNT: len(finished)}
+            feedback.pushInfo(f"Wrote {run.written(field)}.")
+
+    def predict_shared(self, run: FieldsRun, parameters, context, feedback) -> None:
+        """One correlation model fitted to all fields jointly; one kriging pass writes every field's rasters."""
+        fields = [layer_samples.field for layer_samples, _ in run.prepared]
+        first = run.prepared[0][1]
+        for layer_samples, samples in run.prepared[1:]:
+            if not np.array_equal(samples.xy, first.xy):
+                raise FieldcastError(
+                    f"One correlation model for all fields needs every field measured at the same samples, but "
+                    f"{layer_samples.field!r} has values at {len(samples.xy)} places and {fields[0]!r} at "
+                    f"{len(first.xy)} (NULL values are skipped field by field). Turn off 'One correlation model "
+                    "for all fields', or choose fields without gaps.")
+        values = np.column_stack([samples.values for _, samples in run.prepared])
+        working = run.prepared[0][0].working
+        feedback.pushInfo(f"Fitting one correlation model to the {len(fields)} fields jointly with "
+                          f"{run.settings.describe()}.")
+        try:
+            documents = fit_shared_documents(first.xy, values, run.transform, working, fields, run.settings,
+                                             progress_callback(feedback, 0, 100 * FIT_SHARE), feedback.isCanceled)
+            for document in documents:
+                log_document(document, feedback)
+            grid, inside = self.grid_and_mask(parameters, context, first.xy, working.wkt, working.units, feedback,
+                                              n_bands=2)
+            self.krige_surface(documents, first.xy, values, grid, inside, run.scale, run.neighbourhood,
+                               [(field, run.raster_paths(field)) for field in fields], feedback,
+                               progress_callback(feedback, 100 * FIT_SHARE, 100))
+        except Cancelled as exc:
+            raise QgsProcessingException(self.tr("Cancelled: no file was written.")) from exc
+        for document, field in zip(documents, fields):
+            document.save(run.model_path(field))
+            feedback.pushInfo(f"Wrote {run.written(field)}.")
+
+
+def log_document(document, feedback) -> None:
+    """The fit's warnings and the model, in the log."""
+    for warning in document.fit.get("warnings", []):
+        feedback.pushWarning(f"{document.field}: {warning}")
+    feedback.pushInfo(describe_document(document))
+
+
+@dataclass(frozen=True)
+class FieldsRun:
+    """What every field of one run shares: samples per field, file names, settings."""
+
+    prepared: list
+    stems: dict[str, str]
+    folder: str
+    transform: Transform
+    settings: FitSettings
+    neighbourhood: Neighbourhood
+    scale: SurfaceScale
+
+    def raster_paths(self, field: str) -> dict[str, str]:
+        """The prediction and variance GeoTIFFs of a field."""
+        stem = os.path.join(self.folder, self.stems[field])
+        return {"prediction": f"{stem}_prediction.tif", "variance": f"{stem}_variance.tif"}
+
+    def model_path(self, field: str) -> str:
+        """The model file of a field."""
+        return os.path.join(self.folder, f"{self.stems[field]}_model.json")
+
+    def written(self, field: str) -> str:
+        """The file names of a field, for the log."""
+        stem = self.stems[field]
+        return f"{stem}_model.json, {stem}_prediction.tif and {stem}_variance.tif"

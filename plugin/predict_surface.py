@@ -84,8 +84,9 @@ class PredictSurfaceAlgorithm(SurfaceAlgorithm):
         support = self.choice(parameters, self.SUPPORT, context)
         scale = SurfaceScale(document.transform, self.choice(parameters, self.BACKTRANSFORM, context), support,
                              threshold)
-        self.krige_surface(document, samples, grid, inside, scale, self.neighbourhood(parameters, context), paths,
-                           feedback, progress_callback(feedback, 30, 100))
+        self.krige_surface([document], samples.xy, samples.values, grid, inside, scale,
+                           self.neighbourhood(parameters, context), [(samples.field, paths)], feedback,
+                           progress_callback(feedback, 30, 100))
         outputs = {self.OUTPUT: paths["prediction"], self.OUTPUT_VARIANCE: paths["variance"],
                    self.OUTPUT_EXCEEDANCE: paths["exceedance"]}
         return {name: path for name, path in outputs.items() if path}

@@ -9,7 +9,7 @@ cell (cell support, block kriging: :func:`..algorithms.block.block_predict`).
 from __future__ import annotations
 
 import contextlib
-from collections.abc import Callable, Mapping
+from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass
 from typing import Optional
 
@@ -27,14 +27,15 @@ from ..algorithms.transform import Transform
 BACKTRANSFORMS = ("median", "mean")
 SUPPORTS = ("point", "cell")
 SURFACE_KINDS = ("prediction", "variance", "exceedance")
-"""The rasters :func:`write_surface` can write, in band-description order."""
+"""The rasters :func:`write_surfaces` can write, in band-description order."""
 BLOCK_CELLS = 1 << 20
 """Most cells predicted per block of rows (about 50 MB of working arrays with a few hundred samples)."""
 TILE_ROWS = 256
 
 CellPredictor = Callable[[np.ndarray, Callable[[float], None], Optional[Callable[[], bool]]],
                          tuple[np.ndarray, np.ndarray]]
-"""``predict(centres (m, 2), progress, should_stop) -> (mean, variance)`` in the modelling scale."""
+"""``predict(centres (m, 2), progress, should_stop) -> (mean, variance)`` in the modelling scale; ``mean`` has
+one column per field when the predictor krigs several fields at once."""
 
 
 def cell_predictor(predictor: KrigingPredictor | LocalKrigingPredictor, support: str,
@@ -116,49 +117,79 @@ def block_rows(grid: GridSpec) -> int:
     return TILE_ROWS * max(1, BLOCK_CELLS // (TILE_ROWS * grid.n_cols))
 
 
-def write_surface(predict: CellPredictor, grid: GridSpec, inside: np.ndarray | None, scale: SurfaceScale,
-                  field: str, crs_wkt: str, paths: Mapping[str, str], metadata: Mapping[str, object],
-                  progress: Callable[[float], None] | None = None,
-                  should_stop: Callable[[], bool] | None = None) -> int:
-    """Predict every cell (those with ``inside`` True) and write the GeoTIFFs; returns the unresolved cells.
+@dataclass(frozen=True)
+class FieldRasters:
+    """Where one field's rasters go, for :func:`write_surfaces`.
 
-    ``paths`` maps kinds of :data:`SURFACE_KINDS` to destination files (kinds left out are not written).
-    Cells outside the mask, cells the predictor leaves NaN (a local neighbourhood with too few
-    samples in range) and values that do not fit Float32 are stored as nodata; the count returned
-    is of the NaN cells inside the mask.
+    Attributes
+    ----------
+    field : str
+        Attribute name, for the band descriptions.
+    paths : Mapping[str, str]
+        Destination file of each kind of :data:`SURFACE_KINDS` to write (kinds left out are not written).
+    metadata : Mapping[str, object]
+        GeoTIFF metadata of the field's files.
+    variance_factor : float
+        The field's kriging variance over the predictor's (its scale under a model shared by
+        several fields; 1 for a field kriged with its own model).
+    """
+
+    field: str
+    paths: Mapping[str, str]
+    metadata: Mapping[str, object]
+    variance_factor: float = 1.0
+
+
+def write_surfaces(predict: CellPredictor, grid: GridSpec, inside: np.ndarray | None, scale: SurfaceScale,
+                   crs_wkt: str, fields: Sequence[FieldRasters], progress: Callable[[float], None] | None = None,
+                   should_stop: Callable[[], bool] | None = None) -> int:
+    """Predict every cell (those with ``inside`` True) and write each field's GeoTIFFs; returns the unresolved cells.
+
+    ``predict`` gives one mean column per field of ``fields`` (shape (m,) for one field, (m, k) for k)
+    and one variance, which each field scales by its ``variance_factor``. Cells outside the mask,
+    cells the predictor leaves NaN (a local neighbourhood with too few samples in range) and values
+    that do not fit Float32 are stored as nodata; the count returned is of the NaN cells inside the mask.
 
     Raises
     ------
     Cancelled
         When ``should_stop()`` turns True; no output file is left.
     """
-    descriptions = scale.descriptions(field)
-    kinds = [kind for kind in SURFACE_KINDS if paths.get(kind)]
     step = block_rows(grid)
     unresolved = 0
     with contextlib.ExitStack() as stack:
-        writers = {kind: stack.enter_context(GeoTiffWriter(paths[kind], grid, 1, crs_wkt, [descriptions[kind]],
-                                                            metadata)) for kind in kinds}
+        writers = []
+        for output in fields:
+            descriptions = scale.descriptions(output.field)
+            kinds = [kind for kind in SURFACE_KINDS if output.paths.get(kind)]
+            writers.append({kind: stack.enter_context(GeoTiffWriter(output.paths[kind], grid, 1, crs_wkt,
+                                                                     [descriptions[kind]], output.metadata))
+                            for kind in kinds})
         for start in range(0, grid.n_rows, step):
             if should_stop is not None and should_stop():
                 raise Cancelled("Prediction was cancelled.")
             stop = min(start + step, grid.n_rows)
             centres = grid.cell_centres(start, stop)
             keep = np.ones(len(centres), bool) if inside is None else inside[start:stop].ravel()
-            bands = {kind: np.full(len(centres), np.nan) for kind in kinds}
+            bands = [{kind: np.full(len(centres), np.nan) for kind in field_writers} for field_writers in writers]
             if keep.any():
                 def block_progress(fraction: float, start: int = start, stop: int = stop) -> None:
                     if progress is not None:
                         progress((start + fraction * (stop - start)) / grid.n_rows)
 
                 mean, variance = predict(centres[keep], block_progress, should_stop)
-                unresolved += int(np.count_nonzero(np.isnan(mean)))
-                for kind, values in scale.layers(mean, variance, kinds).items():
-                    bands[kind][keep] = values
-            for kind, writer in writers.items():
-                writer.write_block(0, start, bands[kind])
+                mean = mean.reshape(len(variance), -1)
+                unresolved += int(np.count_nonzero(np.isnan(variance)))
+                for column, (output, field_bands) in enumerate(zip(fields, bands)):
+                    layers = scale.layers(mean[:, column], variance * output.variance_factor, list(field_bands))
+                    for kind, values in layers.items():
+                        field_bands[kind][keep] = values
+            for field_writers, field_bands in zip(writers, bands):
+                for kind, writer in field_writers.items():
+                    writer.write_block(0, start, field_bands[kind])
             if progress is not None:
                 progress(stop / grid.n_rows)
-        for writer in writers.values():
-            writer.commit()
+        for field_writers in writers:
+            for writer in field_writers.values():
+                writer.commit()
     return unresolved

@@ -8,7 +8,7 @@ kriging of a grid into GeoTIFF files with its log lines.
 """
 from __future__ import annotations
 
-from collections.abc import Callable, Mapping
+from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass
 
 import numpy as np
@@ -18,16 +18,18 @@ from ..algorithms.grid import GridSpec
 from ..algorithms.kriging import KrigingPredictor
 from ..algorithms.model_file import ModelDocument
 from ..algorithms.neighbourhood import LocalKrigingPredictor
+from ..algorithms.neighbourhood_check import CHECK_SAMPLE_LIMIT, grid_targets, neighbourhood_gap
 from .algorithm_base import check_neighbours, search_words
 from .raster_algorithm import RasterAlgorithm
-from .sample_reader import ModelSamples
-from .surface import BACKTRANSFORMS, SurfaceScale, cell_predictor, write_surface
+from .surface import BACKTRANSFORMS, FieldRasters, SurfaceScale, cell_predictor, write_surfaces
 
 GLOBAL_SAMPLE_LIMIT = 5000
 """Most samples kriged all together when NEIGHBOURS is 0; above it each cell uses its nearest
 :data:`AUTOMATIC_NEIGHBOURS` (a dense system of 5,000 samples already holds 200 MB and solves slowly)."""
 AUTOMATIC_NEIGHBOURS = 64
 """Neighbours per cell chosen for NEIGHBOURS = 0 with more than :data:`GLOBAL_SAMPLE_LIMIT` samples."""
+GAP_WARNING = 0.01
+"""Departure of local from global kriging (fraction of the sill) above which the log warns."""
 
 
 @dataclass(frozen=True)
@@ -46,16 +48,17 @@ class Neighbourhood:
     neighbours: int = 0
     search_radius: float | None = None
 
-    def predictor(self, samples: ModelSamples, document: ModelDocument, support: str,
+    def predictor(self, xy: np.ndarray, values: np.ndarray, document: ModelDocument, support: str,
                   feedback) -> KrigingPredictor | LocalKrigingPredictor:
-        """The kriging predictor for these samples and model, with the choice said in the log.
+        """The kriging predictor for these samples (``values`` (n,), or (n, k) for k fields) and model, with the
+        choice said in the log.
 
         Raises
         ------
         FieldcastError
             If NEIGHBOURS is too small for the mean model, or local kriging is asked for cell support.
         """
-        count = len(samples.values)
+        count = len(values)
         neighbours = self.neighbours
         if neighbours == 0 and count > GLOBAL_SAMPLE_LIMIT and support == "point":
             neighbours = AUTOMATIC_NEIGHBOURS
@@ -69,15 +72,37 @@ class Neighbourhood:
                 feedback.pushWarning(f"Cell support krigs all {count:,} samples together, which is slow and "
                                      "memory-hungry at this size; point support would use local neighbourhoods.")
             feedback.pushInfo(f"Kriging from all {count} samples.")
-            return KrigingPredictor(samples.xy, samples.values, document.covariance, document.mean)
+            return KrigingPredictor(xy, values, document.covariance, document.mean)
         if support == "cell":
             raise FieldcastError("Cell support is computed from all samples (block kriging); local "
                                  "neighbourhoods are for point support. Set NEIGHBOURS to 0, or SUPPORT to point.")
         check_neighbours(neighbours, document.mean, "cell")
         feedback.pushInfo(f"Local kriging: each cell from its {min(neighbours, count)} nearest "
                           f"samples{search_words(self.search_radius, document.units)}.")
-        return LocalKrigingPredictor(samples.xy, samples.values, document.covariance, document.mean,
+        return LocalKrigingPredictor(xy, values, document.covariance, document.mean,
                                      neighbours=neighbours, search_radius=self.search_radius)
+
+    @staticmethod
+    def log_gap(predictor: LocalKrigingPredictor, xy: np.ndarray, values: np.ndarray, grid: GridSpec,
+                inside: np.ndarray | None, feedback) -> None:
+        """Say how far local kriging departs from kriging with all samples at a few cells (up to
+        :data:`..algorithms.neighbourhood_check.CHECK_SAMPLE_LIMIT` samples), with advice above 1 % of the sill."""
+        if len(xy) > CHECK_SAMPLE_LIMIT:
+            return
+        local = LocalKrigingPredictor(xy, values, predictor.covariance, predictor.mean,
+                                      neighbours=predictor.neighbours, search_radius=predictor.search_radius)
+        gap = neighbourhood_gap(local, xy, values, grid_targets(grid, inside))
+        if not gap.targets:
+            return
+        words = (f"Neighbourhood check: at {gap.targets} cells drawn at random, local kriging differs from kriging "
+                 f"with all {len(xy)} samples by up to {gap.prediction:.1%} of the sill in the prediction and "
+                 f"{gap.variance:.1%} in the variance (modelling scale).")
+        if max(gap.prediction, gap.variance) > GAP_WARNING:
+            feedback.pushWarning(words + " More neighbours, or NEIGHBOURS = 0 (all samples), bring it closer: the "
+                                 "model's far-reaching correlation (long range, spherical shape or large nugget "
+                                 "share) makes far samples matter.")
+        else:
+            feedback.pushInfo(words)
 
     def log_unresolved(self, unresolved: int, feedback) -> None:
         """Say how many cells were left nodata for want of neighbours (nothing when none were)."""
@@ -101,25 +126,34 @@ class SurfaceAlgorithm(RasterAlgorithm):
         return Neighbourhood(*self.neighbourhood_choice(parameters, context))
 
     @staticmethod
-    def krige_surface(document: ModelDocument, samples: ModelSamples, grid: GridSpec, inside: np.ndarray | None,
-                      scale: SurfaceScale, neighbourhood: Neighbourhood, paths: Mapping[str, str], feedback,
+    def krige_surface(documents: Sequence[ModelDocument], xy: np.ndarray, values: np.ndarray, grid: GridSpec,
+                      inside: np.ndarray | None, scale: SurfaceScale, neighbourhood: Neighbourhood,
+                      outputs: Sequence[tuple[str, Mapping[str, str]]], feedback,
                       progress: Callable[[float], None]) -> None:
-        """Krige every cell of ``grid`` and write the rasters named in ``paths`` (see :func:`.surface.write_surface`).
+        """Krige every cell of ``grid`` and write the rasters of ``outputs`` (see :func:`.surface.write_surfaces`).
+
+        One field: ``values`` (n,), one document and one ``(field name, paths)`` output. Several fields
+        sampled at the same places and sharing one correlation model: ``values`` (n, k), and per field
+        its document (the shared model at the field's scale) and its output; one predictor krigs them all.
 
         Raises
         ------
         Cancelled
-            When the feedback is cancelled; no file of ``paths`` is left.
+            When the feedback is cancelled; no file of ``outputs`` is left.
         """
-        predictor = neighbourhood.predictor(samples, document, scale.support, feedback)
-        metadata = {"fieldcast_model": document.to_dict(), "fieldcast_backtransform": scale.backtransform,
-                    "fieldcast_support": scale.support}
+        predictor = neighbourhood.predictor(xy, values, documents[0], scale.support, feedback)
+        settings = {"fieldcast_backtransform": scale.backtransform, "fieldcast_support": scale.support}
         if isinstance(predictor, LocalKrigingPredictor):
-            metadata["fieldcast_neighbours"] = predictor.neighbours
+            settings["fieldcast_neighbours"] = predictor.neighbours
             if neighbourhood.search_radius is not None:
-                metadata["fieldcast_search_radius"] = neighbourhood.search_radius
+                settings["fieldcast_search_radius"] = neighbourhood.search_radius
         if scale.threshold is not None:
-            metadata["fieldcast_threshold"] = scale.threshold
-        unresolved = write_surface(cell_predictor(predictor, scale.support, grid.pixel_size), grid, inside, scale,
-                                   samples.field, document.crs_wkt, paths, metadata, progress, feedback.isCanceled)
+            settings["fieldcast_threshold"] = scale.threshold
+        if isinstance(predictor, LocalKrigingPredictor):
+            neighbourhood.log_gap(predictor, xy, values if values.ndim == 1 else values[:, 0], grid, inside, feedback)
+        rasters = [FieldRasters(field, paths, {"fieldcast_model": document.to_dict(), **settings},
+                                document.covariance.sill / documents[0].covariance.sill)
+                   for document, (field, paths) in zip(documents, outputs)]
+        unresolved = write_surfaces(cell_predictor(predictor, scale.support, grid.pixel_size), grid, inside, scale,
+                                    documents[0].crs_wkt, rasters, progress, feedback.isCanceled)
         neighbourhood.log_unresolved(unresolved, feedback)

@@ -18,6 +18,7 @@ from fieldcast.algorithms.kriging import KrigingPredictor
 from fieldcast.algorithms.mean import MeanModel
 from fieldcast.algorithms.model_file import ModelDocument
 from fieldcast.algorithms.neighbourhood import LocalKrigingPredictor
+from fieldcast.algorithms.neighbourhood_check import CHECK_TARGETS, grid_targets, neighbourhood_gap
 from fieldcast.algorithms.transform import Transform
 from fieldcast.plugin import surface, surface_algorithm
 from qgis_support import fieldcast_plugin, point_layer, qgis_processing  # noqa: F401 - fixtures
@@ -78,6 +79,20 @@ def test_neighbours_k_is_the_engine_local_kriging(qgis_processing, zinc, meuse):
     np.testing.assert_allclose(prediction, expected, rtol=1e-6)
     np.testing.assert_allclose(variance, expected_variance, rtol=1e-5)
     assert "Local kriging: each cell from its 16 nearest samples." in feedback.textLog()
+
+
+def test_local_runs_report_how_far_they_are_from_global_kriging(qgis_processing, zinc, meuse):  # noqa: F811
+    feedback = QgsProcessingFeedback()
+    predict(qgis_processing, zinc, "gap16", feedback, NEIGHBOURS=16)
+    document = ModelDocument.load(zinc[1])
+    values = np.log(meuse.zinc)
+    local = LocalKrigingPredictor(meuse.xy, values, document.covariance, document.mean, neighbours=16)
+    grid = GridSpec.from_extent(178440.0, 329600.0, 181560.0, 333760.0, PIXEL)  # the grid of the run
+    gap = neighbourhood_gap(local, meuse.xy, values, grid_targets(grid, None))
+    assert gap.targets == CHECK_TARGETS
+    assert (f"at {CHECK_TARGETS} cells drawn at random, local kriging differs from kriging with all 155 samples by "
+            f"up to {gap.prediction:.1%} of the sill in the prediction and {gap.variance:.1%} in the variance"
+            in feedback.textLog())
 
 
 def test_local_cells_solve_the_ordinary_kriging_system_of_their_nearest_samples(qgis_processing, zinc, meuse):  # noqa: F811
@@ -207,8 +222,8 @@ def test_surface_written_in_blocks_equals_one_piece(meuse, tmp_path, monkeypatch
         monkeypatch.setattr(surface, "BLOCK_CELLS", cells)
         steps[name] = surface.block_rows(grid)
         paths = {"prediction": str(tmp_path / f"{name}.tif"), "variance": str(tmp_path / f"{name}_var.tif")}
-        surface.write_surface(surface.cell_predictor(predictor, "point", 10.0), grid, None, scale, "zinc",
-                              "EPSG:28992", paths, {})
+        surface.write_surfaces(surface.cell_predictor(predictor, "point", 10.0), grid, None, scale, "EPSG:28992",
+                               [surface.FieldRasters("zinc", paths, {})])
         files[name] = [read_band(path) for path in paths.values()]
     assert steps == {"blocks": 256, "whole": 142848}  # three blocks (rows 0, 256, 512), or the whole raster
     for blocked, whole in zip(files["blocks"], files["whole"]):
