@@ -190,6 +190,11 @@ class SearchProblem:
         stretched = tuple(replace(s, range=s.range * self.length_scale) for s in model.structures)
         return CovarianceModel(stretched, model.nugget).scaled(self.value_scale ** 2)
 
+    def to_internal_units(self, model: CovarianceModel) -> CovarianceModel:
+        """Inverse of :meth:`to_data_units`."""
+        shrunk = tuple(replace(s, range=s.range / self.length_scale) for s in model.structures)
+        return CovarianceModel(shrunk, model.nugget).scaled(self.value_scale ** -2)
+
 
 @dataclass(frozen=True)
 class SearchFit:

@@ -108,9 +108,9 @@ class LikelihoodTerms:
     ----------
     minus_two_log_likelihood : float
         ``-2 l`` (ML) or ``-2 l_R`` (REML).
-    weights : ndarray of shape (n,)
+    weights : ndarray of shape (n,), or (n, m) for several fields
         ``a = P y = K^-1 r``.
-    basis_coefficients : ndarray of shape (p,)
+    basis_coefficients : ndarray of shape (p,), or (p, m) for several fields
         GLS coefficients for the columns of the orthonormal basis ``Q``.
     pair_weights : ndarray or None
         ``2 (W - a a^T)`` at the sample pairs asked for (``W = P`` for REML,
@@ -336,8 +336,8 @@ def log_likelihood(
     return evaluation.log_likelihood
 
 
-class LikelihoodObjective:
-    """``-2 l`` and its gradient as functions of a parameter vector of a :class:`ParameterLayout`.
+class PairedObjective:
+    """What likelihood objectives over a :class:`ParameterLayout` share: the sample pairs and the gradient sum.
 
     The offsets of the distinct sample pairs (one triangle) are computed once
     and reused by every evaluation; the covariance and its derivatives are
@@ -347,8 +347,8 @@ class LikelihoodObjective:
     ----------
     xy : ndarray of shape (n, 2)
         Sample locations (any fixed frame; the fitter passes centred, scaled ones).
-    y : ndarray of shape (n,)
-        Observations minus any known mean.
+    y : ndarray of shape (n,) or (n, m)
+        Observations minus any known mean (one column per field where a subclass takes several).
     basis : MeanBasis
     method : {"reml", "ml"}
     layout : ParameterLayout
@@ -371,7 +371,6 @@ class LikelihoodObjective:
         self.should_stop = should_stop
         self.evaluations = 0
         self.jitter = 0.0
-        self._last: tuple[bytes, tuple] | None = None
 
     def _check_stop(self) -> None:
         self.evaluations += 1
@@ -385,6 +384,27 @@ class LikelihoodObjective:
         np.put(matrix, self.pairs, pair_covariance)
         matrix[np.diag_indices(n)] = diagonal
         return matrix
+
+    def gradient(self, model: CovarianceModel, derivatives: list[tuple[int, np.ndarray, float]],
+                 terms: LikelihoodTerms) -> np.ndarray:
+        """Gradient of ``-2 l`` from the derivatives of :func:`.parameters.covariance_derivatives` at ``model``."""
+        gradient = np.zeros(self.layout.n_parameters)
+        for index, pair_derivative, diagonal_derivative in derivatives:
+            gradient[index] += terms.gradient_term(pair_derivative, diagonal_derivative)
+        gradient[self.layout.index("log_nugget")] = model.nugget * terms.diagonal_weight  # dK/dlog(nugget) = nugget I
+        return gradient
+
+
+class LikelihoodObjective(PairedObjective):
+    """``-2 l`` of one field and its gradient as functions of a parameter vector of a :class:`ParameterLayout`.
+
+    Parameters are those of :class:`PairedObjective`, with ``y`` of shape (n,).
+    """
+
+    def __init__(self, xy: np.ndarray, y: np.ndarray, basis: MeanBasis, method: str, layout: ParameterLayout,
+                 should_stop: Callable[[], bool] | None = None) -> None:
+        super().__init__(xy, y, basis, method, layout, should_stop)
+        self._last: tuple[bytes, tuple] | None = None
 
     def value(self, theta: np.ndarray) -> float:
         """``-2 l`` at ``theta``."""
@@ -433,15 +453,6 @@ class LikelihoodObjective:
         result = self._evaluate_anew(theta, with_information)
         self._last = (key, result)
         return result
-
-    def gradient(self, model: CovarianceModel, derivatives: list[tuple[int, np.ndarray, float]],
-                 terms: LikelihoodTerms) -> np.ndarray:
-        """Gradient of ``-2 l`` from the derivatives of :func:`.parameters.covariance_derivatives` at ``model``."""
-        gradient = np.zeros(self.layout.n_parameters)
-        for index, pair_derivative, diagonal_derivative in derivatives:
-            gradient[index] += terms.gradient_term(pair_derivative, diagonal_derivative)
-        gradient[self.layout.index("log_nugget")] = model.nugget * terms.diagonal_weight  # dK/dlog(nugget) = nugget I
-        return gradient
 
     def _evaluate_anew(self, theta: np.ndarray, with_information: bool
                        ) -> tuple[float, np.ndarray, np.ndarray | None]:

@@ -8,10 +8,13 @@ Statist.* 30(1), 298-323) the far samples still matter, and local ordinary
 kriging also re-estimates the mean in every neighbourhood. So the departure
 is measured, not assumed: both predictors are run at up to
 :data:`CHECK_TARGETS` cells of the output grid drawn at random (fixed seed)
-and the largest differences are reported as fractions of the sill.
+and the largest differences are reported, the prediction's as a fraction of the field's
+standard deviation (the square root of the sill) and the variance's as a
+fraction of the sill, so that both are free of the data's units.
 """
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
 
 import numpy as np
@@ -23,7 +26,7 @@ from .neighbourhood import LocalKrigingPredictor
 CHECK_TARGETS = 500
 """Targets at which local and global kriging are compared."""
 
-CHECK_SAMPLE_LIMIT = 5000
+CHECK_SAMPLE_LIMIT = 2000
 """Most samples for which the global predictor is built for the comparison (its factorisation is O(n^3))."""
 
 
@@ -33,9 +36,12 @@ class NeighbourhoodGap:
 
     Attributes
     ----------
-    prediction, variance : float
-        Largest absolute difference of the kriging mean and of the kriging
-        variance, as fractions of the sill (dimensionless).
+    prediction : float
+        Largest absolute difference of the kriging mean, as a fraction of
+        the square root of the sill (dimensionless).
+    variance : float
+        Largest absolute difference of the kriging variance, as a fraction
+        of the sill (dimensionless).
     targets : int
         Number of targets compared (those local kriging resolved).
     """
@@ -53,24 +59,26 @@ def neighbourhood_gap(local: LocalKrigingPredictor, xy: np.ndarray, values: np.n
     Parameters
     ----------
     local : LocalKrigingPredictor
-        The local predictor, built on ``xy`` and ``values`` (one field).
+        The local predictor, built on ``xy`` and ``values``.
     xy : ndarray of shape (n, 2)
         Its samples (CRS units); at most :data:`CHECK_SAMPLE_LIMIT`.
-    values : ndarray of shape (n,)
-        Its sample values (modelling scale).
+    values : ndarray of shape (n,) or (n, m)
+        Its sample values (modelling scale); with several fields the first is compared.
     targets : ndarray of shape (M, 2)
         Targets (CRS units).
     covariates, covariates0 : ndarray, optional
         External-drift values at the samples and at the targets.
     """
     local_mean, local_variance = local.predict(targets, covariates0)
-    global_mean, global_variance = KrigingPredictor(xy, values, local.covariance, local.mean, covariates).predict(
+    first = values if values.ndim == 1 else values[:, 0]
+    local_mean = local_mean.reshape(len(targets), -1)[:, 0]
+    global_mean, global_variance = KrigingPredictor(xy, first, local.covariance, local.mean, covariates).predict(
         targets, covariates0)
     resolved = ~np.isnan(local_mean)
     if not resolved.any():
         return NeighbourhoodGap(np.nan, np.nan, 0)
     sill = local.covariance.sill
-    return NeighbourhoodGap(float(np.max(np.abs(local_mean - global_mean)[resolved])) / sill,
+    return NeighbourhoodGap(float(np.max(np.abs(local_mean - global_mean)[resolved])) / math.sqrt(sill),
                             float(np.max(np.abs(local_variance - global_variance)[resolved])) / sill,
                             int(np.count_nonzero(resolved)))
 

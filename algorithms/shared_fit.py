@@ -25,10 +25,11 @@ and ``m`` fields::
 
 (``W = P`` for REML, ``R^-1`` for ML; one field gives the profiled form of the
 single-field likelihood). The profile makes ``-2 l`` blind to the scale of
-``R``, so the first partial sill is held at its start value and the other
-parameters are optimised by L-BFGS-B on the bounded log scale of
-:mod:`.parameters`, in the fitter's internal units
-(:class:`.fit_search.SearchProblem`).
+``R``, so the first partial sill is held at 1 and the other parameters are
+optimised by L-BFGS-B on the bounded log scale of :mod:`.parameters` (bounds
+relative to that unit), with coordinates in the fitter's internal units
+(:class:`.fit_search.SearchProblem`) and each field divided by the root mean
+square of its residual from the least-squares mean.
 
 Start. :func:`.fitting.fit_model` fits the average of the standardised fields
 (each field minus any known mean, divided by its residual root mean square);
@@ -40,7 +41,9 @@ The exact likelihood is used, so the joint fit takes at most
 """
 from __future__ import annotations
 
+import math
 from collections.abc import Callable
+from dataclasses import fields as dataclass_fields
 from dataclasses import replace
 
 import numpy as np
@@ -48,7 +51,7 @@ from scipy import optimize
 
 from .covariance import CovarianceModel
 from .errors import FieldcastError
-from .fit_search import SearchProblem
+from .fit_search import GRADIENT_TOLERANCE, LOG_LIKELIHOOD_TOLERANCE, SearchProblem
 from .fit_warnings import bound_warnings
 from .fitting import (
     VECCHIA_THRESHOLD,
@@ -60,21 +63,23 @@ from .fitting import (
     mean_model_for,
     with_jitter_in_nugget,
 )
-from .likelihood import LOG_2PI, GlsSolution, LikelihoodObjective, LikelihoodTerms, evaluate_model
+from .likelihood import LOG_2PI, GlsSolution, LikelihoodTerms, MeanBasis, PairedObjective, evaluate_model
+from .mean import MeanModel
 from .parameters import DataScales, ParameterLayout, covariance_derivatives, parameter_bounds
 from .samples import check_samples
 
 START_SHARE = 0.5
 """Share of the progress bar taken by the start fit on the averaged field."""
 
-MAX_ITERATIONS = 200
+MAX_ITERATIONS = 500
 """Iteration limit of the joint L-BFGS-B refinement."""
 
 
-class JointObjective(LikelihoodObjective):
+class JointObjective(PairedObjective):
     """Profiled ``-2 l`` of several fields with one covariance model, and its gradient (module docstring).
 
-    ``y`` is (n, m): one column per field, in the internal units of the problem.
+    Parameters are those of :class:`.likelihood.PairedObjective`, with ``y`` of
+    shape (n, m): one column per field, each divided by its own scale.
     """
 
     def contrasts(self) -> int:
@@ -83,7 +88,7 @@ class JointObjective(LikelihoodObjective):
         return n - p if self.method == "reml" else n
 
     def field_scales(self, theta: np.ndarray) -> np.ndarray:
-        """``c_f = q_f / M`` of every field for the model ``theta`` (internal units)."""
+        """``c_f = q_f / M`` of every field for the model ``theta`` (units of the columns of ``y``, squared)."""
         model = self.layout.unpack(theta)
         solution = GlsSolution.solve(self._matrix(model.covariance_from_offsets(self.dx, self.dy), model.sill),
                                      self.y, self.basis)
@@ -111,25 +116,6 @@ class JointObjective(LikelihoodObjective):
         return value, self.gradient(model, derivatives, terms)
 
 
-def _start_layout(start: FitResult, options: FitOptions) -> ParameterLayout:
-    """The parameter layout of the model :func:`.fitting.fit_model` chose for the averaged field."""
-    chosen = min(start.candidates, key=lambda candidate: candidate.aic)
-    smoothness = None if chosen.family == "matern" and options.smoothness is None else options.smoothness
-    return ParameterLayout(chosen.family, len(start.covariance.structures), chosen.anisotropy,
-                           smoothness if chosen.family == "matern" else None)
-
-
-def _standardised_columns(y: np.ndarray, design: np.ndarray) -> np.ndarray:
-    """Root mean square of each column's residual from the least-squares mean (FieldcastError if 0)."""
-    q, _ = np.linalg.qr(design) if design.shape[1] else (np.zeros((len(y), 0)), None)
-    residual = y - q @ (q.T @ y)
-    scales = np.sqrt(np.mean(residual ** 2, axis=0))
-    if not np.all(scales > 0):
-        raise FieldcastError("The mean model reproduces one of the fields exactly, leaving nothing for a "
-                             "covariance model; leave that field out or choose a simpler mean model.")
-    return scales
-
-
 def fit_shared(xy: np.ndarray, values: np.ndarray, options: FitOptions,
                names: list[str] | None = None) -> list[FitResult]:
     """Fit one correlation model, with its own scale per field, to fields sampled at the same places.
@@ -144,7 +130,7 @@ def fit_shared(xy: np.ndarray, values: np.ndarray, options: FitOptions,
         As for :func:`.fitting.fit_model`; ``method`` "reml" or "ml", and a
         mean of any kind but "known" (whose value could not differ between fields).
     names : list of str, optional
-        Field names for messages.
+        Field names for messages, one per column.
 
     Returns
     -------
@@ -155,13 +141,46 @@ def fit_shared(xy: np.ndarray, values: np.ndarray, options: FitOptions,
         says the model is shared.
     """
     values = np.asarray(values, dtype=float)
+    names = _checked_fields(xy, values, options, names)
+    xy = np.asarray(xy, dtype=float)
+    mean_model = mean_model_for(options.mean, xy, options.covariates, options.known_mean)
+    design = mean_model.design(xy, options.covariates)
+    column_scales = _column_scales(values, MeanBasis.from_design(design), names)
+    standardised = values / column_scales
+    average = standardised.mean(axis=1)
+    start = fit_model(xy, average, **_fit_arguments(options, _part(options.progress, 0.0, START_SHARE)))
+    layout = _start_layout(start, options)
+    problem = SearchProblem.standardise(xy, average, design, options.method, options.should_stop)
+    objective = JointObjective(problem.xy, standardised, problem.basis, options.method, layout, options.should_stop)
+    internal_start = problem.to_internal_units(start.covariance)
+    theta, failure = _refine(objective, layout, layout.pack(internal_start.scaled(
+        1.0 / internal_start.structures[0].partial_sill)), problem.internal_scales,
+        _part(options.progress, START_SHARE, 1.0))
+    shared = layout.unpack(theta)
+    messages = [] if failure is None else [
+        f"The joint fit of the shared model did not converge ({failure}); the model may be off its best. Fit one "
+        "model per field, or fewer fields."]
+    scales = objective.field_scales(theta) * column_scales ** 2
+    results = [_field_result(xy, column, replace(problem, value_scale=math.sqrt(scale)), shared, mean_model, options,
+                             layout, len(names), messages)
+               for column, scale in zip(values.T, scales)]
+    if options.progress is not None:
+        options.progress(1.0)
+    return results
+
+
+def _checked_fields(xy: np.ndarray, values: np.ndarray, options: FitOptions, names: list[str] | None) -> list[str]:
+    """The field names (given or numbered), after refusing what a shared fit cannot take."""
     if values.ndim != 2 or values.shape[1] < 1:
         raise FieldcastError("Give the fields as an (n, m) array: one column of values per field.")
     names = names or [f"field {i + 1}" for i in range(values.shape[1])]
+    if len(names) != values.shape[1]:
+        raise FieldcastError(f"Got {len(names)} field names for {values.shape[1]} columns of values; give one "
+                             "name per field.")
     if options.method not in ("reml", "ml"):
         raise FieldcastError("A model shared by several fields is fitted by likelihood; choose method 'reml' or "
                              "'ml'.")
-    if (options.mean.kind if not isinstance(options.mean, str) else options.mean) == "known":
+    if (options.mean.kind if isinstance(options.mean, MeanModel) else options.mean) == "known":
         raise FieldcastError("A shared model needs a mean estimated from each field (constant, linear or "
                              "quadratic); a known mean would be the same number for every field.")
     if len(values) > VECCHIA_THRESHOLD:
@@ -173,34 +192,30 @@ def fit_shared(xy: np.ndarray, values: np.ndarray, options: FitOptions,
             check_samples(xy, column)
         except FieldcastError as exc:
             raise FieldcastError(f"{name}: {exc}") from None
-    xy = np.asarray(xy, dtype=float)
-    mean_model = mean_model_for(options.mean, xy, options.covariates, options.known_mean)
-    design = mean_model.design(xy, options.covariates)
-    column_scales = _standardised_columns(values, design)
-    standardised = values / column_scales
-    progress = options.progress
-    start = fit_model(xy, standardised.mean(axis=1), **{**_fit_arguments(options), "progress": _part(progress, 0.0,
-                                                                                                     START_SHARE)})
-    layout = _start_layout(start, options)
-    problem = SearchProblem.standardise(xy, standardised.mean(axis=1), design, options.method, options.should_stop)
-    objective = JointObjective(problem.xy, standardised, problem.basis, options.method, layout, options.should_stop)
-    theta = _refine(objective, layout, layout.pack(_to_internal(start.covariance, problem)), problem.internal_scales,
-                    _part(progress, START_SHARE, 1.0))
-    shared = layout.unpack(theta)
-    scales = objective.field_scales(theta) * column_scales ** 2
-    results = [_field_result(xy, column, _in_data_units(shared, problem.length_scale, scale), mean_model, options,
-                             problem, layout, len(names), objective.jitter)
-               for column, scale in zip(values.T, scales)]
-    if progress is not None:
-        progress(1.0)
-    return results
+    return names
 
 
-def _fit_arguments(options: FitOptions) -> dict:
-    """Keyword arguments of :func:`.fitting.fit_model` for ``options``."""
-    return {"kernel": options.kernel, "anisotropy": options.anisotropy, "mean": options.mean,
-            "method": options.method, "covariates": options.covariates, "nested": options.nested,
-            "smoothness": options.smoothness, "known_mean": options.known_mean, "should_stop": options.should_stop}
+def _column_scales(values: np.ndarray, basis: MeanBasis, names: list[str]) -> np.ndarray:
+    """Root mean square of each column's residual from the least-squares mean."""
+    residual = values - basis.q @ (basis.q.T @ values)
+    scales = np.sqrt(np.mean(residual ** 2, axis=0))
+    for name, scale in zip(names, scales):
+        if not scale > 0:
+            raise FieldcastError(f"The mean model reproduces {name} exactly, leaving nothing for a covariance "
+                                 "model; leave that field out or choose a simpler mean model.")
+    return scales
+
+
+def _start_layout(start: FitResult, options: FitOptions) -> ParameterLayout:
+    """The parameter layout of the model :func:`.fitting.fit_model` chose for the averaged field."""
+    chosen = min(start.candidates, key=lambda candidate: candidate.aic)
+    return ParameterLayout(chosen.family, len(start.covariance.structures), chosen.anisotropy,
+                           options.smoothness if chosen.family == "matern" else None)
+
+
+def _fit_arguments(options: FitOptions, progress: Callable[[float], None] | None) -> dict:
+    """Keyword arguments of :func:`.fitting.fit_model` for ``options``, with another progress callback."""
+    return {**{field.name: getattr(options, field.name) for field in dataclass_fields(options)}, "progress": progress}
 
 
 def _part(progress: Callable[[float], None] | None, low: float, high: float) -> Callable[[float], None] | None:
@@ -210,24 +225,18 @@ def _part(progress: Callable[[float], None] | None, low: float, high: float) -> 
     return lambda fraction: progress(low + fraction * (high - low))
 
 
-def _to_internal(model: CovarianceModel, problem: SearchProblem) -> CovarianceModel:
-    """Ranges divided by the length scale, variances by the value scale squared (inverse of ``to_data_units``)."""
-    shrunk = tuple(replace(s, range=s.range / problem.length_scale) for s in model.structures)
-    return CovarianceModel(shrunk, model.nugget).scaled(problem.value_scale ** -2)
-
-
-def _in_data_units(model: CovarianceModel, length_scale: float, variance_scale: float) -> CovarianceModel:
-    """Ranges times ``length_scale``, variances times ``variance_scale``."""
-    stretched = tuple(replace(s, range=s.range * length_scale) for s in model.structures)
-    return CovarianceModel(stretched, model.nugget).scaled(variance_scale)
-
-
 def _refine(objective: JointObjective, layout: ParameterLayout, theta: np.ndarray, scales: DataScales,
-            progress: Callable[[float], None] | None) -> np.ndarray:
-    """Minimise the joint ``-2 l`` over every parameter but the first partial sill (held at its start value)."""
+            progress: Callable[[float], None] | None) -> tuple[np.ndarray, str | None]:
+    """Minimise the joint ``-2 l`` over every parameter but the first partial sill (held where ``theta`` has it).
+
+    Returns the optimum and, when L-BFGS-B did not converge, its reason (None otherwise). As in
+    :mod:`.fit_search`, the objective is divided by ``2 n m`` so that its tolerances are those of a
+    single-field fit.
+    """
     fixed = layout.index("log_partial_sill_1")
     free = np.array([i for i in range(layout.n_parameters) if i != fixed])
     bounds = [parameter_bounds(layout, scales)[i] for i in free]
+    size = 2.0 * objective.y.size
     iterations = [0]
 
     def full(x: np.ndarray) -> np.ndarray:
@@ -237,31 +246,38 @@ def _refine(objective: JointObjective, layout: ParameterLayout, theta: np.ndarra
 
     def value_and_gradient(x: np.ndarray) -> tuple[float, np.ndarray]:
         value, gradient = objective.value_and_gradient(full(x))
-        return value, gradient[free]
+        return value / size, gradient[free] / size
 
     def advance(_: np.ndarray) -> None:
         iterations[0] += 1
         if progress is not None:
             progress(min(iterations[0] / 50.0, 1.0))
 
-    start = np.clip(theta[free], [b[0] if b[0] is not None else -np.inf for b in bounds],
-                    [b[1] if b[1] is not None else np.inf for b in bounds])
+    start = np.array([x if low is None else min(max(x, low), high) for x, (low, high) in zip(theta[free], bounds)])
+    n = len(objective.y)
+    options = {"maxiter": MAX_ITERATIONS, "ftol": LOG_LIKELIHOOD_TOLERANCE / n, "gtol": GRADIENT_TOLERANCE / n}
     result = optimize.minimize(value_and_gradient, start, jac=True, method="L-BFGS-B", bounds=bounds,
-                               callback=advance, options={"maxiter": MAX_ITERATIONS})
-    return full(result.x)
+                               callback=advance, options=options)
+    return full(result.x), None if result.success else str(result.message)
 
 
-def _field_result(xy: np.ndarray, values: np.ndarray, covariance: CovarianceModel, mean_model, options: FitOptions,
-                  problem: SearchProblem, layout: ParameterLayout, fields: int, jitter: float) -> FitResult:
-    """One field's FitResult: the shared model at its scale, its GLS coefficients and log-likelihood."""
-    evaluation = evaluate_model(xy, values, covariance, mean_model, problem.method, options.covariates)
-    scales = replace(problem.data_scales, variance=float(np.var(values)))
-    messages = bound_warnings(layout, layout.pack(covariance), parameter_bounds(layout, scales))
+def _field_result(xy: np.ndarray, values: np.ndarray, field: SearchProblem, shared: CovarianceModel,
+                  mean_model: MeanModel, options: FitOptions, layout: ParameterLayout, fields: int,
+                  shared_messages: list[str]) -> FitResult:
+    """One field's FitResult: the shared model at its scale, its GLS coefficients and log-likelihood.
+
+    ``field`` is the internal problem with the field's scale as value scale, so that its
+    :meth:`~.fit_search.SearchProblem.to_data_units` and data scales turn the shared internal model
+    and its bounds into the field's units (bound warnings then quote the field's numbers).
+    """
+    covariance = field.to_data_units(shared)
+    evaluation = evaluate_model(xy, values, covariance, mean_model, field.method, options.covariates)
+    messages = bound_warnings(layout, layout.pack(covariance), parameter_bounds(layout, field.data_scales))
+    messages += shared_messages
     covariance = with_jitter_in_nugget(covariance, evaluation.jitter, messages)
-    aic, bic, k = information_criteria(problem, evaluation.log_likelihood, layout)
-    likelihood = f"exact; one correlation model shared by {fields} fields (joint {problem.method.upper()})"
+    aic, bic, k = information_criteria(field, evaluation.log_likelihood, layout)
+    likelihood = f"exact; one correlation model shared by {fields} fields (joint {field.method.upper()})"
     candidate = CandidateFit(layout.family, layout.anisotropy, evaluation.log_likelihood, aic, bic, covariance,
                              list(messages))
     return FitResult(covariance, mean_model, evaluation.coefficients, options.method, evaluation.log_likelihood,
                      aic, bic, len(values), k, messages, likelihood, [candidate])
-

@@ -69,7 +69,7 @@ class PredictManyAlgorithm(SurfaceAlgorithm):
          *FIT_HELP,
          ("One correlation model for all fields", "Off (default): each field gets a model of its own. On: one "
           "correlation model (family, ranges, anisotropy, nugget share) is fitted to all fields jointly, each field "
-          "keeping its own sill and mean (the intrinsic correlation model: the fields' REML log-likelihoods are "
+          "keeping its own sill and mean (the intrinsic correlation model: the fields' log-likelihoods are "
           "summed, each field's scale estimated from its own data). Every field must then have values at the same "
           "samples, and the fit takes up to 2,000 samples. The kriging weights are then the same for every field, "
           "so one kriging pass writes all the rasters: much faster for many fields. Choose it when the fields vary "
@@ -209,9 +209,9 @@ class PredictManyAlgorithm(SurfaceAlgorithm):
             if not np.array_equal(samples.xy, first.xy):
                 raise FieldcastError(
                     f"One correlation model for all fields needs every field measured at the same samples, but "
-                    f"{layer_samples.field!r} has values at {len(samples.xy)} places and {fields[0]!r} at "
-                    f"{len(first.xy)} (NULL values are skipped field by field). Turn off 'One correlation model "
-                    "for all fields', or choose fields without gaps.")
+                    f"the samples of {layer_samples.field!r} ({len(samples.xy)} places) are not those of "
+                    f"{fields[0]!r} ({len(first.xy)} places): NULL values are skipped field by field. Turn off "
+                    "'One correlation model for all fields', or choose fields without gaps.")
         values = np.column_stack([samples.values for _, samples in run.prepared])
         working = run.prepared[0][0].working
         feedback.pushInfo(f"Fitting one correlation model to the {len(fields)} fields jointly with "

@@ -108,13 +108,13 @@ class SurfaceScale:
                 "exceedance": exceedance + (" (threshold log-transformed like the data)" if exceedance else "")}
 
 
-def block_rows(grid: GridSpec) -> int:
-    """Rows per block: as many whole 256-row tile rows as fit in :data:`BLOCK_CELLS` cells, at least one.
+def block_rows(grid: GridSpec, fields: int = 1) -> int:
+    """Rows per block: as many whole 256-row tile rows as fit in :data:`BLOCK_CELLS` cells per field, at least one.
 
     Blocks aligned to the GeoTIFF tiles are written as whole tiles, so GDAL never
     holds a partly written tile; memory grows with the raster's width only.
     """
-    return TILE_ROWS * max(1, BLOCK_CELLS // (TILE_ROWS * grid.n_cols))
+    return TILE_ROWS * max(1, BLOCK_CELLS // (TILE_ROWS * grid.n_cols * fields))
 
 
 @dataclass(frozen=True)
@@ -155,7 +155,7 @@ def write_surfaces(predict: CellPredictor, grid: GridSpec, inside: np.ndarray | 
     Cancelled
         When ``should_stop()`` turns True; no output file is left.
     """
-    step = block_rows(grid)
+    step = block_rows(grid, len(fields))
     unresolved = 0
     with contextlib.ExitStack() as stack:
         writers = []

@@ -29,7 +29,8 @@ GLOBAL_SAMPLE_LIMIT = 5000
 AUTOMATIC_NEIGHBOURS = 64
 """Neighbours per cell chosen for NEIGHBOURS = 0 with more than :data:`GLOBAL_SAMPLE_LIMIT` samples."""
 GAP_WARNING = 0.01
-"""Departure of local from global kriging (fraction of the sill) above which the log warns."""
+"""Departure of local from global kriging above which the log warns (fraction of the standard deviation for
+the prediction, of the sill for the variance)."""
 
 
 @dataclass(frozen=True)
@@ -85,18 +86,25 @@ class Neighbourhood:
     @staticmethod
     def log_gap(predictor: LocalKrigingPredictor, xy: np.ndarray, values: np.ndarray, grid: GridSpec,
                 inside: np.ndarray | None, feedback) -> None:
-        """Say how far local kriging departs from kriging with all samples at a few cells (up to
-        :data:`..algorithms.neighbourhood_check.CHECK_SAMPLE_LIMIT` samples), with advice above 1 % of the sill."""
-        if len(xy) > CHECK_SAMPLE_LIMIT:
+        """Say how far local kriging departs from kriging with all samples at a few cells, with advice above 1 %.
+
+        Done for up to :data:`..algorithms.neighbourhood_check.CHECK_SAMPLE_LIMIT` samples (the comparison
+        factorises the full system); with several fields, for the first. The check is a diagnostic: a
+        problem in it is logged, never fatal.
+        """
+        if len(xy) > CHECK_SAMPLE_LIMIT or feedback.isCanceled():
             return
-        local = LocalKrigingPredictor(xy, values, predictor.covariance, predictor.mean,
-                                      neighbours=predictor.neighbours, search_radius=predictor.search_radius)
-        gap = neighbourhood_gap(local, xy, values, grid_targets(grid, inside))
+        try:
+            gap = neighbourhood_gap(predictor, xy, values, grid_targets(grid, inside))
+        except FieldcastError as exc:
+            feedback.pushInfo(f"Neighbourhood check skipped: {exc}")
+            return
         if not gap.targets:
             return
         words = (f"Neighbourhood check: at {gap.targets} cells drawn at random, local kriging differs from kriging "
-                 f"with all {len(xy)} samples by up to {gap.prediction:.1%} of the sill in the prediction and "
-                 f"{gap.variance:.1%} in the variance (modelling scale).")
+                 f"with all {len(xy)} samples by up to {gap.prediction:.1%} of the field's standard deviation "
+                 f"(square root of the sill) in the prediction and {gap.variance:.1%} of the sill in the variance "
+                 "(modelling scale).")
         if max(gap.prediction, gap.variance) > GAP_WARNING:
             feedback.pushWarning(words + " More neighbours, or NEIGHBOURS = 0 (all samples), bring it closer: the "
                                  "model's far-reaching correlation (long range, spherical shape or large nugget "
@@ -150,7 +158,7 @@ class SurfaceAlgorithm(RasterAlgorithm):
         if scale.threshold is not None:
             settings["fieldcast_threshold"] = scale.threshold
         if isinstance(predictor, LocalKrigingPredictor):
-            neighbourhood.log_gap(predictor, xy, values if values.ndim == 1 else values[:, 0], grid, inside, feedback)
+            neighbourhood.log_gap(predictor, xy, values, grid, inside, feedback)
         rasters = [FieldRasters(field, paths, {"fieldcast_model": document.to_dict(), **settings},
                                 document.covariance.sill / documents[0].covariance.sill)
                    for document, (field, paths) in zip(documents, outputs)]

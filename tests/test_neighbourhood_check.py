@@ -40,25 +40,34 @@ def test_gap_is_the_largest_difference_at_the_targets(meuse, meuse_grid, log_zin
     gap, local = gap_on_grid(meuse, meuse_grid, log_zinc, SPHERICAL, "constant", 32)
     ours = local.predict(meuse_grid.xy)
     theirs = KrigingPredictor(meuse.xy, log_zinc, SPHERICAL, local.mean).predict(meuse_grid.xy)
-    assert gap.prediction == pytest.approx(np.max(np.abs(ours[0] - theirs[0])) / SPHERICAL.sill, rel=1e-12)
+    assert gap.prediction == pytest.approx(np.max(np.abs(ours[0] - theirs[0])) / np.sqrt(SPHERICAL.sill), rel=1e-12)
     assert gap.variance == pytest.approx(np.max(np.abs(ours[1] - theirs[1])) / SPHERICAL.sill, rel=1e-12)
 
 
 def test_meuse_with_sixty_four_neighbours(meuse, meuse_grid, log_zinc):
     # Screening (Stein 2002, Ann. Statist. 30(1)): under a smooth, short-range model the 64 nearest samples
-    # reproduce global simple kriging within 1 % of the sill at every Meuse grid cell ...
+    # reproduce global simple kriging within 1 % (of the standard deviation for the prediction, of the sill for
+    # the variance) at every Meuse grid cell ...
     smooth, _ = gap_on_grid(meuse, meuse_grid, log_zinc, SMOOTH, "known", 64)
     assert smooth.prediction < 0.01 and smooth.variance < 0.01
-    # ... but under the usual spherical log-zinc model (compact support, 8 % nugget share) samples beyond the 64
-    # nearest still carry weight, and local ordinary kriging re-estimates the mean in each neighbourhood: measured
-    # here, the prediction departs by more than 1 % of the sill at some cells (about 20 %), the variance by about
-    # 2 %. This is why the toolbox measures the gap on every local run rather than promising a bound.
+    # ... but not under the usual spherical log-zinc model (compact support, 8 % nugget share): samples beyond the
+    # 64 nearest still carry weight, and local ordinary kriging re-estimates the mean in each neighbourhood, so
+    # the 1 % bound fails at some cells. This is why the toolbox measures the gap on every local run rather than
+    # promising a bound.
     spherical, _ = gap_on_grid(meuse, meuse_grid, log_zinc, SPHERICAL, "constant", 64)
-    assert 0.05 < spherical.prediction < 0.5
-    assert 0.005 < spherical.variance < 0.05
+    assert spherical.prediction > 0.01 and spherical.variance > 0.01
     # More neighbours close the gap (all 155: none, above).
     wider, _ = gap_on_grid(meuse, meuse_grid, log_zinc, SPHERICAL, "constant", 128)
     assert wider.prediction < spherical.prediction and wider.variance < spherical.variance
+
+
+def test_several_fields_compare_the_first(meuse, meuse_grid, log_zinc):
+    mean = MeanModel.for_data("constant", meuse.xy)
+    both = np.column_stack([log_zinc, np.log(meuse.copper)])
+    local = LocalKrigingPredictor(meuse.xy, both, SPHERICAL, mean, neighbours=32)
+    single = LocalKrigingPredictor(meuse.xy, log_zinc, SPHERICAL, mean, neighbours=32)
+    assert (neighbourhood_gap(local, meuse.xy, both, meuse_grid.xy)
+            == neighbourhood_gap(single, meuse.xy, log_zinc, meuse_grid.xy))
 
 
 def test_grid_targets_are_distinct_cells_inside_the_mask():

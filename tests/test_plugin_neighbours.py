@@ -91,7 +91,8 @@ def test_local_runs_report_how_far_they_are_from_global_kriging(qgis_processing,
     gap = neighbourhood_gap(local, meuse.xy, values, grid_targets(grid, None))
     assert gap.targets == CHECK_TARGETS
     assert (f"at {CHECK_TARGETS} cells drawn at random, local kriging differs from kriging with all 155 samples by "
-            f"up to {gap.prediction:.1%} of the sill in the prediction and {gap.variance:.1%} in the variance"
+            f"up to {gap.prediction:.1%} of the field's standard deviation (square root of the sill) in the "
+            f"prediction and {gap.variance:.1%} of the sill in the variance"
             in feedback.textLog())
 
 

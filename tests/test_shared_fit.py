@@ -8,6 +8,7 @@ from scipy import optimize, stats
 from fieldcast.algorithms.errors import FieldcastError
 from fieldcast.algorithms.fit_search import SearchProblem
 from fieldcast.algorithms.fitting import VECCHIA_THRESHOLD, FitOptions, fit_model
+from fieldcast.algorithms.likelihood import evaluate_model
 from fieldcast.algorithms.mean import MeanModel
 from fieldcast.algorithms.parameters import ParameterLayout
 from fieldcast.algorithms.shared_fit import JointObjective, fit_shared
@@ -61,6 +62,20 @@ def test_joint_ml_value_is_the_sum_of_the_fields_gaussian_densities(meuse, log_m
     assert value == pytest.approx(-2.0 * total, rel=1e-10)
 
 
+def test_joint_reml_value_is_the_sum_of_the_fields_own_reml(meuse, log_metals):
+    # The profiled joint -2 l equals the sum over fields of each field's REML -2 l_R (Patterson & Thompson 1971;
+    # evaluated by the single-field likelihood, likelihood.evaluate_model) at its own scale c_f = q_f / (n - p).
+    layout = ParameterLayout("spherical", 1, anisotropy=True)
+    problem, objective = objective_for(meuse, log_metals, "reml", layout)
+    theta = np.array([0.0, np.log(0.4), np.log(0.5), 0.4, np.log(0.05)])
+    value, _ = objective.value_and_gradient(theta)
+    model = layout.unpack(theta)
+    mean = MeanModel.for_data("constant", problem.xy)
+    total = sum(evaluate_model(problem.xy, column, model.scaled(scale), mean, "reml").log_likelihood
+                for column, scale in zip(log_metals.T, objective.field_scales(theta)))
+    assert value == pytest.approx(-2.0 * total, rel=1e-10)
+
+
 def test_one_field_gives_the_single_field_fit(meuse, log_metals):
     # With one field the joint likelihood is that field's profiled REML (Patterson & Thompson 1971), so the joint
     # fit lands on the single-field optimum: same log-likelihood up to the optimiser's tolerance.
@@ -91,8 +106,10 @@ def test_shared_model_on_meuse_is_close_to_each_metal_own_fit(meuse, log_metals,
     losses = [single.log_likelihood - joint.log_likelihood for single, joint in zip(own, shared)]
     assert min(losses) > -0.05  # each own fit is that metal's optimum (up to the optimiser's tolerance)
     assert max(losses) < 2.5
-    # The shared anisotropy follows the river like the single fits (azimuth about 20-30 degrees east of north).
-    assert 15.0 < shared[0].covariance.structures[0].azimuth < 35.0
+    # The shared anisotropy follows the river like the single fits: the Meuse flows roughly north-north-east along
+    # the study area (from memory), and the metals' own fits put the major axis 20-30 degrees east of north.
+    own_azimuths = [fit.covariance.structures[0].azimuth for fit in own]
+    assert min(own_azimuths) - 5.0 < shared[0].covariance.structures[0].azimuth < max(own_azimuths) + 5.0
 
 
 def test_rescaling_a_field_rescales_only_its_sill(meuse, log_metals, shared):
