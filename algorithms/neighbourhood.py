@@ -44,8 +44,9 @@ Batches. Targets are taken ``chunk_size`` at a time and grouped by
 neighbour set (as a set of samples): each distinct set is factorised once
 (``L``, ``R``, ``beta``, ``L^-1 (y - F beta)``; stacks of Cholesky factors
 and triangular solves from :mod:`.batched`), and every target then needs one
-triangular solve with its set's factor. Everything is done on
-stacks of up to :data:`STACK_SIZE` sets or targets; there is no Python
+triangular solve with its set's factor. Sets are factorised in stacks of up
+to :data:`STACK_SIZE`, and each stack's targets are solved right after it, in
+the same worker thread (the factors are still in cache); there is no Python
 loop per target.
 
 Several fields. ``y`` may be an (n, m) matrix of fields observed at the
@@ -236,14 +237,29 @@ class LocalKrigingPredictor:
                 "coefficients": coefficients, "white_residual": white_residual,
                 "solvable": solvable & trend_solvable, "centre": centre, "scale": scale}
 
-    def _systems(self, neighbour_index: np.ndarray, pool: ThreadPoolExecutor
-                 ) -> tuple[np.ndarray, np.ndarray, dict[str, np.ndarray]]:
-        """Distinct neighbour sets (u, k, sorted), the set of each target (b,), and their factorisations."""
+    def _in_stacks(self, neighbour_index: np.ndarray, pool: ThreadPoolExecutor,
+                   solve: Callable[[np.ndarray, np.ndarray, np.ndarray, dict[str, np.ndarray]], None]) -> np.ndarray:
+        """Factorise the distinct neighbour sets of targets with neighbours (b, k), a stack at a time in ``pool``.
+
+        For each stack of up to :data:`STACK_SIZE` distinct sets (sorted sample indices), in the same
+        worker as its factorisation, ``solve(rows, sets, chosen, system)`` gets the targets ``rows`` whose
+        sets are in the stack, the stack's ``sets`` (s, k), each row's set ``chosen`` (an index into
+        ``sets``) and the stack's factorisation (:meth:`_factorise`). Returns the sorted set of each target.
+        """
         ordered = np.sort(neighbour_index, axis=1)
-        sets, set_of_target = np.unique(ordered, axis=0, return_inverse=True)
-        systems = list(pool.map(self._factorise, [sets[s:s + STACK_SIZE] for s in range(0, len(sets), STACK_SIZE)]))
-        return sets, set_of_target.reshape(-1), {key: np.concatenate([part[key] for part in systems])
-                                                 for key in systems[0]}
+        sets, set_of_target = distinct_rows(ordered)
+        order = np.argsort(set_of_target, kind="stable")
+        starts = np.arange(0, len(sets), STACK_SIZE)
+        edges = np.searchsorted(set_of_target[order], np.append(starts, len(sets)))
+
+        def work(stack: int) -> None:
+            first = starts[stack]
+            rows = order[edges[stack]:edges[stack + 1]]
+            stack_sets = sets[first:first + STACK_SIZE]
+            solve(rows, stack_sets, set_of_target[rows] - first, self._factorise(stack_sets))
+
+        list(pool.map(work, range(len(starts))))
+        return ordered
 
     def _target_terms(self, targets: np.ndarray, covariates0: np.ndarray | None, sets: np.ndarray,
                       chosen: np.ndarray, system: dict[str, np.ndarray]) -> tuple[np.ndarray, np.ndarray]:
@@ -258,27 +274,25 @@ class LocalKrigingPredictor:
     def _predict_group(self, targets: np.ndarray, covariates0: np.ndarray | None, neighbour_index: np.ndarray,
                        pool: ThreadPoolExecutor) -> tuple[np.ndarray, np.ndarray]:
         """Means (b, fields) and variance (b,) of targets (b, 2, search frame) that all have ``k`` neighbours (b, k)."""
-        sets, set_of_target, system = self._systems(neighbour_index, pool)
         mean = np.empty((len(targets), self._residual.shape[1]))
         variance = np.empty(len(targets))
 
-        def solve(start: int) -> None:
-            rows = slice(start, start + STACK_SIZE)
-            chosen = set_of_target[rows]
+        def solve(rows: np.ndarray, sets: np.ndarray, chosen: np.ndarray, system: dict[str, np.ndarray]) -> None:
             white_cross, gap = self._target_terms(targets[rows], None if covariates0 is None else covariates0[rows],
                                                   sets, chosen, system)
-            mean[rows] = (np.einsum("bif,bi->bf", system["white_residual"][chosen], white_cross)
+            found_mean = (np.einsum("bif,bi->bf", system["white_residual"][chosen], white_cross)
                           + np.einsum("bif,bi->bf", system["coefficients"][chosen], gap)
                           + self.mean.known_mean(1)[0])
             gap -= np.einsum("bji,bj->bi", system["white_design"][chosen], white_cross)
             white_gap = forward_substitution(system["trend_factors"][chosen], gap[:, :, None])[:, :, 0]
-            variance[rows] = self.covariance.field_variance + self.covariance.sill * (
+            found_variance = self.covariance.field_variance + self.covariance.sill * (
                 np.einsum("bi,bi->b", white_gap, white_gap) - np.einsum("bi,bi->b", white_cross, white_cross))
             unsolvable = ~system["solvable"][chosen]
-            mean[rows][unsolvable] = np.nan
-            variance[rows][unsolvable] = np.nan
+            found_mean[unsolvable] = np.nan
+            found_variance[unsolvable] = np.nan
+            mean[rows], variance[rows] = found_mean, found_variance
 
-        list(pool.map(solve, range(0, len(targets), STACK_SIZE)))
+        self._in_stacks(neighbour_index, pool, solve)
         return mean, variance
 
     def _predict_chunk(self, targets: np.ndarray, covariates0: np.ndarray | None, pool: ThreadPoolExecutor
@@ -398,12 +412,9 @@ class LocalKrigingPredictor:
         In whitened terms ``lambda = L^-T (L^-1 c0 + L^-1 F A^-1 (f0 - F^T K^-1 c0))``
         (covariances divided by the sill throughout, which leaves ``lambda`` unchanged).
         """
-        sets, set_of_target, system = self._systems(neighbour_index, pool)
         weights = np.empty(neighbour_index.shape)
 
-        def solve(start: int) -> None:
-            rows = slice(start, start + STACK_SIZE)
-            chosen = set_of_target[rows]
+        def solve(rows: np.ndarray, sets: np.ndarray, chosen: np.ndarray, system: dict[str, np.ndarray]) -> None:
             white_cross, gap = self._target_terms(targets[rows], None if covariates0 is None else covariates0[rows],
                                                   sets, chosen, system)
             white_design = system["white_design"][chosen]
@@ -411,11 +422,11 @@ class LocalKrigingPredictor:
             trend_factors = system["trend_factors"][chosen]
             multipliers = back_substitution(trend_factors, forward_substitution(trend_factors, gap[:, :, None]))
             white_cross += (white_design @ multipliers)[:, :, 0]
-            weights[rows] = back_substitution(system["factors"][chosen], white_cross[:, :, None])[:, :, 0]
-            weights[rows][~system["solvable"][chosen]] = np.nan
+            found = back_substitution(system["factors"][chosen], white_cross[:, :, None])[:, :, 0]
+            found[~system["solvable"][chosen]] = np.nan
+            weights[rows] = found
 
-        list(pool.map(solve, range(0, len(targets), STACK_SIZE)))
-        return sets[set_of_target], weights
+        return self._in_stacks(neighbour_index, pool, solve), weights
 
     def _in_chunks(self, count: int, size: int,
                    solve: Callable[[slice, ThreadPoolExecutor], tuple[np.ndarray, np.ndarray]],
@@ -472,6 +483,28 @@ class LocalKrigingPredictor:
                 self._frame_xy[chunk], None if self._covariates is None else self._covariates[chunk], others[chunk],
                 pool), progress, should_stop)
         return mean, variance + self.covariance.nugget
+
+
+ROW_HASH_SEED = 20261202
+"""Seed of the fixed random weights that hash rows of sample indices (see :func:`distinct_rows`)."""
+
+
+def distinct_rows(rows: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """The distinct rows of an integer array (b, k), and for each row the index of its distinct row.
+
+    Rows are hashed by their dot product with fixed random 64-bit weights
+    (seed :data:`ROW_HASH_SEED`, wrapping on overflow) and the hashes made
+    unique, which is several times faster than sorting whole rows; the grouping
+    is then checked exactly (every row equal to its group's first row), and on a
+    hash collision the rows are grouped by ``numpy.unique(..., axis=0)`` instead.
+    """
+    weights = np.random.default_rng(ROW_HASH_SEED).integers(1, 2 ** 62, size=rows.shape[1], dtype=np.int64)
+    hashes = rows.astype(np.int64) @ weights
+    _, first, inverse = np.unique(hashes, return_index=True, return_inverse=True)
+    distinct = rows[first]
+    if not np.array_equal(distinct[inverse], rows):
+        distinct, inverse = np.unique(rows, axis=0, return_inverse=True)
+    return distinct, inverse.reshape(-1)
 
 
 def _target_covariates(covariates0: np.ndarray | None, count: int) -> np.ndarray | None:

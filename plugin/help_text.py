@@ -55,8 +55,9 @@ NEIGHBOURHOOD_HELP = [
      "cell is kriged from its k nearest samples (local kriging; 16 to 64 is common practice), faster for many "
      "samples and following local changes of the mean. It must be more than the number of trend terms (at "
      "least 2 for a constant mean). Local kriging is an approximation whose closeness depends on the model: "
-     "with up to 5,000 samples the log reports how far it is from kriging with all samples at 500 cells drawn "
-     "at random, and warns above 1 % of the sill."),
+     "with up to 2,000 samples the log reports how far it is from kriging with all samples at 500 cells drawn "
+     "at random, and warns above 1 % (of the standard deviation for the prediction, of the sill for the "
+     "variance)."),
     ("Search radius", "With local kriging only: neighbours farther than this (working CRS units, along the "
      "major axis; the search ellipse follows the model's anisotropy) are left out. Cells with too few samples "
      "in range are nodata, and the log says how many. Empty: no limit."),

@@ -8,7 +8,7 @@ from fieldcast.algorithms.covariance import CovarianceModel, Structure
 from fieldcast.algorithms.errors import Cancelled, FieldcastError
 from fieldcast.algorithms.kriging import KrigingPredictor
 from fieldcast.algorithms.mean import MEAN_KINDS, MeanModel
-from fieldcast.algorithms.neighbourhood import LocalKrigingPredictor
+from fieldcast.algorithms.neighbourhood import ROW_HASH_SEED, LocalKrigingPredictor, distinct_rows
 
 # Spherical log-zinc model with a nugget of 0.05, partial sill 0.59 and range 897 m: the magnitudes usually
 # quoted for the Meuse log-zinc variogram (from memory); anisotropic variant rotated to the river's course.
@@ -156,3 +156,19 @@ def test_clearly_negative_local_variance_is_refused_with_advice(meuse, meuse_gri
     monkeypatch.setattr(local, "_predict_group", below_zero)
     with pytest.raises(FieldcastError, match="clearly negative.*neighbourhood system.*nugget"):
         local.predict(meuse_grid.xy[:20])
+
+
+def test_distinct_rows_groups_exactly_even_on_a_hash_collision():
+    rng = np.random.default_rng(3)
+    rows = np.sort(rng.integers(0, 50, size=(400, 6)), axis=1)
+    rows[200:] = rows[:200][rng.permutation(200)]  # every row twice
+    distinct, inverse = distinct_rows(rows)
+    np.testing.assert_array_equal(distinct[inverse], rows)
+    assert len(distinct) == len(np.unique(rows, axis=0))
+    # Two rows whose 64-bit hashes are equal: their difference (0, 2^63) times the weights is 0 modulo 2^64 when
+    # the second weight is even, as it is for the fixed seed; the exact check must still keep them apart.
+    clash = np.array([[0, 2 ** 62], [0, -2 ** 62]], dtype=np.int64)
+    weights = np.random.default_rng(ROW_HASH_SEED).integers(1, 2 ** 62, size=2, dtype=np.int64)
+    assert (clash @ weights)[0] == (clash @ weights)[1], "the fixed seed no longer gives this collision"
+    distinct, inverse = distinct_rows(clash)
+    assert len(distinct) == 2 and np.array_equal(distinct[inverse], clash)
