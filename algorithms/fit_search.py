@@ -143,8 +143,7 @@ class SearchProblem:
                     should_stop: Callable[[], bool] | None) -> SearchProblem:
         """Centre and scale the coordinates, standardise the values, and measure the data."""
         basis = MeanBasis.from_design(design)
-        residual = y - basis.q @ (basis.q.T @ y)
-        value_scale = math.sqrt(float(np.mean(residual ** 2)))
+        value_scale = float(basis.residual_rms(y))
         if not value_scale > 0:
             raise FieldcastError("The mean model reproduces the values exactly, leaving nothing for a "
                                  "covariance model; choose a simpler mean model or fewer covariates.")
@@ -161,8 +160,7 @@ class SearchProblem:
     @property
     def contrasts(self) -> int:
         """``n - p`` for REML, ``n`` for ML: the ``m`` in ``m log(s^2)`` and in BIC."""
-        n, p = self.basis.q.shape
-        return n - p if self.method == "reml" else n
+        return self.basis.contrasts(self.method)
 
     def subset(self, size: int, seed: int = 0) -> SearchProblem:
         """The same problem on a random subset of the samples (bounds unchanged)."""

@@ -93,6 +93,17 @@ class MeanBasis:
             )
         return cls(q, r, 2.0 * float(np.sum(np.log(diagonal))))
 
+    def contrasts(self, method: str) -> int:
+        """``n - p`` for REML, ``n`` for ML: the number of error contrasts the likelihood counts."""
+        n, p = self.q.shape
+        return n - p if method == "reml" else n
+
+    def residual_rms(self, y: np.ndarray) -> np.ndarray:
+        """Root mean square of the least-squares residual ``y - Q Q^T y``: a scalar for (n,) ``y``, one per column
+        of (n, m) ``y``."""
+        residual = y - self.q @ (self.q.T @ y)
+        return np.sqrt(np.mean(residual ** 2, axis=0))
+
     def coefficients(self, basis_coefficients: np.ndarray) -> np.ndarray:
         """Coefficients for the columns of ``F`` from those for the columns of ``Q``."""
         if self.r.size == 0:
@@ -426,8 +437,7 @@ class LikelihoodObjective(PairedObjective):
         at ``c = q / m``. Used to screen starts without fitting the sill.
         """
         terms = self._value_terms(theta)
-        n, p = self.basis.q.shape
-        m = n - p if self.method == "reml" else n
+        m = self.basis.contrasts(self.method)
         q = float(self.y @ terms.weights)
         return terms.minus_two_log_likelihood + m * math.log(q / m) + m - q, math.log(q / m)
 

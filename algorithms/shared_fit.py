@@ -82,17 +82,12 @@ class JointObjective(PairedObjective):
     shape (n, m): one column per field, each divided by its own scale.
     """
 
-    def contrasts(self) -> int:
-        """``M``: ``n - p`` for REML, ``n`` for ML."""
-        n, p = self.basis.q.shape
-        return n - p if self.method == "reml" else n
-
     def field_scales(self, theta: np.ndarray) -> np.ndarray:
         """``c_f = q_f / M`` of every field for the model ``theta`` (units of the columns of ``y``, squared)."""
         model = self.layout.unpack(theta)
         solution = GlsSolution.solve(self._matrix(model.covariance_from_offsets(self.dx, self.dy), model.sill),
                                      self.y, self.basis)
-        return np.einsum("ij,ij->j", self.y, solution.weights) / self.contrasts()
+        return np.einsum("ij,ij->j", self.y, solution.weights) / self.basis.contrasts(self.method)
 
     def value_and_gradient(self, theta: np.ndarray) -> tuple[float, np.ndarray]:
         """``-2 l`` with every field's scale profiled out, and its gradient with respect to ``theta``."""
@@ -101,7 +96,7 @@ class JointObjective(PairedObjective):
         pair_covariance, derivatives = covariance_derivatives(self.layout, model, self.dx, self.dy)
         solution = GlsSolution.solve(self._matrix(pair_covariance, model.sill), self.y, self.basis)
         self.jitter = solution.jitter
-        contrasts, fields = self.contrasts(), self.y.shape[1]
+        contrasts, fields = self.basis.contrasts(self.method), self.y.shape[1]
         quadratic = np.einsum("ij,ij->j", self.y, solution.weights)
         log_det_gram = solution.log_det_gram if self.method == "reml" else 0.0
         value = (fields * (contrasts * LOG_2PI + solution.log_det_k + log_det_gram)
@@ -197,8 +192,7 @@ def _checked_fields(xy: np.ndarray, values: np.ndarray, options: FitOptions, nam
 
 def _column_scales(values: np.ndarray, basis: MeanBasis, names: list[str]) -> np.ndarray:
     """Root mean square of each column's residual from the least-squares mean."""
-    residual = values - basis.q @ (basis.q.T @ values)
-    scales = np.sqrt(np.mean(residual ** 2, axis=0))
+    scales = basis.residual_rms(values)
     for name, scale in zip(names, scales):
         if not scale > 0:
             raise FieldcastError(f"The mean model reproduces {name} exactly, leaving nothing for a covariance "

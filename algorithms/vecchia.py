@@ -308,7 +308,7 @@ class VecchiaData:
             if self.method == "reml":
                 value += 2.0 * float(np.sum(np.log(np.diag(gram[0])))) + self.basis.log_det_r_squared
         residual = white_y - white_q @ beta
-        value += float(residual @ residual) + (n - p if self.method == "reml" else n) * LOG_2PI
+        value += float(residual @ residual) + self.basis.contrasts(self.method) * LOG_2PI
         if layout is None:
             return VecchiaTerms(value, beta, None)
         trend_weight = None

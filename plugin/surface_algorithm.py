@@ -155,10 +155,9 @@ class SurfaceAlgorithm(RasterAlgorithm):
             settings["fieldcast_neighbours"] = predictor.neighbours
             if neighbourhood.search_radius is not None:
                 settings["fieldcast_search_radius"] = neighbourhood.search_radius
+            neighbourhood.log_gap(predictor, xy, values, grid, inside, feedback)
         if scale.threshold is not None:
             settings["fieldcast_threshold"] = scale.threshold
-        if isinstance(predictor, LocalKrigingPredictor):
-            neighbourhood.log_gap(predictor, xy, values, grid, inside, feedback)
         rasters = [FieldRasters(field, paths, {"fieldcast_model": document.to_dict(), **settings},
                                 document.covariance.sill / documents[0].covariance.sill)
                    for document, (field, paths) in zip(documents, outputs)]
