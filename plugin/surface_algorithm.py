@@ -106,9 +106,10 @@ class Neighbourhood:
                  f"(square root of the sill) in the prediction and {gap.variance:.1%} of the sill in the variance "
                  "(modelling scale).")
         if max(gap.prediction, gap.variance) > GAP_WARNING:
-            feedback.pushWarning(words + " More neighbours, or NEIGHBOURS = 0 (all samples), bring it closer: the "
-                                 "model's far-reaching correlation (long range, spherical shape or large nugget "
-                                 "share) makes far samples matter.")
+            feedback.pushWarning(words + " More neighbours, or NEIGHBOURS = 0 (all samples), bring it closer. Local "
+                                 "kriging estimates the mean from each cell's neighbours, which shows most at cells "
+                                 "beyond the model's range from their samples; a spherical shape, a large nugget "
+                                 "share or a long range also let samples outside the neighbourhood matter.")
         else:
             feedback.pushInfo(words)
 
