@@ -26,10 +26,10 @@ from qgis.core import (
 from qgis.PyQt.QtCore import QCoreApplication
 
 from ..algorithms.errors import Cancelled, FieldcastError
-from ..algorithms.fitting import FIT_METHODS, KERNEL_CHOICES
-from ..algorithms.mean import MeanModel
-from ..algorithms.model_file import ModelDocument
-from ..algorithms.transform import TRANSFORM_KINDS, Transform
+from ..algorithms.fit.fitting import FIT_METHODS, KERNEL_CHOICES
+from ..algorithms.io.model_file import ModelDocument
+from ..algorithms.model.mean import MeanModel
+from ..algorithms.model.transform import TRANSFORM_KINDS, Transform
 from .icons import icon, icon_path
 from .model_source import FitSettings, describe_document, fit_document, load_document
 from .report.page import ReportError

@@ -18,10 +18,10 @@ from qgis.core import (
     QgsWkbTypes,
 )
 
-from ..algorithms.crossval import CrossValidation, leave_one_out, local_leave_one_out
-from ..algorithms.crs import parse_crs
 from ..algorithms.errors import FieldcastError
-from ..algorithms.model_file import ModelDocument
+from ..algorithms.io.crs import parse_crs
+from ..algorithms.io.model_file import ModelDocument
+from ..algorithms.predict.crossval import CrossValidation, leave_one_out, local_leave_one_out
 from .algorithm_base import FieldcastAlgorithm, check_neighbours, progress_callback, search_words
 from .field_types import field_type
 from .help_text import MODEL_FILE_HELP, TARGET_CRS_HELP, compose_help

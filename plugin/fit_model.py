@@ -5,12 +5,12 @@ from collections.abc import Callable, Mapping
 
 from qgis.core import QgsProcessingOutputNumber, QgsProcessingParameterFileDestination
 
-from ..algorithms.crossval import leave_one_out
-from ..algorithms.crs import parse_crs
 from ..algorithms.errors import Cancelled
-from ..algorithms.fitting import FitResult
-from ..algorithms.model_file import ModelDocument
-from ..algorithms.variogram import directional_semivariograms, empirical_semivariogram
+from ..algorithms.fit.fitting import FitResult
+from ..algorithms.fit.variogram import directional_semivariograms, empirical_semivariogram
+from ..algorithms.io.crs import parse_crs
+from ..algorithms.io.model_file import ModelDocument
+from ..algorithms.predict.crossval import leave_one_out
 from .algorithm_base import FieldcastAlgorithm, progress_callback
 from .help_text import FIT_HELP, TARGET_CRS_HELP, compose_help
 from .model_source import fit_document

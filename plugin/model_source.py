@@ -6,12 +6,12 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ..algorithms.crs import parse_crs, same_crs
 from ..algorithms.errors import FieldcastError
-from ..algorithms.fitting import FitOptions, FitResult, fit_model
-from ..algorithms.model_file import ModelDocument
-from ..algorithms.shared_fit import fit_shared
-from ..algorithms.transform import Transform
+from ..algorithms.fit.fitting import FitOptions, FitResult, fit_model
+from ..algorithms.fit.shared import fit_shared
+from ..algorithms.io.crs import parse_crs, same_crs
+from ..algorithms.io.model_file import ModelDocument
+from ..algorithms.model.transform import Transform
 from .working_crs import WorkingCrs
 
 
@@ -54,7 +54,7 @@ def fit_shared_documents(xy: np.ndarray, values: np.ndarray, transform: Transfor
                          should_stop: Callable[[], bool] | None = None) -> list[ModelDocument]:
     """One correlation model fitted jointly to several fields (``values`` (n, k)), as one document per field.
 
-    See :mod:`..algorithms.shared_fit`: every document holds the shared model at its field's scale.
+    See :mod:`..algorithms.fit.shared`: every document holds the shared model at its field's scale.
     """
     options = FitOptions(kernel=settings.kernel, anisotropy=settings.anisotropy, mean=settings.trend,
                          method=settings.method, progress=progress, should_stop=should_stop)

@@ -15,8 +15,8 @@ from qgis.core import (
 )
 
 from ..algorithms.errors import Cancelled, FieldcastError
-from ..algorithms.mean import MeanModel
-from ..algorithms.transform import Transform
+from ..algorithms.model.mean import MeanModel
+from ..algorithms.model.transform import Transform
 from .algorithm_base import check_neighbours, progress_callback
 from .help_text import BACKTRANSFORM_HELP, FIT_HELP, GRID_HELP, NEIGHBOURHOOD_HELP, TARGET_CRS_HELP, compose_help
 from .model_source import FitSettings, describe_document, fit_document, fit_shared_documents

@@ -17,8 +17,8 @@ from qgis.core import (
 )
 
 from ..algorithms.errors import FieldcastError
-from ..algorithms.grid import GridSpec, default_pixel_size
-from ..algorithms.mask import cell_mask
+from ..algorithms.io.grid import GridSpec, default_pixel_size
+from ..algorithms.io.mask import cell_mask
 from .algorithm_base import FieldcastAlgorithm
 
 MAX_DEFAULT_CELLS = 1_000_000

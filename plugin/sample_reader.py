@@ -13,10 +13,10 @@ from dataclasses import dataclass
 import numpy as np
 from qgis.core import QgsCoordinateReferenceSystem, QgsFeatureRequest, QgsProcessingFeatureSource
 
-from ..algorithms.crs import same_crs, transform_points
 from ..algorithms.errors import FieldcastError
-from ..algorithms.samples import Samples, check_samples, merge_coincident
-from ..algorithms.transform import Transform
+from ..algorithms.io.crs import same_crs, transform_points
+from ..algorithms.io.samples import Samples, check_samples, merge_coincident
+from ..algorithms.model.transform import Transform
 from .working_crs import WorkingCrs, choose_working_crs
 
 

@@ -20,8 +20,13 @@ from qgis.core import (
 )
 
 from ..algorithms.errors import Cancelled, FieldcastError
-from ..algorithms.geotiff import GeoTiffWriter
-from ..algorithms.simulation import RealisationSummary, SimulationResult, simulate_conditional, summarise_realisations
+from ..algorithms.io.geotiff import GeoTiffWriter
+from ..algorithms.simulate.simulation import (
+    RealisationSummary,
+    SimulationResult,
+    simulate_conditional,
+    summarise_realisations,
+)
 from .algorithm_base import check_neighbours, progress_callback, search_words
 from .field_types import field_type
 from .help_text import GRID_HELP, MODEL_FILE_HELP, TARGET_CRS_HELP, THRESHOLD_HELP, compose_help

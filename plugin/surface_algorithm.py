@@ -14,11 +14,11 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..algorithms.errors import FieldcastError
-from ..algorithms.grid import GridSpec
-from ..algorithms.kriging import KrigingPredictor
-from ..algorithms.model_file import ModelDocument
-from ..algorithms.neighbourhood import LocalKrigingPredictor
-from ..algorithms.neighbourhood_check import CHECK_SAMPLE_LIMIT, grid_targets, neighbourhood_gap
+from ..algorithms.io.grid import GridSpec
+from ..algorithms.io.model_file import ModelDocument
+from ..algorithms.predict.kriging import KrigingPredictor
+from ..algorithms.predict.local import LocalKrigingPredictor
+from ..algorithms.predict.neighbourhood_check import CHECK_SAMPLE_LIMIT, grid_targets, neighbourhood_gap
 from .algorithm_base import check_neighbours, search_words
 from .raster_algorithm import RasterAlgorithm
 from .surface import BACKTRANSFORMS, FieldRasters, SurfaceScale, cell_predictor, write_surfaces
@@ -88,7 +88,7 @@ class Neighbourhood:
                 inside: np.ndarray | None, feedback) -> None:
         """Say how far local kriging departs from kriging with all samples at a few cells, with advice above 1 %.
 
-        Done for up to :data:`..algorithms.neighbourhood_check.CHECK_SAMPLE_LIMIT` samples (the comparison
+        Done for up to :data:`..algorithms.predict.neighbourhood_check.CHECK_SAMPLE_LIMIT` samples (the comparison
         factorises the full system); with several fields, for the first. The check is a diagnostic: a
         problem in it is logged, never fatal.
         """

@@ -15,10 +15,10 @@ import numpy as np
 from engine import REPO_ROOT, load_engine
 
 load_engine()
-from fieldcast_engine.covariance import CovarianceModel, Structure  # noqa: E402
-from fieldcast_engine.fitting import fit_model  # noqa: E402
-from fieldcast_engine.kriging import KrigingPredictor  # noqa: E402
-from fieldcast_engine.mean import MeanModel  # noqa: E402
+from fieldcast_engine.fit.fitting import fit_model  # noqa: E402
+from fieldcast_engine.model.covariance import CovarianceModel, Structure  # noqa: E402
+from fieldcast_engine.model.mean import MeanModel  # noqa: E402
+from fieldcast_engine.predict.kriging import KrigingPredictor  # noqa: E402
 
 T = TypeVar("T")
 

@@ -1,6 +1,6 @@
 """Benchmark cases at scale: local kriging of many samples or many cells, the Vecchia fit, and many fields.
 
-Samples come from one circulant-embedding realisation (algorithms.circulant) of a known anisotropic
+Samples come from one circulant-embedding realisation (algorithms.simulate.circulant) of a known anisotropic
 exponential model on a fine lattice over a 10 km square, sampled at distinct random cells plus nugget
 noise, so their joint law is exactly the model's and drawing 100,000 of them takes seconds.
 """
@@ -22,17 +22,17 @@ from osgeo import ogr
 if "PROJ_LIB" not in os.environ:
     os.environ.setdefault("PROJ_DATA", str(Path(sys.base_prefix, "share", "proj")))
 load_engine()
-from fieldcast_engine.circulant import UnconditionalGenerator  # noqa: E402
-from fieldcast_engine.covariance import CovarianceModel, Structure  # noqa: E402
-from fieldcast_engine.fitting import FitOptions, fit_model  # noqa: E402
-from fieldcast_engine.geotiff import GeoTiffWriter  # noqa: E402
-from fieldcast_engine.grid import GridSpec, default_pixel_size  # noqa: E402
-from fieldcast_engine.likelihood import log_likelihood  # noqa: E402
-from fieldcast_engine.mask import cell_mask  # noqa: E402
-from fieldcast_engine.mean import MeanModel  # noqa: E402
-from fieldcast_engine.neighbourhood import LocalKrigingPredictor  # noqa: E402
-from fieldcast_engine.shared_fit import fit_shared  # noqa: E402
-from fieldcast_engine.vecchia_fit import fit_vecchia  # noqa: E402
+from fieldcast_engine.fit.fitting import FitOptions, fit_model  # noqa: E402
+from fieldcast_engine.fit.likelihood import log_likelihood  # noqa: E402
+from fieldcast_engine.fit.shared import fit_shared  # noqa: E402
+from fieldcast_engine.fit.vecchia_fit import fit_vecchia  # noqa: E402
+from fieldcast_engine.io.geotiff import GeoTiffWriter  # noqa: E402
+from fieldcast_engine.io.grid import GridSpec, default_pixel_size  # noqa: E402
+from fieldcast_engine.io.mask import cell_mask  # noqa: E402
+from fieldcast_engine.model.covariance import CovarianceModel, Structure  # noqa: E402
+from fieldcast_engine.model.mean import MeanModel  # noqa: E402
+from fieldcast_engine.predict.local import LocalKrigingPredictor  # noqa: E402
+from fieldcast_engine.simulate.circulant import UnconditionalGenerator  # noqa: E402
 
 SIDE = 10_000.0
 """Side of the study square (metres)."""

@@ -12,15 +12,15 @@ import numpy as np
 from engine import REPO_ROOT, load_engine
 
 load_engine()
-from fieldcast_engine.block import block_predict  # noqa: E402
-from fieldcast_engine.circulant import UnconditionalGenerator, covariance_factor  # noqa: E402
-from fieldcast_engine.covariance import CovarianceModel, Structure  # noqa: E402
-from fieldcast_engine.exceedance import exceedance_probability  # noqa: E402
-from fieldcast_engine.grid import GridSpec  # noqa: E402
-from fieldcast_engine.kriging import KrigingPredictor  # noqa: E402
-from fieldcast_engine.mean import MeanModel  # noqa: E402
-from fieldcast_engine.simulation import simulate_conditional, summarise_realisations  # noqa: E402
-from fieldcast_engine.transform import Transform  # noqa: E402
+from fieldcast_engine.io.grid import GridSpec  # noqa: E402
+from fieldcast_engine.model.covariance import CovarianceModel, Structure  # noqa: E402
+from fieldcast_engine.model.mean import MeanModel  # noqa: E402
+from fieldcast_engine.model.transform import Transform  # noqa: E402
+from fieldcast_engine.predict.block import block_predict  # noqa: E402
+from fieldcast_engine.predict.exceedance import exceedance_probability  # noqa: E402
+from fieldcast_engine.predict.kriging import KrigingPredictor  # noqa: E402
+from fieldcast_engine.simulate.circulant import UnconditionalGenerator, covariance_factor  # noqa: E402
+from fieldcast_engine.simulate.simulation import simulate_conditional, summarise_realisations  # noqa: E402
 
 # Spherical model of log(zinc) for the Meuse data (nugget 0.05, partial sill 0.59, range 900 m).
 MEUSE_MODEL = CovarianceModel((Structure("spherical", 0.59, 900.0),), nugget=0.05)

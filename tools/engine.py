@@ -17,7 +17,7 @@ ENGINE_NAME = "fieldcast_engine"
 def load_engine() -> ModuleType:
     """Import ``algorithms/`` as ``fieldcast_engine`` (idempotent) and return it.
 
-    After this call ``import fieldcast_engine.kriging`` and the like work.
+    After this call ``import fieldcast_engine.predict.kriging`` and the like work.
     """
     if ENGINE_NAME in sys.modules:
         return sys.modules[ENGINE_NAME]

@@ -77,7 +77,7 @@ from engine import load_engine  # noqa: E402
 from make_demo_data import TRUE_MEAN_LOG_PPM, true_covariance  # noqa: E402
 
 load_engine()
-from fieldcast_engine import covariance  # noqa: E402
+from fieldcast_engine.model import covariance  # noqa: E402
 
 truth = true_covariance(covariance)
 for s in truth.structures:

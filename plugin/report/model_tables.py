@@ -11,8 +11,8 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 
 if TYPE_CHECKING:
-    from ...algorithms.covariance import CovarianceModel
-    from ...algorithms.transform import Transform
+    from ...algorithms.model.covariance import CovarianceModel
+    from ...algorithms.model.transform import Transform
 
 FAMILY_NAMES = {
     "exponential": "exponential",

@@ -1,0 +1,1 @@
+"""Fitting covariance models: likelihoods (exact, Vecchia, joint), the fitter and its search, semivariograms."""

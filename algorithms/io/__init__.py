@@ -1,0 +1,1 @@
+"""Inputs and outputs: samples, grids, masks, GeoTIFF writing, model files, atomic writes, CRS helpers."""

@@ -1,0 +1,176 @@
+"""Sample preparation: merging coincident points and checking that data can be modelled.
+
+Two samples at the same location make the covariance matrix of the data
+singular when the model has no nugget, and they tell nothing about spatial
+variation at any distance but zero. :func:`merge_coincident` replaces each
+group of samples that lie within ``tolerance`` (CRS units) of one another
+by a single sample carrying their average value. :func:`check_samples`
+stops with a message saying what to change when the data cannot be
+modelled at all.
+"""
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+from scipy.sparse import coo_matrix
+from scipy.sparse.csgraph import connected_components
+from scipy.spatial import cKDTree
+
+from ..errors import FieldcastError
+
+
+@dataclass(frozen=True)
+class Samples:
+    """Samples after merging coincident points.
+
+    Attributes
+    ----------
+    xy : ndarray of shape (m, 2)
+        Locations in CRS units; a merged sample sits at the location of the
+        first sample of its group.
+    values : ndarray of shape (m,)
+        Values; a merged sample carries the mean of its group.
+    ids : ndarray of shape (m,)
+        Identifiers; a merged sample keeps the id of the first sample of its group.
+    merged_groups : int
+        Number of locations at which two or more input samples were merged.
+    merged_points : int
+        Number of input samples that went into those groups, so
+        ``m = n - merged_points + merged_groups`` for ``n`` input samples.
+    """
+
+    xy: np.ndarray
+    values: np.ndarray
+    ids: np.ndarray
+    merged_groups: int
+    merged_points: int
+
+
+def _sample_arrays(xy: np.ndarray, values: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """``xy`` as an (n, 2) and ``values`` as an (n,) float array, or a FieldcastError naming the shapes."""
+    xy = np.asarray(xy, dtype=float)
+    values = np.asarray(values, dtype=float)
+    if xy.ndim != 2 or xy.shape[1] != 2:
+        raise FieldcastError(
+            f"Sample coordinates must be an (n, 2) array of easting and northing; got shape {xy.shape}. "
+            "Use a point layer (multipoints are not supported)."
+        )
+    if values.shape != (len(xy),):
+        raise FieldcastError(f"Expected one value per sample ({len(xy)}), got an array of shape {values.shape}.")
+    return xy, values
+
+
+def merge_coincident(
+    xy: np.ndarray, values: np.ndarray, ids: np.ndarray | None = None, tolerance: float = 0.0
+) -> Samples:
+    """Average the values of samples that share a location.
+
+    Two samples belong to the same group when they are at most
+    ``tolerance`` apart; groups are closed under this relation (single
+    linkage), so a chain of samples each within ``tolerance`` of the next
+    forms one group even if its ends are further apart. Groups are listed in
+    the order of their first sample. The inputs are not modified.
+
+    Parameters
+    ----------
+    xy : ndarray of shape (n, 2)
+        Sample locations in CRS units; must be finite.
+    values : ndarray of shape (n,)
+        Sample values (modelling scale).
+    ids : ndarray of shape (n,), optional
+        Sample identifiers; defaults to ``0 .. n-1``.
+    tolerance : float
+        Largest distance (CRS units) at which two samples count as the same
+        location; 0 merges exact duplicates only.
+
+    Returns
+    -------
+    Samples
+    """
+    xy, values = _sample_arrays(xy, values)
+    n = len(xy)
+    ids = np.arange(n) if ids is None else np.asarray(ids)
+    if ids.shape != (n,):
+        raise FieldcastError(f"Expected one id per sample ({n}), got an array of shape {ids.shape}.")
+    if not (math.isfinite(tolerance) and tolerance >= 0):
+        raise FieldcastError(
+            f"The merge tolerance must be a distance of 0 or more (CRS units); got {tolerance!r}."
+        )
+    if not np.all(np.isfinite(xy)):
+        raise FieldcastError(
+            "Some samples have missing or infinite coordinates; drop those features or repair their geometry."
+        )
+    if n == 0:
+        return Samples(xy.copy(), values.copy(), ids.copy(), 0, 0)
+
+    pairs = cKDTree(xy).query_pairs(r=float(tolerance), output_type="ndarray")
+    links = coo_matrix((np.ones(len(pairs)), (pairs[:, 0], pairs[:, 1])), shape=(n, n))
+    _, label = connected_components(links, directed=False)
+    # Renumber groups in the order of their first sample.
+    _, first_index, group = np.unique(label, return_index=True, return_inverse=True)
+    order = np.argsort(first_index)
+    rank = np.empty_like(order)
+    rank[order] = np.arange(len(order))
+    group = rank[group]
+    first_index = first_index[order]
+
+    size = np.bincount(group)
+    mean_value = np.bincount(group, weights=values) / size
+    merged = size > 1
+    return Samples(
+        xy=xy[first_index].copy(),
+        values=mean_value,
+        ids=ids[first_index].copy(),
+        merged_groups=int(np.count_nonzero(merged)),
+        merged_points=int(size[merged].sum()),
+    )
+
+
+def check_samples(xy: np.ndarray, values: np.ndarray, minimum: int = 3) -> None:
+    """Raise FieldcastError when the samples cannot be modelled.
+
+    The checks, in order: the shapes; at least ``minimum`` samples with
+    finite coordinates and value; no missing or infinite coordinates; no
+    missing or infinite values; values not all equal.
+
+    Parameters
+    ----------
+    xy : ndarray of shape (n, 2)
+        Sample locations in CRS units.
+    values : ndarray of shape (n,)
+        Sample values (modelling scale).
+    minimum : int
+        Fewest usable samples accepted (3 by default: a covariance model
+        needs at least a few pairs of points).
+    """
+    xy, values = _sample_arrays(xy, values)
+    coordinates_ok = np.all(np.isfinite(xy), axis=1)
+    values_ok = np.isfinite(values)
+    usable = int(np.count_nonzero(coordinates_ok & values_ok))
+    if usable < minimum:
+        unusable = len(xy) - usable
+        dropped = f" ({unusable} more have missing or infinite values or coordinates)" if unusable else ""
+        raise FieldcastError(
+            f"There are only {usable} usable samples{dropped}; at least {minimum} are needed to model "
+            "spatial variation. Choose a layer or field with more samples that have a value."
+        )
+    if not np.all(coordinates_ok):
+        bad = np.flatnonzero(~coordinates_ok)
+        raise FieldcastError(
+            f"{len(bad)} sample(s) have missing or infinite coordinates (first at row {bad[0]}); "
+            "drop those features or repair their geometry."
+        )
+    if not np.all(values_ok):
+        bad = np.flatnonzero(~values_ok)
+        raise FieldcastError(
+            f"{len(bad)} sample value(s) are missing or infinite (first at row {bad[0]}); filter those "
+            "features out, or choose a field without empty values."
+        )
+    spread = float(np.max(values) - np.min(values))
+    if spread <= 1e-12 * float(np.max(np.abs(values))):
+        raise FieldcastError(
+            f"All {len(values)} values equal {values[0]:g}: there is nothing to interpolate (the surface "
+            "would be that constant everywhere). Check that the right field was chosen."
+        )

@@ -1,0 +1,1 @@
+"""Linear-algebra helpers: stacks of small systems and the BLAS thread switch."""

@@ -1,0 +1,1 @@
+"""Covariance models: correlation families, covariance structures, mean models, transforms, fit parameters."""

@@ -1,0 +1,1 @@
+"""Prediction: global and local kriging, block kriging, cross-validation, exceedance, neighbourhood check."""

@@ -1,0 +1,206 @@
+"""Leave-one-out and k-fold cross-validation of a kriging model in closed form.
+
+For a held-out set ``B`` of samples, kriging from the other samples (with
+the trend re-estimated from them) leaves the errors and error covariance
+below (Dubrule 1983, *Math. Geol.* 15(6), 687-699, who derives them from
+the partitioned inverse of the kriging matrix; one-point and block sets
+follow from the same argument)::
+
+    e_B = y_B - prediction_B = (Q_BB)^-1 (Q y)_B
+    cov(e_B)                 = (Q_BB)^-1
+
+with ``Q = K^-1`` for a known mean (``y`` replaced by ``y - m``) and
+``Q = K^-1 - K^-1 F (F^T K^-1 F)^-1 F^T K^-1`` when the mean or trend is
+estimated. ``K`` includes the nugget, so the variance is that of the error
+in predicting the observation itself. Leave-one-out is the case of
+one-point sets: ``e_i = (Q y)_i / Q_ii`` and ``var_i = 1 / Q_ii``.
+
+Local leave-one-out (:func:`local_leave_one_out`) has no such closed form:
+each sample is kriged from its nearest other samples by the batched local
+systems of :mod:`.local`.
+"""
+from __future__ import annotations
+
+import math
+from collections.abc import Callable
+from dataclasses import dataclass
+
+import numpy as np
+from scipy import linalg
+
+from ..errors import FieldcastError
+from ..model.covariance import CovarianceModel
+from ..model.mean import MeanModel
+from .kriging import UNIT_ROUNDOFF, KrigingPredictor, cholesky_factor
+from .local import LocalKrigingPredictor
+
+NORMAL_95_QUANTILE = 1.959963984540054
+"""Two-sided 95 % quantile of the standard normal distribution."""
+
+
+@dataclass(frozen=True)
+class CrossValidation:
+    """Per-sample cross-validation results, all arrays of shape (n,).
+
+    Attributes
+    ----------
+    observed : ndarray
+        Sample values (modelling scale, u).
+    predicted : ndarray
+        Prediction of each sample from the samples outside its fold (u).
+    variance : ndarray
+        Prediction-error variance of the observation, nugget included (u2).
+    residual : ndarray
+        ``observed - predicted`` (u).
+    standardized : ndarray
+        ``residual / sqrt(variance)`` (dimensionless; ideally standard normal).
+    fold : ndarray of int
+        Fold number of each sample (its own index for leave-one-out).
+    """
+
+    observed: np.ndarray
+    predicted: np.ndarray
+    variance: np.ndarray
+    residual: np.ndarray
+    standardized: np.ndarray
+    fold: np.ndarray
+
+    @property
+    def resolved_rows(self) -> np.ndarray:
+        """Boolean mask (n,) of the samples that got a prediction (finite prediction and variance).
+
+        Local leave-one-out leaves NaN for samples with too few neighbours; the
+        global schemes resolve every sample.
+        """
+        return np.isfinite(self.predicted) & np.isfinite(self.variance)
+
+    def resolved(self) -> CrossValidation:
+        """The results of the samples of :attr:`resolved_rows` only, in their order."""
+        rows = self.resolved_rows
+        return CrossValidation(**{name: getattr(self, name)[rows] for name in
+                                  ("observed", "predicted", "variance", "residual", "standardized", "fold")})
+
+    def summary(self) -> dict:
+        """Summary statistics over the resolved samples (see :meth:`resolved`), as plain floats.
+
+        ``ME`` mean residual (u), ``RMSE`` root mean squared residual (u),
+        ``MSDR`` mean squared standardised residual (about 1 when the
+        variances are right), ``COVERAGE95`` share of samples with
+        ``|standardized| <= 1.959964`` (about 0.95 under normal errors), ``n``
+        the number of resolved samples they are computed from (NaN
+        statistics when it is 0).
+        """
+        rows = self.resolved()
+        if not len(rows.residual):
+            return {"ME": math.nan, "RMSE": math.nan, "MSDR": math.nan, "COVERAGE95": math.nan, "n": 0}
+        return {
+            "ME": float(np.mean(rows.residual)),
+            "RMSE": float(np.sqrt(np.mean(rows.residual**2))),
+            "MSDR": float(np.mean(rows.standardized**2)),
+            "COVERAGE95": float(np.mean(np.abs(rows.standardized) <= NORMAL_95_QUANTILE)),
+            "n": len(rows.residual),
+        }
+
+
+def _result(values: np.ndarray, residual: np.ndarray, variance: np.ndarray,
+            fold: np.ndarray) -> CrossValidation:
+    """Assemble a :class:`CrossValidation` from observations, errors and error variances."""
+    observed = np.array(values, dtype=float)
+    return CrossValidation(observed=observed, predicted=observed - residual, variance=variance,
+                           residual=residual, standardized=residual / np.sqrt(variance), fold=fold)
+
+
+def leave_one_out(xy: np.ndarray, values: np.ndarray, covariance: CovarianceModel, mean: MeanModel,
+                  covariates: np.ndarray | None = None) -> CrossValidation:
+    """Leave-one-out cross-validation in closed form (Dubrule 1983).
+
+    Each sample is predicted by kriging from all the others with the same
+    covariance model, the trend coefficients re-estimated without it.
+    Needs more samples than the mean model has terms plus one.
+    """
+    predictor = KrigingPredictor(xy, values, covariance, mean, covariates)
+    if predictor.n <= mean.n_terms + 1:
+        raise FieldcastError(
+            f"Leave-one-out with a {mean.kind} mean needs at least {mean.n_terms + 2} samples; "
+            f"got {predictor.n}."
+        )
+    precision, precision_values = predictor.projected_precision()
+    diagonal = np.diag(precision).copy()
+    if not diagonal.min() > len(diagonal) * UNIT_ROUNDOFF * diagonal.max():
+        raise FieldcastError(
+            f"Leaving out sample {int(np.argmin(diagonal))} leaves the {mean.kind} mean impossible to "
+            "estimate from the others; use a simpler mean model."
+        )
+    return _result(values, precision_values / diagonal, 1.0 / diagonal, np.arange(predictor.n))
+
+
+def local_leave_one_out(xy: np.ndarray, values: np.ndarray, covariance: CovarianceModel, mean: MeanModel, *,
+                        neighbours: int, search_radius: float | None = None, covariates: np.ndarray | None = None,
+                        progress: Callable[[float], None] | None = None,
+                        should_stop: Callable[[], bool] | None = None) -> CrossValidation:
+    """Leave-one-out cross-validation with local kriging from each sample's nearest other samples.
+
+    Each sample is predicted as by :class:`.neighbourhood.LocalKrigingPredictor`
+    (same arguments) from its ``neighbours`` nearest other samples within
+    ``search_radius``, the trend re-estimated from them; the variance is that
+    of the error in predicting the observation (nugget included), as for
+    :func:`leave_one_out`. With ``neighbours >= n - 1`` this is global
+    leave-one-out. Samples with fewer than ``mean.n_terms + 1`` other samples
+    in range (or a singular local system) get NaN prediction, residual and
+    variance; :meth:`CrossValidation.summary` leaves them out and
+    :meth:`CrossValidation.resolved` drops them.
+
+    Raises
+    ------
+    FieldcastError
+        For fewer than ``mean.n_terms + 2`` samples, or the arguments refused by
+        :class:`.neighbourhood.LocalKrigingPredictor`.
+    """
+    predictor = LocalKrigingPredictor(xy, values, covariance, mean, neighbours=neighbours,
+                                      search_radius=search_radius, covariates=covariates)
+    if predictor.n <= predictor.minimum_neighbours:
+        raise FieldcastError(
+            f"Leave-one-out with a {mean.kind} mean needs at least {predictor.minimum_neighbours + 1} samples; "
+            f"got {predictor.n}."
+        )
+    predicted, variance = predictor.leave_one_out(progress=progress, should_stop=should_stop)
+    return _result(values, np.asarray(values, dtype=float) - predicted, variance, np.arange(predictor.n))
+
+
+def random_folds(n: int, k: int, seed: int) -> np.ndarray:
+    """Fold number (0..k-1) for each of ``n`` samples: a seeded shuffle dealt out in turn.
+
+    Fold sizes differ by at most one; the same ``seed`` gives the same folds.
+    """
+    if not 2 <= k <= n:
+        raise FieldcastError(
+            f"The number of folds must be between 2 and the number of samples ({n}); got {k}."
+        )
+    order = np.random.default_rng(seed).permutation(n)
+    fold = np.empty(n, dtype=int)
+    fold[order] = np.arange(n) % k
+    return fold
+
+
+def k_fold(xy: np.ndarray, values: np.ndarray, covariance: CovarianceModel, mean: MeanModel, *, k: int = 10,
+           seed: int = 0, covariates: np.ndarray | None = None) -> CrossValidation:
+    """K-fold cross-validation in closed form over seeded random folds.
+
+    Every fold is predicted by kriging from the samples in the other folds
+    (trend re-estimated from them): ``e_B = (Q_BB)^-1 (Q y)_B`` and the
+    per-sample variance is the diagonal of ``(Q_BB)^-1``.
+    """
+    predictor = KrigingPredictor(xy, values, covariance, mean, covariates)
+    fold = random_folds(predictor.n, int(k), seed)
+    precision, precision_values = predictor.projected_precision()
+    residual = np.empty(predictor.n)
+    variance = np.empty(predictor.n)
+    for number in range(int(k)):
+        members = np.flatnonzero(fold == number)
+        factor = (cholesky_factor(
+            precision[np.ix_(members, members)], f"precision matrix of fold {number}",
+            f"The samples outside this fold cannot estimate the {mean.kind} mean; use more folds or a "
+            "simpler mean model."), True)
+        residual[members] = linalg.cho_solve(factor, precision_values[members], check_finite=False)
+        variance[members] = np.diag(linalg.cho_solve(factor, np.eye(len(members)), check_finite=False))
+    return _result(values, residual, variance, fold)

@@ -1,0 +1,518 @@
+"""Local (moving-neighbourhood) kriging: each target is predicted from its nearest samples only.
+
+Neighbour search. The samples and targets are mapped into the anisotropy
+frame of the first covariance structure, ``(major, minor / ratio)`` with the
+axes of :meth:`.covariance.Structure.axis_offsets`, so that the Euclidean
+distance there is the structure's range times its scaled distance ``r``: the
+search circle of that frame is an ellipse that follows the model (major
+semi-axis ``search_radius``, minor semi-axis ``ratio * search_radius``, CRS
+units). A :class:`scipy.spatial.cKDTree` returns the ``neighbours`` nearest
+samples within the radius (all samples when there are fewer).
+
+Kriging system. With the ``k`` neighbours, their covariance ``K`` (nugget on
+the diagonal), their design ``F`` (``k x p``, see :mod:`..model.mean`), the latent
+covariance ``c0`` between the target and the neighbours and the target's
+design row ``f0``, the kriging weights ``lambda`` and Lagrange multipliers
+``nu`` solve the system (Cressie 1993, *Statistics for Spatial Data*, rev.
+ed., section 3.4 on universal kriging; ordinary kriging is ``p = 1``)::
+
+    [ K    F ] [lambda]   [c0]
+    [ F^T  0 ] [  nu  ] = [f0]
+
+    mean(x0)     = lambda^T y                (plus the known mean for p = 0)
+    variance(x0) = C(0) - lambda^T c0 - nu^T f0
+
+``C(0)`` is the latent-field variance (sill without nugget); with a known
+mean (simple kriging) ``p = 0`` and ``y`` is the data minus that mean. The
+system is solved by block elimination: ``K = L L^T`` (Cholesky), then the
+Schur complement ``A = F^T K^-1 F = R R^T``, which gives the same numbers as
+the GLS form of :mod:`.kriging`::
+
+    beta = A^-1 F^T K^-1 y
+    mean(x0)     = f0^T beta + (L^-1 c0)^T L^-1 (y - F beta)
+    variance(x0) = C(0) - |L^-1 c0|^2 + |R^-1 (f0 - F^T K^-1 c0)|^2
+
+The trend terms are evaluated in the search frame, centred on the
+neighbours and scaled by their spread: a linear change of coordinates, so
+it spans the same polynomials as the global frame (the result is unchanged)
+but keeps ``A`` well conditioned; covariances are divided by the sill for
+the same reason. When every structure shares the first one's azimuth and
+ratio (as fitted models do), covariances are computed directly from
+distances in the search frame.
+
+Batches. Targets are taken ``chunk_size`` at a time and grouped by
+neighbour set (as a set of samples): each distinct set is factorised once
+(``L``, ``R``, ``beta``, ``L^-1 (y - F beta)``; stacks of Cholesky factors
+and triangular solves from :mod:`..linalg.batched`), and every target then needs one
+triangular solve with its set's factor. Sets are factorised in stacks of up
+to :data:`STACK_SIZE`, and each stack's targets are solved right after it, in
+the same worker thread (the factors are still in cache); there is no Python
+loop per target.
+
+Several fields. ``y`` may be an (n, m) matrix of fields observed at the
+same samples that share the covariance and mean model: each neighbour set
+whitens all columns at once (``beta`` is (p, m) per set) and a target's
+``m`` means come from the same ``L^-1 c0`` and trend row; the variance is
+shared (the weights do not depend on ``y``; Cressie 1993, section 3.4).
+Internally ``y`` is always (n, m), with ``m = 1`` for one field.
+
+Nodata. A target with fewer than ``n_terms + 1`` neighbours within the
+search radius (at least one more sample than trend terms; common practice),
+or whose local system is singular (``K`` or ``A`` not numerically positive
+definite, e.g. collinear neighbours under a linear trend), gets NaN for mean
+(every field) and variance; :attr:`LocalKrigingPredictor.last_unresolved` counts them.
+
+Weights. :meth:`LocalKrigingPredictor.weights` returns the kriging weights
+``lambda`` of the same systems in sparse form, each target's neighbour
+indices and weights (conditional simulation gathers the residuals with
+them); unresolved targets are marked with NaN weights.
+
+Leave-one-out. :meth:`LocalKrigingPredictor.leave_one_out` predicts each
+sample from its ``k`` nearest other samples: the ``k + 1`` nearest are found
+in the search frame, the sample itself (at distance 0) is dropped, and the
+same batched systems give the prediction and latent variance, to which the
+nugget is added (the error in predicting the observation).
+"""
+from __future__ import annotations
+
+import math
+import os
+from collections.abc import Callable
+from concurrent.futures import ThreadPoolExecutor
+
+import numpy as np
+from scipy.spatial import cKDTree
+
+from ..errors import Cancelled, FieldcastError
+from ..linalg.batched import back_substitution, cholesky_stack, forward_substitution
+from ..model.correlation import correlation
+from ..model.covariance import CovarianceModel, Structure
+from ..model.mean import MeanModel
+from .kriging import as_points, as_value_columns, check_distinct, checked_variance
+
+WORKERS = min(4, os.cpu_count() or 1)
+"""Threads factorising and solving stacks at once (numpy releases the GIL in its loops and LAPACK)."""
+
+STACK_SIZE = 2048
+"""Largest number of neighbour sets factorised, or targets solved, at once (bounds temporary memory)."""
+
+LEAVE_ONE_OUT_CHUNK = 8192
+"""Samples predicted at once by :meth:`LocalKrigingPredictor.leave_one_out` (between progress reports)."""
+
+
+def search_frame(structure: Structure, xy: np.ndarray) -> np.ndarray:
+    """Coordinates ``(major, minor / ratio)`` in which distances follow the structure's anisotropy.
+
+    Parameters
+    ----------
+    structure : Structure
+        Supplies the azimuth and the minor/major ratio.
+    xy : ndarray of shape (n, 2)
+        Points in CRS units.
+
+    Returns
+    -------
+    ndarray of shape (n, 2)
+        Points in the stretched frame (CRS units along the major axis).
+    """
+    major, minor = structure.axis_offsets(xy[:, 0], xy[:, 1])
+    return np.column_stack([major, minor / structure.ratio])
+
+
+class LocalKrigingPredictor:
+    """Kriging from the nearest samples of each target (moving neighbourhood).
+
+    ``xy``, ``values``, ``mean`` and ``covariates`` are as for
+    :class:`.kriging.KrigingPredictor` (simple, ordinary or universal kriging
+    by the kind of mean; ``values`` (n,) for one field or (n, m) for m fields
+    at the same points, with one known mean for all); the first structure of
+    ``covariance`` also shapes the search ellipse.
+
+    Parameters
+    ----------
+    neighbours : int
+        Largest number of samples per target (at least ``mean.n_terms + 1``).
+    search_radius : float, optional
+        Major semi-axis of the search ellipse (CRS units); None searches all samples.
+
+    After construction ``n`` is the number of samples, ``neighbours`` the
+    number used per target (``min(neighbours, n)``) and
+    ``minimum_neighbours`` the fewest a target needs (``mean.n_terms + 1``);
+    after each :meth:`predict`, ``last_unresolved`` counts its targets left
+    as NaN (too few neighbours in range, or a singular local system).
+    """
+
+    def __init__(self, xy: np.ndarray, values: np.ndarray, covariance: CovarianceModel, mean: MeanModel, *,
+                 neighbours: int = 32, search_radius: float | None = None,
+                 covariates: np.ndarray | None = None) -> None:
+        points = as_points(xy, "Sample coordinates")
+        observed = as_value_columns(values, len(points))
+        self.n = len(points)
+        self.minimum_neighbours = mean.n_terms + 1
+        if int(neighbours) != neighbours or neighbours < self.minimum_neighbours:
+            raise FieldcastError(
+                f"The number of neighbours must be a whole number of at least {self.minimum_neighbours} "
+                f"(one more than the {mean.n_terms} trend term(s) of the {mean.kind} mean); got {neighbours!r}."
+            )
+        if self.n < self.minimum_neighbours:
+            raise FieldcastError(
+                f"The {mean.kind} mean model needs at least {self.minimum_neighbours} samples; there are {self.n}."
+            )
+        if search_radius is not None and not (math.isfinite(search_radius) and search_radius > 0):
+            raise FieldcastError(
+                f"The search radius must be a positive distance in CRS units (or empty for no limit); "
+                f"got {search_radius!r}."
+            )
+        if covariance.nugget == 0:
+            check_distinct(points)
+        self.covariance = covariance
+        self.mean = mean
+        self.neighbours = min(int(neighbours), self.n)
+        self.search_radius = search_radius
+        self.last_unresolved = 0
+        self._covariates = None if covariates is None else np.array(covariates, dtype=float).reshape(self.n, -1)
+        mean.design(points[:1], None if self._covariates is None else self._covariates[:1])  # checks the columns
+        self._single_field = observed.ndim == 1
+        self._residual = (observed - mean.known_mean(1)[0]).reshape(self.n, -1)  # (n, fields)
+        self._local_mean = MeanModel(mean.kind, mean.known_value, (0.0, 0.0), 1.0, mean.covariate_names)
+        first = covariance.structures[0]
+        self._isotropic_in_frame = all(s.azimuth == first.azimuth and s.ratio == first.ratio
+                                       for s in covariance.structures)
+        self._frame_xy = search_frame(first, points)
+        self._tree = cKDTree(self._frame_xy)
+
+    def _covariance(self, dx: np.ndarray, dy: np.ndarray) -> np.ndarray:
+        """Latent covariance for offsets in the search frame (see :func:`search_frame`)."""
+        if self._isotropic_in_frame:
+            distance = dx * dx
+            distance += dy * dy
+            return self._covariance_at(np.sqrt(distance, out=distance))
+        first = self.covariance.structures[0]
+        theta = math.radians(first.azimuth)
+        minor = dy * first.ratio  # back to CRS offsets: the frame's rotation is orthogonal
+        return self.covariance.covariance_from_offsets(dx * math.sin(theta) + minor * math.cos(theta),
+                                                       dx * math.cos(theta) - minor * math.sin(theta))
+
+    def _covariance_at(self, distance: np.ndarray) -> np.ndarray:
+        """Latent covariance at search-frame distances (all structures share the frame)."""
+        first, *others = self.covariance.structures
+        total = correlation(first.family, distance / first.range, first.smoothness)
+        total *= first.partial_sill
+        for s in others:
+            total += s.partial_sill * correlation(s.family, distance / s.range, s.smoothness)
+        return total
+
+    def _set_covariances(self, points: np.ndarray) -> np.ndarray:
+        """Latent covariance matrices (u, k, k) of point sets (u, k, 2) in the search frame."""
+        return self._covariance(points[:, :, None, 0] - points[:, None, :, 0],
+                                points[:, :, None, 1] - points[:, None, :, 1])
+
+    def _design(self, offsets: np.ndarray, covariates: np.ndarray | None) -> np.ndarray:
+        """Trend rows at scaled offsets of any leading shape ``(..., 2)``: shape ``(..., p)``."""
+        flat = offsets.reshape(-1, 2)
+        flat_covariates = None if covariates is None else covariates.reshape(len(flat), -1)
+        return self._local_mean.design(flat, flat_covariates).reshape(offsets.shape[:-1] + (-1,))
+
+    def _factorise(self, sets: np.ndarray) -> dict[str, np.ndarray]:
+        """Block elimination of the kriging systems of neighbour sets (u, k); see the module docstring."""
+        points = self._frame_xy[sets]
+        centre = points.mean(axis=1)
+        spread = np.abs(points - centre[:, None, :]).max(axis=(1, 2))
+        scale = np.where(spread > 0, spread, 1.0)
+        k = sets.shape[1]
+        sill = self.covariance.sill
+        matrices = self._set_covariances(points) / sill
+        matrices[:, np.arange(k), np.arange(k)] = 1.0  # (field variance + nugget) / sill
+        factors, solvable = cholesky_stack(matrices)  # K / sill = L L^T
+        covariates = None if self._covariates is None else self._covariates[sets]
+        design = self._design((points - centre[:, None, :]) / scale[:, None, None], covariates)
+        fields = self._residual.shape[1]
+        white = forward_substitution(factors, np.concatenate([self._residual[sets], design], axis=2))
+        white_values, white_design = white[:, :, :fields], white[:, :, fields:]
+        trend_factors, trend_solvable = cholesky_stack(np.swapaxes(white_design, 1, 2) @ white_design)
+        projected = np.einsum("uji,ujf->uif", white_design, white_values)
+        coefficients = back_substitution(trend_factors, forward_substitution(trend_factors, projected))  # (u, p, m)
+        white_residual = white_values - np.einsum("uij,ujf->uif", white_design, coefficients)  # L^-1 (y - F beta)
+        return {"factors": factors, "white_design": white_design, "trend_factors": trend_factors,
+                "coefficients": coefficients, "white_residual": white_residual,
+                "solvable": solvable & trend_solvable, "centre": centre, "scale": scale}
+
+    def _in_stacks(self, neighbour_index: np.ndarray, pool: ThreadPoolExecutor,
+                   solve: Callable[[np.ndarray, np.ndarray, np.ndarray, dict[str, np.ndarray]], None]) -> np.ndarray:
+        """Factorise the distinct neighbour sets of targets with neighbours (b, k), a stack at a time in ``pool``.
+
+        For each stack of up to :data:`STACK_SIZE` distinct sets (sorted sample indices), in the same
+        worker as its factorisation, ``solve(rows, sets, chosen, system)`` gets the targets ``rows`` whose
+        sets are in the stack, the stack's ``sets`` (s, k), each row's set ``chosen`` (an index into
+        ``sets``) and the stack's factorisation (:meth:`_factorise`). Returns the sorted set of each target.
+        """
+        ordered = np.sort(neighbour_index, axis=1)
+        sets, set_of_target = distinct_rows(ordered)
+        order = np.argsort(set_of_target, kind="stable")
+        starts = np.arange(0, len(sets), STACK_SIZE)
+        edges = np.searchsorted(set_of_target[order], np.append(starts, len(sets)))
+
+        def work(stack: int) -> None:
+            first = starts[stack]
+            rows = order[edges[stack]:edges[stack + 1]]
+            stack_sets = sets[first:first + STACK_SIZE]
+            solve(rows, stack_sets, set_of_target[rows] - first, self._factorise(stack_sets))
+
+        list(pool.map(work, range(len(starts))))
+        return ordered
+
+    def _target_terms(self, targets: np.ndarray, covariates0: np.ndarray | None, sets: np.ndarray,
+                      chosen: np.ndarray, system: dict[str, np.ndarray]) -> tuple[np.ndarray, np.ndarray]:
+        """``L^-1 c0 / sill`` (b, k) and the scaled trend row ``f0`` (b, p) of targets whose sets are ``chosen``."""
+        points = self._frame_xy[sets[chosen]]
+        cross = self._covariance(targets[:, None, 0] - points[:, :, 0],
+                                 targets[:, None, 1] - points[:, :, 1]) / self.covariance.sill
+        white_cross = forward_substitution(system["factors"][chosen], cross[:, :, None])[:, :, 0]
+        return white_cross, self._design((targets - system["centre"][chosen]) / system["scale"][chosen, None],
+                                         covariates0)
+
+    def _predict_group(self, targets: np.ndarray, covariates0: np.ndarray | None, neighbour_index: np.ndarray,
+                       pool: ThreadPoolExecutor) -> tuple[np.ndarray, np.ndarray]:
+        """Means (b, fields) and variance (b,) of targets (b, 2, search frame) that all have ``k`` neighbours (b, k)."""
+        mean = np.empty((len(targets), self._residual.shape[1]))
+        variance = np.empty(len(targets))
+
+        def solve(rows: np.ndarray, sets: np.ndarray, chosen: np.ndarray, system: dict[str, np.ndarray]) -> None:
+            white_cross, gap = self._target_terms(targets[rows], None if covariates0 is None else covariates0[rows],
+                                                  sets, chosen, system)
+            found_mean = (np.einsum("bif,bi->bf", system["white_residual"][chosen], white_cross)
+                          + np.einsum("bif,bi->bf", system["coefficients"][chosen], gap)
+                          + self.mean.known_mean(1)[0])
+            gap -= np.einsum("bji,bj->bi", system["white_design"][chosen], white_cross)
+            white_gap = forward_substitution(system["trend_factors"][chosen], gap[:, :, None])[:, :, 0]
+            found_variance = self.covariance.field_variance + self.covariance.sill * (
+                np.einsum("bi,bi->b", white_gap, white_gap) - np.einsum("bi,bi->b", white_cross, white_cross))
+            unsolvable = ~system["solvable"][chosen]
+            found_mean[unsolvable] = np.nan
+            found_variance[unsolvable] = np.nan
+            mean[rows], variance[rows] = found_mean, found_variance
+
+        self._in_stacks(neighbour_index, pool, solve)
+        return mean, variance
+
+    def _predict_chunk(self, targets: np.ndarray, covariates0: np.ndarray | None, pool: ThreadPoolExecutor
+                       ) -> tuple[np.ndarray, np.ndarray]:
+        """Means (b, fields) and variance (b,) (NaN where unresolved) for one chunk of targets."""
+        targets = search_frame(self.covariance.structures[0], targets)
+        return self._predict_found(targets, covariates0, self._nearest(targets, self.neighbours), pool)
+
+    def _nearest(self, targets: np.ndarray, k: int) -> np.ndarray:
+        """Indices (b, k) of the ``k`` nearest samples within the search radius of targets (b, 2, search frame).
+
+        Missing neighbours (fewer samples in range) are marked with index ``n`` and come last in each row.
+        """
+        radius = np.inf if self.search_radius is None else self.search_radius
+        _, found = self._tree.query(targets, k=k, distance_upper_bound=radius, workers=WORKERS)
+        return found.reshape(len(targets), k)
+
+    def _groups_by_count(self, found: np.ndarray) -> list[tuple[int, np.ndarray]]:
+        """``(k, rows)`` for each neighbour count ``k`` of at least :attr:`minimum_neighbours` in ``found`` (b, k)."""
+        count = np.count_nonzero(found < self.n, axis=1)  # the tree marks missing neighbours with index n
+        return [(int(k), np.flatnonzero(count == k)) for k in np.unique(count[count >= self.minimum_neighbours])]
+
+    def _predict_found(self, targets: np.ndarray, covariates0: np.ndarray | None, found: np.ndarray,
+                       pool: ThreadPoolExecutor) -> tuple[np.ndarray, np.ndarray]:
+        """Means (b, fields) and latent variance (b,), NaN where unresolved, of targets (b, 2) from neighbours (b, k).
+
+        Targets are in the search frame.
+        """
+        mean = np.full((len(targets), self._residual.shape[1]), np.nan)
+        variance = np.full(len(targets), np.nan)
+        for k, rows in self._groups_by_count(found):
+            mean[rows], variance[rows] = self._predict_group(
+                targets[rows], None if covariates0 is None else covariates0[rows], found[rows, :k], pool)
+        return mean, checked_variance(variance, self.covariance.sill, unresolved_allowed=True,
+                                      system="some neighbourhood system")
+
+    def predict(self, xy0: np.ndarray, covariates0: np.ndarray | None = None, *, include_nugget: bool = False,
+                chunk_size: int = 8192, progress: Callable[[float], None] | None = None,
+                should_stop: Callable[[], bool] | None = None) -> tuple[np.ndarray, np.ndarray]:
+        """Local kriging mean and error variance at target locations.
+
+        Same arguments and results as :meth:`.kriging.KrigingPredictor.predict`
+        (targets ``xy0`` (M, 2), ``covariates0`` (M, q), ``include_nugget``,
+        ``progress``, ``should_stop``), except:
+
+        chunk_size : int
+            Targets per chunk; targets of one chunk that share a neighbour set
+            share its factorisation. Memory is about ``3 * chunk_size * k**2 * 8`` bytes.
+
+        Returns
+        -------
+        mean : ndarray of shape (M,), or (M, m) for m fields
+            Prediction (u), one column per field.
+        variance : ndarray of shape (M,)
+            Error variance (u2), shared by the fields. Both are NaN (in every
+            column) for targets with too few neighbours within the search radius
+            (or a singular local system), counted in :attr:`last_unresolved`.
+        """
+        targets = as_points(xy0, "Prediction locations")
+        size = int(chunk_size)
+        if size < 1:
+            raise FieldcastError(f"chunk_size must be a positive number of locations; got {chunk_size!r}.")
+        covariates0 = _target_covariates(covariates0, len(targets))
+        prediction, variance = self._in_chunks(
+            len(targets), size, lambda chunk, pool: self._predict_chunk(
+                targets[chunk], None if covariates0 is None else covariates0[chunk], pool), progress, should_stop)
+        if include_nugget:
+            variance += self.covariance.nugget
+        return prediction, variance
+
+    def weights(self, xy0: np.ndarray, covariates0: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:
+        """Sparse kriging weights: each target's neighbours and their weights in :meth:`predict`.
+
+        ``lambda = K^-1 c0 + K^-1 F A^-1 (f0 - F^T K^-1 c0)`` over the target's
+        neighbours (module docstring), so that
+        ``mean(x0) = sum_j weights[j] * (y[indices[j]] - m) + m`` with ``m``
+        the known mean of simple kriging (0 otherwise; then the weights of a
+        target sum to one under ordinary kriging). All targets are solved at
+        once: pass a few thousand at a time.
+
+        Parameters
+        ----------
+        xy0 : ndarray of shape (m, 2)
+            Target locations (CRS units).
+        covariates0 : ndarray of shape (m, q), optional
+            External-drift values at the targets.
+
+        Returns
+        -------
+        indices : ndarray of int, shape (m, k)
+            Sample indices of each target's neighbours, ``k = neighbours``.
+            A target with fewer neighbours in range fills its last slots with
+            index 0 and weight 0.
+        weights : ndarray of shape (m, k)
+            Kriging weights (unitless). Unresolved targets (too few neighbours
+            within the search radius, or a singular local system) are marked
+            with NaN in every slot, so any sum over them is NaN; they are
+            counted in :attr:`last_unresolved`.
+        """
+        targets = search_frame(self.covariance.structures[0], as_points(xy0, "Prediction locations"))
+        covariates0 = _target_covariates(covariates0, len(targets))
+        found = self._nearest(targets, self.neighbours)
+        indices = np.zeros(found.shape, dtype=np.intp)
+        weights = np.full(found.shape, np.nan)
+        with ThreadPoolExecutor(max_workers=WORKERS) as pool:
+            for k, rows in self._groups_by_count(found):
+                indices[rows, :k], weights[rows, :k] = self._weights_group(
+                    targets[rows], None if covariates0 is None else covariates0[rows], found[rows, :k], pool)
+                weights[rows, k:] = np.where(np.isnan(weights[rows, :1]), np.nan, 0.0)  # singular: NaN throughout
+        self.last_unresolved = int(np.count_nonzero(np.isnan(weights[:, 0])))
+        return indices, weights
+
+    def _weights_group(self, targets: np.ndarray, covariates0: np.ndarray | None, neighbour_index: np.ndarray,
+                       pool: ThreadPoolExecutor) -> tuple[np.ndarray, np.ndarray]:
+        """Neighbours (b, k) and weights (b, k; NaN if singular) of targets (b, 2, search frame) with ``k`` each.
+
+        In whitened terms ``lambda = L^-T (L^-1 c0 + L^-1 F A^-1 (f0 - F^T K^-1 c0))``
+        (covariances divided by the sill throughout, which leaves ``lambda`` unchanged).
+        """
+        weights = np.empty(neighbour_index.shape)
+
+        def solve(rows: np.ndarray, sets: np.ndarray, chosen: np.ndarray, system: dict[str, np.ndarray]) -> None:
+            white_cross, gap = self._target_terms(targets[rows], None if covariates0 is None else covariates0[rows],
+                                                  sets, chosen, system)
+            white_design = system["white_design"][chosen]
+            gap -= np.einsum("bji,bj->bi", white_design, white_cross)
+            trend_factors = system["trend_factors"][chosen]
+            multipliers = back_substitution(trend_factors, forward_substitution(trend_factors, gap[:, :, None]))
+            white_cross += (white_design @ multipliers)[:, :, 0]
+            found = back_substitution(system["factors"][chosen], white_cross[:, :, None])[:, :, 0]
+            found[~system["solvable"][chosen]] = np.nan
+            weights[rows] = found
+
+        return self._in_stacks(neighbour_index, pool, solve), weights
+
+    def _in_chunks(self, count: int, size: int,
+                   solve: Callable[[slice, ThreadPoolExecutor], tuple[np.ndarray, np.ndarray]],
+                   progress: Callable[[float], None] | None,
+                   should_stop: Callable[[], bool] | None) -> tuple[np.ndarray, np.ndarray]:
+        """Mean and variance of ``count`` targets, ``solve``-d ``size`` at a time with progress and cancel.
+
+        The mean is (count,) for one field given as (n,) values, else (count, fields).
+        Sets :attr:`last_unresolved`.
+        """
+        prediction = np.empty((count, self._residual.shape[1]))
+        variance = np.empty(count)
+        chunks = [slice(start, start + size) for start in range(0, count, size)]
+        with ThreadPoolExecutor(max_workers=WORKERS) as pool:
+            for done, chunk in enumerate(chunks, start=1):
+                if should_stop is not None and should_stop():
+                    raise Cancelled("Local kriging was cancelled.")
+                prediction[chunk], variance[chunk] = solve(chunk, pool)
+                if progress is not None:
+                    progress(done / len(chunks))
+        self.last_unresolved = int(np.count_nonzero(np.isnan(variance)))
+        return (prediction[:, 0] if self._single_field else prediction), variance
+
+    def leave_one_out(self, *, progress: Callable[[float], None] | None = None,
+                      should_stop: Callable[[], bool] | None = None) -> tuple[np.ndarray, np.ndarray]:
+        """Each sample predicted by local kriging from its ``neighbours`` nearest other samples.
+
+        The ``k + 1`` nearest samples of each sample are searched in the
+        anisotropy frame and the sample itself is dropped (if coincident
+        samples tie with it, the farthest of the ``k + 1`` is dropped
+        instead), so ``k = min(neighbours, n - 1)`` others remain. The local
+        system is the one of :meth:`predict`, its trend re-estimated from
+        those neighbours. ``progress`` and ``should_stop`` are as for
+        :meth:`predict`; samples are taken :data:`LEAVE_ONE_OUT_CHUNK` at a time.
+
+        Returns
+        -------
+        mean : ndarray of shape (n,), or (n, m) for m fields
+            Prediction of each sample value (u).
+        variance : ndarray of shape (n,)
+            Prediction-error variance of the observation, nugget included
+            (u2): the latent kriging variance plus the nugget, shared by the
+            fields. Both NaN for samples with too few other
+            samples within the search radius (or a singular local system),
+            counted in :attr:`last_unresolved`.
+        """
+        k = min(self.neighbours, self.n - 1)
+        found = self._nearest(self._frame_xy, k + 1)
+        keep = found != np.arange(self.n)[:, None]
+        keep[keep.all(axis=1), -1] = False
+        others = found[keep].reshape(self.n, k)
+        mean, variance = self._in_chunks(
+            self.n, LEAVE_ONE_OUT_CHUNK, lambda chunk, pool: self._predict_found(
+                self._frame_xy[chunk], None if self._covariates is None else self._covariates[chunk], others[chunk],
+                pool), progress, should_stop)
+        return mean, variance + self.covariance.nugget
+
+
+ROW_HASH_SEED = 20261202
+"""Seed of the fixed random weights that hash rows of sample indices (see :func:`distinct_rows`)."""
+
+
+def distinct_rows(rows: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """The distinct rows of an integer array (b, k), and for each row the index of its distinct row.
+
+    Rows are hashed by their dot product with fixed random 64-bit weights
+    (seed :data:`ROW_HASH_SEED`, wrapping on overflow) and the hashes made
+    unique, which is several times faster than sorting whole rows; the grouping
+    is then checked exactly (every row equal to its group's first row), and on a
+    hash collision the rows are grouped by ``numpy.unique(..., axis=0)`` instead.
+    """
+    weights = np.random.default_rng(ROW_HASH_SEED).integers(1, 2 ** 62, size=rows.shape[1], dtype=np.int64)
+    hashes = rows.astype(np.int64) @ weights
+    _, first, inverse = np.unique(hashes, return_index=True, return_inverse=True)
+    distinct = rows[first]
+    if not np.array_equal(distinct[inverse], rows):
+        distinct, inverse = np.unique(rows, axis=0, return_inverse=True)
+    return distinct, inverse.reshape(-1)
+
+
+def _target_covariates(covariates0: np.ndarray | None, count: int) -> np.ndarray | None:
+    """External-drift values at ``count`` targets as a float array (count, q); None stays None."""
+    if covariates0 is None:
+        return None
+    covariates0 = np.asarray(covariates0, dtype=float)
+    if len(covariates0) != count:
+        raise FieldcastError(f"Got covariate values for {len(covariates0)} prediction locations but there "
+                             f"are {count} locations.")
+    return covariates0.reshape(count, -1)

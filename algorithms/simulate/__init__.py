@@ -1,0 +1,1 @@
+"""Conditional simulation: circulant embedding and conditioning by kriging."""

@@ -1,0 +1,287 @@
+"""Tests of covariance-model fitting (algorithms/fitting.py, fit_search.py, fit_warnings.py)."""
+from __future__ import annotations
+
+import json
+import math
+
+import numpy as np
+import pytest
+from sklearn.gaussian_process import GaussianProcessRegressor
+from sklearn.gaussian_process.kernels import RBF, ConstantKernel, Matern, WhiteKernel
+
+from fieldcast.algorithms.errors import Cancelled, FieldcastError
+from fieldcast.algorithms.fit import search as fit_search
+from fieldcast.algorithms.fit.bound_warnings import bound_warnings
+from fieldcast.algorithms.fit.fitting import AUTO_FAMILIES, FIT_METHODS, KERNEL_CHOICES, fit_model
+from fieldcast.algorithms.fit.likelihood import log_likelihood
+from fieldcast.algorithms.fit.variogram import fit_wls
+from fieldcast.algorithms.model.covariance import CovarianceModel, Structure
+from fieldcast.algorithms.model.mean import MeanModel
+from fieldcast.algorithms.model.parameters import (
+    NUGGET_BOUNDS,
+    SMOOTHNESS_BOUNDS,
+    DataScales,
+    ParameterLayout,
+    parameter_bounds,
+)
+
+
+def simulate(model: CovarianceModel, n: int, seed: int, side: float = 1000.0,
+             mean: float = 5.0) -> tuple[np.ndarray, np.ndarray]:
+    """Gaussian field with covariance ``model`` at ``n`` uniform random points (Cholesky of K)."""
+    rng = np.random.default_rng(seed)
+    xy = rng.uniform(0.0, side, (n, 2))
+    values = mean + np.linalg.cholesky(model.data_covariance(xy)) @ rng.normal(size=n)
+    return xy, values
+
+
+ANISOTROPIC = CovarianceModel((Structure("exponential", 1.0, 250.0, 30.0, 0.4),), 0.1)
+ISOTROPIC = CovarianceModel((Structure("matern32", 1.0, 150.0),), 0.1)
+
+
+def test_choices_are_published():
+    assert FIT_METHODS == ("reml", "ml", "wls")
+    assert KERNEL_CHOICES == ("auto", "exponential", "spherical", "gaussian", "matern32", "matern52", "matern")
+
+
+def test_reml_recovers_anisotropy_and_range():
+    # Tolerances from 30 simulations of this design (seeds 0-29, 300 points, REML, exponential):
+    # sd of azimuth 5.2 deg, of ratio 0.066, of log(range) 0.31; each check allows 3 sd.
+    xy, values = simulate(ANISOTROPIC, 300, seed=0)
+    result = fit_model(xy, values, kernel="exponential")
+    structure = result.covariance.structures[0]
+    azimuth_error = (structure.azimuth - 30.0 + 90.0) % 180.0 - 90.0
+    assert abs(azimuth_error) <= 16.0
+    assert abs(structure.ratio - 0.4) <= 0.2
+    assert abs(math.log(structure.range / 250.0)) <= 0.93
+    assert result.warnings == []
+
+
+def test_auto_keeps_the_lowest_aic_and_lists_every_candidate():
+    xy, values = simulate(ANISOTROPIC, 120, seed=1)
+    result = fit_model(xy, values)
+    listed = {(c.family, c.anisotropy) for c in result.candidates}
+    assert listed == {(f, a) for f in AUTO_FAMILIES for a in (False, True)}
+    best = min(result.candidates, key=lambda c: c.aic)
+    assert result.aic == best.aic
+    assert result.covariance == best.covariance
+    for candidate in result.candidates:
+        # AIC = -2 l + 2 k (Akaike 1974); BIC = -2 l + k log(n - p) for REML (see fitting.py).
+        k = (candidate.aic + 2 * candidate.log_likelihood) / 2
+        assert k == pytest.approx(5 if candidate.anisotropy else 3)
+        assert candidate.bic == pytest.approx(-2 * candidate.log_likelihood + k * math.log(120 - 1))
+
+
+@pytest.mark.parametrize(("family", "reference_kernel"), [
+    ("matern32", Matern(length_scale=100.0, nu=1.5)),
+    # scikit-learn's RBF is exp(-d^2 / (2 l^2)); our gaussian exp(-(d/a)^2) is the same with a = sqrt(2) l,
+    # a rescaling of the range that leaves the maximised likelihood unchanged.
+    ("gaussian", RBF(length_scale=100.0)),
+])
+def test_ml_optimum_is_at_least_sklearns_optimum(family, reference_kernel):
+    # Reference: scikit-learn GaussianProcessRegressor maximising the log marginal likelihood (zero mean,
+    # isotropic Matern(nu=1.5) or RBF, times a constant, plus white noise, 5 restarts); ours: the same
+    # family, known mean 0, ML.
+    xy, values = simulate(CovarianceModel((Structure(family, 1.0, 150.0),), 0.1), 120, seed=2)
+    centred = values - values.mean()
+    kernel = ConstantKernel(1.0) * reference_kernel + WhiteKernel(0.1)
+    regressor = GaussianProcessRegressor(kernel, alpha=0.0, n_restarts_optimizer=5, random_state=0)
+    regressor.fit(xy, centred)
+    result = fit_model(xy, centred, kernel=family, anisotropy=False, mean="known", known_mean=0.0,
+                       method="ml")
+    assert result.log_likelihood >= regressor.log_marginal_likelihood_value_ - 1e-6
+    if family == "gaussian":
+        # Same model at the reference's optimum (a = sqrt(2) l): our likelihood equals scikit-learn's.
+        fitted = regressor.kernel_
+        reference = CovarianceModel((Structure("gaussian", fitted.k1.k1.constant_value,
+                                               math.sqrt(2.0) * fitted.k1.k2.length_scale),),
+                                    fitted.k2.noise_level)
+        direct = log_likelihood(xy, centred, reference, MeanModel.for_data("known", xy), "ml")
+        assert direct == pytest.approx(regressor.log_marginal_likelihood_value_, rel=1e-8, abs=1e-6)
+
+
+@pytest.mark.parametrize(("method", "kind"), [("reml", "linear"), ("ml", "constant"), ("reml", "known")])
+def test_reported_log_likelihood_is_that_of_the_reported_model(method, kind):
+    # The internal standardisation must not change the reported value: re-evaluate in data units.
+    xy, values = simulate(ISOTROPIC, 80, seed=3, mean=1000.0)
+    values = 250.0 * values
+    result = fit_model(xy + [181000.0, 333000.0], values, kernel="matern32", anisotropy=True, mean=kind,
+                       method=method, known_mean=250_000.0)
+    direct = log_likelihood(xy + [181000.0, 333000.0], values, result.covariance, result.mean, method)
+    assert result.log_likelihood == pytest.approx(direct, rel=1e-10, abs=1e-8)
+    assert result.n_parameters == 5 + (result.mean.n_terms if method == "ml" else 0)
+
+
+def test_units_follow_the_data():
+    # Variances scale with the square of the value unit; ranges with the coordinate unit.
+    xy, values = simulate(ISOTROPIC, 80, seed=4)
+    base = fit_model(xy, values, kernel="matern32", anisotropy=False)
+    scaled = fit_model(10.0 * xy, 100.0 * values, kernel="matern32", anisotropy=False)
+    assert scaled.covariance.structures[0].range == pytest.approx(10.0 * base.covariance.structures[0].range,
+                                                                  rel=1e-4)
+    assert scaled.covariance.sill == pytest.approx(1e4 * base.covariance.sill, rel=1e-4)
+    assert scaled.covariance.nugget == pytest.approx(1e4 * base.covariance.nugget, rel=1e-3)
+
+
+def test_covariates_enter_the_mean():
+    xy, values = simulate(ISOTROPIC, 100, seed=5)
+    covariate = xy[:, 0] / 1000.0
+    result = fit_model(xy, values + 3.0 * covariate, kernel="matern32", anisotropy=False, covariates=covariate)
+    assert result.mean.term_names == ("1", "covariate_1")
+    assert result.coefficients[1] == pytest.approx(3.0, abs=1.5)
+    direct = log_likelihood(xy, values + 3.0 * covariate, result.covariance, result.mean, "reml", covariate)
+    assert result.log_likelihood == pytest.approx(direct, rel=1e-10)
+
+
+def test_nested_fit_has_short_and_long_structures():
+    nested_truth = CovarianceModel((Structure("spherical", 0.5, 80.0), Structure("spherical", 1.0, 500.0)), 0.05)
+    xy, values = simulate(nested_truth, 150, seed=6)
+    single = fit_model(xy, values, kernel="spherical", anisotropy=False)
+    nested = fit_model(xy, values, kernel="spherical", anisotropy=False, nested=True)
+    short, long = nested.covariance.structures
+    assert short.range < long.range
+    assert nested.n_parameters == 5
+    # Two structures contain the single one as a special case, so the optimum cannot be worse.
+    assert nested.log_likelihood >= single.log_likelihood - 1e-3
+
+
+def test_matern_smoothness_is_fitted_or_kept():
+    xy, values = simulate(ISOTROPIC, 80, seed=7)
+    fitted = fit_model(xy, values, kernel="matern", anisotropy=False)
+    nu = fitted.covariance.structures[0].smoothness
+    assert SMOOTHNESS_BOUNDS[0] <= nu <= SMOOTHNESS_BOUNDS[1]
+    assert fitted.n_parameters == 4
+    fixed = fit_model(xy, values, kernel="matern", anisotropy=False, smoothness=1.5)
+    assert fixed.covariance.structures[0].smoothness == 1.5
+    assert fixed.n_parameters == 3
+    # nu = 1.5 is the matern32 family (Rasmussen & Williams 2006, eq. 4.17): same optimum.
+    matern32 = fit_model(xy, values, kernel="matern32", anisotropy=False)
+    assert fixed.log_likelihood == pytest.approx(matern32.log_likelihood, abs=1e-5)
+    assert fitted.log_likelihood >= fixed.log_likelihood - 1e-5
+
+
+def test_wls_delegates_to_the_variogram_fit_and_scores_by_reml():
+    xy, values = simulate(ANISOTROPIC, 150, seed=8)
+    result = fit_model(xy, values, kernel="spherical", method="wls", mean="linear")
+    mean = result.mean
+    design = mean.design(xy)
+    residual = values - design @ np.linalg.lstsq(design, values, rcond=None)[0]
+    direct = fit_wls(xy, residual, "spherical", anisotropy=True)
+    ours, theirs = result.covariance.structures[0], direct.structures[0]
+    assert ours.family == theirs.family
+    assert result.covariance.nugget == pytest.approx(direct.nugget, rel=1e-8)
+    for name in ("partial_sill", "range", "azimuth", "ratio"):
+        assert getattr(ours, name) == pytest.approx(getattr(theirs, name), rel=1e-8)
+    assert result.log_likelihood == pytest.approx(log_likelihood(xy, values, result.covariance, mean, "reml"))
+    assert result.summary()["likelihood_method"] == "reml"
+
+
+def test_a_range_on_its_upper_bound_is_reported():
+    # A strong linear trend fitted with a constant mean leaves no sill within the data: the range runs
+    # to its upper bound (5 times the data diameter) and the result must say so in plain words.
+    xy, noise = simulate(CovarianceModel((Structure("exponential", 0.05, 100.0),), 0.01), 100, seed=9)
+    values = noise + xy[:, 0] / 100.0
+    result = fit_model(xy, values, kernel="exponential", anisotropy=False)
+    assert any("range hit its upper bound" in w and "linear variogram" in w and "Try a trend" in w
+               for w in result.warnings)
+    assert result.summary()["warnings"] == result.warnings
+
+
+def test_pure_noise_reports_structure_or_range_at_a_bound():
+    rng = np.random.default_rng(10)
+    xy = rng.uniform(0.0, 1000.0, (80, 2))
+    result = fit_model(xy, rng.normal(size=80), kernel="exponential", anisotropy=False)
+    assert any("lower bound" in w for w in result.warnings)
+
+
+def test_coincident_samples_fit_without_nan():
+    xy, values = simulate(ISOTROPIC, 60, seed=11)
+    xy = np.vstack([xy, xy[:5]])
+    values = np.append(values, values[:5])
+    result = fit_model(xy, values, kernel="gaussian", anisotropy=False)
+    assert math.isfinite(result.log_likelihood)
+    assert result.covariance.nugget >= NUGGET_BOUNDS[0] * np.var(values) * 0.5
+
+
+def test_large_data_warm_start_matches_the_full_search(monkeypatch):
+    # Above the threshold the search starts on a subset; the refined optimum must be the full-data one.
+    xy, values = simulate(ISOTROPIC, 240, seed=12)
+    warm = fit_model(xy, values, kernel="matern32", anisotropy=True)
+    monkeypatch.setattr(fit_search, "WARM_START_THRESHOLD", 100)
+    monkeypatch.setattr(fit_search, "WARM_START_SIZE", 80)
+    subset_started = fit_model(xy, values, kernel="matern32", anisotropy=True)
+    assert subset_started.log_likelihood == pytest.approx(warm.log_likelihood, abs=1e-4)
+
+
+def test_summary_is_json_ready():
+    xy, values = simulate(ISOTROPIC, 60, seed=13)
+    summary = fit_model(xy, values, kernel="exponential").summary()
+    assert json.loads(json.dumps(summary)) == summary
+    assert {"method", "likelihood", "log_likelihood", "aic", "bic", "n", "n_parameters", "warnings",
+            "candidates"} <= set(summary)
+    assert summary["likelihood"] == "exact"
+    assert summary["n"] == 60
+    assert set(summary["candidates"][0]) == {"family", "anisotropy", "log_likelihood", "aic", "bic"}
+
+
+def test_progress_rises_to_one_and_cancel_stops():
+    xy, values = simulate(ISOTROPIC, 50, seed=14)
+    seen: list[float] = []
+    fit_model(xy, values, kernel="auto", anisotropy=False, progress=seen.append)
+    assert seen == sorted(seen) and seen[-1] == 1.0 and len(seen) > 3
+    calls = []
+
+    def stop_after_ten() -> bool:
+        calls.append(1)
+        return len(calls) > 10
+
+    with pytest.raises(Cancelled):
+        fit_model(xy, values, should_stop=stop_after_ten)
+
+
+@pytest.mark.parametrize(("change", "message"), [
+    (dict(xy=np.zeros((2, 2)) + [[0, 0], [1, 1]], values=np.array([1.0, 2.0])), "at least 3"),
+    (dict(values=np.where(np.arange(30) == 4, np.nan, 1.0 + np.arange(30))), "missing or infinite"),
+    (dict(values=np.full(30, 2.5)), "nothing to interpolate"),
+    (dict(kernel="cubic"), "Unknown kernel"),
+    (dict(method="least squares"), "Unknown fitting method"),
+    (dict(kernel="exponential", smoothness=1.0), "matern"),
+    (dict(kernel="matern", smoothness=9.0), "between"),
+    (dict(method="wls", nested=True), "Nested structures"),
+    (dict(mean="cubic"), "Unknown mean model"),
+    (dict(mean=MeanModel("constant"), covariates=np.ones(30)), "names none"),
+])
+def test_bad_input_gets_a_message_that_says_what_to_change(change, message):
+    rng = np.random.default_rng(15)
+    arguments = dict(xy=rng.uniform(0, 100, (30, 2)), values=rng.normal(size=30))
+    arguments.update(change)
+    with pytest.raises(FieldcastError, match=message):
+        fit_model(arguments.pop("xy"), arguments.pop("values"), **arguments)
+
+
+def test_inputs_are_not_modified():
+    xy, values = simulate(ISOTROPIC, 40, seed=16)
+    xy.setflags(write=False)
+    values.setflags(write=False)
+    fit_model(xy, values, kernel="exponential", mean="linear")
+
+
+def test_each_estimate_on_a_bound_gets_its_own_plain_warning():
+    layout = ParameterLayout("matern", 2, True)
+    bounds = parameter_bounds(layout, DataScales(smallest_spacing=10.0, diameter=1000.0, variance=2.0))
+    inside = np.array([0.0 if low is None else (low + high) / 2 for low, high in bounds])
+    assert bound_warnings(layout, inside, bounds) == []
+    expected = {"log_partial_sill_1": "partial sill of the short-range structure hit its lower bound",
+                "log_range_2": "range of the long-range structure hit its upper bound",
+                "log_ratio": "anisotropy ratio hit its lower bound",
+                "log_smoothness": "smoothness hit its upper bound",
+                "log_nugget": "nugget hit its lower bound"}
+    side = {"log_partial_sill_1": 0, "log_range_2": 1, "log_ratio": 0, "log_smoothness": 1, "log_nugget": 0}
+    theta = inside.copy()
+    for name, which in side.items():
+        theta[layout.index(name)] = bounds[layout.index(name)][which]
+    messages = bound_warnings(layout, theta, bounds)
+    assert len(messages) == len(expected)
+    for phrase in expected.values():
+        assert sum(phrase in m for m in messages) == 1
+    assert any("5000" in m for m in messages)  # the range bound in data units: 5 times the diameter

@@ -1,0 +1,291 @@
+"""Empirical semivariograms and their weighted least-squares fit."""
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pytest
+from scipy.optimize import approx_fprime
+from scipy.stats import spearmanr
+
+from fieldcast.algorithms.errors import FieldcastError
+from fieldcast.algorithms.fit import variogram
+from fieldcast.algorithms.fit.variogram import (
+    EmpiricalVariogram,
+    default_cutoff,
+    directional_semivariograms,
+    empirical_semivariogram,
+    fit_wls,
+)
+from fieldcast.algorithms.fit.variogram_fit import _collect_lags, _Criterion, fit_semivariogram_model
+from fieldcast.algorithms.model.covariance import CovarianceModel, Structure
+
+
+def brute_force_semivariogram(xy, values, edges, azimuth=None, tolerance=90.0):
+    """Matheron's estimator written as the textbook double loop over unordered pairs.
+
+    Definition: Matheron (1962), Cressie (1993, Statistics for Spatial Data) eq. 2.4.2,
+    gamma(h) = 1 / (2 |N(h)|) sum over N(h) of (z_i - z_j)^2.
+    """
+    n_lags = len(edges) - 1
+    count, distance_sum, square_sum = np.zeros(n_lags), np.zeros(n_lags), np.zeros(n_lags)
+    for i in range(len(xy)):
+        for j in range(i + 1, len(xy)):
+            dx, dy = xy[i, 0] - xy[j, 0], xy[i, 1] - xy[j, 1]
+            h = math.hypot(dx, dy)
+            direction = math.degrees(math.atan2(dx, dy)) % 180.0
+            if azimuth is not None:
+                gap = abs(direction - azimuth % 180.0)
+                if min(gap, 180.0 - gap) > tolerance:
+                    continue
+            for lag in range(n_lags):
+                if edges[lag] < h <= edges[lag + 1]:
+                    count[lag] += 1
+                    distance_sum[lag] += h
+                    square_sum[lag] += (values[i] - values[j]) ** 2
+    filled = count > 0
+    with np.errstate(invalid="ignore", divide="ignore"):
+        distance = np.where(filled, distance_sum / count, np.nan)
+        gamma = np.where(filled, square_sum / (2 * count), np.nan)
+    return count, distance, gamma
+
+
+@pytest.fixture(scope="module")
+def random_points():
+    rng = np.random.default_rng(11)
+    xy = rng.uniform(0, 100, size=(70, 2))
+    values = rng.normal(size=70) + 0.02 * xy[:, 0]
+    xy.setflags(write=False)
+    values.setflags(write=False)
+    return xy, values
+
+
+@pytest.mark.parametrize(("azimuth", "tolerance"), [(None, 22.5), (30.0, 20.0), (210.0, 20.0), (135.0, 45.0)])
+def test_estimator_matches_brute_force_double_loop(random_points, azimuth, tolerance, monkeypatch):
+    xy, values = random_points
+    # Small blocks, so the blocked pair loop is exercised across many block boundaries.
+    monkeypatch.setattr(variogram, "PAIRS_PER_BLOCK", 150)
+    result = empirical_semivariogram(xy, values, n_lags=8, cutoff=60.0, azimuth=azimuth, tolerance=tolerance)
+    # Definition: Matheron 1962 / Cressie 1993 eq. 2.4.2 (double loop above).
+    count, distance, gamma = brute_force_semivariogram(xy, values, result.lag_edges, azimuth,
+                                                       tolerance if azimuth is not None else 90.0)
+    assert np.array_equal(result.pairs, count)
+    filled = count > 0
+    assert np.allclose(result.distance[filled], distance[filled], rtol=1e-12)
+    assert np.allclose(result.gamma[filled], gamma[filled], rtol=1e-12)
+    assert np.array_equal(result.lag_edges, np.linspace(0, 60, 9))
+    assert result.azimuth == (None if azimuth is None else azimuth % 180.0)
+
+
+def test_directional_semivariograms_match_single_directions(random_points):
+    xy, values = random_points
+    together = directional_semivariograms(xy, values, azimuths=(0, 60, 120), tolerance=30.0, n_lags=5)
+    for result, azimuth in zip(together, (0, 60, 120)):
+        alone = empirical_semivariogram(xy, values, n_lags=5, azimuth=azimuth, tolerance=30.0)
+        assert np.array_equal(result.pairs, alone.pairs)
+        assert np.allclose(result.gamma, alone.gamma, equal_nan=True)
+    # Three 60-degree windows tile the half circle: each pair lands in one (or two, on a boundary).
+    omni = empirical_semivariogram(xy, values, n_lags=5)
+    assert np.all(np.sum([r.pairs for r in together], axis=0) >= omni.pairs)
+    assert omni.tolerance == 90.0 and omni.azimuth is None
+
+
+def test_transect_worked_example():
+    # Published formula on a worked example: on a transect of equally spaced values the
+    # semivariance at lag k is half the mean squared k-th difference (Matheron 1962;
+    # Cressie 1993 eq. 2.4.2 with N(k) = the n - k neighbours k steps apart).
+    xy = np.column_stack([np.arange(10.0), np.zeros(10)])
+    values = np.array([1.0, 3.0, 2.0, 5.0, 4.0, 4.0, 6.0, 8.0, 7.0, 9.0])
+    result = empirical_semivariogram(xy, values, n_lags=3, cutoff=3.0)
+    # By hand: first differences 2,-1,3,-1,0,2,2,-1,2 -> squares sum 28 over 9 pairs -> 28 / 18 = 14/9;
+    # second differences 1,2,2,-1,2,4,1,1 -> squares sum 32 over 8 pairs -> 32 / 16 = 2.
+    assert result.pairs.tolist() == [9, 8, 7]
+    assert result.gamma[0] == pytest.approx(14.0 / 9.0, rel=1e-12)
+    assert result.gamma[1] == pytest.approx(2.0, rel=1e-12)
+    assert np.allclose(result.distance, [1.0, 2.0, 3.0])
+    # The same pairs along the transect direction (east, 90 deg); none across it (north, 0 deg).
+    along = empirical_semivariogram(xy, values, n_lags=3, cutoff=3.0, azimuth=90.0)
+    assert np.allclose(along.gamma, result.gamma)
+    across = empirical_semivariogram(xy, values, n_lags=3, cutoff=3.0, azimuth=0.0)
+    # Documented: empty lags stay, with 0 pairs, gamma nan and distance at the lag middle.
+    assert across.pairs.tolist() == [0, 0, 0]
+    assert np.all(np.isnan(across.gamma))
+    assert np.allclose(across.distance, [0.5, 1.5, 2.5])
+
+
+def test_default_cutoff_is_a_third_of_the_diagonal():
+    # Common practice (one third of the extent); a 300 x 400 box has a 500 diagonal (3-4-5 triangle).
+    xy = np.array([[10.0, 20.0], [310.0, 420.0], [100.0, 100.0]])
+    assert default_cutoff(xy) == pytest.approx(500.0 / 3.0)
+    result = empirical_semivariogram(xy, np.array([1.0, 2.0, 4.0]))
+    assert result.cutoff == pytest.approx(500.0 / 3.0) and len(result.gamma) == 15
+
+
+@pytest.mark.parametrize(
+    ("kwargs", "words"),
+    [
+        ({"n_lags": 0}, "number of lags"),
+        ({"cutoff": -5.0}, "cutoff"),
+        ({"azimuth": 45.0, "tolerance": 0.0}, "angular tolerance"),
+        ({"azimuth": 45.0, "tolerance": 120.0}, "angular tolerance"),
+        ({"azimuth": float("nan")}, "azimuth"),
+    ],
+)
+def test_bad_settings_raise_clear_errors(random_points, kwargs, words):
+    xy, values = random_points
+    with pytest.raises(FieldcastError, match=words):
+        empirical_semivariogram(xy, values, **kwargs)
+
+
+def lags_of_model(model: CovarianceModel, azimuths, n_lags=15, cutoff=50.0) -> list[EmpiricalVariogram]:
+    """Semivariograms holding the model's own semivariogram at the lag middles (no noise)."""
+    edges = np.linspace(0.0, cutoff, n_lags + 1)
+    h = 0.5 * (edges[:-1] + edges[1:])
+    result = []
+    for azimuth in azimuths:
+        theta = math.radians(azimuth or 0.0)
+        gamma = model.semivariogram(h * math.sin(theta), h * math.cos(theta))
+        pairs = np.arange(100, 100 + 10 * n_lags, 10)
+        result.append(EmpiricalVariogram(h, gamma, pairs, edges, azimuth, 22.5, cutoff))
+    return result
+
+
+NOISE_FREE_CASES = [
+    (CovarianceModel((Structure("exponential", 1.2, 9.0),), 0.3), False),
+    (CovarianceModel((Structure("spherical", 2.0, 30.0, 60.0, 0.5),), 0.4), True),
+    (CovarianceModel((Structure("matern", 0.8, 6.0, 120.0, 0.7, smoothness=1.3),), 0.1), True),
+    (CovarianceModel((Structure("gaussian", 1.0, 12.0),), 0.0), False),
+]
+
+
+@pytest.mark.parametrize(("true", "anisotropy"), NOISE_FREE_CASES)
+def test_wls_recovers_model_from_its_own_semivariogram(true, anisotropy):
+    # With gamma_j equal to the model at every lag, Cressie's (1985) criterion is zero at the true
+    # parameters and positive elsewhere, so the fit must return them.
+    azimuths = (0.0, 45.0, 90.0, 135.0) if anisotropy else (None,)
+    fitted = fit_semivariogram_model(lags_of_model(true, azimuths), true.structures[0].family,
+                                     anisotropy=anisotropy)
+    s, t = fitted.structures[0], true.structures[0]
+    assert fitted.nugget == pytest.approx(true.nugget, abs=1e-5 * true.sill)
+    assert s.partial_sill == pytest.approx(t.partial_sill, rel=1e-5)
+    assert s.range == pytest.approx(t.range, rel=1e-5)
+    assert s.ratio == pytest.approx(t.ratio, rel=1e-5)
+    if anisotropy:
+        assert s.azimuth == pytest.approx(t.azimuth, abs=1e-3)
+    if t.smoothness is not None:
+        assert s.smoothness == pytest.approx(t.smoothness, rel=1e-4)
+
+
+@pytest.mark.parametrize("family", ["exponential", "spherical", "gaussian", "matern52", "matern"])
+def test_analytic_jacobian_matches_finite_differences(random_points, family):
+    # Reference: scipy.optimize.approx_fprime (forward differences).
+    xy, values = random_points
+    lags = _collect_lags(directional_semivariograms(xy, values), True)
+    criterion = _Criterion(lags, family, True, None, family == "matern")
+    theta = [0.1, 0.3, math.log(20.0), 0.7, math.log(0.6)] + ([math.log(1.3)] if family == "matern" else [])
+    theta = np.array(theta)
+    analytic = criterion.jacobian(theta)
+    numeric = np.array([approx_fprime(theta, lambda t, j=j: criterion.residuals(t)[j], 1e-7)
+                        for j in range(len(lags.gamma))])
+    assert np.allclose(analytic, numeric, atol=1e-5 * np.max(np.abs(analytic)))
+
+
+def simulate(model: CovarianceModel, seed: int, n: int = 800) -> tuple[np.ndarray, np.ndarray]:
+    """A Gaussian field with this covariance at n uniform points in a 100 x 100 square (Cholesky)."""
+    rng = np.random.default_rng(seed)
+    xy = rng.uniform(0.0, 100.0, size=(n, 2))
+    return xy, np.linalg.cholesky(model.data_covariance(xy)) @ rng.standard_normal(n)
+
+
+# Bounds: one realisation of a field carries sampling error in its semivariogram that no
+# estimator removes. Repeating each simulation below for seeds 0..39 and fitting gave these
+# 5-95 % ranges (checked while writing this test), which the bounds contain with some room:
+#   isotropic exponential: sill 1.07..1.30 (true 1.2), range 2.8..5.9 (true 4), nugget 0..0.37;
+#   anisotropic spherical: sill 1.06..1.32, range 10.9..19.4 (true 15), azimuth 52..72 (true 60),
+#   ratio 0.36..0.73 (true 0.5), nugget 0.13..0.31 (true 0.2).
+SIMULATION_CASES = [
+    (CovarianceModel((Structure("exponential", 1.0, 4.0),), 0.2), False,
+     {"sill": (1.02, 1.38), "range": (2.4, 6.4), "nugget": (0.0, 0.45), "ratio": (1.0, 1.0)}),
+    (CovarianceModel((Structure("spherical", 1.0, 15.0, 60.0, 0.5),), 0.2), True,
+     {"sill": (1.02, 1.38), "range": (10.5, 20.3), "nugget": (0.05, 0.35), "azimuth": (45.0, 75.0),
+      "ratio": (0.25, 0.75)}),
+]
+
+
+@pytest.mark.parametrize(("true", "anisotropy", "bounds"), SIMULATION_CASES)
+def test_wls_recovers_model_from_simulated_field(true, anisotropy, bounds):
+    xy, values = simulate(true, seed=0)
+    fitted = fit_wls(xy, values, true.structures[0].family, anisotropy=anisotropy)
+    s = fitted.structures[0]
+    found = {"sill": fitted.sill, "range": s.range, "nugget": fitted.nugget, "azimuth": s.azimuth,
+             "ratio": s.ratio}
+    for name, (low, high) in bounds.items():
+        assert low <= found[name] <= high, (name, found[name])
+
+
+def test_fit_rejects_too_few_lags_and_bad_smoothness(random_points):
+    xy, values = random_points
+    with pytest.raises(FieldcastError, match="too few to fit"):
+        fit_wls(xy, values, "exponential", anisotropy=False, n_lags=3)
+    with pytest.raises(FieldcastError, match="smoothness"):
+        fit_wls(xy, values, "matern", smoothness=9.0)
+
+
+def test_meuse_log_zinc_semivariogram_rises_from_a_low_start(meuse):
+    log_zinc = np.log(meuse.zinc)
+    result = empirical_semivariogram(meuse.xy, log_zinc)
+    variance = np.var(log_zinc, ddof=1)
+    # Burrough & McDonnell (1998) on this data set: log(zinc) is strongly spatially correlated, the
+    # semivariance at the shortest lag being a small fraction of the sample variance (from memory
+    # about a quarter; only "well below" is asserted).
+    assert result.gamma[0] < 0.4 * variance
+    # ... and it rises with distance up to about 1 km (Burrough & McDonnell 1998, qualitative).
+    within_1km = result.distance < 1000.0
+    assert spearmanr(result.distance[within_1km], result.gamma[within_1km]).correlation > 0.95
+    assert np.mean(result.gamma[result.distance > 800.0]) > 3.0 * result.gamma[0]
+
+
+def test_meuse_log_zinc_varies_more_slowly_along_the_river(meuse):
+    # From memory: directional semivariograms of log(zinc) in the Meuse data grow more slowly
+    # along ~45 deg (the general north-east course of the river past the study area, along which
+    # the zinc-laden flood deposits stretch) than across it (~135 deg).
+    along, across = directional_semivariograms(meuse.xy, np.log(meuse.zinc), azimuths=(45, 135),
+                                               cutoff=1500.0, n_lags=10)
+    short = along.distance < 800.0
+    assert np.all(along.gamma[short] < across.gamma[short])
+    assert np.mean(along.gamma[short]) < 0.7 * np.mean(across.gamma[short])
+
+
+def test_meuse_spherical_fit_is_in_the_published_neighbourhood(meuse):
+    # From memory: fits of a spherical model to the omnidirectional semivariogram of log(zinc)
+    # are usually printed with a nugget near 0.05, a partial sill near 0.6 and a range near 900 m.
+    # The weights differ between those fits and Cressie's, so only the neighbourhood is asserted.
+    fitted = fit_wls(meuse.xy, np.log(meuse.zinc), "spherical", anisotropy=False)
+    s = fitted.structures[0]
+    assert 0.0 <= fitted.nugget <= 0.15
+    assert 0.45 <= s.partial_sill <= 0.75
+    assert 600.0 <= s.range <= 1300.0
+
+
+def test_meuse_fit_minimises_cressie_criterion(meuse):
+    # Cressie (1985, Math. Geol. 17(5)) criterion written out independently:
+    # S = sum_j N_j (gamma_j / gamma_model(h_j) - 1)^2. The fit must be a minimum of S: moving any
+    # parameter by 3 % either way may not lower it.
+    log_zinc = np.log(meuse.zinc)
+    empirical = empirical_semivariogram(meuse.xy, log_zinc)
+    fitted = fit_wls(meuse.xy, log_zinc, "spherical", anisotropy=False)
+    filled = empirical.pairs > 0
+
+    def criterion(nugget, partial_sill, range_):
+        h = empirical.distance[filled]
+        r = np.minimum(h / range_, 1.0)
+        model = nugget + partial_sill * (1.5 * r - 0.5 * r**3)  # textbook spherical model (Matheron 1962)
+        return np.sum(empirical.pairs[filled] * (empirical.gamma[filled] / model - 1.0) ** 2)
+
+    best = (fitted.nugget, fitted.structures[0].partial_sill, fitted.structures[0].range)
+    at_fit = criterion(*best)
+    for k in range(3):
+        for factor in (0.97, 1.03):
+            moved = list(best)
+            moved[k] *= factor
+            assert criterion(*moved) >= at_fit

@@ -1,0 +1,63 @@
+"""Cell masks from polygons: a cell is inside when its centre is inside a polygon.
+
+Expected masks are computed from the polygons' defining inequalities (point-in-half-plane tests),
+with edges placed between cell centres so that no centre lies on an edge.
+"""
+from __future__ import annotations
+
+import numpy as np
+import pytest
+from osgeo import ogr
+
+from fieldcast.algorithms.errors import FieldcastError
+from fieldcast.algorithms.io.grid import GridSpec
+from fieldcast.algorithms.io.mask import cell_mask
+
+GRID = GridSpec(x_min=1000.0, y_max=2000.0, pixel_size=10.0, n_cols=30, n_rows=20)
+
+
+def centres() -> tuple[np.ndarray, np.ndarray]:
+    """Cell-centre x and y as (n_rows, n_cols) arrays."""
+    xy = GRID.cell_centres()
+    return xy[:, 0].reshape(GRID.n_rows, GRID.n_cols), xy[:, 1].reshape(GRID.n_rows, GRID.n_cols)
+
+
+def test_rectangle_keeps_the_centres_inside_it():
+    x, y = centres()
+    mask = cell_mask(GRID, ["POLYGON((1052 1901, 1188 1901, 1188 1963, 1052 1963, 1052 1901))"])
+    np.testing.assert_array_equal(mask, (x > 1052) & (x < 1188) & (y > 1901) & (y < 1963))
+
+
+def test_triangle_and_its_wkb_give_the_same_mask():
+    x, y = centres()
+    wkt = "POLYGON((1001 1801, 1299 1801, 1001 1999, 1001 1801))"
+    # Inside: x > 1001, y > 1801 and below the hypotenuse through (1299, 1801) and (1001, 1999).
+    expected = (x > 1001) & (y > 1801) & ((x - 1299) * (1999 - 1801) + (y - 1801) * (1299 - 1001) < 0)
+    np.testing.assert_array_equal(cell_mask(GRID, [wkt]), expected)
+    wkb = bytes(ogr.CreateGeometryFromWkt(wkt).ExportToWkb())
+    np.testing.assert_array_equal(cell_mask(GRID, [wkb]), expected)
+
+
+def test_holes_and_several_polygons():
+    x, y = centres()
+    shapes = ["POLYGON((1001 1801, 1101 1801, 1101 1901, 1001 1901, 1001 1801),"
+              "(1031 1831, 1071 1831, 1071 1871, 1031 1871, 1031 1831))",
+              "MULTIPOLYGON(((1201 1901, 1299 1901, 1299 1999, 1201 1999, 1201 1901)))"]
+    outer = (x > 1001) & (x < 1101) & (y > 1801) & (y < 1901)
+    hole = (x > 1031) & (x < 1071) & (y > 1831) & (y < 1871)
+    other = (x > 1201) & (x < 1299) & (y > 1901) & (y < 1999)
+    np.testing.assert_array_equal(cell_mask(GRID, shapes), (outer & ~hole) | other)
+
+
+def test_no_polygons_mask_every_cell():
+    assert not cell_mask(GRID, []).any()
+
+
+@pytest.mark.parametrize("shape, fragment", [
+    ("LINESTRING(1000 1000, 1100 1100)", "not a polygon"),
+    (b"\x01\x02", "cannot be read"),
+    ("POLYGON((", "cannot be read"),
+])
+def test_unusable_geometries_are_refused(shape, fragment):
+    with pytest.raises(FieldcastError, match=fragment):
+        cell_mask(GRID, [shape])

@@ -1,0 +1,108 @@
+"""Merging coincident samples and the checks that stop unusable data."""
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+from fieldcast.algorithms.errors import FieldcastError
+from fieldcast.algorithms.io.samples import check_samples, merge_coincident
+
+
+def read_only(array) -> np.ndarray:
+    array = np.array(array, dtype=float)
+    array.setflags(write=False)
+    return array
+
+
+def test_merge_averages_exact_duplicates_and_keeps_first_id():
+    xy = read_only([[0, 0], [1, 1], [0, 0], [2, 2], [1, 1], [0, 0]])
+    values = read_only([1, 2, 3, 4, 5, 8])
+    ids = np.array([10, 11, 12, 13, 14, 15])
+    merged = merge_coincident(xy, values, ids)
+    # Arithmetic means worked by hand: (1 + 3 + 8) / 3 = 4 at (0, 0); (2 + 5) / 2 = 3.5 at (1, 1).
+    assert np.array_equal(merged.xy, [[0, 0], [1, 1], [2, 2]])
+    assert np.array_equal(merged.values, [4.0, 3.5, 4.0])
+    assert np.array_equal(merged.ids, [10, 11, 13])
+    assert merged.merged_groups == 2
+    assert merged.merged_points == 5
+    assert np.array_equal(ids, [10, 11, 12, 13, 14, 15])
+
+
+def test_merge_matches_numpy_unique_on_random_duplicates():
+    # Reference: numpy.unique over rows groups exactly equal locations; the group means follow
+    # from numpy.bincount. Locations on a 5 x 5 lattice guarantee many duplicates.
+    rng = np.random.default_rng(3)
+    xy = read_only(rng.integers(0, 5, size=(200, 2)) * 10.0)
+    values = read_only(rng.normal(size=200))
+    merged = merge_coincident(xy, values)
+    locations, group = np.unique(xy, axis=0, return_inverse=True)
+    group = group.ravel()
+    means = np.bincount(group, weights=values) / np.bincount(group)
+    order = np.lexsort((merged.xy[:, 1], merged.xy[:, 0]))
+    assert np.array_equal(merged.xy[order], locations)
+    assert np.allclose(merged.values[order], means)
+    sizes = np.bincount(group)
+    assert merged.merged_groups == np.count_nonzero(sizes > 1)
+    assert merged.merged_points == sizes[sizes > 1].sum()
+    assert len(merged.values) == 200 - merged.merged_points + merged.merged_groups
+    # Every merged sample keeps the id (row number) of the first sample at its location.
+    assert np.array_equal(xy[merged.ids], merged.xy)
+    for first in merged.ids:
+        assert first == np.flatnonzero(group == group[first])[0]
+
+
+def test_merge_with_tolerance_joins_chains_of_near_points():
+    xy = read_only([[0.0, 0.0], [0.4, 0.0], [0.8, 0.0], [5.0, 5.0]])
+    values = read_only([1.0, 2.0, 6.0, 7.0])
+    exact = merge_coincident(xy, values)
+    assert exact.merged_groups == 0 and exact.merged_points == 0
+    assert np.array_equal(exact.values, values)
+    near = merge_coincident(xy, values, tolerance=0.5)
+    # Single linkage: 0-0.4 and 0.4-0.8 are within 0.5, so all three join (mean 3).
+    assert np.array_equal(near.values, [3.0, 7.0])
+    assert np.array_equal(near.xy, [[0.0, 0.0], [5.0, 5.0]])
+    assert (near.merged_groups, near.merged_points) == (1, 3)
+
+
+@pytest.mark.parametrize(
+    ("xy", "values", "kwargs", "words"),
+    [
+        ([[0, 0], [1, 1]], [1.0, 2.0, 3.0], {}, "one value per sample"),
+        ([[0, 0, 0]], [1.0], {}, "(n, 2)"),
+        ([[0, 0], [1, 1]], [1.0, 2.0], {"tolerance": -1.0}, "tolerance"),
+        ([[0, 0], [np.nan, 1]], [1.0, 2.0], {}, "coordinates"),
+    ],
+)
+def test_merge_rejects_bad_input(xy, values, kwargs, words):
+    with pytest.raises(FieldcastError, match=words.replace("(", r"\(").replace(")", r"\)")):
+        merge_coincident(np.array(xy, dtype=float), np.array(values), **kwargs)
+
+
+def test_check_samples_accepts_good_data():
+    check_samples(read_only([[0, 0], [1, 0], [0, 1]]), read_only([1.0, 2.0, 3.0]))
+
+
+def test_check_samples_too_few():
+    with pytest.raises(FieldcastError, match="only 2 usable samples; at least 3 are needed"):
+        check_samples(np.array([[0.0, 0.0], [1.0, 0.0]]), np.array([1.0, 2.0]))
+    # Samples without a value do not count as usable.
+    with pytest.raises(FieldcastError, match=r"only 2 usable samples \(1 more have missing"):
+        check_samples(np.array([[0.0, 0.0], [1.0, 0.0], [0.0, 1.0]]), np.array([1.0, np.nan, 2.0]))
+
+
+def test_check_samples_non_finite_values():
+    xy = np.array([[0.0, 0.0], [1.0, 0.0], [0.0, 1.0], [1.0, 1.0]])
+    with pytest.raises(FieldcastError, match=r"1 sample value\(s\) are missing or infinite \(first at row 2"):
+        check_samples(xy, np.array([1.0, 2.0, np.inf, 3.0]))
+
+
+def test_check_samples_non_finite_coordinates():
+    xy = np.array([[0.0, 0.0], [1.0, np.nan], [0.0, 1.0], [1.0, 1.0]])
+    with pytest.raises(FieldcastError, match=r"1 sample\(s\) have missing or infinite coordinates \(first at row 1"):
+        check_samples(xy, np.array([1.0, 2.0, 3.0, 4.0]))
+
+
+def test_check_samples_constant_values():
+    xy = np.array([[0.0, 0.0], [1.0, 0.0], [0.0, 1.0]])
+    with pytest.raises(FieldcastError, match="All 3 values equal 2.5: there is nothing to interpolate"):
+        check_samples(xy, np.full(3, 2.5))

@@ -1,0 +1,171 @@
+"""End-to-end runs of the Fieldcast toolbox algorithms through ``qgis_process.bin``.
+
+The samples are the published Meuse data set (topsoil heavy metals of the Meuse flood
+plain near Stein, NL; Rikken & Van Rijn 1993, as shipped in Debian's r-cran-sp package
+and converted to tests/data/meuse.csv, see tests/data/README.md). The test writes them to
+a GeoPackage in EPSG:28992 (Amersfoort / RD New), the CRS the data set is published in.
+
+Each run starts QGIS once (several seconds), so the settings keep the fits small:
+one covariance family, no anisotropy.
+"""
+from __future__ import annotations
+
+import json
+from pathlib import Path
+
+import numpy as np
+import pytest
+from osgeo import gdal, ogr, osr
+
+from qgis_process_support import (
+    MEUSE_METALS,
+    QGIS_PROCESS,
+    make_profile,
+    run_algorithm,
+    write_fit_then_predict_model,
+    write_meuse_geopackage,
+)
+from qgis_support import fieldcast_plugin  # noqa: F401 - fixture: a QgsApplication to build the .model3 in
+from requirements_check import skip_unless_available
+
+pytestmark = skip_unless_available(QGIS_PROCESS is not None, "qgis_process.bin is not installed")
+
+DATA_DIR = Path(__file__).resolve().parents[1] / "data"
+FIT_SETTINGS = {"TRANSFORM": "log", "KERNEL": "spherical", "ANISOTROPY": False, "TREND": "constant",
+                "METHOD": "reml"}
+# Cell centres of the published 40 m Meuse grid (tests/data/meuse_grid.csv) run from x 178460 to 181540
+# and y 329620 to 333740; this extent puts the raster cell edges half a cell outside them.
+MEUSE_GRID_EXTENT = "178440,181560,329600,333760 [EPSG:28992]"
+MEUSE_CELL = 40.0
+
+
+@pytest.fixture(scope="module")
+def profile(tmp_path_factory) -> Path:
+    """A throwaway QGIS profile with this repository enabled as the plugin ``fieldcast``."""
+    return make_profile(tmp_path_factory.mktemp("qgis-profile"))
+
+
+@pytest.fixture(scope="module")
+def meuse_layer(tmp_path_factory) -> str:
+    """The Meuse samples as a GeoPackage point layer; returns its OGR URI."""
+    return write_meuse_geopackage(tmp_path_factory.mktemp("meuse") / "meuse.gpkg")
+
+
+def fit(profile: Path, layer: str, field: str, model_path: Path) -> dict:
+    """Run fieldcast:fitmodel with :data:`FIT_SETTINGS`; return the written model document."""
+    run = run_algorithm(profile, "fieldcast:fitmodel",
+                        {"INPUT": layer, "FIELD": field, **FIT_SETTINGS, "OUTPUT_MODEL": model_path})
+    assert run.returncode == 0, run.messages
+    return json.loads(model_path.read_text(encoding="utf-8"))
+
+
+def predict(profile: Path, layer: str, field: str, model_path: Path, raster_path: Path, **extra) -> None:
+    """Run fieldcast:predict on the Meuse grid extent with 40 m cells."""
+    run = run_algorithm(profile, "fieldcast:predict",
+                        {"INPUT": layer, "FIELD": field, "MODEL": model_path, "EXTENT": MEUSE_GRID_EXTENT,
+                         "PIXEL_SIZE": MEUSE_CELL, "OUTPUT": raster_path, **extra})
+    assert run.returncode == 0, run.messages
+
+
+def read_raster(path: Path) -> tuple[np.ndarray, tuple, str]:
+    """Band 1 with nodata as NaN, the geotransform, and the EPSG code of the CRS."""
+    dataset = gdal.Open(str(path))
+    band = dataset.GetRasterBand(1)
+    values = band.ReadAsArray().astype(float)
+    if band.GetNoDataValue() is not None:
+        values[values == band.GetNoDataValue()] = np.nan
+    srs = osr.SpatialReference(wkt=dataset.GetProjection())
+    srs.AutoIdentifyEPSG()
+    return values, dataset.GetGeoTransform(), srs.GetAuthorityCode(None)
+
+
+def check_meuse_grid(path: Path) -> np.ndarray:
+    """Assert the raster is in EPSG:28992 on 40 m cells over the Meuse grid extent; return its values."""
+    values, transform, epsg = read_raster(path)
+    assert epsg == "28992"
+    assert transform[1] == pytest.approx(MEUSE_CELL) and transform[5] == pytest.approx(-MEUSE_CELL)
+    assert (transform[0], transform[3]) == pytest.approx((178440.0, 333760.0))
+    assert values.shape == (104, 78)  # (333760 - 329600) / 40 rows, (181560 - 178440) / 40 columns
+    return values
+
+
+def meuse_grid_cells() -> tuple[np.ndarray, np.ndarray]:
+    """Row and column indices of the published 40 m Meuse grid cells in the rasters of :func:`predict`."""
+    cells = np.genfromtxt(DATA_DIR / "meuse_grid.csv", delimiter=",", names=True)
+    rows = np.round((333760.0 - cells["y"]) / MEUSE_CELL - 0.5).astype(int)
+    cols = np.round((cells["x"] - 178440.0) / MEUSE_CELL - 0.5).astype(int)
+    return rows, cols
+
+
+def test_fit_predict_crossvalidate_meuse_zinc(profile, meuse_layer, tmp_path):
+    model_path = tmp_path / "zinc.json"
+    document = fit(profile, meuse_layer, "zinc", model_path)
+    assert document["field"] == "zinc" and document["transform"]["kind"] == "log"
+    assert document["structures"][0]["family"] == "spherical"
+
+    prediction, variance = tmp_path / "zinc.tif", tmp_path / "zinc_variance.tif"
+    predict(profile, meuse_layer, "zinc", model_path, prediction, OUTPUT_VARIANCE=variance)
+    estimate = check_meuse_grid(prediction)
+    spread = check_meuse_grid(variance)
+    assert np.isfinite(estimate).all() and np.isfinite(spread).all()
+    # Meuse zinc ranges from 113 to 1839 ppm (tests/data/meuse.csv). On the published grid cells (the flood
+    # plain the samples cover) a median back-transformed kriging estimate of ln(zinc) stays near that range;
+    # the bounding-box corners, up to 2 km from any sample, are extrapolations and are not checked here.
+    on_grid = estimate[meuse_grid_cells()]
+    assert 50.0 < on_grid.min() and on_grid.max() < 2500.0
+    assert (spread >= 0).all()
+
+    table = tmp_path / "crossvalidation.gpkg"
+    run = run_algorithm(profile, "fieldcast:crossvalidate",
+                        {"INPUT": meuse_layer, "FIELD": "zinc", "MODEL": model_path, "OUTPUT": table})
+    assert run.returncode == 0, run.messages
+    summary = run.results
+    assert set(summary) >= {"ME", "RMSE", "MSDR", "COVERAGE95"}
+    dataset = ogr.Open(str(table))
+    assert dataset.GetLayer().GetFeatureCount() == 155  # one leave-one-out prediction per Meuse sample
+    # Leave-one-out RMSE for ln(zinc) on Meuse is about 0.4 with a fitted spherical model (from memory);
+    # the bounds leave room for the fit and still catch a broken pipeline.
+    assert 0.2 < summary["RMSE"] < 0.6
+    # A calibrated model has mean squared standardized residual near 1 and ~95 % coverage (common practice).
+    assert 0.5 < summary["MSDR"] < 2.0
+    assert 0.85 < summary["COVERAGE95"] <= 1.0
+
+
+def test_graphical_model_chains_fit_into_predict(profile, meuse_layer, tmp_path, fieldcast_plugin):  # noqa: F811
+    model_file = tmp_path / "fit_then_predict.model3"
+    write_fit_then_predict_model(model_file, {"FIELD": "zinc", **FIT_SETTINGS},
+                                 {"FIELD": "zinc", "EXTENT": MEUSE_GRID_EXTENT, "PIXEL_SIZE": MEUSE_CELL})
+    raster = tmp_path / "model_surface.tif"
+    run = run_algorithm(profile, model_file, {"samples": meuse_layer, "predict:surface": raster})
+    assert run.returncode == 0, run.messages
+    check_meuse_grid(raster)
+    # Predict used the fit's model file: it says it read one and did not fit the defaults itself, and the
+    # model stored in the raster is the one FIT_SETTINGS asked for (the defaults have no transform).
+    assert "Model read from" in run.messages
+    assert "No model file given" not in run.messages
+    stored = json.loads(gdal.Open(str(raster)).GetMetadataItem("fieldcast_model"))
+    assert stored["transform"]["kind"] == "log"
+    assert [structure["family"] for structure in stored["structures"]] == ["spherical"]
+
+
+def test_three_fields_in_sequence_like_batch_mode(profile, meuse_layer, tmp_path):
+    surfaces = {}
+    for field in MEUSE_METALS:
+        model_path = tmp_path / f"{field}.json"
+        assert fit(profile, meuse_layer, field, model_path)["field"] == field
+        predict(profile, meuse_layer, field, model_path, tmp_path / f"{field}.tif")
+        surfaces[field] = check_meuse_grid(tmp_path / f"{field}.tif")
+    # Each field gets its own surface: medians differ as the field medians do in meuse.csv
+    # (zinc 326, copper 31, lead 123 ppm).
+    medians = {field: float(np.median(values)) for field, values in surfaces.items()}
+    assert medians["copper"] < medians["lead"] < medians["zinc"]
+
+
+def test_text_field_fails_cleanly(profile, meuse_layer, tmp_path):
+    model_path = tmp_path / "landuse.json"
+    run = run_algorithm(profile, "fieldcast:fitmodel",
+                        {"INPUT": meuse_layer, "FIELD": "landuse", **FIT_SETTINGS, "OUTPUT_MODEL": model_path})
+    assert run.returncode != 0
+    assert "landuse" in run.messages and "numeric field" in run.messages
+    assert not model_path.exists()
+    assert list(tmp_path.iterdir()) == []
