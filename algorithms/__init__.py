@@ -1,5 +1,124 @@
 """Fieldcast numerical engine: Gaussian-process (kriging) models on numpy arrays.
 
-This package never imports QGIS; it is used by the Processing algorithms in
-``plugin/`` and tested on its own.
+This package never imports QGIS. It is used by the Processing algorithms in
+``plugin/`` and by the scripts in ``tools/``, which import only the names listed
+in :data:`__all__` from here; it is tested on its own.
+
+Subpackages, by what the toolbox does:
+
+``model``
+    correlation families, covariance structures, mean models, transforms, fit parameters;
+``fit``
+    likelihoods (exact, Vecchia, joint), the fitter and its search, semivariograms;
+``predict``
+    global and local kriging, block kriging, cross-validation, exceedance, the neighbourhood check;
+``simulate``
+    circulant embedding and conditioning by kriging;
+``io``
+    samples, grids, masks, GeoTIFF writing, model files, atomic writes, CRS helpers;
+``linalg``
+    stacks of small systems and the BLAS thread switch.
+
+The names are loaded on first use (PEP 562 module ``__getattr__``), so importing
+the package costs nothing until a name is asked for: QGIS can load the plugin and
+report a missing scipy or GDAL in words instead of failing at start-up.
 """
+from __future__ import annotations
+
+import importlib
+from typing import Any
+
+from .errors import Cancelled as Cancelled
+from .errors import FieldcastError as FieldcastError
+from .version import __version__ as __version__
+
+#: Public name -> the module (relative to this package) that defines it.
+_PUBLIC = {
+    # model
+    "FAMILIES": "model.correlation",
+    "CovarianceModel": "model.covariance",
+    "Structure": "model.covariance",
+    "MEAN_KINDS": "model.mean",
+    "MeanModel": "model.mean",
+    "TRANSFORM_KINDS": "model.transform",
+    "Transform": "model.transform",
+    # fit
+    "FIT_METHODS": "fit.fitting",
+    "KERNEL_CHOICES": "fit.fitting",
+    "FitOptions": "fit.fitting",
+    "FitResult": "fit.fitting",
+    "fit_model": "fit.fitting",
+    "fit_shared": "fit.shared",
+    "fit_vecchia": "fit.vecchia_fit",
+    "log_likelihood": "fit.likelihood",
+    "EmpiricalVariogram": "fit.variogram",
+    "empirical_semivariogram": "fit.variogram",
+    "directional_semivariograms": "fit.variogram",
+    # predict
+    "KrigingPredictor": "predict.kriging",
+    "LocalKrigingPredictor": "predict.local",
+    "DEFAULT_POINTS_PER_SIDE": "predict.block",
+    "block_predict": "predict.block",
+    "CrossValidation": "predict.crossval",
+    "leave_one_out": "predict.crossval",
+    "local_leave_one_out": "predict.crossval",
+    "k_fold": "predict.crossval",
+    "exceedance_probability": "predict.exceedance",
+    "BACKTRANSFORMS": "predict.grid_surfaces",
+    "SUPPORTS": "predict.grid_surfaces",
+    "FieldRasters": "predict.grid_surfaces",
+    "SurfaceScale": "predict.grid_surfaces",
+    "cell_predictor": "predict.grid_surfaces",
+    "write_surfaces": "predict.grid_surfaces",
+    "AUTOMATIC_NEIGHBOURS": "predict.choice",
+    "GLOBAL_SAMPLE_LIMIT": "predict.choice",
+    "LogLine": "predict.choice",
+    "Neighbourhood": "predict.choice",
+    "choose_predictor": "predict.choice",
+    "search_words": "predict.choice",
+    "CHECK_SAMPLE_LIMIT": "predict.neighbourhood_check",
+    "grid_targets": "predict.neighbourhood_check",
+    "neighbourhood_gap": "predict.neighbourhood_check",
+    # simulate
+    "UnconditionalGenerator": "simulate.circulant",
+    "covariance_factor": "simulate.circulant",
+    "RealisationSummary": "simulate.simulation",
+    "SimulationResult": "simulate.simulation",
+    "simulate_conditional": "simulate.simulation",
+    "summarise_realisations": "simulate.simulation",
+    # io
+    "Samples": "io.samples",
+    "check_samples": "io.samples",
+    "merge_coincident": "io.samples",
+    "GridSpec": "io.grid",
+    "default_pixel_size": "io.grid",
+    "cell_mask": "io.mask",
+    "GeoTiffWriter": "io.geotiff",
+    "ModelDocument": "io.model_file",
+    "json_ready": "io.model_file",
+    "write_text_atomically": "io.atomic",
+    "linear_units": "io.crs",
+    "parse_crs": "io.crs",
+    "same_crs": "io.crs",
+    "to_wkt2": "io.crs",
+    "transform_points": "io.crs",
+    "utm_crs_for": "io.crs",
+    "WorkingCrs": "io.working_crs",
+    "choose_working_crs": "io.working_crs",
+}
+
+__all__ = sorted(["Cancelled", "FieldcastError", "__version__", *_PUBLIC])
+
+
+def __getattr__(name: str) -> Any:
+    """Import the module that defines the public ``name`` and return the name (PEP 562)."""
+    module_name = _PUBLIC.get(name)
+    if module_name is None:
+        raise AttributeError(f"module {__name__!r} has no attribute {name!r}")
+    value = getattr(importlib.import_module(f".{module_name}", __name__), name)
+    globals()[name] = value
+    return value
+
+
+def __dir__() -> list[str]:
+    return __all__

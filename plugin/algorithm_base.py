@@ -25,11 +25,17 @@ from qgis.core import (
 )
 from qgis.PyQt.QtCore import QCoreApplication
 
-from ..algorithms.errors import Cancelled, FieldcastError
-from ..algorithms.fit.fitting import FIT_METHODS, KERNEL_CHOICES
-from ..algorithms.io.model_file import ModelDocument
-from ..algorithms.model.mean import MeanModel
-from ..algorithms.model.transform import TRANSFORM_KINDS, Transform
+from ..algorithms import (
+    FIT_METHODS,
+    KERNEL_CHOICES,
+    TRANSFORM_KINDS,
+    Cancelled,
+    FieldcastError,
+    LogLine,
+    ModelDocument,
+    Neighbourhood,
+    Transform,
+)
 from .icons import icon, icon_path
 from .model_source import FitSettings, describe_document, fit_document, load_document
 from .report.page import ReportError
@@ -38,23 +44,10 @@ from .sample_reader import LayerSamples, ModelSamples, prepare_samples, read_lay
 TREND_CHOICES = ("constant", "linear", "quadratic")
 
 
-def check_neighbours(neighbours: int, mean: MeanModel, per: str) -> None:
-    """Refuse a NEIGHBOURS of 1 up to the number of trend terms (0 = all samples is fine).
-
-    ``per`` names what each neighbourhood serves ("cell", "sample") in the message.
-    """
-    minimum = mean.n_terms + 1
-    if 0 < neighbours < minimum:
-        raise FieldcastError(f"NEIGHBOURS is {neighbours}, but the {mean.kind} mean of the model needs at least "
-                             f"{minimum} samples per {per}. Set NEIGHBOURS to {minimum} or more (16 to 64 is common "
-                             "practice), or to 0 for all samples.")
-
-
-def search_words(search_radius: float | None, units: str) -> str:
-    """Log words for a search radius, `` within 300 m (along the major axis ...)``; "" without one."""
-    if search_radius is None:
-        return ""
-    return f" within {search_radius:g} {units} (along the major axis of the model's anisotropy)"
+def push_log(feedback, lines: Sequence[LogLine]) -> None:
+    """Show the engine's log lines: warnings as warnings, the rest as information."""
+    for line in lines:
+        (feedback.pushWarning if line.level == "warning" else feedback.pushInfo)(line.text)
 
 
 def progress_callback(feedback, start: float = 0.0, stop: float = 100.0) -> Callable[[float], None]:
@@ -176,10 +169,10 @@ class FieldcastAlgorithm(QgsProcessingAlgorithm):
             self.SEARCH_RADIUS, self.tr("Search radius (working CRS units; empty = no limit)"),
             type=QgsProcessingParameterNumber.Double, optional=True, minValue=0.0))
 
-    def neighbourhood_choice(self, parameters, context) -> tuple[int, float | None]:
+    def neighbourhood(self, parameters, context) -> Neighbourhood:
         """The NEIGHBOURS and SEARCH_RADIUS chosen (SEARCH_RADIUS None when empty)."""
-        return (self.parameterAsInt(parameters, self.NEIGHBOURS, context),
-                self.optional_number(parameters, self.SEARCH_RADIUS, context))
+        return Neighbourhood(self.parameterAsInt(parameters, self.NEIGHBOURS, context),
+                             self.optional_number(parameters, self.SEARCH_RADIUS, context))
 
     def optional_number(self, parameters, name: str, context) -> float | None:
         """The value of an optional number parameter, None when it is left empty."""

@@ -18,11 +18,16 @@ from qgis.core import (
     QgsWkbTypes,
 )
 
-from ..algorithms.errors import FieldcastError
-from ..algorithms.io.crs import parse_crs
-from ..algorithms.io.model_file import ModelDocument
-from ..algorithms.predict.crossval import CrossValidation, leave_one_out, local_leave_one_out
-from .algorithm_base import FieldcastAlgorithm, check_neighbours, progress_callback, search_words
+from ..algorithms import (
+    CrossValidation,
+    FieldcastError,
+    ModelDocument,
+    leave_one_out,
+    local_leave_one_out,
+    parse_crs,
+    search_words,
+)
+from .algorithm_base import FieldcastAlgorithm, progress_callback, push_log
 from .field_types import field_type
 from .help_text import MODEL_FILE_HELP, TARGET_CRS_HELP, compose_help
 from .report.crossvalidation_report import write_crossvalidation_report
@@ -122,12 +127,12 @@ class CrossValidateAlgorithm(FieldcastAlgorithm):
     def cross_validation(self, parameters, context, feedback, document: ModelDocument,
                          samples: ModelSamples) -> CrossValidation:
         """Global (closed form) or local leave-one-out by NEIGHBOURS and SEARCH_RADIUS, the choice logged."""
-        neighbours, search_radius = self.neighbourhood_choice(parameters, context)
+        neighbourhood = self.neighbourhood(parameters, context)
+        neighbours, lines = neighbourhood.resolved(document.mean, "sample", pool="every other sample")
+        push_log(feedback, lines)
         if neighbours == 0:
-            if search_radius is not None:
-                feedback.pushWarning("SEARCH_RADIUS is ignored: every other sample is used (NEIGHBOURS is 0).")
             return leave_one_out(samples.xy, samples.values, document.covariance, document.mean)
-        check_neighbours(neighbours, document.mean, "sample")
+        search_radius = neighbourhood.search_radius
         feedback.pushInfo(f"Local leave-one-out: each sample from its {min(neighbours, len(samples.values) - 1)} "
                           f"nearest other samples{search_words(search_radius, document.units)}.")
         result = local_leave_one_out(samples.xy, samples.values, document.covariance, document.mean,

@@ -5,12 +5,15 @@ from collections.abc import Callable, Mapping
 
 from qgis.core import QgsProcessingOutputNumber, QgsProcessingParameterFileDestination
 
-from ..algorithms.errors import Cancelled
-from ..algorithms.fit.fitting import FitResult
-from ..algorithms.fit.variogram import directional_semivariograms, empirical_semivariogram
-from ..algorithms.io.crs import parse_crs
-from ..algorithms.io.model_file import ModelDocument
-from ..algorithms.predict.crossval import leave_one_out
+from ..algorithms import (
+    Cancelled,
+    FitResult,
+    ModelDocument,
+    directional_semivariograms,
+    empirical_semivariogram,
+    leave_one_out,
+    parse_crs,
+)
 from .algorithm_base import FieldcastAlgorithm, progress_callback
 from .help_text import FIT_HELP, TARGET_CRS_HELP, compose_help
 from .model_source import fit_document

@@ -6,13 +6,18 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ..algorithms.errors import FieldcastError
-from ..algorithms.fit.fitting import FitOptions, FitResult, fit_model
-from ..algorithms.fit.shared import fit_shared
-from ..algorithms.io.crs import parse_crs, same_crs
-from ..algorithms.io.model_file import ModelDocument
-from ..algorithms.model.transform import Transform
-from .working_crs import WorkingCrs
+from ..algorithms import (
+    FieldcastError,
+    FitOptions,
+    FitResult,
+    ModelDocument,
+    Transform,
+    WorkingCrs,
+    fit_model,
+    fit_shared,
+    parse_crs,
+    same_crs,
+)
 
 
 @dataclass(frozen=True)

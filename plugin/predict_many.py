@@ -14,15 +14,12 @@ from qgis.core import (
     QgsProcessingParameterFolderDestination,
 )
 
-from ..algorithms.errors import Cancelled, FieldcastError
-from ..algorithms.model.mean import MeanModel
-from ..algorithms.model.transform import Transform
-from .algorithm_base import check_neighbours, progress_callback
+from ..algorithms import Cancelled, FieldcastError, MeanModel, Neighbourhood, SurfaceScale, Transform
+from .algorithm_base import progress_callback
 from .help_text import BACKTRANSFORM_HELP, FIT_HELP, GRID_HELP, NEIGHBOURHOOD_HELP, TARGET_CRS_HELP, compose_help
 from .model_source import FitSettings, describe_document, fit_document, fit_shared_documents
 from .sample_reader import prepare_samples, read_layer_samples
-from .surface import SurfaceScale
-from .surface_algorithm import Neighbourhood, SurfaceAlgorithm
+from .surface_algorithm import SurfaceAlgorithm
 
 FIT_SHARE = 0.4
 """Share of each field's part of the progress bar taken by the fit; kriging and writing take the rest."""
@@ -159,7 +156,7 @@ class PredictManyAlgorithm(SurfaceAlgorithm):
         run = FieldsRun(prepared, file_stems(fields), folder, transform, settings,
                         self.neighbourhood(parameters, context),
                         SurfaceScale(transform, self.choice(parameters, self.BACKTRANSFORM, context)))
-        check_neighbours(run.neighbourhood.neighbours, MeanModel.for_data(settings.trend, prepared[0][1].xy), "cell")
+        run.neighbourhood.resolved(MeanModel.for_data(settings.trend, prepared[0][1].xy), "cell")  # refuse early
         if self.parameterAsBoolean(parameters, self.SHARED_MODEL, context):
             self.predict_shared(run, parameters, context, feedback)
         else:

@@ -3,6 +3,7 @@ from __future__ import annotations
 
 from qgis.core import QgsProcessingParameterRasterDestination
 
+from ..algorithms import SUPPORTS, SurfaceScale
 from .algorithm_base import progress_callback
 from .help_text import (
     BACKTRANSFORM_HELP,
@@ -13,7 +14,6 @@ from .help_text import (
     THRESHOLD_HELP,
     compose_help,
 )
-from .surface import SUPPORTS, SurfaceScale
 from .surface_algorithm import SurfaceAlgorithm
 
 

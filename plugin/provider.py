@@ -3,7 +3,7 @@ from __future__ import annotations
 
 from qgis.core import QgsProcessingProvider
 
-from ..algorithms.version import __version__
+from ..algorithms import __version__
 from .cross_validate import CrossValidateAlgorithm
 from .fit_model import FitModelAlgorithm
 from .icons import icon, icon_path

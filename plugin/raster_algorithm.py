@@ -16,9 +16,7 @@ from qgis.core import (
     QgsProcessingParameterNumber,
 )
 
-from ..algorithms.errors import FieldcastError
-from ..algorithms.io.grid import GridSpec, default_pixel_size
-from ..algorithms.io.mask import cell_mask
+from ..algorithms import FieldcastError, GridSpec, cell_mask, default_pixel_size
 from .algorithm_base import FieldcastAlgorithm
 
 MAX_DEFAULT_CELLS = 1_000_000

@@ -13,11 +13,17 @@ from dataclasses import dataclass
 import numpy as np
 from qgis.core import QgsCoordinateReferenceSystem, QgsFeatureRequest, QgsProcessingFeatureSource
 
-from ..algorithms.errors import FieldcastError
-from ..algorithms.io.crs import same_crs, transform_points
-from ..algorithms.io.samples import Samples, check_samples, merge_coincident
-from ..algorithms.model.transform import Transform
-from .working_crs import WorkingCrs, choose_working_crs
+from ..algorithms import (
+    FieldcastError,
+    Samples,
+    Transform,
+    WorkingCrs,
+    check_samples,
+    choose_working_crs,
+    merge_coincident,
+    same_crs,
+    transform_points,
+)
 
 
 @dataclass(frozen=True)

@@ -19,15 +19,17 @@ from qgis.core import (
     QgsWkbTypes,
 )
 
-from ..algorithms.errors import Cancelled, FieldcastError
-from ..algorithms.io.geotiff import GeoTiffWriter
-from ..algorithms.simulate.simulation import (
+from ..algorithms import (
+    Cancelled,
+    FieldcastError,
+    GeoTiffWriter,
     RealisationSummary,
     SimulationResult,
+    search_words,
     simulate_conditional,
     summarise_realisations,
 )
-from .algorithm_base import check_neighbours, progress_callback, search_words
+from .algorithm_base import progress_callback, push_log
 from .field_types import field_type
 from .help_text import GRID_HELP, MODEL_FILE_HELP, TARGET_CRS_HELP, THRESHOLD_HELP, compose_help
 from .raster_algorithm import RasterAlgorithm
@@ -150,11 +152,13 @@ class SimulateAlgorithm(RasterAlgorithm):
                                  "Ask for more realisations (100 is a good start), or only for the realisations.")
         document, samples = self.model_and_samples(parameters, context, feedback,
                                                    progress_callback(feedback, 0, SIMULATION_PERCENT[0]))
-        neighbours, search_radius = self.neighbourhood_choice(parameters, context)
-        check_neighbours(neighbours, document.mean, "cell")
+        neighbourhood = self.neighbourhood(parameters, context)
+        neighbours, lines = neighbourhood.resolved(document.mean, "cell")
+        search_radius = neighbourhood.search_radius
         grid, inside = self.grid_and_mask(parameters, context, samples.xy, document.crs_wkt, document.units,
                                           feedback, n_bands=1 + len(summaries))  # realisations: checked below
         feedback.pushInfo(f"Simulating {count} realisations (seed {seed}).")
+        push_log(feedback, lines)
         self.log_conditioning(neighbours, search_radius, len(samples.values), document.units, feedback)
         # The engine estimates the memory of the realisations before any work and refuses with advice.
         result = simulate_conditional(samples.xy, samples.values, document.covariance, document.mean, grid,
@@ -190,8 +194,6 @@ class SimulateAlgorithm(RasterAlgorithm):
     def log_conditioning(neighbours: int, search_radius: float | None, count: int, units: str, feedback) -> None:
         """Say which samples condition each cell (all, or the nearest ``neighbours``)."""
         if neighbours == 0:
-            if search_radius is not None:
-                feedback.pushWarning("SEARCH_RADIUS is ignored: every sample is used (NEIGHBOURS is 0).")
             feedback.pushInfo(f"Conditioning every cell on all {count} samples.")
         else:
             feedback.pushInfo(f"Local conditioning: each cell on its {min(neighbours, count)} nearest "

@@ -9,116 +9,68 @@ kriging of a grid into GeoTIFF files with its log lines.
 from __future__ import annotations
 
 from collections.abc import Callable, Mapping, Sequence
-from dataclasses import dataclass
 
 import numpy as np
 
-from ..algorithms.errors import FieldcastError
-from ..algorithms.io.grid import GridSpec
-from ..algorithms.io.model_file import ModelDocument
-from ..algorithms.predict.kriging import KrigingPredictor
-from ..algorithms.predict.local import LocalKrigingPredictor
-from ..algorithms.predict.neighbourhood_check import CHECK_SAMPLE_LIMIT, grid_targets, neighbourhood_gap
-from .algorithm_base import check_neighbours, search_words
+from ..algorithms import (
+    BACKTRANSFORMS,
+    CHECK_SAMPLE_LIMIT,
+    FieldcastError,
+    FieldRasters,
+    GridSpec,
+    LocalKrigingPredictor,
+    ModelDocument,
+    Neighbourhood,
+    SurfaceScale,
+    cell_predictor,
+    choose_predictor,
+    grid_targets,
+    neighbourhood_gap,
+    write_surfaces,
+)
+from .algorithm_base import push_log
 from .raster_algorithm import RasterAlgorithm
-from .surface import BACKTRANSFORMS, FieldRasters, SurfaceScale, cell_predictor, write_surfaces
 
-GLOBAL_SAMPLE_LIMIT = 5000
-"""Most samples kriged all together when NEIGHBOURS is 0; above it each cell uses its nearest
-:data:`AUTOMATIC_NEIGHBOURS` (a dense system of 5,000 samples already holds 200 MB and solves slowly)."""
-AUTOMATIC_NEIGHBOURS = 64
-"""Neighbours per cell chosen for NEIGHBOURS = 0 with more than :data:`GLOBAL_SAMPLE_LIMIT` samples."""
 GAP_WARNING = 0.01
 """Departure of local from global kriging above which the log warns (fraction of the standard deviation for
 the prediction, of the sill for the variance)."""
 
 
-@dataclass(frozen=True)
-class Neighbourhood:
-    """The samples each cell is kriged from.
+def log_gap(predictor: LocalKrigingPredictor, xy: np.ndarray, values: np.ndarray, grid: GridSpec,
+            inside: np.ndarray | None, feedback) -> None:
+    """Say how far local kriging departs from kriging with all samples at a few cells, with advice above 1 %.
 
-    Attributes
-    ----------
-    neighbours : int
-        0 = every sample (up to :data:`GLOBAL_SAMPLE_LIMIT`); otherwise the nearest ``neighbours``.
-    search_radius : float or None
-        Largest distance of a neighbour along the model's major axis (working CRS units; the search
-        ellipse follows the anisotropy), None = no limit. Used with local kriging only.
+    Done for up to :data:`..algorithms.predict.neighbourhood_check.CHECK_SAMPLE_LIMIT` samples (the comparison
+    factorises the full system); with several fields, for the first. The check is a diagnostic: a
+    problem in it is logged, never fatal.
     """
+    if len(xy) > CHECK_SAMPLE_LIMIT or feedback.isCanceled():
+        return
+    try:
+        gap = neighbourhood_gap(predictor, xy, values, grid_targets(grid, inside))
+    except FieldcastError as exc:
+        feedback.pushInfo(f"Neighbourhood check skipped: {exc}")
+        return
+    if not gap.targets:
+        return
+    words = (f"Neighbourhood check: at {gap.targets} cells drawn at random, local kriging differs from kriging "
+             f"with all {len(xy)} samples by up to {gap.prediction:.1%} of the field's standard deviation "
+             f"(square root of the sill) in the prediction and {gap.variance:.1%} of the sill in the variance "
+             "(modelling scale).")
+    if max(gap.prediction, gap.variance) > GAP_WARNING:
+        feedback.pushWarning(words + " More neighbours, or NEIGHBOURS = 0 (all samples), bring it closer. Local "
+                             "kriging estimates the mean from each cell's neighbours, which shows most at cells "
+                             "beyond the model's range from their samples; a spherical shape, a large nugget "
+                             "share or a long range also let samples outside the neighbourhood matter.")
+    else:
+        feedback.pushInfo(words)
 
-    neighbours: int = 0
-    search_radius: float | None = None
-
-    def predictor(self, xy: np.ndarray, values: np.ndarray, document: ModelDocument, support: str,
-                  feedback) -> KrigingPredictor | LocalKrigingPredictor:
-        """The kriging predictor for these samples (``values`` (n,), or (n, k) for k fields) and model, with the
-        choice said in the log.
-
-        Raises
-        ------
-        FieldcastError
-            If NEIGHBOURS is too small for the mean model, or local kriging is asked for cell support.
-        """
-        count = len(values)
-        neighbours = self.neighbours
-        if neighbours == 0 and count > GLOBAL_SAMPLE_LIMIT and support == "point":
-            neighbours = AUTOMATIC_NEIGHBOURS
-            feedback.pushInfo(f"NEIGHBOURS is 0 but there are {count:,} samples, more than the "
-                              f"{GLOBAL_SAMPLE_LIMIT:,} kriged all together: each cell uses its {neighbours} "
-                              "nearest samples instead. Set NEIGHBOURS to choose another number.")
-        if neighbours == 0:
-            if self.search_radius is not None:
-                feedback.pushWarning("SEARCH_RADIUS is ignored: every sample is used (NEIGHBOURS is 0).")
-            if count > GLOBAL_SAMPLE_LIMIT:
-                feedback.pushWarning(f"Cell support krigs all {count:,} samples together, which is slow and "
-                                     "memory-hungry at this size; point support would use local neighbourhoods.")
-            feedback.pushInfo(f"Kriging from all {count} samples.")
-            return KrigingPredictor(xy, values, document.covariance, document.mean)
-        if support == "cell":
-            raise FieldcastError("Cell support is computed from all samples (block kriging); local "
-                                 "neighbourhoods are for point support. Set NEIGHBOURS to 0, or SUPPORT to point.")
-        check_neighbours(neighbours, document.mean, "cell")
-        feedback.pushInfo(f"Local kriging: each cell from its {min(neighbours, count)} nearest "
-                          f"samples{search_words(self.search_radius, document.units)}.")
-        return LocalKrigingPredictor(xy, values, document.covariance, document.mean,
-                                     neighbours=neighbours, search_radius=self.search_radius)
-
-    @staticmethod
-    def log_gap(predictor: LocalKrigingPredictor, xy: np.ndarray, values: np.ndarray, grid: GridSpec,
-                inside: np.ndarray | None, feedback) -> None:
-        """Say how far local kriging departs from kriging with all samples at a few cells, with advice above 1 %.
-
-        Done for up to :data:`..algorithms.predict.neighbourhood_check.CHECK_SAMPLE_LIMIT` samples (the comparison
-        factorises the full system); with several fields, for the first. The check is a diagnostic: a
-        problem in it is logged, never fatal.
-        """
-        if len(xy) > CHECK_SAMPLE_LIMIT or feedback.isCanceled():
-            return
-        try:
-            gap = neighbourhood_gap(predictor, xy, values, grid_targets(grid, inside))
-        except FieldcastError as exc:
-            feedback.pushInfo(f"Neighbourhood check skipped: {exc}")
-            return
-        if not gap.targets:
-            return
-        words = (f"Neighbourhood check: at {gap.targets} cells drawn at random, local kriging differs from kriging "
-                 f"with all {len(xy)} samples by up to {gap.prediction:.1%} of the field's standard deviation "
-                 f"(square root of the sill) in the prediction and {gap.variance:.1%} of the sill in the variance "
-                 "(modelling scale).")
-        if max(gap.prediction, gap.variance) > GAP_WARNING:
-            feedback.pushWarning(words + " More neighbours, or NEIGHBOURS = 0 (all samples), bring it closer. Local "
-                                 "kriging estimates the mean from each cell's neighbours, which shows most at cells "
-                                 "beyond the model's range from their samples; a spherical shape, a large nugget "
-                                 "share or a long range also let samples outside the neighbourhood matter.")
-        else:
-            feedback.pushInfo(words)
-
-    def log_unresolved(self, unresolved: int, feedback) -> None:
-        """Say how many cells were left nodata for want of neighbours (nothing when none were)."""
-        if unresolved:
-            feedback.pushWarning(f"{unresolved:,} cell(s) are nodata: fewer samples than the mean model needs lie "
-                                 "within SEARCH_RADIUS of them (or their neighbours make a singular system). "
-                                 "Enlarge SEARCH_RADIUS, or leave it empty, to fill them.")
+def log_unresolved(unresolved: int, feedback) -> None:
+    """Say how many cells were left nodata for want of neighbours (nothing when none were)."""
+    if unresolved:
+        feedback.pushWarning(f"{unresolved:,} cell(s) are nodata: fewer samples than the mean model needs lie "
+                             "within SEARCH_RADIUS of them (or their neighbours make a singular system). "
+                             "Enlarge SEARCH_RADIUS, or leave it empty, to fill them.")
 
 
 class SurfaceAlgorithm(RasterAlgorithm):
@@ -129,10 +81,6 @@ class SurfaceAlgorithm(RasterAlgorithm):
     def add_backtransform_parameter(self) -> None:
         """BACKTRANSFORM: median (default) or mean, for log models."""
         self.add_choice(self.BACKTRANSFORM, self.tr("Back-transform (log models)"), BACKTRANSFORMS, "median")
-
-    def neighbourhood(self, parameters, context) -> Neighbourhood:
-        """The NEIGHBOURS and SEARCH_RADIUS chosen (parameters of :meth:`add_neighbourhood_parameters`)."""
-        return Neighbourhood(*self.neighbourhood_choice(parameters, context))
 
     @staticmethod
     def krige_surface(documents: Sequence[ModelDocument], xy: np.ndarray, values: np.ndarray, grid: GridSpec,
@@ -150,13 +98,16 @@ class SurfaceAlgorithm(RasterAlgorithm):
         Cancelled
             When the feedback is cancelled; no file of ``outputs`` is left.
         """
-        predictor = neighbourhood.predictor(xy, values, documents[0], scale.support, feedback)
+        document = documents[0]
+        predictor, lines = choose_predictor(xy, values, document.covariance, document.mean, neighbourhood,
+                                            support=scale.support, units=document.units)
+        push_log(feedback, lines)
         settings = {"fieldcast_backtransform": scale.backtransform, "fieldcast_support": scale.support}
         if isinstance(predictor, LocalKrigingPredictor):
             settings["fieldcast_neighbours"] = predictor.neighbours
             if neighbourhood.search_radius is not None:
                 settings["fieldcast_search_radius"] = neighbourhood.search_radius
-            neighbourhood.log_gap(predictor, xy, values, grid, inside, feedback)
+            log_gap(predictor, xy, values, grid, inside, feedback)
         if scale.threshold is not None:
             settings["fieldcast_threshold"] = scale.threshold
         rasters = [FieldRasters(field, paths, {"fieldcast_model": document.to_dict(), **settings},
@@ -164,4 +115,4 @@ class SurfaceAlgorithm(RasterAlgorithm):
                    for document, (field, paths) in zip(documents, outputs)]
         unresolved = write_surfaces(cell_predictor(predictor, scale.support, grid.pixel_size), grid, inside, scale,
                                     documents[0].crs_wkt, rasters, progress, feedback.isCanceled)
-        neighbourhood.log_unresolved(unresolved, feedback)
+        log_unresolved(unresolved, feedback)

@@ -15,10 +15,13 @@ import numpy as np
 from engine import REPO_ROOT, load_engine
 
 load_engine()
-from fieldcast_engine.fit.fitting import fit_model  # noqa: E402
-from fieldcast_engine.model.covariance import CovarianceModel, Structure  # noqa: E402
-from fieldcast_engine.model.mean import MeanModel  # noqa: E402
-from fieldcast_engine.predict.kriging import KrigingPredictor  # noqa: E402
+from fieldcast_engine import (  # noqa: E402
+    CovarianceModel,
+    KrigingPredictor,
+    MeanModel,
+    Structure,
+    fit_model,
+)
 
 T = TypeVar("T")
 

@@ -12,15 +12,20 @@ import numpy as np
 from engine import REPO_ROOT, load_engine
 
 load_engine()
-from fieldcast_engine.io.grid import GridSpec  # noqa: E402
-from fieldcast_engine.model.covariance import CovarianceModel, Structure  # noqa: E402
-from fieldcast_engine.model.mean import MeanModel  # noqa: E402
-from fieldcast_engine.model.transform import Transform  # noqa: E402
-from fieldcast_engine.predict.block import block_predict  # noqa: E402
-from fieldcast_engine.predict.exceedance import exceedance_probability  # noqa: E402
-from fieldcast_engine.predict.kriging import KrigingPredictor  # noqa: E402
-from fieldcast_engine.simulate.circulant import UnconditionalGenerator, covariance_factor  # noqa: E402
-from fieldcast_engine.simulate.simulation import simulate_conditional, summarise_realisations  # noqa: E402
+from fieldcast_engine import (  # noqa: E402
+    CovarianceModel,
+    GridSpec,
+    KrigingPredictor,
+    MeanModel,
+    Structure,
+    Transform,
+    UnconditionalGenerator,
+    block_predict,
+    covariance_factor,
+    exceedance_probability,
+    simulate_conditional,
+    summarise_realisations,
+)
 
 # Spherical model of log(zinc) for the Meuse data (nugget 0.05, partial sill 0.59, range 900 m).
 MEUSE_MODEL = CovarianceModel((Structure("spherical", 0.59, 900.0),), nugget=0.05)

@@ -12,12 +12,11 @@ is printed and recorded in demo/README.md. A re-run gives the same values.
 from __future__ import annotations
 
 import argparse
-import importlib
 import math
 from pathlib import Path
 
 import numpy as np
-from engine import ENGINE_NAME, load_engine  # tools/engine.py: the repo's algorithms/ under a fixed name
+from engine import load_engine  # tools/engine.py: the repo's algorithms/ under a fixed name
 from osgeo import gdal, ogr, osr
 
 REPO = Path(__file__).resolve().parent.parent
@@ -37,12 +36,15 @@ MISSING_LEAD_IDS = ("HB-017", "HB-058", "T2-09")  # lab results "lost": written 
 DUPLICATE_OF = "HB-040"  # a field duplicate taken at exactly the same spot
 
 
-def true_covariance(covariance_module):
-    """The simulation model for ln(lead): Matérn 3/2 along the basin axis plus a nugget."""
-    structure = covariance_module.Structure(
+def true_covariance(engine):
+    """The simulation model for ln(lead): Matérn 3/2 along the basin axis plus a nugget.
+
+    ``engine`` is the loaded engine package (``tools/engine.py``).
+    """
+    structure = engine.Structure(
         family="matern32", partial_sill=0.40, range=150.0, azimuth=BASIN_AXIS_AZIMUTH, ratio=0.4
     )
-    return covariance_module.CovarianceModel((structure,), nugget=0.05)
+    return engine.CovarianceModel((structure,), nugget=0.05)
 
 
 def boundary_geometry() -> ogr.Geometry:
@@ -150,8 +152,7 @@ def main() -> None:
     parser.add_argument("--output", type=Path, default=DEFAULT_OUTPUT, help="GeoPackage to write")
     args = parser.parse_args()
     rng = np.random.default_rng(SEED)
-    load_engine()
-    covariance = true_covariance(importlib.import_module(f"{ENGINE_NAME}.covariance"))
+    covariance = true_covariance(load_engine())
     boundary = boundary_geometry()
     rows = sample_layout(boundary, rng)
     values = simulate(rows, covariance, rng)

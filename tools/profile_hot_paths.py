@@ -12,11 +12,14 @@ from engine import load_engine
 from pyinstrument import Profiler
 
 load_engine()
-from fieldcast_engine.fit.fitting import fit_model  # noqa: E402
-from fieldcast_engine.model.covariance import CovarianceModel, Structure  # noqa: E402
-from fieldcast_engine.model.mean import MeanModel  # noqa: E402
-from fieldcast_engine.predict.kriging import KrigingPredictor  # noqa: E402
-from fieldcast_engine.predict.local import LocalKrigingPredictor  # noqa: E402
+from fieldcast_engine import (  # noqa: E402
+    CovarianceModel,
+    KrigingPredictor,
+    LocalKrigingPredictor,
+    MeanModel,
+    Structure,
+    fit_model,
+)
 
 MODEL = CovarianceModel((Structure("exponential", 1.0, 1500.0, 30.0, 0.5),), 0.1)
 

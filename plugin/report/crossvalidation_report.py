@@ -13,7 +13,7 @@ from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
-from ...algorithms.io.atomic import write_text_atomically
+from ...algorithms import write_text_atomically
 from .crossvalidation_figures import observed_predicted_plot, residual_map_plot, standardized_histogram_plot
 from .model_tables import parameter_rows, scale_words, variance_units
 from .page import ReportError, render
@@ -21,8 +21,7 @@ from .plotting import load_plotly, plotly_context
 from .statistics import histogram
 
 if TYPE_CHECKING:
-    from ...algorithms.io.model_file import ModelDocument
-    from ...algorithms.predict.crossval import CrossValidation
+    from ...algorithms import CrossValidation, ModelDocument
 
 NORMAL_95 = 1.959963984540054
 """Two-sided 95 % quantile of the standard normal distribution."""

@@ -13,7 +13,7 @@ from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
-from ...algorithms.io.atomic import write_text_atomically
+from ...algorithms import write_text_atomically
 from .fit_figures import directional_plot, histogram_plot, omnidirectional_plot, sample_map_plot
 from .model_tables import family_name, parameter_rows, scale_words, variance_units
 from .page import ReportError, render
@@ -21,10 +21,7 @@ from .plotting import load_plotly, plotly_context
 from .statistics import STATISTIC_LABELS, describe, histogram
 
 if TYPE_CHECKING:
-    from ...algorithms.fit.fitting import FitResult
-    from ...algorithms.fit.variogram import EmpiricalVariogram
-    from ...algorithms.io.model_file import ModelDocument
-    from ...algorithms.io.samples import Samples
+    from ...algorithms import EmpiricalVariogram, FitResult, ModelDocument, Samples
 
 MEAN_WORDS = {
     "known": "known mean (simple kriging)",

@@ -11,8 +11,7 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 
 if TYPE_CHECKING:
-    from ...algorithms.model.covariance import CovarianceModel
-    from ...algorithms.model.transform import Transform
+    from ...algorithms import CovarianceModel, Transform
 
 FAMILY_NAMES = {
     "exponential": "exponential",

@@ -14,7 +14,7 @@ import math
 from pathlib import Path
 from typing import Any
 
-from ...algorithms.io.model_file import json_ready
+from ...algorithms import json_ready
 
 TEMPLATE_DIR = Path(__file__).resolve().parent / "templates"
 

@@ -16,11 +16,12 @@ from fieldcast.algorithms.io.model_file import ModelDocument
 from fieldcast.algorithms.model.covariance import CovarianceModel, Structure
 from fieldcast.algorithms.model.mean import MeanModel
 from fieldcast.algorithms.model.transform import Transform
+from fieldcast.algorithms.predict import choice
+from fieldcast.algorithms.predict import grid_surfaces as surface
 from fieldcast.algorithms.predict.crossval import local_leave_one_out
 from fieldcast.algorithms.predict.kriging import KrigingPredictor
 from fieldcast.algorithms.predict.local import LocalKrigingPredictor
 from fieldcast.algorithms.predict.neighbourhood_check import CHECK_TARGETS, grid_targets, neighbourhood_gap
-from fieldcast.plugin import surface, surface_algorithm
 from qgis_support import fieldcast_plugin, point_layer, qgis_processing  # noqa: F401 - fixtures
 
 EXTENT = "178440,181560,329600,333760 [EPSG:28992]"
@@ -123,7 +124,7 @@ def test_neighbours_zero_is_global_kriging(qgis_processing, zinc, meuse):  # noq
 
 
 def test_neighbours_zero_above_the_global_limit_uses_64_and_says_so(qgis_processing, zinc, meuse, monkeypatch):  # noqa: F811
-    monkeypatch.setattr(surface_algorithm, "GLOBAL_SAMPLE_LIMIT", 100)  # Meuse's 155 samples stand in for > 5,000
+    monkeypatch.setattr(choice, "GLOBAL_SAMPLE_LIMIT", 100)  # Meuse's 155 samples stand in for > 5,000
     feedback = QgsProcessingFeedback()
     prediction, _, centres = predict(qgis_processing, zinc, "automatic", feedback)
     document = ModelDocument.load(zinc[1])

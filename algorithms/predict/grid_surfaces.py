@@ -2,9 +2,9 @@
 
 Blocks are whole rows of 256 x 256 GeoTIFF tiles; memory stays bounded by one
 block of rows at a time, whatever the raster's height; the files appear only
-when every block is written (see :class:`..algorithms.io.geotiff.GeoTiffWriter`).
+when every block is written (see :class:`..io.geotiff.GeoTiffWriter`).
 Each cell is predicted at its centre (point support) or as the average over the
-cell (cell support, block kriging: :func:`..algorithms.predict.block.block_predict`).
+cell (cell support, block kriging: :func:`.block.block_predict`).
 """
 from __future__ import annotations
 
@@ -15,14 +15,14 @@ from typing import Optional
 
 import numpy as np
 
-from ..algorithms.errors import Cancelled
-from ..algorithms.io.geotiff import GeoTiffWriter
-from ..algorithms.io.grid import GridSpec
-from ..algorithms.model.transform import Transform
-from ..algorithms.predict.block import DEFAULT_POINTS_PER_SIDE, block_predict
-from ..algorithms.predict.exceedance import exceedance_probability
-from ..algorithms.predict.kriging import KrigingPredictor
-from ..algorithms.predict.local import LocalKrigingPredictor
+from ..errors import Cancelled
+from ..io.geotiff import GeoTiffWriter
+from ..io.grid import GridSpec
+from ..model.transform import Transform
+from .block import DEFAULT_POINTS_PER_SIDE, block_predict
+from .exceedance import exceedance_probability
+from .kriging import KrigingPredictor
+from .local import LocalKrigingPredictor
 
 BACKTRANSFORMS = ("median", "mean")
 SUPPORTS = ("point", "cell")

@@ -5,8 +5,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ..algorithms.errors import FieldcastError
-from ..algorithms.io.crs import linear_units, parse_crs, to_wkt2, utm_crs_for
+from ..errors import FieldcastError
+from .crs import linear_units, parse_crs, to_wkt2, utm_crs_for
 
 
 @dataclass(frozen=True)

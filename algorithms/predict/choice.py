@@ -1,0 +1,132 @@
+"""Which samples each target is kriged from: the one place that turns NEIGHBOURS and SEARCH_RADIUS into a predictor.
+
+Every toolbox algorithm that krigs (predict, predictmany, crossvalidate, simulate)
+reads its NEIGHBOURS (0 = every sample) and SEARCH_RADIUS (empty = no limit) into a
+:class:`Neighbourhood`, which checks them once (:meth:`Neighbourhood.resolved`) and,
+for the surface algorithms, builds the global or local predictor
+(:func:`choose_predictor`). Both return the log lines to show, as :class:`LogLine`
+values, so the plugin only passes them on.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from ..errors import FieldcastError
+from ..model.covariance import CovarianceModel
+from ..model.mean import MeanModel
+from .kriging import KrigingPredictor
+from .local import LocalKrigingPredictor
+
+GLOBAL_SAMPLE_LIMIT = 5000
+"""Most samples kriged all together when NEIGHBOURS is 0; above it each cell uses its nearest
+:data:`AUTOMATIC_NEIGHBOURS` (a dense system of 5,000 samples already holds 200 MB and solves slowly)."""
+AUTOMATIC_NEIGHBOURS = 64
+"""Neighbours per cell chosen for NEIGHBOURS = 0 with more than :data:`GLOBAL_SAMPLE_LIMIT` samples."""
+
+
+@dataclass(frozen=True)
+class LogLine:
+    """One line for the run's log: ``level`` is ``"info"`` or ``"warning"``."""
+
+    level: str
+    text: str
+
+
+def search_words(search_radius: float | None, units: str) -> str:
+    """Log words for a search radius, `` within 300 m (along the major axis ...)``; "" without one."""
+    if search_radius is None:
+        return ""
+    return f" within {search_radius:g} {units} (along the major axis of the model's anisotropy)"
+
+
+@dataclass(frozen=True)
+class Neighbourhood:
+    """The samples each target is kriged from.
+
+    Attributes
+    ----------
+    neighbours : int
+        0 = every sample; otherwise the nearest ``neighbours``.
+    search_radius : float or None
+        Largest distance of a neighbour along the model's major axis (working CRS units; the search
+        ellipse follows the anisotropy), None = no limit. Used with local kriging only.
+    """
+
+    neighbours: int = 0
+    search_radius: float | None = None
+
+    def resolved(self, mean: MeanModel, per: str, pool: str = "every sample") -> tuple[int, list[LogLine]]:
+        """Check NEIGHBOURS against the mean model; return it with the log line for an ignored SEARCH_RADIUS.
+
+        ``per`` names what each neighbourhood serves ("cell", "sample") in the refusal; ``pool`` what is
+        used when NEIGHBOURS is 0 ("every sample", "every other sample").
+
+        Raises
+        ------
+        FieldcastError
+            If NEIGHBOURS is negative, or from 1 up to the number of trend terms.
+        """
+        minimum = mean.n_terms + 1
+        if self.neighbours < 0 or 0 < self.neighbours < minimum:
+            raise FieldcastError(f"NEIGHBOURS is {self.neighbours}, but the {mean.kind} mean of the model needs at "
+                                 f"least {minimum} samples per {per}. Set NEIGHBOURS to {minimum} or more (16 to 64 "
+                                 "is common practice), or to 0 for all samples.")
+        if self.search_radius is not None and self.search_radius <= 0:
+            raise FieldcastError(f"SEARCH_RADIUS is {self.search_radius:g}; it must be positive. Enlarge it, or leave "
+                                 "it empty for no limit.")
+        lines = []
+        if self.neighbours == 0 and self.search_radius is not None:
+            lines.append(LogLine("warning", f"SEARCH_RADIUS is ignored: {pool} is used (NEIGHBOURS is 0)."))
+        return self.neighbours, lines
+
+
+def choose_predictor(xy: np.ndarray, values: np.ndarray, covariance: CovarianceModel, mean: MeanModel,
+                     neighbourhood: Neighbourhood, *, support: str = "point", units: str = "metre",
+                     ) -> tuple[KrigingPredictor | LocalKrigingPredictor, list[LogLine]]:
+    """The kriging predictor of a run, global or local, and the log lines that say which and why.
+
+    With NEIGHBOURS 0, every sample is kriged together, except above :data:`GLOBAL_SAMPLE_LIMIT`
+    samples with point support, where each target uses its :data:`AUTOMATIC_NEIGHBOURS` nearest.
+
+    Parameters
+    ----------
+    xy : ndarray, shape (n, 2)
+        Sample coordinates, working CRS units.
+    values : ndarray, shape (n,) or (n, k)
+        Values in the modelling scale, one column per field.
+    covariance, mean : CovarianceModel, MeanModel
+        The model.
+    neighbourhood : Neighbourhood
+        NEIGHBOURS and SEARCH_RADIUS as chosen.
+    support : str
+        ``"point"`` or ``"cell"`` (block kriging, global only).
+    units : str
+        Working CRS unit, for the log.
+
+    Raises
+    ------
+    FieldcastError
+        If NEIGHBOURS is too small for the mean model, or local kriging is asked for cell support.
+    """
+    neighbours, lines = neighbourhood.resolved(mean, "cell")
+    count = len(values)
+    if neighbours == 0 and count > GLOBAL_SAMPLE_LIMIT and support == "point":
+        neighbours = AUTOMATIC_NEIGHBOURS
+        lines.append(LogLine("info", f"NEIGHBOURS is 0 but there are {count:,} samples, more than the "
+                                     f"{GLOBAL_SAMPLE_LIMIT:,} kriged all together: each cell uses its {neighbours} "
+                                     "nearest samples instead. Set NEIGHBOURS to choose another number."))
+    elif neighbours == 0 and count > GLOBAL_SAMPLE_LIMIT:
+        lines.append(LogLine("warning", f"Cell support krigs all {count:,} samples together, which is slow and "
+                                        "memory-hungry at this size; point support would use local neighbourhoods."))
+    if neighbours == 0:
+        lines.append(LogLine("info", f"Kriging from all {count} samples."))
+        return KrigingPredictor(xy, values, covariance, mean), lines
+    if support == "cell":
+        raise FieldcastError("Cell support is computed from all samples (block kriging); local "
+                             "neighbourhoods are for point support. Set NEIGHBOURS to 0, or SUPPORT to point.")
+    lines.append(LogLine("info", f"Local kriging: each cell from its {min(neighbours, count)} nearest "
+                                 f"samples{search_words(neighbourhood.search_radius, units)}."))
+    return LocalKrigingPredictor(xy, values, covariance, mean, neighbours=neighbours,
+                                 search_radius=neighbourhood.search_radius), lines
