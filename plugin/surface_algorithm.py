@@ -16,6 +16,7 @@ import numpy as np
 from ..algorithms.errors import FieldcastError
 from ..algorithms.io.grid import GridSpec
 from ..algorithms.io.model_file import ModelDocument
+from ..algorithms.linalg.condition_policy import ADVICE
 from ..algorithms.predict.kriging import KrigingPredictor
 from ..algorithms.predict.local import LocalKrigingPredictor
 from ..algorithms.predict.neighbourhood_check import CHECK_SAMPLE_LIMIT, grid_targets, neighbourhood_gap
@@ -73,7 +74,10 @@ class Neighbourhood:
                 feedback.pushWarning(f"Cell support krigs all {count:,} samples together, which is slow and "
                                      "memory-hungry at this size; point support would use local neighbourhoods.")
             feedback.pushInfo(f"Kriging from all {count} samples.")
-            return KrigingPredictor(xy, values, document.covariance, document.mean)
+            predictor = KrigingPredictor(xy, values, document.covariance, document.mean)
+            for warning in predictor.warnings:
+                feedback.pushWarning(warning)
+            return predictor
         if support == "cell":
             raise FieldcastError("Cell support is computed from all samples (block kriging); local "
                                  "neighbourhoods are for point support. Set NEIGHBOURS to 0, or SUPPORT to point.")
@@ -113,12 +117,20 @@ class Neighbourhood:
         else:
             feedback.pushInfo(words)
 
-    def log_unresolved(self, unresolved: int, feedback) -> None:
-        """Say how many cells were left nodata for want of neighbours (nothing when none were)."""
-        if unresolved:
-            feedback.pushWarning(f"{unresolved:,} cell(s) are nodata: fewer samples than the mean model needs lie "
-                                 "within SEARCH_RADIUS of them (or their neighbours make a singular system). "
-                                 "Enlarge SEARCH_RADIUS, or leave it empty, to fill them.")
+    def log_unresolved(self, unresolved: int, singular: int, ill_conditioned: int, feedback) -> None:
+        """Say how many cells were left nodata, how many of them for a singular neighbour system, and how many
+        were kriged from an ill-conditioned one (nothing when there are none)."""
+        if unresolved > singular:
+            feedback.pushWarning(f"{unresolved - singular:,} cell(s) are nodata: fewer samples than the mean model "
+                                 "needs lie within SEARCH_RADIUS of them. Enlarge SEARCH_RADIUS, or leave it empty, "
+                                 "to fill them.")
+        if singular:
+            feedback.pushWarning(f"{singular:,} cell(s) are nodata: the covariance matrix of their neighbours is "
+                                 "numerically singular. " + ADVICE)
+        if ill_conditioned:
+            feedback.pushWarning(f"{ill_conditioned:,} cell(s) were kriged from an ill-conditioned neighbour system "
+                                 "(condition number above the warning level), so their predictions can stray far "
+                                 "from the data. " + ADVICE)
 
 
 class SurfaceAlgorithm(RasterAlgorithm):
@@ -162,6 +174,9 @@ class SurfaceAlgorithm(RasterAlgorithm):
         rasters = [FieldRasters(field, paths, {"fieldcast_model": document.to_dict(), **settings},
                                 document.covariance.sill / documents[0].covariance.sill)
                    for document, (field, paths) in zip(documents, outputs)]
+        local = isinstance(predictor, LocalKrigingPredictor)
+        before = (predictor.singular_targets, predictor.ill_conditioned_targets) if local else (0, 0)
         unresolved = write_surfaces(cell_predictor(predictor, scale.support, grid.pixel_size), grid, inside, scale,
                                     documents[0].crs_wkt, rasters, progress, feedback.isCanceled)
-        neighbourhood.log_unresolved(unresolved, feedback)
+        after = (predictor.singular_targets, predictor.ill_conditioned_targets) if local else (0, 0)
+        neighbourhood.log_unresolved(unresolved, after[0] - before[0], after[1] - before[1], feedback)
