@@ -25,6 +25,12 @@ machine). The cheaper ``(min_i L_ii / max_i L_ii)^2`` is not used: each
 ``L_ii^2`` lies between the extreme eigenvalues of ``K``, so it only bounds
 ``rcond`` from above, and on the Meuse samples with a Gaussian model it was
 up to a thousand times too optimistic.
+
+Scope. Kriging (:mod:`..predict.kriging`, :mod:`..predict.local`) follows
+this rule. The likelihood (:mod:`..fit.likelihood`) and the sample-point draw
+of conditional simulation (:mod:`..simulate.conditioning`) instead add the
+smallest diagonal jitter that makes the factorisation succeed: the fitter must
+be able to evaluate every candidate parameter set, so they do not refuse.
 """
 from __future__ import annotations
 
