@@ -79,6 +79,8 @@ _PUBLIC = {
     "CHECK_SAMPLE_LIMIT": "predict.neighbourhood_check",
     "grid_targets": "predict.neighbourhood_check",
     "neighbourhood_gap": "predict.neighbourhood_check",
+    # linalg
+    "CONDITION_ADVICE": "linalg.condition_policy",
     # simulate
     "UnconditionalGenerator": "simulate.circulant",
     "covariance_factor": "simulate.circulant",

@@ -15,6 +15,7 @@ import numpy as np
 from ..algorithms import (
     BACKTRANSFORMS,
     CHECK_SAMPLE_LIMIT,
+    CONDITION_ADVICE,
     FieldcastError,
     FieldRasters,
     GridSpec,
@@ -65,12 +66,20 @@ def log_gap(predictor: LocalKrigingPredictor, xy: np.ndarray, values: np.ndarray
     else:
         feedback.pushInfo(words)
 
-def log_unresolved(unresolved: int, feedback) -> None:
-    """Say how many cells were left nodata for want of neighbours (nothing when none were)."""
-    if unresolved:
-        feedback.pushWarning(f"{unresolved:,} cell(s) are nodata: fewer samples than the mean model needs lie "
-                             "within SEARCH_RADIUS of them (or their neighbours make a singular system). "
-                             "Enlarge SEARCH_RADIUS, or leave it empty, to fill them.")
+def log_unresolved(unresolved: int, singular: int, ill_conditioned: int, feedback) -> None:
+    """Say how many cells were left nodata, how many of them for a singular neighbour system, and how many
+    were kriged from an ill-conditioned one (nothing when there are none)."""
+    if unresolved > singular:
+        feedback.pushWarning(f"{unresolved - singular:,} cell(s) are nodata: fewer samples than the mean model "
+                             "needs lie within SEARCH_RADIUS of them. Enlarge SEARCH_RADIUS, or leave it empty, "
+                             "to fill them.")
+    if singular:
+        feedback.pushWarning(f"{singular:,} cell(s) are nodata: the covariance matrix of their neighbours is "
+                             "numerically singular. " + CONDITION_ADVICE)
+    if ill_conditioned:
+        feedback.pushWarning(f"{ill_conditioned:,} cell(s) were kriged from an ill-conditioned neighbour system "
+                             "(condition number above the warning level), so their predictions can stray far "
+                             "from the data. " + CONDITION_ADVICE)
 
 
 class SurfaceAlgorithm(RasterAlgorithm):
@@ -113,6 +122,9 @@ class SurfaceAlgorithm(RasterAlgorithm):
         rasters = [FieldRasters(field, paths, {"fieldcast_model": document.to_dict(), **settings},
                                 document.covariance.sill / documents[0].covariance.sill)
                    for document, (field, paths) in zip(documents, outputs)]
+        local = isinstance(predictor, LocalKrigingPredictor)
+        before = (predictor.singular_targets, predictor.ill_conditioned_targets) if local else (0, 0)
         unresolved = write_surfaces(cell_predictor(predictor, scale.support, grid.pixel_size), grid, inside, scale,
                                     documents[0].crs_wkt, rasters, progress, feedback.isCanceled)
-        log_unresolved(unresolved, feedback)
+        after = (predictor.singular_targets, predictor.ill_conditioned_targets) if local else (0, 0)
+        log_unresolved(unresolved, after[0] - before[0], after[1] - before[1], feedback)

@@ -122,7 +122,8 @@ def choose_predictor(xy: np.ndarray, values: np.ndarray, covariance: CovarianceM
                                         "memory-hungry at this size; point support would use local neighbourhoods."))
     if neighbours == 0:
         lines.append(LogLine("info", f"Kriging from all {count} samples."))
-        return KrigingPredictor(xy, values, covariance, mean), lines
+        predictor = KrigingPredictor(xy, values, covariance, mean)
+        return predictor, lines + [LogLine("warning", warning) for warning in predictor.warnings]
     if support == "cell":
         raise FieldcastError("Cell support is computed from all samples (block kriging); local "
                              "neighbourhoods are for point support. Set NEIGHBOURS to 0, or SUPPORT to point.")

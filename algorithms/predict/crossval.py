@@ -29,9 +29,10 @@ import numpy as np
 from scipy import linalg
 
 from ..errors import FieldcastError
+from ..linalg.condition_policy import UNIT_ROUNDOFF
 from ..model.covariance import CovarianceModel
 from ..model.mean import MeanModel
-from .kriging import UNIT_ROUNDOFF, KrigingPredictor, cholesky_factor
+from .kriging import KrigingPredictor, cholesky_factor
 from .local import LocalKrigingPredictor
 
 NORMAL_95_QUANTILE = 1.959963984540054

@@ -48,17 +48,14 @@ from concurrent.futures import ThreadPoolExecutor
 
 import numpy as np
 from scipy import linalg
-from scipy.linalg import lapack
 
 from ..errors import Cancelled, FieldcastError
+from ..linalg.condition_policy import CONDITION_ADVICE, reciprocal_condition, usable, warning_text
 from ..model.covariance import CovarianceModel
 from ..model.mean import MeanModel
 
 NEGATIVE_VARIANCE_TOLERANCE = 1e-8
 """Negative variances above ``-tolerance * sill`` are round-off and become 0."""
-
-UNIT_ROUNDOFF = float(np.finfo(float).eps)
-"""Relative spacing of double-precision numbers."""
 
 _BLOCK_ROWS = 128
 """Rows of ``L^-1`` per block in the triangular product."""
@@ -167,27 +164,28 @@ def checked_variance(variance: np.ndarray, sill: float, *, unresolved_allowed: b
     return np.where(variance < 0.0, 0.0, variance)
 
 
-def cholesky_factor(matrix: np.ndarray, what: str, remedy: str) -> np.ndarray:
+def cholesky_factor(matrix: np.ndarray, what: str, remedy: str, warnings: list[str] | None = None) -> np.ndarray:
     """Lower Cholesky factor of a symmetric (k, k) matrix, refusing numerically singular ones.
 
-    Raises FieldcastError (message ``what`` + ``remedy``) when the matrix
-    is not positive definite or its reciprocal 1-norm condition number is
-    below ``k * UNIT_ROUNDOFF``, the size of the backward error of the
-    Cholesky factorisation itself (Higham 2002, *Accuracy and Stability of
-    Numerical Algorithms*, 2nd ed., theorem 10.3): such a matrix cannot be
-    told apart from a singular one in double precision.
+    The rule of :mod:`..linalg.condition_policy` applies to the dpocon
+    reciprocal condition estimate: below ``k * UNIT_ROUNDOFF`` the matrix
+    cannot be told apart from a singular one and FieldcastError is raised
+    (message ``what`` + ``remedy``); below the warning level the factor is
+    returned and, when ``warnings`` is given, a warning naming the condition
+    estimate and what to change is appended to it.
     """
-    norm = float(np.max(np.sum(np.abs(matrix), axis=0))) if matrix.size else 0.0
     try:
         factor = linalg.cholesky(matrix, lower=True, check_finite=False)
     except linalg.LinAlgError:
         raise FieldcastError(f"The {what} is not positive definite. {remedy}") from None
-    reciprocal_condition, info = lapack.dpocon(factor, norm, uplo="L")
-    if info != 0 or not reciprocal_condition >= len(matrix) * UNIT_ROUNDOFF:
+    estimate = reciprocal_condition(matrix, factor)
+    if not usable(estimate, len(matrix)):
         raise FieldcastError(
-            f"The {what} is numerically singular (reciprocal condition number "
-            f"{reciprocal_condition:.1e}). {remedy}"
+            f"The {what} is numerically singular (reciprocal condition number {estimate:.1e}). {remedy}"
         )
+    message = warning_text(what, estimate)
+    if message is not None and warnings is not None:
+        warnings.append(message)
     return factor
 
 
@@ -222,6 +220,9 @@ class KrigingPredictor:
     coefficients : ndarray of shape (p,) or (p, m)
         GLS trend coefficients ``beta`` in the order of ``mean.term_names``,
         one column per field for 2-D values (no rows for a known mean).
+    warnings : list of str
+        Warnings for the caller to log: an ill-conditioned but usable covariance
+        or trend matrix (see :mod:`..linalg.condition_policy`).
     """
 
     def __init__(self, xy: np.ndarray, values: np.ndarray, covariance: CovarianceModel, mean: MeanModel,
@@ -242,11 +243,9 @@ class KrigingPredictor:
         self.covariance = covariance
         self.mean = mean
         self.xy = points.copy()
-        factor = cholesky_factor(
-            covariance.data_covariance(points), "covariance matrix of the samples",
-            "Samples are too close together for a model without nugget (or the covariance is too smooth); "
-            "merge near-duplicate points or use a model with a (small) nugget."
-        )
+        self.warnings: list[str] = []
+        factor = cholesky_factor(covariance.data_covariance(points), "covariance matrix of the samples",
+                                 CONDITION_ADVICE, self.warnings)
         self._inverse_factor = linalg.solve_triangular(factor, np.eye(self.n), lower=True, check_finite=False)
         self._blocks = [(start, min(start + _BLOCK_ROWS, self.n)) for start in range(0, self.n, _BLOCK_ROWS)]
         design = mean.design(points, covariates)
@@ -272,8 +271,8 @@ class KrigingPredictor:
         factor = cholesky_factor(
             trend_matrix * np.outer(scale, scale), "trend (mean model) matrix",
             "The trend terms cannot be told apart at these samples (points on a line, a constant or "
-            "duplicated covariate, or too few samples); use a simpler mean model or other covariates."
-        )
+            "duplicated covariate, or too few samples); use a simpler mean model or other covariates.",
+            self.warnings)
         return scale, factor
 
     def _trend_whiten(self, gap: np.ndarray) -> np.ndarray:

@@ -59,8 +59,14 @@ Internally ``y`` is always (n, m), with ``m = 1`` for one field.
 Nodata. A target with fewer than ``n_terms + 1`` neighbours within the
 search radius (at least one more sample than trend terms; common practice),
 or whose local system is singular (``K`` or ``A`` not numerically positive
-definite, e.g. collinear neighbours under a linear trend), gets NaN for mean
-(every field) and variance; :attr:`LocalKrigingPredictor.last_unresolved` counts them.
+definite, e.g. collinear neighbours under a linear trend, or ``K`` beyond the
+refuse level of :mod:`..linalg.condition_policy`), gets NaN for mean (every
+field) and variance; :attr:`LocalKrigingPredictor.last_unresolved` counts them.
+Targets whose ``K`` is refused, or used but past the warning level of the
+same rule, are also counted over the predictor's life
+(:attr:`LocalKrigingPredictor.singular_targets`,
+:attr:`LocalKrigingPredictor.ill_conditioned_targets`) so that the caller can
+report them with the advice of that module; the run never stops for them.
 
 Weights. :meth:`LocalKrigingPredictor.weights` returns the kriging weights
 ``lambda`` of the same systems in sparse form, each target's neighbour
@@ -85,6 +91,7 @@ from scipy.spatial import cKDTree
 
 from ..errors import Cancelled, FieldcastError
 from ..linalg.batched import back_substitution, cholesky_stack, forward_substitution
+from ..linalg.condition_policy import WARN_RECIPROCAL, stack_reciprocal_condition, usable
 from ..model.correlation import correlation
 from ..model.covariance import CovarianceModel, Structure
 from ..model.mean import MeanModel
@@ -140,6 +147,9 @@ class LocalKrigingPredictor:
     ``minimum_neighbours`` the fewest a target needs (``mean.n_terms + 1``);
     after each :meth:`predict`, ``last_unresolved`` counts its targets left
     as NaN (too few neighbours in range, or a singular local system).
+    ``singular_targets`` and ``ill_conditioned_targets`` count, over all calls
+    since construction, the targets whose neighbour covariance matrix was
+    refused (left NaN) or used with a warning by :mod:`..linalg.condition_policy`.
     """
 
     def __init__(self, xy: np.ndarray, values: np.ndarray, covariance: CovarianceModel, mean: MeanModel, *,
@@ -170,6 +180,7 @@ class LocalKrigingPredictor:
         self.neighbours = min(int(neighbours), self.n)
         self.search_radius = search_radius
         self.last_unresolved = 0
+        self._tallies: list[tuple[int, int]] = []  # (singular, ill-conditioned) targets per solved stack
         self._covariates = None if covariates is None else np.array(covariates, dtype=float).reshape(self.n, -1)
         mean.design(points[:1], None if self._covariates is None else self._covariates[:1])  # checks the columns
         self._single_field = observed.ndim == 1
@@ -223,7 +234,10 @@ class LocalKrigingPredictor:
         sill = self.covariance.sill
         matrices = self._set_covariances(points) / sill
         matrices[:, np.arange(k), np.arange(k)] = 1.0  # (field variance + nugget) / sill
-        factors, solvable = cholesky_stack(matrices)  # K / sill = L L^T
+        factors, positive = cholesky_stack(matrices)  # K / sill = L L^T
+        estimate = stack_reciprocal_condition(matrices, factors, positive)
+        solvable = positive & usable(estimate, k)
+        factors[~solvable] = np.eye(k)  # refused systems: keep the solves finite, their targets become NaN
         covariates = None if self._covariates is None else self._covariates[sets]
         design = self._design((points - centre[:, None, :]) / scale[:, None, None], covariates)
         fields = self._residual.shape[1]
@@ -235,7 +249,25 @@ class LocalKrigingPredictor:
         white_residual = white_values - np.einsum("uij,ujf->uif", white_design, coefficients)  # L^-1 (y - F beta)
         return {"factors": factors, "white_design": white_design, "trend_factors": trend_factors,
                 "coefficients": coefficients, "white_residual": white_residual,
-                "solvable": solvable & trend_solvable, "centre": centre, "scale": scale}
+                "solvable": solvable & trend_solvable, "ill_conditioned": solvable & (estimate < WARN_RECIPROCAL),
+                "centre": centre, "scale": scale}
+
+    @property
+    def singular_targets(self) -> int:
+        """Targets left NaN since construction because their local system was singular or refused."""
+        return sum(singular for singular, _ in self._tallies)
+
+    @property
+    def ill_conditioned_targets(self) -> int:
+        """Targets solved since construction from a local covariance matrix past the warning level."""
+        return sum(ill for _, ill in self._tallies)
+
+    def _unsolvable(self, system: dict[str, np.ndarray], chosen: np.ndarray) -> np.ndarray:
+        """Which targets (their sets ``chosen``) have an unsolvable system; tallies them and the ill-conditioned."""
+        unsolvable = ~system["solvable"][chosen]
+        self._tallies.append((int(np.count_nonzero(unsolvable)),
+                              int(np.count_nonzero(system["ill_conditioned"][chosen]))))  # append is thread-safe
+        return unsolvable
 
     def _in_stacks(self, neighbour_index: np.ndarray, pool: ThreadPoolExecutor,
                    solve: Callable[[np.ndarray, np.ndarray, np.ndarray, dict[str, np.ndarray]], None]) -> np.ndarray:
@@ -287,7 +319,7 @@ class LocalKrigingPredictor:
             white_gap = forward_substitution(system["trend_factors"][chosen], gap[:, :, None])[:, :, 0]
             found_variance = self.covariance.field_variance + self.covariance.sill * (
                 np.einsum("bi,bi->b", white_gap, white_gap) - np.einsum("bi,bi->b", white_cross, white_cross))
-            unsolvable = ~system["solvable"][chosen]
+            unsolvable = self._unsolvable(system, chosen)
             found_mean[unsolvable] = np.nan
             found_variance[unsolvable] = np.nan
             mean[rows], variance[rows] = found_mean, found_variance
@@ -423,7 +455,7 @@ class LocalKrigingPredictor:
             multipliers = back_substitution(trend_factors, forward_substitution(trend_factors, gap[:, :, None]))
             white_cross += (white_design @ multipliers)[:, :, 0]
             found = back_substitution(system["factors"][chosen], white_cross[:, :, None])[:, :, 0]
-            found[~system["solvable"][chosen]] = np.nan
+            found[self._unsolvable(system, chosen)] = np.nan
             weights[rows] = found
 
         return self._in_stacks(neighbour_index, pool, solve), weights

@@ -5,6 +5,8 @@ tests/data/README.md), EPSG:28992 metres, log(zinc). The algorithms run in-proce
 """
 from __future__ import annotations
 
+import re
+
 import numpy as np
 import pytest
 from osgeo import gdal
@@ -145,6 +147,39 @@ def test_a_search_radius_below_the_spacing_leaves_counted_nodata(qgis_processing
     assert 0 < empty < len(prediction) and empty == engine.last_unresolved
     assert np.array_equal(np.isnan(prediction), np.isnan(variance))
     assert f"{empty:,} cell(s) are nodata" in feedback.textLog()
+
+
+def test_singular_neighbour_systems_leave_counted_nodata_with_advice(qgis_processing, zinc, meuse):  # noqa: F811
+    # A Gaussian correlation without nugget and a 1,000 m range makes most 64-sample neighbour matrices numerically
+    # singular (tests/predict/test_factorisation_policy.py): those cells become nodata, the run goes on.
+    document = ModelDocument.load(zinc[1])
+    document.covariance = CovarianceModel((Structure("gaussian", document.covariance.sill, 1000.0),), 0.0)
+    path = str(zinc[2] / "gaussian.json")
+    document.save(path)
+    feedback = QgsProcessingFeedback()
+    prediction, variance, centres = predict(qgis_processing, (zinc[0], path, zinc[2]), "gaussian", feedback,
+                                            NEIGHBOURS=64)
+    engine = LocalKrigingPredictor(meuse.xy, np.log(meuse.zinc), document.covariance, document.mean, neighbours=64)
+    engine.predict(centres)
+    log = feedback.textLog()
+    found = re.search(r"([0-9,]+) cell\(s\) are nodata: the covariance matrix of their neighbours is numerically "
+                      r"singular\. Refit with a less smooth family", log)
+    singular = int(found.group(1).replace(",", ""))
+    assert singular == engine.singular_targets
+    # Nodata also holds the back-transforms too large for Float32 (the model's far excursions at resolved cells).
+    assert 0 < singular <= np.count_nonzero(np.isnan(prediction)) == np.count_nonzero(np.isnan(variance))
+
+
+def test_global_kriging_logs_an_ill_conditioned_sample_matrix(qgis_processing, zinc, meuse):  # noqa: F811
+    # Gaussian without nugget at 600 m: usable but past the warning level (tests/predict/test_factorisation_policy.py).
+    document = ModelDocument.load(zinc[1])
+    document.covariance = CovarianceModel((Structure("gaussian", document.covariance.sill, 600.0),), 0.0)
+    path = str(zinc[2] / "gaussian600.json")
+    document.save(path)
+    feedback = QgsProcessingFeedback()
+    predict(qgis_processing, (zinc[0], path, zinc[2]), "gaussian600", feedback, NEIGHBOURS=0)
+    expected = KrigingPredictor(meuse.xy, np.log(meuse.zinc), document.covariance, document.mean).warnings
+    assert len(expected) == 1 and expected[0] in feedback.textLog()
 
 
 @pytest.mark.parametrize("extra, message", [
