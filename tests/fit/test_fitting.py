@@ -24,6 +24,7 @@ from fieldcast.algorithms.model.parameters import (
     ParameterLayout,
     parameter_bounds,
 )
+from reference import gaussian_field
 
 
 def simulate(model: CovarianceModel, n: int, seed: int, side: float = 1000.0,
@@ -31,8 +32,7 @@ def simulate(model: CovarianceModel, n: int, seed: int, side: float = 1000.0,
     """Gaussian field with covariance ``model`` at ``n`` uniform random points (Cholesky of K)."""
     rng = np.random.default_rng(seed)
     xy = rng.uniform(0.0, side, (n, 2))
-    values = mean + np.linalg.cholesky(model.data_covariance(xy)) @ rng.normal(size=n)
-    return xy, values
+    return xy, gaussian_field(model, xy, rng, mean)
 
 
 ANISOTROPIC = CovarianceModel((Structure("exponential", 1.0, 250.0, 30.0, 0.4),), 0.1)

@@ -19,6 +19,7 @@ from fieldcast.algorithms.fit.variogram import (
 )
 from fieldcast.algorithms.fit.variogram_fit import _collect_lags, _Criterion, fit_semivariogram_model
 from fieldcast.algorithms.model.covariance import CovarianceModel, Structure
+from reference import gaussian_field
 
 
 def brute_force_semivariogram(xy, values, edges, azimuth=None, tolerance=90.0):
@@ -194,7 +195,7 @@ def simulate(model: CovarianceModel, seed: int, n: int = 800) -> tuple[np.ndarra
     """A Gaussian field with this covariance at n uniform points in a 100 x 100 square (Cholesky)."""
     rng = np.random.default_rng(seed)
     xy = rng.uniform(0.0, 100.0, size=(n, 2))
-    return xy, np.linalg.cholesky(model.data_covariance(xy)) @ rng.standard_normal(n)
+    return xy, gaussian_field(model, xy, rng)
 
 
 # Bounds: one realisation of a field carries sampling error in its semivariogram that no

@@ -12,10 +12,10 @@ from fieldcast.algorithms.model.covariance import CovarianceModel, Structure
 from fieldcast.algorithms.model.mean import MeanModel
 from fieldcast.algorithms.predict.block import block_covariance, block_offsets, block_predict
 from fieldcast.algorithms.predict.kriging import KrigingPredictor
+from reference import MEUSE_LOG_ZINC
 
-# Spherical model for log(zinc) of the Meuse data: nugget 0.05, partial sill 0.59, range 900 m, the usual
-# fit to this data set's log-zinc variogram (from memory).
-MEUSE_MODEL = CovarianceModel((Structure("spherical", 0.59, 900.0),), nugget=0.05)
+# The usual Meuse log-zinc model (tests/reference.py; from memory).
+MEUSE_MODEL = MEUSE_LOG_ZINC
 
 
 def test_simple_block_kriging_equals_scikit_learn_posterior_averages():

@@ -7,16 +7,15 @@ from scipy import stats
 
 from fieldcast.algorithms.errors import FieldcastError
 from fieldcast.algorithms.io.grid import GridSpec
-from fieldcast.algorithms.model.covariance import CovarianceModel, Structure
 from fieldcast.algorithms.model.mean import MeanModel
 from fieldcast.algorithms.model.transform import Transform
 from fieldcast.algorithms.predict.exceedance import exceedance_probability
 from fieldcast.algorithms.predict.kriging import KrigingPredictor
 from fieldcast.algorithms.simulate.simulation import simulate_conditional, summarise_realisations
+from reference import MEUSE_LOG_ZINC
 
-# Spherical model for log(zinc) of the Meuse data: nugget 0.05, partial sill 0.59, range 900 m, the usual
-# fit to this data set's log-zinc variogram (from memory).
-MEUSE_MODEL = CovarianceModel((Structure("spherical", 0.59, 900.0),), nugget=0.05)
+# The usual Meuse log-zinc model (tests/reference.py; from memory).
+MEUSE_MODEL = MEUSE_LOG_ZINC
 ZINC_THRESHOLD = 500.0  # ppm
 
 

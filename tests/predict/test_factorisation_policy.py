@@ -25,6 +25,7 @@ from fieldcast.algorithms.model.covariance import CovarianceModel, Structure
 from fieldcast.algorithms.model.mean import MeanModel
 from fieldcast.algorithms.predict.kriging import KrigingPredictor
 from fieldcast.algorithms.predict.local import LocalKrigingPredictor
+from reference import MEUSE_LOG_ZINC
 
 SILL = 0.6  # about the variance of log-zinc (0.52 on these samples)
 
@@ -121,7 +122,7 @@ def test_local_16_neighbours_at_1000_m_is_resolved_and_equals_a_reference_solve(
 
 
 def test_well_conditioned_spherical_model_with_nugget_draws_no_warning(meuse, meuse_grid, log_zinc, constant):
-    spherical = CovarianceModel((Structure("spherical", 0.59, 900.0),), nugget=0.05)  # Meuse log-zinc, from memory
+    spherical = MEUSE_LOG_ZINC
     assert KrigingPredictor(meuse.xy, log_zinc, spherical, constant).warnings == []
     local = LocalKrigingPredictor(meuse.xy, log_zinc, spherical, constant, neighbours=64)
     mean, _ = local.predict(meuse_grid.xy)

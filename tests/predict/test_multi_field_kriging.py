@@ -11,14 +11,14 @@ import numpy as np
 import pytest
 
 from fieldcast.algorithms.errors import FieldcastError
-from fieldcast.algorithms.model.covariance import CovarianceModel, Structure
 from fieldcast.algorithms.model.mean import MeanModel
 from fieldcast.algorithms.predict.kriging import KrigingPredictor
 from fieldcast.algorithms.predict.local import LocalKrigingPredictor
+from reference import MEUSE_LOG_ZINC
 
-# Spherical model with partial sill 0.59, range 897 m and nugget 0.05: magnitudes usually quoted for the Meuse
-# log-zinc variogram (from memory). The identity holds for any model, so all four metals share it here.
-SPHERICAL = CovarianceModel((Structure("spherical", 0.59, 897.0),), 0.05)
+# The usual Meuse log-zinc model (tests/reference.py; from memory). The identity holds for any model, so all four
+# metals share it here.
+SPHERICAL = MEUSE_LOG_ZINC
 
 # Search radius (m) that leaves some cells of the 40 m Meuse grid with too few samples for a linear trend.
 SHORT_RADIUS = 150.0

@@ -9,10 +9,11 @@ from fieldcast.algorithms.model.covariance import CovarianceModel, Structure
 from fieldcast.algorithms.model.mean import MEAN_KINDS, MeanModel
 from fieldcast.algorithms.predict.kriging import KrigingPredictor
 from fieldcast.algorithms.predict.local import ROW_HASH_SEED, LocalKrigingPredictor, distinct_rows
+from reference import MEUSE_LOG_ZINC
 
-# Spherical log-zinc model with a nugget of 0.05, partial sill 0.59 and range 897 m: the magnitudes usually
-# quoted for the Meuse log-zinc variogram (from memory); anisotropic variant rotated to the river's course.
-SPHERICAL = CovarianceModel((Structure("spherical", 0.59, 897.0),), 0.05)
+# The usual Meuse log-zinc model (tests/reference.py; from memory).
+SPHERICAL = MEUSE_LOG_ZINC
+# Anisotropic variant rotated to the river's course.
 ANISOTROPIC = CovarianceModel((Structure("exponential", 0.6, 400.0, azimuth=40.0, ratio=0.5),), 0.05)
 # Nested structures with different anisotropies (the search frame follows the first one only).
 CROSSED = CovarianceModel((Structure("exponential", 0.3, 300.0, azimuth=40.0, ratio=0.5),

@@ -10,10 +10,10 @@ from fieldcast.algorithms.model.mean import MeanModel
 from fieldcast.algorithms.predict.kriging import KrigingPredictor
 from fieldcast.algorithms.predict.local import LocalKrigingPredictor
 from fieldcast.algorithms.predict.neighbourhood_check import grid_targets, neighbourhood_gap
+from reference import MEUSE_LOG_ZINC
 
-# Spherical log-zinc model with a nugget of 0.05, partial sill 0.59 and range 897 m: the magnitudes usually
-# quoted for the Meuse log-zinc variogram (from memory).
-SPHERICAL = CovarianceModel((Structure("spherical", 0.59, 897.0),), 0.05)
+# The usual Meuse log-zinc model (tests/reference.py; from memory).
+SPHERICAL = MEUSE_LOG_ZINC
 # A smooth, shorter-range model (Matérn 3/2, 300 m) under which the nearest samples screen the others.
 SMOOTH = CovarianceModel((Structure("matern32", 0.6, 300.0),), 0.05)
 

@@ -14,10 +14,10 @@ from fieldcast.algorithms.predict.local import LocalKrigingPredictor
 from fieldcast.algorithms.simulate import simulation
 from fieldcast.algorithms.simulate.conditioning import SampleDraw, choose_neighbourhood
 from fieldcast.algorithms.simulate.simulation import simulate_conditional, simulation_lattice, summarise_realisations
+from reference import MEUSE_LOG_ZINC
 
-# Spherical model for log(zinc) of the Meuse data: nugget 0.05, partial sill 0.59, range 900 m, the usual
-# fit to this data set's log-zinc variogram (from memory).
-MEUSE_MODEL = CovarianceModel((Structure("spherical", 0.59, 900.0),), nugget=0.05)
+# The usual Meuse log-zinc model (tests/reference.py; from memory).
+MEUSE_MODEL = MEUSE_LOG_ZINC
 
 
 def meuse_grid_spec(pixel: float) -> GridSpec:

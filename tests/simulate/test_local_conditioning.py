@@ -8,10 +8,11 @@ from fieldcast.algorithms.model.covariance import CovarianceModel, Structure
 from fieldcast.algorithms.model.mean import MeanModel
 from fieldcast.algorithms.predict.kriging import KrigingPredictor
 from fieldcast.algorithms.predict.local import LocalKrigingPredictor
+from reference import MEUSE_LOG_ZINC
 
-# Spherical model for log(zinc) of the Meuse data: nugget 0.05, partial sill 0.59, range 900 m, the usual
-# fit to this data set's log-zinc variogram (from memory); anisotropic variant to exercise the search frame.
-MEUSE_MODEL = CovarianceModel((Structure("spherical", 0.59, 900.0),), nugget=0.05)
+# The usual Meuse log-zinc model (tests/reference.py; from memory).
+MEUSE_MODEL = MEUSE_LOG_ZINC
+# Anisotropic variant to exercise the search frame.
 ANISOTROPIC = CovarianceModel((Structure("spherical", 0.59, 900.0, azimuth=40.0, ratio=0.5),), nugget=0.05)
 
 
