@@ -189,6 +189,17 @@ def cholesky_factor(matrix: np.ndarray, what: str, remedy: str, warnings: list[s
     return factor
 
 
+def target_covariates(covariates0: np.ndarray | None, count: int) -> np.ndarray | None:
+    """External-drift values at ``count`` targets as a float array (count, q); None stays None."""
+    if covariates0 is None:
+        return None
+    covariates0 = np.asarray(covariates0, dtype=float)
+    if len(covariates0) != count:
+        raise FieldcastError(f"Got covariate values for {len(covariates0)} prediction locations but there "
+                             f"are {count} locations.")
+    return covariates0.reshape(count, -1)
+
+
 class KrigingPredictor:
     """Kriging predictor built once from samples, a covariance model and a mean model.
 
@@ -293,18 +304,6 @@ class KrigingPredictor:
             np.matmul(self._inverse_factor[start:stop, :stop], matrix[:stop], out=out[start:stop])
         return out
 
-    @staticmethod
-    def _target_covariates(covariates0: np.ndarray | None, total: int) -> np.ndarray | None:
-        """Covariates at the targets as an array with one row per target (or None)."""
-        if covariates0 is None:
-            return None
-        array = np.asarray(covariates0, dtype=float)
-        if len(array) != total:
-            raise FieldcastError(
-                f"Got covariate values for {len(array)} prediction locations but there are {total} locations."
-            )
-        return array
-
     def _cross_covariance(self, xy0: np.ndarray, pool: ThreadPoolExecutor) -> np.ndarray:
         """Cross-covariance ``C0`` (n, m) between samples and targets, pieces evaluated in ``pool``."""
         cross = np.empty((self.n, len(xy0)))
@@ -356,7 +355,7 @@ class KrigingPredictor:
         if int(chunk_size) < 1:
             raise FieldcastError(f"chunk_size must be a positive number of locations; got {chunk_size!r}.")
         total = len(targets)
-        covariates0 = self._target_covariates(covariates0, total)
+        covariates0 = target_covariates(covariates0, total)
         prediction = np.empty((total,) + self._alpha.shape[1:])
         variance = np.empty(total)
         with ThreadPoolExecutor(max_workers=_WORKERS) as pool:
@@ -431,7 +430,7 @@ class KrigingPredictor:
         ndarray of shape (n, m)
         """
         targets = as_points(xy0, "Prediction locations")
-        covariates0 = self._target_covariates(covariates0, len(targets))
+        covariates0 = target_covariates(covariates0, len(targets))
         with ThreadPoolExecutor(max_workers=_WORKERS) as pool:
             cross = self._cross_covariance(targets, pool)
         whitened, gap = self._whitened_gap(cross, self.mean.design(targets, covariates0))

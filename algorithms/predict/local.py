@@ -95,7 +95,7 @@ from ..linalg.condition_policy import WARN_RECIPROCAL, stack_reciprocal_conditio
 from ..model.correlation import correlation
 from ..model.covariance import CovarianceModel, Structure
 from ..model.mean import MeanModel
-from .kriging import as_points, as_value_columns, check_distinct, checked_variance
+from .kriging import as_points, as_value_columns, check_distinct, checked_variance, target_covariates
 
 WORKERS = min(4, os.cpu_count() or 1)
 """Threads factorising and solving stacks at once (numpy releases the GIL in its loops and LAPACK)."""
@@ -387,7 +387,7 @@ class LocalKrigingPredictor:
         size = int(chunk_size)
         if size < 1:
             raise FieldcastError(f"chunk_size must be a positive number of locations; got {chunk_size!r}.")
-        covariates0 = _target_covariates(covariates0, len(targets))
+        covariates0 = target_covariates(covariates0, len(targets))
         prediction, variance = self._in_chunks(
             len(targets), size, lambda chunk, pool: self._predict_chunk(
                 targets[chunk], None if covariates0 is None else covariates0[chunk], pool), progress, should_stop)
@@ -425,7 +425,7 @@ class LocalKrigingPredictor:
             counted in :attr:`last_unresolved`.
         """
         targets = search_frame(self.covariance.structures[0], as_points(xy0, "Prediction locations"))
-        covariates0 = _target_covariates(covariates0, len(targets))
+        covariates0 = target_covariates(covariates0, len(targets))
         found = self._nearest(targets, self.neighbours)
         indices = np.zeros(found.shape, dtype=np.intp)
         weights = np.full(found.shape, np.nan)
@@ -539,12 +539,3 @@ def distinct_rows(rows: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     return distinct, inverse.reshape(-1)
 
 
-def _target_covariates(covariates0: np.ndarray | None, count: int) -> np.ndarray | None:
-    """External-drift values at ``count`` targets as a float array (count, q); None stays None."""
-    if covariates0 is None:
-        return None
-    covariates0 = np.asarray(covariates0, dtype=float)
-    if len(covariates0) != count:
-        raise FieldcastError(f"Got covariate values for {len(covariates0)} prediction locations but there "
-                             f"are {count} locations.")
-    return covariates0.reshape(count, -1)
