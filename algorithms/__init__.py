@@ -54,6 +54,7 @@ _PUBLIC = {
     "EmpiricalVariogram": "fit.variogram",
     "empirical_semivariogram": "fit.variogram",
     "directional_semivariograms": "fit.variogram",
+    "residual_semivariograms": "fit.variogram",
     # predict
     "KrigingPredictor": "predict.kriging",
     "LocalKrigingPredictor": "predict.local",
@@ -63,6 +64,7 @@ _PUBLIC = {
     "leave_one_out": "predict.crossval",
     "local_leave_one_out": "predict.crossval",
     "k_fold": "predict.crossval",
+    "candidate_rmse": "predict.crossval",
     "exceedance_probability": "predict.exceedance",
     "BACKTRANSFORMS": "predict.grid_surfaces",
     "SUPPORTS": "predict.grid_surfaces",

@@ -5,15 +5,7 @@ from collections.abc import Callable, Mapping
 
 from qgis.core import QgsProcessingOutputNumber, QgsProcessingParameterFileDestination
 
-from ..algorithms import (
-    Cancelled,
-    FitResult,
-    ModelDocument,
-    directional_semivariograms,
-    empirical_semivariogram,
-    leave_one_out,
-    parse_crs,
-)
+from ..algorithms import FitResult, ModelDocument, candidate_rmse, parse_crs, residual_semivariograms
 from .algorithm_base import FieldcastAlgorithm, progress_callback
 from .help_text import FIT_HELP, TARGET_CRS_HELP, compose_help
 from .model_source import fit_document
@@ -51,14 +43,9 @@ def fit_report_arguments(samples: ModelSamples, skipped: Mapping[str, int], resu
         When ``should_stop()`` turns True.
     """
     residuals = samples.values - result.mean.design(samples.xy) @ result.coefficients
-    variograms = [empirical_semivariogram(samples.xy, residuals), *directional_semivariograms(samples.xy, residuals)]
-    loo_rmse = []
-    for index, candidate in enumerate(result.candidates):
-        if should_stop():
-            raise Cancelled("Cancelled while cross-validating the candidate models for the report.")
-        cv = leave_one_out(samples.xy, samples.values, candidate.covariance, result.mean)
-        loo_rmse.append(cv.summary()["RMSE"])
-        progress((index + 1) / len(result.candidates))
+    variograms = residual_semivariograms(samples.xy, residuals)
+    loo_rmse = candidate_rmse(samples.xy, samples.values, [candidate.covariance for candidate in result.candidates],
+                              result.mean, progress=progress, should_stop=should_stop)
     return dict(samples=samples.engine_samples(), fit=result, model=document, variograms=variograms,
                 crs_name=parse_crs(document.crs_wkt).name, skipped=skipped, candidate_loo_rmse=loo_rmse)
 

@@ -257,3 +257,9 @@ def fit_wls(
     else:
         variograms = [empirical_semivariogram(xy, residuals, n_lags=n_lags, cutoff=cutoff)]
     return fit_semivariogram_model(variograms, family, anisotropy=anisotropy, smoothness=smoothness)
+
+
+def residual_semivariograms(xy: np.ndarray, residuals: np.ndarray) -> list[EmpiricalVariogram]:
+    """The omnidirectional semivariogram of ``residuals`` and the four directional ones (0, 45, 90, 135 degrees),
+    as the fit report draws them (``residuals = values - F beta`` from the fitted mean, modelling scale)."""
+    return [empirical_semivariogram(xy, residuals), *directional_semivariograms(xy, residuals)]

@@ -22,13 +22,13 @@ systems of :mod:`.local`.
 from __future__ import annotations
 
 import math
-from collections.abc import Callable
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 
 import numpy as np
 from scipy import linalg
 
-from ..errors import FieldcastError
+from ..errors import Cancelled, FieldcastError
 from ..linalg.condition_policy import UNIT_ROUNDOFF
 from ..model.covariance import CovarianceModel
 from ..model.mean import MeanModel
@@ -205,3 +205,25 @@ def k_fold(xy: np.ndarray, values: np.ndarray, covariance: CovarianceModel, mean
         residual[members] = linalg.cho_solve(factor, precision_values[members], check_finite=False)
         variance[members] = np.diag(linalg.cho_solve(factor, np.eye(len(members)), check_finite=False))
     return _result(values, residual, variance, fold)
+
+
+def candidate_rmse(xy: np.ndarray, values: np.ndarray, candidates: Sequence[CovarianceModel], mean: MeanModel, *,
+                   progress: Callable[[float], None] | None = None,
+                   should_stop: Callable[[], bool] | None = None) -> list[float]:
+    """Leave-one-out RMSE (modelling units) of each candidate covariance model under the same mean kind.
+
+    Used by the fit report to set the candidates' AIC beside how well each predicts held-out samples.
+
+    Raises
+    ------
+    Cancelled
+        When ``should_stop()`` turns True (asked before each candidate).
+    """
+    rmse = []
+    for index, covariance in enumerate(candidates):
+        if should_stop is not None and should_stop():
+            raise Cancelled("Cancelled while cross-validating the candidate models.")
+        rmse.append(leave_one_out(xy, values, covariance, mean).summary()["RMSE"])
+        if progress is not None:
+            progress((index + 1) / len(candidates))
+    return rmse

@@ -5,12 +5,13 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from fieldcast.algorithms.errors import FieldcastError
+from fieldcast.algorithms.errors import Cancelled, FieldcastError
 from fieldcast.algorithms.model.covariance import CovarianceModel, Structure
 from fieldcast.algorithms.model.mean import MeanModel
 from fieldcast.algorithms.predict.crossval import (
     NORMAL_95_QUANTILE,
     CrossValidation,
+    candidate_rmse,
     k_fold,
     leave_one_out,
     random_folds,
@@ -142,3 +143,24 @@ def test_cross_validation_refuses_bad_setups(data):
         k_fold(xy, values, covariance, mean, k=0)
     with pytest.raises(FieldcastError, match="cannot estimate the quadratic mean"):
         k_fold(xy[:8], values[:8], covariance, MeanModel.for_data("quadratic", xy[:8]), k=2)
+
+
+def test_candidate_rmse_equals_brute_force_leave_one_out(meuse):
+    # Each candidate's RMSE against kriging each sample from the others with a refactorised system (brute force;
+    # Dubrule 1983 shows the closed form equals it), on 40 Meuse samples and two invented candidate models.
+    xy, values = meuse.xy[:40], np.log(meuse.zinc[:40])
+    candidates = [CovarianceModel((Structure("exponential", 0.6, 400.0),), 0.05),
+                  CovarianceModel((Structure("spherical", 0.5, 900.0),), 0.1)]
+    mean = MeanModel.for_data("constant", xy)
+    steps = []
+    found = candidate_rmse(xy, values, candidates, mean, progress=steps.append)
+    for covariance, rmse in zip(candidates, found):
+        errors = []
+        for i in range(len(xy)):
+            keep = np.arange(len(xy)) != i
+            predicted, _ = KrigingPredictor(xy[keep], values[keep], covariance, mean).predict(xy[i:i + 1])
+            errors.append(predicted[0] - values[i])
+        assert rmse == pytest.approx(np.sqrt(np.mean(np.square(errors))), rel=1e-9)
+    assert steps == [0.5, 1.0]
+    with pytest.raises(Cancelled):
+        candidate_rmse(xy, values, candidates, mean, should_stop=lambda: True)
