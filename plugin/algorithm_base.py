@@ -26,7 +26,7 @@ from qgis.core import (
 from qgis.PyQt.QtCore import QCoreApplication
 
 from ..algorithms.errors import Cancelled, FieldcastError
-from ..algorithms.fit.fitting import FIT_METHODS, KERNEL_CHOICES
+from ..algorithms.fit.options import FIT_METHODS, KERNEL_CHOICES
 from ..algorithms.io.model_file import ModelDocument
 from ..algorithms.model.mean import MeanModel
 from ..algorithms.model.transform import TRANSFORM_KINDS, Transform

@@ -6,7 +6,7 @@ from collections.abc import Callable, Mapping
 from qgis.core import QgsProcessingOutputNumber, QgsProcessingParameterFileDestination
 
 from ..algorithms.errors import Cancelled
-from ..algorithms.fit.fitting import FitResult
+from ..algorithms.fit.options import FitResult
 from ..algorithms.fit.variogram import directional_semivariograms, empirical_semivariogram
 from ..algorithms.io.crs import parse_crs
 from ..algorithms.io.model_file import ModelDocument

@@ -7,7 +7,8 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..algorithms.errors import FieldcastError
-from ..algorithms.fit.fitting import FitOptions, FitResult, fit_model
+from ..algorithms.fit.fitting import fit_model
+from ..algorithms.fit.options import FitOptions, FitResult
 from ..algorithms.fit.shared import fit_shared
 from ..algorithms.io.crs import parse_crs, same_crs
 from ..algorithms.io.model_file import ModelDocument

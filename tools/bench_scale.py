@@ -22,8 +22,9 @@ from osgeo import ogr
 if "PROJ_LIB" not in os.environ:
     os.environ.setdefault("PROJ_DATA", str(Path(sys.base_prefix, "share", "proj")))
 load_engine()
-from fieldcast_engine.fit.fitting import FitOptions, fit_model  # noqa: E402
+from fieldcast_engine.fit.fitting import fit_model  # noqa: E402
 from fieldcast_engine.fit.likelihood import log_likelihood  # noqa: E402
+from fieldcast_engine.fit.options import FitOptions  # noqa: E402
 from fieldcast_engine.fit.shared import fit_shared  # noqa: E402
 from fieldcast_engine.fit.vecchia_fit import fit_vecchia  # noqa: E402
 from fieldcast_engine.io.geotiff import GeoTiffWriter  # noqa: E402

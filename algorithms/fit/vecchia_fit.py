@@ -6,7 +6,7 @@ hands over to :func:`fit_vecchia`, whose cost per evaluation is ``O(n m^3)``
 time and ``O(n m)`` memory (``m`` conditioning neighbours). The fit runs in
 two steps:
 
-1. Model choice on a subset. The exact fit (:func:`.fitting.fit_model`, same
+1. Model choice on a subset. The exact fit (:func:`.exact_fit.fit_exact`, same
    kernel, anisotropy, nested, mean and method settings) on
    :data:`SUBSET_SIZE` samples drawn at random (fixed seed) chooses the
    family, anisotropy and structures by AIC and gives the starting values.
@@ -38,19 +38,10 @@ from ..io.samples import check_samples
 from ..model.covariance import CovarianceModel
 from ..model.parameters import ParameterLayout, parameter_bounds
 from .bound_warnings import bound_warnings
-from .fitting import (
-    CandidateFit,
-    FitOptions,
-    FitResult,
-    check_fit_choices,
-    fit_exact,
-    information_criteria,
-    mean_model_for,
-)
+from .exact_fit import fit_exact
+from .options import CandidateFit, FitOptions, FitResult, check_fit_choices, information_criteria, mean_model_for
 from .search import SearchProblem
 from .vecchia import DEFAULT_NEIGHBOURS, VecchiaData, VecchiaObjective, VecchiaPlan
-
-"""Above this many samples :func:`.fitting.fit_model` should use :func:`fit_vecchia` (exact up to it)."""
 
 SUBSET_SIZE = 1000
 """Samples of the exact fit that chooses the model and the starting values."""

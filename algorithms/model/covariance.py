@@ -178,6 +178,25 @@ class Structure:
         )
 
 
+def search_frame(structure: Structure, xy: np.ndarray) -> np.ndarray:
+    """Coordinates ``(major, minor / ratio)`` in which distances follow the structure's anisotropy.
+
+    Parameters
+    ----------
+    structure : Structure
+        Supplies the azimuth and the minor/major ratio.
+    xy : ndarray of shape (n, 2)
+        Points in CRS units.
+
+    Returns
+    -------
+    ndarray of shape (n, 2)
+        Points in the stretched frame (CRS units along the major axis).
+    """
+    major, minor = structure.axis_offsets(xy[:, 0], xy[:, 1])
+    return np.column_stack([major, minor / structure.ratio])
+
+
 @dataclass(frozen=True)
 class CovarianceModel:
     """Nugget plus one or two nested structures.

@@ -21,7 +21,7 @@ from .plotting import load_plotly, plotly_context
 from .statistics import STATISTIC_LABELS, describe, histogram
 
 if TYPE_CHECKING:
-    from ...algorithms.fit.fitting import FitResult
+    from ...algorithms.fit.options import FitResult
     from ...algorithms.fit.variogram import EmpiricalVariogram
     from ...algorithms.io.model_file import ModelDocument
     from ...algorithms.io.samples import Samples

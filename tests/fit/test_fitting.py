@@ -12,9 +12,10 @@ from sklearn.gaussian_process.kernels import RBF, ConstantKernel, Matern, WhiteK
 from fieldcast.algorithms.errors import Cancelled, FieldcastError
 from fieldcast.algorithms.fit import search as fit_search
 from fieldcast.algorithms.fit.bound_warnings import bound_warnings
-from fieldcast.algorithms.fit.fitting import AUTO_FAMILIES, FIT_METHODS, KERNEL_CHOICES, fit_model
+from fieldcast.algorithms.fit.fitting import fit_model
 from fieldcast.algorithms.fit.likelihood import log_likelihood
-from fieldcast.algorithms.fit.variogram import fit_wls
+from fieldcast.algorithms.fit.options import AUTO_FAMILIES, FIT_METHODS, KERNEL_CHOICES
+from fieldcast.algorithms.fit.variogram_fit import fit_wls
 from fieldcast.algorithms.model.covariance import CovarianceModel, Structure
 from fieldcast.algorithms.model.mean import MeanModel
 from fieldcast.algorithms.model.parameters import (

@@ -7,14 +7,14 @@ from scipy.stats import chi2
 
 from fieldcast.algorithms.errors import FieldcastError
 from fieldcast.algorithms.fit import fitting
-from fieldcast.algorithms.fit.fitting import FitOptions, fit_model
+from fieldcast.algorithms.fit.fitting import fit_model
 from fieldcast.algorithms.fit.likelihood import MeanBasis, log_likelihood
+from fieldcast.algorithms.fit.options import FitOptions
 from fieldcast.algorithms.fit.vecchia import VecchiaData, VecchiaObjective, VecchiaPlan, vecchia_log_likelihood
 from fieldcast.algorithms.fit.vecchia_fit import fit_vecchia
-from fieldcast.algorithms.model.covariance import CovarianceModel, Structure
+from fieldcast.algorithms.model.covariance import CovarianceModel, Structure, search_frame
 from fieldcast.algorithms.model.mean import MeanModel
 from fieldcast.algorithms.model.parameters import ParameterLayout
-from fieldcast.algorithms.predict.local import search_frame
 from fieldcast.algorithms.simulate.circulant import UnconditionalGenerator
 
 ANISOTROPIC = CovarianceModel((Structure("exponential", 0.6, 400.0, azimuth=40.0, ratio=0.5),), 0.05)
