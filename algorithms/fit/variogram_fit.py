@@ -78,7 +78,8 @@ def _collect_lags(variograms: Sequence[EmpiricalVariogram], anisotropy: bool) ->
     dx, dy, pairs, gamma = [], [], [], []
     for variogram in variograms:
         if anisotropy and variogram.azimuth is None:
-            raise ValueError("An anisotropic fit needs directional semivariograms (azimuth set).")
+            raise FieldcastError("An anisotropic fit needs directional semivariograms (azimuth set); compute them "
+                                 "with directional_semivariograms or fit with anisotropy off.")
         filled = (variogram.pairs > 0) & np.isfinite(variogram.gamma)
         theta = math.radians(variogram.azimuth or 0.0)
         h = variogram.distance[filled]
@@ -212,10 +213,7 @@ def fit_semivariogram_model(
     fit_smoothness = family == "matern" and smoothness is None
     if family != "matern":
         smoothness = None
-    try:
-        check_family(family, 1.0 if fit_smoothness else smoothness)
-    except ValueError as error:
-        raise FieldcastError(str(error)) from None
+    check_family(family, 1.0 if fit_smoothness else smoothness)
     lags = _collect_lags(variograms, anisotropy)
     n_parameters = 3 + 2 * anisotropy + fit_smoothness
     if len(lags.gamma) < n_parameters + 1:
