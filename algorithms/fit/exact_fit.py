@@ -38,6 +38,8 @@ def _candidate(problem: SearchProblem, fit: SearchFit) -> CandidateFit:
     messages = bound_warnings(fit.layout, fit.layout.pack(model), bounds)
     if fit.jitter:
         messages.append(jitter_message(fit.jitter * problem.value_scale ** 2))
+    if fit.stopped:
+        messages.append(fit.stopped)
     return CandidateFit(fit.layout.family, fit.layout.anisotropy, log_likelihood, aic, bic, model, messages)
 
 
@@ -72,7 +74,7 @@ def fit_exact(xy: np.ndarray, values: np.ndarray, options: FitOptions) -> FitRes
     mean_model = mean_model_for(mean, xy, covariates, known_mean)
     y = values - mean_model.known_mean(len(values))
     problem = SearchProblem.standardise(xy, y, mean_model.design(xy, covariates), "ml" if method == "ml" else "reml",
-                                        should_stop)
+                                        should_stop, options.max_iterations)
     families = AUTO_FAMILIES if kernel == "auto" else (kernel,)
     settings = (False, True) if anisotropy and kernel == "auto" else (anisotropy,)
     if method == "wls":

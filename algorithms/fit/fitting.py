@@ -37,6 +37,7 @@ from ..linalg.blas_threads import single_blas_thread
 from ..model.mean import MeanModel
 from .exact_fit import fit_exact
 from .options import FitOptions, FitResult
+from .search import MAX_ITERATIONS
 from .vecchia_fit import fit_vecchia
 
 VECCHIA_THRESHOLD = 2000
@@ -61,6 +62,7 @@ def fit_model(
     known_mean: float = 0.0,
     progress: Callable[[float], None] | None = None,
     should_stop: Callable[[], bool] | None = None,
+    max_iterations: int = MAX_ITERATIONS,
 ) -> FitResult:
     """Fit a covariance model (and the GLS mean coefficients) to samples.
 
@@ -90,6 +92,9 @@ def fit_model(
         The mean for ``mean="known"`` (value units).
     progress, should_stop : callable, optional
         Progress fraction in [0, 1]; cancel request (raises ``Cancelled``).
+    max_iterations : int
+        L-BFGS-B iteration limit of each optimiser run; a chosen model whose run stopped at it (or
+        for another reason before convergence) carries a warning saying so.
 
     Returns
     -------
@@ -97,7 +102,7 @@ def fit_model(
         Ranges in CRS units, variances in value units squared.
     """
     options = FitOptions(kernel, anisotropy, mean, method, covariates, nested, smoothness, known_mean, progress,
-                         should_stop)
+                         should_stop, max_iterations)
     if method != "wls" and len(values) > VECCHIA_THRESHOLD:
         return fit_vecchia(xy, values, options)
     with single_blas_thread(len(values) <= SINGLE_THREAD_LIMIT):

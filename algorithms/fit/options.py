@@ -19,7 +19,7 @@ from ..model.covariance import CovarianceModel
 from ..model.mean import MEAN_KINDS, MeanModel
 from ..model.parameters import ParameterLayout
 from .likelihood import jitter_message
-from .search import SearchProblem
+from .search import MAX_ITERATIONS, SearchProblem
 
 FIT_METHODS = ("reml", "ml", "wls")
 """Fitting methods: restricted likelihood, full likelihood, weighted least squares on the variogram."""
@@ -172,6 +172,13 @@ class FitOptions:
     known_mean: float = 0.0
     progress: Callable[[float], None] | None = None
     should_stop: Callable[[], bool] | None = None
+    max_iterations: int = MAX_ITERATIONS
+
+    def __post_init__(self) -> None:
+        limit = self.max_iterations
+        if isinstance(limit, bool) or not isinstance(limit, (int, np.integer)) or limit < 1:
+            raise FieldcastError(f"The optimiser's iteration limit must be a whole number of 1 or more; got "
+                                 f"{limit!r}. Give a positive whole number (default {MAX_ITERATIONS}).")
 
 
 def with_jitter_in_nugget(covariance: CovarianceModel, jitter: float, messages: list[str]) -> CovarianceModel:

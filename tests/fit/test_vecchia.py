@@ -162,6 +162,18 @@ def test_bad_settings_say_what_to_change(meuse, log_zinc):
         fit_vecchia(meuse.xy, log_zinc, FitOptions(kernel="exponential", method="wls"))
 
 
+def test_a_vecchia_fit_stopped_by_the_iteration_limit_says_so():
+    # scipy's L-BFGS-B reports success False and "...ITERATIONS REACHED LIMIT" at maxiter (scipy.optimize docs).
+    xy, values = simulated_samples(400, seed=3)
+    settings = {"kernel": "exponential", "anisotropy": False, "mean": "constant"}
+    stopped = fit_vecchia(xy, values, FitOptions(**settings, max_iterations=1), subset_size=200)
+    notes = [w for w in stopped.warnings if w.startswith("The optimiser stopped before convergence after 1 iterations")]
+    assert len(notes) == 1 and "ITERATIONS REACHED LIMIT" in notes[0] and "raise the iteration limit" in notes[0]
+    converged = fit_vecchia(xy, values, FitOptions(**settings), subset_size=200)
+    assert not any("optimiser stopped" in w for w in converged.warnings)
+    assert converged.log_likelihood > stopped.log_likelihood
+
+
 def test_fit_model_hands_large_data_to_the_vecchia_fit(monkeypatch):
     # Above fitting.VECCHIA_THRESHOLD samples fit_model uses the Vecchia likelihood and says so; the threshold is
     # lowered here so the hand-over runs on a small simulated set.
