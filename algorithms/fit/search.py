@@ -74,6 +74,9 @@ LOG_LIKELIHOOD_TOLERANCE = 1e-7
 GRADIENT_TOLERANCE = 1e-4
 """... or when no log-likelihood derivative (per log-parameter) exceeds this."""
 
+MAX_ITERATIONS = 500
+"""Default L-BFGS-B iteration limit of one optimiser run (:attr:`.options.FitOptions.max_iterations`)."""
+
 NEWTON_ITERATIONS = 10
 """Most average-information Newton steps in the refinement on all samples."""
 
@@ -126,6 +129,8 @@ class SearchProblem:
     internal_scales : DataScales
         Smallest spacing, diameter and variance in internal units (bounds).
     should_stop : callable or None
+    max_iterations : int
+        L-BFGS-B iteration limit of each optimiser run.
     """
 
     xy: np.ndarray
@@ -137,10 +142,11 @@ class SearchProblem:
     value_scale: float
     internal_scales: DataScales
     should_stop: Callable[[], bool] | None
+    max_iterations: int = MAX_ITERATIONS
 
     @classmethod
     def standardise(cls, xy: np.ndarray, y: np.ndarray, design: np.ndarray, method: str,
-                    should_stop: Callable[[], bool] | None) -> SearchProblem:
+                    should_stop: Callable[[], bool] | None, max_iterations: int = MAX_ITERATIONS) -> SearchProblem:
         """Centre and scale the coordinates, standardise the values, and measure the data."""
         basis = MeanBasis.from_design(design)
         value_scale = float(basis.residual_rms(y))
@@ -155,7 +161,7 @@ class SearchProblem:
         internal_xy = (xy - (low + high) / 2.0) / length_scale
         scales = DataScales(smallest_spacing(internal_xy), diameter(internal_xy), 1.0)
         return cls(internal_xy, y / value_scale, design, basis, method, length_scale, value_scale, scales,
-                   should_stop)
+                   should_stop, max_iterations)
 
     @property
     def contrasts(self) -> int:
@@ -196,12 +202,25 @@ class SearchProblem:
 
 @dataclass(frozen=True)
 class SearchFit:
-    """An optimised parameter vector of one layout, in internal units."""
+    """An optimised parameter vector of one layout, in internal units.
+
+    ``stopped`` is the warning of :func:`convergence_warning` when the optimiser run that gave
+    ``theta`` stopped before convergence, None when it converged.
+    """
 
     layout: ParameterLayout
     theta: np.ndarray
     minus_two_log_likelihood: float
     jitter: float
+    stopped: str | None = None
+
+
+def convergence_warning(result: optimize.OptimizeResult) -> str | None:
+    """Plain-words warning when a :func:`scipy.optimize.minimize` run stopped before convergence, else None."""
+    if result.success:
+        return None
+    return (f"The optimiser stopped before convergence after {result.nit} iterations: {result.message}; raise the "
+            "iteration limit or simplify the model (fewer structures, no anisotropy).")
 
 
 class ProgressSteps:
@@ -285,7 +304,7 @@ def _optimise(problem: SearchProblem, layout: ParameterLayout, starts: list[np.n
         return value / scale, gradient / scale
 
     # The objective is -l / n, so tolerances on l are divided by n.
-    options = {"maxiter": 500, "ftol": LOG_LIKELIHOOD_TOLERANCE / len(problem.y),
+    options = {"maxiter": problem.max_iterations, "ftol": LOG_LIKELIHOOD_TOLERANCE / len(problem.y),
                "gtol": GRADIENT_TOLERANCE / len(problem.y)}
     best: SearchFit | None = None
     for start in starts:
@@ -293,7 +312,7 @@ def _optimise(problem: SearchProblem, layout: ParameterLayout, starts: list[np.n
         result = optimize.minimize(scaled, first, jac=True, method="L-BFGS-B", bounds=bounds, options=options)
         value = objective.value_and_gradient(result.x)[0]
         if best is None or value < best.minus_two_log_likelihood:
-            best = SearchFit(layout, result.x, value, objective.jitter)
+            best = SearchFit(layout, result.x, value, objective.jitter, convergence_warning(result))
     steps.advance()
     return best
 

@@ -55,17 +55,9 @@ from ..model.covariance import CovarianceModel
 from ..model.mean import MeanModel
 from ..model.parameters import DataScales, ParameterLayout, covariance_derivatives, parameter_bounds
 from .bound_warnings import bound_warnings
-from .fitting import (
-    VECCHIA_THRESHOLD,
-    CandidateFit,
-    FitOptions,
-    FitResult,
-    fit_model,
-    information_criteria,
-    mean_model_for,
-    with_jitter_in_nugget,
-)
+from .fitting import VECCHIA_THRESHOLD, fit_model
 from .likelihood import LOG_2PI, GlsSolution, LikelihoodTerms, MeanBasis, PairedObjective, evaluate_model
+from .options import CandidateFit, FitOptions, FitResult, information_criteria, mean_model_for, with_jitter_in_nugget
 from .search import GRADIENT_TOLERANCE, LOG_LIKELIHOOD_TOLERANCE, SearchProblem
 
 START_SHARE = 0.5

@@ -1,4 +1,4 @@
-"""Empirical semivariograms, omnidirectional and directional, and their weighted least-squares fit.
+"""Empirical semivariograms, omnidirectional and directional.
 
 For distance lags ``L_j = (e_j, e_{j+1}]`` (CRS units) the classical
 estimator (Matheron 1962, *Traité de géostatistique appliquée*; Cressie
@@ -17,8 +17,7 @@ first with :func:`.samples.merge_coincident`.
 Every lag is reported, also the empty ones: an empty lag has ``pairs = 0``,
 ``gamma = nan`` and ``distance`` at the middle of the lag.
 
-:func:`fit_wls` fits a covariance model to these estimates; the criterion
-and the optimiser are in :mod:`.variogram_fit`.
+:func:`.variogram_fit.fit_wls` fits a covariance model to these estimates.
 """
 from __future__ import annotations
 
@@ -29,8 +28,6 @@ import numpy as np
 
 from ..errors import FieldcastError
 from ..io.samples import check_samples
-from ..model.covariance import CovarianceModel
-from .variogram_fit import fit_semivariogram_model
 
 PAIRS_PER_BLOCK = 1_000_000
 """Largest number of sample pairs held in memory at once."""
@@ -214,49 +211,6 @@ def directional_semivariograms(
         raise FieldcastError("Give at least one azimuth for directional semivariograms.")
     directions = [(_check_direction(a, tolerance), float(tolerance)) for a in azimuths]
     return _semivariograms(xy, values, directions, kw.get("n_lags", 15), kw.get("cutoff"))
-
-
-def fit_wls(
-    xy: np.ndarray, residuals: np.ndarray, family: str, *, anisotropy: bool = True,
-    smoothness: float | None = None, n_lags: int = 15, cutoff: float | None = None,
-) -> CovarianceModel:
-    """Fit a nugget plus one structure to the empirical semivariogram by weighted least squares.
-
-    Minimises Cressie's (1985, *Math. Geol.* 17(5), 563-586) criterion
-    ``sum_j N_j (gamma_j / gamma_model(h_j) - 1)**2`` over the lags ``j``,
-    see :func:`.variogram_fit.fit_semivariogram_model`. With
-    ``anisotropy`` the lags are those of the directional semivariograms at
-    0, 45, 90 and 135 degrees (tolerance 22.5) and the model is evaluated
-    along each lag's direction, so azimuth and ratio are fitted too;
-    otherwise the omnidirectional semivariogram is used and the model is
-    isotropic.
-
-    Parameters
-    ----------
-    xy : ndarray of shape (n, 2)
-        Sample locations in CRS units.
-    residuals : ndarray of shape (n,)
-        Values minus their fitted trend, in the modelling scale.
-    family : str
-        Correlation family, one of :data:`.correlation.FAMILIES`.
-    anisotropy : bool
-        Fit geometric anisotropy (azimuth and minor/major range ratio).
-    smoothness : float, optional
-        Matérn ``nu`` for the ``"matern"`` family; fitted when None. Other
-        families ignore it.
-    n_lags, cutoff
-        As in :func:`empirical_semivariogram`.
-
-    Returns
-    -------
-    CovarianceModel
-    """
-    check_samples(xy, residuals)
-    if anisotropy:
-        variograms = directional_semivariograms(xy, residuals, n_lags=n_lags, cutoff=cutoff)
-    else:
-        variograms = [empirical_semivariogram(xy, residuals, n_lags=n_lags, cutoff=cutoff)]
-    return fit_semivariogram_model(variograms, family, anisotropy=anisotropy, smoothness=smoothness)
 
 
 def residual_semivariograms(xy: np.ndarray, residuals: np.ndarray) -> list[EmpiricalVariogram]:

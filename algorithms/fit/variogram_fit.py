@@ -38,12 +38,12 @@ from __future__ import annotations
 import math
 from collections.abc import Sequence
 from dataclasses import dataclass
-from typing import TYPE_CHECKING
 
 import numpy as np
 from scipy.optimize import least_squares
 
 from ..errors import FieldcastError
+from ..io.samples import check_samples
 from ..model.correlation import (
     SMOOTHNESS_BOUNDS,
     check_family,
@@ -51,9 +51,7 @@ from ..model.correlation import (
     reach_factor,
 )
 from ..model.covariance import CovarianceModel, Structure
-
-if TYPE_CHECKING:
-    from .variogram import EmpiricalVariogram
+from .variogram import EmpiricalVariogram, directional_semivariograms, empirical_semivariogram
 
 SMALLEST_RATIO = 0.05
 """Lower bound of the fitted minor/major range ratio."""
@@ -80,7 +78,8 @@ def _collect_lags(variograms: Sequence[EmpiricalVariogram], anisotropy: bool) ->
     dx, dy, pairs, gamma = [], [], [], []
     for variogram in variograms:
         if anisotropy and variogram.azimuth is None:
-            raise ValueError("An anisotropic fit needs directional semivariograms (azimuth set).")
+            raise FieldcastError("An anisotropic fit needs directional semivariograms (azimuth set); compute them "
+                                 "with directional_semivariograms or fit with anisotropy off.")
         filled = (variogram.pairs > 0) & np.isfinite(variogram.gamma)
         theta = math.radians(variogram.azimuth or 0.0)
         h = variogram.distance[filled]
@@ -214,10 +213,7 @@ def fit_semivariogram_model(
     fit_smoothness = family == "matern" and smoothness is None
     if family != "matern":
         smoothness = None
-    try:
-        check_family(family, 1.0 if fit_smoothness else smoothness)
-    except ValueError as error:
-        raise FieldcastError(str(error)) from None
+    check_family(family, 1.0 if fit_smoothness else smoothness)
     lags = _collect_lags(variograms, anisotropy)
     n_parameters = 3 + 2 * anisotropy + fit_smoothness
     if len(lags.gamma) < n_parameters + 1:
@@ -242,3 +238,46 @@ def fit_semivariogram_model(
         start = np.concatenate([theta[:3], [math.radians(azimuth), math.log(0.5)], theta[3:]])
         best = min(best, anisotropic.solve(start), key=lambda fit: fit[0])
     return anisotropic.model(best[1])
+
+
+def fit_wls(
+    xy: np.ndarray, residuals: np.ndarray, family: str, *, anisotropy: bool = True,
+    smoothness: float | None = None, n_lags: int = 15, cutoff: float | None = None,
+) -> CovarianceModel:
+    """Fit a nugget plus one structure to the empirical semivariogram by weighted least squares.
+
+    Minimises Cressie's (1985, *Math. Geol.* 17(5), 563-586) criterion
+    ``sum_j N_j (gamma_j / gamma_model(h_j) - 1)**2`` over the lags ``j``,
+    see :func:`fit_semivariogram_model`. With
+    ``anisotropy`` the lags are those of the directional semivariograms at
+    0, 45, 90 and 135 degrees (tolerance 22.5) and the model is evaluated
+    along each lag's direction, so azimuth and ratio are fitted too;
+    otherwise the omnidirectional semivariogram is used and the model is
+    isotropic.
+
+    Parameters
+    ----------
+    xy : ndarray of shape (n, 2)
+        Sample locations in CRS units.
+    residuals : ndarray of shape (n,)
+        Values minus their fitted trend, in the modelling scale.
+    family : str
+        Correlation family, one of :data:`.correlation.FAMILIES`.
+    anisotropy : bool
+        Fit geometric anisotropy (azimuth and minor/major range ratio).
+    smoothness : float, optional
+        Matérn ``nu`` for the ``"matern"`` family; fitted when None. Other
+        families ignore it.
+    n_lags, cutoff
+        As in :func:`.variogram.empirical_semivariogram`.
+
+    Returns
+    -------
+    CovarianceModel
+    """
+    check_samples(xy, residuals)
+    if anisotropy:
+        variograms = directional_semivariograms(xy, residuals, n_lags=n_lags, cutoff=cutoff)
+    else:
+        variograms = [empirical_semivariogram(xy, residuals, n_lags=n_lags, cutoff=cutoff)]
+    return fit_semivariogram_model(variograms, family, anisotropy=anisotropy, smoothness=smoothness)

@@ -37,7 +37,7 @@ remaining point nearest the cell centre; the points of a level are shuffled
 its previous neighbours surround it. Costs ``O(n log n)``.
 
 Neighbours. Found with :class:`scipy.spatial.cKDTree` in the anisotropy
-frame of a structure (:func:`.neighbourhood.search_frame`; isotropic when
+frame of a structure (:func:`..model.covariance.search_frame`; isotropic when
 none is given), by blocks of :data:`SEARCH_BLOCK` points in the ordering: a
 tree of all earlier blocks plus a direct search within the block.
 
@@ -66,10 +66,9 @@ from scipy.spatial import cKDTree
 from ..errors import Cancelled, FieldcastError
 from ..io.samples import check_samples
 from ..linalg.batched import back_substitution, cholesky_stack, forward_substitution
-from ..model.covariance import CovarianceModel, Structure
+from ..model.covariance import CovarianceModel, Structure, search_frame
 from ..model.mean import MeanModel
 from ..model.parameters import ParameterLayout, covariance_derivatives
-from ..predict.local import search_frame
 from .likelihood import LIKELIHOOD_METHODS, LOG_2PI, MeanBasis
 
 DEFAULT_NEIGHBOURS = 30

@@ -6,7 +6,7 @@ hands over to :func:`fit_vecchia`, whose cost per evaluation is ``O(n m^3)``
 time and ``O(n m)`` memory (``m`` conditioning neighbours). The fit runs in
 two steps:
 
-1. Model choice on a subset. The exact fit (:func:`.fitting.fit_model`, same
+1. Model choice on a subset. The exact fit (:func:`.exact_fit.fit_exact`, same
    kernel, anisotropy, nested, mean and method settings) on
    :data:`SUBSET_SIZE` samples drawn at random (fixed seed) chooses the
    family, anisotropy and structures by AIC and gives the starting values.
@@ -38,19 +38,10 @@ from ..io.samples import check_samples
 from ..model.covariance import CovarianceModel
 from ..model.parameters import ParameterLayout, parameter_bounds
 from .bound_warnings import bound_warnings
-from .fitting import (
-    CandidateFit,
-    FitOptions,
-    FitResult,
-    check_fit_choices,
-    fit_exact,
-    information_criteria,
-    mean_model_for,
-)
-from .search import SearchProblem
+from .exact_fit import fit_exact
+from .options import CandidateFit, FitOptions, FitResult, check_fit_choices, information_criteria, mean_model_for
+from .search import SearchProblem, convergence_warning
 from .vecchia import DEFAULT_NEIGHBOURS, VecchiaData, VecchiaObjective, VecchiaPlan
-
-"""Above this many samples :func:`.fitting.fit_model` should use :func:`fit_vecchia` (exact up to it)."""
 
 SUBSET_SIZE = 1000
 """Samples of the exact fit that chooses the model and the starting values."""
@@ -69,8 +60,8 @@ def _to_internal(problem: SearchProblem, model: CovarianceModel) -> CovarianceMo
     return CovarianceModel(shrunk, model.nugget).scaled(problem.value_scale ** -2)
 
 
-def _minimise(objective: VecchiaObjective, theta: np.ndarray, bounds: list, on_step: Callable[[int], None]
-              ) -> np.ndarray:
+def _minimise(objective: VecchiaObjective, theta: np.ndarray, bounds: list, on_step: Callable[[int], None],
+              max_iterations: int) -> optimize.OptimizeResult:
     """L-BFGS-B on ``-l / n`` (the scaling of :mod:`.search`) from ``theta``."""
     scale = 2.0 * len(objective.data.y)
 
@@ -79,14 +70,17 @@ def _minimise(objective: VecchiaObjective, theta: np.ndarray, bounds: list, on_s
         on_step(objective.evaluations)
         return value / scale, gradient / scale
 
-    options = {"maxiter": 500, "ftol": LOG_LIKELIHOOD_TOLERANCE / len(objective.data.y),
+    options = {"maxiter": max_iterations, "ftol": LOG_LIKELIHOOD_TOLERANCE / len(objective.data.y),
                "gtol": GRADIENT_TOLERANCE / len(objective.data.y)}
-    return optimize.minimize(scaled, theta, jac=True, method="L-BFGS-B", bounds=bounds, options=options).x
+    return optimize.minimize(scaled, theta, jac=True, method="L-BFGS-B", bounds=bounds, options=options)
 
 
 def _optimise(problem: SearchProblem, layout: ParameterLayout, start: np.ndarray, neighbours: int,
-              progress: Callable[[float], None] | None) -> tuple[np.ndarray, float, np.ndarray]:
-    """Vecchia fit from ``start`` (sets rebuilt once for anisotropy); ``theta``, ``-2 l``, basis coefficients."""
+              progress: Callable[[float], None] | None) -> tuple[np.ndarray, float, np.ndarray, str | None]:
+    """Vecchia fit from ``start`` (sets rebuilt once for anisotropy).
+
+    Returns ``theta``, ``-2 l``, the basis coefficients and the last run's :func:`.search.convergence_warning`.
+    """
     bounds = parameter_bounds(layout, problem.internal_scales)
     theta = np.array([x if low is None else min(max(x, low), high) for x, (low, high) in zip(start, bounds)])
     rounds = 2 if layout.anisotropy else 1
@@ -98,9 +92,11 @@ def _optimise(problem: SearchProblem, layout: ParameterLayout, start: np.ndarray
             if progress is not None:
                 progress(0.5 + 0.5 * (done + min(evaluations / 60.0, 0.95)) / rounds)
 
-        theta = _minimise(VecchiaObjective(data, layout, problem.should_stop), theta, bounds, on_step)
+        result = _minimise(VecchiaObjective(data, layout, problem.should_stop), theta, bounds, on_step,
+                           problem.max_iterations)
+        theta = result.x
     terms = data.evaluate(layout.unpack(theta))
-    return theta, terms.minus_two_log_likelihood, terms.basis_coefficients
+    return theta, terms.minus_two_log_likelihood, terms.basis_coefficients, convergence_warning(result)
 
 
 def fit_vecchia(xy: np.ndarray, values: np.ndarray, options: FitOptions, *,
@@ -142,13 +138,15 @@ def fit_vecchia(xy: np.ndarray, values: np.ndarray, options: FitOptions, *,
     chosen = min(rough.candidates, key=lambda c: c.aic)
     layout = ParameterLayout(chosen.family, len(chosen.covariance.structures), chosen.anisotropy, options.smoothness)
     problem = SearchProblem.standardise(points, observed - mean_model.known_mean(n), design, method,
-                                        options.should_stop)
+                                        options.should_stop, options.max_iterations)
     start = layout.pack(_to_internal(problem, chosen.covariance))
-    theta, minus_two, basis_coefficients = _optimise(problem, layout, start, neighbours, progress)
+    theta, minus_two, basis_coefficients, stopped = _optimise(problem, layout, start, neighbours, progress)
     model = problem.to_data_units(layout.unpack(theta))
     log_likelihood = problem.log_likelihood(minus_two)
     aic, bic, k = information_criteria(problem, log_likelihood, layout)
     messages = bound_warnings(layout, layout.pack(model), parameter_bounds(layout, problem.data_scales))
+    if stopped:
+        messages.append(stopped)
     coefficients = problem.basis.coefficients(basis_coefficients) * problem.value_scale
     if progress is not None:
         progress(1.0)

@@ -98,8 +98,9 @@ class ModelDocument:
             transform = Transform.from_dict(data["transform"])
             crs_wkt = str(data["crs"])
             units = str(data["units"])
-        except FieldcastError:
-            raise
+        except FieldcastError as exc:
+            raise FieldcastError(f"The model file describes an unusable model: {exc} Refit the model with 'Fit "
+                                 "covariance model' and use the new file.") from exc
         except (KeyError, TypeError, ValueError) as exc:
             raise FieldcastError(
                 f"The model file is malformed ({type(exc).__name__}: {exc}). "

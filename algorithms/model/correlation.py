@@ -29,6 +29,8 @@ from functools import lru_cache
 import numpy as np
 from scipy import optimize, special
 
+from ..errors import FieldcastError
+
 FAMILIES = ("exponential", "gaussian", "spherical", "matern32", "matern52", "matern")
 """Names of the covariance families a structure may use."""
 
@@ -43,17 +45,17 @@ _SQRT5 = math.sqrt(5.0)
 
 
 def check_family(family: str, smoothness: float | None = None) -> None:
-    """Raise ``ValueError`` with advice when a family or smoothness is unusable."""
+    """Raise :class:`..errors.FieldcastError` with advice when a family or smoothness is unusable."""
     if family not in FAMILIES:
-        raise ValueError(
+        raise FieldcastError(
             f"Unknown covariance family {family!r}; choose one of {', '.join(FAMILIES)}."
         )
     if family == "matern":
         low, high = SMOOTHNESS_BOUNDS
         if smoothness is None or not (low <= smoothness <= high):
-            raise ValueError(
+            raise FieldcastError(
                 f"The general Matérn family needs a smoothness between {low} and {high}; "
-                f"got {smoothness!r}."
+                f"got {smoothness!r}. Give a smoothness in that range or choose another family."
             )
 
 

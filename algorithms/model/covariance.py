@@ -24,6 +24,7 @@ from dataclasses import dataclass, replace
 import numpy as np
 from scipy.spatial import distance
 
+from ..errors import FieldcastError
 from .correlation import check_family, correlation, correlation_derivative, effective_range_factor
 
 
@@ -76,11 +77,14 @@ class Structure:
     def __post_init__(self) -> None:
         check_family(self.family, self.smoothness)
         if not (self.partial_sill >= 0 and math.isfinite(self.partial_sill)):
-            raise ValueError(f"partial_sill must be a finite number >= 0; got {self.partial_sill!r}.")
+            raise FieldcastError(f"The partial sill of a covariance structure must be a finite number of 0 or more; "
+                                 f"got {self.partial_sill!r}. Give a non-negative partial sill.")
         if not (self.range > 0 and math.isfinite(self.range)):
-            raise ValueError(f"range must be a finite positive distance; got {self.range!r}.")
+            raise FieldcastError(f"The range of a covariance structure must be a finite positive distance (CRS "
+                                 f"units); got {self.range!r}. Give a range above 0.")
         if not (0 < self.ratio <= 1):
-            raise ValueError(f"ratio (minor/major range) must be in (0, 1]; got {self.ratio!r}.")
+            raise FieldcastError(f"The minor/major range ratio of a covariance structure must be above 0 and at most "
+                                 f"1; got {self.ratio!r}. Give a ratio in (0, 1] (1 for an isotropic structure).")
         object.__setattr__(self, "azimuth", float(self.azimuth) % 180.0)
 
     @property
@@ -178,6 +182,25 @@ class Structure:
         )
 
 
+def search_frame(structure: Structure, xy: np.ndarray) -> np.ndarray:
+    """Coordinates ``(major, minor / ratio)`` in which distances follow the structure's anisotropy.
+
+    Parameters
+    ----------
+    structure : Structure
+        Supplies the azimuth and the minor/major ratio.
+    xy : ndarray of shape (n, 2)
+        Points in CRS units.
+
+    Returns
+    -------
+    ndarray of shape (n, 2)
+        Points in the stretched frame (CRS units along the major axis).
+    """
+    major, minor = structure.axis_offsets(xy[:, 0], xy[:, 1])
+    return np.column_stack([major, minor / structure.ratio])
+
+
 @dataclass(frozen=True)
 class CovarianceModel:
     """Nugget plus one or two nested structures.
@@ -192,9 +215,11 @@ class CovarianceModel:
     def __post_init__(self) -> None:
         structures = tuple(self.structures)
         if not 1 <= len(structures) <= 2:
-            raise ValueError("A covariance model has one or two structures besides the nugget.")
+            raise FieldcastError(f"A covariance model has one or two structures besides the nugget; got "
+                                 f"{len(structures)}. Give one structure, or two for a nested model.")
         if not (self.nugget >= 0 and math.isfinite(self.nugget)):
-            raise ValueError(f"nugget must be a finite number >= 0; got {self.nugget!r}.")
+            raise FieldcastError(f"The nugget must be a finite number of 0 or more; got {self.nugget!r}. Give a "
+                                 "non-negative nugget.")
         object.__setattr__(self, "structures", structures)
 
     @property

@@ -93,7 +93,7 @@ from ..errors import Cancelled, FieldcastError
 from ..linalg.batched import back_substitution, cholesky_stack, forward_substitution
 from ..linalg.condition_policy import WARN_RECIPROCAL, stack_reciprocal_condition, usable
 from ..model.correlation import correlation
-from ..model.covariance import CovarianceModel, Structure
+from ..model.covariance import CovarianceModel, search_frame
 from ..model.mean import MeanModel
 from .kriging import as_points, as_value_columns, check_distinct, checked_variance, target_covariates
 
@@ -105,25 +105,6 @@ STACK_SIZE = 2048
 
 LEAVE_ONE_OUT_CHUNK = 8192
 """Samples predicted at once by :meth:`LocalKrigingPredictor.leave_one_out` (between progress reports)."""
-
-
-def search_frame(structure: Structure, xy: np.ndarray) -> np.ndarray:
-    """Coordinates ``(major, minor / ratio)`` in which distances follow the structure's anisotropy.
-
-    Parameters
-    ----------
-    structure : Structure
-        Supplies the azimuth and the minor/major ratio.
-    xy : ndarray of shape (n, 2)
-        Points in CRS units.
-
-    Returns
-    -------
-    ndarray of shape (n, 2)
-        Points in the stretched frame (CRS units along the major axis).
-    """
-    major, minor = structure.axis_offsets(xy[:, 0], xy[:, 1])
-    return np.column_stack([major, minor / structure.ratio])
 
 
 class LocalKrigingPredictor:
@@ -193,7 +174,7 @@ class LocalKrigingPredictor:
         self._tree = cKDTree(self._frame_xy)
 
     def _covariance(self, dx: np.ndarray, dy: np.ndarray) -> np.ndarray:
-        """Latent covariance for offsets in the search frame (see :func:`search_frame`)."""
+        """Latent covariance for offsets in the search frame (see :func:`..model.covariance.search_frame`)."""
         if self._isotropic_in_frame:
             distance = dx * dx
             distance += dy * dy

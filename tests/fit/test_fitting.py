@@ -6,15 +6,17 @@ import math
 
 import numpy as np
 import pytest
+from scipy import optimize
 from sklearn.gaussian_process import GaussianProcessRegressor
 from sklearn.gaussian_process.kernels import RBF, ConstantKernel, Matern, WhiteKernel
 
 from fieldcast.algorithms.errors import Cancelled, FieldcastError
 from fieldcast.algorithms.fit import search as fit_search
 from fieldcast.algorithms.fit.bound_warnings import bound_warnings
-from fieldcast.algorithms.fit.fitting import AUTO_FAMILIES, FIT_METHODS, KERNEL_CHOICES, fit_model
+from fieldcast.algorithms.fit.fitting import fit_model
 from fieldcast.algorithms.fit.likelihood import log_likelihood
-from fieldcast.algorithms.fit.variogram import fit_wls
+from fieldcast.algorithms.fit.options import AUTO_FAMILIES, FIT_METHODS, KERNEL_CHOICES
+from fieldcast.algorithms.fit.variogram_fit import fit_wls
 from fieldcast.algorithms.model.covariance import CovarianceModel, Structure
 from fieldcast.algorithms.model.mean import MeanModel
 from fieldcast.algorithms.model.parameters import (
@@ -285,3 +287,30 @@ def test_each_estimate_on_a_bound_gets_its_own_plain_warning():
     for phrase in expected.values():
         assert sum(phrase in m for m in messages) == 1
     assert any("5000" in m for m in messages)  # the range bound in data units: 5 times the diameter
+
+
+def scipy_iteration_limit_message() -> str:
+    # scipy's own L-BFGS-B stop message at the iteration limit, from a run on its Rosenbrock test function.
+    result = optimize.minimize(optimize.rosen, [-1.2, 1.0], jac=optimize.rosen_der, method="L-BFGS-B",
+                               options={"maxiter": 1})
+    assert not result.success and result.nit == 1
+    return str(result.message)
+
+
+def test_a_fit_stopped_by_the_iteration_limit_says_so(meuse):
+    log_zinc = np.log(meuse.zinc)
+    stopped = fit_model(meuse.xy, log_zinc, kernel="spherical", anisotropy=False, max_iterations=1)
+    expected = (f"The optimiser stopped before convergence after 1 iterations: {scipy_iteration_limit_message()}; "
+                "raise the iteration limit or simplify the model (fewer structures, no anisotropy).")
+    assert expected in stopped.warnings
+    assert expected in stopped.summary()["warnings"]
+    # With the default limit the same fit converges and carries no such warning.
+    converged = fit_model(meuse.xy, log_zinc, kernel="spherical", anisotropy=False)
+    assert not any("optimiser stopped" in w for w in converged.warnings)
+    assert converged.log_likelihood > stopped.log_likelihood
+
+
+@pytest.mark.parametrize("limit", [0, -3, 2.5, "many", True])
+def test_the_iteration_limit_must_be_a_positive_whole_number(meuse, limit):
+    with pytest.raises(FieldcastError, match=f"iteration limit must be a whole number of 1 or more; got {limit!r}"):
+        fit_model(meuse.xy, np.log(meuse.zinc), kernel="spherical", anisotropy=False, max_iterations=limit)

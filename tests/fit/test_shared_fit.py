@@ -6,8 +6,9 @@ import pytest
 from scipy import optimize, stats
 
 from fieldcast.algorithms.errors import FieldcastError
-from fieldcast.algorithms.fit.fitting import VECCHIA_THRESHOLD, FitOptions, fit_model
+from fieldcast.algorithms.fit.fitting import VECCHIA_THRESHOLD, fit_model
 from fieldcast.algorithms.fit.likelihood import evaluate_model
+from fieldcast.algorithms.fit.options import FitOptions
 from fieldcast.algorithms.fit.search import SearchProblem
 from fieldcast.algorithms.fit.shared import JointObjective, fit_shared
 from fieldcast.algorithms.model.mean import MeanModel

@@ -15,9 +15,8 @@ from fieldcast.algorithms.fit.variogram import (
     default_cutoff,
     directional_semivariograms,
     empirical_semivariogram,
-    fit_wls,
 )
-from fieldcast.algorithms.fit.variogram_fit import _collect_lags, _Criterion, fit_semivariogram_model
+from fieldcast.algorithms.fit.variogram_fit import _collect_lags, _Criterion, fit_semivariogram_model, fit_wls
 from fieldcast.algorithms.model.covariance import CovarianceModel, Structure
 from reference import gaussian_field
 

@@ -7,14 +7,14 @@ from scipy.stats import chi2
 
 from fieldcast.algorithms.errors import FieldcastError
 from fieldcast.algorithms.fit import fitting
-from fieldcast.algorithms.fit.fitting import FitOptions, fit_model
+from fieldcast.algorithms.fit.fitting import fit_model
 from fieldcast.algorithms.fit.likelihood import MeanBasis, log_likelihood
+from fieldcast.algorithms.fit.options import FitOptions
 from fieldcast.algorithms.fit.vecchia import VecchiaData, VecchiaObjective, VecchiaPlan, vecchia_log_likelihood
 from fieldcast.algorithms.fit.vecchia_fit import fit_vecchia
-from fieldcast.algorithms.model.covariance import CovarianceModel, Structure
+from fieldcast.algorithms.model.covariance import CovarianceModel, Structure, search_frame
 from fieldcast.algorithms.model.mean import MeanModel
 from fieldcast.algorithms.model.parameters import ParameterLayout
-from fieldcast.algorithms.predict.local import search_frame
 from fieldcast.algorithms.simulate.circulant import UnconditionalGenerator
 
 ANISOTROPIC = CovarianceModel((Structure("exponential", 0.6, 400.0, azimuth=40.0, ratio=0.5),), 0.05)
@@ -160,6 +160,18 @@ def test_bad_settings_say_what_to_change(meuse, log_zinc):
         vecchia_log_likelihood(meuse.xy, log_zinc, ANISOTROPIC, mean, method="wls")
     with pytest.raises(FieldcastError, match="'reml' or 'ml'"):
         fit_vecchia(meuse.xy, log_zinc, FitOptions(kernel="exponential", method="wls"))
+
+
+def test_a_vecchia_fit_stopped_by_the_iteration_limit_says_so():
+    # scipy's L-BFGS-B reports success False and "...ITERATIONS REACHED LIMIT" at maxiter (scipy.optimize docs).
+    xy, values = simulated_samples(400, seed=3)
+    settings = {"kernel": "exponential", "anisotropy": False, "mean": "constant"}
+    stopped = fit_vecchia(xy, values, FitOptions(**settings, max_iterations=1), subset_size=200)
+    notes = [w for w in stopped.warnings if w.startswith("The optimiser stopped before convergence after 1 iterations")]
+    assert len(notes) == 1 and "ITERATIONS REACHED LIMIT" in notes[0] and "raise the iteration limit" in notes[0]
+    converged = fit_vecchia(xy, values, FitOptions(**settings), subset_size=200)
+    assert not any("optimiser stopped" in w for w in converged.warnings)
+    assert converged.log_likelihood > stopped.log_likelihood
 
 
 def test_fit_model_hands_large_data_to_the_vecchia_fit(monkeypatch):

@@ -91,6 +91,10 @@ def corrupted(change) -> str:
     (corrupted(lambda d: d.pop("crs")), ("malformed (KeyError: 'crs')", "Refit the model")),
     (corrupted(lambda d: d.pop("structures")), ("malformed (KeyError: 'structures')",)),
     (corrupted(lambda d: d["structures"][0].update(range="far")), ("malformed (ValueError",)),
+    # A range must be positive (a distance; algorithms/model/covariance.py); the file's own value is named.
+    (corrupted(lambda d: d["structures"][0].update(range=-5.0)),
+     ("unusable model: The range of a covariance structure", "got -5.0", "Refit the model")),
+    (corrupted(lambda d: d["transform"].update(kind="cube")), ("unusable model: Unknown transform", "Refit the model")),
     ('{"format": "fieldcast-model",\n "mean": }', ("not valid JSON (line 2, column", "'Fit covariance model'")),
 ])
 def test_bad_documents_are_refused_with_advice(text, fragments):

@@ -20,13 +20,13 @@ from qgis.core import (
 )
 from scipy import stats
 from scipy.spatial import cKDTree
-from test_plugin_meuse import MEUSE_GRID_EXTENT, band, cell_centres
 
 from fieldcast.algorithms.io.grid import GridSpec
 from fieldcast.algorithms.io.model_file import ModelDocument
 from fieldcast.algorithms.predict.block import block_predict
 from fieldcast.algorithms.predict.kriging import KrigingPredictor
 from qgis_support import fieldcast_plugin, point_layer, qgis_processing  # noqa: F401 - fixtures
+from test_plugin_meuse import MEUSE_GRID_EXTENT, band, cell_centres
 
 QUICK_LOG_FIT = {"TRANSFORM": "log", "KERNEL": "spherical", "ANISOTROPY": False, "TREND": "constant",
                  "METHOD": "reml"}

@@ -15,7 +15,7 @@ import pytest
 from osgeo import gdal
 from qgis.core import QgsProcessingException
 
-from fieldcast.algorithms.fit.fitting import FitOptions
+from fieldcast.algorithms.fit.options import FitOptions
 from fieldcast.algorithms.fit.shared import fit_shared
 from fieldcast.algorithms.io.model_file import ModelDocument
 from fieldcast.algorithms.model.transform import Transform

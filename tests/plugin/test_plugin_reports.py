@@ -14,7 +14,6 @@ from pathlib import Path
 import numpy as np
 import pytest
 from qgis.core import QgsFeature, QgsProcessingException, QgsProcessingFeedback
-from test_report_fit import embedded_data
 
 from fieldcast.algorithms.io.model_file import ModelDocument
 from qgis_support import (  # noqa: F401 - fieldcast_plugin and qgis_processing are fixtures
@@ -24,6 +23,7 @@ from qgis_support import (  # noqa: F401 - fieldcast_plugin and qgis_processing 
     point_layer,
     qgis_processing,
 )
+from test_report_fit import embedded_data
 
 # "auto" without anisotropy compares the five closed-form families by AIC (README) and stays quick.
 AUTO_FIT = {"TRANSFORM": "log", "KERNEL": "auto", "ANISOTROPY": False, "TREND": "constant", "METHOD": "reml"}

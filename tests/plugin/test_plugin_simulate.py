@@ -17,6 +17,11 @@ from qgis.core import (
     QgsProcessingException,
     QgsProcessingFeedback,
 )
+
+from fieldcast.algorithms.io.crs import same_crs
+from qgis_process_support import QGIS_PROCESS, make_profile, run_algorithm, write_meuse_geopackage
+from qgis_support import CancelAfterFirstProgress, fieldcast_plugin, point_layer, qgis_processing  # noqa: F401
+from requirements_check import skip_unless_available
 from test_plugin_decision_maps import (  # noqa: F401 - zinc_model is a fixture
     COARSE_CELL,
     COARSE_GRID,
@@ -25,11 +30,6 @@ from test_plugin_decision_maps import (  # noqa: F401 - zinc_model is a fixture
     grid_parameters,
     zinc_model,
 )
-
-from fieldcast.algorithms.io.crs import same_crs
-from qgis_process_support import QGIS_PROCESS, make_profile, run_algorithm, write_meuse_geopackage
-from qgis_support import CancelAfterFirstProgress, fieldcast_plugin, point_layer, qgis_processing  # noqa: F401
-from requirements_check import skip_unless_available
 
 REALISATIONS = 50
 SUMMARY_RASTERS = ("OUTPUT_MEAN", "OUTPUT_STDDEV", "OUTPUT_EXCEEDANCE", "OUTPUT_P10", "OUTPUT_P90")

@@ -15,13 +15,13 @@ from pathlib import Path
 import numpy as np
 import pytest
 from PIL import Image
-from test_report_fit import all_semivariograms, log_zinc_model
 
 from fieldcast.algorithms.predict.crossval import leave_one_out
 from fieldcast.plugin.report.crossvalidation_report import write_crossvalidation_report
 from fieldcast.plugin.report.fit_report import write_fit_report
 from fieldcast.plugin.report.plotting import AMBER
 from requirements_check import skip_unless_available
+from test_report_fit import all_semivariograms, log_zinc_model
 
 CHROMIUM = Path("/usr/bin/chromium")
 ARTIFACTS = Path(__file__).resolve().parents[2] / "test-artifacts" / "report-browser"

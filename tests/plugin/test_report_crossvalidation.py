@@ -9,11 +9,11 @@ import sys
 import numpy as np
 import pytest
 from scipy import stats
-from test_report_fit import log_zinc_model
 
 from fieldcast.algorithms.predict.crossval import k_fold, leave_one_out
 from fieldcast.plugin.report.crossvalidation_report import write_crossvalidation_report
 from fieldcast.plugin.report.page import ReportError
+from test_report_fit import log_zinc_model
 
 DATA_BLOCK = re.compile(r'<script type="application/json" id="fieldcast-data">(.*?)</script>', re.S)
 SPEC_BLOCK = r'<script type="application/json" id="{}-spec">(.*?)</script>'

@@ -11,8 +11,9 @@ import pytest
 from scipy import stats
 
 from fieldcast.algorithms.errors import FieldcastError
-from fieldcast.algorithms.fit.fitting import AUTO_FAMILIES, fit_model
+from fieldcast.algorithms.fit.fitting import fit_model
 from fieldcast.algorithms.fit.likelihood import jitter_message, log_likelihood
+from fieldcast.algorithms.fit.options import AUTO_FAMILIES
 from fieldcast.algorithms.fit.variogram import directional_semivariograms, empirical_semivariogram
 from fieldcast.algorithms.io.model_file import ModelDocument
 from fieldcast.algorithms.io.samples import merge_coincident

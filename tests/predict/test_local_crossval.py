@@ -10,11 +10,10 @@ import pytest
 
 from fieldcast.algorithms.errors import FieldcastError
 from fieldcast.algorithms.fit.fitting import fit_model
-from fieldcast.algorithms.model.covariance import CovarianceModel, Structure
+from fieldcast.algorithms.model.covariance import CovarianceModel, Structure, search_frame
 from fieldcast.algorithms.model.mean import MeanModel
 from fieldcast.algorithms.predict.crossval import leave_one_out, local_leave_one_out
 from fieldcast.algorithms.predict.kriging import KrigingPredictor
-from fieldcast.algorithms.predict.local import search_frame
 
 SUBSET = slice(0, 155, 3)  # 52 Meuse samples keep the brute-force refits quick
 # Anisotropic Matérn 3/2 model with a nugget (invented parameters of the Meuse magnitudes; only an input here).
