@@ -17,11 +17,20 @@ from qgis.core import (
     QgsProcessingParameterCrs,
     QgsProcessingParameterDefinition,
     QgsProcessingParameterEnum,
+    QgsProcessingParameterExtent,
+    QgsProcessingParameterFeatureSink,
     QgsProcessingParameterFeatureSource,
     QgsProcessingParameterField,
     QgsProcessingParameterFile,
     QgsProcessingParameterFileDestination,
+    QgsProcessingParameterFolderDestination,
+    QgsProcessingParameterMapLayer,
     QgsProcessingParameterNumber,
+    QgsProcessingParameterRasterDestination,
+    QgsProcessingParameterRasterLayer,
+    QgsProcessingParameterVectorDestination,
+    QgsProcessingParameterVectorLayer,
+    QgsProcessingUtils,
 )
 from qgis.PyQt.QtCore import QCoreApplication
 
@@ -36,12 +45,18 @@ from ..algorithms import (
     Neighbourhood,
     Transform,
 )
+from .destinations import destination_value, layer_file, refuse_clashes
 from .icons import icon, icon_path
 from .model_source import FitSettings, describe_document, fit_document, load_document
 from .report.page import ReportError
 from .sample_reader import LayerSamples, ModelSamples, prepare_samples, read_layer_samples
 
 TREND_CHOICES = ("constant", "linear", "quadratic")
+FILE_OUTPUTS = (QgsProcessingParameterFileDestination, QgsProcessingParameterRasterDestination,
+                QgsProcessingParameterFeatureSink, QgsProcessingParameterVectorDestination,
+                QgsProcessingParameterFolderDestination)
+LAYER_INPUTS = (QgsProcessingParameterFeatureSource, QgsProcessingParameterVectorLayer,
+                QgsProcessingParameterRasterLayer, QgsProcessingParameterMapLayer, QgsProcessingParameterExtent)
 
 
 def push_log(feedback, lines: Sequence[LogLine]) -> None:
@@ -238,8 +253,37 @@ class FieldcastAlgorithm(QgsProcessingAlgorithm):
 
     # --- running -------------------------------------------------------------------------------------------
 
+    def output_files(self, parameters, context) -> list[tuple[str, str]]:
+        """``(parameter name, path)`` of every file output the user named (temporary outputs left out)."""
+        return [(definition.name(), destination_value(parameters.get(definition.name())))
+                for definition in self.parameterDefinitions() if isinstance(definition, FILE_OUTPUTS)]
+
+    def input_files(self, parameters, context) -> list[tuple[str, str]]:
+        """``(parameter name, path)`` of every input file: layer sources (also EXTENT layers) and file parameters."""
+        files = []
+        for definition in self.parameterDefinitions():
+            name = definition.name()
+            if isinstance(definition, QgsProcessingParameterFile):
+                files.append((name, self.parameterAsFile(parameters, name, context)))
+            elif isinstance(definition, LAYER_INPUTS):
+                files.append((name, self.layer_input_file(parameters.get(name), context)))
+        return files
+
+    @staticmethod
+    def layer_input_file(value, context) -> str:
+        """The source file of a layer parameter value, also when given as a layer id or name of the project."""
+        path = layer_file(value)
+        if path or not isinstance(value, str) or not value:
+            return path
+        return layer_file(QgsProcessingUtils.mapLayerFromString(value, context, False))
+
+    def refuse_overwrites(self, parameters, context) -> None:
+        """Refuse, before any work, an output that would overwrite an input file or another output."""
+        refuse_clashes(self.output_files(parameters, context), self.input_files(parameters, context))
+
     def processAlgorithm(self, parameters, context, feedback):
         try:
+            self.refuse_overwrites(parameters, context)
             return self.compute(parameters, context, feedback)
         except Cancelled as exc:
             raise QgsProcessingException(self.tr("Cancelled; no output was written.")) from exc
