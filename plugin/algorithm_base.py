@@ -7,6 +7,7 @@ parameters in ``initAlgorithm`` with the helpers here, and does its work in
 from __future__ import annotations
 
 import os
+import traceback
 from collections.abc import Callable, Sequence
 
 from qgis.core import (
@@ -289,6 +290,17 @@ class FieldcastAlgorithm(QgsProcessingAlgorithm):
             raise QgsProcessingException(self.tr("Cancelled; no output was written.")) from exc
         except (FieldcastError, ReportError) as exc:
             raise QgsProcessingException(str(exc)) from exc
+        except QgsProcessingException:
+            raise
+        except Exception as exc:  # noqa: BLE001 - any other failure is a bug: reported, with its traceback logged
+            raise self.internal_error(exc, feedback) from exc
+
+    def internal_error(self, exc: Exception, feedback) -> QgsProcessingException:
+        """The Processing error for an unexpected exception; its traceback goes to the log."""
+        feedback.reportError("".join(traceback.format_exception(type(exc), exc, exc.__traceback__)))
+        return QgsProcessingException(self.tr(
+            f"Internal error in {self.displayName()}: {type(exc).__name__}: {exc}. Please report it; the details "
+            "are in the log."))
 
     def compute(self, parameters, context, feedback) -> dict:
         """Do the work of ``processAlgorithm``; engine and report errors become Processing errors there."""
