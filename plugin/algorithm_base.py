@@ -11,6 +11,7 @@ import traceback
 from collections.abc import Callable, Sequence
 
 from qgis.core import (
+    QgsFeatureSink,
     QgsProcessing,
     QgsProcessingAlgorithm,
     QgsProcessingException,
@@ -64,6 +65,21 @@ def push_log(feedback, lines: Sequence[LogLine]) -> None:
     """Show the engine's log lines: warnings as warnings, the rest as information."""
     for line in lines:
         (feedback.pushWarning if line.level == "warning" else feedback.pushInfo)(line.text)
+
+
+def add_feature(sink, feature, number: int, destination: str) -> None:
+    """Add ``feature`` (the ``number``-th, from 1) to ``sink``, refusing to go on when the sink did not take it.
+
+    Raises
+    ------
+    FieldcastError
+        Naming the feature, ``destination`` and the sink's own error when it gives one.
+    """
+    if sink.addFeature(feature, QgsFeatureSink.FastInsert):
+        return
+    reason = sink.lastError() if hasattr(sink, "lastError") else ""
+    raise FieldcastError(f"Could not write feature {number} to {destination}: {reason or 'no reason given'}. "
+                         "Check the disk space and that the file is writable.")
 
 
 def progress_callback(feedback, start: float = 0.0, stop: float = 100.0) -> Callable[[float], None]:
