@@ -7,9 +7,11 @@ parameters in ``initAlgorithm`` with the helpers here, and does its work in
 from __future__ import annotations
 
 import os
+import traceback
 from collections.abc import Callable, Sequence
 
 from qgis.core import (
+    QgsFeatureSink,
     QgsProcessing,
     QgsProcessingAlgorithm,
     QgsProcessingException,
@@ -17,11 +19,20 @@ from qgis.core import (
     QgsProcessingParameterCrs,
     QgsProcessingParameterDefinition,
     QgsProcessingParameterEnum,
+    QgsProcessingParameterExtent,
+    QgsProcessingParameterFeatureSink,
     QgsProcessingParameterFeatureSource,
     QgsProcessingParameterField,
     QgsProcessingParameterFile,
     QgsProcessingParameterFileDestination,
+    QgsProcessingParameterFolderDestination,
+    QgsProcessingParameterMapLayer,
     QgsProcessingParameterNumber,
+    QgsProcessingParameterRasterDestination,
+    QgsProcessingParameterRasterLayer,
+    QgsProcessingParameterVectorDestination,
+    QgsProcessingParameterVectorLayer,
+    QgsProcessingUtils,
 )
 from qgis.PyQt.QtCore import QCoreApplication
 
@@ -36,18 +47,39 @@ from ..algorithms import (
     Neighbourhood,
     Transform,
 )
+from .destinations import destination_value, layer_file, refuse_clashes
 from .icons import icon, icon_path
 from .model_source import FitSettings, describe_document, fit_document, load_document
 from .report.page import ReportError
 from .sample_reader import LayerSamples, ModelSamples, prepare_samples, read_layer_samples
 
 TREND_CHOICES = ("constant", "linear", "quadratic")
+FILE_OUTPUTS = (QgsProcessingParameterFileDestination, QgsProcessingParameterRasterDestination,
+                QgsProcessingParameterFeatureSink, QgsProcessingParameterVectorDestination,
+                QgsProcessingParameterFolderDestination)
+LAYER_INPUTS = (QgsProcessingParameterFeatureSource, QgsProcessingParameterVectorLayer,
+                QgsProcessingParameterRasterLayer, QgsProcessingParameterMapLayer, QgsProcessingParameterExtent)
 
 
 def push_log(feedback, lines: Sequence[LogLine]) -> None:
     """Show the engine's log lines: warnings as warnings, the rest as information."""
     for line in lines:
         (feedback.pushWarning if line.level == "warning" else feedback.pushInfo)(line.text)
+
+
+def add_feature(sink, feature, number: int, destination: str) -> None:
+    """Add ``feature`` (the ``number``-th, from 1) to ``sink``, refusing to go on when the sink did not take it.
+
+    Raises
+    ------
+    FieldcastError
+        Naming the feature, ``destination`` and the sink's own error when it gives one.
+    """
+    if sink.addFeature(feature, QgsFeatureSink.FastInsert):
+        return
+    reason = sink.lastError() if hasattr(sink, "lastError") else ""
+    raise FieldcastError(f"Could not write feature {number} to {destination}: {reason or 'no reason given'}. "
+                         "Check the disk space and that the file is writable.")
 
 
 def progress_callback(feedback, start: float = 0.0, stop: float = 100.0) -> Callable[[float], None]:
@@ -238,13 +270,53 @@ class FieldcastAlgorithm(QgsProcessingAlgorithm):
 
     # --- running -------------------------------------------------------------------------------------------
 
+    def output_files(self, parameters, context) -> list[tuple[str, str]]:
+        """``(parameter name, path)`` of every file output the user named (temporary outputs left out)."""
+        return [(definition.name(), destination_value(parameters.get(definition.name())))
+                for definition in self.parameterDefinitions() if isinstance(definition, FILE_OUTPUTS)]
+
+    def input_files(self, parameters, context) -> list[tuple[str, str]]:
+        """``(parameter name, path)`` of every input file: layer sources (also EXTENT layers) and file parameters."""
+        files = []
+        for definition in self.parameterDefinitions():
+            name = definition.name()
+            if isinstance(definition, QgsProcessingParameterFile):
+                files.append((name, self.parameterAsFile(parameters, name, context)))
+            elif isinstance(definition, LAYER_INPUTS):
+                files.append((name, self.layer_input_file(parameters.get(name), context)))
+        return files
+
+    @staticmethod
+    def layer_input_file(value, context) -> str:
+        """The source file of a layer parameter value, also when given as a layer id or name of the project."""
+        path = layer_file(value)
+        if path or not isinstance(value, str) or not value:
+            return path
+        return layer_file(QgsProcessingUtils.mapLayerFromString(value, context, False))
+
+    def refuse_overwrites(self, parameters, context) -> None:
+        """Refuse, before any work, an output that would overwrite an input file or another output."""
+        refuse_clashes(self.output_files(parameters, context), self.input_files(parameters, context))
+
     def processAlgorithm(self, parameters, context, feedback):
         try:
+            self.refuse_overwrites(parameters, context)
             return self.compute(parameters, context, feedback)
         except Cancelled as exc:
             raise QgsProcessingException(self.tr("Cancelled; no output was written.")) from exc
         except (FieldcastError, ReportError) as exc:
             raise QgsProcessingException(str(exc)) from exc
+        except QgsProcessingException:
+            raise
+        except Exception as exc:  # noqa: BLE001 - any other failure is a bug: reported, with its traceback logged
+            raise self.internal_error(exc, feedback) from exc
+
+    def internal_error(self, exc: Exception, feedback) -> QgsProcessingException:
+        """The Processing error for an unexpected exception; its traceback goes to the log."""
+        feedback.reportError("".join(traceback.format_exception(type(exc), exc, exc.__traceback__)))
+        return QgsProcessingException(self.tr(
+            f"Internal error in {self.displayName()}: {type(exc).__name__}: {exc}. Please report it; the details "
+            "are in the log."))
 
     def compute(self, parameters, context, feedback) -> dict:
         """Do the work of ``processAlgorithm``; engine and report errors become Processing errors there."""

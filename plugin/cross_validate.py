@@ -7,7 +7,6 @@ import numpy as np
 from qgis.core import (
     QgsCoordinateReferenceSystem,
     QgsFeature,
-    QgsFeatureSink,
     QgsField,
     QgsFields,
     QgsGeometry,
@@ -27,7 +26,7 @@ from ..algorithms import (
     parse_crs,
     search_words,
 )
-from .algorithm_base import FieldcastAlgorithm, progress_callback, push_log
+from .algorithm_base import FieldcastAlgorithm, add_feature, progress_callback, push_log
 from .field_types import field_type
 from .help_text import MODEL_FILE_HELP, TARGET_CRS_HELP, compose_help
 from .report.crossvalidation_report import write_crossvalidation_report
@@ -110,7 +109,7 @@ class CrossValidateAlgorithm(FieldcastAlgorithm):
             feature.setGeometry(QgsGeometry.fromPointXY(QgsPointXY(float(x), float(y))))
             feature.setAttributes([int(fid)] + [float(column[row]) if math.isfinite(column[row]) else None
                                                 for column in columns])
-            sink.addFeature(feature, QgsFeatureSink.FastInsert)
+            add_feature(sink, feature, row + 1, destination)
         summary = result.summary()
         feedback.pushInfo("Leave-one-out on {n} samples: ME {ME:.4g}, RMSE {RMSE:.4g}, MSDR {MSDR:.4g}, "
                           "COVERAGE95 {COVERAGE95:.3f}.".format(**summary))

@@ -107,6 +107,17 @@ class PredictManyAlgorithm(SurfaceAlgorithm):
             return False, NO_FIELDS
         return super().checkParameterValues(parameters, context)
 
+    def output_files(self, parameters, context) -> list[tuple[str, str]]:
+        """OUTPUT_FOLDER itself and the three files written in it per field."""
+        files = super().output_files(parameters, context)
+        folder = dict(files).get(self.OUTPUT_FOLDER)
+        if not folder:
+            return files
+        fields = list(dict.fromkeys(self.parameterAsFields(parameters, self.FIELDS, context)))
+        return files + [(f"{self.OUTPUT_FOLDER} ({name})", os.path.join(folder, name))
+                        for stem in file_stems(fields).values()
+                        for name in (f"{stem}_model.json", f"{stem}_prediction.tif", f"{stem}_variance.tif")]
+
     def output_folder(self, parameters, context) -> str:
         """OUTPUT_FOLDER, created when missing.
 

@@ -7,7 +7,6 @@ import numpy as np
 from qgis.core import (
     QgsCoordinateReferenceSystem,
     QgsFeature,
-    QgsFeatureSink,
     QgsField,
     QgsFields,
     QgsProcessing,
@@ -29,7 +28,7 @@ from ..algorithms import (
     simulate_conditional,
     summarise_realisations,
 )
-from .algorithm_base import progress_callback, push_log
+from .algorithm_base import add_feature, progress_callback, push_log
 from .field_types import field_type
 from .help_text import GRID_HELP, MODEL_FILE_HELP, TARGET_CRS_HELP, THRESHOLD_HELP, compose_help
 from .raster_algorithm import RasterAlgorithm
@@ -264,7 +263,7 @@ class SimulateAlgorithm(RasterAlgorithm):
             feature = QgsFeature(fields)
             area = None if summary.area_above is None else float(summary.area_above[index])
             feature.setAttributes([index + 1, area, float(mean)])
-            sink.addFeature(feature, QgsFeatureSink.FastInsert)
+            add_feature(sink, feature, index + 1, destination)
         return destination
 
 
