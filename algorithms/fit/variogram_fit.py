@@ -51,16 +51,13 @@ from ..model.correlation import (
     reach_factor,
 )
 from ..model.covariance import CovarianceModel, Structure
+from ..model.parameters import RATIO_LOWER
+from .search import AZIMUTH_STARTS
 from .variogram import EmpiricalVariogram, directional_semivariograms, empirical_semivariogram
-
-SMALLEST_RATIO = 0.05
-"""Lower bound of the fitted minor/major range ratio."""
 
 _LOG_SPAN = (-7.0, 5.0)
 """Bounds of log_sill and log_range relative to ln(gamma_max) and ln(h_max)."""
 
-_START_AZIMUTHS = (0.0, 45.0, 90.0, 135.0)
-"""Azimuths (degrees) from which the anisotropic fit is started."""
 
 
 @dataclass(frozen=True)
@@ -153,7 +150,7 @@ class _Criterion:
         low = [log_gamma + _LOG_SPAN[0], 0.0, log_h + _LOG_SPAN[0]]
         high = [log_gamma + _LOG_SPAN[1], 1.0, log_h + _LOG_SPAN[1]]
         if self.anisotropic:
-            low += [-np.inf, math.log(SMALLEST_RATIO)]
+            low += [-np.inf, math.log(RATIO_LOWER)]
             high += [np.inf, 0.0]
         if self.fit_smoothness:
             low.append(math.log(SMOOTHNESS_BOUNDS[0]))
@@ -234,7 +231,7 @@ def fit_semivariogram_model(
     anisotropic = _Criterion(lags, family, True, smoothness, fit_smoothness)
     # The isotropic optimum is itself an anisotropic model with ratio 1 (azimuth 0).
     best = (cost, np.concatenate([theta[:3], [0.0, 0.0], theta[3:]]))
-    for azimuth in _START_AZIMUTHS:
+    for azimuth in AZIMUTH_STARTS:
         start = np.concatenate([theta[:3], [math.radians(azimuth), math.log(0.5)], theta[3:]])
         best = min(best, anisotropic.solve(start), key=lambda fit: fit[0])
     return anisotropic.model(best[1])

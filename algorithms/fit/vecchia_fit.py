@@ -35,7 +35,6 @@ from scipy import optimize
 
 from ..errors import FieldcastError
 from ..io.samples import check_samples
-from ..model.covariance import CovarianceModel
 from ..model.parameters import ParameterLayout, parameter_bounds
 from .bound_warnings import bound_warnings
 from .exact_fit import fit_exact
@@ -52,12 +51,6 @@ statistical uncertainty: a change of 0.5 in ``l`` is about one standard error al
 
 GRADIENT_TOLERANCE = 1e-2
 """... or when no log-likelihood derivative (per log-parameter) exceeds this."""
-
-
-def _to_internal(problem: SearchProblem, model: CovarianceModel) -> CovarianceModel:
-    """Inverse of :meth:`.fit_search.SearchProblem.to_data_units`."""
-    shrunk = tuple(replace(s, range=s.range / problem.length_scale) for s in model.structures)
-    return CovarianceModel(shrunk, model.nugget).scaled(problem.value_scale ** -2)
 
 
 def _minimise(objective: VecchiaObjective, theta: np.ndarray, bounds: list, on_step: Callable[[int], None],
@@ -139,7 +132,7 @@ def fit_vecchia(xy: np.ndarray, values: np.ndarray, options: FitOptions, *,
     layout = ParameterLayout(chosen.family, len(chosen.covariance.structures), chosen.anisotropy, options.smoothness)
     problem = SearchProblem.standardise(points, observed - mean_model.known_mean(n), design, method,
                                         options.should_stop, options.max_iterations)
-    start = layout.pack(_to_internal(problem, chosen.covariance))
+    start = layout.pack(problem.to_internal_units(chosen.covariance))
     theta, minus_two, basis_coefficients, stopped = _optimise(problem, layout, start, neighbours, progress)
     model = problem.to_data_units(layout.unpack(theta))
     log_likelihood = problem.log_likelihood(minus_two)
