@@ -20,7 +20,6 @@ from fieldcast.algorithms.fit.variogram_fit import fit_wls
 from fieldcast.algorithms.model.covariance import CovarianceModel, Structure
 from fieldcast.algorithms.model.mean import MeanModel
 from fieldcast.algorithms.model.parameters import (
-    NUGGET_BOUNDS,
     SMOOTHNESS_BOUNDS,
     DataScales,
     ParameterLayout,
@@ -135,13 +134,17 @@ def test_covariates_enter_the_mean():
     assert result.log_likelihood == pytest.approx(direct, rel=1e-10)
 
 
-def test_nested_fit_has_short_and_long_structures():
-    nested_truth = CovarianceModel((Structure("spherical", 0.5, 80.0), Structure("spherical", 1.0, 500.0)), 0.05)
-    xy, values = simulate(nested_truth, 150, seed=6)
+def test_nested_fit_finds_the_short_and_the_long_structure():
+    # Simulation study (invented data from a known model): 300 samples, spacing about 58 m, a short spherical
+    # structure of 150 m and a long one of 800 m. The nested fit must find both scales, each within a factor
+    # of two of the truth (a single structure cannot hold both).
+    nested_truth = CovarianceModel((Structure("spherical", 0.5, 150.0), Structure("spherical", 1.0, 800.0)), 0.02)
+    xy, values = simulate(nested_truth, 300, seed=6)
     single = fit_model(xy, values, kernel="spherical", anisotropy=False)
     nested = fit_model(xy, values, kernel="spherical", anisotropy=False, nested=True)
     short, long = nested.covariance.structures
-    assert short.range < long.range
+    assert 75.0 <= short.range <= 300.0
+    assert 400.0 <= long.range <= 1600.0
     assert nested.n_parameters == 5
     # Two structures contain the single one as a special case, so the optimum cannot be worse.
     assert nested.log_likelihood >= single.log_likelihood - 1e-3
@@ -202,7 +205,10 @@ def test_coincident_samples_fit_without_nan():
     values = np.append(values, values[:5])
     result = fit_model(xy, values, kernel="gaussian", anisotropy=False)
     assert math.isfinite(result.log_likelihood)
-    assert result.covariance.nugget >= NUGGET_BOUNDS[0] * np.var(values) * 0.5
+    # Five exact repeats with identical values: under a nugget tau^2 two measurements at one place differ by
+    # N(0, 2 tau^2), so differences of exactly 0 drive the likelihood's nugget to zero (theory of the Gaussian
+    # model); the fit must reach the lower bound and say so rather than fail.
+    assert any("nugget hit its lower bound" in warning for warning in result.warnings)
 
 
 def test_large_data_warm_start_matches_the_full_search(monkeypatch):

@@ -10,11 +10,7 @@ import numpy as np
 import pytest
 from scipy import optimize, special
 
-from fieldcast.algorithms.model.correlation import EFFECTIVE_CORRELATION, effective_range_factor, reach_factor
-
-
-def test_effective_correlation_is_five_percent():
-    assert EFFECTIVE_CORRELATION == 0.05
+from fieldcast.algorithms.model.correlation import effective_range_factor, reach_factor
 
 
 def test_exponential_closed_form():
@@ -77,9 +73,19 @@ def test_matern_three_halves_agrees_with_its_closed_form_special_case():
     assert effective_range_factor("matern", 1.5) == pytest.approx(effective_range_factor("matern32"), rel=1e-9)
 
 
-@pytest.mark.parametrize(("family", "smoothness"), [
-    ("exponential", None), ("gaussian", None), ("matern32", None), ("matern52", None), ("matern", 1.2)])
-def test_fit_starts_use_the_effective_range_except_for_the_spherical_support(family, smoothness):
-    assert reach_factor(family, smoothness) == effective_range_factor(family, smoothness)
-    # The spherical correlation reaches 0 at r = 1 (Journel & Huijbregts 1978): its support.
-    assert reach_factor("spherical") == 1.0
+@pytest.mark.parametrize(("family", "rho"), [
+    ("exponential", lambda r: math.exp(-r)),
+    ("gaussian", lambda r: math.exp(-r * r)),
+    ("matern32", _matern32),
+    ("matern52", _matern52),
+])
+def test_fit_starts_use_the_distance_where_the_published_correlation_is_five_percent(family, rho):
+    # Start ranges are placed where the published correlation (formulas above; 0.05 is the common-practice
+    # "practical range" level) has fallen to 0.05: checked by evaluating the formula at the start factor.
+    assert rho(reach_factor(family)) == pytest.approx(0.05, rel=1e-9)
+
+
+def test_spherical_fit_starts_use_its_support():
+    # The spherical correlation 1 - 1.5 r + 0.5 r^3 reaches 0 at r = 1 (Journel & Huijbregts 1978): its support.
+    r = reach_factor("spherical")
+    assert 1.0 - 1.5 * r + 0.5 * r**3 == pytest.approx(0.0, abs=1e-12)
