@@ -68,9 +68,9 @@ class DocumentCheck:
             return is_number(item) and math.isfinite(item) and test(item)
         return float(self.value(data, key, prefix, f"a finite number{requirement}", accepted, default))
 
-    def mapping(self, data: dict, key: str, prefix: str = "") -> dict:
-        """The object ``data[key]``."""
-        return self.value(data, key, prefix, "an object ({...})", lambda item: isinstance(item, dict))
+    def mapping(self, data: dict, key: str, default: Any = _MISSING) -> dict:
+        """The object ``data[key]`` of the top level."""
+        return self.value(data, key, "", "an object ({...})", lambda item: isinstance(item, dict), default)
 
     def text(self, data: dict, key: str, prefix: str = "", choices: tuple[str, ...] = (),
              default: Any = _MISSING) -> str:
@@ -112,7 +112,7 @@ def check_document(data: dict, source: str, newest_version: int) -> None:
     check.text(data, "field", default="")
     check.text(data, "crs")
     check.text(data, "units")
-    check.value(data, "fit", "", "an object ({...})", lambda item: isinstance(item, dict), default={})
+    check.mapping(data, "fit", default={})
     check_covariance(check, data)
     check_mean(check, check.mapping(data, "mean"))
     transform = check.mapping(data, "transform")
