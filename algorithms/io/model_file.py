@@ -9,6 +9,7 @@ from __future__ import annotations
 import dataclasses
 import json
 import math
+import os
 from dataclasses import dataclass
 from typing import Any
 
@@ -20,6 +21,7 @@ from ..model.mean import MeanModel
 from ..model.transform import Transform
 from ..version import __version__
 from .atomic import write_text_atomically
+from .model_checks import check_document
 
 FORMAT_NAME = "fieldcast-model"
 FORMAT_VERSION = 1
@@ -79,56 +81,48 @@ class ModelDocument:
         }
 
     @classmethod
-    def from_dict(cls, data: dict) -> ModelDocument:
-        """Rebuild a document, with a clear error for anything missing or malformed."""
+    def from_dict(cls, data: dict, source: str = "The model file") -> ModelDocument:
+        """Rebuild a document, refusing anything missing or malformed with the key path and its value.
+
+        ``source`` names the file in messages (e.g. ``"The model file zinc.json"``).
+        """
         if not isinstance(data, dict) or data.get("format") != FORMAT_NAME:
             raise FieldcastError(
                 "This file is not a Fieldcast model file (no \"format\": \"fieldcast-model\"). "
                 "Choose a file written by 'Fit covariance model'."
             )
-        if int(data.get("format_version", 0)) > FORMAT_VERSION:
-            raise FieldcastError(
-                f"The model file has format version {data.get('format_version')}, newer than this plugin "
-                f"reads ({FORMAT_VERSION}). Update Fieldcast or refit the model."
-            )
+        check_document(data, source, FORMAT_VERSION)
         try:
             covariance = CovarianceModel.from_dict(data)
             mean = MeanModel.from_dict(data["mean"])
-            coefficients = np.asarray(data["mean"].get("coefficients", []), dtype=float)
             transform = Transform.from_dict(data["transform"])
-            crs_wkt = str(data["crs"])
-            units = str(data["units"])
         except FieldcastError as exc:
-            raise FieldcastError(f"The model file describes an unusable model: {exc} Refit the model with 'Fit "
+            raise FieldcastError(f"{source} describes an unusable model: {exc} Refit the model with 'Fit "
                                  "covariance model' and use the new file.") from exc
-        except (KeyError, TypeError, ValueError) as exc:
-            raise FieldcastError(
-                f"The model file is malformed ({type(exc).__name__}: {exc}). "
-                "Refit the model with 'Fit covariance model' and use the new file."
-            ) from exc
+        coefficients = np.asarray(data["mean"].get("coefficients", []), dtype=float)
         if coefficients.size not in (0, mean.n_terms):
             raise FieldcastError(
-                f"The model file lists {coefficients.size} mean coefficients for a {mean.kind} mean with "
+                f"{source} lists {coefficients.size} mean coefficients for a {mean.kind} mean with "
                 f"{mean.n_terms} terms. Refit the model."
             )
-        return cls(covariance, mean, coefficients, transform, crs_wkt, units,
-                   str(data.get("field", "")), dict(data.get("fit", {})))
+        return cls(covariance, mean, coefficients, transform, data["crs"], data["units"],
+                   data.get("field", ""), dict(data.get("fit", {})))
 
     def to_json(self) -> str:
         """The document as indented JSON text."""
         return json.dumps(self.to_dict(), indent=2, allow_nan=False)
 
     @classmethod
-    def from_json(cls, text: str) -> ModelDocument:
-        """Parse JSON text; malformed JSON gives a clear error."""
+    def from_json(cls, text: str, source: str = "The model file") -> ModelDocument:
+        """Parse JSON text; malformed JSON gives a clear error (``source`` names the file in messages)."""
         try:
             data = json.loads(text)
         except json.JSONDecodeError as exc:
             raise FieldcastError(
-                f"The model file is not valid JSON (line {exc.lineno}, column {exc.colno}: {exc.msg}). "
+                f"{source} is not valid JSON (line {exc.lineno}, column {exc.colno}: {exc.msg}). "
                 "Choose a file written by 'Fit covariance model'."
             ) from exc
-        return cls.from_dict(data)
+        return cls.from_dict(data, source)
 
     def save(self, path: str) -> None:
         """Write the document to ``path`` through a temporary file (never half-written)."""
@@ -136,13 +130,16 @@ class ModelDocument:
 
     @classmethod
     def load(cls, path: str) -> ModelDocument:
-        """Read a model file with a clear error when it cannot be read."""
+        """Read a model file with a clear error when it cannot be read or is malformed.
+
+        A byte-order mark (as some Windows editors write) is skipped; line ends may be LF or CRLF.
+        """
         try:
-            with open(path, encoding="utf-8") as stream:
+            with open(path, encoding="utf-8-sig") as stream:
                 text = stream.read()
         except (OSError, UnicodeDecodeError) as exc:
             raise FieldcastError(f"Cannot read the model file {path}: {exc}. Check the path.") from exc
-        return cls.from_json(text)
+        return cls.from_json(text, f"The model file {os.path.basename(path)}")
 
 
 def json_ready(value: Any) -> Any:
