@@ -41,7 +41,6 @@ from collections.abc import Callable
 from dataclasses import dataclass, replace
 
 import numpy as np
-from scipy import optimize
 from scipy.spatial import ConvexHull, QhullError, cKDTree
 
 from ..errors import FieldcastError
@@ -49,6 +48,7 @@ from ..model.correlation import reach_factor
 from ..model.covariance import CovarianceModel
 from ..model.parameters import DataScales, ParameterLayout, parameter_bounds
 from .likelihood import LikelihoodObjective, MeanBasis
+from .minimiser import clamped, convergence_warning, minimise
 
 ISOTROPIC_START_RANGES = (0.03, 0.06, 0.12, 0.25, 0.5, 1.0)
 """Starting effective ranges of isotropic fits, as fractions of the data diameter."""
@@ -215,14 +215,6 @@ class SearchFit:
     stopped: str | None = None
 
 
-def convergence_warning(result: optimize.OptimizeResult) -> str | None:
-    """Plain-words warning when a :func:`scipy.optimize.minimize` run stopped before convergence, else None."""
-    if result.success:
-        return None
-    return (f"The optimiser stopped before convergence after {result.nit} iterations: {result.message}; raise the "
-            "iteration limit or simplify the model (fewer structures, no anisotropy).")
-
-
 class ProgressSteps:
     """Counts optimiser runs and reports the fraction done."""
 
@@ -293,23 +285,16 @@ def _optimise(problem: SearchProblem, layout: ParameterLayout, starts: list[np.n
     """
     objective = LikelihoodObjective(problem.xy, problem.y, problem.basis, problem.method, layout, problem.should_stop)
     bounds = parameter_bounds(layout, problem.internal_scales)
-    starts = [np.array([x if low is None else min(max(x, low), high) for x, (low, high) in zip(start, bounds)])
-              for start in starts]
+    starts = [clamped(start, bounds) for start in starts]
     if len(starts) > 1:
         starts = _screened(objective, starts, bounds)
-    scale = 2.0 * len(problem.y)
 
-    def scaled(theta: np.ndarray) -> tuple[float, np.ndarray]:
-        value, gradient = objective.value_and_gradient(theta)
-        return value / scale, gradient / scale
-
-    # The objective is -l / n, so tolerances on l are divided by n.
-    options = {"maxiter": problem.max_iterations, "ftol": LOG_LIKELIHOOD_TOLERANCE / len(problem.y),
-               "gtol": GRADIENT_TOLERANCE / len(problem.y)}
     best: SearchFit | None = None
     for start in starts:
         first = _newton(objective, start, bounds) if refine else start
-        result = optimize.minimize(scaled, first, jac=True, method="L-BFGS-B", bounds=bounds, options=options)
+        result = minimise(objective.value_and_gradient, first, bounds, samples=len(problem.y),
+                          log_likelihood_tolerance=LOG_LIKELIHOOD_TOLERANCE, gradient_tolerance=GRADIENT_TOLERANCE,
+                          max_iterations=problem.max_iterations)
         value = objective.value_and_gradient(result.x)[0]
         if best is None or value < best.minus_two_log_likelihood:
             best = SearchFit(layout, result.x, value, objective.jitter, convergence_warning(result))

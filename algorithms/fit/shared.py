@@ -47,7 +47,6 @@ from dataclasses import fields as dataclass_fields
 from dataclasses import replace
 
 import numpy as np
-from scipy import optimize
 
 from ..errors import FieldcastError
 from ..io.samples import check_samples
@@ -57,15 +56,12 @@ from ..model.parameters import DataScales, ParameterLayout, covariance_derivativ
 from .bound_warnings import bound_warnings
 from .fitting import VECCHIA_THRESHOLD, fit_model
 from .likelihood import LOG_2PI, GlsSolution, LikelihoodTerms, MeanBasis, PairedObjective, evaluate_model
+from .minimiser import convergence_warning, minimise
 from .options import CandidateFit, FitOptions, FitResult, information_criteria, mean_model_for, with_jitter_in_nugget
 from .search import GRADIENT_TOLERANCE, LOG_LIKELIHOOD_TOLERANCE, SearchProblem
 
 START_SHARE = 0.5
 """Share of the progress bar taken by the start fit on the averaged field."""
-
-MAX_ITERATIONS = 500
-"""Iteration limit of the joint L-BFGS-B refinement."""
-
 
 class JointObjective(PairedObjective):
     """Profiled ``-2 l`` of several fields with one covariance model, and its gradient (module docstring).
@@ -142,11 +138,11 @@ def fit_shared(xy: np.ndarray, values: np.ndarray, options: FitOptions,
     internal_start = problem.to_internal_units(start.covariance)
     theta, failure = _refine(objective, layout, layout.pack(internal_start.scaled(
         1.0 / internal_start.structures[0].partial_sill)), problem.internal_scales,
-        _part(options.progress, START_SHARE, 1.0))
+        _part(options.progress, START_SHARE, 1.0), options.max_iterations)
     shared = layout.unpack(theta)
     messages = [] if failure is None else [
-        f"The joint fit of the shared model did not converge ({failure}); the model may be off its best. Fit one "
-        "model per field, or fewer fields."]
+        f"Joint fit of the shared model: {failure} The model may be off its best; a model per field, or fewer "
+        "fields, also help."]
     scales = objective.field_scales(theta) * column_scales ** 2
     results = [_field_result(xy, column, replace(problem, value_scale=math.sqrt(scale)), shared, mean_model, options,
                              layout, len(names), messages)
@@ -212,17 +208,16 @@ def _part(progress: Callable[[float], None] | None, low: float, high: float) -> 
 
 
 def _refine(objective: JointObjective, layout: ParameterLayout, theta: np.ndarray, scales: DataScales,
-            progress: Callable[[float], None] | None) -> tuple[np.ndarray, str | None]:
+            progress: Callable[[float], None] | None, max_iterations: int) -> tuple[np.ndarray, str | None]:
     """Minimise the joint ``-2 l`` over every parameter but the first partial sill (held where ``theta`` has it).
 
-    Returns the optimum and, when L-BFGS-B did not converge, its reason (None otherwise). As in
-    :mod:`.search`, the objective is divided by ``2 n m`` so that its tolerances are those of a
-    single-field fit.
+    Returns the optimum and, when L-BFGS-B did not converge, the :func:`.minimiser.convergence_warning`
+    (None otherwise). :func:`.minimiser.minimise` divides the objective by ``2 n m``, so that its
+    tolerances are those of a single-field fit.
     """
     fixed = layout.index("log_partial_sill_1")
     free = np.array([i for i in range(layout.n_parameters) if i != fixed])
     bounds = [parameter_bounds(layout, scales)[i] for i in free]
-    size = 2.0 * objective.y.size
     iterations = [0]
 
     def full(x: np.ndarray) -> np.ndarray:
@@ -230,21 +225,20 @@ def _refine(objective: JointObjective, layout: ParameterLayout, theta: np.ndarra
         vector[free] = x
         return vector
 
-    def value_and_gradient(x: np.ndarray) -> tuple[float, np.ndarray]:
+    def minus_two_log_likelihood(x: np.ndarray) -> tuple[float, np.ndarray]:
         value, gradient = objective.value_and_gradient(full(x))
-        return value / size, gradient[free] / size
+        return value, gradient[free]
 
     def advance(_: np.ndarray) -> None:
         iterations[0] += 1
         if progress is not None:
             progress(min(iterations[0] / 50.0, 1.0))
 
-    start = np.array([x if low is None else min(max(x, low), high) for x, (low, high) in zip(theta[free], bounds)])
-    n = len(objective.y)
-    options = {"maxiter": MAX_ITERATIONS, "ftol": LOG_LIKELIHOOD_TOLERANCE / n, "gtol": GRADIENT_TOLERANCE / n}
-    result = optimize.minimize(value_and_gradient, start, jac=True, method="L-BFGS-B", bounds=bounds,
-                               callback=advance, options=options)
-    return full(result.x), None if result.success else str(result.message)
+    n, m = objective.y.shape[0], objective.y.size // objective.y.shape[0]
+    result = minimise(minus_two_log_likelihood, theta[free], bounds, samples=n, fields=m,
+                      log_likelihood_tolerance=LOG_LIKELIHOOD_TOLERANCE, gradient_tolerance=GRADIENT_TOLERANCE,
+                      max_iterations=max_iterations, callback=advance)
+    return full(result.x), convergence_warning(result)
 
 
 def _field_result(xy: np.ndarray, values: np.ndarray, field: SearchProblem, shared: CovarianceModel,

@@ -31,15 +31,15 @@ from collections.abc import Callable
 from dataclasses import replace
 
 import numpy as np
-from scipy import optimize
 
 from ..errors import FieldcastError
 from ..io.samples import check_samples
 from ..model.parameters import ParameterLayout, parameter_bounds
 from .bound_warnings import bound_warnings
 from .exact_fit import fit_exact
+from .minimiser import clamped, convergence_warning, minimise
 from .options import CandidateFit, FitOptions, FitResult, check_fit_choices, information_criteria, mean_model_for
-from .search import SearchProblem, convergence_warning
+from .search import SearchProblem
 from .vecchia import DEFAULT_NEIGHBOURS, VecchiaData, VecchiaObjective, VecchiaPlan
 
 SUBSET_SIZE = 1000
@@ -53,29 +53,14 @@ GRADIENT_TOLERANCE = 1e-2
 """... or when no log-likelihood derivative (per log-parameter) exceeds this."""
 
 
-def _minimise(objective: VecchiaObjective, theta: np.ndarray, bounds: list, on_step: Callable[[int], None],
-              max_iterations: int) -> optimize.OptimizeResult:
-    """L-BFGS-B on ``-l / n`` (the scaling of :mod:`.search`) from ``theta``."""
-    scale = 2.0 * len(objective.data.y)
-
-    def scaled(x: np.ndarray) -> tuple[float, np.ndarray]:
-        value, gradient = objective.value_and_gradient(x)
-        on_step(objective.evaluations)
-        return value / scale, gradient / scale
-
-    options = {"maxiter": max_iterations, "ftol": LOG_LIKELIHOOD_TOLERANCE / len(objective.data.y),
-               "gtol": GRADIENT_TOLERANCE / len(objective.data.y)}
-    return optimize.minimize(scaled, theta, jac=True, method="L-BFGS-B", bounds=bounds, options=options)
-
-
 def _optimise(problem: SearchProblem, layout: ParameterLayout, start: np.ndarray, neighbours: int,
               progress: Callable[[float], None] | None) -> tuple[np.ndarray, float, np.ndarray, str | None]:
     """Vecchia fit from ``start`` (sets rebuilt once for anisotropy).
 
-    Returns ``theta``, ``-2 l``, the basis coefficients and the last run's :func:`.search.convergence_warning`.
+    Returns ``theta``, ``-2 l``, the basis coefficients and the last run's :func:`.minimiser.convergence_warning`.
     """
     bounds = parameter_bounds(layout, problem.internal_scales)
-    theta = np.array([x if low is None else min(max(x, low), high) for x, (low, high) in zip(start, bounds)])
+    theta = clamped(start, bounds)
     rounds = 2 if layout.anisotropy else 1
     for round_index in range(rounds):
         plan = VecchiaPlan.build(problem.xy, neighbours, layout.unpack(theta).structures[0])
@@ -85,8 +70,17 @@ def _optimise(problem: SearchProblem, layout: ParameterLayout, start: np.ndarray
             if progress is not None:
                 progress(0.5 + 0.5 * (done + min(evaluations / 60.0, 0.95)) / rounds)
 
-        result = _minimise(VecchiaObjective(data, layout, problem.should_stop), theta, bounds, on_step,
-                           problem.max_iterations)
+        objective = VecchiaObjective(data, layout, problem.should_stop)
+
+        def minus_two_log_likelihood(x: np.ndarray, objective: VecchiaObjective = objective,
+                                     on_step: Callable[[int], None] = on_step) -> tuple[float, np.ndarray]:
+            value = objective.value_and_gradient(x)
+            on_step(objective.evaluations)
+            return value
+
+        result = minimise(minus_two_log_likelihood, theta, bounds, samples=len(data.y),
+                          log_likelihood_tolerance=LOG_LIKELIHOOD_TOLERANCE, gradient_tolerance=GRADIENT_TOLERANCE,
+                          max_iterations=problem.max_iterations)
         theta = result.x
     terms = data.evaluate(layout.unpack(theta))
     return theta, terms.minus_two_log_likelihood, terms.basis_coefficients, convergence_warning(result)

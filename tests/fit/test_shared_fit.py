@@ -147,3 +147,12 @@ def test_progress_reaches_the_end(meuse, log_metals):
     seen = []
     fit_shared(meuse.xy, log_metals, FitOptions(kernel="exponential", anisotropy=False, progress=seen.append))
     assert seen[-1] == 1.0 and all(b >= a for a, b in zip(seen, seen[1:]))
+
+
+def test_a_joint_fit_stopped_by_the_iteration_limit_says_so(meuse, log_metals, shared):
+    # One L-BFGS-B iteration cannot reach the optimum the default limit finds (scipy reports the limit reached).
+    stopped = fit_shared(meuse.xy, log_metals, FitOptions(kernel="spherical", anisotropy=True, max_iterations=1),
+                         list(METALS))
+    assert all(any("stopped before convergence after 1 iterations" in w for w in r.warnings) for r in stopped)
+    assert not any("stopped before convergence" in w for r in shared for w in r.warnings)
+    assert sum(r.log_likelihood for r in stopped) < sum(r.log_likelihood for r in shared)
