@@ -106,6 +106,7 @@ _PUBLIC = {
     "same_crs": "io.crs",
     "to_wkt2": "io.crs",
     "transform_points": "io.crs",
+    "undefined_crs_error": "io.crs",
     "utm_crs_for": "io.crs",
     "WorkingCrs": "io.working_crs",
     "choose_working_crs": "io.working_crs",

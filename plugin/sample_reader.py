@@ -23,6 +23,7 @@ from ..algorithms import (
     merge_coincident,
     same_crs,
     transform_points,
+    undefined_crs_error,
 )
 
 
@@ -121,8 +122,7 @@ def read_layer_samples(source: QgsProcessingFeatureSource, field: str, target_cr
     """
     layer_crs = source.sourceCrs()
     if not layer_crs.isValid():
-        raise FieldcastError("The sample layer has no coordinate reference system. Assign one in Layer "
-                             "Properties > Source (or with 'Assign projection') and run again.")
+        raise undefined_crs_error(source.sourceName())
     index = source.fields().lookupField(field)
     if index < 0:
         raise FieldcastError(f"The sample layer has no field {field!r}; choose one of its numeric fields.")
@@ -157,8 +157,10 @@ def read_layer_samples(source: QgsProcessingFeatureSource, field: str, target_cr
     layer_xy = np.array(points, dtype=float)
     layer_wkt = crs_wkt(layer_crs)
     target_wkt = crs_wkt(target_crs) if target_crs.isValid() else None
-    working = choose_working_crs(layer_wkt, layer_xy, target_wkt)
+    working = choose_working_crs(layer_wkt, layer_xy, target_wkt, source.sourceName())
     feedback.pushInfo(working.reason)
+    for warning in working.warnings:
+        feedback.pushWarning(warning)
     xy = layer_xy if same_crs(layer_wkt, working.wkt) else transform_points(layer_xy, layer_wkt, working.wkt)
     skipped = {reason: count for reason, count in (("value is NULL or not a number", skipped_values),
                                                    ("no geometry", skipped_geometry)) if count}

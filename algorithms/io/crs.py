@@ -22,6 +22,9 @@ from ..errors import FieldcastError
 UTM_SOUTH_LIMIT = -80.0
 UTM_NORTH_LIMIT = 84.0
 UNKNOWN_UNIT_NAMES = {"", "unknown", "none"}
+# Placeholder systems of a GeoPackage without SRS, srs_id 0 and -1, named so by OGC 12-128r18 (1.1.2.1.2) and GDAL.
+UNDEFINED_CRS_NAMES = {"undefined geographic srs", "undefined cartesian srs"}
+UNKNOWN_NAMES = {"", "unknown"}
 
 
 def parse_crs(crs_like: Any) -> pyproj.CRS:
@@ -42,6 +45,53 @@ def parse_crs(crs_like: Any) -> pyproj.CRS:
         shown = shown if len(shown) <= 80 else shown[:77] + "..."
         raise FieldcastError(f"Could not read the coordinate reference system {shown!r} ({exc}). "
                              "Assign a valid CRS to the layer, e.g. its EPSG code.") from exc
+
+
+def undefined_crs_error(layer_name: str) -> FieldcastError:
+    """The refusal for a layer whose CRS does not say whether its coordinates are degrees or metres."""
+    return FieldcastError(f"The layer {layer_name} has no defined CRS (its coordinates are not known to be degrees "
+                          "or metres). Assign its real CRS (Layer Properties \u2192 Source \u2192 Assigned Coordinate "
+                          "Reference System, or the 'Assign projection' tool), or, for a site grid in local metres, "
+                          "assign a local engineering CRS.")
+
+
+def is_undefined(crs: pyproj.CRS) -> bool:
+    """True for a placeholder CRS: GDAL's "Undefined ... SRS" or a geographic CRS on an unknown datum and ellipsoid."""
+    if crs.name.strip().lower() in UNDEFINED_CRS_NAMES:
+        return True
+    datum, ellipsoid = crs.datum, crs.ellipsoid
+    return (crs.is_geographic and datum is not None and ellipsoid is not None
+            and datum.name.strip().lower() in UNKNOWN_NAMES and ellipsoid.name.strip().lower() in UNKNOWN_NAMES)
+
+
+def defined_crs(wkt: str, layer_name: str) -> pyproj.CRS:
+    """The layer's CRS read from ``wkt``, refused when empty or undefined (see :func:`is_undefined`).
+
+    Raises
+    ------
+    FieldcastError
+        Naming ``layer_name`` and how to assign a CRS.
+    """
+    if not wkt.strip():
+        raise undefined_crs_error(layer_name)
+    crs = parse_crs(wkt)
+    if is_undefined(crs):
+        raise undefined_crs_error(layer_name)
+    return crs
+
+
+def longitude_span(lons: np.ndarray) -> tuple[float, float]:
+    """Centre and width in degrees of the shortest longitude interval holding every ``lons`` value.
+
+    The interval is the circle minus its widest gap between neighbouring sorted longitudes, so data
+    from 179 deg E to 179 deg W give a centre near 180 deg and a width of 2 degrees. The centre is in [-180, 180).
+    """
+    wrapped = np.sort((np.asarray(lons, dtype=float) + 180.0) % 360.0 - 180.0)
+    gaps = np.diff(np.append(wrapped, wrapped[0] + 360.0))
+    widest = int(np.argmax(gaps))
+    start = wrapped[(widest + 1) % len(wrapped)]
+    width = 360.0 - float(gaps[widest])
+    return float((start + width / 2.0 + 180.0) % 360.0 - 180.0), width
 
 
 def utm_zone_number(lon: float, lat: float) -> int:

@@ -11,6 +11,7 @@ from fieldcast.algorithms.errors import FieldcastError
 from fieldcast.algorithms.io.crs import (
     is_geographic,
     linear_units,
+    longitude_span,
     same_crs,
     to_wkt2,
     transform_points,
@@ -119,3 +120,15 @@ def test_same_crs():
     assert same_crs(gdal_wkt1.ExportToWkt(), to_wkt2("EPSG:28992"))
     assert same_crs("EPSG:4326", "OGC:CRS84")  # same system, lat/lon versus lon/lat axis order
     assert not same_crs("EPSG:28992", "EPSG:32631")
+
+
+@pytest.mark.parametrize(("lons", "centre", "width"), [
+    ([5.0, 6.0, 7.0], 6.0, 2.0),
+    ([179.0, -179.0, 179.5], 180.0, 2.0),  # across the antimeridian: not 0 deg, the mean of the numbers
+    ([-170.0, 170.0], 180.0, 20.0),
+    ([10.0, 10.0], 10.0, 0.0),
+])
+def test_longitude_span_is_the_shortest_interval_around_the_circle(lons, centre, width):
+    got_centre, got_width = longitude_span(np.array(lons))
+    assert got_width == pytest.approx(width)
+    assert (got_centre - centre + 180.0) % 360.0 - 180.0 == pytest.approx(0.0, abs=1e-9)

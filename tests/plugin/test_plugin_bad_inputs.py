@@ -9,7 +9,7 @@ import math
 
 import numpy as np
 import pytest
-from osgeo import gdal
+from osgeo import gdal, ogr
 from pyproj import Transformer
 from qgis.core import (
     QgsField,
@@ -107,8 +107,26 @@ def test_text_field_is_refused(run_refused, meuse):
 
 def test_layer_without_crs_is_refused(run_refused, meuse):
     layer = point_layer(meuse.xy, {"zinc": meuse.zinc}, crs=None)
-    run_refused("fieldcast:fitmodel", {"INPUT": layer, "FIELD": "zinc"}, "no coordinate reference system",
-                "Assign")
+    run_refused("fieldcast:fitmodel", {"INPUT": layer, "FIELD": "zinc"}, "has no defined CRS",
+                "Assigned Coordinate Reference System", "'Assign projection'")
+
+
+def test_geopackage_written_without_srs_is_refused_not_moved_to_utm(run_refused, tmp_path_factory):
+    # GDAL gives such a layer its "Undefined geographic SRS", which QGIS reports as a valid CRS in degrees.
+    path = str(tmp_path_factory.mktemp("nosrs") / "site.gpkg")
+    source = ogr.GetDriverByName("GPKG").CreateDataSource(path)
+    table = source.CreateLayer("site", None, ogr.wkbPoint)
+    table.CreateField(ogr.FieldDefn("depth", ogr.OFTReal))
+    for x, y, depth in [(0, 0, 1.0), (6, 0, 2.0), (0, 6, 1.5), (6, 6, 3.0), (3, 3, 2.5), (2, 5, 1.2)]:
+        feature = ogr.Feature(table.GetLayerDefn())
+        feature.SetField("depth", depth)
+        feature.SetGeometry(ogr.CreateGeometryFromWkt(f"POINT ({x} {y})"))
+        table.CreateFeature(feature)
+    source = None
+    layer = QgsVectorLayer(f"{path}|layername=site", "site", "ogr")
+    assert layer.isValid() and "Undefined geographic SRS" in layer.crs().toWkt()
+    run_refused("fieldcast:fitmodel", {"INPUT": layer, "FIELD": "depth"}, "The layer site has no defined CRS",
+                "local engineering CRS")
 
 
 def test_empty_layer_is_refused(run_refused):
@@ -221,6 +239,13 @@ def test_target_crs_is_used_when_set(qgis_processing, lonlat_layer, tmp_path):  
         "INPUT": lonlat_layer, "FIELD": "zinc", **QUICK_FIT, "TARGET_CRS": "EPSG:28992",
         "OUTPUT_MODEL": str(tmp_path / "m.json")})
     assert "Amersfoort / RD New (the target CRS you set)" in log
+
+
+def test_web_mercator_target_crs_is_logged_as_a_warning(qgis_processing, lonlat_layer, tmp_path):  # noqa: F811
+    _, log = run_logged(qgis_processing, "fieldcast:fitmodel", {
+        "INPUT": lonlat_layer, "FIELD": "zinc", **QUICK_FIT, "TARGET_CRS": "EPSG:3857",
+        "OUTPUT_MODEL": str(tmp_path / "m.json")})
+    assert "is a web-mapping projection: its distances are stretched by 1/cos(latitude)" in log
 
 
 def test_geographic_target_crs_is_refused(run_refused, meuse_layer):
