@@ -14,7 +14,7 @@ import contextlib
 import contextvars
 import os
 import uuid
-from collections.abc import Sequence
+from collections.abc import Iterator, Sequence
 from dataclasses import dataclass
 
 from ..errors import FieldcastError
@@ -136,7 +136,7 @@ def place(temporary: str, final: str, side_suffixes: Sequence[str] = ()) -> None
 
 
 @contextlib.contextmanager
-def staged_together():
+def staged_together() -> Iterator[None]:
     """Files placed inside the block appear together at its end: in the current :class:`OutputSet` when there
     is one (they then wait for its commit), otherwise in a set of their own committed on success."""
     if _CURRENT.get() is not None:
