@@ -15,7 +15,7 @@ Subpackages, by what the toolbox does:
 ``simulate``
     circulant embedding and conditioning by kriging;
 ``io``
-    samples, grids, masks, GeoTIFF writing, model files, atomic writes, CRS helpers;
+    samples, grids, masks, GeoTIFF writing, model files, atomic writes, staged outputs, CRS helpers;
 ``linalg``
     stacks of small systems and the BLAS thread switch.
 
@@ -101,6 +101,7 @@ _PUBLIC = {
     "ModelDocument": "io.model_file",
     "json_ready": "io.model_file",
     "write_text_atomically": "io.atomic",
+    "OutputSet": "io.staging",
     "linear_units": "io.crs",
     "parse_crs": "io.crs",
     "same_crs": "io.crs",

@@ -45,6 +45,7 @@ from ..algorithms import (
     LogLine,
     ModelDocument,
     Neighbourhood,
+    OutputSet,
     Transform,
 )
 from .destinations import destination_value, layer_file, refuse_clashes
@@ -301,7 +302,10 @@ class FieldcastAlgorithm(QgsProcessingAlgorithm):
     def processAlgorithm(self, parameters, context, feedback):
         try:
             self.refuse_overwrites(parameters, context)
-            return self.compute(parameters, context, feedback)
+            with OutputSet() as files:
+                outputs = self.compute(parameters, context, feedback)
+                files.commit_all()
+            return outputs
         except Cancelled as exc:
             raise QgsProcessingException(self.tr("Cancelled; no output was written.")) from exc
         except (FieldcastError, ReportError) as exc:
@@ -319,5 +323,10 @@ class FieldcastAlgorithm(QgsProcessingAlgorithm):
             "are in the log."))
 
     def compute(self, parameters, context, feedback) -> dict:
-        """Do the work of ``processAlgorithm``; engine and report errors become Processing errors there."""
+        """Do the work of ``processAlgorithm``; engine and report errors become Processing errors there.
+
+        Files written inside (GeoTIFFs, model files, reports) are staged and appear together when ``compute``
+        returns; an error or a cancel leaves none. Feature sinks are written by QGIS and cannot be staged, so
+        ``compute`` writes them last, after every file is complete.
+        """
         raise NotImplementedError

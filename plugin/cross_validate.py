@@ -95,6 +95,23 @@ class CrossValidateAlgorithm(FieldcastAlgorithm):
         report_path = self.report_destination(parameters, context)
         document, samples = self.model_and_samples(parameters, context, feedback, progress_callback(feedback, 0, 80))
         result = self.cross_validation(parameters, context, feedback, document, samples)
+        summary = result.summary()
+        feedback.pushInfo("Leave-one-out on {n} samples: ME {ME:.4g}, RMSE {RMSE:.4g}, MSDR {MSDR:.4g}, "
+                          "COVERAGE95 {COVERAGE95:.3f}.".format(**summary))
+        outputs = {name: summary[name] for name, _ in SUMMARY_OUTPUTS}
+        if report_path:
+            rows = result.resolved_rows
+            write_crossvalidation_report(report_path, cv=result.resolved(), ids=np.asarray(samples.fids)[rows],
+                                         xy=samples.xy[rows], model=document,
+                                         crs_name=parse_crs(document.crs_wkt).name)
+            outputs[self.OUTPUT_REPORT] = report_path
+        outputs[self.OUTPUT] = self.write_points(parameters, context, document, samples, result)
+        feedback.setProgress(100)
+        return outputs
+
+    def write_points(self, parameters, context, document: ModelDocument, samples: ModelSamples,
+                     result: CrossValidation) -> str:
+        """The cross-validation points layer, one feature per sample; written last, after the report is staged."""
         fields = QgsFields()
         fields.append(QgsField("sample_id", field_type("LongLong")))
         for name in RESULT_FIELDS:
@@ -110,18 +127,7 @@ class CrossValidateAlgorithm(FieldcastAlgorithm):
             feature.setAttributes([int(fid)] + [float(column[row]) if math.isfinite(column[row]) else None
                                                 for column in columns])
             add_feature(sink, feature, row + 1, destination)
-        summary = result.summary()
-        feedback.pushInfo("Leave-one-out on {n} samples: ME {ME:.4g}, RMSE {RMSE:.4g}, MSDR {MSDR:.4g}, "
-                          "COVERAGE95 {COVERAGE95:.3f}.".format(**summary))
-        outputs = {self.OUTPUT: destination, **{name: summary[name] for name, _ in SUMMARY_OUTPUTS}}
-        if report_path:
-            rows = result.resolved_rows
-            write_crossvalidation_report(report_path, cv=result.resolved(), ids=np.asarray(samples.fids)[rows],
-                                         xy=samples.xy[rows], model=document,
-                                         crs_name=parse_crs(document.crs_wkt).name)
-            outputs[self.OUTPUT_REPORT] = report_path
-        feedback.setProgress(100)
-        return outputs
+        return destination
 
     def cross_validation(self, parameters, context, feedback, document: ModelDocument,
                          samples: ModelSamples) -> CrossValidation:

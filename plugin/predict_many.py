@@ -79,10 +79,9 @@ class PredictManyAlgorithm(SurfaceAlgorithm):
           "writes it), <field>_prediction.tif and <field>_variance.tif (Float32 GeoTIFFs as 'Predict surface' "
           "writes them: attribute units, and the variance of the smooth field in attribute units squared). Field "
           "names are made safe for file names: characters other than letters, digits, '-' and '.' become '_'. "
-          "Every field's samples are checked before any file is written. Fields are done one after another and "
-          "each field's files appear when they are complete: cancelling leaves the files of the fields already "
-          "finished (the log lists them) and nothing of the field in progress. With one model for all fields, all "
-          "files appear together at the end, and cancelling leaves none."),
+          "Every field's samples are checked before any file is written. Fields are done one after another, and "
+          "all fields' files appear together when the last field is complete: cancelling, or a failure at any "
+          "field, leaves none."),
          ("Count", "Number of fields predicted.")],
     )
 
@@ -178,7 +177,6 @@ class PredictManyAlgorithm(SurfaceAlgorithm):
     def predict_each(self, run: FieldsRun, parameters, context, feedback) -> None:
         """A model of its own per field, fitted and kriged field after field (see the help)."""
         grids: dict[tuple[str, bytes], tuple] = {}
-        finished: list[str] = []
         share = 100.0 / len(run.prepared)
         for index, (layer_samples, samples) in enumerate(run.prepared):
             field, start = layer_samples.field, index * share
@@ -202,12 +200,9 @@ class PredictManyAlgorithm(SurfaceAlgorithm):
                                    progress_callback(feedback, start + FIT_SHARE * share, start + share))
                 document.save(run.model_path(field))
             except Cancelled as exc:
-                kept = f"the files of {', '.join(finished)} are complete and stay in {run.folder}" if finished else \
-                    "no file was written"
-                raise QgsProcessingException(self.tr(f"Cancelled at field {field}: none of its files was written; "
-                                                     f"{kept}.")) from exc
-            finished.append(field)
-            feedback.pushInfo(f"Wrote {run.written(field)}.")
+                raise QgsProcessingException(self.tr(f"Cancelled at field {field}: no file was written.")) from exc
+            feedback.pushInfo(f"Finished {run.written(field)}; they are saved with the other fields' files at "
+                              "the end.")
 
     def predict_shared(self, run: FieldsRun, parameters, context, feedback) -> None:
         """One correlation model fitted to all fields jointly; one kriging pass writes every field's rasters."""
@@ -238,7 +233,7 @@ class PredictManyAlgorithm(SurfaceAlgorithm):
             raise QgsProcessingException(self.tr("Cancelled: no file was written.")) from exc
         for document, field in zip(documents, fields):
             document.save(run.model_path(field))
-            feedback.pushInfo(f"Wrote {run.written(field)}.")
+            feedback.pushInfo(f"Finished {run.written(field)}.")
 
 
 def log_document(document, feedback) -> None:

@@ -1,1 +1,1 @@
-"""Inputs and outputs: samples, grids, masks, GeoTIFF writing, model files, atomic writes, CRS helpers."""
+"""Inputs and outputs: samples, grids, masks, GeoTIFF writing, model files, atomic and staged writes, CRS helpers."""

@@ -1,8 +1,9 @@
 """Writing result rasters as tiled, compressed Float32 GeoTIFF files with GDAL.
 
 Files are written under a temporary name in the destination folder and moved into
-place with :func:`os.replace` only when complete, so an error or a cancel leaves no
-file (and an existing file of the same name untouched).
+place only when complete, so an error or a cancel leaves no file (and an existing
+file of the same name untouched). Inside an :class:`.staging.OutputSet` a committed
+file waits for the set's commit, with the run's other outputs.
 
 Layout: Float32, 256 x 256 tiles, DEFLATE compression with the floating-point
 predictor, band-interleaved. Missing cells (NaN or infinite values in the arrays
@@ -19,7 +20,6 @@ from __future__ import annotations
 import contextlib
 import json
 import os
-import uuid
 from collections.abc import Iterator, Mapping, Sequence
 
 import numpy as np
@@ -29,11 +29,14 @@ from ..errors import FieldcastError
 from ..version import __version__
 from .crs import to_wkt2
 from .grid import GridSpec
+from .staging import place, temporary_path
 
 NODATA = -9999.0
 CREATION_OPTIONS = ["TILED=YES", "BLOCKXSIZE=256", "BLOCKYSIZE=256", "COMPRESS=DEFLATE", "PREDICTOR=3",
                     "INTERLEAVE=BAND", "BIGTIFF=IF_SAFER"]
 VERSION_KEY = "fieldcast_version"
+SIDE_SUFFIXES = (".aux.xml",)
+"""GDAL side files that follow a raster into place."""
 
 
 @contextlib.contextmanager
@@ -130,8 +133,7 @@ class GeoTiffWriter:
         check_destination(self.path)
         wkt2 = to_wkt2(crs_wkt)
         tags = metadata_items(metadata)
-        folder, name = os.path.split(self.path)
-        self._temp_path = os.path.join(folder, f".{name}.{uuid.uuid4().hex[:12]}.part")
+        self._temp_path = temporary_path(self.path)
         self._rows_written = np.zeros((n_bands, grid.n_rows), dtype=bool)
         self._dataset = None
         try:
@@ -190,7 +192,8 @@ class GeoTiffWriter:
         self._rows_written[band_index, row_start:row_stop] = True
 
     def commit(self) -> str:
-        """Close the file and move it to :attr:`path`; returns the path.
+        """Close the file and move it to :attr:`path` (or register it with the current
+        :class:`.staging.OutputSet`, which moves it on its commit); returns the path.
 
         Raises
         ------
@@ -210,28 +213,16 @@ class GeoTiffWriter:
             with gdal_errors(f"finish {self._temp_path}"):
                 self._dataset.FlushCache()
                 self._dataset = None  # closing the dataset writes the remaining tiles and header
-            self._move_into_place()
+            place(self._temp_path, self.path, SIDE_SUFFIXES)
         except BaseException:
             self.abort()
             raise
         return self.path
 
-    def _move_into_place(self) -> None:
-        """Replace :attr:`path` (and its ``.aux.xml`` side file) by the finished temporary file."""
-        try:
-            if os.path.exists(self._temp_path + ".aux.xml"):
-                os.replace(self._temp_path + ".aux.xml", self.path + ".aux.xml")
-            elif os.path.exists(self.path + ".aux.xml"):
-                os.remove(self.path + ".aux.xml")  # stale side file of the raster being replaced
-            os.replace(self._temp_path, self.path)
-        except OSError as exc:
-            raise FieldcastError(f"Could not save {self.path}: {exc}. Close the file if another program has "
-                                 "it open, or choose another output name.") from exc
-
     def abort(self) -> None:
         """Close and delete the temporary file; the destination is left untouched. Safe to repeat."""
         self._dataset = None
-        for leftover in (self._temp_path, self._temp_path + ".aux.xml"):
+        for leftover in (self._temp_path, *(self._temp_path + suffix for suffix in SIDE_SUFFIXES)):
             with contextlib.suppress(FileNotFoundError):
                 os.remove(leftover)
 

@@ -18,6 +18,7 @@ import numpy as np
 from ..errors import Cancelled
 from ..io.geotiff import GeoTiffWriter
 from ..io.grid import GridSpec
+from ..io.staging import staged_together
 from ..model.transform import Transform
 from .block import DEFAULT_POINTS_PER_SIDE, block_predict
 from .exceedance import exceedance_probability
@@ -150,6 +151,9 @@ def write_surfaces(predict: CellPredictor, grid: GridSpec, inside: np.ndarray | 
     cells the predictor leaves NaN (a local neighbourhood with too few samples in range) and values
     that do not fit Float32 are stored as nodata; the count returned is of the NaN cells inside the mask.
 
+    Every field's files appear together at the end (or, inside an :class:`..io.staging.OutputSet`, with
+    the set's commit).
+
     Raises
     ------
     Cancelled
@@ -157,7 +161,7 @@ def write_surfaces(predict: CellPredictor, grid: GridSpec, inside: np.ndarray | 
     """
     step = block_rows(grid, len(fields))
     unresolved = 0
-    with contextlib.ExitStack() as stack:
+    with staged_together(), contextlib.ExitStack() as stack:
         writers = []
         for output in fields:
             descriptions = scale.descriptions(output.field)
