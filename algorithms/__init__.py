@@ -48,6 +48,7 @@ _PUBLIC = {
     "FitOptions": "fit.options",
     "FitResult": "fit.options",
     "fit_model": "fit.fitting",
+    "fit_with": "fit.fitting",
     "fit_shared": "fit.shared",
     "fit_vecchia": "fit.vecchia_fit",
     "log_likelihood": "fit.likelihood",

@@ -13,8 +13,8 @@ from ..algorithms import (
     ModelDocument,
     Transform,
     WorkingCrs,
-    fit_model,
     fit_shared,
+    fit_with,
     parse_crs,
     same_crs,
 )
@@ -28,6 +28,12 @@ class FitSettings:
     anisotropy: bool = True
     trend: str = "constant"
     method: str = "reml"
+
+    def options(self, progress: Callable[[float], None] | None = None,
+                should_stop: Callable[[], bool] | None = None) -> FitOptions:
+        """The engine's settings object for these choices (the one place the dialog's words become it)."""
+        return FitOptions(kernel=self.kernel, anisotropy=self.anisotropy, mean=self.trend, method=self.method,
+                          progress=progress, should_stop=should_stop)
 
     def describe(self) -> str:
         """The settings in words, for the log."""
@@ -43,8 +49,7 @@ def fit_document(xy: np.ndarray, values: np.ndarray, transform: Transform, worki
     ``xy`` is in the working CRS and ``values`` in the modelling scale (after ``transform``).
     Returns the document and the engine's fit result (candidates and all), which the fit report reads.
     """
-    result = fit_model(xy, values, kernel=settings.kernel, anisotropy=settings.anisotropy, mean=settings.trend,
-                       method=settings.method, progress=progress, should_stop=should_stop)
+    result = fit_with(xy, values, settings.options(progress, should_stop))
     return result_document(result, transform, working, field), result
 
 
@@ -61,9 +66,7 @@ def fit_shared_documents(xy: np.ndarray, values: np.ndarray, transform: Transfor
 
     See :mod:`..algorithms.fit.shared`: every document holds the shared model at its field's scale.
     """
-    options = FitOptions(kernel=settings.kernel, anisotropy=settings.anisotropy, mean=settings.trend,
-                         method=settings.method, progress=progress, should_stop=should_stop)
-    results = fit_shared(xy, values, options, fields)
+    results = fit_shared(xy, values, settings.options(progress, should_stop), fields)
     return [result_document(result, transform, working, field) for result, field in zip(results, fields)]
 
 

@@ -101,9 +101,17 @@ def fit_model(
     FitResult
         Ranges in CRS units, variances in value units squared.
     """
-    options = FitOptions(kernel, anisotropy, mean, method, covariates, nested, smoothness, known_mean, progress,
-                         should_stop, max_iterations)
-    if method != "wls" and len(values) > VECCHIA_THRESHOLD:
+    return fit_with(xy, values, FitOptions(kernel, anisotropy, mean, method, covariates, nested, smoothness,
+                                           known_mean, progress, should_stop, max_iterations))
+
+
+def fit_with(xy: np.ndarray, values: np.ndarray, options: FitOptions) -> FitResult:
+    """:func:`fit_model` with its settings in one :class:`.options.FitOptions` object.
+
+    Data above :data:`VECCHIA_THRESHOLD` samples go to the Vecchia fit (except for WLS); smaller ones to the
+    exact fit, on one BLAS thread up to :data:`SINGLE_THREAD_LIMIT` samples.
+    """
+    if options.method != "wls" and len(values) > VECCHIA_THRESHOLD:
         return fit_vecchia(xy, values, options)
     with single_blas_thread(len(values) <= SINGLE_THREAD_LIMIT):
         return fit_exact(xy, values, options)

@@ -31,7 +31,7 @@ relative to that unit), with coordinates in the fitter's internal units
 (:class:`.fit_search.SearchProblem`) and each field divided by the root mean
 square of its residual from the least-squares mean.
 
-Start. :func:`.fitting.fit_model` fits the average of the standardised fields
+Start. :func:`.fitting.fit_with` fits the average of the standardised fields
 (each field minus any known mean, divided by its residual root mean square);
 under the model that average has covariance proportional to ``R`` too, so it
 chooses the family (``kernel="auto"``), the anisotropy and the start of ``R``.
@@ -43,7 +43,6 @@ from __future__ import annotations
 
 import math
 from collections.abc import Callable
-from dataclasses import fields as dataclass_fields
 from dataclasses import replace
 
 import numpy as np
@@ -54,7 +53,7 @@ from ..model.covariance import CovarianceModel
 from ..model.mean import MeanModel
 from ..model.parameters import DataScales, ParameterLayout, covariance_derivatives, parameter_bounds
 from .bound_warnings import bound_warnings
-from .fitting import VECCHIA_THRESHOLD, fit_model
+from .fitting import VECCHIA_THRESHOLD, fit_with
 from .likelihood import LOG_2PI, GlsSolution, LikelihoodTerms, MeanBasis, PairedObjective, evaluate_model
 from .minimiser import convergence_warning, minimise
 from .options import CandidateFit, FitOptions, FitResult, information_criteria, mean_model_for, with_jitter_in_nugget
@@ -131,7 +130,7 @@ def fit_shared(xy: np.ndarray, values: np.ndarray, options: FitOptions,
     column_scales = _column_scales(values, MeanBasis.from_design(design), names)
     standardised = values / column_scales
     average = standardised.mean(axis=1)
-    start = fit_model(xy, average, **_fit_arguments(options, _part(options.progress, 0.0, START_SHARE)))
+    start = fit_with(xy, average, replace(options, progress=_part(options.progress, 0.0, START_SHARE)))
     layout = _start_layout(start, options)
     problem = SearchProblem.standardise(xy, average, design, options.method, options.should_stop)
     objective = JointObjective(problem.xy, standardised, problem.basis, options.method, layout, options.should_stop)
@@ -193,11 +192,6 @@ def _start_layout(start: FitResult, options: FitOptions) -> ParameterLayout:
     chosen = min(start.candidates, key=lambda candidate: candidate.aic)
     return ParameterLayout(chosen.family, len(start.covariance.structures), chosen.anisotropy,
                            options.smoothness if chosen.family == "matern" else None)
-
-
-def _fit_arguments(options: FitOptions, progress: Callable[[float], None] | None) -> dict:
-    """Keyword arguments of :func:`.fitting.fit_model` for ``options``, with another progress callback."""
-    return {**{field.name: getattr(options, field.name) for field in dataclass_fields(options)}, "progress": progress}
 
 
 def _part(progress: Callable[[float], None] | None, low: float, high: float) -> Callable[[float], None] | None:
