@@ -32,7 +32,7 @@ def broken_fit(*args, **kwargs):
 
 def test_an_unexpected_engine_failure_is_reported_without_leaving_files(qgis_processing, meuse,  # noqa: F811
                                                                          monkeypatch, tmp_path):
-    monkeypatch.setattr(importlib.import_module(f"{PACKAGE_NAME}.plugin.model_source"), "fit_model", broken_fit)
+    monkeypatch.setattr(importlib.import_module(f"{PACKAGE_NAME}.plugin.model_source"), "fit_with", broken_fit)
     feedback = LoggingFeedback()
     with pytest.raises(QgsProcessingException) as error:
         qgis_processing.run("fieldcast:fitmodel", {
