@@ -7,6 +7,7 @@ import numpy as np
 import pytest
 from osgeo import gdal
 
+from fault_injection import fail_on_call, names
 from fieldcast.algorithms import OutputSet
 from fieldcast.algorithms.errors import FieldcastError
 from fieldcast.algorithms.io import staging
@@ -22,22 +23,6 @@ GRID = GridSpec(x_min=178440.0, y_max=333760.0, pixel_size=10.0, n_cols=30, n_ro
 BAND = np.arange(GRID.n_rows * GRID.n_cols, dtype=float).reshape(GRID.n_rows, GRID.n_cols)
 
 
-def names(folder) -> list[str]:
-    return sorted(path.name for path in folder.iterdir())
-
-
-def fail_on_call(monkeypatch, owner, attribute: str, failing_call: int) -> None:
-    """Make ``owner.attribute`` raise FieldcastError on its ``failing_call``-th call (from 1), as a full disk would."""
-    original = getattr(owner, attribute)
-    calls = []
-
-    def wrapper(*args, **kwargs):
-        calls.append(None)
-        if len(calls) == failing_call:
-            raise FieldcastError("No space left on device.")
-        return original(*args, **kwargs)
-
-    monkeypatch.setattr(owner, attribute, wrapper)
 
 
 def test_temporary_name_sits_beside_the_destination(tmp_path):

@@ -10,7 +10,7 @@ from __future__ import annotations
 import pytest
 from qgis.core import QgsProcessingException
 
-from fieldcast.algorithms.errors import FieldcastError
+from fault_injection import DISK_FULL, fail_on_call, names
 from fieldcast.algorithms.io import staging
 from fieldcast.algorithms.io.geotiff import GeoTiffWriter
 from fieldcast.plugin import cross_validate, predict_many, simulate
@@ -23,27 +23,6 @@ from test_plugin_decision_maps import (  # noqa: F401 - zinc_model is a fixture
     zinc_model,
 )
 from test_plugin_predictmany import GRID
-
-DISK_FULL = "No space left on device"
-
-
-def names(folder) -> list[str]:
-    """The files in ``folder``, hidden temporaries included."""
-    return sorted(path.name for path in folder.iterdir())
-
-
-def fail_on_call(monkeypatch, owner, attribute: str, failing_call: int) -> None:
-    """Make ``owner.attribute`` raise FieldcastError on its ``failing_call``-th call (from 1)."""
-    original = getattr(owner, attribute)
-    calls = []
-
-    def wrapper(*args, **kwargs):
-        calls.append(None)
-        if len(calls) == failing_call:
-            raise FieldcastError(f"{DISK_FULL}.")
-        return original(*args, **kwargs)
-
-    monkeypatch.setattr(owner, attribute, wrapper)
 
 
 def predict_parameters(meuse, meuse_grid, model: str, folder) -> dict:
