@@ -149,13 +149,19 @@ def test_a_search_radius_below_the_spacing_leaves_counted_nodata(qgis_processing
     assert f"{empty:,} cell(s) are nodata" in feedback.textLog()
 
 
+def gaussian_model_file(zinc, range_m: float, name: str) -> tuple[ModelDocument, str]:
+    """The fitted zinc model turned into a Gaussian correlation without nugget at ``range_m``, saved as ``name``."""
+    document = ModelDocument.load(zinc[1])
+    document.covariance = CovarianceModel((Structure("gaussian", document.covariance.sill, range_m),), 0.0)
+    path = str(zinc[2] / name)
+    document.save(path)
+    return document, path
+
+
 def test_singular_neighbour_systems_leave_counted_nodata_with_advice(qgis_processing, zinc, meuse):  # noqa: F811
     # A Gaussian correlation without nugget and a 1,000 m range makes most 64-sample neighbour matrices numerically
     # singular (tests/predict/test_factorisation_policy.py): those cells become nodata, the run goes on.
-    document = ModelDocument.load(zinc[1])
-    document.covariance = CovarianceModel((Structure("gaussian", document.covariance.sill, 1000.0),), 0.0)
-    path = str(zinc[2] / "gaussian.json")
-    document.save(path)
+    document, path = gaussian_model_file(zinc, 1000.0, "gaussian.json")
     feedback = QgsProcessingFeedback()
     prediction, variance, centres = predict(qgis_processing, (zinc[0], path, zinc[2]), "gaussian", feedback,
                                             NEIGHBOURS=64)
@@ -172,10 +178,7 @@ def test_singular_neighbour_systems_leave_counted_nodata_with_advice(qgis_proces
 
 def test_global_kriging_logs_an_ill_conditioned_sample_matrix(qgis_processing, zinc, meuse):  # noqa: F811
     # Gaussian without nugget at 600 m: usable but past the warning level (tests/predict/test_factorisation_policy.py).
-    document = ModelDocument.load(zinc[1])
-    document.covariance = CovarianceModel((Structure("gaussian", document.covariance.sill, 600.0),), 0.0)
-    path = str(zinc[2] / "gaussian600.json")
-    document.save(path)
+    document, path = gaussian_model_file(zinc, 600.0, "gaussian600.json")
     feedback = QgsProcessingFeedback()
     predict(qgis_processing, (zinc[0], path, zinc[2]), "gaussian600", feedback, NEIGHBOURS=0)
     expected = KrigingPredictor(meuse.xy, np.log(meuse.zinc), document.covariance, document.mean).warnings
