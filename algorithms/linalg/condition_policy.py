@@ -18,10 +18,11 @@ Rule, in terms of the reciprocal condition estimate ``rcond``:
   predictions far outside the data; the system is used with a warning.
 * otherwise the system is accepted silently.
 
-Estimates. Every matrix gets the 1-norm estimate of LAPACK ``dpocon`` from
-its factor (:func:`reciprocal_condition`; :func:`stack_reciprocal_condition`
-for stacks, one call per matrix, about 12 microseconds for k = 40 on the test
-machine). The cheaper ``(min_i L_ii / max_i L_ii)^2`` is not used: each
+Estimates. Every matrix gets a 1-norm estimate from its factor: LAPACK
+``dpocon`` for one matrix (:func:`reciprocal_condition`), and the same
+estimator run on a whole stack at once with the stack's triangular solves
+(:func:`stack_reciprocal_condition`), which keeps it off the per-system
+Python path of local kriging. The cheaper ``(min_i L_ii / max_i L_ii)^2`` is not used: each
 ``L_ii^2`` lies between the extreme eigenvalues of ``K``, so it only bounds
 ``rcond`` from above, and on the Meuse samples with a Gaussian model it was
 up to a thousand times too optimistic.
@@ -37,6 +38,8 @@ from __future__ import annotations
 import numpy as np
 from scipy.linalg import lapack
 
+from .batched import back_substitution, forward_substitution
+
 UNIT_ROUNDOFF = float(np.finfo(float).eps)
 """Relative spacing of double-precision numbers."""
 
@@ -49,6 +52,11 @@ WARN_RECIPROCAL = UNIT_ROUNDOFF / WARN_RELATIVE_ERROR
 CONDITION_ADVICE = ("Refit with a less smooth family such as exponential or Matérn 3/2 (KERNEL in Fit covariance "
                     "model), give the model a nugget (the model file's \"nugget\"), or merge near-duplicate samples.")
 """What the user can change to get a better conditioned system."""
+
+
+ESTIMATE_STEPS = 5
+"""Most climbing steps of the stacked 1-norm estimate (LAPACK's estimator also stops at five).
+"""
 
 
 def refuse_level(size: int) -> float:
@@ -67,9 +75,38 @@ def reciprocal_condition(matrix: np.ndarray, factor: np.ndarray) -> float:
 
 
 def stack_reciprocal_condition(matrices: np.ndarray, factors: np.ndarray, positive: np.ndarray) -> np.ndarray:
-    """:func:`reciprocal_condition` of each matrix of a stack (b, k, k) from its factor; 0 where not ``positive``."""
-    return np.array([reciprocal_condition(matrix, factor) if ok else 0.0
-                     for matrix, factor, ok in zip(matrices, factors, positive)])
+    """1-norm reciprocal condition estimates of a stack (b, k, k) from its lower factors; 0 where not ``positive``.
+
+    The same estimator as LAPACK ``dpocon`` (Hager 1984, *SIAM J. Sci. Stat. Comput.* 5, 311-316; Higham 2002,
+    section 15.3): ``||K^-1||_1`` is the largest ``||K^-1 x||_1`` over the unit 1-norm ball, climbed from
+    ``x = 1/k`` by steps to the vertex ``e_j`` where ``|K^-1 sign(K^-1 x)|`` is largest, at most
+    :data:`ESTIMATE_STEPS` steps. It never exceeds the true norm, so the reciprocal condition is never
+    underestimated, and it is run on the whole stack at once with the stack's triangular solves.
+    """
+    count, size = matrices.shape[:2]
+    estimate = np.zeros(count)
+    if count == 0 or size == 0:
+        return estimate
+    safe = np.where(positive[:, None, None], factors, np.eye(size))
+    x = np.full((count, size), 1.0 / size)
+    inverse_norm = np.zeros(count)
+    active = np.arange(count)  # systems still climbing; the others keep their estimate
+    for _ in range(ESTIMATE_STEPS):
+        factor = safe[active]
+        y = back_substitution(factor, forward_substitution(factor, x[active, :, None]))[:, :, 0]
+        inverse_norm[active] = np.maximum(inverse_norm[active], np.abs(y).sum(axis=1))
+        signs = np.where(y >= 0.0, 1.0, -1.0)[:, :, None]
+        z = back_substitution(factor, forward_substitution(factor, signs))[:, :, 0]
+        best = np.argmax(np.abs(z), axis=1)
+        climbing = np.abs(z[np.arange(len(active)), best]) > np.einsum("bi,bi->b", z, x[active])
+        active, best = active[climbing], best[climbing]
+        if not len(active):
+            break
+        x[active] = np.eye(size)[best]
+    norm = np.abs(matrices).sum(axis=1).max(axis=1)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        estimate = 1.0 / (norm * inverse_norm)
+    return np.where(positive & np.isfinite(estimate), estimate, 0.0)
 
 
 def usable(estimate: np.ndarray | float, size: int) -> np.ndarray | bool:
