@@ -5,14 +5,25 @@ imported and the reports then show their tables with a note instead of the
 plots. Figures are built with ``plotly.graph_objects`` (which checks every
 attribute) and handed to the page as JSON specs; the page draws them with
 ``Plotly.newPlot`` into divs whose ids are fixed by the report, never random.
+
+The page embeds plotly.js's minified basic bundle (scatter, bar and pie traces),
+shipped in ``vendor/`` with its licence (see ``vendor/README.md``), instead of the
+full unminified plotly.js of the Python package: a report stays one offline file
+of about 1 MB. Every trace the reports draw must be one of :data:`BUNDLED_TRACES`.
 """
 from __future__ import annotations
 
 from dataclasses import dataclass
+from pathlib import Path
 from types import SimpleNamespace
 from typing import Any
 
 from .page import script_json
+
+PLOTLY_BUNDLE = Path(__file__).resolve().parent / "vendor" / "plotly-basic.min.js"
+"""plotly.js basic bundle, minified (npm package plotly.js-basic-dist-min, MIT licence)."""
+BUNDLED_TRACES = frozenset({"scatter", "bar", "pie"})
+"""Trace types the basic bundle draws (its README); the reports use no other."""
 
 INK = "#22313f"
 TEAL = "#17706e"
@@ -49,10 +60,14 @@ def load_plotly() -> SimpleNamespace | None:
     """
     try:
         from plotly import graph_objects, subplots
-        from plotly.offline import get_plotlyjs
     except ImportError:
         return None
-    return SimpleNamespace(go=graph_objects, subplots=subplots, javascript=get_plotlyjs)
+    return SimpleNamespace(go=graph_objects, subplots=subplots, javascript=bundled_javascript)
+
+
+def bundled_javascript() -> str:
+    """The text of the vendored plotly.js basic bundle, embedded once per page."""
+    return PLOTLY_BUNDLE.read_text(encoding="utf-8")
 
 
 @dataclass(frozen=True)

@@ -39,6 +39,8 @@ def test_zip_holds_one_plugin_folder_without_development_files(built_zip):
     assert {"__init__.py", "metadata.txt", "LICENSE", "plugin", "algorithms", "icons"} <= top_level
     assert not top_level & LEFT_OUT
     assert not any("__pycache__" in name or name.endswith(".pyc") for name in names)
+    vendored = {"plotly-basic.min.js", "LICENSE-plotly.js", "README.md"}  # the reports' plotly.js and its licence
+    assert {f"fieldcast/plugin/report/vendor/{name}" for name in vendored} <= set(names)
 
 
 @skip_unless_available(QGIS_PROCESS is not None, "qgis_process.bin is not installed")

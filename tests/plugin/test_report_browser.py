@@ -103,6 +103,13 @@ def static_network_references(html: str) -> list[str]:
     return [match.group(0) for match in re.finditer(pattern, markup, re.I)]
 
 
+def plot_divs(dom: str) -> dict[str, str]:
+    """Per plot div id of the rendered page, the markup from that div up to the next plot div (or the end)."""
+    starts = [(match.start(), match.group(1)) for match in re.finditer(r'<div[^>]*\bid="(fc-plot-[\w-]+)"', dom)]
+    ends = [start for start, _ in starts[1:]] + [len(dom)]
+    return {div_id: dom[start:end] for (start, div_id), end in zip(starts, ends)}
+
+
 @pytest.fixture(scope="module")
 def reports(meuse, tmp_path_factory) -> dict[str, Path]:
     """Fit and leave-one-out reports of log zinc on the Meuse samples."""
@@ -140,6 +147,8 @@ def test_report_draws_its_plots_offline(reports, tmp_path, name, plots, height):
     assert requests == []
     assert f'data-plots-drawn="{plots}"' in dom
     assert dom.count("js-plotly-plot") >= plots
+    assert len(plot_divs(dom)) == plots
+    assert all('class="main-svg"' in inside for inside in plot_divs(dom).values())  # each div holds its SVG
     image = screenshot(page, tmp_path, height)
     assert image.stat().st_size > 50_000
     # Amber is used only for plotted data (semivariogram points, residual bars), never by the page itself.
