@@ -17,6 +17,7 @@ from qgis.core import (
 from ..algorithms import Cancelled, FieldcastError, MeanModel, Neighbourhood, SurfaceScale, Transform
 from .algorithm_base import progress_callback
 from .help_text import BACKTRANSFORM_HELP, FIT_HELP, GRID_HELP, NEIGHBOURHOOD_HELP, TARGET_CRS_HELP, compose_help
+from .layer_style import load_styled
 from .model_source import FitSettings, describe_document, fit_document, fit_shared_documents
 from .sample_reader import prepare_samples, read_layer_samples
 from .surface_algorithm import SurfaceAlgorithm
@@ -171,6 +172,9 @@ class PredictManyAlgorithm(SurfaceAlgorithm):
             self.predict_shared(run, parameters, context, feedback)
         else:
             self.predict_each(run, parameters, context, feedback)
+        for field in fields:
+            for quantity, path in run.raster_paths(field).items():
+                load_styled(context, path, field, quantity)
         feedback.setProgress(100.0)
         return {self.OUTPUT_FOLDER: folder, self.COUNT: len(fields)}
 

@@ -14,6 +14,7 @@ from .help_text import (
     THRESHOLD_HELP,
     compose_help,
 )
+from .layer_style import style_on_load
 from .surface_algorithm import SurfaceAlgorithm
 
 
@@ -87,6 +88,8 @@ class PredictSurfaceAlgorithm(SurfaceAlgorithm):
         self.krige_surface([document], samples.xy, samples.values, grid, inside, scale,
                            self.neighbourhood(parameters, context), [(samples.field, paths)], feedback,
                            progress_callback(feedback, 30, 100))
+        for quantity, path in paths.items():
+            style_on_load(context, path, samples.field, quantity, threshold)
         outputs = {self.OUTPUT: paths["prediction"], self.OUTPUT_VARIANCE: paths["variance"],
                    self.OUTPUT_EXCEEDANCE: paths["exceedance"]}
         return {name: path for name, path in outputs.items() if path}

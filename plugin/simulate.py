@@ -31,6 +31,7 @@ from ..algorithms import (
 from .algorithm_base import add_feature, progress_callback, push_log
 from .field_types import field_type
 from .help_text import GRID_HELP, MODEL_FILE_HELP, TARGET_CRS_HELP, THRESHOLD_HELP, compose_help
+from .layer_style import style_on_load
 from .raster_algorithm import RasterAlgorithm
 
 SUMMARY_RASTERS = (
@@ -177,6 +178,10 @@ class SimulateAlgorithm(RasterAlgorithm):
                     "fieldcast_realisations": count, "fieldcast_simulation": result.method}
         self.write_rasters(result, summary, inside, paths, threshold, samples.field, document.crs_wkt, metadata)
         outputs = {name: path for name, path in paths.items() if path}
+        looks = {self.OUTPUT: "realisations", self.OUTPUT_EXCEEDANCE: "share_above",
+                 **{name: attribute for name, _, attribute in SUMMARY_RASTERS}}
+        for name, path in outputs.items():
+            style_on_load(context, path, samples.field, looks[name], threshold)
         if wants_table:
             outputs[self.OUTPUT_TABLE] = self.write_table(parameters, context, summary)
         if summary is not None and summary.area_above is not None:
