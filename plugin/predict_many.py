@@ -82,7 +82,8 @@ class PredictManyAlgorithm(SurfaceAlgorithm):
           "names are made safe for file names: characters other than letters, digits, '-' and '.' become '_'. "
           "Every field's samples are checked before any file is written. Fields are done one after another, and "
           "all fields' files appear together when the last field is complete: cancelling, or a failure at any "
-          "field, leaves none."),
+          "field, leaves none. Run from the dialog, each field's prediction and variance rasters are then "
+          "added to the project, named by field and quantity and coloured."),
          ("Count", "Number of fields predicted.")],
     )
 
