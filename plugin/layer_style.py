@@ -49,7 +49,8 @@ class Look:
     Attributes
     ----------
     words : str
-        The quantity in the layer name; ``{threshold}`` is replaced by the threshold.
+        The quantity in the layer name, a format string: ``{threshold:g}`` takes the ``threshold`` passed to
+        :func:`style_on_load`, and so on for any other number named there.
     stops : Stops
         Colour ramp: ``(position in 0–1, "#rrggbb")`` pairs, first at 0 and last at 1.
     fixed_range : tuple of float, optional
@@ -65,13 +66,13 @@ LOOKS: dict[str, Look] = {
     "prediction": Look("prediction", VALUE_RAMP),
     "variance": Look("variance", SPREAD_RAMP),
     "sd": Look("standard error", SPREAD_RAMP),
-    "exceedance": Look("probability above {threshold}", PROBABILITY_RAMP, (0.0, 1.0)),
+    "exceedance": Look("probability above {threshold:g}", PROBABILITY_RAMP, (0.0, 1.0)),
     "realisations": Look("realisations", VALUE_RAMP),
     "mean": Look("mean of realisations", VALUE_RAMP),
     "std": Look("standard deviation of realisations", SPREAD_RAMP),
     "p10": Look("10th percentile of realisations", VALUE_RAMP),
     "p90": Look("90th percentile of realisations", VALUE_RAMP),
-    "share_above": Look("share of realisations above {threshold}", PROBABILITY_RAMP, (0.0, 1.0)),
+    "share_above": Look("share of realisations above {threshold:g}", PROBABILITY_RAMP, (0.0, 1.0)),
 }
 """The look of each quantity an algorithm writes, by the key passed to :func:`style_on_load`."""
 
@@ -80,10 +81,10 @@ _WAITING: list[OutputStyler] = []
 here until they have run; without this Python would collect them before the layer loads."""
 
 
-def layer_name(field: str, quantity: str, threshold: float | None = None) -> str:
-    """The layer name of a raster: ``"zinc — probability above 150"``."""
-    words = LOOKS[quantity].words.format(threshold=f"{threshold:g}" if threshold is not None else "")
-    return f"{field} \u2014 {words}"
+def layer_name(field: str, quantity: str, **numbers: float | None) -> str:
+    """The layer name of a raster: ``layer_name("zinc", "exceedance", threshold=150)`` is
+    ``"zinc — probability above 150"``; ``numbers`` the look's words do not use are ignored."""
+    return f"{field} \u2014 {LOOKS[quantity].words.format(**numbers)}"
 
 
 def colour_ramp(stops: Stops) -> QgsGradientColorRamp:
@@ -143,14 +144,15 @@ class OutputStyler(QgsProcessingLayerPostProcessorInterface):
 
 
 def style_on_load(context: QgsProcessingContext, destination: str, field: str, quantity: str,
-                  threshold: float | None = None) -> None:
+                  **numbers: float | None) -> None:
     """Name and colour the raster ``destination`` by ``quantity`` (a key of :data:`LOOKS`) when it is loaded.
 
-    Does nothing when Processing will not load it (no destination, or loading not asked for).
+    ``numbers`` fill the look's words (``threshold=500``). Does nothing when Processing will not load the
+    raster (no destination, or loading not asked for).
     """
     if not destination or not context.willLoadLayerOnCompletion(destination):
         return
-    styler = OutputStyler(layer_name(field, quantity, threshold), LOOKS[quantity])
+    styler = OutputStyler(layer_name(field, quantity, **numbers), LOOKS[quantity])
     _WAITING.append(styler)
     context.layerToLoadOnCompletionDetails(destination).setPostProcessor(styler)
 

@@ -89,7 +89,7 @@ class PredictSurfaceAlgorithm(SurfaceAlgorithm):
                            self.neighbourhood(parameters, context), [(samples.field, paths)], feedback,
                            progress_callback(feedback, 30, 100))
         for quantity, path in paths.items():
-            style_on_load(context, path, samples.field, quantity, threshold)
+            style_on_load(context, path, samples.field, quantity, threshold=threshold)
         outputs = {self.OUTPUT: paths["prediction"], self.OUTPUT_VARIANCE: paths["variance"],
                    self.OUTPUT_EXCEEDANCE: paths["exceedance"]}
         return {name: path for name, path in outputs.items() if path}

@@ -181,7 +181,7 @@ class SimulateAlgorithm(RasterAlgorithm):
         looks = {self.OUTPUT: "realisations", self.OUTPUT_EXCEEDANCE: "share_above",
                  **{name: attribute for name, _, attribute in SUMMARY_RASTERS}}
         for name, path in outputs.items():
-            style_on_load(context, path, samples.field, looks[name], threshold)
+            style_on_load(context, path, samples.field, looks[name], threshold=threshold)
         if wants_table:
             outputs[self.OUTPUT_TABLE] = self.write_table(parameters, context, summary)
         if summary is not None and summary.area_above is not None:

@@ -148,6 +148,14 @@ def test_predictmany_loads_each_fields_rasters_styled(qgis_processing, samples, 
     assert_stretched(layers["zinc \u2014 variance"], str(tmp_path / "zinc_variance.tif"))
 
 
+def test_predictmany_without_a_project_loads_nothing(qgis_processing, samples, tmp_path):  # noqa: F811 - fixture
+    context = QgsProcessingContext()  # no project, as for a run outside any project
+    qgis_processing.run("fieldcast:predictmany", {"INPUT": samples, "FIELDS": ["zinc"], **GRID,
+                                                  "OUTPUT_FOLDER": str(tmp_path)}, context=context)
+    assert (tmp_path / "zinc_prediction.tif").exists()
+    assert context.layersToLoadOnCompletion() == {} and layer_style._WAITING == []
+
+
 def test_without_loading_no_post_processor_is_kept(qgis_processing, samples, project, tmp_path):  # noqa: F811 - fixture
     qgis_processing.run("fieldcast:predict", {"INPUT": samples, "FIELD": "zinc", **GRID,
                                               "OUTPUT": str(tmp_path / "prediction.tif")})
