@@ -83,6 +83,12 @@ def add_feature(sink, feature, number: int, destination: str) -> None:
                          "Check the disk space and that the file is writable.")
 
 
+def advanced(definition: QgsProcessingParameterDefinition) -> QgsProcessingParameterDefinition:
+    """``definition`` flagged advanced: the dialog shows it under "Advanced Parameters", folded away."""
+    definition.setFlags(definition.flags() | QgsProcessingParameterDefinition.FlagAdvanced)
+    return definition
+
+
 def progress_callback(feedback, start: float = 0.0, stop: float = 100.0) -> Callable[[float], None]:
     """A ``progress(fraction)`` for the engine that moves the Processing bar from ``start`` to ``stop`` percent."""
     return lambda fraction: feedback.setProgress(start + (stop - start) * min(max(fraction, 0.0), 1.0))
@@ -162,9 +168,9 @@ class FieldcastAlgorithm(QgsProcessingAlgorithm):
             extension="json", optional=True))
 
     def add_target_crs_parameter(self) -> None:
-        """TARGET_CRS: optional projected CRS to work in."""
-        self.addParameter(QgsProcessingParameterCrs(
-            self.TARGET_CRS, self.tr("Target CRS (projected; empty = automatic)"), optional=True))
+        """TARGET_CRS (advanced): optional projected CRS to work in."""
+        self.addParameter(advanced(QgsProcessingParameterCrs(
+            self.TARGET_CRS, self.tr("Target CRS (projected; empty = automatic)"), optional=True)))
 
     def add_report_parameter(self, description: str) -> None:
         """OUTPUT_REPORT: optional HTML report; the dialog writes it to a temporary file unless skipped."""
@@ -174,10 +180,9 @@ class FieldcastAlgorithm(QgsProcessingAlgorithm):
     def add_fit_parameters(self) -> None:
         """TRANSFORM, LOG_OFFSET (advanced), KERNEL, ANISOTROPY, TREND and METHOD: the choices of a fit."""
         self.add_choice(self.TRANSFORM, self.tr("Transform"), TRANSFORM_KINDS, "none")
-        offset = QgsProcessingParameterNumber(self.LOG_OFFSET, self.tr("Log offset (attribute units)"),
-                                              type=QgsProcessingParameterNumber.Double, defaultValue=0.0)
-        offset.setFlags(offset.flags() | QgsProcessingParameterDefinition.FlagAdvanced)
-        self.addParameter(offset)
+        self.addParameter(advanced(QgsProcessingParameterNumber(
+            self.LOG_OFFSET, self.tr("Log offset (attribute units)"), type=QgsProcessingParameterNumber.Double,
+            defaultValue=0.0)))
         self.add_choice(self.KERNEL, self.tr("Covariance family"), KERNEL_CHOICES, "auto")
         self.addParameter(QgsProcessingParameterBoolean(self.ANISOTROPY, self.tr("Anisotropy"), defaultValue=True))
         self.add_choice(self.TREND, self.tr("Trend"), TREND_CHOICES, "constant")
@@ -194,13 +199,14 @@ class FieldcastAlgorithm(QgsProcessingAlgorithm):
         return transform, settings
 
     def add_neighbourhood_parameters(self, per: str = "cell") -> None:
-        """NEIGHBOURS (0 = all samples) and SEARCH_RADIUS (optional); ``per`` is what each neighbourhood serves."""
-        self.addParameter(QgsProcessingParameterNumber(
+        """NEIGHBOURS (0 = all samples) and SEARCH_RADIUS (optional), both advanced; ``per`` is what each
+        neighbourhood serves."""
+        self.addParameter(advanced(QgsProcessingParameterNumber(
             self.NEIGHBOURS, self.tr(f"Neighbours per {per} (0 = all samples)"),
-            type=QgsProcessingParameterNumber.Integer, defaultValue=0, minValue=0))
-        self.addParameter(QgsProcessingParameterNumber(
+            type=QgsProcessingParameterNumber.Integer, defaultValue=0, minValue=0)))
+        self.addParameter(advanced(QgsProcessingParameterNumber(
             self.SEARCH_RADIUS, self.tr("Search radius (working CRS units; empty = no limit)"),
-            type=QgsProcessingParameterNumber.Double, optional=True, minValue=0.0))
+            type=QgsProcessingParameterNumber.Double, optional=True, minValue=0.0)))
 
     def neighbourhood(self, parameters, context) -> Neighbourhood:
         """The NEIGHBOURS and SEARCH_RADIUS chosen (SEARCH_RADIUS None when empty)."""
@@ -213,10 +219,13 @@ class FieldcastAlgorithm(QgsProcessingAlgorithm):
             return None
         return self.parameterAsDouble(parameters, name, context)
 
-    def add_choice(self, name: str, description: str, options: Sequence[str], default: str) -> None:
-        """An enum parameter whose values are the option words themselves (e.g. ``KERNEL=spherical``)."""
-        self.addParameter(QgsProcessingParameterEnum(
-            name, description, options=list(options), defaultValue=default, usesStaticStrings=True))
+    def add_choice(self, name: str, description: str, options: Sequence[str], default: str,
+                   expert: bool = False) -> None:
+        """An enum parameter whose values are the option words themselves (e.g. ``KERNEL=spherical``);
+        ``expert`` flags it advanced."""
+        definition = QgsProcessingParameterEnum(name, description, options=list(options), defaultValue=default,
+                                                usesStaticStrings=True)
+        self.addParameter(advanced(definition) if expert else definition)
 
     def choice(self, parameters, name: str, context) -> str:
         """The chosen word of an enum parameter made by :meth:`add_choice`."""

@@ -28,7 +28,7 @@ from ..algorithms import (
     simulate_conditional,
     summarise_realisations,
 )
-from .algorithm_base import add_feature, progress_callback, push_log
+from .algorithm_base import add_feature, advanced, progress_callback, push_log
 from .field_types import field_type
 from .help_text import GRID_HELP, MODEL_FILE_HELP, TARGET_CRS_HELP, THRESHOLD_HELP, compose_help
 from .raster_algorithm import RasterAlgorithm
@@ -107,9 +107,9 @@ class SimulateAlgorithm(RasterAlgorithm):
         self.addParameter(QgsProcessingParameterNumber(
             self.REALIZATIONS, self.tr("Number of realisations"), type=QgsProcessingParameterNumber.Integer,
             defaultValue=100, minValue=1))
-        self.addParameter(QgsProcessingParameterNumber(
+        self.addParameter(advanced(QgsProcessingParameterNumber(
             self.SEED, self.tr("Random seed"), type=QgsProcessingParameterNumber.Integer, defaultValue=1,
-            minValue=0))
+            minValue=0)))
         self.add_neighbourhood_parameters(per="cell")
         self.add_threshold_parameter()
         self.add_target_crs_parameter()
