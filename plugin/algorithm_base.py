@@ -55,6 +55,8 @@ from .report.page import ReportError
 from .sample_reader import LayerSamples, ModelSamples, prepare_samples, read_layer_samples
 
 TREND_CHOICES = ("constant", "linear", "quadratic")
+NO_FIELD = ("No value field chosen. Choose the numeric field of the sample layer to model in 'Value field' "
+            "(FIELD).")
 FILE_OUTPUTS = (QgsProcessingParameterFileDestination, QgsProcessingParameterRasterDestination,
                 QgsProcessingParameterFeatureSink, QgsProcessingParameterVectorDestination,
                 QgsProcessingParameterFolderDestination)
@@ -155,10 +157,14 @@ class FieldcastAlgorithm(QgsProcessingAlgorithm):
             self.INPUT, self.tr("Sample points"), [QgsProcessing.TypeVectorPoint]))
 
     def add_sample_parameters(self) -> None:
-        """INPUT (point layer) and FIELD (numeric attribute of INPUT)."""
+        """INPUT (point layer) and FIELD (numeric attribute of INPUT).
+
+        FIELD's default is the empty name, so the dialog leaves it unchosen; without a default it would
+        pick the layer's first numeric field, which in a GeoPackage is the feature id ``fid``.
+        """
         self.add_input_parameter()
         self.addParameter(QgsProcessingParameterField(
-            self.FIELD, self.tr("Value field"), parentLayerParameterName=self.INPUT,
+            self.FIELD, self.tr("Value field"), defaultValue="", parentLayerParameterName=self.INPUT,
             type=QgsProcessingParameterField.Numeric))
 
     def add_model_parameter(self) -> None:
@@ -307,6 +313,13 @@ class FieldcastAlgorithm(QgsProcessingAlgorithm):
     def refuse_overwrites(self, parameters, context) -> None:
         """Refuse, before any work, an output that would overwrite an input file or another output."""
         refuse_clashes(self.output_files(parameters, context), self.input_files(parameters, context))
+
+    def checkParameterValues(self, parameters, context):
+        """Refuse an unchosen FIELD with advice (before Processing's generic message)."""
+        if self.parameterDefinition(self.FIELD) is not None and \
+                not self.parameterAsString(parameters, self.FIELD, context):
+            return False, NO_FIELD
+        return super().checkParameterValues(parameters, context)
 
     def processAlgorithm(self, parameters, context, feedback):
         try:
