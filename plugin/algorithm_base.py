@@ -49,6 +49,7 @@ from ..algorithms import (
     Transform,
 )
 from .destinations import destination_value, layer_file, refuse_clashes
+from .help_text import SHORT_DESCRIPTIONS, help_url, parameter_help, search_words
 from .icons import icon, icon_path
 from .model_source import FitSettings, describe_document, fit_document, load_document
 from .report.page import ReportError
@@ -133,6 +134,21 @@ class FieldcastAlgorithm(QgsProcessingAlgorithm):
 
     def shortHelpString(self) -> str:
         return self.HELP
+
+    def shortDescription(self) -> str:
+        return SHORT_DESCRIPTIONS.get(self.NAME, "")
+
+    def tags(self) -> list[str]:
+        return search_words(self.NAME)
+
+    def helpUrl(self) -> str:
+        return help_url(self.NAME, self.DISPLAY_NAME)
+
+    def addParameter(self, definition, createOutput: bool = True) -> bool:
+        """Add ``definition`` with its help from the algorithm's help text, unless it has its own."""
+        if not definition.help():
+            definition.setHelp(parameter_help(self.HELP, definition.description()))
+        return super().addParameter(definition, createOutput)
 
     def createInstance(self):
         return type(self)()
