@@ -1,4 +1,6 @@
-"""Help text shared by the toolbox algorithms: layout and the cautions every tool repeats."""
+"""Help text shared by the toolbox algorithms: layout, the cautions every tool repeats, and what the toolbox
+finds them by (search words, short descriptions, the README section each help button opens, per-parameter help).
+"""
 from __future__ import annotations
 
 import re
@@ -147,7 +149,6 @@ HELP_ENTRY = re.compile(r"<dt><b>(.*?)</b></dt><dd>(.*?)</dd>", re.DOTALL)
 def help_entries(help_html: str) -> list[tuple[str, str]]:
     """The ``(label, explanation)`` pairs of a help text made by :func:`compose_help`, as plain text."""
     return [(unescape(label), unescape(text)) for label, text in HELP_ENTRY.findall(help_html)]
-
 
 
 def parameter_help(help_html: str, description: str) -> str:
