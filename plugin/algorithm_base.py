@@ -49,12 +49,15 @@ from ..algorithms import (
     Transform,
 )
 from .destinations import destination_value, layer_file, refuse_clashes
+from .help_text import SHORT_DESCRIPTIONS, help_url, parameter_help, search_words
 from .icons import icon, icon_path
 from .model_source import FitSettings, describe_document, fit_document, load_document
 from .report.page import ReportError
 from .sample_reader import LayerSamples, ModelSamples, prepare_samples, read_layer_samples
 
 TREND_CHOICES = ("constant", "linear", "quadratic")
+NO_FIELD = ("No value field chosen. Choose the numeric field of the sample layer to model in 'Value field' "
+            "(FIELD).")
 FILE_OUTPUTS = (QgsProcessingParameterFileDestination, QgsProcessingParameterRasterDestination,
                 QgsProcessingParameterFeatureSink, QgsProcessingParameterVectorDestination,
                 QgsProcessingParameterFolderDestination)
@@ -81,6 +84,12 @@ def add_feature(sink, feature, number: int, destination: str) -> None:
     reason = sink.lastError() if hasattr(sink, "lastError") else ""
     raise FieldcastError(f"Could not write feature {number} to {destination}: {reason or 'no reason given'}. "
                          "Check the disk space and that the file is writable.")
+
+
+def advanced(definition: QgsProcessingParameterDefinition) -> QgsProcessingParameterDefinition:
+    """``definition`` flagged advanced: the dialog shows it under "Advanced Parameters", folded away."""
+    definition.setFlags(definition.flags() | QgsProcessingParameterDefinition.FlagAdvanced)
+    return definition
 
 
 def progress_callback(feedback, start: float = 0.0, stop: float = 100.0) -> Callable[[float], None]:
@@ -126,6 +135,21 @@ class FieldcastAlgorithm(QgsProcessingAlgorithm):
     def shortHelpString(self) -> str:
         return self.HELP
 
+    def shortDescription(self) -> str:
+        return SHORT_DESCRIPTIONS.get(self.NAME, "")
+
+    def tags(self) -> list[str]:
+        return search_words(self.NAME)
+
+    def helpUrl(self) -> str:
+        return help_url(self.NAME, self.DISPLAY_NAME)
+
+    def addParameter(self, definition, createOutput: bool = True) -> bool:
+        """Add ``definition`` with its help from the algorithm's help text, unless it has its own."""
+        if not definition.help():
+            definition.setHelp(parameter_help(self.HELP, definition.description()))
+        return super().addParameter(definition, createOutput)
+
     def createInstance(self):
         return type(self)()
 
@@ -149,10 +173,14 @@ class FieldcastAlgorithm(QgsProcessingAlgorithm):
             self.INPUT, self.tr("Sample points"), [QgsProcessing.TypeVectorPoint]))
 
     def add_sample_parameters(self) -> None:
-        """INPUT (point layer) and FIELD (numeric attribute of INPUT)."""
+        """INPUT (point layer) and FIELD (numeric attribute of INPUT).
+
+        FIELD's default is the empty name, so the dialog leaves it unchosen; without a default it would
+        pick the layer's first numeric field, which in a GeoPackage is the feature id ``fid``.
+        """
         self.add_input_parameter()
         self.addParameter(QgsProcessingParameterField(
-            self.FIELD, self.tr("Value field"), parentLayerParameterName=self.INPUT,
+            self.FIELD, self.tr("Value field"), defaultValue="", parentLayerParameterName=self.INPUT,
             type=QgsProcessingParameterField.Numeric))
 
     def add_model_parameter(self) -> None:
@@ -162,9 +190,9 @@ class FieldcastAlgorithm(QgsProcessingAlgorithm):
             extension="json", optional=True))
 
     def add_target_crs_parameter(self) -> None:
-        """TARGET_CRS: optional projected CRS to work in."""
-        self.addParameter(QgsProcessingParameterCrs(
-            self.TARGET_CRS, self.tr("Target CRS (projected; empty = automatic)"), optional=True))
+        """TARGET_CRS (advanced): optional projected CRS to work in."""
+        self.addParameter(advanced(QgsProcessingParameterCrs(
+            self.TARGET_CRS, self.tr("Target CRS (projected; empty = automatic)"), optional=True)))
 
     def add_report_parameter(self, description: str) -> None:
         """OUTPUT_REPORT: optional HTML report; the dialog writes it to a temporary file unless skipped."""
@@ -174,10 +202,9 @@ class FieldcastAlgorithm(QgsProcessingAlgorithm):
     def add_fit_parameters(self) -> None:
         """TRANSFORM, LOG_OFFSET (advanced), KERNEL, ANISOTROPY, TREND and METHOD: the choices of a fit."""
         self.add_choice(self.TRANSFORM, self.tr("Transform"), TRANSFORM_KINDS, "none")
-        offset = QgsProcessingParameterNumber(self.LOG_OFFSET, self.tr("Log offset (attribute units)"),
-                                              type=QgsProcessingParameterNumber.Double, defaultValue=0.0)
-        offset.setFlags(offset.flags() | QgsProcessingParameterDefinition.FlagAdvanced)
-        self.addParameter(offset)
+        self.addParameter(advanced(QgsProcessingParameterNumber(
+            self.LOG_OFFSET, self.tr("Log offset (attribute units)"), type=QgsProcessingParameterNumber.Double,
+            defaultValue=0.0)))
         self.add_choice(self.KERNEL, self.tr("Covariance family"), KERNEL_CHOICES, "auto")
         self.addParameter(QgsProcessingParameterBoolean(self.ANISOTROPY, self.tr("Anisotropy"), defaultValue=True))
         self.add_choice(self.TREND, self.tr("Trend"), TREND_CHOICES, "constant")
@@ -194,13 +221,14 @@ class FieldcastAlgorithm(QgsProcessingAlgorithm):
         return transform, settings
 
     def add_neighbourhood_parameters(self, per: str = "cell") -> None:
-        """NEIGHBOURS (0 = all samples) and SEARCH_RADIUS (optional); ``per`` is what each neighbourhood serves."""
-        self.addParameter(QgsProcessingParameterNumber(
+        """NEIGHBOURS (0 = all samples) and SEARCH_RADIUS (optional), both advanced; ``per`` is what each
+        neighbourhood serves."""
+        self.addParameter(advanced(QgsProcessingParameterNumber(
             self.NEIGHBOURS, self.tr(f"Neighbours per {per} (0 = all samples)"),
-            type=QgsProcessingParameterNumber.Integer, defaultValue=0, minValue=0))
-        self.addParameter(QgsProcessingParameterNumber(
+            type=QgsProcessingParameterNumber.Integer, defaultValue=0, minValue=0)))
+        self.addParameter(advanced(QgsProcessingParameterNumber(
             self.SEARCH_RADIUS, self.tr("Search radius (working CRS units; empty = no limit)"),
-            type=QgsProcessingParameterNumber.Double, optional=True, minValue=0.0))
+            type=QgsProcessingParameterNumber.Double, optional=True, minValue=0.0)))
 
     def neighbourhood(self, parameters, context) -> Neighbourhood:
         """The NEIGHBOURS and SEARCH_RADIUS chosen (SEARCH_RADIUS None when empty)."""
@@ -213,10 +241,13 @@ class FieldcastAlgorithm(QgsProcessingAlgorithm):
             return None
         return self.parameterAsDouble(parameters, name, context)
 
-    def add_choice(self, name: str, description: str, options: Sequence[str], default: str) -> None:
-        """An enum parameter whose values are the option words themselves (e.g. ``KERNEL=spherical``)."""
-        self.addParameter(QgsProcessingParameterEnum(
-            name, description, options=list(options), defaultValue=default, usesStaticStrings=True))
+    def add_choice(self, name: str, description: str, options: Sequence[str], default: str,
+                   expert: bool = False) -> None:
+        """An enum parameter whose values are the option words themselves (e.g. ``KERNEL=spherical``);
+        ``expert`` flags it advanced."""
+        definition = QgsProcessingParameterEnum(name, description, options=list(options), defaultValue=default,
+                                                usesStaticStrings=True)
+        self.addParameter(advanced(definition) if expert else definition)
 
     def choice(self, parameters, name: str, context) -> str:
         """The chosen word of an enum parameter made by :meth:`add_choice`."""
@@ -298,6 +329,13 @@ class FieldcastAlgorithm(QgsProcessingAlgorithm):
     def refuse_overwrites(self, parameters, context) -> None:
         """Refuse, before any work, an output that would overwrite an input file or another output."""
         refuse_clashes(self.output_files(parameters, context), self.input_files(parameters, context))
+
+    def checkParameterValues(self, parameters, context):
+        """Refuse an unchosen FIELD with advice (before Processing's generic message)."""
+        if self.parameterDefinition(self.FIELD) is not None and \
+                not self.parameterAsString(parameters, self.FIELD, context):
+            return False, NO_FIELD
+        return super().checkParameterValues(parameters, context)
 
     def processAlgorithm(self, parameters, context, feedback):
         try:

@@ -1,7 +1,11 @@
-"""Help text shared by the toolbox algorithms: layout and the cautions every tool repeats."""
+"""Help text shared by the toolbox algorithms: layout, the cautions every tool repeats, and what the toolbox
+finds them by (search words, short descriptions, the README section each help button opens, per-parameter help).
+"""
 from __future__ import annotations
 
-from html import escape
+import re
+from html import escape, unescape
+from pathlib import Path
 
 CAUTIONS = (
     "The surfaces and numbers are model-based estimates: they assume the chosen covariance model and a "
@@ -92,3 +96,68 @@ def compose_help(summary: str, parameters: list[tuple[str, str]], outputs: list[
         f"<p>{escape(WORKING_CRS_NOTE, quote=False)}</p>"
         f"<p><b>Cautions.</b> {escape(CAUTIONS, quote=False)}</p>"
     )
+
+
+SEARCH_WORDS = ("kriging", "interpolation", "geostatistics", "gaussian process", "spatial prediction",
+                "uncertainty", "points to raster")
+"""Words every Fieldcast algorithm is found by in the toolbox search."""
+
+ALGORITHM_WORDS = {
+    "fitmodel": ("variogram", "semivariogram", "covariance model", "REML", "maximum likelihood", "nugget", "sill",
+                 "range", "anisotropy", "Matérn"),
+    "predict": ("surface", "prediction", "variance", "standard error", "exceedance", "probability", "block kriging",
+                "threshold"),
+    "predictmany": ("surface", "prediction", "variance", "several fields", "batch", "shared model"),
+    "simulate": ("conditional simulation", "realisations", "circulant embedding", "Monte Carlo", "area above",
+                 "exceedance"),
+    "crossvalidate": ("cross-validation", "leave-one-out", "validation", "residuals", "RMSE", "model check"),
+}
+"""Further search words per algorithm name (the id after ``fieldcast:``)."""
+
+SHORT_DESCRIPTIONS = {
+    "fitmodel": "Fits a kriging covariance model (nugget, sill, range) to point samples and saves it as a model file.",
+    "predict": "Kriges a raster of predictions from point samples, with its variance and exceedance probability.",
+    "predictmany": "Fits a model to each of several fields and kriges their prediction and variance rasters.",
+    "simulate": "Draws conditional simulations of the field on a grid, with summaries and areas above a threshold.",
+    "crossvalidate": "Checks a kriging model by leave-one-out prediction of the samples.",
+}
+"""One line per algorithm name, shown in the toolbox tooltip."""
+
+README = Path(__file__).resolve().parent.parent / "README.md"
+"""The README shipped in the plugin folder: its section per algorithm is the algorithm's help page."""
+
+
+def search_words(name: str) -> list[str]:
+    """Toolbox search words (``tags``) of the algorithm ``name``."""
+    return [*SEARCH_WORDS, *ALGORITHM_WORDS.get(name, ())]
+
+
+def help_url(name: str, display_name: str) -> str:
+    """``file://`` URL of the README section headed ``### `fieldcast:name` — display name``.
+
+    The fragment is the heading's anchor as common Markdown renderers make it (lower case, punctuation
+    dropped, spaces to hyphens).
+    """
+    heading = f"fieldcast:{name} — {display_name}".lower()
+    anchor = "".join(character for character in heading if character.isalnum() or character in " -")
+    return f"{README.as_uri()}#{anchor.replace(' ', '-')}"
+
+
+HELP_ENTRY = re.compile(r"<dt><b>(.*?)</b></dt><dd>(.*?)</dd>", re.DOTALL)
+
+
+def help_entries(help_html: str) -> list[tuple[str, str]]:
+    """The ``(label, explanation)`` pairs of a help text made by :func:`compose_help`, as plain text."""
+    return [(unescape(label), unescape(text)) for label, text in HELP_ENTRY.findall(help_html)]
+
+
+def parameter_help(help_html: str, description: str) -> str:
+    """The explanation, in a help text made by :func:`compose_help`, of the parameter labelled ``description``.
+
+    An entry belongs to a parameter whose label starts with the entry's label, or with one part of a label
+    such as "Sample points / Value field"; "" when no entry does.
+    """
+    for label, text in help_entries(help_html):
+        if any(description.startswith(part) for part in label.split(" / ")):
+            return text
+    return ""

@@ -1,9 +1,7 @@
 """The object QGIS keeps while Fieldcast is loaded: registers the Processing provider."""
 from __future__ import annotations
 
-from qgis.core import QgsApplication
-
-from .provider import FieldcastProvider
+from qgis.core import QgsApplication, QgsProcessingProvider
 
 
 class FieldcastPlugin:
@@ -15,12 +13,18 @@ class FieldcastPlugin:
 
     def __init__(self, iface) -> None:
         self.iface = iface
-        self.provider: FieldcastProvider | None = None
+        self.provider: QgsProcessingProvider | None = None
+
+    def new_provider(self) -> QgsProcessingProvider:
+        """A new Fieldcast provider; imported here because it loads the engine and the packages it needs."""
+        from .provider import FieldcastProvider
+
+        return FieldcastProvider()
 
     def initProcessing(self) -> None:
         """Register the provider (once); QGIS refuses, and deletes, a second provider with the same id."""
         if self.provider is None:
-            provider = FieldcastProvider()
+            provider = self.new_provider()
             if QgsApplication.processingRegistry().addProvider(provider):
                 self.provider = provider
 

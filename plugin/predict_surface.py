@@ -64,7 +64,7 @@ class PredictSurfaceAlgorithm(SurfaceAlgorithm):
         self.add_grid_parameters()
         self.add_backtransform_parameter()
         self.add_choice(self.SUPPORT, self.tr("Support (point = cell centre, cell = cell average)"), SUPPORTS,
-                        "point")
+                        "point", expert=True)
         self.add_neighbourhood_parameters()
         self.add_threshold_parameter()
         self.add_target_crs_parameter()

@@ -28,7 +28,7 @@ from ..algorithms import (
     simulate_conditional,
     summarise_realisations,
 )
-from .algorithm_base import add_feature, progress_callback, push_log
+from .algorithm_base import add_feature, advanced, progress_callback, push_log
 from .field_types import field_type
 from .help_text import GRID_HELP, MODEL_FILE_HELP, TARGET_CRS_HELP, THRESHOLD_HELP, compose_help
 from .layer_style import style_on_load
@@ -72,10 +72,10 @@ class SimulateAlgorithm(RasterAlgorithm):
           "location averaged)."),
          MODEL_FILE_HELP,
          *GRID_HELP,
-         ("Realisations", "How many fields to draw (default 100). Shares and percentiles from 100 realisations "
-          "are good to a few per cent; more give steadier summaries, at the cost of time and memory (8 bytes per "
-          "cell and realisation)."),
-         ("Seed", "Seed of the random numbers: the same seed, data and settings give the same fields."),
+         ("Number of realisations", "How many fields to draw (default 100). Shares and percentiles from 100 "
+          "realisations are good to a few per cent; more give steadier summaries, at the cost of time and memory "
+          "(8 bytes per cell and realisation)."),
+         ("Random seed", "Seed of the random numbers: the same seed, data and settings give the same fields."),
          ("Neighbours per cell", "0 (the default): every sample conditions every cell (global kriging weights). "
           "A number k: each cell is conditioned on its k nearest samples (local kriging weights; 16 to 64 is "
           "common practice), faster for many samples; the realisations then have the local kriging mean and "
@@ -88,9 +88,9 @@ class SimulateAlgorithm(RasterAlgorithm):
          TARGET_CRS_HELP],
         [("Realisations", "Multiband Float32 GeoTIFF, one band per realisation, in attribute units (a log model "
           "is simulated in the log scale and back-transformed cell by cell)."),
-         ("Mean / Standard deviation / P10 / P90", "Optional rasters over the realisations, attribute units: the "
-          "mean (close to the kriging mean-back-transformed map), the spread, and the 10th and 90th percentiles "
-          "per cell."),
+         ("Mean / Standard deviation / 10th percentile / 90th percentile",
+          "Optional rasters over the realisations, attribute units: the mean (close to the kriging "
+          "mean-back-transformed map), the spread, and the 10th and 90th percentiles per cell."),
          ("Exceedance share", "Optional raster, 0 to 1: the share of realisations above the threshold per cell, "
           "a Monte Carlo estimate of the exceedance probability under the model (not a certainty)."),
          ("Realisation table", "One row per realisation (no geometry): its number, the area of the masked cells "
@@ -108,9 +108,9 @@ class SimulateAlgorithm(RasterAlgorithm):
         self.addParameter(QgsProcessingParameterNumber(
             self.REALIZATIONS, self.tr("Number of realisations"), type=QgsProcessingParameterNumber.Integer,
             defaultValue=100, minValue=1))
-        self.addParameter(QgsProcessingParameterNumber(
+        self.addParameter(advanced(QgsProcessingParameterNumber(
             self.SEED, self.tr("Random seed"), type=QgsProcessingParameterNumber.Integer, defaultValue=1,
-            minValue=0))
+            minValue=0)))
         self.add_neighbourhood_parameters(per="cell")
         self.add_threshold_parameter()
         self.add_target_crs_parameter()

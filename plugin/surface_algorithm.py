@@ -88,8 +88,9 @@ class SurfaceAlgorithm(RasterAlgorithm):
     BACKTRANSFORM = "BACKTRANSFORM"
 
     def add_backtransform_parameter(self) -> None:
-        """BACKTRANSFORM: median (default) or mean, for log models."""
-        self.add_choice(self.BACKTRANSFORM, self.tr("Back-transform (log models)"), BACKTRANSFORMS, "median")
+        """BACKTRANSFORM (advanced): median (default) or mean, for log models."""
+        self.add_choice(self.BACKTRANSFORM, self.tr("Back-transform (log models)"), BACKTRANSFORMS, "median",
+                        expert=True)
 
     @staticmethod
     def krige_surface(documents: Sequence[ModelDocument], xy: np.ndarray, values: np.ndarray, grid: GridSpec,

@@ -36,7 +36,8 @@ def test_zip_holds_one_plugin_folder_without_development_files(built_zip):
     names = zipfile.ZipFile(built_zip).namelist()
     assert {name.split("/")[0] for name in names} == {"fieldcast"}
     top_level = {name.split("/")[1] for name in names if name.count("/") >= 1 and name.split("/")[1]}
-    assert {"__init__.py", "metadata.txt", "LICENSE", "plugin", "algorithms", "icons"} <= top_level
+    # README.md is also the help page each algorithm's help button opens (helpUrl).
+    assert {"__init__.py", "metadata.txt", "LICENSE", "README.md", "plugin", "algorithms", "icons"} <= top_level
     assert not top_level & LEFT_OUT
     assert not any("__pycache__" in name or name.endswith(".pyc") for name in names)
     vendored = {"plotly-basic.min.js", "LICENSE-plotly.js", "README.md"}  # the reports' plotly.js and its licence

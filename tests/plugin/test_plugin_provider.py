@@ -69,6 +69,15 @@ def test_metadata_declares_a_processing_plugin_of_this_version():
     assert general["license"] == "GPL-2.0-or-later"
     assert "kriging" in general["description"].lower() and "licensed professional" in general["about"]
     assert (REPO_ROOT / general["icon"]).is_file()
+    # Categories documented for plugin metadata.txt in the QGIS Python plugin guide (from memory).
+    assert general.get("category", "Raster") in {"Raster", "Vector", "Database", "Mesh", "Web"}
+    assert "example.org" not in (REPO_ROOT / "metadata.txt").read_text(encoding="utf-8")
+
+
+def test_metadata_names_every_algorithm_in_about_and_changelog():
+    general = metadata()
+    for display, _, _ in CONTRACT.values():
+        assert f'"{display}"' in general["about"] and display in general["changelog"], display
 
 
 def test_class_factory_registers_the_provider_with_five_algorithms(fieldcast_plugin):  # noqa: F811

@@ -169,3 +169,13 @@ def test_text_field_fails_cleanly(profile, meuse_layer, tmp_path):
     assert "landuse" in run.messages and "numeric field" in run.messages
     assert not model_path.exists()
     assert list(tmp_path.iterdir()) == []
+
+
+def test_run_without_value_field_names_the_parameter(profile, meuse_layer, tmp_path):
+    model_path = tmp_path / "model.json"
+    run = run_algorithm(profile, "fieldcast:fitmodel", {"INPUT": meuse_layer, **FIT_SETTINGS,
+                                                        "OUTPUT_MODEL": model_path})
+    assert run.returncode != 0
+    # qgis_process refuses a mandatory parameter left out before the algorithm runs, naming it.
+    assert "mandatory parameters were not specified" in run.messages and "FIELD:\tValue field" in run.messages
+    assert list(tmp_path.iterdir()) == []
