@@ -53,16 +53,18 @@ def backup_path(path: str | os.PathLike) -> str:
     return _staging_name(path, "keep")
 
 
-def refuse_read_only(path: str, what: str = "The output") -> None:
+def refuse_read_only(path: str, parameter: str = "") -> None:
     """Raise :class:`FieldcastError` if ``path`` exists and is read-only (no write permission bit, or no access).
 
-    A read-only file is one its owner asked to keep: it is never replaced by a writable one.
+    A read-only file is one its owner asked to keep: it is never replaced by a writable one. ``parameter``
+    (the output's parameter name, if any) is named in the message.
     """
-    if not os.path.isfile(path):
+    if not path or not os.path.isfile(path):
         return
     if stat.S_IMODE(os.stat(path).st_mode) & 0o222 == 0 or not os.access(path, os.W_OK):
-        raise FieldcastError(f"{what} {path} exists and is read-only, so it is not replaced. Make the file "
-                             "writable if it may be replaced, or choose another file name.")
+        named = f" ({parameter})" if parameter else ""
+        raise FieldcastError(f"The output file {path}{named} exists and is read-only, so it is not replaced. "
+                             "Make the file writable if it may be replaced, or choose another file name.")
 
 
 def _remove(path: str) -> None:

@@ -13,7 +13,7 @@ from qgis.core import QgsProcessingException
 from fault_injection import DISK_FULL, fail_on_call, names
 from fieldcast.algorithms.io import staging
 from fieldcast.algorithms.io.geotiff import GeoTiffWriter
-from fieldcast.plugin import cross_validate, predict_many, simulate
+from fieldcast.plugin import predict_many, sinks
 from fieldcast.plugin.report import fit_report
 from qgis_support import fieldcast_plugin, point_layer, qgis_processing  # noqa: F401 - fixtures
 from test_plugin_decision_maps import (  # noqa: F401 - zinc_model is a fixture
@@ -79,7 +79,7 @@ def test_simulate_writes_its_rasters_and_table(qgis_processing, meuse, meuse_gri
 
 def test_simulate_whose_table_fails_leaves_no_raster(qgis_processing, meuse, meuse_grid, zinc_model,  # noqa: F811
                                                      tmp_path, monkeypatch):
-    fail_on_call(monkeypatch, simulate, "add_feature", 2)
+    fail_on_call(monkeypatch, sinks, "add_feature", 2)
     with pytest.raises(QgsProcessingException, match=DISK_FULL):
         qgis_processing.run("fieldcast:simulate", simulate_parameters(meuse, meuse_grid, zinc_model, tmp_path))
     assert names(tmp_path) == []
@@ -87,7 +87,7 @@ def test_simulate_whose_table_fails_leaves_no_raster(qgis_processing, meuse, meu
 
 def test_crossvalidate_whose_points_fail_leaves_no_report(qgis_processing, meuse, zinc_model,  # noqa: F811
                                                           tmp_path, monkeypatch):
-    fail_on_call(monkeypatch, cross_validate, "add_feature", 10)
+    fail_on_call(monkeypatch, sinks, "add_feature", 10)
     with pytest.raises(QgsProcessingException, match=DISK_FULL):
         qgis_processing.run("fieldcast:crossvalidate", {
             "INPUT": point_layer(meuse.xy, {"zinc": meuse.zinc}), "FIELD": "zinc", "MODEL": zinc_model,
