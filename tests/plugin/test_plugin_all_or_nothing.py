@@ -7,8 +7,11 @@ layer provider would strike: the report writer, the second raster, the move into
 """
 from __future__ import annotations
 
+import subprocess
+import sys
+
 import pytest
-from qgis.core import QgsProcessingException
+from qgis.core import QgsProcessingException, QgsProcessingFeedback
 
 from fault_injection import DISK_FULL, fail_on_call, names
 from fieldcast.algorithms.io import staging
@@ -112,3 +115,65 @@ def test_predictmany_whose_second_field_fails_leaves_no_file_of_the_first(qgis_p
     with pytest.raises(QgsProcessingException, match=DISK_FULL):
         qgis_processing.run("fieldcast:predictmany", predictmany_parameters(meuse, tmp_path))
     assert names(tmp_path) == []
+
+
+def test_simulate_whose_csv_table_fails_leaves_no_table(qgis_processing, meuse, meuse_grid, zinc_model,  # noqa: F811
+                                                        tmp_path, monkeypatch):
+    fail_on_call(monkeypatch, sinks, "add_feature", 2)
+    parameters = {**simulate_parameters(meuse, meuse_grid, zinc_model, tmp_path),
+                  "OUTPUT_TABLE": str(tmp_path / "t.csv")}
+    with pytest.raises(QgsProcessingException, match=DISK_FULL):
+        qgis_processing.run("fieldcast:simulate", parameters)
+    assert names(tmp_path) == []
+
+
+def test_simulate_whose_csv_table_fails_puts_the_earlier_table_back(qgis_processing, meuse, meuse_grid,  # noqa: F811
+                                                                    zinc_model, tmp_path, monkeypatch):  # noqa: F811
+    earlier = tmp_path / "t.csv"
+    earlier.write_text("realisation,area_above,mask_mean\n1,2.0,3.0\n")
+    fail_on_call(monkeypatch, sinks, "add_feature", 3)
+    parameters = {**simulate_parameters(meuse, meuse_grid, zinc_model, tmp_path), "OUTPUT_TABLE": str(earlier)}
+    with pytest.raises(QgsProcessingException, match=DISK_FULL):
+        qgis_processing.run("fieldcast:simulate", parameters)
+    assert names(tmp_path) == ["t.csv"]
+    assert earlier.read_text() == "realisation,area_above,mask_mean\n1,2.0,3.0\n"
+
+
+def test_a_table_that_replaces_an_earlier_one_leaves_no_backup(qgis_processing, meuse, meuse_grid,  # noqa: F811
+                                                               zinc_model, tmp_path):  # noqa: F811
+    earlier = tmp_path / "t.csv"
+    earlier.write_text("an earlier table\n")
+    parameters = {**simulate_parameters(meuse, meuse_grid, zinc_model, tmp_path), "OUTPUT_TABLE": str(earlier)}
+    qgis_processing.run("fieldcast:simulate", parameters)
+    assert names(tmp_path) == ["mean.tif", "realisations.tif", "t.csv"]
+    assert earlier.read_text().splitlines()[0] == "realisation,area_above,mask_mean"
+    assert len(earlier.read_text().splitlines()) == 4  # a header and the three realisations
+
+
+def test_crossvalidate_into_a_geopackage_that_fails_keeps_its_other_layers(qgis_processing, meuse, zinc_model,  # noqa: F811
+                                                                           tmp_path, monkeypatch):
+    package = tmp_path / "survey.gpkg"
+    base = {"INPUT": point_layer(meuse.xy, {"zinc": meuse.zinc}), "FIELD": "zinc", "MODEL": zinc_model}
+    qgis_processing.run("fieldcast:crossvalidate", {**base, "OUTPUT": f"ogr:dbname='{package}' table=\"first\""})
+    before = package.read_bytes()
+    fail_on_call(monkeypatch, sinks, "add_feature", 10)
+    with pytest.raises(QgsProcessingException, match=DISK_FULL):
+        qgis_processing.run("fieldcast:crossvalidate", {**base, "OUTPUT": f"ogr:dbname='{package}' table=\"second\""})
+    assert names(tmp_path) == ["survey.gpkg"] and package.read_bytes() == before
+
+
+def test_files_left_by_a_killed_run_are_cleared_and_logged(qgis_processing, meuse, meuse_grid,  # noqa: F811
+                                                           zinc_model, tmp_path):  # noqa: F811
+    child = subprocess.Popen([sys.executable, "-c", "pass"])
+    child.wait()  # its process id is now one of a process that has ended, as a killed run's
+    left = [f".prediction.tif.fieldcast-{child.pid}-0123456789ab.part",
+            f".prediction.tif.fieldcast-{child.pid}-0123456789ab.part.aux.xml"]
+    for name in left:
+        (tmp_path / name).write_text("partial")
+    (tmp_path / "notes.part").write_text("not ours")
+    feedback = QgsProcessingFeedback()
+    qgis_processing.run("fieldcast:predict", predict_parameters(meuse, meuse_grid, zinc_model, tmp_path),
+                        feedback=feedback)
+    assert names(tmp_path) == ["exceedance.tif", "notes.part", "prediction.tif", "variance.tif"]
+    assert (f"Cleared in {tmp_path} the files an interrupted earlier run left behind: {left[0]} removed; "
+            f"{left[1]} removed.") in feedback.textLog()
