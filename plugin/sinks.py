@@ -19,6 +19,8 @@ from qgis.PyQt import sip
 from ..algorithms import FieldcastError, current_output_set
 from .destinations import destination_value, file_part
 
+REASON_LIMIT = 240
+"""Characters of a provider's error message shown to the user."""
 SPACE_ADVICE = "Check the disk space and that the file is writable, or choose another output file."
 
 
@@ -35,6 +37,14 @@ def add_feature(sink, feature, number: int, destination: str) -> None:
     reason = sink.lastError() if hasattr(sink, "lastError") else ""
     raise FieldcastError(f"Could not write feature {number} to {destination}: {reason or 'no reason given'}. "
                          f"{SPACE_ADVICE}")
+
+
+def shortened(text: str, limit: int = REASON_LIMIT) -> str:
+    """``text`` cut in the middle to at most about ``limit`` characters (a provider's error can quote whole SQL
+    scripts; its start and its end, where the cause is, are kept)."""
+    if len(text) <= limit:
+        return text
+    return f"{text[:limit // 2].rstrip()} … {text[-(limit // 2):].lstrip()}"
 
 
 class SinkWriter:
@@ -88,7 +98,11 @@ def checked_sink(algorithm, parameters, name: str, context, fields, geometry_typ
     outputs = current_output_set()
     if path and outputs is not None:
         outputs.protect(path)
-    sink, destination = algorithm.parameterAsSink(parameters, name, context, fields, geometry_type, crs)
+    try:
+        sink, destination = algorithm.parameterAsSink(parameters, name, context, fields, geometry_type, crs)
+    except QgsProcessingException as exc:
+        raise FieldcastError(f"Could not create {name} ({path or 'a temporary layer'}): {shortened(str(exc))}. "
+                             f"{SPACE_ADVICE}") from exc
     if sink is None:
         raise QgsProcessingException(algorithm.invalidSinkError(parameters, name))
     writer = SinkWriter(sink, destination)
