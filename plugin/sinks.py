@@ -108,6 +108,9 @@ def checked_sink(algorithm, parameters, name: str, context, fields, geometry_typ
     writer = SinkWriter(sink, destination)
     try:
         yield writer
-    finally:
-        writer.close()  # also on an error: the file must be closed before it is restored or removed
+    except BaseException:
+        with contextlib.suppress(FieldcastError):  # the first error is the one to show
+            writer.close()  # the file must be closed before it is restored or removed
+        raise
+    writer.close()
     writer.check(name)
