@@ -7,6 +7,7 @@ parameters in ``initAlgorithm`` with the helpers here, and does its work in
 from __future__ import annotations
 
 import os
+import time
 import traceback
 from collections.abc import Callable, Sequence
 
@@ -292,19 +293,21 @@ class FieldcastAlgorithm(QgsProcessingAlgorithm):
         return outputs
 
     @staticmethod
-    def clear_stale_files(outputs: Sequence[tuple[str, str]], feedback) -> None:
-        """Clear the output folders of files an interrupted earlier run left behind, saying so in the log."""
+    def clear_stale_files(outputs: Sequence[tuple[str, str]], started: float, feedback) -> None:
+        """Clear the output folders of files an interrupted earlier run left behind (before ``started``, the
+        time this run began), saying so in the log."""
         folders = {path if os.path.isdir(path) else os.path.dirname(os.path.abspath(path)) for _, path in outputs
                    if path}
         for folder in sorted(folders):
-            done = remove_stale_files(folder)
+            done = remove_stale_files(folder, started)
             if done:
                 feedback.pushInfo(f"Cleared in {folder} the files an interrupted earlier run left behind: "
                                   + "; ".join(done) + ".")
 
     def processAlgorithm(self, parameters, context, feedback):
+        started = time.time()
         try:
-            self.clear_stale_files(self.refuse_overwrites(parameters, context), feedback)
+            self.clear_stale_files(self.refuse_overwrites(parameters, context), started, feedback)
             with termination_cleanup(), OutputSet() as files:
                 outputs = self.compute(parameters, context, feedback)
                 files.commit_all()

@@ -13,7 +13,7 @@ from pathlib import Path
 import pytest
 
 from fault_injection import names
-from fieldcast.algorithms import OutputSet, remove_stale_files, termination_cleanup
+from fieldcast.algorithms import Cancelled, OutputSet, remove_stale_files, termination_cleanup
 from fieldcast.algorithms.io import interruption
 from fieldcast.algorithms.io.atomic import write_text_atomically
 
@@ -39,7 +39,8 @@ def test_stale_files_of_a_dead_run_are_cleared_and_live_ones_kept(tmp_path):
             f"zinc.tif.fieldcast-{dead}-0123456789ab.part": "not hidden: not ours"}
     for name, text in {**stale, **live}.items():
         (tmp_path / name).write_text(text)
-    done = remove_stale_files(str(tmp_path))
+    assert remove_stale_files(str(tmp_path), before=time.time() - 3600) == []  # all changed since: kept
+    done = remove_stale_files(str(tmp_path), before=time.time() + 1)
     assert len(done) == 3
     assert f".zinc.tif.fieldcast-{dead}-ba9876543210.keep restored as {tmp_path / 'zinc.tif'}" in done
     assert names(tmp_path) == sorted([*live, "zinc.tif"])
@@ -51,7 +52,7 @@ def test_a_staging_file_without_a_process_id_is_cleared_when_old(tmp_path):
     old.write_text("left by an earlier version")
     week_ago = time.time() - 7 * 24 * 3600
     os.utime(old, (week_ago, week_ago))
-    assert remove_stale_files(str(tmp_path)) == [f"{old.name} removed"]
+    assert remove_stale_files(str(tmp_path), before=time.time() + 1) == [f"{old.name} removed"]
     assert names(tmp_path) == []
     assert remove_stale_files(str(tmp_path / "missing")) == []
 
@@ -66,14 +67,15 @@ def test_sigterm_undoes_the_run_and_chains_to_the_previous_python_handler(tmp_pa
 
     previous = signal.signal(signal.SIGTERM, recorder)
     try:
-        with termination_cleanup() as installed, OutputSet() as outputs:
+        with pytest.raises(Cancelled, match="Terminated"), termination_cleanup() as installed, \
+                OutputSet() as outputs:
             assert installed
             write_text_atomically(tmp_path / "zinc.json", "{}", "the model file")
             outputs.protect(str(earlier))
             earlier.write_text("half")
             os.kill(os.getpid(), signal.SIGTERM)
-            assert received == [signal.SIGTERM]
-            assert names(tmp_path) == ["table.csv"] and earlier.read_text() == "earlier table\n"
+        assert received == [signal.SIGTERM]
+        assert names(tmp_path) == ["table.csv"] and earlier.read_text() == "earlier table\n"
         assert signal.getsignal(signal.SIGTERM) is recorder
     finally:
         signal.signal(signal.SIGTERM, previous)

@@ -7,8 +7,10 @@ layer provider would strike: the report writer, the second raster, the move into
 """
 from __future__ import annotations
 
+import os
 import subprocess
 import sys
+import time
 
 import pytest
 from qgis.core import QgsProcessingException, QgsProcessingFeedback
@@ -168,8 +170,10 @@ def test_files_left_by_a_killed_run_are_cleared_and_logged(qgis_processing, meus
     child.wait()  # its process id is now one of a process that has ended, as a killed run's
     left = [f".prediction.tif.fieldcast-{child.pid}-0123456789ab.part",
             f".prediction.tif.fieldcast-{child.pid}-0123456789ab.part.aux.xml"]
+    minute_ago = time.time() - 60
     for name in left:
         (tmp_path / name).write_text("partial")
+        os.utime(tmp_path / name, (minute_ago, minute_ago))
     (tmp_path / "notes.part").write_text("not ours")
     feedback = QgsProcessingFeedback()
     qgis_processing.run("fieldcast:predict", predict_parameters(meuse, meuse_grid, zinc_model, tmp_path),
