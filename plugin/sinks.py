@@ -19,6 +19,8 @@ from qgis.PyQt import sip
 from ..algorithms import FieldcastError, current_output_set
 from .destinations import destination_value, file_part
 
+SHAPEFILE_COMPANIONS = (".shx", ".dbf", ".prj", ".cpg", ".qix")
+"""The files QGIS writes beside a ``.shp`` (same stem)."""
 REASON_LIMIT = 240
 """Characters of a provider's error message shown to the user."""
 SPACE_ADVICE = "Check the disk space and that the file is writable, or choose another output file."
@@ -37,6 +39,14 @@ def add_feature(sink, feature, number: int, destination: str) -> None:
     reason = sink.lastError() if hasattr(sink, "lastError") else ""
     raise FieldcastError(f"Could not write feature {number} to {destination}: {reason or 'no reason given'}. "
                          f"{SPACE_ADVICE}")
+
+
+def file_set(path: str) -> list[str]:
+    """The files a vector output at ``path`` consists of: a shapefile's companions, else the file itself."""
+    stem, extension = os.path.splitext(path)
+    if extension.lower() != ".shp":
+        return [path]
+    return [path, *(stem + (part if extension == ".shp" else part.upper()) for part in SHAPEFILE_COMPANIONS)]
 
 
 def shortened(text: str, limit: int = REASON_LIMIT) -> str:
@@ -97,7 +107,8 @@ def checked_sink(algorithm, parameters, name: str, context, fields, geometry_typ
     path = destination_value(parameters.get(name))
     outputs = current_output_set()
     if path and outputs is not None:
-        outputs.protect(path)
+        for part in file_set(path):
+            outputs.protect(part)
     try:
         sink, destination = algorithm.parameterAsSink(parameters, name, context, fields, geometry_type, crs)
     except QgsProcessingException as exc:

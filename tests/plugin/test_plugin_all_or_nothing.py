@@ -181,3 +181,13 @@ def test_files_left_by_a_killed_run_are_cleared_and_logged(qgis_processing, meus
     assert names(tmp_path) == ["exceedance.tif", "notes.part", "prediction.tif", "variance.tif"]
     assert (f"Cleared in {tmp_path} the files an interrupted earlier run left behind: {left[0]} removed; "
             f"{left[1]} removed.") in feedback.textLog()
+
+
+def test_crossvalidate_into_a_shapefile_that_fails_leaves_none_of_its_files(qgis_processing, meuse,  # noqa: F811
+                                                                            zinc_model, tmp_path, monkeypatch):  # noqa: F811
+    fail_on_call(monkeypatch, sinks, "add_feature", 10)
+    with pytest.raises(QgsProcessingException, match=DISK_FULL):
+        qgis_processing.run("fieldcast:crossvalidate", {
+            "INPUT": point_layer(meuse.xy, {"zinc": meuse.zinc}), "FIELD": "zinc", "MODEL": zinc_model,
+            "OUTPUT": str(tmp_path / "cv.shp")})
+    assert names(tmp_path) == []
