@@ -16,6 +16,7 @@ import pytest
 from qgis.core import QgsProcessingException, QgsProcessingFeedback
 
 from fault_injection import names
+from qgis_process_support import QGIS_PROCESS, make_profile, run_algorithm, write_meuse_geopackage
 from qgis_support import fieldcast_plugin, point_layer, qgis_processing  # noqa: F401 - fixtures
 from requirements_check import skip_unless_available
 from test_plugin_decision_maps import (  # noqa: F401 - zinc_model is a fixture
@@ -97,9 +98,12 @@ def fails_cleanly(processing, algorithm: str, parameters: dict, output: Path, di
     return message
 
 
-# Free bytes at which the GeoPackage runs full while it is created, at its first feature and at the final commit
-# (which QGIS's writer does not report; the read-back finds the empty layer), measured with GDAL 3.6.
-@pytest.mark.parametrize("room", [0, 100 * 1024, 130 * 1024], ids=["at creation", "at a feature", "at commit"])
+GEOPACKAGE_ROOMS = {"at creation": 0, "at a feature": 100 * 1024, "at commit": 130 * 1024}
+"""Free bytes at which the GeoPackage runs full while it is created, at its first feature and at the final commit
+(which QGIS's writer does not report; the read-back finds the empty layer), measured with GDAL 3.6."""
+
+
+@pytest.mark.parametrize("room", GEOPACKAGE_ROOMS.values(), ids=GEOPACKAGE_ROOMS.keys())
 def test_crossvalidate_into_a_geopackage(qgis_processing, meuse, zinc_model, disk, room):  # noqa: F811
     output = disk / "cv.gpkg"
     fill(disk, room)
@@ -141,3 +145,17 @@ def test_fitmodel_report(qgis_processing, meuse, disk, tmp_path):  # noqa: F811
                   {"INPUT": point_layer(meuse.xy, {"zinc": meuse.zinc}), "FIELD": "zinc", **QUICK_LOG_FIT,
                    "OUTPUT_MODEL": str(tmp_path / "zinc.json"), "OUTPUT_REPORT": str(output)}, output, disk)
     assert names(tmp_path) == ["disk"]  # the model file beside the disk is not left either
+
+
+@skip_unless_available(QGIS_PROCESS is not None, "qgis_process.bin is not installed")
+def test_qgis_process_crossvalidate_whose_geopackage_fails_at_commit(zinc_model, disk, tmp_path):  # noqa: F811
+    profile = make_profile(tmp_path / "profile")
+    layer = write_meuse_geopackage(tmp_path / "meuse.gpkg")
+    output = disk / "cv.gpkg"
+    fill(disk, GEOPACKAGE_ROOMS["at commit"])
+    run = run_algorithm(profile, "fieldcast:crossvalidate", {"INPUT": layer, "FIELD": "zinc", "MODEL": zinc_model,
+                                                            "OUTPUT": output})
+    assert run.returncode != 0
+    assert f"{output} was not written completely" in run.messages
+    assert "Traceback" not in run.messages
+    assert names(disk) == [FILLER]
