@@ -7,11 +7,11 @@ parameters in ``initAlgorithm`` with the helpers here, and does its work in
 from __future__ import annotations
 
 import os
+import time
 import traceback
 from collections.abc import Callable, Sequence
 
 from qgis.core import (
-    QgsFeatureSink,
     QgsProcessing,
     QgsProcessingAlgorithm,
     QgsProcessingException,
@@ -47,6 +47,9 @@ from ..algorithms import (
     Neighbourhood,
     OutputSet,
     Transform,
+    refuse_read_only,
+    remove_stale_files,
+    termination_cleanup,
 )
 from .destinations import destination_value, layer_file, refuse_clashes
 from .help_text import SHORT_DESCRIPTIONS, help_url, parameter_help, search_words
@@ -69,21 +72,6 @@ def push_log(feedback, lines: Sequence[LogLine]) -> None:
     """Show the engine's log lines: warnings as warnings, the rest as information."""
     for line in lines:
         (feedback.pushWarning if line.level == "warning" else feedback.pushInfo)(line.text)
-
-
-def add_feature(sink, feature, number: int, destination: str) -> None:
-    """Add ``feature`` (the ``number``-th, from 1) to ``sink``, refusing to go on when the sink did not take it.
-
-    Raises
-    ------
-    FieldcastError
-        Naming the feature, ``destination`` and the sink's own error when it gives one.
-    """
-    if sink.addFeature(feature, QgsFeatureSink.FastInsert):
-        return
-    reason = sink.lastError() if hasattr(sink, "lastError") else ""
-    raise FieldcastError(f"Could not write feature {number} to {destination}: {reason or 'no reason given'}. "
-                         "Check the disk space and that the file is writable.")
 
 
 def advanced(definition: QgsProcessingParameterDefinition) -> QgsProcessingParameterDefinition:
@@ -326,9 +314,26 @@ class FieldcastAlgorithm(QgsProcessingAlgorithm):
             return path
         return layer_file(QgsProcessingUtils.mapLayerFromString(value, context, False))
 
-    def refuse_overwrites(self, parameters, context) -> None:
-        """Refuse, before any work, an output that would overwrite an input file or another output."""
-        refuse_clashes(self.output_files(parameters, context), self.input_files(parameters, context))
+    def refuse_overwrites(self, parameters, context) -> list[tuple[str, str]]:
+        """Refuse, before any work, an output that would overwrite an input file or another output, or replace
+        a read-only file; returns the outputs' ``(parameter name, path)``."""
+        outputs = self.output_files(parameters, context)
+        refuse_clashes(outputs, self.input_files(parameters, context))
+        for name, path in outputs:
+            refuse_read_only(path, name)
+        return outputs
+
+    @staticmethod
+    def clear_stale_files(outputs: Sequence[tuple[str, str]], started: float, feedback) -> None:
+        """Clear the output folders of files an interrupted earlier run left behind (before ``started``, the
+        time this run began), saying so in the log."""
+        folders = {path if os.path.isdir(path) else os.path.dirname(os.path.abspath(path)) for _, path in outputs
+                   if path}
+        for folder in sorted(folders):
+            done = remove_stale_files(folder, started)
+            if done:
+                feedback.pushInfo(f"Cleared in {folder} the files an interrupted earlier run left behind: "
+                                  + "; ".join(done) + ".")
 
     def checkParameterValues(self, parameters, context):
         """Refuse an unchosen FIELD with advice (before Processing's generic message)."""
@@ -338,9 +343,10 @@ class FieldcastAlgorithm(QgsProcessingAlgorithm):
         return super().checkParameterValues(parameters, context)
 
     def processAlgorithm(self, parameters, context, feedback):
+        started = time.time()
         try:
-            self.refuse_overwrites(parameters, context)
-            with OutputSet() as files:
+            self.clear_stale_files(self.refuse_overwrites(parameters, context), started, feedback)
+            with termination_cleanup(), OutputSet() as files:
                 outputs = self.compute(parameters, context, feedback)
                 files.commit_all()
             return outputs
@@ -364,7 +370,8 @@ class FieldcastAlgorithm(QgsProcessingAlgorithm):
         """Do the work of ``processAlgorithm``; engine and report errors become Processing errors there.
 
         Files written inside (GeoTIFFs, model files, reports) are staged and appear together when ``compute``
-        returns; an error or a cancel leaves none. Feature sinks are written by QGIS and cannot be staged, so
-        ``compute`` writes them last, after every file is complete.
+        returns; an error, a cancel or a SIGTERM (where a handler can be installed) leaves none. Feature sinks
+        are written by QGIS in place (``sinks.checked_sink``: the earlier file is kept until the run succeeds),
+        so ``compute`` writes them last, after every file is complete.
         """
         raise NotImplementedError

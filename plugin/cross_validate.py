@@ -11,7 +11,6 @@ from qgis.core import (
     QgsFields,
     QgsGeometry,
     QgsPointXY,
-    QgsProcessingException,
     QgsProcessingOutputNumber,
     QgsProcessingParameterFeatureSink,
     QgsWkbTypes,
@@ -26,11 +25,12 @@ from ..algorithms import (
     parse_crs,
     search_words,
 )
-from .algorithm_base import FieldcastAlgorithm, add_feature, progress_callback, push_log
+from .algorithm_base import FieldcastAlgorithm, progress_callback, push_log
 from .field_types import field_type
 from .help_text import MODEL_FILE_HELP, TARGET_CRS_HELP, compose_help
 from .report.crossvalidation_report import write_crossvalidation_report
 from .sample_reader import ModelSamples
+from .sinks import checked_sink
 
 SUMMARY_OUTPUTS = (
     ("ME", "Mean error (modelling units)"),
@@ -116,18 +116,16 @@ class CrossValidateAlgorithm(FieldcastAlgorithm):
         fields.append(QgsField("sample_id", field_type("LongLong")))
         for name in RESULT_FIELDS:
             fields.append(QgsField(name, field_type("Double")))
-        sink, destination = self.parameterAsSink(parameters, self.OUTPUT, context, fields, QgsWkbTypes.Point,
-                                                 QgsCoordinateReferenceSystem.fromWkt(document.crs_wkt))
-        if sink is None:
-            raise QgsProcessingException(self.invalidSinkError(parameters, self.OUTPUT))
         columns = (result.observed, result.predicted, result.variance, result.residual, result.standardized)
-        for row, (fid, (x, y)) in enumerate(zip(samples.fids, samples.xy)):
-            feature = QgsFeature(fields)
-            feature.setGeometry(QgsGeometry.fromPointXY(QgsPointXY(float(x), float(y))))
-            feature.setAttributes([int(fid)] + [float(column[row]) if math.isfinite(column[row]) else None
-                                                for column in columns])
-            add_feature(sink, feature, row + 1, destination)
-        return destination
+        with checked_sink(self, parameters, self.OUTPUT, context, fields, QgsWkbTypes.Point,
+                          QgsCoordinateReferenceSystem.fromWkt(document.crs_wkt)) as sink:
+            for row, (fid, (x, y)) in enumerate(zip(samples.fids, samples.xy)):
+                feature = QgsFeature(fields)
+                feature.setGeometry(QgsGeometry.fromPointXY(QgsPointXY(float(x), float(y))))
+                feature.setAttributes([int(fid)] + [float(column[row]) if math.isfinite(column[row]) else None
+                                                    for column in columns])
+                sink.add(feature)
+        return sink.destination
 
     def cross_validation(self, parameters, context, feedback, document: ModelDocument,
                          samples: ModelSamples) -> CrossValidation:

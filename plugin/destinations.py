@@ -6,21 +6,42 @@ Temporary and memory outputs never clash: they are not files the user chose.
 from __future__ import annotations
 
 import os
+import re
 from collections.abc import Iterable
 
-from qgis.core import QgsMapLayer, QgsProcessingFeatureSourceDefinition, QgsProcessingOutputLayerDefinition
+from qgis.core import (
+    QgsDataSourceUri,
+    QgsMapLayer,
+    QgsProcessingFeatureSourceDefinition,
+    QgsProcessingOutputLayerDefinition,
+)
 
 from ..algorithms import FieldcastError
 
 TEMPORARY_PREFIXES = ("TEMPORARY_OUTPUT", "memory:")
+PROVIDER_PREFIX = re.compile(r"(?P<provider>[A-Za-z]{3,}):(?P<uri>.*)", re.DOTALL)
+"""``provider:uri`` (three letters at least, so that a Windows drive ``C:`` is not taken for one)."""
+FILE_PROVIDERS = ("ogr", "spatialite")
+DBNAME = re.compile(r"(^|\s)dbname=")
 
 
 def file_part(source: str) -> str:
-    """The file of a data source string: ``ogr:`` and ``|layername=...`` style suffixes removed, "" for memory."""
+    """The file of a data source string, "" for memory and for databases that are not files.
+
+    Understood: plain paths with ``|layername=...`` style suffixes, a ``provider:`` prefix of a file-based
+    provider (``ogr:``, ``spatialite:``), and ``dbname='...' table=...`` URIs (Processing's
+    ``ogr:dbname=... table=...`` destinations), read with QGIS's own URI parser.
+    """
     if not source or source.startswith(TEMPORARY_PREFIXES):
         return ""
-    path = source.split("|", 1)[0]
-    return path[len("ogr:"):] if path.startswith("ogr:") else path
+    prefixed = PROVIDER_PREFIX.fullmatch(source)
+    if prefixed is not None:
+        if prefixed["provider"] not in FILE_PROVIDERS:
+            return ""
+        source = prefixed["uri"]
+    if DBNAME.search(source):
+        return QgsDataSourceUri(source).database()
+    return source.split("|", 1)[0]
 
 
 def destination_value(value) -> str:

@@ -10,7 +10,6 @@ from qgis.core import (
     QgsField,
     QgsFields,
     QgsProcessing,
-    QgsProcessingException,
     QgsProcessingOutputNumber,
     QgsProcessingParameterFeatureSink,
     QgsProcessingParameterNumber,
@@ -28,11 +27,12 @@ from ..algorithms import (
     simulate_conditional,
     summarise_realisations,
 )
-from .algorithm_base import add_feature, advanced, progress_callback, push_log
+from .algorithm_base import advanced, progress_callback, push_log
 from .field_types import field_type
 from .help_text import GRID_HELP, MODEL_FILE_HELP, TARGET_CRS_HELP, THRESHOLD_HELP, compose_help
 from .layer_style import style_on_load
 from .raster_algorithm import RasterAlgorithm
+from .sinks import checked_sink
 
 SUMMARY_RASTERS = (
     ("OUTPUT_MEAN", "Mean of the realisations", "mean"),
@@ -260,16 +260,14 @@ class SimulateAlgorithm(RasterAlgorithm):
         fields.append(QgsField("realisation", field_type("Int")))
         fields.append(QgsField("area_above", field_type("Double")))
         fields.append(QgsField("mask_mean", field_type("Double")))
-        sink, destination = self.parameterAsSink(parameters, self.OUTPUT_TABLE, context, fields,
-                                                 QgsWkbTypes.NoGeometry, QgsCoordinateReferenceSystem())
-        if sink is None:
-            raise QgsProcessingException(self.invalidSinkError(parameters, self.OUTPUT_TABLE))
-        for index, mean in enumerate(summary.mask_mean):
-            feature = QgsFeature(fields)
-            area = None if summary.area_above is None else float(summary.area_above[index])
-            feature.setAttributes([index + 1, area, float(mean)])
-            add_feature(sink, feature, index + 1, destination)
-        return destination
+        with checked_sink(self, parameters, self.OUTPUT_TABLE, context, fields, QgsWkbTypes.NoGeometry,
+                          QgsCoordinateReferenceSystem()) as sink:
+            for index, mean in enumerate(summary.mask_mean):
+                feature = QgsFeature(fields)
+                area = None if summary.area_above is None else float(summary.area_above[index])
+                feature.setAttributes([index + 1, area, float(mean)])
+                sink.add(feature)
+        return sink.destination
 
 
 def masked(values: np.ndarray, inside: np.ndarray | None) -> np.ndarray:

@@ -30,8 +30,12 @@ def write_text_atomically(path: str | os.PathLike, text: str, what: str) -> None
         raise FieldcastError(f"The folder {folder} does not exist; choose an existing folder for {what}.")
     temporary = temporary_path(target)
     try:
-        with open(temporary, "x", encoding="utf-8", newline="\n") as stream:
-            stream.write(text)
+        try:
+            with open(temporary, "x", encoding="utf-8", newline="\n") as stream:
+                stream.write(text)
+        except OSError as exc:
+            raise FieldcastError(f"Could not write {what} {target}: {exc.strerror or exc}. Free some disk space or "
+                                 "choose another folder.") from exc
         place(temporary, target)
     except BaseException:
         if os.path.exists(temporary):

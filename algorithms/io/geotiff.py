@@ -62,8 +62,9 @@ def gdal_errors(action: str) -> Iterator[None]:
         except RuntimeError as exc:
             failures.append(str(exc))
     if failures:
-        raise FieldcastError(f"GDAL could not {action}: {'; '.join(failures)}. Check that the disk has free "
-                             "space and the output folder is writable, or choose another output file.")
+        reasons = "; ".join(dict.fromkeys(failures))  # each distinct message once
+        raise FieldcastError(f"GDAL could not {action}: {reasons}. Check that the disk has free space and the "
+                             "output folder is writable, or choose another output file.")
 
 
 def check_destination(path: str) -> None:
@@ -137,12 +138,12 @@ class GeoTiffWriter:
         self._rows_written = np.zeros((n_bands, grid.n_rows), dtype=bool)
         self._dataset = None
         try:
-            with gdal_errors(f"create {self._temp_path}"):
+            with gdal_errors(f"create {self.path}"):
                 self._dataset = gdal.GetDriverByName("GTiff").Create(
                     self._temp_path, grid.n_cols, grid.n_rows, n_bands, gdal.GDT_Float32, CREATION_OPTIONS)
             if self._dataset is None:
-                raise FieldcastError(f"GDAL could not create {self._temp_path}. Choose another output file.")
-            with gdal_errors(f"set up {self._temp_path}"):
+                raise FieldcastError(f"GDAL could not create {self.path}. Choose another output file.")
+            with gdal_errors(f"set up {self.path}"):
                 self._dataset.SetGeoTransform(grid.geotransform)
                 self._dataset.SetProjection(wkt2)
                 self._dataset.SetMetadata(tags)
@@ -184,7 +185,7 @@ class GeoTiffWriter:
             raise ValueError(f"rows {row_start}..{row_stop - 1} are outside 0..{self.grid.n_rows - 1}")
         values[~np.isfinite(values)] = NODATA
         try:
-            with gdal_errors(f"write band {band_index + 1} of {self._temp_path}"):
+            with gdal_errors(f"write band {band_index + 1} of {self.path}"):
                 self._dataset.GetRasterBand(band_index + 1).WriteArray(values, 0, row_start)
         except BaseException:
             self.abort()
@@ -210,7 +211,7 @@ class GeoTiffWriter:
             band, row = missing[0]
             raise ValueError(f"{len(missing)} band rows were never written, first band {band} row {row}")
         try:
-            with gdal_errors(f"finish {self._temp_path}"):
+            with gdal_errors(f"finish {self.path}"):
                 self._dataset.FlushCache()
                 self._dataset = None  # closing the dataset writes the remaining tiles and header
             place(self._temp_path, self.path, SIDE_SUFFIXES)

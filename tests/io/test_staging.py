@@ -1,6 +1,7 @@
 """Tests of algorithms.io.staging: a set of outputs appears together on commit, or not at all."""
 from __future__ import annotations
 
+import os
 import re
 
 import numpy as np
@@ -27,7 +28,7 @@ BAND = np.arange(GRID.n_rows * GRID.n_cols, dtype=float).reshape(GRID.n_rows, GR
 
 def test_temporary_name_sits_beside_the_destination(tmp_path):
     temporary = staging.temporary_path(tmp_path / "zinc.tif")
-    assert re.fullmatch(r"\.zinc\.tif\.fieldcast-[0-9a-f]{12}\.part", temporary.rsplit("/", 1)[1])
+    assert re.fullmatch(rf"\.zinc\.tif\.fieldcast-{os.getpid()}-[0-9a-f]{{12}}\.part", temporary.rsplit("/", 1)[1])
     assert temporary.startswith(str(tmp_path))
     assert staging.temporary_path(tmp_path / "zinc.tif") != temporary
 
@@ -113,3 +114,60 @@ def test_write_surfaces_inside_a_set_waits_for_its_commit(tmp_path):
         write_surfaces(constant_predictor, GRID, None, SurfaceScale(Transform()), RD_NEW, surfaces(tmp_path, 2))
         assert len(names(tmp_path)) == 4 and all(name.endswith(".part") for name in names(tmp_path))
     assert names(tmp_path) == []
+
+
+def test_a_failed_second_move_puts_back_the_earlier_file_the_first_move_replaced(tmp_path, monkeypatch):
+    (tmp_path / "zinc.json").write_text("earlier model")
+    (tmp_path / "zinc.html").write_text("earlier report")
+    fail_on_call(monkeypatch, staging.StagedFile, "move_into_place", 2)
+    with pytest.raises(FieldcastError, match="No space left"), OutputSet() as outputs:
+        write_text_atomically(tmp_path / "zinc.json", "{}", "the model file")
+        write_text_atomically(tmp_path / "zinc.html", "<html></html>", "the report")
+        outputs.commit_all()
+    assert names(tmp_path) == ["zinc.html", "zinc.json"]
+    assert (tmp_path / "zinc.json").read_text() == "earlier model"
+    assert (tmp_path / "zinc.html").read_text() == "earlier report"
+
+
+def test_a_commit_leaves_no_backup_behind(tmp_path):
+    (tmp_path / "zinc.json").write_text("earlier model")
+    with OutputSet() as outputs:
+        write_text_atomically(tmp_path / "zinc.json", "{}", "the model file")
+        outputs.commit_all()
+    assert names(tmp_path) == ["zinc.json"] and (tmp_path / "zinc.json").read_text() == "{}"
+
+
+def test_a_read_only_destination_is_refused_and_kept(tmp_path):
+    earlier = tmp_path / "zinc.json"
+    earlier.write_text("kept on purpose")
+    earlier.chmod(0o444)
+    with pytest.raises(FieldcastError, match=rf"{earlier} exists and is read-only.*Make the file writable"), \
+            OutputSet() as outputs:
+        write_text_atomically(earlier, "{}", "the model file")
+        outputs.commit_all()
+    assert names(tmp_path) == ["zinc.json"] and earlier.read_text() == "kept on purpose"
+    assert earlier.stat().st_mode & 0o777 == 0o444
+
+
+def test_a_protected_file_is_restored_when_the_run_fails(tmp_path):
+    table = tmp_path / "table.csv"
+    table.write_text("earlier table\n")
+    with pytest.raises(RuntimeError, match="sink failed"), OutputSet() as outputs:
+        outputs.protect(str(table))
+        table.write_text("half a tab")  # what a sink writing in place leaves
+        raise RuntimeError("sink failed")
+    assert names(tmp_path) == ["table.csv"] and table.read_text() == "earlier table\n"
+
+
+def test_a_protected_new_file_is_removed_when_the_run_fails_and_kept_on_commit(tmp_path):
+    table = tmp_path / "table.csv"
+    with OutputSet() as outputs:
+        outputs.protect(str(table))
+        table.write_text("half a tab")
+    assert names(tmp_path) == []
+    (tmp_path / "earlier.csv").write_text("earlier\n")
+    with OutputSet() as outputs:
+        outputs.protect(str(tmp_path / "earlier.csv"))
+        (tmp_path / "earlier.csv").write_text("new\n")
+        outputs.commit_all()
+    assert names(tmp_path) == ["earlier.csv"] and (tmp_path / "earlier.csv").read_text() == "new\n"

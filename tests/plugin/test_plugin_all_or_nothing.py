@@ -7,13 +7,18 @@ layer provider would strike: the report writer, the second raster, the move into
 """
 from __future__ import annotations
 
+import os
+import subprocess
+import sys
+import time
+
 import pytest
-from qgis.core import QgsProcessingException
+from qgis.core import QgsProcessingException, QgsProcessingFeedback
 
 from fault_injection import DISK_FULL, fail_on_call, names
 from fieldcast.algorithms.io import staging
 from fieldcast.algorithms.io.geotiff import GeoTiffWriter
-from fieldcast.plugin import cross_validate, predict_many, simulate
+from fieldcast.plugin import predict_many, sinks
 from fieldcast.plugin.report import fit_report
 from qgis_support import fieldcast_plugin, point_layer, qgis_processing  # noqa: F401 - fixtures
 from test_plugin_decision_maps import (  # noqa: F401 - zinc_model is a fixture
@@ -79,7 +84,7 @@ def test_simulate_writes_its_rasters_and_table(qgis_processing, meuse, meuse_gri
 
 def test_simulate_whose_table_fails_leaves_no_raster(qgis_processing, meuse, meuse_grid, zinc_model,  # noqa: F811
                                                      tmp_path, monkeypatch):
-    fail_on_call(monkeypatch, simulate, "add_feature", 2)
+    fail_on_call(monkeypatch, sinks, "add_feature", 2)
     with pytest.raises(QgsProcessingException, match=DISK_FULL):
         qgis_processing.run("fieldcast:simulate", simulate_parameters(meuse, meuse_grid, zinc_model, tmp_path))
     assert names(tmp_path) == []
@@ -87,7 +92,7 @@ def test_simulate_whose_table_fails_leaves_no_raster(qgis_processing, meuse, meu
 
 def test_crossvalidate_whose_points_fail_leaves_no_report(qgis_processing, meuse, zinc_model,  # noqa: F811
                                                           tmp_path, monkeypatch):
-    fail_on_call(monkeypatch, cross_validate, "add_feature", 10)
+    fail_on_call(monkeypatch, sinks, "add_feature", 10)
     with pytest.raises(QgsProcessingException, match=DISK_FULL):
         qgis_processing.run("fieldcast:crossvalidate", {
             "INPUT": point_layer(meuse.xy, {"zinc": meuse.zinc}), "FIELD": "zinc", "MODEL": zinc_model,
@@ -111,4 +116,78 @@ def test_predictmany_whose_second_field_fails_leaves_no_file_of_the_first(qgis_p
     fail_on_call(monkeypatch, predict_many, "fit_document", 2)
     with pytest.raises(QgsProcessingException, match=DISK_FULL):
         qgis_processing.run("fieldcast:predictmany", predictmany_parameters(meuse, tmp_path))
+    assert names(tmp_path) == []
+
+
+def test_simulate_whose_csv_table_fails_leaves_no_table(qgis_processing, meuse, meuse_grid, zinc_model,  # noqa: F811
+                                                        tmp_path, monkeypatch):
+    fail_on_call(monkeypatch, sinks, "add_feature", 2)
+    parameters = {**simulate_parameters(meuse, meuse_grid, zinc_model, tmp_path),
+                  "OUTPUT_TABLE": str(tmp_path / "t.csv")}
+    with pytest.raises(QgsProcessingException, match=DISK_FULL):
+        qgis_processing.run("fieldcast:simulate", parameters)
+    assert names(tmp_path) == []
+
+
+def test_simulate_whose_csv_table_fails_puts_the_earlier_table_back(qgis_processing, meuse, meuse_grid,  # noqa: F811
+                                                                    zinc_model, tmp_path, monkeypatch):  # noqa: F811
+    earlier = tmp_path / "t.csv"
+    earlier.write_text("realisation,area_above,mask_mean\n1,2.0,3.0\n")
+    fail_on_call(monkeypatch, sinks, "add_feature", 3)
+    parameters = {**simulate_parameters(meuse, meuse_grid, zinc_model, tmp_path), "OUTPUT_TABLE": str(earlier)}
+    with pytest.raises(QgsProcessingException, match=DISK_FULL):
+        qgis_processing.run("fieldcast:simulate", parameters)
+    assert names(tmp_path) == ["t.csv"]
+    assert earlier.read_text() == "realisation,area_above,mask_mean\n1,2.0,3.0\n"
+
+
+def test_a_table_that_replaces_an_earlier_one_leaves_no_backup(qgis_processing, meuse, meuse_grid,  # noqa: F811
+                                                               zinc_model, tmp_path):  # noqa: F811
+    earlier = tmp_path / "t.csv"
+    earlier.write_text("an earlier table\n")
+    parameters = {**simulate_parameters(meuse, meuse_grid, zinc_model, tmp_path), "OUTPUT_TABLE": str(earlier)}
+    qgis_processing.run("fieldcast:simulate", parameters)
+    assert names(tmp_path) == ["mean.tif", "realisations.tif", "t.csv"]
+    assert earlier.read_text().splitlines()[0] == "realisation,area_above,mask_mean"
+    assert len(earlier.read_text().splitlines()) == 4  # a header and the three realisations
+
+
+def test_crossvalidate_into_a_geopackage_that_fails_keeps_its_other_layers(qgis_processing, meuse, zinc_model,  # noqa: F811
+                                                                           tmp_path, monkeypatch):
+    package = tmp_path / "survey.gpkg"
+    base = {"INPUT": point_layer(meuse.xy, {"zinc": meuse.zinc}), "FIELD": "zinc", "MODEL": zinc_model}
+    qgis_processing.run("fieldcast:crossvalidate", {**base, "OUTPUT": f"ogr:dbname='{package}' table=\"first\""})
+    before = package.read_bytes()
+    fail_on_call(monkeypatch, sinks, "add_feature", 10)
+    with pytest.raises(QgsProcessingException, match=DISK_FULL):
+        qgis_processing.run("fieldcast:crossvalidate", {**base, "OUTPUT": f"ogr:dbname='{package}' table=\"second\""})
+    assert names(tmp_path) == ["survey.gpkg"] and package.read_bytes() == before
+
+
+def test_files_left_by_a_killed_run_are_cleared_and_logged(qgis_processing, meuse, meuse_grid,  # noqa: F811
+                                                           zinc_model, tmp_path):  # noqa: F811
+    child = subprocess.Popen([sys.executable, "-c", "pass"])
+    child.wait()  # its process id is now one of a process that has ended, as a killed run's
+    left = [f".prediction.tif.fieldcast-{child.pid}-0123456789ab.part",
+            f".prediction.tif.fieldcast-{child.pid}-0123456789ab.part.aux.xml"]
+    minute_ago = time.time() - 60
+    for name in left:
+        (tmp_path / name).write_text("partial")
+        os.utime(tmp_path / name, (minute_ago, minute_ago))
+    (tmp_path / "notes.part").write_text("not ours")
+    feedback = QgsProcessingFeedback()
+    qgis_processing.run("fieldcast:predict", predict_parameters(meuse, meuse_grid, zinc_model, tmp_path),
+                        feedback=feedback)
+    assert names(tmp_path) == ["exceedance.tif", "notes.part", "prediction.tif", "variance.tif"]
+    assert (f"Cleared in {tmp_path} the files an interrupted earlier run left behind: {left[0]} removed; "
+            f"{left[1]} removed.") in feedback.textLog()
+
+
+def test_crossvalidate_into_a_shapefile_that_fails_leaves_none_of_its_files(qgis_processing, meuse,  # noqa: F811
+                                                                            zinc_model, tmp_path, monkeypatch):  # noqa: F811
+    fail_on_call(monkeypatch, sinks, "add_feature", 10)
+    with pytest.raises(QgsProcessingException, match=DISK_FULL):
+        qgis_processing.run("fieldcast:crossvalidate", {
+            "INPUT": point_layer(meuse.xy, {"zinc": meuse.zinc}), "FIELD": "zinc", "MODEL": zinc_model,
+            "OUTPUT": str(tmp_path / "cv.shp")})
     assert names(tmp_path) == []

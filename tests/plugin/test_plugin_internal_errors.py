@@ -7,7 +7,7 @@ from __future__ import annotations
 import importlib
 
 import pytest
-from qgis.core import QgsProcessingException, QgsProcessingFeedback
+from qgis.core import QgsFeatureSink, QgsProcessingException, QgsProcessingFeedback
 
 from qgis_support import fieldcast_plugin, point_layer, qgis_processing  # noqa: F401 - fixtures
 from repo_package import PACKAGE_NAME
@@ -45,15 +45,19 @@ def test_an_unexpected_engine_failure_is_reported_without_leaving_files(qgis_pro
     assert list(tmp_path.iterdir()) == []
 
 
-class FullDiskSink:
+class FullDiskSink(QgsFeatureSink):
     """A sink that takes ``accepted`` features and then refuses every further one, as a full disk would."""
 
     def __init__(self, accepted: int) -> None:
+        super().__init__()
         self.accepted = accepted
 
     def addFeature(self, feature, flags=None) -> bool:  # noqa: N802 - QGIS name
         self.accepted -= 1
         return self.accepted >= 0
+
+    def addFeatures(self, features, flags=None) -> bool:  # noqa: N802 - QGIS name
+        return all(self.addFeature(feature) for feature in features)
 
     def lastError(self) -> str:  # noqa: N802 - QGIS name
         return "No space left on device"
@@ -67,7 +71,7 @@ def full_disk(monkeypatch):
 
 
 FULL_DISK_MESSAGE = ("Could not write feature 3 to /full/disk: No space left on device. Check the disk space and "
-                     "that the file is writable.")
+                     "that the file is writable, or choose another output file.")
 
 
 @pytest.fixture()

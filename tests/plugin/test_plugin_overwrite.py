@@ -119,3 +119,60 @@ def test_separate_files_still_run(qgis_processing, samples_file, model_file, tmp
         "OUTPUT": str(tmp_path / "cv.gpkg"), "OUTPUT_REPORT": str(tmp_path / "cv.html")})
     assert Path(results["OUTPUT"].split("|")[0]).exists()
     assert digest(samples_file) == before
+
+
+@pytest.mark.parametrize("destination", ["ogr:dbname='{path}' table=\"cv\" (geom)", "ogr:dbname={path} table=cv",
+                                         "ogr:{path}", "dbname='{path}' table=cv"],
+                         ids=["ogr quoted", "ogr bare", "ogr path", "no prefix"])
+def test_an_ogr_uri_over_the_input_is_refused(qgis_processing, samples_file, model_file, tmp_path,  # noqa: F811
+                                              destination):
+    message = refused(qgis_processing, "fieldcast:crossvalidate",
+                      {"INPUT": str(samples_file), "FIELD": "zinc", "MODEL": str(model_file),
+                       "OUTPUT": destination.format(path=samples_file), "OUTPUT_REPORT": str(tmp_path / "cv.html")},
+                      samples_file)
+    assert f"OUTPUT would overwrite the input file {samples_file} (INPUT)" in message
+    assert not (tmp_path / "cv.html").exists()
+
+
+def test_an_ogr_uri_table_on_the_report_file_is_refused(qgis_processing, samples_file, model_file,  # noqa: F811
+                                                        tmp_path):
+    table = tmp_path / "sims.gpkg"
+    with pytest.raises(QgsProcessingException) as error:
+        qgis_processing.run("fieldcast:simulate", {
+            "INPUT": str(samples_file), "FIELD": "zinc", "MODEL": str(model_file), "PIXEL_SIZE": 400,
+            "REALIZATIONS": 2, "OUTPUT": str(table), "OUTPUT_TABLE": f"ogr:dbname='{table}' table=\"summary\""})
+    assert str(error.value) == (f"OUTPUT and OUTPUT_TABLE are the same file {table}; give each output its own "
+                                "file name.")
+    assert not table.exists()
+
+
+def read_only(path: Path, text: str) -> Path:
+    path.write_text(text)
+    path.chmod(0o444)
+    return path
+
+
+@pytest.mark.parametrize(("name", "output"), [("OUTPUT", "zinc.tif"), ("OUTPUT_TABLE", "sims.csv")])
+def test_a_read_only_output_is_refused_before_any_work(qgis_processing, samples_file, model_file, tmp_path,  # noqa: F811
+                                                       name, output):
+    outputs = {"OUTPUT": str(tmp_path / "zinc.tif"), "OUTPUT_TABLE": str(tmp_path / "sims.csv")}
+    kept = read_only(tmp_path / output, "kept on purpose")
+    message = refused(qgis_processing, "fieldcast:simulate",
+                      {"INPUT": str(samples_file), "FIELD": "zinc", "MODEL": str(model_file), "PIXEL_SIZE": 400,
+                       "REALIZATIONS": 2, **outputs}, kept)
+    assert message == (f"The output file {kept} ({name}) exists and is read-only, so it is not replaced. "
+                       "Make the file writable if it may be replaced, or choose another file name.")
+    assert kept.stat().st_mode & 0o777 == 0o444
+    assert sorted(path.name for path in tmp_path.iterdir()) == sorted(["samples.gpkg", "zinc.json", output])
+
+
+def test_a_read_only_file_in_an_output_folder_is_refused_and_kept(qgis_processing, samples_file,  # noqa: F811
+                                                                  tmp_path):
+    folder = tmp_path / "many"
+    folder.mkdir()
+    kept = read_only(folder / "zinc_variance.tif", "kept on purpose")
+    message = refused(qgis_processing, "fieldcast:predictmany",
+                      {"INPUT": str(samples_file), "FIELDS": ["zinc"], **QUICK_FIT, "PIXEL_SIZE": 400,
+                       "OUTPUT_FOLDER": str(folder)}, kept)
+    assert message.startswith(f"The output file {kept} (OUTPUT_FOLDER (zinc_variance.tif)) exists and is read-only")
+    assert sorted(path.name for path in folder.iterdir()) == ["zinc_variance.tif"]
