@@ -73,6 +73,7 @@ _PUBLIC = {
     "SurfaceScale": "predict.grid_surfaces",
     "cell_predictor": "predict.grid_surfaces",
     "write_surfaces": "predict.grid_surfaces",
+    "ExtrapolationCheck": "predict.extrapolation",
     "AUTOMATIC_NEIGHBOURS": "predict.choice",
     "GLOBAL_SAMPLE_LIMIT": "predict.choice",
     "LogLine": "predict.choice",

@@ -23,6 +23,7 @@ class PredictSurfaceAlgorithm(SurfaceAlgorithm):
     SUPPORT = "SUPPORT"
     OUTPUT = "OUTPUT"
     OUTPUT_VARIANCE = "OUTPUT_VARIANCE"
+    OUTPUT_DISTANCE = "OUTPUT_DISTANCE"
     ICON = "predict.svg"
 
     NAME = "predict"
@@ -54,7 +55,10 @@ class PredictSurfaceAlgorithm(SurfaceAlgorithm):
           "and variance under the model's Gaussian assumption (for a log model in the log scale, with the "
           "threshold log-transformed the same way). It is a probability under the model, not a certainty: 0.3 "
           "means the model gives the value a 30 % chance of exceeding the threshold, and a cell far from samples "
-          "sits near the share implied by the mean alone. Needs a threshold.")],
+          "sits near the share implied by the mean alone. Needs a threshold."),
+         ("Distance to the nearest sample", "Optional Float32 GeoTIFF: per cell the straight-line distance from "
+          "its centre to the nearest sample, in working CRS units (e.g. metres). Where it exceeds the model's "
+          "effective range the prediction is the model's mean, not something the samples show.")],
     )
 
     def initAlgorithm(self, config=None):
@@ -72,12 +76,15 @@ class PredictSurfaceAlgorithm(SurfaceAlgorithm):
             self.OUTPUT_VARIANCE, self.tr("Variance"), optional=True, createByDefault=False))
         self.addParameter(QgsProcessingParameterRasterDestination(
             self.OUTPUT_EXCEEDANCE, self.tr("Exceedance probability"), optional=True, createByDefault=False))
+        self.addParameter(QgsProcessingParameterRasterDestination(
+            self.OUTPUT_DISTANCE, self.tr("Distance to the nearest sample"), optional=True, createByDefault=False))
 
     def compute(self, parameters, context, feedback) -> dict:
         exceedance_path, threshold = self.exceedance_destination(parameters, context)
         paths = {"prediction": self.raster_destination(parameters, self.OUTPUT, context),
                  "variance": self.raster_destination(parameters, self.OUTPUT_VARIANCE, context),
-                 "exceedance": exceedance_path}
+                 "exceedance": exceedance_path,
+                 "distance": self.raster_destination(parameters, self.OUTPUT_DISTANCE, context)}
         document, samples = self.model_and_samples(parameters, context, feedback, progress_callback(feedback, 0, 30))
         grid, inside = self.grid_and_mask(parameters, context, samples.xy, document.crs_wkt, document.units,
                                           feedback, n_bands=sum(1 for path in paths.values() if path))
@@ -88,5 +95,5 @@ class PredictSurfaceAlgorithm(SurfaceAlgorithm):
                            self.neighbourhood(parameters, context), [(samples.field, paths)], feedback,
                            progress_callback(feedback, 30, 100))
         outputs = {self.OUTPUT: paths["prediction"], self.OUTPUT_VARIANCE: paths["variance"],
-                   self.OUTPUT_EXCEEDANCE: paths["exceedance"]}
+                   self.OUTPUT_EXCEEDANCE: paths["exceedance"], self.OUTPUT_DISTANCE: paths["distance"]}
         return {name: path for name, path in outputs.items() if path}

@@ -16,6 +16,7 @@ from ..algorithms import (
     BACKTRANSFORMS,
     CHECK_SAMPLE_LIMIT,
     CONDITION_ADVICE,
+    ExtrapolationCheck,
     FieldcastError,
     FieldRasters,
     GridSpec,
@@ -101,6 +102,8 @@ class SurfaceAlgorithm(RasterAlgorithm):
         One field: ``values`` (n,), one document and one ``(field name, paths)`` output. Several fields
         sampled at the same places and sharing one correlation model: ``values`` (n, k), and per field
         its document (the shared model at the field's scale) and its output; one predictor krigs them all.
+        A ``"distance"`` path of the first output receives the distance to the nearest sample. The
+        extrapolation counts (:class:`ExtrapolationCheck`) go to the log.
 
         Raises
         ------
@@ -124,7 +127,12 @@ class SurfaceAlgorithm(RasterAlgorithm):
                    for document, (field, paths) in zip(documents, outputs)]
         local = isinstance(predictor, LocalKrigingPredictor)
         before = (predictor.singular_targets, predictor.ill_conditioned_targets) if local else (0, 0)
+        check = ExtrapolationCheck.for_samples(xy, values, document.covariance, document.mean, scale.transform,
+                                               [field for field, _ in outputs],
+                                               [raster.variance_factor for raster in rasters])
         unresolved = write_surfaces(cell_predictor(predictor, scale.support, grid.pixel_size), grid, inside, scale,
-                                    documents[0].crs_wkt, rasters, progress, feedback.isCanceled)
+                                    documents[0].crs_wkt, rasters, progress, feedback.isCanceled, check,
+                                    outputs[0][1].get("distance", ""))
         after = (predictor.singular_targets, predictor.ill_conditioned_targets) if local else (0, 0)
         log_unresolved(unresolved, after[0] - before[0], after[1] - before[1], feedback)
+        push_log(feedback, check.lines(document.units))
