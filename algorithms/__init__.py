@@ -99,6 +99,7 @@ _PUBLIC = {
     "GridSpec": "io.grid",
     "default_pixel_size": "io.grid",
     "cell_mask": "io.mask",
+    "hull_mask": "io.mask",
     "GeoTiffWriter": "io.geotiff",
     "ModelDocument": "io.model_file",
     "json_ready": "io.model_file",

@@ -8,6 +8,7 @@ from .algorithm_base import progress_callback
 from .help_text import (
     BACKTRANSFORM_HELP,
     GRID_HELP,
+    MAP_AREA_HELP,
     MODEL_FILE_HELP,
     NEIGHBOURHOOD_HELP,
     TARGET_CRS_HELP,
@@ -36,6 +37,7 @@ class PredictSurfaceAlgorithm(SurfaceAlgorithm):
           "to). NULL values are skipped; samples at one location are averaged."),
          MODEL_FILE_HELP,
          *GRID_HELP,
+         *MAP_AREA_HELP,
          BACKTRANSFORM_HELP,
          ("Support", "point (default): the value at each cell centre, for maps of the attribute itself. cell: "
           "the average over each cell (block kriging with 4 x 4 points per cell), for decisions taken per area, "
@@ -65,6 +67,7 @@ class PredictSurfaceAlgorithm(SurfaceAlgorithm):
         self.add_sample_parameters()
         self.add_model_parameter()
         self.add_grid_parameters()
+        self.add_map_area_parameters()
         self.add_backtransform_parameter()
         self.add_choice(self.SUPPORT, self.tr("Support (point = cell centre, cell = cell average)"), SUPPORTS,
                         "point")

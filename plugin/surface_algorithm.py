@@ -11,6 +11,7 @@ from __future__ import annotations
 from collections.abc import Callable, Mapping, Sequence
 
 import numpy as np
+from qgis.core import QgsProcessingParameterNumber
 
 from ..algorithms import (
     BACKTRANSFORMS,
@@ -27,12 +28,15 @@ from ..algorithms import (
     cell_predictor,
     choose_predictor,
     grid_targets,
+    hull_mask,
     neighbourhood_gap,
     write_surfaces,
 )
 from .algorithm_base import push_log
 from .raster_algorithm import RasterAlgorithm
 
+MAP_AREAS = ("hull", "extent")
+"""MAP_AREA choices: the samples' convex hull grown by HULL_MARGIN, or the whole extent."""
 GAP_WARNING = 0.01
 """Departure of local from global kriging above which the log warns (fraction of the standard deviation for
 the prediction, of the sill for the variance)."""
@@ -87,6 +91,33 @@ class SurfaceAlgorithm(RasterAlgorithm):
     """Base of the algorithms that krige prediction and variance rasters."""
 
     BACKTRANSFORM = "BACKTRANSFORM"
+    MAP_AREA = "MAP_AREA"
+    HULL_MARGIN = "HULL_MARGIN"
+
+    def add_map_area_parameters(self) -> None:
+        """MAP_AREA: hull (default; the samples' convex hull grown by HULL_MARGIN) or extent (every cell)."""
+        self.add_choice(self.MAP_AREA, self.tr("Map area (hull = near the samples, extent = every cell)"),
+                        MAP_AREAS, "hull")
+        self.addParameter(QgsProcessingParameterNumber(
+            self.HULL_MARGIN, self.tr("Hull margin (working CRS units; empty = median sample spacing)"),
+            type=QgsProcessingParameterNumber.Double, optional=True, minValue=0.0))
+
+    def grid_and_mask(self, parameters, context, xy: np.ndarray, crs_wkt: str, units: str, feedback,
+                      n_bands: int) -> tuple[GridSpec, np.ndarray | None]:
+        """The grid and cell mask of :class:`.raster_algorithm.RasterAlgorithm`, limited by MAP_AREA, logged."""
+        grid, inside = super().grid_and_mask(parameters, context, xy, crs_wkt, units, feedback, n_bands)
+        if self.choice(parameters, self.MAP_AREA, context) == "extent":
+            return grid, inside
+        near, margin = hull_mask(grid, xy, self.optional_number(parameters, self.HULL_MARGIN, context))
+        limited = near if inside is None else near & inside
+        if not limited.any():
+            raise FieldcastError(f"No cell centre lies within {margin:g} {units} of the samples' convex hull"
+                                 f"{' and inside the mask' if inside is not None else ''}. Enlarge HULL_MARGIN, "
+                                 "or set MAP_AREA to extent to map every cell.")
+        feedback.pushInfo(f"Map area: {int(limited.sum()):,} of {grid.n_cells:,} cells lie within {margin:.4g} {units} "
+                          "of the samples' convex hull (MAP_AREA hull, HULL_MARGIN); the others are nodata. Set "
+                          "MAP_AREA to extent to map every cell.")
+        return grid, limited
 
     def add_backtransform_parameter(self) -> None:
         """BACKTRANSFORM: median (default) or mean, for log models."""
