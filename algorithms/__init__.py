@@ -51,6 +51,7 @@ _PUBLIC = {
     "fit_with": "fit.fitting",
     "fit_shared": "fit.shared",
     "fit_vecchia": "fit.vecchia_fit",
+    "range_warning": "fit.range_check",
     "log_likelihood": "fit.likelihood",
     "EmpiricalVariogram": "fit.variogram",
     "empirical_semivariogram": "fit.variogram",

@@ -76,3 +76,15 @@ def test_the_default_hull_maps_fewer_cells_outside_the_data(qgis_processing, zin
     assert margin == pytest.approx(np.median(np.sort(cdist(meuse.xy, meuse.xy), axis=1)[:, 1]), rel=1e-3)
     assert cdist(centres[~mapped], meuse.xy).min() > margin
     assert np.count_nonzero(near > meuse.zinc.max()) < np.count_nonzero(whole > meuse.zinc.max())
+
+
+def test_fitmodel_warns_when_the_range_runs_past_the_study(qgis_processing, meuse, tmp_path):  # noqa: F811
+    # The constant-mean exponential REML fit of Meuse log-zinc (tests/fit/test_range_check.py).
+    feedback = QgsProcessingFeedback()
+    qgis_processing.run("fieldcast:fitmodel", {
+        "INPUT": point_layer(meuse.xy, {"zinc": meuse.zinc}), "FIELD": "zinc", "TRANSFORM": "log",
+        "KERNEL": "exponential", "ANISOTROPY": False, "TREND": "constant", "METHOD": "reml",
+        "OUTPUT_MODEL": str(tmp_path / "zinc.json")}, feedback=feedback)
+    assert re.search(r"The fitted effective range \([0-9,]+ metre\) exceeds the study size \(4,441 metre",
+                     feedback.textLog())
+    assert "refit with TREND = linear or quadratic" in feedback.textLog()
