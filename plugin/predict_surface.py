@@ -48,7 +48,9 @@ class PredictSurfaceAlgorithm(SurfaceAlgorithm):
          THRESHOLD_HELP,
          TARGET_CRS_HELP],
         [("Prediction", "Float32 GeoTIFF in attribute units (for a log model back-transformed as chosen; "
-          "the band description says which). Nodata is -9999."),
+          "the band description says which). Nodata is -9999; it also marks cells whose kriging prediction lies "
+          "more than 6 standard deviations of the model from its mean, which the model gives a chance of about "
+          "2e-9 (unstable weights, counted in the log with what to change)."),
          ("Variance", "Optional Float32 GeoTIFF of the prediction-error variance in attribute units squared "
           "(for a log model the lognormal variance). It is the variance of the smooth field, without the "
           "nugget: small next to samples, growing away from them. Its square root is a standard error."),

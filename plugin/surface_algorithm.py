@@ -106,9 +106,12 @@ class SurfaceAlgorithm(RasterAlgorithm):
                       n_bands: int) -> tuple[GridSpec, np.ndarray | None]:
         """The grid and cell mask of :class:`.raster_algorithm.RasterAlgorithm`, limited by MAP_AREA, logged."""
         grid, inside = super().grid_and_mask(parameters, context, xy, crs_wkt, units, feedback, n_bands)
+        margin = self.optional_number(parameters, self.HULL_MARGIN, context)
         if self.choice(parameters, self.MAP_AREA, context) == "extent":
+            if margin is not None:
+                feedback.pushWarning("HULL_MARGIN is ignored: MAP_AREA is extent, so every cell is mapped.")
             return grid, inside
-        near, margin = hull_mask(grid, xy, self.optional_number(parameters, self.HULL_MARGIN, context))
+        near, margin = hull_mask(grid, xy, margin)
         limited = near if inside is None else near & inside
         if not limited.any():
             raise FieldcastError(f"No cell centre lies within {margin:g} {units} of the samples' convex hull"

@@ -88,3 +88,13 @@ def test_fitmodel_warns_when_the_range_runs_past_the_study(qgis_processing, meus
     assert re.search(r"The fitted effective range \([0-9,]+ metre\) exceeds the study size \(4,441 metre",
                      feedback.textLog())
     assert "refit with TREND = linear or quadratic" in feedback.textLog()
+
+
+def test_hull_margin_is_used_with_the_hull_and_said_to_be_ignored_without(qgis_processing, zinc, meuse):  # noqa: F811
+    feedback = QgsProcessingFeedback()
+    near, _, centres = predict(qgis_processing, zinc, "margin", feedback, MAP_AREA="hull", HULL_MARGIN=50.0)
+    assert "lie within 50 metre of the samples' convex hull" in feedback.textLog()
+    assert cdist(centres[np.isnan(near)], meuse.xy).min() > 50.0  # every sample lies inside its hull
+    feedback = QgsProcessingFeedback()
+    whole, _, _ = predict(qgis_processing, zinc, "ignored", feedback, HULL_MARGIN=50.0)
+    assert "HULL_MARGIN is ignored: MAP_AREA is extent" in feedback.textLog() and np.isfinite(whole).all()

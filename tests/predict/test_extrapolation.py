@@ -110,3 +110,21 @@ def test_distances_are_nodata_outside_the_mask(tmp_path, meuse, log_zinc):
     check, _, distance = krige(tmp_path, predictor, meuse, log_zinc, MEUSE_LOG_ZINC, inside=inside)
     assert np.all(np.isnan(distance[~inside.ravel()])) and np.all(np.isfinite(distance[inside.ravel()]))
     assert check.cells == inside.sum()
+
+
+def test_several_fields_are_checked_each_at_its_own_scale(meuse):
+    # Log zinc and log copper under one correlation model, copper's sill a quarter of zinc's: each column is
+    # checked as it would be alone with its own sill.
+    values = np.log(np.column_stack([meuse.zinc, meuse.copper]))
+    mean = MeanModel.for_data("constant", meuse.xy)
+    both = ExtrapolationCheck.for_samples(meuse.xy, values, GAUSSIAN, mean, LOG, ["zinc", "copper"], [1.0, 0.25])
+    centres = GRID.cell_centres()
+    predicted, _ = LocalKrigingPredictor(meuse.xy, values, GAUSSIAN, mean, neighbours=16).predict(centres)
+    both.screen(centres, predicted, np.zeros_like(predicted))
+    for column, (name, sill) in enumerate([("zinc", 0.6), ("copper", 0.15)]):
+        alone = ExtrapolationCheck.for_samples(meuse.xy, values[:, column], CovarianceModel(
+            (Structure("gaussian", sill, 1000.0),), 0.0), mean, LOG, [name])
+        alone.screen(centres, predicted[:, column:column + 1], np.zeros((len(centres), 1)))
+        assert both.counts[column].outside_model == alone.counts[0].outside_model > 0
+        assert alone.counts[0].outside_model == np.count_nonzero(
+            np.abs(predicted[:, column] - values[:, column].mean()) > TAIL_SDS * np.sqrt(sill))
