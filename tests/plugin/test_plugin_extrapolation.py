@@ -10,7 +10,7 @@ import re
 
 import numpy as np
 import pytest
-from qgis.core import QgsProcessingFeedback
+from qgis.core import QgsProcessingException, QgsProcessingFeedback
 from scipy.spatial.distance import cdist
 
 from fieldcast.algorithms.model.mean import MeanModel
@@ -98,3 +98,12 @@ def test_hull_margin_is_used_with_the_hull_and_said_to_be_ignored_without(qgis_p
     feedback = QgsProcessingFeedback()
     whole, _, _ = predict(qgis_processing, zinc, "ignored", feedback, HULL_MARGIN=50.0)
     assert "HULL_MARGIN is ignored: MAP_AREA is extent" in feedback.textLog() and np.isfinite(whole).all()
+
+
+def test_a_distance_raster_on_the_prediction_is_refused_before_any_work(qgis_processing, zinc):  # noqa: F811
+    layer, model, folder = zinc
+    target = folder / "clash.tif"
+    with pytest.raises(QgsProcessingException, match="OUTPUT and OUTPUT_DISTANCE are the same file"):
+        qgis_processing.run("fieldcast:predict", {"INPUT": layer, "FIELD": "zinc", "MODEL": model,
+                                                  "OUTPUT": str(target), "OUTPUT_DISTANCE": str(target)})
+    assert not target.exists()
