@@ -15,7 +15,7 @@ from typing import Optional
 
 import numpy as np
 
-from ..errors import Cancelled
+from ..errors import Cancelled, FieldcastError
 from ..io.geotiff import GeoTiffWriter
 from ..io.grid import GridSpec
 from ..io.staging import staged_together
@@ -167,7 +167,7 @@ def write_surfaces(predict: CellPredictor, grid: GridSpec, inside: np.ndarray | 
         When ``should_stop()`` turns True; no output file is left.
     """
     if distance_path and check is None:
-        raise ValueError("the distance raster needs the samples of an ExtrapolationCheck")
+        raise FieldcastError("The distance raster needs the samples: pass an ExtrapolationCheck with distance_path.")
     step = block_rows(grid, len(fields))
     unresolved = 0
     with staged_together(), contextlib.ExitStack() as stack:
@@ -199,6 +199,7 @@ def write_surfaces(predict: CellPredictor, grid: GridSpec, inside: np.ndarray | 
                 variances = variance[:, None] * np.array([output.variance_factor for output in fields])
                 if check is not None:
                     mean, variances = check.screen(centres[keep], mean, variances)
+                if distance_writer is not None:
                     distance[keep] = check.distances(centres[keep])
                 for column, field_bands in enumerate(bands):
                     layers = scale.layers(mean[:, column], variances[:, column], list(field_bands) + ["prediction"])
