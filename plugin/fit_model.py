@@ -5,7 +5,14 @@ from collections.abc import Callable, Mapping
 
 from qgis.core import QgsProcessingOutputNumber, QgsProcessingParameterFileDestination
 
-from ..algorithms import FitResult, ModelDocument, candidate_rmse, parse_crs, residual_semivariograms
+from ..algorithms import (
+    FitResult,
+    ModelDocument,
+    candidate_rmse,
+    parse_crs,
+    range_warning,
+    residual_semivariograms,
+)
 from .algorithm_base import FieldcastAlgorithm, progress_callback
 from .help_text import FIT_HELP, TARGET_CRS_HELP, compose_help
 from .model_source import fit_document
@@ -101,6 +108,9 @@ class FitModelAlgorithm(FieldcastAlgorithm):
                                         feedback.isCanceled)
         for warning in document.fit.get("warnings", []):
             feedback.pushWarning(warning)
+        long_range = range_warning(samples.xy, samples.values, result, document.units)
+        if long_range:
+            feedback.pushWarning(long_range)
         report = None
         if report_path:
             feedback.pushInfo(f"Leave-one-out of the {len(result.candidates)} candidate model(s) for the report.")

@@ -50,6 +50,16 @@ GRID_HELP = [
      "'Simulate conditional fields', left out of the areas and means)."),
 ]
 
+MAP_AREA_HELP = [
+    ("Map area", "hull (the default): only cells within the hull margin of the samples' convex hull are "
+     "predicted, the others are nodata, so the map does not reach far beyond the data, where kriging only "
+     "returns the model's mean and its variance nears the sill. extent: every cell of the extent (and mask) is "
+     "predicted. A mask still applies with either choice. The log counts the cells farther than the model's "
+     "effective range from every sample and the cells predicted outside the samples' range, and warns above 1 %."),
+    ("Hull margin", "How far the convex hull is grown, in working CRS units. Empty: the median distance "
+     "between neighbouring samples (the log says how much)."),
+]
+
 BACKTRANSFORM_HELP = ("Back-transform", "For a log model only: median (exp(mu) - offset, the default, robust) or "
                       "mean (exp(mu + s2/2) - offset).")
 

@@ -16,7 +16,15 @@ from qgis.core import (
 
 from ..algorithms import Cancelled, FieldcastError, MeanModel, Neighbourhood, SurfaceScale, Transform
 from .algorithm_base import progress_callback
-from .help_text import BACKTRANSFORM_HELP, FIT_HELP, GRID_HELP, NEIGHBOURHOOD_HELP, TARGET_CRS_HELP, compose_help
+from .help_text import (
+    BACKTRANSFORM_HELP,
+    FIT_HELP,
+    GRID_HELP,
+    MAP_AREA_HELP,
+    NEIGHBOURHOOD_HELP,
+    TARGET_CRS_HELP,
+    compose_help,
+)
 from .layer_style import load_styled
 from .model_source import FitSettings, describe_document, fit_document, fit_shared_documents
 from .sample_reader import prepare_samples, read_layer_samples
@@ -73,6 +81,7 @@ class PredictManyAlgorithm(SurfaceAlgorithm):
           "so one kriging pass writes all the rasters: much faster for many fields. Choose it when the fields vary "
           "alike in space (e.g. metals from one source); check it with 'Cross-validate' on a field's model file."),
          *GRID_HELP,
+         *MAP_AREA_HELP,
          BACKTRANSFORM_HELP,
          *NEIGHBOURHOOD_HELP,
          TARGET_CRS_HELP],
@@ -96,6 +105,7 @@ class PredictManyAlgorithm(SurfaceAlgorithm):
         self.addParameter(QgsProcessingParameterBoolean(
             self.SHARED_MODEL, self.tr("One correlation model for all fields"), defaultValue=False))
         self.add_grid_parameters()
+        self.add_map_area_parameters()
         self.add_backtransform_parameter()
         self.add_neighbourhood_parameters()
         self.add_target_crs_parameter()

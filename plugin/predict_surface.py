@@ -8,6 +8,7 @@ from .algorithm_base import progress_callback
 from .help_text import (
     BACKTRANSFORM_HELP,
     GRID_HELP,
+    MAP_AREA_HELP,
     MODEL_FILE_HELP,
     NEIGHBOURHOOD_HELP,
     TARGET_CRS_HELP,
@@ -24,6 +25,7 @@ class PredictSurfaceAlgorithm(SurfaceAlgorithm):
     SUPPORT = "SUPPORT"
     OUTPUT = "OUTPUT"
     OUTPUT_VARIANCE = "OUTPUT_VARIANCE"
+    OUTPUT_DISTANCE = "OUTPUT_DISTANCE"
     ICON = "predict.svg"
 
     NAME = "predict"
@@ -36,6 +38,7 @@ class PredictSurfaceAlgorithm(SurfaceAlgorithm):
           "to). NULL values are skipped; samples at one location are averaged."),
          MODEL_FILE_HELP,
          *GRID_HELP,
+         *MAP_AREA_HELP,
          BACKTRANSFORM_HELP,
          ("Support", "point (default): the value at each cell centre, for maps of the attribute itself. cell: "
           "the average over each cell (block kriging with 4 x 4 points per cell), for decisions taken per area, "
@@ -46,7 +49,9 @@ class PredictSurfaceAlgorithm(SurfaceAlgorithm):
          THRESHOLD_HELP,
          TARGET_CRS_HELP],
         [("Prediction", "Float32 GeoTIFF in attribute units (for a log model back-transformed as chosen; "
-          "the band description says which). Nodata is -9999."),
+          "the band description says which). Nodata is -9999; it also marks cells whose kriging prediction lies "
+          "more than 6 standard deviations of the model from its mean, which the model gives a chance of about "
+          "2e-9 (unstable weights, counted in the log with what to change)."),
          ("Variance", "Optional Float32 GeoTIFF of the prediction-error variance in attribute units squared "
           "(for a log model the lognormal variance). It is the variance of the smooth field, without the "
           "nugget: small next to samples, growing away from them. Its square root is a standard error."),
@@ -55,13 +60,17 @@ class PredictSurfaceAlgorithm(SurfaceAlgorithm):
           "and variance under the model's Gaussian assumption (for a log model in the log scale, with the "
           "threshold log-transformed the same way). It is a probability under the model, not a certainty: 0.3 "
           "means the model gives the value a 30 % chance of exceeding the threshold, and a cell far from samples "
-          "sits near the share implied by the mean alone. Needs a threshold.")],
+          "sits near the share implied by the mean alone. Needs a threshold."),
+         ("Distance to the nearest sample", "Optional Float32 GeoTIFF: per cell the straight-line distance from "
+          "its centre to the nearest sample, in working CRS units (e.g. metres). Where it exceeds the model's "
+          "effective range the prediction is the model's mean, not something the samples show.")],
     )
 
     def initAlgorithm(self, config=None):
         self.add_sample_parameters()
         self.add_model_parameter()
         self.add_grid_parameters()
+        self.add_map_area_parameters()
         self.add_backtransform_parameter()
         self.add_choice(self.SUPPORT, self.tr("Support (point = cell centre, cell = cell average)"), SUPPORTS,
                         "point", expert=True)
@@ -73,12 +82,15 @@ class PredictSurfaceAlgorithm(SurfaceAlgorithm):
             self.OUTPUT_VARIANCE, self.tr("Variance"), optional=True, createByDefault=False))
         self.addParameter(QgsProcessingParameterRasterDestination(
             self.OUTPUT_EXCEEDANCE, self.tr("Exceedance probability"), optional=True, createByDefault=False))
+        self.addParameter(QgsProcessingParameterRasterDestination(
+            self.OUTPUT_DISTANCE, self.tr("Distance to the nearest sample"), optional=True, createByDefault=False))
 
     def compute(self, parameters, context, feedback) -> dict:
         exceedance_path, threshold = self.exceedance_destination(parameters, context)
         paths = {"prediction": self.raster_destination(parameters, self.OUTPUT, context),
                  "variance": self.raster_destination(parameters, self.OUTPUT_VARIANCE, context),
-                 "exceedance": exceedance_path}
+                 "exceedance": exceedance_path,
+                 "distance": self.raster_destination(parameters, self.OUTPUT_DISTANCE, context)}
         document, samples = self.model_and_samples(parameters, context, feedback, progress_callback(feedback, 0, 30))
         grid, inside = self.grid_and_mask(parameters, context, samples.xy, document.crs_wkt, document.units,
                                           feedback, n_bands=sum(1 for path in paths.values() if path))
@@ -91,5 +103,5 @@ class PredictSurfaceAlgorithm(SurfaceAlgorithm):
         for quantity, path in paths.items():
             style_on_load(context, path, samples.field, quantity, threshold=threshold)
         outputs = {self.OUTPUT: paths["prediction"], self.OUTPUT_VARIANCE: paths["variance"],
-                   self.OUTPUT_EXCEEDANCE: paths["exceedance"]}
+                   self.OUTPUT_EXCEEDANCE: paths["exceedance"], self.OUTPUT_DISTANCE: paths["distance"]}
         return {name: path for name, path in outputs.items() if path}

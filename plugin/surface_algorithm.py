@@ -11,11 +11,13 @@ from __future__ import annotations
 from collections.abc import Callable, Mapping, Sequence
 
 import numpy as np
+from qgis.core import QgsProcessingParameterNumber
 
 from ..algorithms import (
     BACKTRANSFORMS,
     CHECK_SAMPLE_LIMIT,
     CONDITION_ADVICE,
+    ExtrapolationCheck,
     FieldcastError,
     FieldRasters,
     GridSpec,
@@ -26,12 +28,15 @@ from ..algorithms import (
     cell_predictor,
     choose_predictor,
     grid_targets,
+    hull_mask,
     neighbourhood_gap,
     write_surfaces,
 )
 from .algorithm_base import push_log
 from .raster_algorithm import RasterAlgorithm
 
+MAP_AREAS = ("hull", "extent")
+"""MAP_AREA choices: the samples' convex hull grown by HULL_MARGIN, or the whole extent."""
 GAP_WARNING = 0.01
 """Departure of local from global kriging above which the log warns (fraction of the standard deviation for
 the prediction, of the sill for the variance)."""
@@ -86,6 +91,36 @@ class SurfaceAlgorithm(RasterAlgorithm):
     """Base of the algorithms that krige prediction and variance rasters."""
 
     BACKTRANSFORM = "BACKTRANSFORM"
+    MAP_AREA = "MAP_AREA"
+    HULL_MARGIN = "HULL_MARGIN"
+
+    def add_map_area_parameters(self) -> None:
+        """MAP_AREA: hull (default; the samples' convex hull grown by HULL_MARGIN) or extent (every cell)."""
+        self.add_choice(self.MAP_AREA, self.tr("Map area (hull = near the samples, extent = every cell)"),
+                        MAP_AREAS, "hull")
+        self.addParameter(QgsProcessingParameterNumber(
+            self.HULL_MARGIN, self.tr("Hull margin (working CRS units; empty = median sample spacing)"),
+            type=QgsProcessingParameterNumber.Double, optional=True, minValue=0.0))
+
+    def grid_and_mask(self, parameters, context, xy: np.ndarray, crs_wkt: str, units: str, feedback,
+                      n_bands: int) -> tuple[GridSpec, np.ndarray | None]:
+        """The grid and cell mask of :class:`.raster_algorithm.RasterAlgorithm`, limited by MAP_AREA, logged."""
+        grid, inside = super().grid_and_mask(parameters, context, xy, crs_wkt, units, feedback, n_bands)
+        margin = self.optional_number(parameters, self.HULL_MARGIN, context)
+        if self.choice(parameters, self.MAP_AREA, context) == "extent":
+            if margin is not None:
+                feedback.pushWarning("HULL_MARGIN is ignored: MAP_AREA is extent, so every cell is mapped.")
+            return grid, inside
+        near, margin = hull_mask(grid, xy, margin)
+        limited = near if inside is None else near & inside
+        if not limited.any():
+            raise FieldcastError(f"No cell centre lies within {margin:g} {units} of the samples' convex hull"
+                                 f"{' and inside the mask' if inside is not None else ''}. Enlarge HULL_MARGIN, "
+                                 "or set MAP_AREA to extent to map every cell.")
+        feedback.pushInfo(f"Map area: {int(limited.sum()):,} of {grid.n_cells:,} cells lie within {margin:.4g} {units} "
+                          "of the samples' convex hull (MAP_AREA hull, HULL_MARGIN); the others are nodata. Set "
+                          "MAP_AREA to extent to map every cell.")
+        return grid, limited
 
     def add_backtransform_parameter(self) -> None:
         """BACKTRANSFORM (advanced): median (default) or mean, for log models."""
@@ -102,6 +137,8 @@ class SurfaceAlgorithm(RasterAlgorithm):
         One field: ``values`` (n,), one document and one ``(field name, paths)`` output. Several fields
         sampled at the same places and sharing one correlation model: ``values`` (n, k), and per field
         its document (the shared model at the field's scale) and its output; one predictor krigs them all.
+        A ``"distance"`` path of the first output receives the distance to the nearest sample. The
+        extrapolation counts (:class:`ExtrapolationCheck`) go to the log.
 
         Raises
         ------
@@ -125,7 +162,12 @@ class SurfaceAlgorithm(RasterAlgorithm):
                    for document, (field, paths) in zip(documents, outputs)]
         local = isinstance(predictor, LocalKrigingPredictor)
         before = (predictor.singular_targets, predictor.ill_conditioned_targets) if local else (0, 0)
+        check = ExtrapolationCheck.for_samples(xy, values, document.covariance, document.mean, scale.transform,
+                                               [field for field, _ in outputs],
+                                               [raster.variance_factor for raster in rasters])
         unresolved = write_surfaces(cell_predictor(predictor, scale.support, grid.pixel_size), grid, inside, scale,
-                                    documents[0].crs_wkt, rasters, progress, feedback.isCanceled)
+                                    documents[0].crs_wkt, rasters, progress, feedback.isCanceled, check,
+                                    outputs[0][1].get("distance", ""))
         after = (predictor.singular_targets, predictor.ill_conditioned_targets) if local else (0, 0)
         log_unresolved(unresolved, after[0] - before[0], after[1] - before[1], feedback)
+        push_log(feedback, check.lines(document.units))

@@ -15,13 +15,14 @@ from typing import Optional
 
 import numpy as np
 
-from ..errors import Cancelled
+from ..errors import Cancelled, FieldcastError
 from ..io.geotiff import GeoTiffWriter
 from ..io.grid import GridSpec
 from ..io.staging import staged_together
 from ..model.transform import Transform
 from .block import DEFAULT_POINTS_PER_SIDE, block_predict
 from .exceedance import exceedance_probability
+from .extrapolation import ExtrapolationCheck
 from .kriging import KrigingPredictor
 from .local import LocalKrigingPredictor
 
@@ -32,6 +33,7 @@ SURFACE_KINDS = ("prediction", "variance", "exceedance")
 BLOCK_CELLS = 1 << 20
 """Most cells predicted per block of rows (about 50 MB of working arrays with a few hundred samples)."""
 TILE_ROWS = 256
+DISTANCE_DESCRIPTION = "distance from the cell centre to the nearest sample (working CRS units, straight line)"
 
 CellPredictor = Callable[[np.ndarray, Callable[[float], None], Optional[Callable[[], bool]]],
                          tuple[np.ndarray, np.ndarray]]
@@ -143,13 +145,18 @@ class FieldRasters:
 
 def write_surfaces(predict: CellPredictor, grid: GridSpec, inside: np.ndarray | None, scale: SurfaceScale,
                    crs_wkt: str, fields: Sequence[FieldRasters], progress: Callable[[float], None] | None = None,
-                   should_stop: Callable[[], bool] | None = None) -> int:
+                   should_stop: Callable[[], bool] | None = None, check: ExtrapolationCheck | None = None,
+                   distance_path: str = "") -> int:
     """Predict every cell (those with ``inside`` True) and write each field's GeoTIFFs; returns the unresolved cells.
 
     ``predict`` gives one mean column per field of ``fields`` (shape (m,) for one field, (m, k) for k)
     and one variance, which each field scales by its ``variance_factor``. Cells outside the mask,
     cells the predictor leaves NaN (a local neighbourhood with too few samples in range) and values
     that do not fit Float32 are stored as nodata; the count returned is of the NaN cells inside the mask.
+    With a ``check``, a field's cells whose mean lies outside what the model allows are nodata too (and
+    counted there, not in the count returned), and the extrapolation counts are made; with a
+    ``distance_path`` as well, the distance to the nearest sample is written there (GeoTIFF, nodata
+    outside the mask).
 
     Every field's files appear together at the end (or, inside an :class:`..io.staging.OutputSet`, with
     the set's commit).
@@ -159,9 +166,13 @@ def write_surfaces(predict: CellPredictor, grid: GridSpec, inside: np.ndarray | 
     Cancelled
         When ``should_stop()`` turns True; no output file is left.
     """
+    if distance_path and check is None:
+        raise FieldcastError("The distance raster needs the samples: pass an ExtrapolationCheck with distance_path.")
     step = block_rows(grid, len(fields))
     unresolved = 0
     with staged_together(), contextlib.ExitStack() as stack:
+        distance_writer = (stack.enter_context(GeoTiffWriter(distance_path, grid, 1, crs_wkt, [DISTANCE_DESCRIPTION],
+                                                             fields[0].metadata)) if distance_path else None)
         writers = []
         for output in fields:
             descriptions = scale.descriptions(output.field)
@@ -176,6 +187,7 @@ def write_surfaces(predict: CellPredictor, grid: GridSpec, inside: np.ndarray | 
             centres = grid.cell_centres(start, stop)
             keep = np.ones(len(centres), bool) if inside is None else inside[start:stop].ravel()
             bands = [{kind: np.full(len(centres), np.nan) for kind in field_writers} for field_writers in writers]
+            distance = np.full(len(centres), np.nan)
             if keep.any():
                 def block_progress(fraction: float, start: int = start, stop: int = stop) -> None:
                     if progress is not None:
@@ -184,16 +196,25 @@ def write_surfaces(predict: CellPredictor, grid: GridSpec, inside: np.ndarray | 
                 mean, variance = predict(centres[keep], block_progress, should_stop)
                 mean = mean.reshape(len(variance), -1)
                 unresolved += int(np.count_nonzero(np.isnan(variance)))
-                for column, (output, field_bands) in enumerate(zip(fields, bands)):
-                    layers = scale.layers(mean[:, column], variance * output.variance_factor, list(field_bands))
-                    for kind, values in layers.items():
-                        field_bands[kind][keep] = values
+                variances = variance[:, None] * np.array([output.variance_factor for output in fields])
+                if check is not None:
+                    mean, variances = check.screen(centres[keep], mean, variances)
+                if distance_writer is not None:
+                    distance[keep] = check.distances(centres[keep])
+                for column, field_bands in enumerate(bands):
+                    layers = scale.layers(mean[:, column], variances[:, column], list(field_bands) + ["prediction"])
+                    if check is not None:
+                        check.count_data_range(column, layers["prediction"])
+                    for kind in field_bands:
+                        field_bands[kind][keep] = layers[kind]
             for field_writers, field_bands in zip(writers, bands):
                 for kind, writer in field_writers.items():
                     writer.write_block(0, start, field_bands[kind])
+            if distance_writer is not None:
+                distance_writer.write_block(0, start, distance)
             if progress is not None:
                 progress(stop / grid.n_rows)
-        for field_writers in writers:
-            for writer in field_writers.values():
-                writer.commit()
+        for writer in [*(writer for field_writers in writers for writer in field_writers.values()),
+                       *([distance_writer] if distance_writer is not None else [])]:
+            writer.commit()
     return unresolved

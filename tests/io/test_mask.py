@@ -8,10 +8,11 @@ from __future__ import annotations
 import numpy as np
 import pytest
 from osgeo import ogr
+from scipy.spatial import ConvexHull, Delaunay, cKDTree
 
 from fieldcast.algorithms.errors import FieldcastError
 from fieldcast.algorithms.io.grid import GridSpec
-from fieldcast.algorithms.io.mask import cell_mask
+from fieldcast.algorithms.io.mask import cell_mask, hull_mask
 
 GRID = GridSpec(x_min=1000.0, y_max=2000.0, pixel_size=10.0, n_cols=30, n_rows=20)
 
@@ -61,3 +62,42 @@ def test_no_polygons_mask_every_cell():
 def test_unusable_geometries_are_refused(shape, fragment):
     with pytest.raises(FieldcastError, match=fragment):
         cell_mask(GRID, [shape])
+
+
+def hull_distance(points: np.ndarray, samples: np.ndarray) -> np.ndarray:
+    """Distance from each point to the convex hull of ``samples`` (0 inside), from scipy's hull.
+
+    Inside: scipy's Delaunay triangulation finds a simplex. Outside: the distance to the nearest hull edge
+    (point-to-segment distance, the projection clipped to the segment).
+    """
+    hull = ConvexHull(samples)
+    inside = Delaunay(samples).find_simplex(points) >= 0
+    start, stop = samples[hull.simplices[:, 0]], samples[hull.simplices[:, 1]]
+    edge = stop - start
+    t = np.clip(np.einsum("mkj,kj->mk", points[:, None, :] - start, edge) / np.sum(edge * edge, axis=1), 0, 1)
+    nearest = start + t[..., None] * edge
+    distance = np.linalg.norm(points[:, None, :] - nearest, axis=2).min(axis=1)
+    return np.where(inside, 0.0, distance)
+
+
+@pytest.mark.parametrize("margin", [0.0, 25.0, None])
+def test_hull_mask_keeps_the_cells_within_the_margin_of_the_convex_hull(meuse, margin):
+    grid = GridSpec.from_extent(178000.0, 329000.0, 182000.0, 334200.0, 40.0)  # the Meuse samples with a rim
+    mask, used = hull_mask(grid, meuse.xy, margin)
+    # Default margin: the median nearest-neighbour distance (scipy cKDTree brute check).
+    spacing = np.median(cKDTree(meuse.xy).query(meuse.xy, k=2)[0][:, 1])
+    assert used == pytest.approx(spacing if margin is None else margin)
+    distance = hull_distance(grid.cell_centres(), np.asarray(meuse.xy)).reshape(mask.shape)
+    tolerance = 1e-3 * max(used, 1.0)  # the grown hull's arcs are polygons (ARC_SEGMENTS)
+    assert np.all(mask[distance < used - tolerance]) and not np.any(mask[distance > used + tolerance])
+    assert 0 < mask.sum() < grid.n_cells
+
+
+def test_hull_mask_of_samples_on_a_line_needs_a_margin():
+    line = np.column_stack([np.linspace(1000.0, 1200.0, 5), np.full(5, 1900.0)])
+    with pytest.raises(FieldcastError, match="Give HULL_MARGIN a positive distance, or set MAP_AREA to extent"):
+        hull_mask(GRID, line, 0.0)
+    mask, _ = hull_mask(GRID, line, 12.0)  # centres lie 5 and 15 m from the line: no centre near the edge
+    x, y = centres()
+    np.testing.assert_array_equal(mask, np.hypot(np.maximum(np.maximum(1000.0 - x, x - 1200.0), 0.0), y - 1900.0)
+                                  < 12.0)

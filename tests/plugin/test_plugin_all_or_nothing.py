@@ -33,12 +33,12 @@ from test_plugin_predictmany import GRID
 def predict_parameters(meuse, meuse_grid, model: str, folder) -> dict:
     return {**grid_parameters(meuse, meuse_grid, model), "THRESHOLD": ZINC_THRESHOLD,
             "OUTPUT": str(folder / "prediction.tif"), "OUTPUT_VARIANCE": str(folder / "variance.tif"),
-            "OUTPUT_EXCEEDANCE": str(folder / "exceedance.tif")}
+            "OUTPUT_EXCEEDANCE": str(folder / "exceedance.tif"), "OUTPUT_DISTANCE": str(folder / "distance.tif")}
 
 
-def test_predict_writes_exactly_its_three_rasters(qgis_processing, meuse, meuse_grid, zinc_model, tmp_path):  # noqa: F811
+def test_predict_writes_exactly_its_four_rasters(qgis_processing, meuse, meuse_grid, zinc_model, tmp_path):  # noqa: F811
     qgis_processing.run("fieldcast:predict", predict_parameters(meuse, meuse_grid, zinc_model, tmp_path))
-    assert names(tmp_path) == ["exceedance.tif", "prediction.tif", "variance.tif"]
+    assert names(tmp_path) == ["distance.tif", "exceedance.tif", "prediction.tif", "variance.tif"]
 
 
 @pytest.mark.parametrize(("owner", "attribute"), [(GeoTiffWriter, "commit"), (staging.StagedFile, "move_into_place")],
@@ -46,6 +46,14 @@ def test_predict_writes_exactly_its_three_rasters(qgis_processing, meuse, meuse_
 def test_predict_whose_second_raster_fails_leaves_no_file(qgis_processing, meuse, meuse_grid, zinc_model,  # noqa: F811
                                                           tmp_path, monkeypatch, owner, attribute):
     fail_on_call(monkeypatch, owner, attribute, 2)
+    with pytest.raises(QgsProcessingException, match=DISK_FULL):
+        qgis_processing.run("fieldcast:predict", predict_parameters(meuse, meuse_grid, zinc_model, tmp_path))
+    assert names(tmp_path) == []
+
+
+def test_predict_whose_distance_raster_fails_leaves_no_file(qgis_processing, meuse, meuse_grid, zinc_model,  # noqa: F811
+                                                            tmp_path, monkeypatch):
+    fail_on_call(monkeypatch, GeoTiffWriter, "commit", 4)  # the distance raster is committed last
     with pytest.raises(QgsProcessingException, match=DISK_FULL):
         qgis_processing.run("fieldcast:predict", predict_parameters(meuse, meuse_grid, zinc_model, tmp_path))
     assert names(tmp_path) == []

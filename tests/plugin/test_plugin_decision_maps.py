@@ -51,11 +51,12 @@ def coarse_mask_centres(meuse_grid) -> np.ndarray:
 
 
 def grid_parameters(meuse, meuse_grid, model_path: str) -> dict:
-    """Samples, model, the 80 m grid over the published grid's extent, masked to the cells covering that grid."""
+    """Samples, model, the 80 m grid over the published grid's extent, masked to the cells covering that grid
+    (and only by them: MAP_AREA extent)."""
     x_min, y_min, x_max, y_max = MEUSE_GRID_EXTENT
     return {"INPUT": point_layer(meuse.xy, {"zinc": meuse.zinc}), "FIELD": "zinc", "MODEL": model_path,
             "EXTENT": f"{x_min},{x_max},{y_min},{y_max} [EPSG:28992]", "PIXEL_SIZE": COARSE_CELL,
-            "MASK": coarse_mask_layer(meuse_grid)}
+            "MASK": coarse_mask_layer(meuse_grid), "MAP_AREA": "extent"}
 
 
 def coarse_mask_layer(meuse_grid) -> QgsVectorLayer:

@@ -23,7 +23,8 @@ from qgis.core import (
 
 from fieldcast.algorithms.fit.fitting import fit_model
 from fieldcast.algorithms.io.crs import same_crs
-from fieldcast.algorithms.io.grid import default_pixel_size
+from fieldcast.algorithms.io.grid import GridSpec, default_pixel_size
+from fieldcast.algorithms.io.mask import hull_mask
 from fieldcast.algorithms.io.model_file import ModelDocument
 from fieldcast.algorithms.predict.crossval import leave_one_out
 from fieldcast.algorithms.predict.kriging import KrigingPredictor
@@ -72,7 +73,7 @@ def meuse_run(qgis_processing, meuse, meuse_grid, tmp_path_factory) -> MeuseRun:
     qgis_processing.run("fieldcast:predict", {
         "INPUT": samples, "FIELD": "zinc", "MODEL": fit["OUTPUT_MODEL"],
         "EXTENT": f"{x_min},{x_max},{y_min},{y_max} [EPSG:28992]", "PIXEL_SIZE": CELL,
-        "MASK": mask_layer(meuse_grid.xy), "OUTPUT": str(folder / "zinc.tif"),
+        "MASK": mask_layer(meuse_grid.xy), "MAP_AREA": "extent", "OUTPUT": str(folder / "zinc.tif"),
         "OUTPUT_VARIANCE": str(folder / "zinc_variance.tif")})
     cv = qgis_processing.run("fieldcast:crossvalidate", {"INPUT": samples, "FIELD": "zinc",
                                                          "MODEL": fit["OUTPUT_MODEL"], "OUTPUT": "memory:"})
@@ -236,7 +237,12 @@ def test_predict_without_model_fits_the_defaults_and_sizes_cells_from_the_spacin
     pixel = default_pixel_size(meuse.xy[:40], (low[0], low[1], high[0], high[1]), max_cells=1_000_000)
     assert dataset.GetGeoTransform()[1] == pixel
     assert "attribute units; kriging prediction" in dataset.GetRasterBand(1).GetDescription()
-    assert np.all(np.isfinite(band(dataset)))
+    # Default MAP_AREA hull: values exactly at the cells within one median sample spacing of the convex hull.
+    x0, _, _, y0, _, _ = dataset.GetGeoTransform()
+    grid = GridSpec(x0, y0, pixel, dataset.RasterXSize, dataset.RasterYSize)
+    near, margin = hull_mask(grid, meuse.xy[:40])
+    assert np.array_equal(np.isfinite(band(dataset)), near) and not near.all()
+    assert f"lie within {margin:.4g} metre of the samples' convex hull (MAP_AREA hull" in feedback.textLog()
 
 
 def test_cancel_during_fit_leaves_no_model_file(qgis_processing, meuse, tmp_path):  # noqa: F811

@@ -42,11 +42,12 @@ def zinc(qgis_processing, meuse, tmp_path_factory):  # noqa: F811
 
 
 def predict(processing, zinc, name: str, feedback=None, **extra) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Run fieldcast:predict; (prediction, variance, cell centres), nodata as NaN."""
+    """Run fieldcast:predict over every cell of the extent; (prediction, variance, cell centres), nodata as NaN."""
     layer, model, folder = zinc
     processing.run("fieldcast:predict", {
         "INPUT": layer, "FIELD": "zinc", "MODEL": model, "EXTENT": EXTENT, "PIXEL_SIZE": PIXEL,
-        "OUTPUT": str(folder / f"{name}.tif"), "OUTPUT_VARIANCE": str(folder / f"{name}_var.tif"), **extra},
+        "OUTPUT": str(folder / f"{name}.tif"), "OUTPUT_VARIANCE": str(folder / f"{name}_var.tif"),
+        "MAP_AREA": "extent", **extra},
         feedback=feedback)
     bands = []
     for path in (folder / f"{name}.tif", folder / f"{name}_var.tif"):

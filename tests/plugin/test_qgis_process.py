@@ -60,10 +60,10 @@ def fit(profile: Path, layer: str, field: str, model_path: Path) -> dict:
 
 
 def predict(profile: Path, layer: str, field: str, model_path: Path, raster_path: Path, **extra) -> None:
-    """Run fieldcast:predict on the Meuse grid extent with 40 m cells."""
+    """Run fieldcast:predict on every cell of the Meuse grid extent (MAP_AREA extent) with 40 m cells."""
     run = run_algorithm(profile, "fieldcast:predict",
                         {"INPUT": layer, "FIELD": field, "MODEL": model_path, "EXTENT": MEUSE_GRID_EXTENT,
-                         "PIXEL_SIZE": MEUSE_CELL, "OUTPUT": raster_path, **extra})
+                         "PIXEL_SIZE": MEUSE_CELL, "MAP_AREA": "extent", "OUTPUT": raster_path, **extra})
     assert run.returncode == 0, run.messages
 
 

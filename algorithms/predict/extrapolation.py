@@ -1,0 +1,183 @@
+"""How far a kriged grid reaches beyond what its samples and its model support: the checks of every surface run.
+
+Three counts, made block by block while :func:`.grid_surfaces.write_surfaces` writes the rasters:
+
+- **Outside the model.** Under the model the field at a cell is Gaussian with the trend ``m(x)`` as its mean and
+  the total sill ``s2`` as its variance, and a kriging prediction (a conditional mean) varies less than the field
+  itself. A prediction more than :data:`TAIL_SDS` standard deviations ``s`` from ``m(x)`` (modelling scale) has,
+  under the model, a probability below ``2 * Phi(-6) = 1.97e-9`` (the standard normal tail, Abramowitz & Stegun
+  1964, *Handbook of Mathematical Functions*, 26.2.17 and table 26.1), so in a grid of a million cells not even
+  one is expected. Such values come from unstable kriging weights (a smooth family without nugget, large
+  weights of opposite sign), not from the data; those cells are set to nodata and counted, so a map never shows
+  them as predictions. ``m(x)`` is the mean model fitted to the samples by ordinary least squares (unbiased for
+  the trend under the model; the known value for a known mean).
+- **Beyond the effective range.** Cells farther than the effective range from every sample (for each
+  structure, in its anisotropy frame): their prediction is essentially the trend and their variance the sill.
+- **Outside the data range.** Cells whose prediction (attribute units, as written) is below the smallest or
+  above the largest sample value.
+
+The distance from each cell to its nearest sample (working CRS units, Euclidean) is also kept for the optional
+distance raster.
+"""
+from __future__ import annotations
+
+from collections.abc import Sequence
+from dataclasses import dataclass, field
+
+import numpy as np
+from scipy.spatial import cKDTree
+
+from ..model.covariance import CovarianceModel, search_frame
+from ..model.mean import MeanModel
+from ..model.transform import Transform
+from .choice import LogLine
+
+TAIL_SDS = 6.0
+"""Standard deviations of the model from its trend beyond which a prediction is not one the model allows
+(two-sided standard normal tail 1.97e-9; see the module docstring)."""
+EXTRAPOLATION_SHARE = 0.01
+"""Share of the mapped cells beyond the effective range, or outside the data range, above which the log warns
+(our choice: a map whose every hundredth cell extrapolates needs a word)."""
+MODEL_ADVICE = ("Refit with 'Fit covariance model' and another Covariance family (KERNEL: exponential or "
+                "spherical instead of gaussian), or give the model file a positive nugget; with local kriging, "
+                "NEIGHBOURS = 0 (every sample) or a different number of neighbours changes the weights.")
+AREA_ADVICE = ("Limit the map to the samples with MAP_AREA = hull (and HULL_MARGIN), a MASK or a smaller EXTENT; "
+               "read the variance beside the prediction there.")
+
+
+@dataclass
+class FieldCounts:
+    """Counts of one field: cells set to nodata outside the model, cells below / above the data range."""
+
+    outside_model: int = 0
+    below: int = 0
+    above: int = 0
+    lowest: float = np.inf
+    highest: float = -np.inf
+
+
+@dataclass
+class ExtrapolationCheck:
+    """The samples and the model a grid is kriged from, and what the checks counted so far.
+
+    Build it with :meth:`for_samples`; :func:`.grid_surfaces.write_surfaces` calls :meth:`screen`,
+    :meth:`count_data_range` and :meth:`distances` per block; :meth:`lines` gives the log lines.
+
+    Attributes
+    ----------
+    tree : cKDTree
+        Of the sample coordinates (working CRS units).
+    frames : list of (Structure, cKDTree)
+        Each structure with the samples in its anisotropy frame (:func:`..model.covariance.search_frame`).
+    mean : MeanModel
+        The model's mean.
+    coefficients : ndarray of shape (p, k)
+        Least-squares trend coefficients, one column per field.
+    sds : ndarray of shape (k,)
+        Square root of each field's total sill (modelling scale).
+    data_range : ndarray of shape (k, 2)
+        Smallest and largest sample value of each field (attribute units).
+    fields : list of str
+        Field names, for the log.
+    cells, beyond_range : int
+        Cells checked so far, and those farther than the effective range from every sample.
+    counts : list of FieldCounts
+    """
+
+    tree: cKDTree
+    frames: list
+    mean: MeanModel
+    coefficients: np.ndarray
+    sds: np.ndarray
+    data_range: np.ndarray
+    fields: list[str]
+    cells: int = 0
+    beyond_range: int = 0
+    counts: list[FieldCounts] = field(default_factory=list)
+
+    @classmethod
+    def for_samples(cls, xy: np.ndarray, values: np.ndarray, covariance: CovarianceModel, mean: MeanModel,
+                    transform: Transform, fields: Sequence[str], sill_factors: Sequence[float] | None = None,
+                    ) -> ExtrapolationCheck:
+        """The check of a run kriging ``values`` (modelling scale, (n,) or (n, k)) at ``xy`` (n, 2).
+
+        ``sill_factors`` scales the covariance's sill per field (a model shared by several fields at
+        their own scales); 1 for each field when None.
+        """
+        columns = np.asarray(values, dtype=float).reshape(len(xy), -1)
+        design = mean.design(xy)
+        residual = columns - mean.known_mean(1)[0]
+        coefficients = (np.linalg.lstsq(design, residual, rcond=None)[0] if design.shape[1]
+                        else np.zeros((0, columns.shape[1])))
+        factors = np.ones(columns.shape[1]) if sill_factors is None else np.asarray(sill_factors, dtype=float)
+        original = transform.back_median(columns)
+        frames = [(structure, cKDTree(search_frame(structure, xy))) for structure in covariance.structures]
+        return cls(cKDTree(xy), frames, mean, coefficients, np.sqrt(covariance.sill * factors),
+                   np.column_stack([original.min(axis=0), original.max(axis=0)]), list(fields),
+                   counts=[FieldCounts() for _ in fields])
+
+    def trend(self, centres: np.ndarray) -> np.ndarray:
+        """The least-squares trend at ``centres`` (m, 2), one column per field (modelling scale)."""
+        return self.mean.known_mean(1)[0] + self.mean.design(centres) @ self.coefficients
+
+    def screen(self, centres: np.ndarray, mean: np.ndarray, variance: np.ndarray,
+               ) -> tuple[np.ndarray, np.ndarray]:
+        """``mean`` (m, k) and ``variance`` (m, k) with NaN where a field's mean lies more than
+        :data:`TAIL_SDS` standard deviations from its trend; those cells are counted, and every cell
+        is counted beyond the effective range or not."""
+        self.cells += len(centres)
+        beyond = np.ones(len(centres), bool)
+        for structure, tree in self.frames:
+            nearest, _ = tree.query(search_frame(structure, centres))
+            beyond &= nearest > structure.effective_range
+        self.beyond_range += int(np.count_nonzero(beyond))
+        outside = np.abs(mean - self.trend(centres)) > TAIL_SDS * self.sds
+        for counts, column in zip(self.counts, outside.T):
+            counts.outside_model += int(np.count_nonzero(column))
+        return np.where(outside, np.nan, mean), np.where(outside, np.nan, variance)
+
+    def count_data_range(self, column: int, prediction: np.ndarray) -> None:
+        """Count the cells whose ``prediction`` (attribute units) lies outside field ``column``'s data range."""
+        counts, (low, high) = self.counts[column], self.data_range[column]
+        finite = prediction[np.isfinite(prediction)]
+        counts.below += int(np.count_nonzero(finite < low))
+        counts.above += int(np.count_nonzero(finite > high))
+        if len(finite):
+            counts.lowest = min(counts.lowest, float(finite.min()))
+            counts.highest = max(counts.highest, float(finite.max()))
+
+    def distances(self, centres: np.ndarray) -> np.ndarray:
+        """Euclidean distance from each of ``centres`` (m, 2) to its nearest sample (working CRS units)."""
+        return self.tree.query(centres)[0]
+
+    def lines(self, units: str = "metre") -> list[LogLine]:
+        """The log lines of the counts: warnings for cells outside the model and above
+        :data:`EXTRAPOLATION_SHARE` of the cells extrapolated, information otherwise."""
+        if not self.cells:
+            return []
+        reach = max(structure.effective_range for structure, _ in self.frames)
+        share = self.beyond_range / self.cells
+        lines = [LogLine("warning" if share > EXTRAPOLATION_SHARE else "info",
+                         f"{self.beyond_range:,} of {self.cells:,} mapped cells ({share:.1%}) lie farther than the "
+                         f"model's effective range ({reach:.4g} {units} along the major axis) from every sample: "
+                         "there the prediction is the model's mean and the variance near the sill."
+                         + (" " + AREA_ADVICE if share > EXTRAPOLATION_SHARE else ""))]
+        for name, counts, sd, (low, high) in zip(self.fields, self.counts, self.sds, self.data_range):
+            if counts.outside_model:
+                lines.append(LogLine("warning", f"{name}: {counts.outside_model:,} cell(s) are nodata: their kriging "
+                                     f"prediction lies more than {TAIL_SDS:g} standard deviations of the model "
+                                     f"(square root of the sill, {sd:.4g} in the modelling scale) from the model's "
+                                     "mean, which a Gaussian field reaches with probability about 2e-9 per cell; "
+                                     "the kriging weights are unstable there. " + MODEL_ADVICE))
+            outside = counts.below + counts.above
+            share = outside / self.cells
+            span = (f"; the map spans {counts.lowest:.4g} to {counts.highest:.4g}."
+                    if counts.lowest <= counts.highest else ".")
+            words = (f"{name}: {outside:,} mapped cells ({share:.1%}) are predicted outside the range of the "
+                     f"samples ({low:.4g} to {high:.4g}): {counts.below:,} below, {counts.above:,} above{span}")
+            if share > EXTRAPOLATION_SHARE:
+                lines.append(LogLine("warning", words + " Kriging beyond the data follows the model's mean and "
+                                     "trend, not measurements. " + AREA_ADVICE))
+            else:
+                lines.append(LogLine("info", words))
+        return lines
