@@ -1,13 +1,14 @@
 """Toolbox algorithm 'Predict surface' (fieldcast:predict)."""
 from __future__ import annotations
 
-from qgis.core import QgsProcessingParameterRasterDestination
+from qgis.core import QgsProcessingParameterNumber, QgsProcessingParameterRasterDestination
 
 from ..algorithms import SUPPORTS, SurfaceScale
 from .algorithm_base import progress_callback
 from .help_text import (
     BACKTRANSFORM_HELP,
     GRID_HELP,
+    INTERVAL_HELP,
     MODEL_FILE_HELP,
     NEIGHBOURHOOD_HELP,
     TARGET_CRS_HELP,
@@ -23,6 +24,10 @@ class PredictSurfaceAlgorithm(SurfaceAlgorithm):
     SUPPORT = "SUPPORT"
     OUTPUT = "OUTPUT"
     OUTPUT_VARIANCE = "OUTPUT_VARIANCE"
+    OUTPUT_SD = "OUTPUT_SD"
+    INTERVAL_PROBABILITY = "INTERVAL_PROBABILITY"
+    OUTPUT_LOWER = "OUTPUT_LOWER"
+    OUTPUT_UPPER = "OUTPUT_UPPER"
     ICON = "predict.svg"
 
     NAME = "predict"
@@ -43,12 +48,22 @@ class PredictSurfaceAlgorithm(SurfaceAlgorithm):
           "log scale. Cell support uses all samples (NEIGHBOURS 0)."),
          *NEIGHBOURHOOD_HELP,
          THRESHOLD_HELP,
+         INTERVAL_HELP,
          TARGET_CRS_HELP],
         [("Prediction", "Float32 GeoTIFF in attribute units (for a log model back-transformed as chosen; "
           "the band description says which). Nodata is -9999."),
-         ("Variance", "Optional Float32 GeoTIFF of the prediction-error variance in attribute units squared "
-          "(for a log model the lognormal variance). It is the variance of the smooth field, without the "
-          "nugget: small next to samples, growing away from them. Its square root is a standard error."),
+         ("Variance", "Float32 GeoTIFF of the prediction-error variance in attribute units squared (for a log "
+          "model the lognormal variance exp(2 mu + s2) (exp(s2) - 1)). It is the variance of the smooth field, "
+          "without the nugget: small next to samples, growing away from them. Written by default; skip it if "
+          "not wanted."),
+         ("Standard error", "Float32 GeoTIFF of the prediction standard error in attribute units, the square "
+          "root of the variance (for a log model the lognormal standard deviation exp(mu + s2/2) sqrt(exp(s2) - 1), "
+          "the spread about the lognormal mean). Written by default; skip it if not wanted."),
+         ("Lower quantile / Upper quantile", "Optional Float32 GeoTIFFs of the ends of the central predictive "
+          "interval set by 'Interval probability' (5 % and 95 % by default), in attribute units: mu -/+ z s, and "
+          "for a log model exp(mu -/+ z s) - offset, the quantiles of the lognormal predictive distribution. "
+          "Use these, not prediction +/- 1.96 standard errors, for a log model: its distribution is skewed, so "
+          "the interval is not symmetric about the prediction. Like the variance, they leave out the nugget."),
          ("Exceedance probability", "Optional Float32 GeoTIFF, values 0 to 1: the probability that the value at "
           "the cell (or the cell average, with cell support) is above the threshold, from the kriging prediction "
           "and variance under the model's Gaussian assumption (for a log model in the log scale, with the "
@@ -56,6 +71,10 @@ class PredictSurfaceAlgorithm(SurfaceAlgorithm):
           "means the model gives the value a 30 % chance of exceeding the threshold, and a cell far from samples "
           "sits near the share implied by the mean alone. Needs a threshold.")],
     )
+
+    OUTPUT_KINDS = {"prediction": OUTPUT, "variance": OUTPUT_VARIANCE, "sd": OUTPUT_SD, "lower": OUTPUT_LOWER,
+                    "upper": OUTPUT_UPPER}
+    """The raster outputs besides the exceedance probability, by the engine's surface kind."""
 
     def initAlgorithm(self, config=None):
         self.add_sample_parameters()
@@ -66,27 +85,35 @@ class PredictSurfaceAlgorithm(SurfaceAlgorithm):
                         "point")
         self.add_neighbourhood_parameters()
         self.add_threshold_parameter()
+        self.addParameter(QgsProcessingParameterNumber(
+            self.INTERVAL_PROBABILITY, self.tr("Interval probability (for the lower and upper quantiles)"),
+            QgsProcessingParameterNumber.Double, defaultValue=0.9, minValue=0.0, maxValue=1.0))
         self.add_target_crs_parameter()
         self.addParameter(QgsProcessingParameterRasterDestination(self.OUTPUT, self.tr("Prediction")))
         self.addParameter(QgsProcessingParameterRasterDestination(
-            self.OUTPUT_VARIANCE, self.tr("Variance"), optional=True, createByDefault=False))
+            self.OUTPUT_VARIANCE, self.tr("Variance"), optional=True, createByDefault=True))
+        self.addParameter(QgsProcessingParameterRasterDestination(
+            self.OUTPUT_SD, self.tr("Standard error"), optional=True, createByDefault=True))
+        self.addParameter(QgsProcessingParameterRasterDestination(
+            self.OUTPUT_LOWER, self.tr("Lower quantile"), optional=True, createByDefault=False))
+        self.addParameter(QgsProcessingParameterRasterDestination(
+            self.OUTPUT_UPPER, self.tr("Upper quantile"), optional=True, createByDefault=False))
         self.addParameter(QgsProcessingParameterRasterDestination(
             self.OUTPUT_EXCEEDANCE, self.tr("Exceedance probability"), optional=True, createByDefault=False))
 
     def compute(self, parameters, context, feedback) -> dict:
         exceedance_path, threshold = self.exceedance_destination(parameters, context)
-        paths = {"prediction": self.raster_destination(parameters, self.OUTPUT, context),
-                 "variance": self.raster_destination(parameters, self.OUTPUT_VARIANCE, context),
-                 "exceedance": exceedance_path}
+        paths = {kind: self.raster_destination(parameters, name, context) for kind, name in self.OUTPUT_KINDS.items()}
+        paths["exceedance"] = exceedance_path
         document, samples = self.model_and_samples(parameters, context, feedback, progress_callback(feedback, 0, 30))
         grid, inside = self.grid_and_mask(parameters, context, samples.xy, document.crs_wkt, document.units,
                                           feedback, n_bands=sum(1 for path in paths.values() if path))
         support = self.choice(parameters, self.SUPPORT, context)
         scale = SurfaceScale(document.transform, self.choice(parameters, self.BACKTRANSFORM, context), support,
-                             threshold)
+                             threshold, self.parameterAsDouble(parameters, self.INTERVAL_PROBABILITY, context))
         self.krige_surface([document], samples.xy, samples.values, grid, inside, scale,
                            self.neighbourhood(parameters, context), [(samples.field, paths)], feedback,
                            progress_callback(feedback, 30, 100))
-        outputs = {self.OUTPUT: paths["prediction"], self.OUTPUT_VARIANCE: paths["variance"],
-                   self.OUTPUT_EXCEEDANCE: paths["exceedance"]}
+        outputs = {name: paths[kind] for kind, name in self.OUTPUT_KINDS.items()}
+        outputs[self.OUTPUT_EXCEEDANCE] = paths["exceedance"]
         return {name: path for name, path in outputs.items() if path}
