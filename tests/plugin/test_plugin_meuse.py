@@ -20,6 +20,7 @@ from qgis.core import (
     QgsRectangle,
     QgsVectorLayer,
 )
+from scipy import stats
 
 from fieldcast.algorithms.fit.fitting import fit_model
 from fieldcast.algorithms.io.crs import same_crs
@@ -46,6 +47,7 @@ class MeuseRun:
     fit_outputs: dict
     prediction: gdal.Dataset
     variance: gdal.Dataset
+    intervals: dict[str, gdal.Dataset]
     crossvalidation: QgsVectorLayer
     cv_outputs: dict
 
@@ -73,11 +75,14 @@ def meuse_run(qgis_processing, meuse, meuse_grid, tmp_path_factory) -> MeuseRun:
         "INPUT": samples, "FIELD": "zinc", "MODEL": fit["OUTPUT_MODEL"],
         "EXTENT": f"{x_min},{x_max},{y_min},{y_max} [EPSG:28992]", "PIXEL_SIZE": CELL,
         "MASK": mask_layer(meuse_grid.xy), "OUTPUT": str(folder / "zinc.tif"),
-        "OUTPUT_VARIANCE": str(folder / "zinc_variance.tif")})
+        "OUTPUT_VARIANCE": str(folder / "zinc_variance.tif"), "OUTPUT_SD": str(folder / "zinc_sd.tif"),
+        "OUTPUT_LOWER": str(folder / "zinc_lower.tif"), "OUTPUT_UPPER": str(folder / "zinc_upper.tif")})
     cv = qgis_processing.run("fieldcast:crossvalidate", {"INPUT": samples, "FIELD": "zinc",
                                                          "MODEL": fit["OUTPUT_MODEL"], "OUTPUT": "memory:"})
     return MeuseRun(fit["OUTPUT_MODEL"], fit, gdal.Open(str(folder / "zinc.tif")),
-                    gdal.Open(str(folder / "zinc_variance.tif")), cv["OUTPUT"], cv)
+                    gdal.Open(str(folder / "zinc_variance.tif")),
+                    {kind: gdal.Open(str(folder / f"zinc_{kind}.tif")) for kind in ("sd", "lower", "upper")},
+                    cv["OUTPUT"], cv)
 
 
 def band(dataset: gdal.Dataset) -> np.ndarray:
@@ -153,6 +158,24 @@ def test_cell_values_are_the_engine_kriging_predictions(meuse_run, meuse):
     mu, s2 = KrigingPredictor(meuse.xy, np.log(meuse.zinc), document.covariance, document.mean).predict(centres)
     np.testing.assert_allclose(prediction[inside], np.exp(mu), rtol=2e-6)
     np.testing.assert_allclose(variance[inside], np.exp(2 * mu + s2) * np.expm1(s2), rtol=2e-6)
+
+
+def test_standard_error_and_quantiles_are_those_of_the_lognormal_predictive_distribution(meuse_run, meuse):
+    document = ModelDocument.load(meuse_run.model_path)
+    prediction = band(meuse_run.prediction).ravel()
+    inside = np.isfinite(prediction)
+    mu, s2 = KrigingPredictor(meuse.xy, np.log(meuse.zinc), document.covariance, document.mean).predict(
+        cell_centres(meuse_run.prediction)[inside])
+    # Reference library: scipy.stats.lognorm(s=sqrt(s2), scale=exp(mu)), the distribution of exp(Y) for
+    # Y ~ N(mu, s2); the default interval probability 0.9 gives its 5 % and 95 % quantiles.
+    distribution = stats.lognorm(s=np.sqrt(s2), scale=np.exp(mu))
+    intervals = {kind: band(dataset).ravel() for kind, dataset in meuse_run.intervals.items()}
+    np.testing.assert_allclose(intervals["sd"][inside], distribution.std(), rtol=2e-6)
+    np.testing.assert_allclose(intervals["lower"][inside], distribution.ppf(0.05), rtol=2e-6)
+    np.testing.assert_allclose(intervals["upper"][inside], distribution.ppf(0.95), rtol=2e-6)
+    for values in intervals.values():
+        assert np.array_equal(np.isfinite(values), inside)
+    assert meuse_run.intervals["upper"].GetMetadataItem("fieldcast_interval_probability") == "0.9"
 
 
 def test_cells_solve_the_ordinary_kriging_system(meuse_run, meuse):
@@ -237,6 +260,7 @@ def test_predict_without_model_fits_the_defaults_and_sizes_cells_from_the_spacin
     assert dataset.GetGeoTransform()[1] == pixel
     assert "attribute units; kriging prediction" in dataset.GetRasterBand(1).GetDescription()
     assert np.all(np.isfinite(band(dataset)))
+    assert [path.name for path in tmp_path.iterdir()] == ["p.tif"]  # outputs not asked for are not written
 
 
 def test_cancel_during_fit_leaves_no_model_file(qgis_processing, meuse, tmp_path):  # noqa: F811
