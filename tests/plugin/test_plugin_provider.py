@@ -37,7 +37,8 @@ CONTRACT = {
     "crossvalidate": ("Cross-validate model",
                       {"INPUT", "FIELD", "MODEL", "NEIGHBOURS", "SEARCH_RADIUS", "TARGET_CRS", "OUTPUT",
                        "OUTPUT_REPORT"},
-                      {"OUTPUT", "OUTPUT_REPORT", "ME", "RMSE", "MSDR", "COVERAGE95"}),
+                      {"OUTPUT", "OUTPUT_REPORT", "ME", "RMSE", "MSDR", "COVERAGE95", "ME_ATTRIBUTE",
+                       "RMSE_ATTRIBUTE"}),
 }
 CHOICES = {
     ("fitmodel", "TRANSFORM"): ["none", "log"],
