@@ -105,8 +105,9 @@ class CrossValidateAlgorithm(FieldcastAlgorithm):
           "cv_observed_value, cv_predicted_value (exp(cv_predicted) - offset, the median of the lognormal "
           "prediction) and cv_error_value in attribute units. A name the input already uses gets _2 appended."),
          ("Cross-validation report", "HTML page (a temporary file unless you name one or skip it): the four "
-          "numbers below with their ideal values, a rough band and how to read them, observed against "
-          "predicted, a map and a histogram of the standardised residuals, the worst-predicted samples and the "
+          "numbers below with their ideal values, a rough band and how to read them (for a log model also ME and "
+          "RMSE in attribute units), observed against predicted (for a log model also in attribute units), a "
+          "map and a histogram of the standardised residuals, the worst-predicted samples and the "
           "model checked. Read it before trusting a map made with this model."),
          ("ME", "Mean residual; near 0 when predictions are unbiased."),
          ("RMSE", "Root mean squared residual, the typical prediction error (modelling units)."),
