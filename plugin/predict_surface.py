@@ -3,7 +3,7 @@ from __future__ import annotations
 
 from qgis.core import QgsProcessingParameterNumber, QgsProcessingParameterRasterDestination
 
-from ..algorithms import SUPPORTS, SurfaceScale
+from ..algorithms import SUPPORTS, SurfaceScale, check_interval
 from .algorithm_base import progress_callback
 from .help_text import (
     BACKTRANSFORM_HELP,
@@ -103,6 +103,8 @@ class PredictSurfaceAlgorithm(SurfaceAlgorithm):
 
     def compute(self, parameters, context, feedback) -> dict:
         exceedance_path, threshold = self.exceedance_destination(parameters, context)
+        interval = self.parameterAsDouble(parameters, self.INTERVAL_PROBABILITY, context)
+        check_interval(interval)  # before the samples are read or a model fitted
         paths = {kind: self.raster_destination(parameters, name, context) for kind, name in self.OUTPUT_KINDS.items()}
         paths["exceedance"] = exceedance_path
         document, samples = self.model_and_samples(parameters, context, feedback, progress_callback(feedback, 0, 30))
@@ -110,7 +112,7 @@ class PredictSurfaceAlgorithm(SurfaceAlgorithm):
                                           feedback, n_bands=sum(1 for path in paths.values() if path))
         support = self.choice(parameters, self.SUPPORT, context)
         scale = SurfaceScale(document.transform, self.choice(parameters, self.BACKTRANSFORM, context), support,
-                             threshold, self.parameterAsDouble(parameters, self.INTERVAL_PROBABILITY, context))
+                             threshold, interval)
         self.krige_surface([document], samples.xy, samples.values, grid, inside, scale,
                            self.neighbourhood(parameters, context), [(samples.field, paths)], feedback,
                            progress_callback(feedback, 30, 100))

@@ -53,6 +53,19 @@ def cell_predictor(predictor: KrigingPredictor | LocalKrigingPredictor, support:
     return predict
 
 
+def check_interval(probability: float) -> None:
+    """Refuse a central-interval probability that is not strictly between 0 and 1.
+
+    Raises
+    ------
+    FieldcastError
+        Naming the value and INTERVAL_PROBABILITY.
+    """
+    if not 0.0 < probability < 1.0:
+        raise FieldcastError(f"The interval probability (INTERVAL_PROBABILITY) must lie strictly between 0 and 1, "
+                             f"got {probability:g}; 0.9 gives the 5 % and 95 % quantiles.")
+
+
 @dataclass(frozen=True)
 class SurfaceScale:
     """How modelling-scale kriging results become output numbers.
@@ -85,9 +98,7 @@ class SurfaceScale:
     interval: float = 0.9
 
     def __post_init__(self) -> None:
-        if not 0.0 < self.interval < 1.0:
-            raise FieldcastError(f"The interval probability (INTERVAL_PROBABILITY) must lie strictly between 0 and "
-                                 f"1, got {self.interval:g}; 0.9 gives the 5 % and 95 % quantiles.")
+        check_interval(self.interval)
 
     @property
     def interval_z(self) -> float:
