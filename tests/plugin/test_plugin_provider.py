@@ -110,3 +110,12 @@ def test_choices_take_the_words_as_values(fieldcast_plugin, key):  # noqa: F811
     assert isinstance(definition, QgsProcessingParameterEnum)
     assert definition.usesStaticStrings() and definition.options() == CHOICES[key]
     assert definition.defaultValue() == CHOICES[key][0]
+
+
+def test_predict_dialog_writes_variance_and_standard_error_by_default(fieldcast_plugin):  # noqa: F811
+    algorithm = QgsApplication.processingRegistry().algorithmById("fieldcast:predict")
+    created = {name: algorithm.parameterDefinition(name).createByDefault()
+               for name in ("OUTPUT_VARIANCE", "OUTPUT_SD", "OUTPUT_LOWER", "OUTPUT_UPPER", "OUTPUT_EXCEEDANCE")}
+    assert created == {"OUTPUT_VARIANCE": True, "OUTPUT_SD": True, "OUTPUT_LOWER": False, "OUTPUT_UPPER": False,
+                       "OUTPUT_EXCEEDANCE": False}
+    assert algorithm.parameterDefinition("INTERVAL_PROBABILITY").defaultValue() == 0.9
