@@ -34,8 +34,8 @@ class PredictSurfaceAlgorithm(SurfaceAlgorithm):
     DISPLAY_NAME = "Predict surface"
     HELP = compose_help(
         "Kriges a raster surface from point samples with a fitted covariance model: per cell the best linear "
-        "unbiased prediction of the value, and optionally its error variance and the probability that the value "
-        "exceeds a threshold.",
+        "unbiased prediction of the value, its error variance and standard error, and optionally the ends of a "
+        "predictive interval and the probability that the value exceeds a threshold.",
         [("Sample points / Value field", "The samples to predict from (the same kind the model was fitted "
           "to). NULL values are skipped; samples at one location are averaged."),
          MODEL_FILE_HELP,
@@ -54,11 +54,11 @@ class PredictSurfaceAlgorithm(SurfaceAlgorithm):
           "the band description says which). Nodata is -9999."),
          ("Variance", "Float32 GeoTIFF of the prediction-error variance in attribute units squared (for a log "
           "model the lognormal variance exp(2 mu + s2) (exp(s2) - 1)). It is the variance of the smooth field, "
-          "without the nugget: small next to samples, growing away from them. Written by default; skip it if "
-          "not wanted."),
+          "without the nugget: small next to samples, growing away from them. The dialog writes it by default; "
+          "processing.run and qgis_process only when given a path."),
          ("Standard error", "Float32 GeoTIFF of the prediction standard error in attribute units, the square "
           "root of the variance (for a log model the lognormal standard deviation exp(mu + s2/2) sqrt(exp(s2) - 1), "
-          "the spread about the lognormal mean). Written by default; skip it if not wanted."),
+          "the spread about the lognormal mean). The dialog writes it by default, as the variance."),
          ("Lower quantile / Upper quantile", "Optional Float32 GeoTIFFs of the ends of the central predictive "
           "interval set by 'Interval probability' (5 % and 95 % by default), in attribute units: mu -/+ z s, and "
           "for a log model exp(mu -/+ z s) - offset, the quantiles of the lognormal predictive distribution. "
