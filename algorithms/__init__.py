@@ -72,6 +72,7 @@ _PUBLIC = {
     "SUPPORTS": "predict.grid_surfaces",
     "FieldRasters": "predict.grid_surfaces",
     "SurfaceScale": "predict.grid_surfaces",
+    "check_interval": "predict.grid_surfaces",
     "cell_predictor": "predict.grid_surfaces",
     "write_surfaces": "predict.grid_surfaces",
     "ExtrapolationCheck": "predict.extrapolation",

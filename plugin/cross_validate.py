@@ -2,15 +2,18 @@
 from __future__ import annotations
 
 import math
+from collections.abc import Iterable, Sequence
 
 import numpy as np
 from qgis.core import (
     QgsCoordinateReferenceSystem,
     QgsFeature,
+    QgsFeatureRequest,
     QgsField,
     QgsFields,
     QgsGeometry,
     QgsPointXY,
+    QgsProcessingException,
     QgsProcessingOutputNumber,
     QgsProcessingParameterFeatureSink,
     QgsWkbTypes,
@@ -20,6 +23,7 @@ from ..algorithms import (
     CrossValidation,
     FieldcastError,
     ModelDocument,
+    Transform,
     leave_one_out,
     local_leave_one_out,
     parse_crs,
@@ -37,8 +41,36 @@ SUMMARY_OUTPUTS = (
     ("RMSE", "Root mean squared error (modelling units)"),
     ("MSDR", "Mean squared standardised residual"),
     ("COVERAGE95", "Share of samples inside their 95 % interval"),
+    ("ME_ATTRIBUTE", "Mean error (attribute units)"),
+    ("RMSE_ATTRIBUTE", "Root mean squared error (attribute units)"),
 )
-RESULT_FIELDS = ("observed", "predicted", "variance", "residual", "stdresid")
+RESULT_FIELDS = ("cv_observed", "cv_predicted", "cv_std_error", "cv_error", "cv_z_score")
+"""The modelling-scale result fields, after the input's own fields and ``cv_feature_id``."""
+ATTRIBUTE_FIELDS = ("cv_observed_value", "cv_predicted_value", "cv_error_value")
+"""The attribute-unit result fields a log model adds (see :meth:`CrossValidation.attribute_values`)."""
+
+
+def free_names(wanted: Sequence[str], taken: Iterable[str]) -> list[str]:
+    """``wanted`` with ``_2``, ``_3``, ... appended to any name an input field already has (case ignored)."""
+    used = {name.lower() for name in taken}
+    names = []
+    for name in wanted:
+        candidate, number = name, 1
+        while candidate.lower() in used:
+            number += 1
+            candidate = f"{name}_{number}"
+        used.add(candidate.lower())
+        names.append(candidate)
+    return names
+
+
+def result_columns(result: CrossValidation, transform: Transform) -> list[np.ndarray]:
+    """The columns of :data:`RESULT_FIELDS` (and, for a log model, :data:`ATTRIBUTE_FIELDS`), each (n,)."""
+    columns = [result.observed, result.predicted, np.sqrt(result.variance), result.residual, result.standardized]
+    if transform.kind != "none":
+        observed, predicted = result.attribute_values(transform)
+        columns += [observed, predicted, observed - predicted]
+    return columns
 
 
 class CrossValidateAlgorithm(FieldcastAlgorithm):
@@ -65,20 +97,29 @@ class CrossValidateAlgorithm(FieldcastAlgorithm):
           "others in range get no prediction (empty fields), are left out of the summary and the report, and the "
           "log says how many. Empty: no limit."),
          TARGET_CRS_HELP],
-        [("Cross-validation points", "One point per sample with sample_id (feature id), observed, predicted, "
-          "variance (prediction-error variance of the observation, nugget included), residual (observed - "
-          "predicted) and stdresid (residual / sqrt(variance)). All in the modelling scale: for a log model "
-          "these are natural logs of value + offset."),
+        [("Cross-validation points", "One point per sample (per location, where samples at one location were "
+          "averaged) with the input layer's own fields (those of the first sample at the location), then "
+          "cv_feature_id (its feature id), cv_observed, cv_predicted (the kriging prediction from the other "
+          "samples), cv_std_error (the prediction standard error of the observation, nugget included), cv_error "
+          "(cv_observed - cv_predicted) and cv_z_score (cv_error / cv_std_error; ideally standard normal). These "
+          "are in the modelling scale: for a log model natural logs of value + offset. A log model adds "
+          "cv_observed_value, cv_predicted_value (exp(cv_predicted) - offset, the median of the lognormal "
+          "prediction) and cv_error_value in attribute units. A name the input already uses gets _2 appended."),
          ("Cross-validation report", "HTML page (a temporary file unless you name one or skip it): the four "
-          "numbers below with their ideal values, a rough band and how to read them, observed against "
-          "predicted, a map and a histogram of the standardised residuals, the worst-predicted samples and the "
+          "numbers below with their ideal values, a rough band and how to read them (for a log model also ME and "
+          "RMSE in attribute units), observed against predicted (for a log model also in attribute units), a "
+          "map and a histogram of the standardised residuals, the worst-predicted samples and the "
           "model checked. Read it before trusting a map made with this model."),
          ("ME", "Mean residual; near 0 when predictions are unbiased."),
          ("RMSE", "Root mean squared residual, the typical prediction error (modelling units)."),
          ("MSDR", "Mean squared standardised residual; near 1 when the variances are right, above 1 when the "
           "model is over-confident."),
          ("COVERAGE95", "Share of samples within 1.96 standard errors of their prediction; near 0.95 when the "
-          "uncertainty is right.")],
+          "uncertainty is right."),
+         ("ME_ATTRIBUTE / RMSE_ATTRIBUTE", "Mean and root mean squared error in attribute units (e.g. ppm): "
+          "observed value minus the prediction back-transformed to the median (exp(mu) - offset) for a log model; "
+          "the same as ME and RMSE without a transform. The median is below the lognormal mean, so for a log model "
+          "ME_ATTRIBUTE is usually positive.")],
     )
 
     def initAlgorithm(self, config=None):
@@ -95,9 +136,12 @@ class CrossValidateAlgorithm(FieldcastAlgorithm):
         report_path = self.report_destination(parameters, context)
         document, samples = self.model_and_samples(parameters, context, feedback, progress_callback(feedback, 0, 80))
         result = self.cross_validation(parameters, context, feedback, document, samples)
-        summary = result.summary()
+        summary = {**result.summary(), **result.attribute_summary(document.transform)}
         feedback.pushInfo("Leave-one-out on {n} samples: ME {ME:.4g}, RMSE {RMSE:.4g}, MSDR {MSDR:.4g}, "
                           "COVERAGE95 {COVERAGE95:.3f}.".format(**summary))
+        if document.transform.kind != "none":
+            feedback.pushInfo("In attribute units (predictions back-transformed to the median): ME {ME_ATTRIBUTE:.4g}, "
+                              "RMSE {RMSE_ATTRIBUTE:.4g}.".format(**summary))
         outputs = {name: summary[name] for name, _ in SUMMARY_OUTPUTS}
         if report_path:
             rows = result.resolved_rows
@@ -111,19 +155,28 @@ class CrossValidateAlgorithm(FieldcastAlgorithm):
 
     def write_points(self, parameters, context, document: ModelDocument, samples: ModelSamples,
                      result: CrossValidation) -> str:
-        """The cross-validation points layer, one feature per sample; written last, after the report is staged."""
-        fields = QgsFields()
-        fields.append(QgsField("sample_id", field_type("LongLong")))
-        for name in RESULT_FIELDS:
+        """The cross-validation points layer, one feature per sample with the input's own fields first; written
+        last, after the report is staged."""
+        source = self.parameterAsSource(parameters, self.INPUT, context)
+        if source is None:
+            raise QgsProcessingException(self.invalidSourceError(parameters, self.INPUT))
+        fids = [int(fid) for fid in samples.fids]
+        request = QgsFeatureRequest().setFilterFids(fids).setFlags(QgsFeatureRequest.NoGeometry)
+        inputs = {feature.id(): feature.attributes() for feature in source.getFeatures(request)}
+        columns = result_columns(result, document.transform)
+        names = free_names(["cv_feature_id", *RESULT_FIELDS, *ATTRIBUTE_FIELDS][:len(columns) + 1],
+                           source.fields().names())
+        fields = QgsFields(source.fields())
+        fields.append(QgsField(names[0], field_type("LongLong")))
+        for name in names[1:]:
             fields.append(QgsField(name, field_type("Double")))
-        columns = (result.observed, result.predicted, result.variance, result.residual, result.standardized)
         with checked_sink(self, parameters, self.OUTPUT, context, fields, QgsWkbTypes.Point,
                           QgsCoordinateReferenceSystem.fromWkt(document.crs_wkt)) as sink:
-            for row, (fid, (x, y)) in enumerate(zip(samples.fids, samples.xy)):
+            for row, (fid, (x, y)) in enumerate(zip(fids, samples.xy)):
                 feature = QgsFeature(fields)
                 feature.setGeometry(QgsGeometry.fromPointXY(QgsPointXY(float(x), float(y))))
-                feature.setAttributes([int(fid)] + [float(column[row]) if math.isfinite(column[row]) else None
-                                                    for column in columns])
+                feature.setAttributes(list(inputs[fid]) + [fid] + [float(column[row]) if math.isfinite(column[row])
+                                                                   else None for column in columns])
                 sink.add(feature)
         return sink.destination
 

@@ -83,6 +83,13 @@ THRESHOLD_HELP = (
     "the same way as the data. Needed for the exceedance output.",
 )
 
+INTERVAL_HELP = (
+    "Interval probability",
+    "Probability of the central predictive interval whose ends the lower and upper quantile outputs hold, "
+    "strictly between 0 and 1: 0.9 (the default) gives the 5 % and 95 % quantiles. The interval is one of the "
+    "model's predictive distribution (for a log model the lognormal one), not a guarantee.",
+)
+
 
 def compose_help(summary: str, parameters: list[tuple[str, str]], outputs: list[tuple[str, str]]) -> str:
     """HTML help: a summary, the parameters and outputs in plain words, the working CRS and the cautions.

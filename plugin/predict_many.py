@@ -33,6 +33,9 @@ from .surface_algorithm import SurfaceAlgorithm
 FIT_SHARE = 0.4
 """Share of each field's part of the progress bar taken by the fit; kriging and writing take the rest."""
 
+RASTER_KINDS = ("prediction", "variance", "sd")
+"""The rasters written per field (kinds of the engine's write_surfaces), each as <field>_<kind>.tif."""
+
 NO_FIELDS = "No value field chosen. Choose one or more numeric fields of the sample layer in 'Value fields' (FIELDS)."
 
 
@@ -65,10 +68,10 @@ class PredictManyAlgorithm(SurfaceAlgorithm):
     DISPLAY_NAME = "Predict surfaces for several fields"
     HELP = compose_help(
         "For each chosen field of one point layer: fits a covariance model with the settings below (as 'Fit "
-        "covariance model') and kriges its prediction and variance rasters (as 'Predict surface' with that model), "
-        "writing three files per field into one folder. The same as one fit and one prediction per field, in one "
-        "run: fields sampled at the same locations share the grid and mask, and with one correlation model for "
-        "all fields also the kriging systems.",
+        "covariance model') and kriges its prediction, variance and standard-error rasters (as 'Predict surface' "
+        "with that model), writing four files per field into one folder. The same as one fit and one prediction "
+        "per field, in one run: fields sampled at the same locations share the grid and mask, and with one "
+        "correlation model for all fields also the kriging systems.",
         [("Sample points", "The point layer."),
          ("Value fields", "One or more numeric attributes. Each field's NULL values are skipped "
           "separately, so the fields may have different samples; samples at one location are averaged."),
@@ -86,9 +89,10 @@ class PredictManyAlgorithm(SurfaceAlgorithm):
          *NEIGHBOURHOOD_HELP,
          TARGET_CRS_HELP],
         [("Output folder", "Receives, per field, <field>_model.json (the model file, as 'Fit covariance model' "
-          "writes it), <field>_prediction.tif and <field>_variance.tif (Float32 GeoTIFFs as 'Predict surface' "
-          "writes them: attribute units, and the variance of the smooth field in attribute units squared). Field "
-          "names are made safe for file names: characters other than letters, digits, '-' and '.' become '_'. "
+          "writes it), <field>_prediction.tif, <field>_variance.tif and <field>_sd.tif (Float32 GeoTIFFs as "
+          "'Predict surface' writes them: attribute units, the variance of the smooth field in attribute units "
+          "squared, and its standard error in attribute units, for a log model the lognormal standard deviation). "
+          "Field names are made safe for file names: characters other than letters, digits, '-' and '.' become '_'. "
           "Every field's samples are checked before any file is written. Fields are done one after another, and "
           "all fields' files appear together when the last field is complete: cancelling, or a failure at any "
           "field, leaves none. Run from the dialog, each field's prediction and variance rasters are then "
@@ -119,7 +123,7 @@ class PredictManyAlgorithm(SurfaceAlgorithm):
         return super().checkParameterValues(parameters, context)
 
     def output_files(self, parameters, context) -> list[tuple[str, str]]:
-        """OUTPUT_FOLDER itself and the three files written in it per field."""
+        """OUTPUT_FOLDER itself and the four files written in it per field."""
         files = super().output_files(parameters, context)
         folder = dict(files).get(self.OUTPUT_FOLDER)
         if not folder:
@@ -127,7 +131,7 @@ class PredictManyAlgorithm(SurfaceAlgorithm):
         fields = list(dict.fromkeys(self.parameterAsFields(parameters, self.FIELDS, context)))
         return files + [(f"{self.OUTPUT_FOLDER} ({name})", os.path.join(folder, name))
                         for stem in file_stems(fields).values()
-                        for name in (f"{stem}_model.json", f"{stem}_prediction.tif", f"{stem}_variance.tif")]
+                        for name in (f"{stem}_model.json", *(f"{stem}_{kind}.tif" for kind in RASTER_KINDS))]
 
     def output_folder(self, parameters, context) -> str:
         """OUTPUT_FOLDER, created when missing.
@@ -209,7 +213,7 @@ class PredictManyAlgorithm(SurfaceAlgorithm):
                     feedback.pushInfo("Same sample locations as an earlier field: its grid and mask are reused.")
                 else:
                     grids[key] = self.grid_and_mask(parameters, context, samples.xy, document.crs_wkt,
-                                                    document.units, feedback, n_bands=2)
+                                                    document.units, feedback, n_bands=len(RASTER_KINDS))
                 self.krige_surface([document], samples.xy, samples.values, *grids[key], run.scale, run.neighbourhood,
                                    [(field, run.raster_paths(field))], feedback,
                                    progress_callback(feedback, start + FIT_SHARE * share, start + share))
@@ -240,7 +244,7 @@ class PredictManyAlgorithm(SurfaceAlgorithm):
             for document in documents:
                 log_document(document, feedback)
             grid, inside = self.grid_and_mask(parameters, context, first.xy, working.wkt, working.units, feedback,
-                                              n_bands=2)
+                                              n_bands=len(RASTER_KINDS))
             self.krige_surface(documents, first.xy, values, grid, inside, run.scale, run.neighbourhood,
                                [(field, run.raster_paths(field)) for field in fields], feedback,
                                progress_callback(feedback, 100 * FIT_SHARE, 100))
@@ -271,9 +275,9 @@ class FieldsRun:
     scale: SurfaceScale
 
     def raster_paths(self, field: str) -> dict[str, str]:
-        """The prediction and variance GeoTIFFs of a field."""
+        """The GeoTIFFs of a field, by the kinds of :data:`RASTER_KINDS`."""
         stem = os.path.join(self.folder, self.stems[field])
-        return {"prediction": f"{stem}_prediction.tif", "variance": f"{stem}_variance.tif"}
+        return {kind: f"{stem}_{kind}.tif" for kind in RASTER_KINDS}
 
     def model_path(self, field: str) -> str:
         """The model file of a field."""
@@ -282,4 +286,4 @@ class FieldsRun:
     def written(self, field: str) -> str:
         """The file names of a field, for the log."""
         stem = self.stems[field]
-        return f"{stem}_model.json, {stem}_prediction.tif and {stem}_variance.tif"
+        return f"{stem}_model.json, " + ", ".join(f"{stem}_{kind}.tif" for kind in RASTER_KINDS)

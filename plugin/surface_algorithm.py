@@ -157,6 +157,8 @@ class SurfaceAlgorithm(RasterAlgorithm):
             log_gap(predictor, xy, values, grid, inside, feedback)
         if scale.threshold is not None:
             settings["fieldcast_threshold"] = scale.threshold
+        if any(paths.get("lower") or paths.get("upper") for _, paths in outputs):
+            settings["fieldcast_interval_probability"] = scale.interval
         rasters = [FieldRasters(field, paths, {"fieldcast_model": document.to_dict(), **settings},
                                 document.covariance.sill / documents[0].covariance.sill)
                    for document, (field, paths) in zip(documents, outputs)]

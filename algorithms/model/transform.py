@@ -9,6 +9,11 @@ eq. 2.7 and 2.8; Journel 1980, *Math. Geol.* 12(4), 285-303):
 - median:   ``exp(mu) - offset``
 - mean:     ``exp(mu + s2 / 2) - offset``
 - variance: ``exp(2 mu + s2) * (exp(s2) - 1)``
+- standard deviation: the square root of the variance,
+  ``exp(mu + s2 / 2) * sqrt(exp(s2) - 1)``
+- quantile at probability ``p``: ``exp(mu + z_p * s) - offset`` with ``s = sqrt(s2)``
+  and ``z_p`` the standard normal quantile (a monotone transform carries
+  quantiles over unchanged, Aitchison & Brown 1957, section 2.2)
 
 The mean formula is exact for simple kriging; with an estimated mean
 (ordinary or universal kriging) Journel (1980) subtracts the Lagrange
@@ -90,6 +95,27 @@ class Transform:
             return variance.copy()
         mean = np.asarray(mean, dtype=float)
         return np.exp(2.0 * mean + variance) * np.expm1(variance)
+
+    def back_sd(self, mean: np.ndarray, variance: np.ndarray) -> np.ndarray:
+        """Standard deviation of the attribute, ``exp(mu + s2/2) sqrt(exp(s2) - 1)`` (original units).
+
+        For no transform it is ``sqrt(s2)``. For a log model it is the square root of the lognormal
+        variance :meth:`back_variance` (Aitchison & Brown 1957, eq. 2.8), the spread about the
+        lognormal mean.
+        """
+        return np.sqrt(self.back_variance(mean, variance))
+
+    def back_quantile(self, mean: np.ndarray, variance: np.ndarray, z: float) -> np.ndarray:
+        """Quantile of the attribute at standard normal quantile ``z``: ``mu + z s`` or ``exp(mu + z s) - offset``.
+
+        ``s = sqrt(s2)``. For a log model this is the quantile of the lognormal distribution of
+        ``Z + offset`` minus the offset (original units); ``z = 0`` gives :meth:`back_median`.
+        """
+        mean = np.asarray(mean, dtype=float)
+        shifted = mean + z * np.sqrt(np.asarray(variance, dtype=float))
+        if self.kind == "none":
+            return shifted
+        return np.exp(shifted) - self.offset
 
     @property
     def units_note(self) -> str:

@@ -15,6 +15,12 @@ estimated. ``K`` includes the nugget, so the variance is that of the error
 in predicting the observation itself. Leave-one-out is the case of
 one-point sets: ``e_i = (Q y)_i / Q_ii`` and ``var_i = 1 / Q_ii``.
 
+For a log model the errors can also be read in attribute units
+(:meth:`CrossValidation.attribute_values`, :meth:`CrossValidation.attribute_summary`):
+each prediction is back-transformed to the median of its lognormal predictive
+distribution, ``exp(mu) - offset`` (see :mod:`..model.transform`), and set
+against the observed value.
+
 Local leave-one-out (:func:`local_leave_one_out`) has no such closed form:
 each sample is kriged from its nearest other samples by the batched local
 systems of :mod:`.local`.
@@ -32,6 +38,7 @@ from ..errors import Cancelled, FieldcastError
 from ..linalg.condition_policy import UNIT_ROUNDOFF
 from ..model.covariance import CovarianceModel
 from ..model.mean import MeanModel
+from ..model.transform import Transform
 from .kriging import KrigingPredictor, cholesky_factor
 from .local import LocalKrigingPredictor
 
@@ -101,6 +108,29 @@ class CrossValidation:
             "COVERAGE95": float(np.mean(np.abs(rows.standardized) <= NORMAL_95_QUANTILE)),
             "n": len(rows.residual),
         }
+
+    def attribute_values(self, transform: Transform) -> tuple[np.ndarray, np.ndarray]:
+        """Observed values and predictions (n,) in attribute units.
+
+        Both go through :meth:`..model.transform.Transform.back_median`: for a log model the
+        prediction becomes ``exp(mu) - offset``, the median of its lognormal predictive distribution,
+        and the observation its value again (for samples merged at one place, the geometric mean
+        of their values plus offset, minus the offset); without a transform both are unchanged.
+        """
+        return transform.back_median(self.observed), transform.back_median(self.predicted)
+
+    def attribute_summary(self, transform: Transform) -> dict:
+        """``ME_ATTRIBUTE`` and ``RMSE_ATTRIBUTE``: mean and root mean squared ``observed - predicted`` in
+        attribute units (:meth:`attribute_values`) over the resolved samples; NaN when none is resolved.
+
+        For a log model the median back-transform is not unbiased, so ``ME_ATTRIBUTE`` is typically
+        positive even for a sound model (the lognormal mean exceeds its median).
+        """
+        observed, predicted = self.resolved().attribute_values(transform)
+        if not len(observed):
+            return {"ME_ATTRIBUTE": math.nan, "RMSE_ATTRIBUTE": math.nan}
+        error = observed - predicted
+        return {"ME_ATTRIBUTE": float(np.mean(error)), "RMSE_ATTRIBUTE": float(np.sqrt(np.mean(error**2)))}
 
 
 def _result(values: np.ndarray, residual: np.ndarray, variance: np.ndarray,

@@ -1,4 +1,4 @@
-"""Kriging a grid in row blocks and writing the prediction, variance and exceedance GeoTIFFs.
+"""Kriging a grid in row blocks and writing the prediction, variance, standard error, interval and exceedance GeoTIFFs.
 
 Blocks are whole rows of 256 x 256 GeoTIFF tiles; memory stays bounded by one
 block of rows at a time, whatever the raster's height; the files appear only
@@ -14,6 +14,7 @@ from dataclasses import dataclass
 from typing import Optional
 
 import numpy as np
+from scipy import stats
 
 from ..errors import Cancelled, FieldcastError
 from ..io.geotiff import GeoTiffWriter
@@ -28,7 +29,7 @@ from .local import LocalKrigingPredictor
 
 BACKTRANSFORMS = ("median", "mean")
 SUPPORTS = ("point", "cell")
-SURFACE_KINDS = ("prediction", "variance", "exceedance")
+SURFACE_KINDS = ("prediction", "variance", "sd", "lower", "upper", "exceedance")
 """The rasters :func:`write_surfaces` can write, in band-description order."""
 BLOCK_CELLS = 1 << 20
 """Most cells predicted per block of rows (about 50 MB of working arrays with a few hundred samples)."""
@@ -54,6 +55,19 @@ def cell_predictor(predictor: KrigingPredictor | LocalKrigingPredictor, support:
     return predict
 
 
+def check_interval(probability: float) -> None:
+    """Refuse a central-interval probability that is not strictly between 0 and 1.
+
+    Raises
+    ------
+    FieldcastError
+        Naming the value and INTERVAL_PROBABILITY.
+    """
+    if not 0.0 < probability < 1.0:
+        raise FieldcastError(f"The interval probability (INTERVAL_PROBABILITY) must lie strictly between 0 and 1, "
+                             f"got {probability:g}; 0.9 gives the 5 % and 95 % quantiles.")
+
+
 @dataclass(frozen=True)
 class SurfaceScale:
     """How modelling-scale kriging results become output numbers.
@@ -68,12 +82,30 @@ class SurfaceScale:
         ``"point"`` (value at the cell centre) or ``"cell"`` (average over the cell).
     threshold : float or None
         Threshold of the exceedance probability, attribute units.
+    interval : float
+        Probability of the central predictive interval whose ends the ``"lower"`` and ``"upper"``
+        rasters hold: the quantiles at ``(1 - interval) / 2`` and ``(1 + interval) / 2``
+        (0.9 gives the 5 % and 95 % quantiles).
+
+    Raises
+    ------
+    FieldcastError
+        If ``interval`` is not strictly between 0 and 1.
     """
 
     transform: Transform
     backtransform: str = "median"
     support: str = "point"
     threshold: float | None = None
+    interval: float = 0.9
+
+    def __post_init__(self) -> None:
+        check_interval(self.interval)
+
+    @property
+    def interval_z(self) -> float:
+        """Standard normal quantile of the upper interval end, ``z`` at ``(1 + interval) / 2``."""
+        return float(stats.norm.ppf(0.5 + 0.5 * self.interval))
 
     def values(self, mean: np.ndarray, variance: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         """Prediction and variance in attribute units (squared for the variance)."""
@@ -87,27 +119,48 @@ class SurfaceScale:
         """The rasters named in ``kinds`` (of :data:`SURFACE_KINDS`) for modelling-scale ``mean`` and ``variance``."""
         prediction, back_variance = self.values(mean, variance)
         layers = {"prediction": prediction, "variance": back_variance}
+        if "sd" in kinds:
+            layers["sd"] = self.transform.back_sd(mean, variance)
+        if "lower" in kinds:
+            layers["lower"] = self.transform.back_quantile(mean, variance, -self.interval_z)
+        if "upper" in kinds:
+            layers["upper"] = self.transform.back_quantile(mean, variance, self.interval_z)
         if "exceedance" in kinds:
             layers["exceedance"] = exceedance_probability(mean, variance, self.threshold, transform=self.transform)
         return {kind: layers[kind] for kind in kinds}
 
+    def quantile_words(self) -> tuple[str, str]:
+        """The lower and upper interval ends as probabilities in words, e.g. ``("5 %", "95 %")``."""
+        return f"{50 * (1 - self.interval):g} %", f"{50 * (1 + self.interval):g} %"
+
     def descriptions(self, field: str) -> dict[str, str]:
-        """Band descriptions of the prediction, variance and exceedance rasters."""
+        """Band descriptions of the rasters of :data:`SURFACE_KINDS`."""
         where = "at the cell centre" if self.support == "point" else \
             f"average over the cell (block kriging, {DEFAULT_POINTS_PER_SIDE} x {DEFAULT_POINTS_PER_SIDE} points)"
         exceedance = (f"probability that {field} ({where}) exceeds {self.threshold:g} attribute units, under the "
                       "Gaussian model of the kriging mean and variance" if self.threshold is not None else "")
+        low, high = self.quantile_words()
         if self.transform.kind == "none":
+            quantile = (f"{{}} quantile of {field} (attribute units; mu {{}} z s, normal predictive distribution "
+                        f"{where})")
             return {"prediction": f"prediction of {field} (attribute units; kriging prediction {where})",
                     "variance": f"variance of {field} (attribute units squared; kriging error variance {where}, "
                                 "nugget excluded)",
+                    "sd": f"standard error of {field} (attribute units; square root of the kriging error variance "
+                          f"{where}, nugget excluded)",
+                    "lower": quantile.format(low, "-"), "upper": quantile.format(high, "+"),
                     "exceedance": exceedance}
         offset = self.transform.offset
         formula = "exp(mu) - offset" if self.backtransform == "median" else "exp(mu + s2/2) - offset"
+        quantile = (f"{{}} quantile of {field} (attribute units; lognormal predictive distribution: exp(mu {{}} z s) "
+                    f"- offset, offset {offset:g}; {where} in the log scale)")
         return {"prediction": f"prediction of {field} (attribute units; log model back-transformed to the "
                               f"{self.backtransform}: {formula}, offset {offset:g}; {where} in the log scale)",
                 "variance": f"variance of {field} (attribute units squared; lognormal: exp(2 mu + s2) (exp(s2) - 1), "
                             f"nugget excluded; {where} in the log scale)",
+                "sd": f"standard error of {field} (attribute units; lognormal: exp(mu + s2/2) sqrt(exp(s2) - 1), "
+                      f"nugget excluded; {where} in the log scale)",
+                "lower": quantile.format(low, "-"), "upper": quantile.format(high, "+"),
                 "exceedance": exceedance + (" (threshold log-transformed like the data)" if exceedance else "")}
 
 

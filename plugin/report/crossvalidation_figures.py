@@ -13,8 +13,9 @@ RESIDUAL_COLOUR_LIMIT = 3.0
 
 
 def observed_predicted_plot(plotly: SimpleNamespace, observed: np.ndarray, predicted: np.ndarray,
-                            ids: list[str], label: str) -> Plot:
-    """Observed (vertical) against cross-validated prediction (horizontal) with the 1:1 line."""
+                            ids: list[str], label: str, plot_id: str = "fc-plot-observed-predicted") -> Plot:
+    """Observed (vertical) against cross-validated prediction (horizontal) with the 1:1 line, in the page as
+    ``plot_id``."""
     low = float(min(observed.min(), predicted.min()))
     high = float(max(observed.max(), predicted.max()))
     pad = 0.04 * (high - low if high > low else 1.0)
@@ -30,7 +31,7 @@ def observed_predicted_plot(plotly: SimpleNamespace, observed: np.ndarray, predi
                          yaxis={"title": {"text": f"observed ({label})"}, "range": limits, "scaleanchor": "x",
                                 "scaleratio": 1},
                          legend={"orientation": "h", "x": 0.5, "xanchor": "center", "y": 1.02, "yanchor": "bottom"})
-    return as_plot(plotly.go.Figure(traces, layout), "fc-plot-observed-predicted", height=520)
+    return as_plot(plotly.go.Figure(traces, layout), plot_id, height=520)
 
 
 def residual_map_plot(plotly: SimpleNamespace, xy: np.ndarray, standardized: np.ndarray, ids: list[str],

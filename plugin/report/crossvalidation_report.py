@@ -47,7 +47,8 @@ def summary_rows(summary: dict[str, Any], label: str) -> list[dict[str, Any]]:
     ``sqrt(2 / n)`` for the mean squared standardised residual (a
     chi-squared variable with ``n`` degrees of freedom divided by ``n``) and
     ``sqrt(0.95 * 0.05 / n)`` for the coverage (a binomial proportion).
-    Cross-validation errors are correlated, so the bands are a guide only.
+    Cross-validation errors are correlated, so the bands are a guide only. The coverage band is
+    clipped to 0-100 % and the MSDR band to 0 and above (values neither can take).
     """
     n = int(summary["n"])
     rmse = float(summary["RMSE"])
@@ -68,10 +69,36 @@ def summary_rows(summary: dict[str, Any], label: str) -> list[dict[str, Any]]:
     ]
     return [{
         "key": key, "label": words, "value": float(value), "ideal": ideal,
-        "band": None if half is None else [ideal - half, ideal + half],
+        "band": None if half is None else clipped_band(key, ideal, half),
         "inside": None if half is None else bool(abs(float(value) - ideal) <= half),
         "reading": reading,
     } for key, words, value, ideal, half, reading in rows]
+
+
+def clipped_band(key: str, ideal: float, half: float) -> list[float]:
+    """``[ideal - half, ideal + half]`` cut to the values the statistic ``key`` can take."""
+    low, high = ideal - half, ideal + half
+    if key in ("MSDR", "COVERAGE95"):
+        low = max(low, 0.0)
+    if key == "COVERAGE95":
+        high = min(high, 1.0)
+    return [low, high]
+
+
+def attribute_rows(summary: dict[str, Any], field: str) -> list[dict[str, Any]]:
+    """ME and RMSE in attribute units (a log model's predictions back-transformed to the median)."""
+    name = field or "the attribute"
+    rows = [
+        ("ME_ATTRIBUTE", f"mean error in {name} units", summary["ME_ATTRIBUTE"],
+         f"Mean of the observed value minus the prediction back-transformed to the median, exp(mu) - offset, in "
+         f"{name}'s own units. The median lies below the lognormal mean, so this is usually positive even for a "
+         "sound model; read the bias from ME in the log scale."),
+        ("RMSE_ATTRIBUTE", f"root mean squared error in {name} units", summary["RMSE_ATTRIBUTE"],
+         f"Typical size of a prediction error in {name}'s own units, dominated by the largest values. Smaller is "
+         "better."),
+    ]
+    return [{"key": key, "label": words, "value": float(value), "ideal": None, "band": None, "inside": None,
+             "reading": reading} for key, words, value, reading in rows]
 
 
 def worst_samples(cv: CrossValidation, ids: list, xy: np.ndarray, count: int = WORST_COUNT) -> list[dict[str, Any]]:
@@ -134,8 +161,10 @@ def write_crossvalidation_report(
     ids = [i.item() if isinstance(i, np.generic) else i for i in ids]
     shown_ids = [str(i) for i in ids]
     label = scale_words(model.transform, model.field)
-    summary = cv.summary()
-    rows = summary_rows(summary, label)
+    summary = {**cv.summary(), **cv.attribute_summary(model.transform)}
+    logged = model.transform.kind != "none"
+    rows = summary_rows(summary, label) + (attribute_rows(summary, model.field) if logged else [])
+    observed_values, predicted_values = cv.attribute_values(model.transform)
     worst = worst_samples(cv, ids, xy)
     bins = residual_histogram(np.asarray(cv.standardized, dtype=float))
     scheme = scheme_words(np.asarray(cv.fold))
@@ -145,6 +174,9 @@ def write_crossvalidation_report(
         plots = {
             "observed_predicted": observed_predicted_plot(plotly, np.asarray(cv.observed), np.asarray(cv.predicted),
                                                           shown_ids, label),
+            **({"observed_predicted_values": observed_predicted_plot(
+                plotly, observed_values, predicted_values, shown_ids, model.field or "attribute units",
+                "fc-plot-observed-predicted-values")} if logged else {}),
             "residual_map": residual_map_plot(plotly, xy, np.asarray(cv.standardized), shown_ids, model.units),
             "residual_histogram": standardized_histogram_plot(plotly, bins),
         }
@@ -159,7 +191,8 @@ def write_crossvalidation_report(
         "worst": worst,
         "standardized_histogram": bins,
         "samples": {"id": ids, "x": xy[:, 0], "y": xy[:, 1], "observed": cv.observed, "predicted": cv.predicted,
-                    "variance": cv.variance, "standardized": cv.standardized, "fold": cv.fold},
+                    "variance": cv.variance, "standardized": cv.standardized, "fold": cv.fold,
+                    "observed_value": observed_values, "predicted_value": predicted_values},
         "model": model.covariance.to_dict(),
     }
     text = render("crossvalidation.html.j2", {

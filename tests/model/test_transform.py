@@ -29,6 +29,30 @@ def test_log_back_transforms_match_scipy_lognorm(offset):
                                rtol=1e-12)
     np.testing.assert_allclose(transform.back_variance(MU[positive], S2[positive]), distribution.var(),
                                rtol=1e-12)
+    np.testing.assert_allclose(transform.back_sd(MU[positive], S2[positive]), distribution.std(), rtol=1e-12)
+
+
+@pytest.mark.parametrize("offset", [0.0, 5.0, -0.5])
+@pytest.mark.parametrize("probability", [0.05, 0.5, 0.95, 0.999])
+def test_log_quantiles_match_scipy_lognorm(offset, probability):
+    # Reference library: scipy.stats.lognorm.ppf of exp(Y), Y ~ N(mu, s2), shifted by the offset;
+    # the standard normal quantile from scipy.stats.norm.ppf.
+    transform = Transform("log", offset)
+    z = stats.norm.ppf(probability)
+    expected = reference(MU, S2).ppf(probability) - offset
+    expected[S2 == 0] = np.exp(MU[S2 == 0]) - offset  # scipy gives NaN for s = 0; the point value is exp(mu)
+    np.testing.assert_allclose(transform.back_quantile(MU, S2, z), expected, rtol=1e-12)
+
+
+def test_no_transform_quantiles_and_sd_are_normal():
+    # Reference library: scipy.stats.norm(mu, sqrt(s2)).ppf and .std.
+    transform = Transform()
+    positive = S2 > 0
+    distribution = stats.norm(MU[positive], np.sqrt(S2[positive]))
+    z = stats.norm.ppf(0.05)
+    np.testing.assert_allclose(transform.back_quantile(MU[positive], S2[positive], z), distribution.ppf(0.05),
+                               rtol=1e-12)
+    np.testing.assert_allclose(transform.back_sd(MU, S2), np.sqrt(S2), rtol=1e-15)
 
 
 def test_zero_variance_backtransforms_to_the_point_value():

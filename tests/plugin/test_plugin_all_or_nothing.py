@@ -116,7 +116,7 @@ def predictmany_parameters(meuse, folder) -> dict:
 def test_predictmany_writes_every_field_and_nothing_else(qgis_processing, meuse, tmp_path):  # noqa: F811
     qgis_processing.run("fieldcast:predictmany", predictmany_parameters(meuse, tmp_path))
     assert names(tmp_path) == sorted(f"{field}_{kind}" for field in ("zinc", "copper")
-                                     for kind in ("model.json", "prediction.tif", "variance.tif"))
+                                     for kind in ("model.json", "prediction.tif", "variance.tif", "sd.tif"))
 
 
 def test_predictmany_whose_second_field_fails_leaves_no_file_of_the_first(qgis_processing, meuse,  # noqa: F811

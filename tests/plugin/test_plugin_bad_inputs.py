@@ -299,6 +299,18 @@ def test_grid_too_large_is_refused_before_allocating(run_refused, meuse_layer, m
                                       "PIXEL_SIZE": 0.01}, "Use a larger pixel size")
 
 
+@pytest.mark.parametrize("probability", [0.0, 1.0])
+def test_interval_probability_at_zero_or_one_is_refused_before_any_fit(run_refused, meuse_layer, tmp_path,
+                                                                      probability):
+    feedback = QgsProcessingFeedback()
+    run_refused("fieldcast:predict", {"INPUT": meuse_layer, "FIELD": "zinc", "PIXEL_SIZE": 200,
+                                      "INTERVAL_PROBABILITY": probability,
+                                      "OUTPUT_LOWER": str(tmp_path / "out_lower.tif")},
+                "INTERVAL_PROBABILITY) must lie strictly between 0 and 1", "0.9 gives the 5 % and 95 % quantiles",
+                feedback=feedback)
+    assert "No model file given" not in feedback.textLog()  # refused before the default fit
+
+
 def test_output_that_is_not_a_geotiff_is_refused(run_refused, meuse_layer, model_file, tmp_path):
     run_refused("fieldcast:predict", {"INPUT": meuse_layer, "FIELD": "zinc", "MODEL": model_file,
                                       "OUTPUT": str(tmp_path / "surface.asc")}, "does not end in .tif")

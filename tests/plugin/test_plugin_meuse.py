@@ -20,6 +20,7 @@ from qgis.core import (
     QgsRectangle,
     QgsVectorLayer,
 )
+from scipy import stats
 
 from fieldcast.algorithms.fit.fitting import fit_model
 from fieldcast.algorithms.io.crs import same_crs
@@ -47,6 +48,7 @@ class MeuseRun:
     fit_outputs: dict
     prediction: gdal.Dataset
     variance: gdal.Dataset
+    intervals: dict[str, gdal.Dataset]
     crossvalidation: QgsVectorLayer
     cv_outputs: dict
 
@@ -74,11 +76,15 @@ def meuse_run(qgis_processing, meuse, meuse_grid, tmp_path_factory) -> MeuseRun:
         "INPUT": samples, "FIELD": "zinc", "MODEL": fit["OUTPUT_MODEL"],
         "EXTENT": f"{x_min},{x_max},{y_min},{y_max} [EPSG:28992]", "PIXEL_SIZE": CELL,
         "MASK": mask_layer(meuse_grid.xy), "MAP_AREA": "extent", "OUTPUT": str(folder / "zinc.tif"),
-        "OUTPUT_VARIANCE": str(folder / "zinc_variance.tif")})
-    cv = qgis_processing.run("fieldcast:crossvalidate", {"INPUT": samples, "FIELD": "zinc",
+        "OUTPUT_VARIANCE": str(folder / "zinc_variance.tif"), "OUTPUT_SD": str(folder / "zinc_sd.tif"),
+        "OUTPUT_LOWER": str(folder / "zinc_lower.tif"), "OUTPUT_UPPER": str(folder / "zinc_upper.tif")})
+    labelled = point_layer(meuse.xy, {"sample": meuse.ids.astype(float), "zinc": meuse.zinc})
+    cv = qgis_processing.run("fieldcast:crossvalidate", {"INPUT": labelled, "FIELD": "zinc",
                                                          "MODEL": fit["OUTPUT_MODEL"], "OUTPUT": "memory:"})
     return MeuseRun(fit["OUTPUT_MODEL"], fit, gdal.Open(str(folder / "zinc.tif")),
-                    gdal.Open(str(folder / "zinc_variance.tif")), cv["OUTPUT"], cv)
+                    gdal.Open(str(folder / "zinc_variance.tif")),
+                    {kind: gdal.Open(str(folder / f"zinc_{kind}.tif")) for kind in ("sd", "lower", "upper")},
+                    cv["OUTPUT"], cv)
 
 
 def band(dataset: gdal.Dataset) -> np.ndarray:
@@ -156,6 +162,24 @@ def test_cell_values_are_the_engine_kriging_predictions(meuse_run, meuse):
     np.testing.assert_allclose(variance[inside], np.exp(2 * mu + s2) * np.expm1(s2), rtol=2e-6)
 
 
+def test_standard_error_and_quantiles_are_those_of_the_lognormal_predictive_distribution(meuse_run, meuse):
+    document = ModelDocument.load(meuse_run.model_path)
+    prediction = band(meuse_run.prediction).ravel()
+    inside = np.isfinite(prediction)
+    mu, s2 = KrigingPredictor(meuse.xy, np.log(meuse.zinc), document.covariance, document.mean).predict(
+        cell_centres(meuse_run.prediction)[inside])
+    # Reference library: scipy.stats.lognorm(s=sqrt(s2), scale=exp(mu)), the distribution of exp(Y) for
+    # Y ~ N(mu, s2); the default interval probability 0.9 gives its 5 % and 95 % quantiles.
+    distribution = stats.lognorm(s=np.sqrt(s2), scale=np.exp(mu))
+    intervals = {kind: band(dataset).ravel() for kind, dataset in meuse_run.intervals.items()}
+    np.testing.assert_allclose(intervals["sd"][inside], distribution.std(), rtol=2e-6)
+    np.testing.assert_allclose(intervals["lower"][inside], distribution.ppf(0.05), rtol=2e-6)
+    np.testing.assert_allclose(intervals["upper"][inside], distribution.ppf(0.95), rtol=2e-6)
+    for values in intervals.values():
+        assert np.array_equal(np.isfinite(values), inside)
+    assert meuse_run.intervals["upper"].GetMetadataItem("fieldcast_interval_probability") == "0.9"
+
+
 def test_cells_solve_the_ordinary_kriging_system(meuse_run, meuse):
     # Ordinary kriging system [C 1; 1' 0][w; m] = [c0; 1], prediction w'y, error variance C(0) - w'c0 - m
     # (Cressie 1993, Statistics for Spatial Data, section 3.2), solved directly with numpy here;
@@ -195,14 +219,46 @@ def test_crossvalidation_reproduces_the_engine_leave_one_out(meuse_run, meuse):
     for name, value in engine.summary().items():
         if name != "n":
             assert meuse_run.cv_outputs[name] == pytest.approx(value, rel=1e-9, abs=1e-12), name
-    features = sorted(meuse_run.crossvalidation.getFeatures(), key=lambda f: f["sample_id"])
-    assert [f["sample_id"] for f in features] == list(meuse.ids)  # memory-layer feature ids are 1..155
+    features = sorted(meuse_run.crossvalidation.getFeatures(), key=lambda f: f["cv_feature_id"])
+    assert [f["cv_feature_id"] for f in features] == list(meuse.ids)  # memory-layer feature ids are 1..155
     points = np.array([[f.geometry().asPoint().x(), f.geometry().asPoint().y()] for f in features])
     np.testing.assert_array_equal(points, meuse.xy)
-    for field, column in (("observed", engine.observed), ("predicted", engine.predicted),
-                          ("variance", engine.variance), ("residual", engine.residual),
-                          ("stdresid", engine.standardized)):
+    for field, column in (("cv_observed", engine.observed), ("cv_predicted", engine.predicted),
+                          ("cv_std_error", np.sqrt(engine.variance)), ("cv_error", engine.residual),
+                          ("cv_z_score", engine.standardized)):
         np.testing.assert_allclose([f[field] for f in features], column, rtol=1e-9, atol=1e-12)
+
+
+def test_crossvalidation_keeps_the_input_fields_and_reads_in_ppm(meuse_run, meuse):
+    document = ModelDocument.load(meuse_run.model_path)
+    engine = leave_one_out(meuse.xy, np.log(meuse.zinc), document.covariance, document.mean)
+    features = sorted(meuse_run.crossvalidation.getFeatures(), key=lambda f: f["cv_feature_id"])
+    assert meuse_run.crossvalidation.fields().names() == [
+        "sample", "zinc", "cv_feature_id", "cv_observed", "cv_predicted", "cv_std_error", "cv_error", "cv_z_score",
+        "cv_observed_value", "cv_predicted_value", "cv_error_value"]
+    assert [f["sample"] for f in features] == list(meuse.ids)
+    # Published Meuse zinc in ppm (Rikken & Van Rijn 1993) against the lognormal median exp(mu) of each
+    # leave-one-out prediction (Aitchison & Brown 1957); RMSE by its definition.
+    np.testing.assert_allclose([f["cv_observed_value"] for f in features], meuse.zinc, rtol=1e-12)
+    predicted = np.exp(engine.predicted)
+    np.testing.assert_allclose([f["cv_predicted_value"] for f in features], predicted, rtol=1e-9)
+    np.testing.assert_allclose([f["zinc"] - f["cv_predicted_value"] for f in features],
+                               [f["cv_error_value"] for f in features], rtol=1e-9, atol=1e-9)
+    assert meuse_run.cv_outputs["RMSE_ATTRIBUTE"] == pytest.approx(np.sqrt(np.mean((meuse.zinc - predicted) ** 2)),
+                                                                   rel=1e-9)
+    assert meuse_run.cv_outputs["ME_ATTRIBUTE"] == pytest.approx(np.mean(meuse.zinc - predicted), rel=1e-9)
+
+
+def test_crossvalidation_fields_step_aside_for_input_fields_of_the_same_name(qgis_processing, meuse_run, meuse):  # noqa: F811
+    samples = point_layer(meuse.xy, {"zinc": meuse.zinc, "CV_Error": meuse.copper, "cv_error_2": meuse.lead})
+    outputs = qgis_processing.run("fieldcast:crossvalidate", {"INPUT": samples, "FIELD": "zinc",
+                                                              "MODEL": meuse_run.model_path, "OUTPUT": "memory:"})
+    layer = outputs["OUTPUT"]
+    names = layer.fields().names()
+    assert names[:3] == ["zinc", "CV_Error", "cv_error_2"] and "cv_error_3" in names and "cv_z_score" in names
+    feature = next(layer.getFeatures())
+    assert feature["cv_error_3"] == pytest.approx(feature["cv_observed"] - feature["cv_predicted"], rel=1e-12)
+    assert feature["CV_Error"] == meuse.copper[feature["cv_feature_id"] - 1]
 
 
 def test_crossvalidation_equals_kriging_without_the_sample(meuse_run, meuse):
@@ -211,7 +267,7 @@ def test_crossvalidation_equals_kriging_without_the_sample(meuse_run, meuse):
     document = ModelDocument.load(meuse_run.model_path)
     model = document.covariance
     values = np.log(meuse.zinc)
-    features = {f["sample_id"]: f for f in meuse_run.crossvalidation.getFeatures()}
+    features = {f["cv_feature_id"]: f for f in meuse_run.crossvalidation.getFeatures()}
     for left_out in (0, 77, 154):
         others = np.delete(np.arange(len(values)), left_out)
         n = len(others)
@@ -221,8 +277,8 @@ def test_crossvalidation_equals_kriging_without_the_sample(meuse_run, meuse):
         c0 = model.cross_covariance(meuse.xy[others], meuse.xy[left_out:left_out + 1])[:, 0]
         solution = np.linalg.solve(system, np.append(c0, 1.0))
         feature = features[int(meuse.ids[left_out])]
-        assert feature["predicted"] == pytest.approx(solution[:n] @ values[others], rel=1e-9)
-        assert feature["variance"] == pytest.approx(model.sill - solution[:n] @ c0 - solution[n], rel=1e-7)
+        assert feature["cv_predicted"] == pytest.approx(solution[:n] @ values[others], rel=1e-9)
+        assert feature["cv_std_error"] ** 2 == pytest.approx(model.sill - solution[:n] @ c0 - solution[n], rel=1e-7)
 
 
 def test_predict_without_model_fits_the_defaults_and_sizes_cells_from_the_spacing(qgis_processing, meuse,  # noqa: F811
@@ -243,6 +299,7 @@ def test_predict_without_model_fits_the_defaults_and_sizes_cells_from_the_spacin
     near, margin = hull_mask(grid, meuse.xy[:40])
     assert np.array_equal(np.isfinite(band(dataset)), near) and not near.all()
     assert f"lie within {margin:.4g} metre of the samples' convex hull (MAP_AREA hull" in feedback.textLog()
+    assert [path.name for path in tmp_path.iterdir()] == ["p.tif"]  # outputs not asked for are not written
 
 
 def test_cancel_during_fit_leaves_no_model_file(qgis_processing, meuse, tmp_path):  # noqa: F811

@@ -197,12 +197,12 @@ def test_bad_neighbourhoods_are_refused_without_output(qgis_processing, zinc, ex
 
 
 def crossvalidate(processing, zinc, feedback=None, **extra) -> tuple[dict, list]:
-    """Run fieldcast:crossvalidate into a memory layer; (outputs, features sorted by sample_id)."""
+    """Run fieldcast:crossvalidate into a memory layer; (outputs, features sorted by cv_feature_id)."""
     layer, model, _ = zinc
     outputs = processing.run("fieldcast:crossvalidate", {"INPUT": layer, "FIELD": "zinc", "MODEL": model,
                                                           "OUTPUT": "memory:", "OUTPUT_REPORT": "", **extra},
                              feedback=feedback)
-    return outputs, sorted(outputs["OUTPUT"].getFeatures(), key=lambda f: f["sample_id"])
+    return outputs, sorted(outputs["OUTPUT"].getFeatures(), key=lambda f: f["cv_feature_id"])
 
 
 def test_crossvalidate_with_neighbours_is_the_engine_local_leave_one_out(qgis_processing, zinc, meuse):  # noqa: F811
@@ -213,9 +213,9 @@ def test_crossvalidate_with_neighbours_is_the_engine_local_leave_one_out(qgis_pr
     for name, value in engine.summary().items():
         if name != "n":
             assert outputs[name] == pytest.approx(value, rel=1e-9, abs=1e-12), name
-    for field, column in (("observed", engine.observed), ("predicted", engine.predicted),
-                          ("variance", engine.variance), ("residual", engine.residual),
-                          ("stdresid", engine.standardized)):
+    for field, column in (("cv_observed", engine.observed), ("cv_predicted", engine.predicted),
+                          ("cv_std_error", np.sqrt(engine.variance)), ("cv_error", engine.residual),
+                          ("cv_z_score", engine.standardized)):
         np.testing.assert_allclose([f[field] for f in features], column, rtol=1e-9, atol=1e-12)
     assert "Local leave-one-out: each sample from its 16 nearest other samples." in feedback.textLog()
 
@@ -230,7 +230,7 @@ def test_crossvalidate_with_a_short_radius_counts_the_samples_left_out(qgis_proc
                                  search_radius=150.0)
     left_out = len(features) - engine.summary()["n"]
     assert 0 < left_out < len(features)
-    empty = [f["sample_id"] for f in features if f["predicted"] == NULL]
+    empty = [f["cv_feature_id"] for f in features if f["cv_predicted"] == NULL]
     assert empty == list(meuse.ids[np.isnan(engine.predicted)])
     assert outputs["RMSE"] == pytest.approx(engine.summary()["RMSE"], rel=1e-9)
     assert f"{left_out:,} sample(s) have too few other samples within SEARCH_RADIUS" in feedback.textLog()

@@ -63,7 +63,8 @@ def runs(qgis_processing, layer, tmp_path_factory):  # noqa: F811
                                                          "OUTPUT_MODEL": str(single / f"{stem}_model.json")})
         qgis_processing.run("fieldcast:predict", {
             "INPUT": layer, "FIELD": field, "MODEL": fit["OUTPUT_MODEL"], **GRID,
-            "OUTPUT": str(single / f"{stem}_prediction.tif"), "OUTPUT_VARIANCE": str(single / f"{stem}_variance.tif")})
+            "OUTPUT": str(single / f"{stem}_prediction.tif"), "OUTPUT_VARIANCE": str(single / f"{stem}_variance.tif"),
+            "OUTPUT_SD": str(single / f"{stem}_sd.tif")})
     return many, feedback.textLog(), folder / "many", single
 
 
@@ -71,11 +72,11 @@ def test_three_fields_give_the_rasters_of_separate_runs(runs):
     results, _, many, single = runs
     assert results == {"OUTPUT_FOLDER": str(many), "COUNT": 3}
     names = sorted(f"{stem}_{kind}" for stem in ("zinc", "copper", LEAD_STEM)
-                   for kind in ("model.json", "prediction.tif", "variance.tif"))
+                   for kind in ("model.json", "prediction.tif", "variance.tif", "sd.tif"))
     assert sorted(path.name for path in many.iterdir()) == names
     for stem in ("zinc", "copper", LEAD_STEM):
         assert (many / f"{stem}_model.json").read_text() == (single / f"{stem}_model.json").read_text()
-        for kind in ("prediction", "variance"):
+        for kind in ("prediction", "variance", "sd"):
             ours, theirs = read_band(many / f"{stem}_{kind}.tif"), read_band(single / f"{stem}_{kind}.tif")
             np.testing.assert_allclose(ours, theirs, rtol=2e-7)  # float32 round-off at most
 
@@ -130,7 +131,8 @@ def test_fields_are_repeated_on_the_qgis_process_command_line(tmp_path):
     assert run.returncode == 0, run.messages
     assert run.results["COUNT"] == 2
     assert sorted(p.name for p in (tmp_path / "out").iterdir()) == sorted(
-        f"{field}_{kind}" for field in ("zinc", "copper") for kind in ("model.json", "prediction.tif", "variance.tif"))
+        f"{field}_{kind}" for field in ("zinc", "copper")
+        for kind in ("model.json", "prediction.tif", "variance.tif", "sd.tif"))
 
 
 @skip_unless_available(QGIS_PROCESS is not None, "qgis_process.bin is not installed")
@@ -144,4 +146,5 @@ def test_predictmany_runs_in_a_graphical_model(fieldcast_plugin, tmp_path):  # n
                            f"samples={samples}", f"many:folder={tmp_path / 'out'}")
     assert run.returncode == 0, run.messages
     assert sorted(p.name for p in (tmp_path / "out").iterdir()) == sorted(
-        f"{field}_{kind}" for field in ("zinc", "copper") for kind in ("model.json", "prediction.tif", "variance.tif"))
+        f"{field}_{kind}" for field in ("zinc", "copper")
+        for kind in ("model.json", "prediction.tif", "variance.tif", "sd.tif"))

@@ -20,9 +20,11 @@ CONTRACT = {
                   "NUGGET", "AZIMUTH", "RATIO", "LOG_LIKELIHOOD", "AIC"}),
     "predict": ("Predict surface",
                 {"INPUT", "FIELD", "MODEL", "EXTENT", "PIXEL_SIZE", "MASK", "MAP_AREA", "HULL_MARGIN", "BACKTRANSFORM",
-                 "SUPPORT", "NEIGHBOURS", "SEARCH_RADIUS", "THRESHOLD", "TARGET_CRS", "OUTPUT", "OUTPUT_VARIANCE",
-                 "OUTPUT_EXCEEDANCE", "OUTPUT_DISTANCE"},
-                {"OUTPUT", "OUTPUT_VARIANCE", "OUTPUT_EXCEEDANCE", "OUTPUT_DISTANCE"}),
+                 "SUPPORT", "NEIGHBOURS", "SEARCH_RADIUS", "THRESHOLD", "INTERVAL_PROBABILITY", "TARGET_CRS", "OUTPUT",
+                 "OUTPUT_VARIANCE", "OUTPUT_SD", "OUTPUT_LOWER", "OUTPUT_UPPER", "OUTPUT_EXCEEDANCE",
+                 "OUTPUT_DISTANCE"},
+                {"OUTPUT", "OUTPUT_VARIANCE", "OUTPUT_SD", "OUTPUT_LOWER", "OUTPUT_UPPER", "OUTPUT_EXCEEDANCE",
+                 "OUTPUT_DISTANCE"}),
     "predictmany": ("Predict surfaces for several fields",
                     {"INPUT", "FIELDS", "TRANSFORM", "LOG_OFFSET", "KERNEL", "ANISOTROPY", "TREND", "METHOD",
                      "SHARED_MODEL", "EXTENT", "PIXEL_SIZE", "MASK", "MAP_AREA", "HULL_MARGIN", "BACKTRANSFORM",
@@ -37,7 +39,8 @@ CONTRACT = {
     "crossvalidate": ("Cross-validate model",
                       {"INPUT", "FIELD", "MODEL", "NEIGHBOURS", "SEARCH_RADIUS", "TARGET_CRS", "OUTPUT",
                        "OUTPUT_REPORT"},
-                      {"OUTPUT", "OUTPUT_REPORT", "ME", "RMSE", "MSDR", "COVERAGE95"}),
+                      {"OUTPUT", "OUTPUT_REPORT", "ME", "RMSE", "MSDR", "COVERAGE95", "ME_ATTRIBUTE",
+                       "RMSE_ATTRIBUTE"}),
 }
 CHOICES = {
     ("fitmodel", "TRANSFORM"): ["none", "log"],
@@ -120,3 +123,12 @@ def test_choices_take_the_words_as_values(fieldcast_plugin, key):  # noqa: F811
     assert isinstance(definition, QgsProcessingParameterEnum)
     assert definition.usesStaticStrings() and definition.options() == CHOICES[key]
     assert definition.defaultValue() == CHOICES[key][0]
+
+
+def test_predict_dialog_writes_variance_and_standard_error_by_default(fieldcast_plugin):  # noqa: F811
+    algorithm = QgsApplication.processingRegistry().algorithmById("fieldcast:predict")
+    created = {name: algorithm.parameterDefinition(name).createByDefault()
+               for name in ("OUTPUT_VARIANCE", "OUTPUT_SD", "OUTPUT_LOWER", "OUTPUT_UPPER", "OUTPUT_EXCEEDANCE")}
+    assert created == {"OUTPUT_VARIANCE": True, "OUTPUT_SD": True, "OUTPUT_LOWER": False, "OUTPUT_UPPER": False,
+                       "OUTPUT_EXCEEDANCE": False}
+    assert algorithm.parameterDefinition("INTERVAL_PROBABILITY").defaultValue() == 0.9

@@ -97,16 +97,21 @@ def meuse_grid_cells() -> tuple[np.ndarray, np.ndarray]:
     return rows, cols
 
 
-def test_fit_predict_crossvalidate_meuse_zinc(profile, meuse_layer, tmp_path):
+def test_fit_predict_crossvalidate_meuse_zinc(profile, meuse_layer, meuse, tmp_path):
     model_path = tmp_path / "zinc.json"
     document = fit(profile, meuse_layer, "zinc", model_path)
     assert document["field"] == "zinc" and document["transform"]["kind"] == "log"
     assert document["structures"][0]["family"] == "spherical"
 
     prediction, variance = tmp_path / "zinc.tif", tmp_path / "zinc_variance.tif"
-    predict(profile, meuse_layer, "zinc", model_path, prediction, OUTPUT_VARIANCE=variance)
+    sd, upper = tmp_path / "zinc_sd.tif", tmp_path / "zinc_upper.tif"
+    predict(profile, meuse_layer, "zinc", model_path, prediction, OUTPUT_VARIANCE=variance, OUTPUT_SD=sd,
+            OUTPUT_UPPER=upper)
     estimate = check_meuse_grid(prediction)
     spread = check_meuse_grid(variance)
+    np.testing.assert_allclose(check_meuse_grid(sd) ** 2, spread, rtol=1e-5)  # the standard error is sqrt(variance)
+    assert (check_meuse_grid(upper) > estimate).all()  # the 95 % quantile lies above the median
+    assert not (tmp_path / "zinc_lower.tif").exists()
     assert np.isfinite(estimate).all() and np.isfinite(spread).all()
     # Meuse zinc ranges from 113 to 1839 ppm (tests/data/meuse.csv). On the published grid cells (the flood
     # plain the samples cover) a median back-transformed kriging estimate of ln(zinc) stays near that range;
@@ -123,6 +128,13 @@ def test_fit_predict_crossvalidate_meuse_zinc(profile, meuse_layer, tmp_path):
     assert set(summary) >= {"ME", "RMSE", "MSDR", "COVERAGE95"}
     dataset = ogr.Open(str(table))
     assert dataset.GetLayer().GetFeatureCount() == 155  # one leave-one-out prediction per Meuse sample
+    definition = dataset.GetLayer().GetLayerDefn()
+    names = [definition.GetFieldDefn(i).GetName() for i in range(definition.GetFieldCount())]
+    assert names[:2] == ["id", "zinc"] and "landuse" in names and "cv_z_score" in names  # the input's fields first
+    ids = sorted(feature.GetField("id") for feature in dataset.GetLayer())
+    assert ids == sorted(int(i) for i in meuse.ids)
+    # Typical leave-one-out error of a Meuse zinc map: a few hundred ppm (from memory; values 113-1839 ppm).
+    assert 100.0 < summary["RMSE_ATTRIBUTE"] < 500.0
     # Leave-one-out RMSE for ln(zinc) on Meuse is about 0.4 with a fitted spherical model (from memory);
     # the bounds leave room for the fit and still catch a broken pipeline.
     assert 0.2 < summary["RMSE"] < 0.6

@@ -138,7 +138,7 @@ def test_checks_catch_console_errors_and_requests(tmp_path):
     assert len(static_network_references(page.read_text(encoding="utf-8"))) == 1
 
 
-@pytest.mark.parametrize("name, plots, height", [("fit", 4, 6200), ("crossvalidation", 3, 3900)])
+@pytest.mark.parametrize("name, plots, height", [("fit", 4, 6200), ("crossvalidation", 4, 4500)])
 def test_report_draws_its_plots_offline(reports, tmp_path, name, plots, height):
     page = reports[name]
     assert static_network_references(page.read_text(encoding="utf-8")) == []

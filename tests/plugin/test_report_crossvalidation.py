@@ -11,7 +11,7 @@ import pytest
 from scipy import stats
 
 from fieldcast.algorithms.predict.crossval import k_fold, leave_one_out
-from fieldcast.plugin.report.crossvalidation_report import write_crossvalidation_report
+from fieldcast.plugin.report.crossvalidation_report import summary_rows, write_crossvalidation_report
 from fieldcast.plugin.report.page import ReportError
 from test_report_fit import log_zinc_model
 
@@ -63,7 +63,7 @@ def test_summary_in_page_matches_independent_computation(loo_report):
     cv, html = loo_report
     data = embedded_data(html)
     summary = data["summary"]
-    assert summary == cv.summary()
+    assert {key: summary[key] for key in cv.summary()} == cv.summary()
     observed, predicted = np.asarray(data["samples"]["observed"]), np.asarray(data["samples"]["predicted"])
     variance = np.asarray(data["samples"]["variance"])
     error = observed - predicted
@@ -148,9 +148,9 @@ def test_without_plotly_and_deterministic(zinc_model, loo_report, tmp_path, monk
     write_crossvalidation_report(plain, cv=cv, ids=samples.ids, xy=samples.xy, model=model,
                                  crs_name="Amersfoort / RD New")
     text = plain.read_text(encoding="utf-8")
-    assert "plotly could not be imported" in text and text.count("Plot not drawn") == 3
+    assert "plotly could not be imported" in text and text.count("Plot not drawn") == 4  # a log model: 4 plots
     assert "Plotly.newPlot" not in text
-    assert embedded_data(text)["summary"] == cv.summary()
+    assert embedded_data(text)["summary"] == embedded_data(html)["summary"]
     assert len(re.findall(r'<tr data-id="\d+">', text)) == 10
 
 
@@ -174,3 +174,32 @@ def test_markup_in_field_name_stays_text(zinc_model, loo_report, tmp_path):
     assert embedded_data(html)["field"] == field
     assert "<b onload" not in html and "<!--" not in html
     assert html.count("</script>") == html.count("<script")
+
+
+def test_summary_in_zinc_units_for_the_log_model(loo_report, meuse):
+    cv, html = loo_report
+    data = embedded_data(html)
+    # Published Meuse zinc in ppm (Rikken & Van Rijn 1993) against exp of the log-scale predictions, the
+    # lognormal median (Aitchison & Brown 1957); RMSE by its definition.
+    np.testing.assert_allclose(data["samples"]["observed_value"], meuse.zinc, rtol=1e-12)
+    predicted = np.exp(np.asarray(data["samples"]["predicted"]))
+    np.testing.assert_allclose(data["samples"]["predicted_value"], predicted, rtol=1e-12)
+    assert data["summary"]["RMSE_ATTRIBUTE"] == pytest.approx(np.sqrt(np.mean((meuse.zinc - predicted) ** 2)),
+                                                              rel=1e-12)
+    row = re.search(r'<tr data-statistic="RMSE_ATTRIBUTE">(.*?)</tr>', html, re.S).group(1)
+    assert "root mean squared error in zinc units" in row
+    scatter = json.loads(re.search(SPEC_BLOCK.format("fc-plot-observed-predicted-values"), html, re.S).group(1))
+    np.testing.assert_allclose(scatter["data"][1]["x"], predicted, rtol=1e-12)
+    np.testing.assert_allclose(scatter["data"][1]["y"], meuse.zinc, rtol=1e-12)
+
+
+def test_coverage_band_stops_at_100_percent():
+    # Binomial standard error sqrt(p (1 - p) / n) (common practice for a proportion): with n = 5 the band
+    # 0.95 +- 1.96 * 0.0975 reaches 1.14, a share no sample set can have.
+    summary = {"ME": 0.0, "RMSE": 1.0, "MSDR": 1.0, "COVERAGE95": 0.95, "n": 5}
+    rows = {row["key"]: row for row in summary_rows(summary, "zinc")}
+    half = stats.norm.ppf(0.975) * np.sqrt(0.95 * 0.05 / 5)
+    assert rows["COVERAGE95"]["band"] == [pytest.approx(0.95 - half), 1.0]
+    assert rows["MSDR"]["band"][0] == 0.0  # 1 - 1.96 sqrt(2 / 5) is negative
+    assert rows["ME"]["band"][0] < 0.0  # a mean error may be negative
+
