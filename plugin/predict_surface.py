@@ -4,7 +4,7 @@ from __future__ import annotations
 from qgis.core import QgsProcessingParameterNumber, QgsProcessingParameterRasterDestination
 
 from ..algorithms import SUPPORTS, SurfaceScale, check_interval
-from .algorithm_base import progress_callback
+from .algorithm_base import advanced, progress_callback
 from .help_text import (
     BACKTRANSFORM_HELP,
     GRID_HELP,
@@ -95,9 +95,9 @@ class PredictSurfaceAlgorithm(SurfaceAlgorithm):
                         "point", expert=True)
         self.add_neighbourhood_parameters()
         self.add_threshold_parameter()
-        self.addParameter(QgsProcessingParameterNumber(
+        self.addParameter(advanced(QgsProcessingParameterNumber(
             self.INTERVAL_PROBABILITY, self.tr("Interval probability (for the lower and upper quantiles)"),
-            QgsProcessingParameterNumber.Double, defaultValue=0.9, minValue=0.0, maxValue=1.0))
+            QgsProcessingParameterNumber.Double, defaultValue=0.9, minValue=0.0, maxValue=1.0)))
         self.add_target_crs_parameter()
         self.addParameter(QgsProcessingParameterRasterDestination(self.OUTPUT, self.tr("Prediction")))
         self.addParameter(QgsProcessingParameterRasterDestination(

@@ -32,7 +32,7 @@ from ..algorithms import (
     neighbourhood_gap,
     write_surfaces,
 )
-from .algorithm_base import push_log
+from .algorithm_base import advanced, push_log
 from .raster_algorithm import RasterAlgorithm
 
 MAP_AREAS = ("hull", "extent")
@@ -98,9 +98,9 @@ class SurfaceAlgorithm(RasterAlgorithm):
         """MAP_AREA: hull (default; the samples' convex hull grown by HULL_MARGIN) or extent (every cell)."""
         self.add_choice(self.MAP_AREA, self.tr("Map area (hull = near the samples, extent = every cell)"),
                         MAP_AREAS, "hull")
-        self.addParameter(QgsProcessingParameterNumber(
+        self.addParameter(advanced(QgsProcessingParameterNumber(
             self.HULL_MARGIN, self.tr("Hull margin (working CRS units; empty = median sample spacing)"),
-            type=QgsProcessingParameterNumber.Double, optional=True, minValue=0.0))
+            type=QgsProcessingParameterNumber.Double, optional=True, minValue=0.0)))
 
     def grid_and_mask(self, parameters, context, xy: np.ndarray, crs_wkt: str, units: str, feedback,
                       n_bands: int) -> tuple[GridSpec, np.ndarray | None]:

@@ -143,7 +143,7 @@ def test_predictmany_loads_each_fields_rasters_styled(qgis_processing, samples, 
                           {"INPUT": samples, "FIELDS": ["zinc", "copper"], **GRID, "SHARED_MODEL": True,
                            "OUTPUT_FOLDER": str(tmp_path)}, ())
     assert set(layers) == {f"{field} \u2014 {quantity}" for field in ("zinc", "copper")
-                           for quantity in ("prediction", "variance")}
+                           for quantity in ("prediction", "variance", "standard error")}
     assert_stretched(layers["copper \u2014 prediction"], str(tmp_path / "copper_prediction.tif"))
     assert_stretched(layers["zinc \u2014 variance"], str(tmp_path / "zinc_variance.tif"))
 
