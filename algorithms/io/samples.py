@@ -105,11 +105,10 @@ def merge_coincident(
     if n == 0:
         return Samples(xy.copy(), values.copy(), ids.copy(), 0, 0)
 
-    pairs = cKDTree(xy).query_pairs(r=float(tolerance), output_type="ndarray")
-    links = coo_matrix((np.ones(len(pairs)), (pairs[:, 0], pairs[:, 1])), shape=(n, n))
-    _, label = connected_components(links, directed=False)
+    label = _group_labels(xy, float(tolerance))
     # Renumber groups in the order of their first sample.
     _, first_index, group = np.unique(label, return_index=True, return_inverse=True)
+    group = group.ravel()  # numpy 2.0 and 2.1 give the inverse the input's shape
     order = np.argsort(first_index)
     rank = np.empty_like(order)
     rank[order] = np.arange(len(order))
@@ -126,6 +125,24 @@ def merge_coincident(
         merged_groups=int(np.count_nonzero(merged)),
         merged_points=int(size[merged].sum()),
     )
+
+
+def _group_labels(xy: np.ndarray, tolerance: float) -> np.ndarray:
+    """A group label per sample: samples within ``tolerance`` of one another (single linkage) share one.
+
+    Samples at exactly the same location are grouped first by sorting their coordinates (``np.unique``,
+    O(n log n) whatever the number of repeats); only the distinct locations then go through the pair search
+    of a k-d tree, which finds the pairs within ``tolerance``. With ``tolerance`` 0 that search is skipped.
+    """
+    locations, location_of = np.unique(xy, axis=0, return_inverse=True)
+    location_of = location_of.ravel()
+    if tolerance == 0 or len(locations) < 2:
+        return location_of
+    m = len(locations)
+    pairs = cKDTree(locations).query_pairs(r=tolerance, output_type="ndarray")
+    links = coo_matrix((np.ones(len(pairs)), (pairs[:, 0], pairs[:, 1])), shape=(m, m))
+    _, label = connected_components(links, directed=False)
+    return label[location_of]
 
 
 def check_samples(xy: np.ndarray, values: np.ndarray, minimum: int = 3) -> None:
