@@ -19,6 +19,11 @@ from scipy.sparse.csgraph import connected_components
 from scipy.spatial import cKDTree
 
 from ..errors import FieldcastError
+from ..model.covariance import MAX_SILL
+
+LARGEST_VALUE = math.sqrt(MAX_SILL)
+"""Largest magnitude of a sample value (modelling scale, 1e50): its square, the scale of the variances the model
+is built of, stays within :data:`..model.covariance.MAX_SILL`; larger values overflow double precision."""
 
 
 @dataclass(frozen=True)
@@ -150,7 +155,7 @@ def check_samples(xy: np.ndarray, values: np.ndarray, minimum: int = 3) -> None:
 
     The checks, in order: the shapes; at least ``minimum`` samples with
     finite coordinates and value; no missing or infinite coordinates; no
-    missing or infinite values; values not all equal.
+    missing or infinite values; no value beyond :data:`LARGEST_VALUE` in magnitude; values not all equal.
 
     Parameters
     ----------
@@ -184,6 +189,14 @@ def check_samples(xy: np.ndarray, values: np.ndarray, minimum: int = 3) -> None:
         raise FieldcastError(
             f"{len(bad)} sample value(s) are missing or infinite (first at row {bad[0]}); filter those "
             "features out, or choose a field without empty values."
+        )
+    huge = np.flatnonzero(np.abs(values) > LARGEST_VALUE)
+    if len(huge):
+        raise FieldcastError(
+            f"{len(huge)} sample value(s) are beyond \u00b1{LARGEST_VALUE:g} (first at row {huge[0]}: "
+            f"{values[huge[0]]:g}); their squares overflow the variance computations. Rescale the field to "
+            "larger units (e.g. divide it by 1e6 with the Field calculator), or use TRANSFORM=log for "
+            "positive values spanning many orders of magnitude."
         )
     spread = float(np.max(values) - np.min(values))
     if spread <= 1e-12 * float(np.max(np.abs(values))):

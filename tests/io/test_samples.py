@@ -140,3 +140,16 @@ def test_check_samples_constant_values():
     xy = np.array([[0.0, 0.0], [1.0, 0.0], [0.0, 1.0]])
     with pytest.raises(FieldcastError, match="All 3 values equal 2.5: there is nothing to interpolate"):
         check_samples(xy, np.full(3, 2.5))
+
+
+def test_check_samples_refuses_values_whose_squares_overflow():
+    values = np.linspace(1.0, 2.0, 20)
+    values[[4, 9]] = [1e300, -3e60]
+    xy = np.column_stack([np.arange(20.0), np.zeros(20)])
+    with pytest.raises(FieldcastError) as error:
+        check_samples(xy, values)
+    for fragment in ("2 sample value(s) are beyond \u00b11e+50", "row 4: 1e+300", "Rescale the field",
+                     "Field calculator", "TRANSFORM=log"):
+        assert fragment in str(error.value)
+    values[[4, 9]] = [1e50, -1e50]
+    check_samples(xy, values)
