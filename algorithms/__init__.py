@@ -99,6 +99,7 @@ _PUBLIC = {
     "default_pixel_size": "io.grid",
     "cell_mask": "io.mask",
     "GeoTiffWriter": "io.geotiff",
+    "MAX_BANDS": "io.geotiff",
     "ModelDocument": "io.model_file",
     "json_ready": "io.model_file",
     "write_text_atomically": "io.atomic",

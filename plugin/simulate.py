@@ -19,6 +19,7 @@ from qgis.core import (
 )
 
 from ..algorithms import (
+    MAX_BANDS,
     Cancelled,
     FieldcastError,
     GeoTiffWriter,
@@ -32,6 +33,7 @@ from .algorithm_base import add_feature, progress_callback, push_log
 from .field_types import field_type
 from .help_text import GRID_HELP, MODEL_FILE_HELP, TARGET_CRS_HELP, THRESHOLD_HELP, compose_help
 from .raster_algorithm import RasterAlgorithm
+from .whole_numbers import whole_number
 
 SUMMARY_RASTERS = (
     ("OUTPUT_MEAN", "Mean of the realisations", "mean"),
@@ -71,10 +73,11 @@ class SimulateAlgorithm(RasterAlgorithm):
           "location averaged)."),
          MODEL_FILE_HELP,
          *GRID_HELP,
-         ("Realisations", "How many fields to draw (default 100). Shares and percentiles from 100 realisations "
-          "are good to a few per cent; more give steadier summaries, at the cost of time and memory (8 bytes per "
-          "cell and realisation)."),
-         ("Seed", "Seed of the random numbers: the same seed, data and settings give the same fields."),
+         ("Realisations", "How many fields to draw (default 100, at most 65,535: the bands of one GeoTIFF). Shares "
+          "and percentiles from 100 realisations are good to a few per cent; more give steadier summaries, at the "
+          "cost of time and memory (8 bytes per cell and realisation)."),
+         ("Seed", "Seed of the random numbers, any whole number from 0: the same seed, data and settings give the "
+          "same fields."),
          ("Neighbours per cell", "0 (the default): every sample conditions every cell (global kriging weights). "
           "A number k: each cell is conditioned on its k nearest samples (local kriging weights; 16 to 64 is "
           "common practice), faster for many samples; the realisations then have the local kriging mean and "
@@ -106,7 +109,7 @@ class SimulateAlgorithm(RasterAlgorithm):
         self.add_grid_parameters()
         self.addParameter(QgsProcessingParameterNumber(
             self.REALIZATIONS, self.tr("Number of realisations"), type=QgsProcessingParameterNumber.Integer,
-            defaultValue=100, minValue=1))
+            defaultValue=100, minValue=1, maxValue=MAX_BANDS))
         self.addParameter(QgsProcessingParameterNumber(
             self.SEED, self.tr("Random seed"), type=QgsProcessingParameterNumber.Integer, defaultValue=1,
             minValue=0))
@@ -129,17 +132,28 @@ class SimulateAlgorithm(RasterAlgorithm):
             self.addOutput(QgsProcessingOutputNumber(name, self.tr(description)))
 
     def checkParameterValues(self, parameters, context):
-        """Refuse a number of realisations below 1 with advice (before Processing's generic range message)."""
-        if parameters.get(self.REALIZATIONS) not in (None, ""):
-            count = self.parameterAsInt(parameters, self.REALIZATIONS, context)
-            if count < 1:
-                return False, (f"The number of realisations must be at least 1; got {count}. Set REALIZATIONS "
-                               "to 1 or more (100 is a good start).")
+        """Refuse REALIZATIONS and SEED outside their ranges with our advice (before Processing's generic message)."""
+        try:
+            self.realisations_and_seed(parameters)
+        except FieldcastError as exc:
+            return False, str(exc)
         return super().checkParameterValues(parameters, context)
 
+    def realisations_and_seed(self, parameters) -> tuple[int, int]:
+        """REALIZATIONS (1 to :data:`MAX_BANDS`, the bands of one GeoTIFF) and SEED (any whole number from 0),
+        read exactly (Processing's integer reading wraps numbers from 2**31 on)."""
+        count = whole_number(self.given(parameters, self.REALIZATIONS), "REALIZATIONS (number of realisations)", 1,
+                             MAX_BANDS)
+        seed = whole_number(self.given(parameters, self.SEED), "SEED (random seed)", 0)
+        return count, seed
+
+    def given(self, parameters, name: str):
+        """The value of parameter ``name`` as given, its default when left out or empty."""
+        value = parameters.get(name)
+        return self.parameterDefinition(name).defaultValue() if value in (None, "") else value
+
     def compute(self, parameters, context, feedback) -> dict:
-        count = self.parameterAsInt(parameters, self.REALIZATIONS, context)
-        seed = self.parameterAsInt(parameters, self.SEED, context)
+        count, seed = self.realisations_and_seed(parameters)
         exceedance_path, threshold = self.exceedance_destination(parameters, context)
         paths = {name: self.raster_destination(parameters, name, context)
                  for name in (self.OUTPUT, *(name for name, _, _ in SUMMARY_RASTERS))}
