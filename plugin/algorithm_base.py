@@ -88,6 +88,20 @@ def progress_callback(feedback, start: float = 0.0, stop: float = 100.0) -> Call
     return lambda fraction: feedback.setProgress(start + (stop - start) * min(max(fraction, 0.0), 1.0))
 
 
+def choice_problem(definition, value) -> str:
+    """Why ``value`` is not a valid word of an enum parameter made by :meth:`FieldcastAlgorithm.add_choice`
+    ("" when it is valid, empty, or the parameter is not such a choice)."""
+    if not isinstance(definition, QgsProcessingParameterEnum) or not definition.usesStaticStrings() \
+            or value in (None, ""):
+        return ""
+    allowed = definition.options()
+    given = value if isinstance(value, (list, tuple)) else [value]
+    if all(item in allowed or (isinstance(item, int) and 0 <= item < len(allowed)) for item in given):
+        return ""
+    return (f"{definition.name()} ({definition.description()}) must be one of {', '.join(allowed)}; got "
+            f"{value!r}. Set {definition.name()} to one of these words.")
+
+
 class FieldcastAlgorithm(QgsProcessingAlgorithm):
     """Base of the Fieldcast algorithms.
 
@@ -217,6 +231,15 @@ class FieldcastAlgorithm(QgsProcessingAlgorithm):
         """An enum parameter whose values are the option words themselves (e.g. ``KERNEL=spherical``)."""
         self.addParameter(QgsProcessingParameterEnum(
             name, description, options=list(options), defaultValue=default, usesStaticStrings=True))
+
+    def checkParameterValues(self, parameters, context):
+        """Refuse an unknown word for a choice (e.g. ``KERNEL=foo``) with the allowed words, before Processing's
+        generic message."""
+        for definition in self.parameterDefinitions():
+            problem = choice_problem(definition, parameters.get(definition.name()))
+            if problem:
+                return False, problem
+        return super().checkParameterValues(parameters, context)
 
     def choice(self, parameters, name: str, context) -> str:
         """The chosen word of an enum parameter made by :meth:`add_choice`."""

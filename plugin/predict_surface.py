@@ -74,7 +74,7 @@ class PredictSurfaceAlgorithm(SurfaceAlgorithm):
             self.OUTPUT_EXCEEDANCE, self.tr("Exceedance probability"), optional=True, createByDefault=False))
 
     def compute(self, parameters, context, feedback) -> dict:
-        exceedance_path, threshold = self.exceedance_destination(parameters, context)
+        exceedance_path, threshold = self.exceedance_destination(parameters, context, threshold_needs_output=True)
         paths = {"prediction": self.raster_destination(parameters, self.OUTPUT, context),
                  "variance": self.raster_destination(parameters, self.OUTPUT_VARIANCE, context),
                  "exceedance": exceedance_path}

@@ -6,6 +6,8 @@ and turns them into an engine :class:`GridSpec`, a cell mask and a threshold.
 """
 from __future__ import annotations
 
+import math
+
 import numpy as np
 from qgis.core import (
     QgsCoordinateReferenceSystem,
@@ -63,20 +65,39 @@ class RasterAlgorithm(FieldcastAlgorithm):
         """Path of a GeoTIFF destination parameter, "" when skipped; FieldcastError for other formats."""
         return geotiff_path(self.parameterAsOutputLayer(parameters, name, context) or "")
 
-    def exceedance_destination(self, parameters, context) -> tuple[str, float | None]:
+    def exceedance_destination(self, parameters, context, threshold_needs_output: bool = False
+                               ) -> tuple[str, float | None]:
         """OUTPUT_EXCEEDANCE ("" when skipped) and THRESHOLD (None when empty), checked together.
+
+        ``threshold_needs_output``: the exceedance raster is the threshold's only use (predict), so a
+        threshold without it would be ignored.
 
         Raises
         ------
         FieldcastError
-            If an exceedance raster is asked for without a threshold.
+            If an exceedance raster is asked for without a threshold, or (``threshold_needs_output``) a
+            threshold without an exceedance raster.
         """
         path = self.raster_destination(parameters, self.OUTPUT_EXCEEDANCE, context)
         threshold = self.optional_number(parameters, self.THRESHOLD, context)
         if path and threshold is None:
             raise FieldcastError("The exceedance raster needs a threshold: set 'Threshold' (THRESHOLD, in the "
                                  "attribute's units, e.g. 500 for 500 ppm), or leave the exceedance output empty.")
+        if threshold_needs_output and threshold is not None and not path:
+            raise FieldcastError(f"A threshold ({threshold:g}) is set but no exceedance raster is asked for, so it "
+                                 "would be ignored. Give the exceedance output (OUTPUT_EXCEEDANCE) a file name, or "
+                                 "leave 'Threshold' (THRESHOLD) empty.")
         return path, threshold
+
+    def checkParameterValues(self, parameters, context):
+        """Refuse a PIXEL_SIZE of 0 or less with our advice (before Processing's generic range message)."""
+        if parameters.get(self.PIXEL_SIZE) not in (None, ""):
+            size = self.parameterAsDouble(parameters, self.PIXEL_SIZE, context)
+            if not (math.isfinite(size) and size > 0):
+                return False, (f"The pixel size (PIXEL_SIZE) must be a positive distance in the working CRS's "
+                               f"units (e.g. metres); got {parameters[self.PIXEL_SIZE]!r}. Give a size above 0, "
+                               "or leave it empty to derive it from the sample spacing.")
+        return super().checkParameterValues(parameters, context)
 
     def grid_and_mask(self, parameters, context, xy: np.ndarray, crs_wkt: str, units: str, feedback,
                       n_bands: int) -> tuple[GridSpec, np.ndarray | None]:

@@ -7,6 +7,7 @@ the inputs unchanged (the ``run_refused`` fixture).
 from __future__ import annotations
 
 import numpy as np
+import pytest
 
 from qgis_support import fieldcast_plugin, point_layer, qgis_processing  # noqa: F401 - fixtures
 from test_plugin_bad_inputs import (  # noqa: F401 - meuse_layer, model_file and run_refused are fixtures
@@ -33,3 +34,26 @@ def test_fifty_thousand_samples_at_one_location_are_averaged(qgis_processing, me
     _, log = run_logged(qgis_processing, "fieldcast:fitmodel", {
         "INPUT": layer, "FIELD": "zinc", **QUICK_FIT, "OUTPUT_MODEL": str(tmp_path / "m.json")})
     assert "Averaged 50001 samples at 1 shared locations" in log and "Using 155 samples" in log
+
+
+# --- parameter values ----------------------------------------------------------------------------------------
+
+def test_unknown_kernel_is_refused_with_the_allowed_words(run_refused, meuse_layer):  # noqa: F811
+    run_refused("fieldcast:fitmodel", {"INPUT": meuse_layer, "FIELD": "zinc", "KERNEL": "foo"},
+                "KERNEL (Covariance family) must be one of auto, exponential, spherical, gaussian, matern32, "
+                "matern52, matern; got 'foo'", "Set KERNEL to one of these words")
+
+
+@pytest.mark.parametrize("size", [-1, 0, "-1"])
+def test_pixel_size_of_zero_or_less_is_refused_with_advice(run_refused, meuse_layer, model_file, size):  # noqa: F811
+    run_refused("fieldcast:predict", {"INPUT": meuse_layer, "FIELD": "zinc", "MODEL": model_file,
+                                      "PIXEL_SIZE": size},
+                f"PIXEL_SIZE) must be a positive distance in the working CRS's units (e.g. metres); got {size!r}",
+                "leave it empty to derive it from the sample spacing")
+
+
+def test_threshold_without_exceedance_output_is_refused(run_refused, meuse_layer, model_file):  # noqa: F811
+    run_refused("fieldcast:predict", {"INPUT": meuse_layer, "FIELD": "zinc", "MODEL": model_file,
+                                      "PIXEL_SIZE": 100, "THRESHOLD": 500},
+                "A threshold (500) is set but no exceedance raster is asked for, so it would be ignored",
+                "OUTPUT_EXCEEDANCE", "leave 'Threshold' (THRESHOLD) empty")
