@@ -97,6 +97,7 @@ _PUBLIC = {
     "merge_coincident": "io.samples",
     "GridSpec": "io.grid",
     "default_pixel_size": "io.grid",
+    "check_extent_reach": "io.grid",
     "cell_mask": "io.mask",
     "GeoTiffWriter": "io.geotiff",
     "MAX_BANDS": "io.geotiff",

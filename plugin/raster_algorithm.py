@@ -18,7 +18,7 @@ from qgis.core import (
     QgsProcessingParameterNumber,
 )
 
-from ..algorithms import FieldcastError, GridSpec, cell_mask, default_pixel_size
+from ..algorithms import FieldcastError, GridSpec, cell_mask, check_extent_reach, default_pixel_size
 from .algorithm_base import FieldcastAlgorithm
 
 MAX_DEFAULT_CELLS = 1_000_000
@@ -103,20 +103,23 @@ class RasterAlgorithm(FieldcastAlgorithm):
                       n_bands: int) -> tuple[GridSpec, np.ndarray | None]:
         """The output grid (checked to fit ``n_bands`` Float32 bands in memory) and its cell mask, logged."""
         working_crs = QgsCoordinateReferenceSystem.fromWkt(crs_wkt)
-        grid = self.grid(parameters, context, xy, working_crs)
+        grid = self.grid(parameters, context, xy, working_crs, units)
         feedback.pushInfo(f"Grid: {grid.n_cols} x {grid.n_rows} cells of {grid.pixel_size:g} {units}, "
                           f"extent {', '.join(f'{v:.10g}' for v in grid.extent)}.")
         grid.check_memory(MEMORY_LIMIT_BYTES, n_bands=n_bands)
         return grid, self.mask(parameters, context, grid, working_crs, feedback)
 
-    def grid(self, parameters, context, xy: np.ndarray, working_crs: QgsCoordinateReferenceSystem) -> GridSpec:
-        """The output grid from EXTENT (default: the samples' extent) and PIXEL_SIZE (default: from spacing)."""
+    def grid(self, parameters, context, xy: np.ndarray, working_crs: QgsCoordinateReferenceSystem,
+             units: str) -> GridSpec:
+        """The output grid from EXTENT (default: the samples' extent; at most ten times its diagonal) and
+        PIXEL_SIZE (default: from spacing)."""
         rectangle = self.parameterAsExtent(parameters, self.EXTENT, context, working_crs)
         if rectangle.isNull():
             low, high = xy.min(axis=0), xy.max(axis=0)
             extent = (float(low[0]), float(low[1]), float(high[0]), float(high[1]))
         else:
             extent = (rectangle.xMinimum(), rectangle.yMinimum(), rectangle.xMaximum(), rectangle.yMaximum())
+            check_extent_reach(extent, xy, units)
         pixel_size = self.optional_number(parameters, self.PIXEL_SIZE, context)
         if pixel_size is None:
             pixel_size = default_pixel_size(xy, extent, max_cells=MAX_DEFAULT_CELLS)

@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
+from qgis.core import QgsProcessingFeedback
 
 from qgis_support import fieldcast_plugin, point_layer, qgis_processing  # noqa: F401 - fixtures
 from test_plugin_bad_inputs import (  # noqa: F401 - meuse_layer, model_file and run_refused are fixtures
@@ -57,3 +58,26 @@ def test_threshold_without_exceedance_output_is_refused(run_refused, meuse_layer
                                       "PIXEL_SIZE": 100, "THRESHOLD": 500},
                 "A threshold (500) is set but no exceedance raster is asked for, so it would be ignored",
                 "OUTPUT_EXCEEDANCE", "leave 'Threshold' (THRESHOLD) empty")
+
+
+# --- grids ---------------------------------------------------------------------------------------------------
+
+def test_extent_far_wider_than_the_samples_is_refused_before_the_work(run_refused, meuse_layer,  # noqa: F811
+                                                                     model_file):  # noqa: F811
+    # 24,800 km across for samples spanning about 4.4 km (the Meuse bounding box, meuse.csv).
+    feedback = QgsProcessingFeedback()
+    run_refused("fieldcast:predict", {"INPUT": meuse_layer, "FIELD": "zinc", "MODEL": model_file,
+                                      "EXTENT": "-8000000,9500000,-8000000,9500000 [EPSG:28992]"},
+                "The extent is 2.47487e+07 metres across (diagonal)", "times the", "the samples span",
+                "Choose an extent at most 10 times the samples'", "leave EXTENT empty", feedback=feedback)
+    assert "Grid:" not in feedback.textLog()
+
+
+def test_extent_ten_times_the_samples_is_accepted(qgis_processing, meuse, meuse_layer, model_file,  # noqa: F811
+                                                  tmp_path):
+    low, high = meuse.xy.min(axis=0), meuse.xy.max(axis=0)
+    centre, half = (low + high) / 2, (high - low) * 4.9
+    extent = f"{centre[0] - half[0]},{centre[0] + half[0]},{centre[1] - half[1]},{centre[1] + half[1]} [EPSG:28992]"
+    qgis_processing.run("fieldcast:predict", {"INPUT": meuse_layer, "FIELD": "zinc", "MODEL": model_file,
+                                              "EXTENT": extent, "PIXEL_SIZE": 1000, "OUTPUT": str(tmp_path / "p.tif")})
+    assert (tmp_path / "p.tif").exists()
