@@ -18,7 +18,14 @@ from qgis.core import (
     QgsProcessingParameterNumber,
 )
 
-from ..algorithms import FieldcastError, GridSpec, cell_mask, check_extent_reach, default_pixel_size
+from ..algorithms import (
+    FieldcastError,
+    GridSpec,
+    check_extent_reach,
+    checked_cell_mask,
+    default_pixel_size,
+    defined_crs,
+)
 from .algorithm_base import FieldcastAlgorithm
 
 MAX_DEFAULT_CELLS = 1_000_000
@@ -107,7 +114,7 @@ class RasterAlgorithm(FieldcastAlgorithm):
         feedback.pushInfo(f"Grid: {grid.n_cols} x {grid.n_rows} cells of {grid.pixel_size:g} {units}, "
                           f"extent {', '.join(f'{v:.10g}' for v in grid.extent)}.")
         grid.check_memory(MEMORY_LIMIT_BYTES, n_bands=n_bands)
-        return grid, self.mask(parameters, context, grid, working_crs, feedback)
+        return grid, self.mask(parameters, context, grid, working_crs, units, feedback)
 
     def grid(self, parameters, context, xy: np.ndarray, working_crs: QgsCoordinateReferenceSystem,
              units: str) -> GridSpec:
@@ -130,18 +137,24 @@ class RasterAlgorithm(FieldcastAlgorithm):
                                  "empty to use the samples' extent.")
         return grid
 
-    def mask(self, parameters, context, grid: GridSpec, working_crs: QgsCoordinateReferenceSystem,
+    def mask(self, parameters, context, grid: GridSpec, working_crs: QgsCoordinateReferenceSystem, units: str,
              feedback) -> np.ndarray | None:
-        """Boolean cell mask from the MASK polygons (reprojected to the working CRS), or None without a mask."""
+        """Boolean cell mask from the MASK polygons (reprojected to the working CRS), or None without a mask.
+
+        Raises
+        ------
+        FieldcastError
+            For a mask layer without a defined CRS, without polygons, or holding no cell centre (saying why).
+        """
         source = self.parameterAsSource(parameters, self.MASK, context)
         if source is None:
             return None
+        name = f"{source.sourceName()} (MASK)"
+        defined_crs(source.sourceCrs().toWkt(QgsCoordinateReferenceSystem.WKT2_2019) if source.sourceCrs().isValid()
+                    else "", name)
         request = QgsFeatureRequest().setNoAttributes().setDestinationCrs(working_crs, context.transformContext())
         shapes = [bytes(feature.geometry().asWkb()) for feature in source.getFeatures(request)
                   if not feature.geometry().isEmpty()]
-        inside = cell_mask(grid, shapes)
-        if not inside.any():
-            raise FieldcastError("No cell centre lies inside the mask polygons. Check that the mask covers the "
-                                 "extent, or use a smaller pixel size.")
+        inside = checked_cell_mask(grid, shapes, name, units)
         feedback.pushInfo(f"Mask: {int(inside.sum())} of {grid.n_cells} cells inside the polygons.")
         return inside

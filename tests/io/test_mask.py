@@ -11,7 +11,7 @@ from osgeo import ogr
 
 from fieldcast.algorithms.errors import FieldcastError
 from fieldcast.algorithms.io.grid import GridSpec
-from fieldcast.algorithms.io.mask import cell_mask
+from fieldcast.algorithms.io.mask import cell_mask, checked_cell_mask
 
 GRID = GridSpec(x_min=1000.0, y_max=2000.0, pixel_size=10.0, n_cols=30, n_rows=20)
 
@@ -61,3 +61,18 @@ def test_no_polygons_mask_every_cell():
 def test_unusable_geometries_are_refused(shape, fragment):
     with pytest.raises(FieldcastError, match=fragment):
         cell_mask(GRID, [shape])
+
+
+@pytest.mark.parametrize(("shapes", "fragments"), [
+    ([], ("The mask layer holds no polygons", "leave MASK empty")),
+    (["POLYGON((0 0, 10 0, 10 10, 0 10, 0 0))"],
+     ("lies outside the grid: its polygons span 0, 0, 10, 10", "has its real CRS")),
+    (["POLYGON((1052 1901, 1053 1901, 1053 1902, 1052 1901))"],
+     ("overlaps the grid but holds no cell centre", "smaller PIXEL_SIZE")),
+])
+def test_masks_without_cells_are_refused_with_the_reason(shapes, fragments):
+    with pytest.raises(FieldcastError) as error:
+        checked_cell_mask(GRID, shapes)
+    for fragment in fragments:
+        assert fragment in str(error.value)
+    assert not cell_mask(GRID, shapes).any()

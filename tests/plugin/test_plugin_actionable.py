@@ -8,7 +8,7 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
-from qgis.core import QgsProcessingFeedback
+from qgis.core import QgsFeature, QgsGeometry, QgsProcessingFeedback, QgsVectorLayer
 
 from qgis_support import fieldcast_plugin, point_layer, qgis_processing  # noqa: F401 - fixtures
 from test_plugin_bad_inputs import (  # noqa: F401 - meuse_layer, model_file and run_refused are fixtures
@@ -81,3 +81,32 @@ def test_extent_ten_times_the_samples_is_accepted(qgis_processing, meuse, meuse_
     qgis_processing.run("fieldcast:predict", {"INPUT": meuse_layer, "FIELD": "zinc", "MODEL": model_file,
                                               "EXTENT": extent, "PIXEL_SIZE": 1000, "OUTPUT": str(tmp_path / "p.tif")})
     assert (tmp_path / "p.tif").exists()
+
+
+# --- masks ---------------------------------------------------------------------------------------------------
+
+def polygon_layer(wkts: list[str], crs: str | None = "EPSG:28992") -> QgsVectorLayer:
+    """A memory polygon layer named "site" holding ``wkts``; ``crs=None`` gives it no CRS."""
+    layer = QgsVectorLayer(f"Polygon?crs={crs or ''}", "site", "memory")
+    features = []
+    for wkt in wkts:
+        feature = QgsFeature()
+        feature.setGeometry(QgsGeometry.fromWkt(wkt))
+        features.append(feature)
+    layer.dataProvider().addFeatures(features)
+    return layer
+
+
+MEUSE_SQUARE = "POLYGON((179000 330000, 182000 330000, 182000 334000, 179000 334000, 179000 330000))"
+
+
+@pytest.mark.parametrize(("mask", "fragments"), [
+    (polygon_layer([MEUSE_SQUARE], crs=None), ("The layer site (MASK) has no defined CRS", "Assign its real CRS")),
+    (polygon_layer([]), ("The mask site (MASK) holds no polygons", "leave MASK empty")),
+    (polygon_layer(["POLYGON((0 0, 10 0, 10 10, 0 10, 0 0))"]),
+     ("The mask site (MASK) lies outside the grid: its polygons span 0, 0, 10, 10", "has its real CRS")),
+])
+def test_masks_that_keep_no_cell_are_refused_with_the_reason(run_refused, meuse_layer, model_file, mask,  # noqa: F811
+                                                             fragments):
+    run_refused("fieldcast:predict", {"INPUT": meuse_layer, "FIELD": "zinc", "MODEL": model_file,
+                                      "PIXEL_SIZE": 100, "MASK": mask}, *fragments)
