@@ -124,7 +124,9 @@ class SurfaceAlgorithm(RasterAlgorithm):
                    for document, (field, paths) in zip(documents, outputs)]
         local = isinstance(predictor, LocalKrigingPredictor)
         before = (predictor.singular_targets, predictor.ill_conditioned_targets) if local else (0, 0)
-        unresolved = write_surfaces(cell_predictor(predictor, scale.support, grid.pixel_size), grid, inside, scale,
-                                    documents[0].crs_wkt, rasters, progress, feedback.isCanceled)
+        counts = write_surfaces(cell_predictor(predictor, scale.support, grid.pixel_size), grid, inside, scale,
+                                documents[0].crs_wkt, rasters, progress, feedback.isCanceled)
         after = (predictor.singular_targets, predictor.ill_conditioned_targets) if local else (0, 0)
-        log_unresolved(unresolved, after[0] - before[0], after[1] - before[1], feedback)
+        log_unresolved(counts.unresolved, after[0] - before[0], after[1] - before[1], feedback)
+        for warning in counts.warnings():
+            feedback.pushWarning(warning)

@@ -177,7 +177,8 @@ class GeoTiffWriter:
             raise ValueError("the writer is closed (committed or aborted)")
         if not 0 <= band_index < self.n_bands:
             raise ValueError(f"band_index {band_index} is outside 0..{self.n_bands - 1}")
-        values = np.array(array, dtype=np.float32)
+        with np.errstate(over="ignore"):  # beyond the Float32 range: infinity, stored as nodata below
+            values = np.array(array, dtype=np.float32)
         if values.ndim == 1 and values.size % self.grid.n_cols == 0:
             values = values.reshape(-1, self.grid.n_cols)
         if values.ndim != 2 or values.shape[1] != self.grid.n_cols:

@@ -6,6 +6,9 @@ the inputs unchanged (the ``run_refused`` fixture).
 """
 from __future__ import annotations
 
+import json
+from pathlib import Path
+
 import numpy as np
 import pytest
 from qgis.core import QgsFeature, QgsGeometry, QgsProcessingFeedback, QgsVectorLayer
@@ -110,3 +113,17 @@ def test_masks_that_keep_no_cell_are_refused_with_the_reason(run_refused, meuse_
                                                              fragments):
     run_refused("fieldcast:predict", {"INPUT": meuse_layer, "FIELD": "zinc", "MODEL": model_file,
                                       "PIXEL_SIZE": 100, "MASK": mask}, *fragments)
+
+
+# --- rasters that would be nodata ----------------------------------------------------------------------------
+
+def test_variance_beyond_float32_everywhere_is_refused(run_refused, meuse_layer, model_file, tmp_path):  # noqa: F811
+    # A partial sill of 1e50 ppm^2 (accepted: at most 1e100) makes kriging variances far beyond the Float32
+    # range (about 3.4e38, IEEE 754 single precision) at every cell: the variance raster would hold no value.
+    document = json.loads(Path(model_file).read_text(encoding="utf-8"))
+    document["structures"][0]["partial_sill"] = 1e50
+    huge = tmp_path / "huge.json"
+    huge.write_text(json.dumps(document), encoding="utf-8")
+    run_refused("fieldcast:predict", {"INPUT": meuse_layer, "FIELD": "zinc", "MODEL": str(huge), "PIXEL_SIZE": 100},
+                "The zinc variance raster(s) would be nodata at every cell", "Float32 GeoTIFF",
+                "Check the model's sill and partial sills")
