@@ -53,6 +53,7 @@ from .icons import icon, icon_path
 from .model_source import FitSettings, describe_document, fit_document, load_document
 from .report.page import ReportError
 from .sample_reader import LayerSamples, ModelSamples, prepare_samples, read_layer_samples
+from .whole_numbers import whole_number
 
 TREND_CHOICES = ("constant", "linear", "quadratic")
 FILE_OUTPUTS = (QgsProcessingParameterFileDestination, QgsProcessingParameterRasterDestination,
@@ -218,8 +219,13 @@ class FieldcastAlgorithm(QgsProcessingAlgorithm):
 
     def neighbourhood(self, parameters, context) -> Neighbourhood:
         """The NEIGHBOURS and SEARCH_RADIUS chosen (SEARCH_RADIUS None when empty)."""
-        return Neighbourhood(self.parameterAsInt(parameters, self.NEIGHBOURS, context),
+        return Neighbourhood(whole_number(self.given_value(parameters, self.NEIGHBOURS), "NEIGHBOURS", 0),
                              self.optional_number(parameters, self.SEARCH_RADIUS, context))
+
+    def given_value(self, parameters, name: str):
+        """The value of parameter ``name`` as given, its default when left out or empty (for :func:`whole_number`)."""
+        value = parameters.get(name)
+        return self.parameterDefinition(name).defaultValue() if value in (None, "") else value
 
     def optional_number(self, parameters, name: str, context) -> float | None:
         """The value of an optional number parameter, None when it is left empty."""
@@ -233,12 +239,17 @@ class FieldcastAlgorithm(QgsProcessingAlgorithm):
             name, description, options=list(options), defaultValue=default, usesStaticStrings=True))
 
     def checkParameterValues(self, parameters, context):
-        """Refuse an unknown word for a choice (e.g. ``KERNEL=foo``) with the allowed words, before Processing's
-        generic message."""
+        """Refuse an unknown word for a choice (e.g. ``KERNEL=foo``) with the allowed words, and a NEIGHBOURS that
+        is not a whole number from 0, before Processing's generic message."""
         for definition in self.parameterDefinitions():
             problem = choice_problem(definition, parameters.get(definition.name()))
             if problem:
                 return False, problem
+        if self.parameterDefinition(self.NEIGHBOURS) is not None:
+            try:
+                self.neighbourhood(parameters, context)
+            except FieldcastError as exc:
+                return False, str(exc)
         return super().checkParameterValues(parameters, context)
 
     def choice(self, parameters, name: str, context) -> str:

@@ -142,15 +142,10 @@ class SimulateAlgorithm(RasterAlgorithm):
     def realisations_and_seed(self, parameters) -> tuple[int, int]:
         """REALIZATIONS (1 to :data:`MAX_BANDS`, the bands of one GeoTIFF) and SEED (any whole number from 0),
         read exactly (Processing's integer reading wraps numbers from 2**31 on)."""
-        count = whole_number(self.given(parameters, self.REALIZATIONS), "REALIZATIONS (number of realisations)", 1,
-                             MAX_BANDS)
-        seed = whole_number(self.given(parameters, self.SEED), "SEED (random seed)", 0)
+        count = whole_number(self.given_value(parameters, self.REALIZATIONS), "REALIZATIONS (number of realisations)",
+                             1, MAX_BANDS)
+        seed = whole_number(self.given_value(parameters, self.SEED), "SEED (random seed)", 0)
         return count, seed
-
-    def given(self, parameters, name: str):
-        """The value of parameter ``name`` as given, its default when left out or empty."""
-        value = parameters.get(name)
-        return self.parameterDefinition(name).defaultValue() if value in (None, "") else value
 
     def compute(self, parameters, context, feedback) -> dict:
         count, seed = self.realisations_and_seed(parameters)

@@ -127,3 +127,20 @@ def test_variance_beyond_float32_everywhere_is_refused(run_refused, meuse_layer,
     run_refused("fieldcast:predict", {"INPUT": meuse_layer, "FIELD": "zinc", "MODEL": str(huge), "PIXEL_SIZE": 100},
                 "The zinc variance raster(s) would be nodata at every cell", "Float32 GeoTIFF",
                 "Check the model's sill and partial sills")
+
+
+@pytest.mark.parametrize("neighbours", [-1, 2.5])
+def test_neighbours_that_are_not_whole_numbers_from_0_are_refused(run_refused, meuse_layer, model_file,  # noqa: F811
+                                                                  neighbours):
+    run_refused("fieldcast:predict", {"INPUT": meuse_layer, "FIELD": "zinc", "MODEL": model_file,
+                                      "PIXEL_SIZE": 100, "NEIGHBOURS": neighbours},
+                f"NEIGHBOURS must be a whole number of 0 or more; got {neighbours!r}")
+
+
+def test_neighbours_beyond_two_to_the_31_are_taken_whole(qgis_processing, meuse_layer, model_file,  # noqa: F811
+                                                         tmp_path):
+    # 4294967298 = 2**32 + 2 used to be read as 2 neighbours, silently; taken whole it means every sample.
+    _, log = run_logged(qgis_processing, "fieldcast:predict", {
+        "INPUT": meuse_layer, "FIELD": "zinc", "MODEL": model_file, "PIXEL_SIZE": 100, "NEIGHBOURS": 4_294_967_298,
+        "OUTPUT": str(tmp_path / "p.tif")})
+    assert "Local kriging: each cell from its 155 nearest" in log
