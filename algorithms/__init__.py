@@ -101,6 +101,7 @@ _PUBLIC = {
     "cell_mask": "io.mask",
     "checked_cell_mask": "io.mask",
     "GeoTiffWriter": "io.geotiff",
+    "NodataCounts": "io.nodata_counts",
     "MAX_BANDS": "io.geotiff",
     "ModelDocument": "io.model_file",
     "json_ready": "io.model_file",

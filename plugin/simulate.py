@@ -23,6 +23,7 @@ from ..algorithms import (
     Cancelled,
     FieldcastError,
     GeoTiffWriter,
+    NodataCounts,
     RealisationSummary,
     SimulationResult,
     search_words,
@@ -184,6 +185,7 @@ class SimulateAlgorithm(RasterAlgorithm):
             raise Cancelled("Simulation was cancelled.")
         metadata = {"fieldcast_model": document.to_dict(), "fieldcast_seed": seed,
                     "fieldcast_realisations": count, "fieldcast_simulation": result.method}
+        self.check_nodata(result, summary, inside, paths, samples.field, feedback)
         self.write_rasters(result, summary, inside, paths, threshold, samples.field, document.crs_wkt, metadata)
         outputs = {name: path for name, path in paths.items() if path}
         if wants_table:
@@ -228,6 +230,19 @@ class SimulateAlgorithm(RasterAlgorithm):
                                  "than the mean model needs lie within SEARCH_RADIUS of them (or their neighbours "
                                  "make a singular system); they are left out of the summaries. Enlarge "
                                  "SEARCH_RADIUS, or leave it empty, to fill them.")
+
+    @staticmethod
+    def check_nodata(result: SimulationResult, summary: RealisationSummary | None, inside: np.ndarray | None,
+                     paths: dict, field: str, feedback) -> None:
+        """Refuse rasters that would be nodata at every simulated cell (values beyond Float32), warn when mostly."""
+        rasters = {f"{field} realisations": result.realisations}
+        rasters.update({f"{field} {attribute}": getattr(summary, attribute)
+                        for name, _, attribute in SUMMARY_RASTERS if paths[name] and summary is not None})
+        counts = NodataCounts.of_rasters(rasters, inside, np.isnan(result.realisations[0]))
+        if counts.error() is not None:
+            raise counts.error()
+        for warning in counts.warnings():
+            feedback.pushWarning(warning)
 
     def write_rasters(self, result: SimulationResult, summary: RealisationSummary | None,
                       inside: np.ndarray | None, paths: dict, threshold: float | None, field: str, crs_wkt: str,

@@ -15,9 +15,10 @@ from typing import Optional
 
 import numpy as np
 
-from ..errors import Cancelled, FieldcastError
+from ..errors import Cancelled
 from ..io.geotiff import GeoTiffWriter
 from ..io.grid import GridSpec
+from ..io.nodata_counts import NodataCounts, unwritable
 from ..io.staging import staged_together
 from ..model.transform import Transform
 from .block import DEFAULT_POINTS_PER_SIDE, block_predict
@@ -32,10 +33,6 @@ SURFACE_KINDS = ("prediction", "variance", "exceedance")
 BLOCK_CELLS = 1 << 20
 """Most cells predicted per block of rows (about 50 MB of working arrays with a few hundred samples)."""
 TILE_ROWS = 256
-FLOAT32_MAX = float(np.finfo(np.float32).max)
-UNWRITABLE_REASON = (f"the values there are not numbers or lie beyond \u00b1{FLOAT32_MAX:.3g}, the range of the "
-                     "Float32 GeoTIFF. Check the model's sill and partial sills (refit with 'Fit covariance model'), "
-                     "or rescale the attribute to larger units.")
 
 CellPredictor = Callable[[np.ndarray, Callable[[float], None], Optional[Callable[[], bool]]],
                          tuple[np.ndarray, np.ndarray]]
@@ -145,49 +142,15 @@ class FieldRasters:
     variance_factor: float = 1.0
 
 
-@dataclass(frozen=True)
-class SurfaceCounts:
-    """What :func:`write_surfaces` left nodata among the cells it kriged (those inside the mask).
-
-    Attributes
-    ----------
-    kriged : int
-        Cells kriged (inside the mask).
-    unresolved : int
-        Of those, cells the predictor left NaN (a local neighbourhood with too few samples in range).
-    unwritable : dict of str to int
-        Per raster (``"<field> <kind>"``), resolved cells whose value is not a number or beyond the
-        Float32 range (±3.4e38) of the GeoTIFF, stored as nodata.
-    """
-
-    kriged: int
-    unresolved: int
-    unwritable: dict[str, int]
-
-    def warnings(self, share: float = 0.5) -> list[str]:
-        """A warning for each raster nodata at more than ``share`` of its resolved cells (not the mask's doing)."""
-        resolved = self.kriged - self.unresolved
-        return [f"The {name} raster is nodata at {count:,} of {resolved:,} kriged cells: {UNWRITABLE_REASON}"
-                for name, count in self.unwritable.items() if count > share * resolved]
-
-    def error(self) -> FieldcastError | None:
-        """The refusal for rasters that would hold no value at any resolved cell, None when every raster holds some."""
-        resolved = self.kriged - self.unresolved
-        empty = [name for name, count in self.unwritable.items() if resolved and count == resolved]
-        if not empty:
-            return None
-        return FieldcastError(f"The {', '.join(empty)} raster(s) would be nodata at every cell: {UNWRITABLE_REASON}")
-
-
 def write_surfaces(predict: CellPredictor, grid: GridSpec, inside: np.ndarray | None, scale: SurfaceScale,
                    crs_wkt: str, fields: Sequence[FieldRasters], progress: Callable[[float], None] | None = None,
-                   should_stop: Callable[[], bool] | None = None) -> SurfaceCounts:
+                   should_stop: Callable[[], bool] | None = None) -> NodataCounts:
     """Predict every cell (those with ``inside`` True) and write each field's GeoTIFFs; returns the nodata counts.
 
     ``predict`` gives one mean column per field of ``fields`` (shape (m,) for one field, (m, k) for k)
     and one variance, which each field scales by its ``variance_factor``. Cells outside the mask,
     cells the predictor leaves NaN (a local neighbourhood with too few samples in range) and values
-    that do not fit Float32 are stored as nodata; :class:`SurfaceCounts` counts the last two.
+    that do not fit Float32 are stored as nodata; :class:`..io.nodata_counts.NodataCounts` counts the last two.
 
     Every field's files appear together at the end (or, inside an :class:`..io.staging.OutputSet`, with
     the set's commit).
@@ -197,11 +160,12 @@ def write_surfaces(predict: CellPredictor, grid: GridSpec, inside: np.ndarray | 
     Cancelled
         When ``should_stop()`` turns True; no output file is left.
     FieldcastError
-        When a raster would be nodata at every resolved cell (:meth:`SurfaceCounts.error`); no file is left.
+        When a raster would be nodata at every resolved cell (:meth:`..io.nodata_counts.NodataCounts.error`);
+        no file is left.
     """
     step = block_rows(grid, len(fields))
     unresolved = kriged = 0
-    unwritable = {f"{output.field} {kind}": 0 for output in fields for kind in SURFACE_KINDS if output.paths.get(kind)}
+    lost = {f"{output.field} {kind}": 0 for output in fields for kind in SURFACE_KINDS if output.paths.get(kind)}
     with staged_together(), contextlib.ExitStack() as stack:
         writers = []
         for output in fields:
@@ -231,14 +195,13 @@ def write_surfaces(predict: CellPredictor, grid: GridSpec, inside: np.ndarray | 
                     layers = scale.layers(mean[:, column], variance * output.variance_factor, list(field_bands))
                     for kind, values in layers.items():
                         field_bands[kind][keep] = values
-                        fits = np.isfinite(values) & (np.abs(values) <= FLOAT32_MAX)
-                        unwritable[f"{output.field} {kind}"] += int(np.count_nonzero(resolved & ~fits))
+                        lost[f"{output.field} {kind}"] += int(np.count_nonzero(resolved & unwritable(values)))
             for field_writers, field_bands in zip(writers, bands):
                 for kind, writer in field_writers.items():
                     writer.write_block(0, start, field_bands[kind])
             if progress is not None:
                 progress(stop / grid.n_rows)
-        counts = SurfaceCounts(kriged, unresolved, unwritable)
+        counts = NodataCounts(kriged, unresolved, lost)
         if counts.error() is not None:
             raise counts.error()
         for field_writers in writers:

@@ -7,7 +7,9 @@ grid's extent, masked to the 80 m cells that hold it (see tests/test_plugin_deci
 from __future__ import annotations
 
 import csv
+import json
 from dataclasses import dataclass
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -235,6 +237,21 @@ def test_seeds_that_are_not_whole_numbers_from_0_are_refused(qgis_processing, me
                                         "SEED": seed, "THRESHOLD": ZINC_THRESHOLD}, tmp_path)
     assert f"SEED (random seed) must be a whole number of 0 or more; got {seed!r}" in message
 
+
+
+def test_realisations_beyond_float32_everywhere_are_refused(qgis_processing, meuse, meuse_grid, zinc_model,  # noqa: F811
+                                                           tmp_path_factory):
+    # A partial sill of 1e90 (accepted: at most 1e100) without transform gives realisations beyond the Float32
+    # range (about 3.4e38, IEEE 754 single precision) in every cell: the rasters would hold no value.
+    document = json.loads(Path(zinc_model).read_text(encoding="utf-8"))
+    document["structures"][0]["partial_sill"] = 1e90
+    document["transform"] = {"kind": "none", "offset": 0.0}
+    huge = tmp_path_factory.mktemp("huge-model") / "huge.json"
+    huge.write_text(json.dumps(document), encoding="utf-8")
+    message = refused(qgis_processing, {**grid_parameters(meuse, meuse_grid, str(huge)), "REALIZATIONS": 3,
+                                        "THRESHOLD": ZINC_THRESHOLD}, tmp_path_factory.mktemp("huge-out"))
+    assert "The zinc realisations" in message and "would be nodata at every cell" in message
+    assert "Float32 GeoTIFF" in message
 
 def test_one_neighbour_is_refused(qgis_processing, meuse, meuse_grid, zinc_model, tmp_path):  # noqa: F811
     message = refused(qgis_processing, {**grid_parameters(meuse, meuse_grid, zinc_model), "REALIZATIONS": 5,

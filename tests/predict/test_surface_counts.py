@@ -11,8 +11,9 @@ import pytest
 from fieldcast.algorithms.errors import FieldcastError
 from fieldcast.algorithms.io.crs import to_wkt2
 from fieldcast.algorithms.io.grid import GridSpec
+from fieldcast.algorithms.io.nodata_counts import NodataCounts
 from fieldcast.algorithms.model.transform import Transform
-from fieldcast.algorithms.predict.grid_surfaces import FieldRasters, SurfaceCounts, SurfaceScale, write_surfaces
+from fieldcast.algorithms.predict.grid_surfaces import FieldRasters, SurfaceScale, write_surfaces
 
 GRID = GridSpec(x_min=0.0, y_max=100.0, pixel_size=10.0, n_cols=10, n_rows=10)
 
@@ -27,7 +28,7 @@ def fixed_predictor(variance: float, unresolved_every: int = 0):
     return predict
 
 
-def run(tmp_path, variance: float, inside=None, unresolved_every: int = 0) -> SurfaceCounts:
+def run(tmp_path, variance: float, inside=None, unresolved_every: int = 0) -> NodataCounts:
     paths = {"prediction": str(tmp_path / "p.tif"), "variance": str(tmp_path / "v.tif")}
     return write_surfaces(fixed_predictor(variance, unresolved_every), GRID, inside, SurfaceScale(Transform()),
                           to_wkt2("EPSG:28992"), [FieldRasters("zinc", paths, {})])
@@ -37,7 +38,7 @@ def test_writable_rasters_count_nothing(tmp_path):
     inside = np.zeros((10, 10), bool)
     inside[:5] = True
     counts = run(tmp_path, 4.0, inside=inside, unresolved_every=10)
-    assert (counts.kriged, counts.unresolved) == (50, 5)
+    assert (counts.computed, counts.unresolved) == (50, 5)
     assert counts.unwritable == {"zinc prediction": 0, "zinc variance": 0}
     assert counts.warnings() == [] and counts.error() is None
 
@@ -51,8 +52,21 @@ def test_a_raster_beyond_float32_everywhere_is_refused_and_leaves_no_file(tmp_pa
 
 
 def test_rasters_mostly_nodata_are_warned_about():
-    counts = SurfaceCounts(kriged=100, unresolved=10, unwritable={"zinc prediction": 0, "zinc variance": 60})
+    counts = NodataCounts(computed=100, unresolved=10, unwritable={"zinc prediction": 0, "zinc variance": 60})
     assert counts.error() is None
     (warning,) = counts.warnings()
-    assert warning.startswith("The zinc variance raster is nodata at 60 of 90 kriged cells")
-    assert SurfaceCounts(100, 10, {"zinc variance": 45}).warnings() == []
+    assert warning.startswith("The zinc variance raster is nodata at 60 of 90 computed cells")
+    assert NodataCounts(100, 10, {"zinc variance": 45}).warnings() == []
+
+
+def test_counts_of_whole_rasters_leave_out_the_mask_and_the_unresolved_cells():
+    inside = np.array([[True, True, True], [True, True, False]])
+    unresolved = np.array([[False, False, False], [False, True, False]])
+    bands = np.ones((2, 2, 3))
+    bands[1, 0, 0] = 1e39  # one band of one cell beyond Float32
+    bands[:, 1, 2] = np.inf  # outside the mask: not counted
+    bands[:, 1, 1] = np.nan  # unresolved: not counted
+    counts = NodataCounts.of_rasters({"zinc realisations": bands, "zinc mean": bands.mean(axis=0)}, inside, unresolved)
+    assert (counts.computed, counts.unresolved) == (5, 1)
+    assert counts.unwritable == {"zinc realisations": 1, "zinc mean": 1}
+    assert counts.error() is None and counts.warnings() == []
