@@ -27,6 +27,7 @@ from ..algorithms import (
     defined_crs,
 )
 from .algorithm_base import FieldcastAlgorithm
+from .sample_reader import crs_wkt
 
 MAX_DEFAULT_CELLS = 1_000_000
 """Cap on the number of cells of a grid whose pixel size is chosen automatically."""
@@ -150,8 +151,7 @@ class RasterAlgorithm(FieldcastAlgorithm):
         if source is None:
             return None
         name = f"{source.sourceName()} (MASK)"
-        defined_crs(source.sourceCrs().toWkt(QgsCoordinateReferenceSystem.WKT2_2019) if source.sourceCrs().isValid()
-                    else "", name)
+        defined_crs(crs_wkt(source.sourceCrs()), name)
         request = QgsFeatureRequest().setNoAttributes().setDestinationCrs(working_crs, context.transformContext())
         shapes = [bytes(feature.geometry().asWkb()) for feature in source.getFeatures(request)
                   if not feature.geometry().isEmpty()]
