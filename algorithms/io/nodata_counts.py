@@ -54,8 +54,12 @@ class NodataCounts:
         the (n_rows, n_cols) cells left NaN on purpose."""
         keep = np.ones(unresolved.shape, bool) if inside is None else inside
         resolved = keep & ~unresolved
-        lost = {name: int(np.count_nonzero(resolved & unwritable(values).reshape(-1, *keep.shape).any(axis=0)))
-                for name, values in rasters.items()}
+        lost = {}
+        for name, values in rasters.items():
+            bad = np.zeros(keep.shape, bool)
+            for band in np.reshape(values, (-1, *keep.shape)):  # band by band: no copy of all realisations
+                bad |= unwritable(band)
+            lost[name] = int(np.count_nonzero(resolved & bad))
         return cls(int(np.count_nonzero(keep)), int(np.count_nonzero(keep & unresolved)), lost)
 
     def warnings(self, share: float = 0.5) -> list[str]:
