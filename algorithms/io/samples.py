@@ -194,7 +194,8 @@ def check_samples(xy: np.ndarray, values: np.ndarray, minimum: int = 3) -> None:
     if len(huge):
         raise FieldcastError(
             f"{len(huge)} sample value(s) are beyond \u00b1{LARGEST_VALUE:g} (first at row {huge[0]}: "
-            f"{values[huge[0]]:g}); their squares overflow the variance computations. Rescale the field to "
+            f"{values[huge[0]]:g}); their squares pass the largest variance a model takes ({MAX_SILL:g}) and "
+            "overflow the computations. Rescale the field to "
             "larger units (e.g. divide it by 1e6 with the Field calculator), or use TRANSFORM=log for "
             "positive values spanning many orders of magnitude."
         )
