@@ -57,6 +57,7 @@ from .icons import icon, icon_path
 from .model_source import FitSettings, describe_document, fit_document, load_document
 from .report.page import ReportError
 from .sample_reader import LayerSamples, ModelSamples, prepare_samples, read_layer_samples
+from .whole_numbers import whole_number
 
 TREND_CHOICES = ("constant", "linear", "quadratic")
 NO_FIELD = ("No value field chosen. Choose the numeric field of the sample layer to model in 'Value field' "
@@ -83,6 +84,20 @@ def advanced(definition: QgsProcessingParameterDefinition) -> QgsProcessingParam
 def progress_callback(feedback, start: float = 0.0, stop: float = 100.0) -> Callable[[float], None]:
     """A ``progress(fraction)`` for the engine that moves the Processing bar from ``start`` to ``stop`` percent."""
     return lambda fraction: feedback.setProgress(start + (stop - start) * min(max(fraction, 0.0), 1.0))
+
+
+def choice_problem(definition, value) -> str:
+    """Why ``value`` is not a valid word of an enum parameter made by :meth:`FieldcastAlgorithm.add_choice`
+    ("" when it is valid, empty, or the parameter is not such a choice)."""
+    if not isinstance(definition, QgsProcessingParameterEnum) or not definition.usesStaticStrings() \
+            or value in (None, ""):
+        return ""
+    allowed = definition.options()
+    given = value if isinstance(value, (list, tuple)) else [value]
+    if all(item in allowed or (isinstance(item, int) and 0 <= item < len(allowed)) for item in given):
+        return ""
+    return (f"{definition.name()} ({definition.description()}) must be one of {', '.join(allowed)}; got "
+            f"{value!r}. Set {definition.name()} to one of these words.")
 
 
 class FieldcastAlgorithm(QgsProcessingAlgorithm):
@@ -220,8 +235,13 @@ class FieldcastAlgorithm(QgsProcessingAlgorithm):
 
     def neighbourhood(self, parameters, context) -> Neighbourhood:
         """The NEIGHBOURS and SEARCH_RADIUS chosen (SEARCH_RADIUS None when empty)."""
-        return Neighbourhood(self.parameterAsInt(parameters, self.NEIGHBOURS, context),
+        return Neighbourhood(whole_number(self.given_value(parameters, self.NEIGHBOURS), "NEIGHBOURS", 0),
                              self.optional_number(parameters, self.SEARCH_RADIUS, context))
+
+    def given_value(self, parameters, name: str):
+        """The value of parameter ``name`` as given, its default when left out or empty (for :func:`whole_number`)."""
+        value = parameters.get(name)
+        return self.parameterDefinition(name).defaultValue() if value in (None, "") else value
 
     def optional_number(self, parameters, name: str, context) -> float | None:
         """The value of an optional number parameter, None when it is left empty."""
@@ -236,6 +256,23 @@ class FieldcastAlgorithm(QgsProcessingAlgorithm):
         definition = QgsProcessingParameterEnum(name, description, options=list(options), defaultValue=default,
                                                 usesStaticStrings=True)
         self.addParameter(advanced(definition) if expert else definition)
+
+    def checkParameterValues(self, parameters, context):
+        """Refuse an unchosen FIELD, an unknown word for a choice (e.g. ``KERNEL=foo``) with the allowed words, and
+        a NEIGHBOURS that is not a whole number from 0, with advice, before Processing's generic message."""
+        if self.parameterDefinition(self.FIELD) is not None and \
+                not self.parameterAsString(parameters, self.FIELD, context):
+            return False, NO_FIELD
+        for definition in self.parameterDefinitions():
+            problem = choice_problem(definition, parameters.get(definition.name()))
+            if problem:
+                return False, problem
+        if self.parameterDefinition(self.NEIGHBOURS) is not None:
+            try:
+                self.neighbourhood(parameters, context)
+            except FieldcastError as exc:
+                return False, str(exc)
+        return super().checkParameterValues(parameters, context)
 
     def choice(self, parameters, name: str, context) -> str:
         """The chosen word of an enum parameter made by :meth:`add_choice`."""
@@ -334,13 +371,6 @@ class FieldcastAlgorithm(QgsProcessingAlgorithm):
             if done:
                 feedback.pushInfo(f"Cleared in {folder} the files an interrupted earlier run left behind: "
                                   + "; ".join(done) + ".")
-
-    def checkParameterValues(self, parameters, context):
-        """Refuse an unchosen FIELD with advice (before Processing's generic message)."""
-        if self.parameterDefinition(self.FIELD) is not None and \
-                not self.parameterAsString(parameters, self.FIELD, context):
-            return False, NO_FIELD
-        return super().checkParameterValues(parameters, context)
 
     def processAlgorithm(self, parameters, context, feedback):
         started = time.time()

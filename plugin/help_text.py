@@ -43,7 +43,8 @@ FIT_HELP = [
 
 GRID_HELP = [
     ("Extent", "Area of the raster; empty = extent of the samples. Cell edges fall on whole multiples of the pixel "
-     "size, so rasters from several runs line up."),
+     "size, so rasters from several runs line up. An extent more than 10 times as wide (diagonal) as the samples "
+     "is refused: so far from every sample kriging only repeats the mean."),
     ("Pixel size", "Cell width in working CRS units (e.g. metres). Empty: half the median distance between "
      "neighbouring samples, rounded, and coarser if the grid would exceed a million cells."),
     ("Mask", "Optional polygon layer: cells whose centre is outside every polygon are nodata (and, in "

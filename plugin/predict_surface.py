@@ -114,7 +114,7 @@ class PredictSurfaceAlgorithm(SurfaceAlgorithm):
             self.OUTPUT_DISTANCE, self.tr("Distance to the nearest sample"), optional=True, createByDefault=False))
 
     def compute(self, parameters, context, feedback) -> dict:
-        exceedance_path, threshold = self.exceedance_destination(parameters, context)
+        exceedance_path, threshold = self.exceedance_destination(parameters, context, threshold_needs_output=True)
         interval = self.parameterAsDouble(parameters, self.INTERVAL_PROBABILITY, context)
         check_interval(interval)  # before the samples are read or a model fitted
         paths = {kind: self.raster_destination(parameters, name, context) for kind, name in self.OUTPUT_KINDS.items()}

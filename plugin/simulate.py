@@ -18,9 +18,11 @@ from qgis.core import (
 )
 
 from ..algorithms import (
+    MAX_BANDS,
     Cancelled,
     FieldcastError,
     GeoTiffWriter,
+    NodataCounts,
     RealisationSummary,
     SimulationResult,
     search_words,
@@ -33,6 +35,7 @@ from .help_text import GRID_HELP, MODEL_FILE_HELP, TARGET_CRS_HELP, THRESHOLD_HE
 from .layer_style import style_on_load
 from .raster_algorithm import RasterAlgorithm
 from .sinks import checked_sink
+from .whole_numbers import whole_number
 
 SUMMARY_RASTERS = (
     ("OUTPUT_MEAN", "Mean of the realisations", "mean"),
@@ -72,10 +75,11 @@ class SimulateAlgorithm(RasterAlgorithm):
           "location averaged)."),
          MODEL_FILE_HELP,
          *GRID_HELP,
-         ("Number of realisations", "How many fields to draw (default 100). Shares and percentiles from 100 "
-          "realisations are good to a few per cent; more give steadier summaries, at the cost of time and memory "
-          "(8 bytes per cell and realisation)."),
-         ("Random seed", "Seed of the random numbers: the same seed, data and settings give the same fields."),
+         ("Number of realisations", "How many fields to draw (default 100, at most 65,535: the bands of one "
+          "GeoTIFF). Shares and percentiles from 100 realisations are good to a few per cent; more give steadier "
+          "summaries, at the cost of time and memory (8 bytes per cell and realisation)."),
+         ("Random seed", "Seed of the random numbers, any whole number from 0: the same seed, data and settings "
+          "give the same fields."),
          ("Neighbours per cell", "0 (the default): every sample conditions every cell (global kriging weights). "
           "A number k: each cell is conditioned on its k nearest samples (local kriging weights; 16 to 64 is "
           "common practice), faster for many samples; the realisations then have the local kriging mean and "
@@ -107,7 +111,7 @@ class SimulateAlgorithm(RasterAlgorithm):
         self.add_grid_parameters()
         self.addParameter(QgsProcessingParameterNumber(
             self.REALIZATIONS, self.tr("Number of realisations"), type=QgsProcessingParameterNumber.Integer,
-            defaultValue=100, minValue=1))
+            defaultValue=100, minValue=1, maxValue=MAX_BANDS))
         self.addParameter(advanced(QgsProcessingParameterNumber(
             self.SEED, self.tr("Random seed"), type=QgsProcessingParameterNumber.Integer, defaultValue=1,
             minValue=0)))
@@ -130,17 +134,23 @@ class SimulateAlgorithm(RasterAlgorithm):
             self.addOutput(QgsProcessingOutputNumber(name, self.tr(description)))
 
     def checkParameterValues(self, parameters, context):
-        """Refuse a number of realisations below 1 with advice (before Processing's generic range message)."""
-        if parameters.get(self.REALIZATIONS) not in (None, ""):
-            count = self.parameterAsInt(parameters, self.REALIZATIONS, context)
-            if count < 1:
-                return False, (f"The number of realisations must be at least 1; got {count}. Set REALIZATIONS "
-                               "to 1 or more (100 is a good start).")
+        """Refuse REALIZATIONS and SEED outside their ranges with our advice (before Processing's generic message)."""
+        try:
+            self.realisations_and_seed(parameters)
+        except FieldcastError as exc:
+            return False, str(exc)
         return super().checkParameterValues(parameters, context)
 
+    def realisations_and_seed(self, parameters) -> tuple[int, int]:
+        """REALIZATIONS (1 to :data:`MAX_BANDS`, the bands of one GeoTIFF) and SEED (any whole number from 0),
+        read exactly (Processing's integer reading wraps numbers from 2**31 on)."""
+        count = whole_number(self.given_value(parameters, self.REALIZATIONS), "REALIZATIONS (number of realisations)",
+                             1, MAX_BANDS)
+        seed = whole_number(self.given_value(parameters, self.SEED), "SEED (random seed)", 0)
+        return count, seed
+
     def compute(self, parameters, context, feedback) -> dict:
-        count = self.parameterAsInt(parameters, self.REALIZATIONS, context)
-        seed = self.parameterAsInt(parameters, self.SEED, context)
+        count, seed = self.realisations_and_seed(parameters)
         exceedance_path, threshold = self.exceedance_destination(parameters, context)
         paths = {name: self.raster_destination(parameters, name, context)
                  for name in (self.OUTPUT, *(name for name, _, _ in SUMMARY_RASTERS))}
@@ -176,6 +186,7 @@ class SimulateAlgorithm(RasterAlgorithm):
             raise Cancelled("Simulation was cancelled.")
         metadata = {"fieldcast_model": document.to_dict(), "fieldcast_seed": seed,
                     "fieldcast_realisations": count, "fieldcast_simulation": result.method}
+        self.check_nodata(result, summary, inside, paths, samples.field, feedback)
         self.write_rasters(result, summary, inside, paths, threshold, samples.field, document.crs_wkt, metadata)
         outputs = {name: path for name, path in paths.items() if path}
         looks = {self.OUTPUT: "realisations", self.OUTPUT_EXCEEDANCE: "share_above",
@@ -224,6 +235,19 @@ class SimulateAlgorithm(RasterAlgorithm):
                                  "than the mean model needs lie within SEARCH_RADIUS of them (or their neighbours "
                                  "make a singular system); they are left out of the summaries. Enlarge "
                                  "SEARCH_RADIUS, or leave it empty, to fill them.")
+
+    @staticmethod
+    def check_nodata(result: SimulationResult, summary: RealisationSummary | None, inside: np.ndarray | None,
+                     paths: dict, field: str, feedback) -> None:
+        """Refuse rasters that would be nodata at every simulated cell (values beyond Float32), warn when mostly."""
+        rasters = {f"{field} realisations": result.realisations}
+        rasters.update({f"{field} {attribute}": getattr(summary, attribute)
+                        for name, _, attribute in SUMMARY_RASTERS if paths[name] and summary is not None})
+        counts = NodataCounts.of_rasters(rasters, inside, np.isnan(result.realisations[0]))
+        if counts.error() is not None:
+            raise counts.error()
+        for warning in counts.warnings():
+            feedback.pushWarning(warning)
 
     def write_rasters(self, result: SimulationResult, summary: RealisationSummary | None,
                       inside: np.ndarray | None, paths: dict, threshold: float | None, field: str, crs_wkt: str,

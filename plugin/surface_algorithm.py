@@ -167,9 +167,11 @@ class SurfaceAlgorithm(RasterAlgorithm):
         check = ExtrapolationCheck.for_samples(xy, values, document.covariance, document.mean, scale.transform,
                                                [field for field, _ in outputs],
                                                [raster.variance_factor for raster in rasters])
-        unresolved = write_surfaces(cell_predictor(predictor, scale.support, grid.pixel_size), grid, inside, scale,
-                                    documents[0].crs_wkt, rasters, progress, feedback.isCanceled, check,
-                                    outputs[0][1].get("distance", ""))
+        counts = write_surfaces(cell_predictor(predictor, scale.support, grid.pixel_size), grid, inside, scale,
+                                documents[0].crs_wkt, rasters, progress, feedback.isCanceled, check,
+                                outputs[0][1].get("distance", ""))
         after = (predictor.singular_targets, predictor.ill_conditioned_targets) if local else (0, 0)
-        log_unresolved(unresolved, after[0] - before[0], after[1] - before[1], feedback)
+        log_unresolved(counts.unresolved, after[0] - before[0], after[1] - before[1], feedback)
+        for warning in counts.warnings():
+            feedback.pushWarning(warning)
         push_log(feedback, check.lines(document.units))

@@ -32,6 +32,8 @@ from .grid import GridSpec
 from .staging import place, temporary_path
 
 NODATA = -9999.0
+MAX_BANDS = 65_535
+"""Most bands one GeoTIFF file holds (the TIFF SamplesPerPixel tag is a 16-bit number)."""
 CREATION_OPTIONS = ["TILED=YES", "BLOCKXSIZE=256", "BLOCKYSIZE=256", "COMPRESS=DEFLATE", "PREDICTOR=3",
                     "INTERLEAVE=BAND", "BIGTIFF=IF_SAFER"]
 VERSION_KEY = "fieldcast_version"
@@ -112,7 +114,7 @@ class GeoTiffWriter:
     grid : GridSpec
         Raster geometry.
     n_bands : int
-        Number of bands (>= 1).
+        Number of bands, 1 to :data:`MAX_BANDS`.
     crs_wkt : str
         CRS of the grid, any form :func:`.crs.to_wkt2` reads; stored as WKT2.
     descriptions : sequence of str, optional
@@ -124,8 +126,9 @@ class GeoTiffWriter:
 
     def __init__(self, path: str | os.PathLike, grid: GridSpec, n_bands: int, crs_wkt: str,
                  descriptions: Sequence[str] | None = None, metadata: Mapping[str, object] | None = None):
-        if n_bands < 1:
-            raise ValueError(f"n_bands must be at least 1, got {n_bands}")
+        if not 1 <= n_bands <= MAX_BANDS:
+            raise FieldcastError(f"A GeoTIFF holds 1 to {MAX_BANDS:,} bands; {n_bands:,} were asked for. Write "
+                                 "fewer bands (fewer realisations) per file.")
         if descriptions is not None and len(descriptions) != n_bands:
             raise ValueError(f"{len(descriptions)} descriptions given for {n_bands} bands")
         self.path = os.path.abspath(os.fspath(path))
@@ -175,7 +178,8 @@ class GeoTiffWriter:
             raise ValueError("the writer is closed (committed or aborted)")
         if not 0 <= band_index < self.n_bands:
             raise ValueError(f"band_index {band_index} is outside 0..{self.n_bands - 1}")
-        values = np.array(array, dtype=np.float32)
+        with np.errstate(over="ignore"):  # beyond the Float32 range: infinity, stored as nodata below
+            values = np.array(array, dtype=np.float32)
         if values.ndim == 1 and values.size % self.grid.n_cols == 0:
             values = values.reshape(-1, self.grid.n_cols)
         if values.ndim != 2 or values.shape[1] != self.grid.n_cols:

@@ -21,6 +21,10 @@ from ..errors import FieldcastError
 
 READABLE_MANTISSAS = (1.0, 2.0, 2.5, 5.0, 10.0)
 SNAP_TOLERANCE = 1e-9  # relative; absorbs float noise so 3.0000000001 cells snap to 3
+EXTENT_REACH = 10.0
+"""Largest ratio of an output extent's diagonal to the diagonal of the samples' bounding box. Farther than a few
+ranges from every sample kriging gives the mean and the sill, so a wider extent is almost all such cells (and
+hours of work)."""
 
 
 def readable_floor(value: float) -> float:
@@ -219,3 +223,37 @@ def default_pixel_size(xy: np.ndarray, extent: tuple[float, float, float, float]
     while GridSpec.from_extent(x_min, y_min, x_max, y_max, pixel).n_cells > max_cells:
         pixel = readable_ceil(pixel * (1 + 1e-6))
     return pixel
+
+
+def check_extent_reach(extent: tuple[float, float, float, float], xy: np.ndarray, units: str = "CRS unit",
+                       reach: float = EXTENT_REACH) -> None:
+    """Refuse an extent whose diagonal is more than ``reach`` times that of the samples' bounding box.
+
+    Parameters
+    ----------
+    extent : tuple of float
+        ``x_min, y_min, x_max, y_max`` of the output grid (CRS units).
+    xy : ndarray of shape (n, 2)
+        Sample locations (CRS units); at least two distinct ones.
+    units : str
+        Name of the CRS unit for the message (e.g. ``"metre"``).
+    reach : float
+        Largest ratio accepted (:data:`EXTENT_REACH`).
+
+    Raises
+    ------
+    FieldcastError
+        Giving both diagonals and the largest extent diagonal accepted.
+    """
+    points = np.asarray(xy, dtype=float)
+    span = float(np.hypot(*(points.max(axis=0) - points.min(axis=0))))
+    x_min, y_min, x_max, y_max = extent
+    diagonal = math.hypot(x_max - x_min, y_max - y_min)
+    if span > 0 and diagonal > reach * span:
+        raise FieldcastError(
+            f"The extent is {diagonal:.6g} {units}s across (diagonal), {diagonal / span:.3g} times the "
+            f"{span:.6g} {units}s the samples span: most cells would lie far beyond the samples, where kriging "
+            f"only repeats the mean, and the run would take very long. Choose an extent at most {reach:g} times "
+            f"the samples' (a diagonal up to {reach * span:.6g} {units}s), or leave EXTENT empty to use the "
+            "samples' extent."
+        )

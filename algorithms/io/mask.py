@@ -132,3 +132,44 @@ def hull_mask(grid: GridSpec, xy: np.ndarray, margin: float | None = None) -> tu
         raise FieldcastError("The samples lie at one place or on one line, so their convex hull has no area. Give "
                              "HULL_MARGIN a positive distance, or set MAP_AREA to extent.")
     return cell_mask(grid, [area.ExportToWkb()]), margin
+
+
+def checked_cell_mask(grid: GridSpec, geometries: Sequence[bytes | str], layer_name: str = "layer",
+                      units: str = "CRS unit") -> np.ndarray:
+    """:func:`cell_mask`, refusing a mask that leaves no cell and saying why.
+
+    Parameters
+    ----------
+    grid : GridSpec
+        The output grid.
+    geometries : sequence of bytes or str
+        The mask polygons in the grid's CRS (empty geometries already left out).
+    layer_name : str
+        How messages name the mask layer.
+    units : str
+        Name of the CRS unit, for the message.
+
+    Raises
+    ------
+    FieldcastError
+        When there are no polygons, when they lie outside the grid (their bounding box is given), or when
+        they are too small to hold a cell centre.
+    """
+    if not geometries:
+        raise FieldcastError(f"The mask {layer_name} holds no polygons (it is empty or every geometry is empty). "
+                             "Choose a polygon layer with the area to keep as MASK, or leave MASK empty.")
+    inside = cell_mask(grid, geometries)
+    if inside.any():
+        return inside
+    boxes = np.array([_geometry(shape, i).GetEnvelope() for i, shape in enumerate(geometries)])  # x0, x1, y0, y1
+    x_min, y_min, x_max, y_max = grid.extent
+    box = (boxes[:, 0].min(), boxes[:, 2].min(), boxes[:, 1].max(), boxes[:, 3].max())
+    shown = ", ".join(f"{v:.10g}" for v in box)
+    if box[0] > x_max or box[2] < x_min or box[1] > y_max or box[3] < y_min:
+        raise FieldcastError(f"The mask {layer_name} lies outside the grid: its polygons span {shown} (x_min, "
+                             f"y_min, x_max, y_max in the working CRS), the grid {x_min:.10g}, {y_min:.10g}, "
+                             f"{x_max:.10g}, {y_max:.10g}. Check that the mask layer has its real CRS, or choose a "
+                             "mask (or EXTENT) that covers the area to map.")
+    raise FieldcastError(f"The mask {layer_name} overlaps the grid but holds no cell centre: its polygons are "
+                         f"narrower than the {grid.pixel_size:g} {units} cells. Use a smaller PIXEL_SIZE, or "
+                         "a larger mask.")

@@ -15,11 +15,9 @@ from typing import Any
 
 from ..errors import FieldcastError
 from ..model.correlation import FAMILIES, SMOOTHNESS_BOUNDS
+from ..model.covariance import MAX_SILL
 from ..model.mean import MEAN_KINDS
 from ..model.transform import TRANSFORM_KINDS
-
-MAX_SILL = 1e100
-"""Largest total sill (nugget plus partial sills) accepted; beyond it kriging variances overflow."""
 
 ADVICE = "Refit the model with 'Fit covariance model', or correct the file."
 

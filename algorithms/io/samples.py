@@ -19,6 +19,11 @@ from scipy.sparse.csgraph import connected_components
 from scipy.spatial import cKDTree
 
 from ..errors import FieldcastError
+from ..model.covariance import MAX_SILL
+
+LARGEST_VALUE = math.sqrt(MAX_SILL)
+"""Largest magnitude of a sample value (modelling scale, 1e50): its square, the scale of the variances the model
+is built of, stays within :data:`..model.covariance.MAX_SILL`; larger values overflow double precision."""
 
 
 @dataclass(frozen=True)
@@ -105,11 +110,10 @@ def merge_coincident(
     if n == 0:
         return Samples(xy.copy(), values.copy(), ids.copy(), 0, 0)
 
-    pairs = cKDTree(xy).query_pairs(r=float(tolerance), output_type="ndarray")
-    links = coo_matrix((np.ones(len(pairs)), (pairs[:, 0], pairs[:, 1])), shape=(n, n))
-    _, label = connected_components(links, directed=False)
+    label = _group_labels(xy, float(tolerance))
     # Renumber groups in the order of their first sample.
     _, first_index, group = np.unique(label, return_index=True, return_inverse=True)
+    group = group.ravel()  # numpy 2.0 and 2.1 give the inverse the input's shape
     order = np.argsort(first_index)
     rank = np.empty_like(order)
     rank[order] = np.arange(len(order))
@@ -128,12 +132,30 @@ def merge_coincident(
     )
 
 
+def _group_labels(xy: np.ndarray, tolerance: float) -> np.ndarray:
+    """A group label per sample: samples within ``tolerance`` of one another (single linkage) share one.
+
+    Samples at exactly the same location are grouped first by sorting their coordinates (``np.unique``,
+    O(n log n) whatever the number of repeats); only the distinct locations then go through the pair search
+    of a k-d tree, which finds the pairs within ``tolerance``. With ``tolerance`` 0 that search is skipped.
+    """
+    locations, location_of = np.unique(xy, axis=0, return_inverse=True)
+    location_of = location_of.ravel()
+    if tolerance == 0 or len(locations) < 2:
+        return location_of
+    m = len(locations)
+    pairs = cKDTree(locations).query_pairs(r=tolerance, output_type="ndarray")
+    links = coo_matrix((np.ones(len(pairs)), (pairs[:, 0], pairs[:, 1])), shape=(m, m))
+    _, label = connected_components(links, directed=False)
+    return label[location_of]
+
+
 def check_samples(xy: np.ndarray, values: np.ndarray, minimum: int = 3) -> None:
     """Raise FieldcastError when the samples cannot be modelled.
 
     The checks, in order: the shapes; at least ``minimum`` samples with
     finite coordinates and value; no missing or infinite coordinates; no
-    missing or infinite values; values not all equal.
+    missing or infinite values; no value beyond :data:`LARGEST_VALUE` in magnitude; values not all equal.
 
     Parameters
     ----------
@@ -167,6 +189,15 @@ def check_samples(xy: np.ndarray, values: np.ndarray, minimum: int = 3) -> None:
         raise FieldcastError(
             f"{len(bad)} sample value(s) are missing or infinite (first at row {bad[0]}); filter those "
             "features out, or choose a field without empty values."
+        )
+    huge = np.flatnonzero(np.abs(values) > LARGEST_VALUE)
+    if len(huge):
+        raise FieldcastError(
+            f"{len(huge)} sample value(s) are beyond \u00b1{LARGEST_VALUE:g} (first at row {huge[0]}: "
+            f"{values[huge[0]]:g}); their squares pass the largest variance a model takes ({MAX_SILL:g}) and "
+            "overflow the computations. Rescale the field to "
+            "larger units (e.g. divide it by 1e6 with the Field calculator), or use TRANSFORM=log for "
+            "positive values spanning many orders of magnitude."
         )
     spread = float(np.max(values) - np.min(values))
     if spread <= 1e-12 * float(np.max(np.abs(values))):

@@ -27,6 +27,18 @@ from scipy.spatial import distance
 from ..errors import FieldcastError
 from .correlation import check_family, correlation, correlation_derivative, effective_range_factor
 
+MAX_SILL = 1e100
+"""Largest variance accepted for a nugget, a partial sill or their total (attribute units squared): beyond it
+products of covariances in the kriging systems overflow double precision."""
+
+
+def check_variance(name: str, value: float) -> None:
+    """Refuse a nugget or partial sill that is not a finite number in [0, :data:`MAX_SILL`], naming it."""
+    if not (0 <= value <= MAX_SILL):
+        raise FieldcastError(f"The {name} must be a finite number from 0 to {MAX_SILL:g} (attribute units "
+                             f"squared); got {value!r}. Give a non-negative {name}; for data whose variance is "
+                             "that large, rescale the attribute to larger units first.")
+
 
 def pairwise_offsets(a_xy: np.ndarray, b_xy: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:
     """Easting and northing offsets ``a - b`` between every pair of points.
@@ -76,15 +88,17 @@ class Structure:
 
     def __post_init__(self) -> None:
         check_family(self.family, self.smoothness)
-        if not (self.partial_sill >= 0 and math.isfinite(self.partial_sill)):
-            raise FieldcastError(f"The partial sill of a covariance structure must be a finite number of 0 or more; "
-                                 f"got {self.partial_sill!r}. Give a non-negative partial sill.")
+        check_variance("partial sill of a covariance structure", self.partial_sill)
         if not (self.range > 0 and math.isfinite(self.range)):
             raise FieldcastError(f"The range of a covariance structure must be a finite positive distance (CRS "
                                  f"units); got {self.range!r}. Give a range above 0.")
         if not (0 < self.ratio <= 1):
             raise FieldcastError(f"The minor/major range ratio of a covariance structure must be above 0 and at most "
                                  f"1; got {self.ratio!r}. Give a ratio in (0, 1] (1 for an isotropic structure).")
+        if not math.isfinite(self.azimuth):
+            raise FieldcastError(f"The azimuth of a covariance structure must be a finite angle (degrees clockwise "
+                                 f"from grid north); got {self.azimuth!r}. Give an azimuth from 0 to 180 (0 for an "
+                                 "isotropic structure).")
         object.__setattr__(self, "azimuth", float(self.azimuth) % 180.0)
 
     @property
@@ -217,10 +231,9 @@ class CovarianceModel:
         if not 1 <= len(structures) <= 2:
             raise FieldcastError(f"A covariance model has one or two structures besides the nugget; got "
                                  f"{len(structures)}. Give one structure, or two for a nested model.")
-        if not (self.nugget >= 0 and math.isfinite(self.nugget)):
-            raise FieldcastError(f"The nugget must be a finite number of 0 or more; got {self.nugget!r}. Give a "
-                                 "non-negative nugget.")
+        check_variance("nugget", self.nugget)
         object.__setattr__(self, "structures", structures)
+        check_variance("sill (nugget plus partial sills)", self.sill)
 
     @property
     def sill(self) -> float:

@@ -20,6 +20,7 @@ drift) are appended after the coordinate terms, in the order of
 """
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
 
 import numpy as np
@@ -57,8 +58,16 @@ class MeanModel:
     def __post_init__(self) -> None:
         if self.kind not in MEAN_KINDS:
             raise FieldcastError(f"Unknown mean model {self.kind!r}; choose one of {', '.join(MEAN_KINDS)}.")
-        if not self.scale > 0:
-            raise FieldcastError("The trend scale must be a positive distance.")
+        if not (self.scale > 0 and math.isfinite(self.scale)):
+            raise FieldcastError(f"The trend scale must be a finite positive distance (CRS units); got "
+                                 f"{self.scale!r}.")
+        if not math.isfinite(self.known_value):
+            raise FieldcastError(f"The known mean must be a finite number (attribute units, modelling scale); got "
+                                 f"{self.known_value!r}. Give the mean as a number, or use a constant mean "
+                                 "estimated from the samples.")
+        if not all(math.isfinite(float(v)) for v in self.origin):
+            raise FieldcastError(f"The trend origin must be a finite easting and northing (CRS units); got "
+                                 f"{tuple(self.origin)!r}.")
         if self.kind == "known" and self.covariate_names:
             raise FieldcastError("A known mean cannot have covariates; use a constant mean with covariates.")
         object.__setattr__(self, "origin", (float(self.origin[0]), float(self.origin[1])))

@@ -19,6 +19,7 @@ from scipy import stats
 from ..errors import Cancelled, FieldcastError
 from ..io.geotiff import GeoTiffWriter
 from ..io.grid import GridSpec
+from ..io.nodata_counts import NodataCounts, unwritable
 from ..io.staging import staged_together
 from ..model.transform import Transform
 from .block import DEFAULT_POINTS_PER_SIDE, block_predict
@@ -199,15 +200,15 @@ class FieldRasters:
 def write_surfaces(predict: CellPredictor, grid: GridSpec, inside: np.ndarray | None, scale: SurfaceScale,
                    crs_wkt: str, fields: Sequence[FieldRasters], progress: Callable[[float], None] | None = None,
                    should_stop: Callable[[], bool] | None = None, check: ExtrapolationCheck | None = None,
-                   distance_path: str = "") -> int:
-    """Predict every cell (those with ``inside`` True) and write each field's GeoTIFFs; returns the unresolved cells.
+                   distance_path: str = "") -> NodataCounts:
+    """Predict every cell (those with ``inside`` True) and write each field's GeoTIFFs; returns the nodata counts.
 
     ``predict`` gives one mean column per field of ``fields`` (shape (m,) for one field, (m, k) for k)
     and one variance, which each field scales by its ``variance_factor``. Cells outside the mask,
     cells the predictor leaves NaN (a local neighbourhood with too few samples in range) and values
-    that do not fit Float32 are stored as nodata; the count returned is of the NaN cells inside the mask.
+    that do not fit Float32 are stored as nodata; :class:`..io.nodata_counts.NodataCounts` counts the last two.
     With a ``check``, a field's cells whose mean lies outside what the model allows are nodata too (and
-    counted there, not in the count returned), and the extrapolation counts are made; with a
+    counted there, not in the counts returned), and the extrapolation counts are made; with a
     ``distance_path`` as well, the distance to the nearest sample is written there (GeoTIFF, nodata
     outside the mask).
 
@@ -218,11 +219,15 @@ def write_surfaces(predict: CellPredictor, grid: GridSpec, inside: np.ndarray | 
     ------
     Cancelled
         When ``should_stop()`` turns True; no output file is left.
+    FieldcastError
+        When a raster would be nodata at every resolved cell (:meth:`..io.nodata_counts.NodataCounts.error`);
+        no file is left.
     """
     if distance_path and check is None:
         raise FieldcastError("The distance raster needs the samples: pass an ExtrapolationCheck with distance_path.")
     step = block_rows(grid, len(fields))
-    unresolved = 0
+    unresolved = kriged = 0
+    lost = {f"{output.field} {kind}": 0 for output in fields for kind in SURFACE_KINDS if output.paths.get(kind)}
     with staged_together(), contextlib.ExitStack() as stack:
         distance_writer = (stack.enter_context(GeoTiffWriter(distance_path, grid, 1, crs_wkt, [DISTANCE_DESCRIPTION],
                                                              fields[0].metadata)) if distance_path else None)
@@ -248,18 +253,22 @@ def write_surfaces(predict: CellPredictor, grid: GridSpec, inside: np.ndarray | 
 
                 mean, variance = predict(centres[keep], block_progress, should_stop)
                 mean = mean.reshape(len(variance), -1)
-                unresolved += int(np.count_nonzero(np.isnan(variance)))
+                resolved = ~np.isnan(variance)
+                kriged += len(variance)
+                unresolved += int(np.count_nonzero(~resolved))
                 variances = variance[:, None] * np.array([output.variance_factor for output in fields])
                 if check is not None:
                     mean, variances = check.screen(centres[keep], mean, variances)
                 if distance_writer is not None:
                     distance[keep] = check.distances(centres[keep])
-                for column, field_bands in enumerate(bands):
+                for column, (output, field_bands) in enumerate(zip(fields, bands)):
                     layers = scale.layers(mean[:, column], variances[:, column], list(field_bands) + ["prediction"])
                     if check is not None:
                         check.count_data_range(column, layers["prediction"])
+                    kept = ~np.isnan(variances[:, column])  # resolved, and within what the model allows
                     for kind in field_bands:
                         field_bands[kind][keep] = layers[kind]
+                        lost[f"{output.field} {kind}"] += int(np.count_nonzero(kept & unwritable(layers[kind])))
             for field_writers, field_bands in zip(writers, bands):
                 for kind, writer in field_writers.items():
                     writer.write_block(0, start, field_bands[kind])
@@ -267,7 +276,10 @@ def write_surfaces(predict: CellPredictor, grid: GridSpec, inside: np.ndarray | 
                 distance_writer.write_block(0, start, distance)
             if progress is not None:
                 progress(stop / grid.n_rows)
+        counts = NodataCounts(kriged, unresolved, lost)
+        if counts.error() is not None:
+            raise counts.error()
         for writer in [*(writer for field_writers in writers for writer in field_writers.values()),
                        *([distance_writer] if distance_writer is not None else [])]:
             writer.commit()
-    return unresolved
+    return counts

@@ -7,7 +7,7 @@ from osgeo import gdal
 from sklearn.neighbors import NearestNeighbors
 
 from fieldcast.algorithms.errors import FieldcastError
-from fieldcast.algorithms.io.grid import GridSpec, default_pixel_size, readable_ceil, readable_floor
+from fieldcast.algorithms.io.grid import GridSpec, check_extent_reach, default_pixel_size, readable_ceil, readable_floor
 
 
 def meuse_grid_spec(meuse_grid) -> GridSpec:
@@ -126,3 +126,13 @@ def test_overlaps(meuse, meuse_grid):
     assert not grid.overlaps(np.empty((0, 2)))
     far_apart = np.array([[grid.extent[0] - 100.0, 0.0], [grid.extent[2] + 100.0, 1e6]])
     assert grid.overlaps(far_apart)  # bounding box spans the grid
+
+
+def test_extent_reach_refuses_more_than_ten_sample_diagonals():
+    # A 3-4-5 right triangle of samples: the bounding-box diagonal is 5 units (Pythagoras).
+    xy = np.array([[0.0, 0.0], [3.0, 0.0], [0.0, 4.0]])
+    check_extent_reach((-10.0, -10.0, 20.0, 30.0), xy, "metre")  # diagonal 50 = 10 x 5
+    with pytest.raises(FieldcastError) as error:
+        check_extent_reach((-10.0, -10.0, 20.1, 30.0), xy, "metre")
+    for fragment in ("50.0601 metres across", "10 times the samples'", "up to 50 metres", "leave EXTENT empty"):
+        assert fragment in str(error.value)

@@ -12,7 +12,7 @@ from scipy.spatial import ConvexHull, Delaunay, cKDTree
 
 from fieldcast.algorithms.errors import FieldcastError
 from fieldcast.algorithms.io.grid import GridSpec
-from fieldcast.algorithms.io.mask import cell_mask, hull_mask
+from fieldcast.algorithms.io.mask import cell_mask, checked_cell_mask, hull_mask
 
 GRID = GridSpec(x_min=1000.0, y_max=2000.0, pixel_size=10.0, n_cols=30, n_rows=20)
 
@@ -101,3 +101,18 @@ def test_hull_mask_of_samples_on_a_line_needs_a_margin():
     x, y = centres()
     np.testing.assert_array_equal(mask, np.hypot(np.maximum(np.maximum(1000.0 - x, x - 1200.0), 0.0), y - 1900.0)
                                   < 12.0)
+
+
+@pytest.mark.parametrize(("shapes", "fragments"), [
+    ([], ("The mask layer holds no polygons", "leave MASK empty")),
+    (["POLYGON((0 0, 10 0, 10 10, 0 10, 0 0))"],
+     ("lies outside the grid: its polygons span 0, 0, 10, 10", "has its real CRS")),
+    (["POLYGON((1052 1901, 1053 1901, 1053 1902, 1052 1901))"],
+     ("overlaps the grid but holds no cell centre", "smaller PIXEL_SIZE")),
+])
+def test_masks_without_cells_are_refused_with_the_reason(shapes, fragments):
+    with pytest.raises(FieldcastError) as error:
+        checked_cell_mask(GRID, shapes)
+    for fragment in fragments:
+        assert fragment in str(error.value)
+    assert not cell_mask(GRID, shapes).any()

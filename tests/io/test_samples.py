@@ -64,6 +64,40 @@ def test_merge_with_tolerance_joins_chains_of_near_points():
     assert (near.merged_groups, near.merged_points) == (1, 3)
 
 
+
+@pytest.mark.parametrize("tolerance", [0.0, 0.3, 1.5])
+def test_merge_groups_as_single_linkage_clustering_cut_at_the_tolerance(tolerance):
+    # Reference: scipy.cluster.hierarchy single linkage cut with criterion="distance" joins samples whose
+    # chain of links is at most t long, the groups merge_coincident defines. Points on a coarse lattice
+    # with jitter give exact repeats and near neighbours.
+    from scipy.cluster.hierarchy import fcluster, linkage
+
+    rng = np.random.default_rng(11)
+    xy = rng.integers(0, 8, size=(300, 2)) * 1.0
+    xy[::3] += rng.uniform(0, 0.4, size=(100, 2))
+    values = rng.normal(size=300)
+    merged = merge_coincident(read_only(xy), read_only(values), tolerance=tolerance)
+    reference = fcluster(linkage(xy, method="single"), t=tolerance, criterion="distance")
+    first = np.array([np.flatnonzero(reference == label)[0] for label in np.unique(reference)])
+    assert np.array_equal(np.sort(merged.ids), np.sort(first))
+    means = {i: values[reference == reference[i]].mean() for i in first}
+    assert np.allclose(merged.values, [means[i] for i in merged.ids])
+    assert np.array_equal(merged.xy, xy[merged.ids])
+    sizes = np.bincount(reference)
+    assert (merged.merged_groups, merged.merged_points) == (np.count_nonzero(sizes > 1), sizes[sizes > 1].sum())
+
+
+def test_fifty_thousand_samples_at_one_location_merge_into_one():
+    # Before: a pair search listed all 1.25e9 pairs of the repeats and ran out of memory.
+    xy = np.vstack([np.full((50_000, 2), [181_000.0, 333_000.0]), [[181_100.0, 333_100.0], [181_200.0, 333_000.0]]])
+    values = np.concatenate([np.arange(50_000.0), [7.0, 9.0]])
+    merged = merge_coincident(read_only(xy), read_only(values))
+    # Mean of 0 .. 49,999 is 49,999 / 2 (arithmetic series).
+    assert np.array_equal(merged.values, [49_999 / 2, 7.0, 9.0])
+    assert np.array_equal(merged.ids, [0, 50_000, 50_001])
+    assert (merged.merged_groups, merged.merged_points) == (1, 50_000)
+
+
 @pytest.mark.parametrize(
     ("xy", "values", "kwargs", "words"),
     [
@@ -106,3 +140,16 @@ def test_check_samples_constant_values():
     xy = np.array([[0.0, 0.0], [1.0, 0.0], [0.0, 1.0]])
     with pytest.raises(FieldcastError, match="All 3 values equal 2.5: there is nothing to interpolate"):
         check_samples(xy, np.full(3, 2.5))
+
+
+def test_check_samples_refuses_values_whose_squares_overflow():
+    values = np.linspace(1.0, 2.0, 20)
+    values[[4, 9]] = [1e300, -3e60]
+    xy = np.column_stack([np.arange(20.0), np.zeros(20)])
+    with pytest.raises(FieldcastError) as error:
+        check_samples(xy, values)
+    for fragment in ("2 sample value(s) are beyond \u00b11e+50", "row 4: 1e+300", "Rescale the field",
+                     "Field calculator", "TRANSFORM=log"):
+        assert fragment in str(error.value)
+    values[[4, 9]] = [1e50, -1e50]
+    check_samples(xy, values)

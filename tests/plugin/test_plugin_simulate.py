@@ -7,7 +7,9 @@ grid's extent, masked to the 80 m cells that hold it (see tests/test_plugin_deci
 from __future__ import annotations
 
 import csv
+import json
 from dataclasses import dataclass
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -194,8 +196,62 @@ def refused(processing, parameters: dict, folder, feedback=None) -> str:
 def test_fewer_than_one_realisation_is_refused(qgis_processing, meuse, meuse_grid, zinc_model, tmp_path):  # noqa: F811
     message = refused(qgis_processing, {**grid_parameters(meuse, meuse_grid, zinc_model), "REALIZATIONS": 0,
                                         "THRESHOLD": ZINC_THRESHOLD}, tmp_path)
-    assert "at least 1" in message and "REALIZATIONS" in message
+    assert "REALIZATIONS (number of realisations) must be a whole number from 1 to 65,535; got 0" in message
 
+
+@pytest.mark.parametrize("count", [65_536, 4_294_967_298, "4294967298", 2.5])
+def test_realisations_beyond_the_bands_of_a_geotiff_are_refused_as_given(qgis_processing, meuse, meuse_grid,  # noqa: F811
+                                                                        zinc_model, tmp_path, count):  # noqa: F811
+    # 4294967298 = 2**32 + 2 used to be read as 0 ("got 0"); a GeoTIFF holds at most 65,535 bands (16-bit
+    # SamplesPerPixel, TIFF 6.0 specification). Refused before any work, with the number as given.
+    feedback = QgsProcessingFeedback()
+    message = refused(qgis_processing, {**grid_parameters(meuse, meuse_grid, zinc_model), "REALIZATIONS": count,
+                                        "THRESHOLD": ZINC_THRESHOLD}, tmp_path, feedback)
+    assert f"from 1 to 65,535; got {count!r}" in message and "Set REALIZATIONS" in message
+    assert "Simulating" not in feedback.textLog()
+
+
+def test_seeds_from_two_to_the_31_are_taken_whole(qgis_processing, meuse, meuse_grid, zinc_model,  # noqa: F811
+                                                  tmp_path):
+    # Seeds 2**31 and 2**32 + 2 used to become 0 and give the fields of seed 0; text is read as qgis_process
+    # passes it. numpy's default_rng takes any non-negative integer, so each seed gives its own fields.
+    seeds = {"zero": 0, "big": 2**31, "bigger": 4_294_967_298, "text": "4294967298"}
+    fields = {}
+    for name, seed in seeds.items():
+        path = tmp_path / f"{name}.tif"
+        feedback = QgsProcessingFeedback()
+        qgis_processing.run("fieldcast:simulate", {**grid_parameters(meuse, meuse_grid, zinc_model),
+                                                   "REALIZATIONS": 2, "SEED": seed, "OUTPUT": str(path)},
+                            feedback=feedback)
+        assert f"(seed {int(seed)})" in feedback.textLog()
+        fields[name] = bands(path)[0]
+    assert not np.array_equal(fields["zero"], fields["big"], equal_nan=True)
+    assert not np.array_equal(fields["big"], fields["bigger"], equal_nan=True)
+    np.testing.assert_array_equal(fields["bigger"], fields["text"])
+
+
+@pytest.mark.parametrize("seed", [-1, 1.5, "abc"])
+def test_seeds_that_are_not_whole_numbers_from_0_are_refused(qgis_processing, meuse, meuse_grid,  # noqa: F811
+                                                            zinc_model, tmp_path, seed):  # noqa: F811
+    message = refused(qgis_processing, {**grid_parameters(meuse, meuse_grid, zinc_model), "REALIZATIONS": 3,
+                                        "SEED": seed, "THRESHOLD": ZINC_THRESHOLD}, tmp_path)
+    assert f"SEED (random seed) must be a whole number of 0 or more; got {seed!r}" in message
+
+
+
+def test_realisations_beyond_float32_everywhere_are_refused(qgis_processing, meuse, meuse_grid, zinc_model,  # noqa: F811
+                                                           tmp_path_factory):
+    # A partial sill of 1e90 (accepted: at most 1e100) without transform gives realisations beyond the Float32
+    # range (about 3.4e38, IEEE 754 single precision) in every cell: the rasters would hold no value.
+    document = json.loads(Path(zinc_model).read_text(encoding="utf-8"))
+    document["structures"][0]["partial_sill"] = 1e90
+    document["transform"] = {"kind": "none", "offset": 0.0}
+    huge = tmp_path_factory.mktemp("huge-model") / "huge.json"
+    huge.write_text(json.dumps(document), encoding="utf-8")
+    message = refused(qgis_processing, {**grid_parameters(meuse, meuse_grid, str(huge)), "REALIZATIONS": 3,
+                                        "THRESHOLD": ZINC_THRESHOLD}, tmp_path_factory.mktemp("huge-out"))
+    assert "The zinc realisations" in message and "would be nodata at every cell" in message
+    assert "Float32 GeoTIFF" in message
 
 def test_one_neighbour_is_refused(qgis_processing, meuse, meuse_grid, zinc_model, tmp_path):  # noqa: F811
     message = refused(qgis_processing, {**grid_parameters(meuse, meuse_grid, zinc_model), "REALIZATIONS": 5,

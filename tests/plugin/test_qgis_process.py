@@ -190,4 +190,24 @@ def test_run_without_value_field_names_the_parameter(profile, meuse_layer, tmp_p
     assert run.returncode != 0
     # qgis_process refuses a mandatory parameter left out before the algorithm runs, naming it.
     assert "mandatory parameters were not specified" in run.messages and "FIELD:\tValue field" in run.messages
+
+
+@pytest.mark.parametrize(("algorithm", "parameters", "fragments"), [
+    ("fieldcast:fitmodel", {"FIELD": "zinc", "KERNEL": "foo"},
+     ("KERNEL (Covariance family) must be one of auto, exponential", "got 'foo'")),
+    ("fieldcast:predict", {"FIELD": "zinc", "PIXEL_SIZE": -1},
+     ("PIXEL_SIZE) must be a positive distance", "got '-1'")),
+    ("fieldcast:simulate", {"FIELD": "zinc", "PIXEL_SIZE": 200, "REALIZATIONS": 4294967298},
+     ("REALIZATIONS (number of realisations) must be a whole number from 1 to 65,535; got '4294967298'",)),
+])
+def test_bad_values_on_the_command_line_get_our_message(profile, meuse_layer, tmp_path, algorithm, parameters,
+                                                        fragments):
+    # qgis_process passes every value as text; the refusal comes before any work and leaves no file.
+    output = {"OUTPUT_MODEL": tmp_path / "out.json"} if algorithm == "fieldcast:fitmodel" else \
+        {"OUTPUT": tmp_path / "out.tif"}
+    run = run_algorithm(profile, algorithm, {"INPUT": meuse_layer, **parameters, **output})
+    assert run.returncode != 0
+    for fragment in fragments:
+        assert fragment in run.messages
+    assert "Traceback" not in run.messages
     assert list(tmp_path.iterdir()) == []
