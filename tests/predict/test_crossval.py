@@ -17,6 +17,7 @@ from fieldcast.algorithms.predict.crossval import (
     random_folds,
 )
 from fieldcast.algorithms.predict.kriging import KrigingPredictor
+from reference import gaussian_field
 
 SUBSET = slice(0, 155, 3)  # 52 Meuse samples keep the brute-force refits quick
 
@@ -121,11 +122,10 @@ def test_standardized_errors_are_standard_normal_under_the_model(meuse):
     xy = meuse.xy[::3][:40]
     covariance = CovarianceModel((Structure("exponential", 1.0, 400.0),), 0.2)
     mean = MeanModel.for_data("constant", xy)
-    factor = np.linalg.cholesky(covariance.data_covariance(xy))
     rng = np.random.default_rng(2024)
     standardized = []
     for _ in range(300):
-        values = 3.0 + factor @ rng.standard_normal(len(xy))
+        values = gaussian_field(covariance, xy, rng, mean=3.0)
         standardized.append(leave_one_out(xy, values, covariance, mean).standardized)
     pooled = np.concatenate(standardized)
     # 12000 values: MSDR has sampling spread of roughly sqrt(2 / 12000) = 0.013 if independent

@@ -1,10 +1,12 @@
 """Sparse local kriging weights reproduce local kriging (the weights local conditional simulation uses)."""
 from __future__ import annotations
 
+from dataclasses import replace
+
 import numpy as np
 import pytest
 
-from fieldcast.algorithms.model.covariance import CovarianceModel, Structure
+from fieldcast.algorithms.model.covariance import CovarianceModel
 from fieldcast.algorithms.model.mean import MeanModel
 from fieldcast.algorithms.predict.kriging import KrigingPredictor
 from fieldcast.algorithms.predict.local import LocalKrigingPredictor
@@ -12,8 +14,8 @@ from reference import MEUSE_LOG_ZINC
 
 # The usual Meuse log-zinc model (tests/reference.py; from memory).
 MEUSE_MODEL = MEUSE_LOG_ZINC
-# Anisotropic variant to exercise the search frame.
-ANISOTROPIC = CovarianceModel((Structure("spherical", 0.59, 900.0, azimuth=40.0, ratio=0.5),), nugget=0.05)
+# Anisotropic variant (azimuth 40, ratio 0.5) to exercise the search frame.
+ANISOTROPIC = CovarianceModel((replace(MEUSE_LOG_ZINC.structures[0], azimuth=40.0, ratio=0.5),), MEUSE_LOG_ZINC.nugget)
 
 
 @pytest.fixture(scope="module")
