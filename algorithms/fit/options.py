@@ -8,7 +8,6 @@ the module docstring of :mod:`.fitting` defines them.
 from __future__ import annotations
 
 import math
-from collections.abc import Callable
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -160,7 +159,11 @@ def check_fit_choices(kernel: str, method: str, nested: bool, smoothness: float 
 
 @dataclass(frozen=True)
 class FitOptions:
-    """The settings of one fit, as :func:`.fitting.fit_model` takes them (see its parameters)."""
+    """The settings of one fit, as :func:`.fitting.fit_model` takes them (see its parameters).
+
+    Settings only: the progress and cancel callables are arguments of the fits themselves
+    (:func:`.fitting.fit_with`, :func:`.vecchia_fit.fit_vecchia`, :func:`.shared.fit_shared`).
+    """
 
     kernel: str = "auto"
     anisotropy: bool = True
@@ -170,8 +173,6 @@ class FitOptions:
     nested: bool = False
     smoothness: float | None = None
     known_mean: float = 0.0
-    progress: Callable[[float], None] | None = None
-    should_stop: Callable[[], bool] | None = None
     max_iterations: int = MAX_ITERATIONS
 
     def __post_init__(self) -> None:

@@ -99,7 +99,8 @@ class JointObjective(PairedObjective):
 
 
 def fit_shared(xy: np.ndarray, values: np.ndarray, options: FitOptions,
-               names: list[str] | None = None) -> list[FitResult]:
+               names: list[str] | None = None, *, progress: Callable[[float], None] | None = None,
+               should_stop: Callable[[], bool] | None = None) -> list[FitResult]:
     """Fit one correlation model, with its own scale per field, to fields sampled at the same places.
 
     Parameters
@@ -113,6 +114,8 @@ def fit_shared(xy: np.ndarray, values: np.ndarray, options: FitOptions,
         mean of any kind but "known" (whose value could not differ between fields).
     names : list of str, optional
         Field names for messages, one per column.
+    progress, should_stop : callable, optional
+        Progress fraction in [0, 1]; cancel request (raises ``Cancelled``).
 
     Returns
     -------
@@ -130,14 +133,14 @@ def fit_shared(xy: np.ndarray, values: np.ndarray, options: FitOptions,
     column_scales = _column_scales(values, MeanBasis.from_design(design), names)
     standardised = values / column_scales
     average = standardised.mean(axis=1)
-    start = fit_with(xy, average, replace(options, progress=_part(options.progress, 0.0, START_SHARE)))
+    start = fit_with(xy, average, options, progress=_part(progress, 0.0, START_SHARE), should_stop=should_stop)
     layout = _start_layout(start, options)
-    problem = SearchProblem.standardise(xy, average, design, options.method, options.should_stop)
-    objective = JointObjective(problem.xy, standardised, problem.basis, options.method, layout, options.should_stop)
+    problem = SearchProblem.standardise(xy, average, design, options.method, should_stop)
+    objective = JointObjective(problem.xy, standardised, problem.basis, options.method, layout, should_stop)
     internal_start = problem.to_internal_units(start.covariance)
     theta, failure = _refine(objective, layout, layout.pack(internal_start.scaled(
         1.0 / internal_start.structures[0].partial_sill)), problem.internal_scales,
-        _part(options.progress, START_SHARE, 1.0), options.max_iterations)
+        _part(progress, START_SHARE, 1.0), options.max_iterations)
     shared = layout.unpack(theta)
     messages = [] if failure is None else [
         f"Joint fit of the shared model: {failure} The model may be off its best; a model per field, or fewer "
@@ -146,8 +149,8 @@ def fit_shared(xy: np.ndarray, values: np.ndarray, options: FitOptions,
     results = [_field_result(xy, column, replace(problem, value_scale=math.sqrt(scale)), shared, mean_model, options,
                              layout, len(names), messages)
                for column, scale in zip(values.T, scales)]
-    if options.progress is not None:
-        options.progress(1.0)
+    if progress is not None:
+        progress(1.0)
     return results
 
 

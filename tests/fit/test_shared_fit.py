@@ -5,7 +5,7 @@ import numpy as np
 import pytest
 from scipy import optimize, stats
 
-from fieldcast.algorithms.errors import FieldcastError
+from fieldcast.algorithms.errors import Cancelled, FieldcastError
 from fieldcast.algorithms.fit.fitting import VECCHIA_THRESHOLD, fit_model
 from fieldcast.algorithms.fit.likelihood import evaluate_model
 from fieldcast.algorithms.fit.options import FitOptions
@@ -143,10 +143,12 @@ def test_bad_fields_are_named(meuse, log_metals):
         fit_shared(np.zeros((VECCHIA_THRESHOLD + 1, 2)), too_many, FitOptions())
 
 
-def test_progress_reaches_the_end(meuse, log_metals):
+def test_progress_reaches_the_end_and_cancel_stops(meuse, log_metals):
     seen = []
-    fit_shared(meuse.xy, log_metals, FitOptions(kernel="exponential", anisotropy=False, progress=seen.append))
+    fit_shared(meuse.xy, log_metals, FitOptions(kernel="exponential", anisotropy=False), progress=seen.append)
     assert seen[-1] == 1.0 and all(b >= a for a, b in zip(seen, seen[1:]))
+    with pytest.raises(Cancelled):
+        fit_shared(meuse.xy, log_metals, FitOptions(kernel="exponential", anisotropy=False), should_stop=lambda: True)
 
 
 def test_a_joint_fit_stopped_by_the_iteration_limit_says_so(meuse, log_metals, shared):
