@@ -98,3 +98,24 @@ def gaussian_field(covariance: CovarianceModel, xy: np.ndarray, rng: np.random.G
     ``z`` standard normal: for simulation studies and the demo, invented data drawn from a known model.
     """
     return mean + covariance_factor(covariance.data_covariance(xy)) @ rng.standard_normal(len(xy))
+
+
+def calibrated_msdr_range(n: int, probability: float = 0.999) -> tuple[float, float]:
+    """Central ``probability`` interval of the mean squared standardized error of ``n`` errors under a right model.
+
+    With independent standard normal standardized errors ``n * MSDR`` is chi-square with ``n`` degrees of freedom
+    (scipy.stats.chi2); leave-one-out errors are only weakly dependent, so this is an approximation.
+    """
+    from scipy import stats
+
+    low, high = stats.chi2.ppf([(1.0 - probability) / 2.0, (1.0 + probability) / 2.0], n)
+    return float(low) / n, float(high) / n
+
+
+def calibrated_coverage_range(n: int, probability: float = 0.999) -> tuple[float, float]:
+    """Central ``probability`` interval of the share of ``n`` errors inside their 95 % intervals under a right
+    model: binomial(n, 0.95) quantiles over n (scipy.stats.binom; independence assumed as above)."""
+    from scipy import stats
+
+    low, high = stats.binom.ppf([(1.0 - probability) / 2.0, (1.0 + probability) / 2.0], n, 0.95)
+    return float(low) / n, float(high) / n
