@@ -64,13 +64,13 @@ def _wls_candidates(xy: np.ndarray, values: np.ndarray, mean: MeanModel, covaria
     return scored
 
 
-def fit_exact(xy: np.ndarray, values: np.ndarray, options: FitOptions, *,
+def fit_exact(xy: np.ndarray, values: np.ndarray, options: FitOptions, *, covariates: np.ndarray | None = None,
               progress: Callable[[float], None] | None = None,
               should_stop: Callable[[], bool] | None = None) -> FitResult:
     """:func:`.fitting.fit_model` with the exact likelihood whatever the number of samples."""
-    kernel, anisotropy, mean, method, covariates, nested, smoothness, known_mean = (
-        options.kernel, options.anisotropy, options.mean, options.method, options.covariates, options.nested,
-        options.smoothness, options.known_mean)
+    kernel, anisotropy, mean, method, nested, smoothness, known_mean = (
+        options.kernel, options.anisotropy, options.mean, options.method, options.nested, options.smoothness,
+        options.known_mean)
     check_fit_choices(kernel, method, nested, smoothness)
     check_samples(xy, values)
     xy = np.asarray(xy, dtype=float)

@@ -161,7 +161,7 @@ def check_fit_choices(kernel: str, method: str, nested: bool, smoothness: float 
 class FitOptions:
     """The settings of one fit, as :func:`.fitting.fit_model` takes them (see its parameters).
 
-    Settings only: the progress and cancel callables are arguments of the fits themselves
+    Settings only: the covariates (data) and the progress and cancel callables are arguments of the fits themselves
     (:func:`.fitting.fit_with`, :func:`.vecchia_fit.fit_vecchia`, :func:`.shared.fit_shared`).
     """
 
@@ -169,7 +169,6 @@ class FitOptions:
     anisotropy: bool = True
     mean: str | MeanModel = "constant"
     method: str = "reml"
-    covariates: np.ndarray | None = None
     nested: bool = False
     smoothness: float | None = None
     known_mean: float = 0.0

@@ -90,6 +90,19 @@ def test_one_field_gives_the_single_field_fit(meuse, log_metals):
     assert joint.log_likelihood >= single.log_likelihood - 1e-3
 
 
+def test_one_field_with_a_covariate_gives_the_single_field_fit(meuse, log_metals):
+    # As above, with an external drift (square root of the distance to the river) given beside the settings.
+    covariates = np.sqrt(np.asarray(meuse.dist))[:, None]
+    mean = MeanModel.for_data("constant", meuse.xy, ("sqrt_dist",))
+    single = fit_model(meuse.xy, log_metals[:, 0], kernel="exponential", anisotropy=False, mean=mean,
+                       covariates=covariates)
+    joint, = fit_shared(meuse.xy, log_metals[:, :1], FitOptions(kernel="exponential", anisotropy=False, mean=mean),
+                        covariates=covariates)
+    assert len(joint.coefficients) == 2
+    assert joint.log_likelihood == pytest.approx(single.log_likelihood, abs=1e-3)
+    np.testing.assert_allclose(joint.coefficients, single.coefficients, rtol=1e-2)
+
+
 def contrast_log_likelihood(xy, values, covariance) -> float:
     """REML log-likelihood of a constant-mean field, computed without the fit code.
 
