@@ -3,6 +3,8 @@ from __future__ import annotations
 
 import json
 import math
+import re
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -17,6 +19,7 @@ from fieldcast.algorithms.fit.fitting import fit_model
 from fieldcast.algorithms.fit.likelihood import log_likelihood
 from fieldcast.algorithms.fit.options import AUTO_FAMILIES, FIT_METHODS, KERNEL_CHOICES
 from fieldcast.algorithms.fit.variogram_fit import fit_wls
+from fieldcast.algorithms.model.correlation import FAMILIES
 from fieldcast.algorithms.model.covariance import CovarianceModel, Structure
 from fieldcast.algorithms.model.mean import MeanModel
 from fieldcast.algorithms.model.parameters import (
@@ -36,13 +39,25 @@ def simulate(model: CovarianceModel, n: int, seed: int, side: float = 1000.0,
     return xy, gaussian_field(model, xy, rng, mean)
 
 
+README = Path(__file__).resolve().parents[2] / "README.md"
+
 ANISOTROPIC = CovarianceModel((Structure("exponential", 1.0, 250.0, 30.0, 0.4),), 0.1)
 ISOTROPIC = CovarianceModel((Structure("matern32", 1.0, 150.0),), 0.1)
 
 
-def test_choices_are_published():
-    assert FIT_METHODS == ("reml", "ml", "wls")
-    assert KERNEL_CHOICES == ("auto", "exponential", "spherical", "gaussian", "matern32", "matern52", "matern")
+def documented_choices(parameter: str) -> tuple[str, ...]:
+    """The words the README's parameter table gives for a choice parameter (before any ";" remark)."""
+    row = next(line for line in README.read_text(encoding="utf-8").splitlines()
+               if line.startswith(f"| `{parameter}` |"))
+    return tuple(re.findall(r"`([^`]+)`", row.split("|")[2].split(";")[0]))
+
+
+def test_choices_are_those_documented_for_users():
+    # The user-facing contract is the README's parameter table: the engine's choices must be exactly its words,
+    # in its order, and every kernel but "auto" a correlation family of the engine.
+    assert FIT_METHODS == documented_choices("METHOD")
+    assert KERNEL_CHOICES == documented_choices("KERNEL")
+    assert set(KERNEL_CHOICES) - {"auto"} <= set(FAMILIES) and set(AUTO_FAMILIES) < set(KERNEL_CHOICES)
 
 
 def reml_standard_errors(model_of, theta: np.ndarray, xy: np.ndarray, steps: np.ndarray) -> np.ndarray:
