@@ -19,7 +19,7 @@ from fieldcast.algorithms.fit.variogram import (
 )
 from fieldcast.algorithms.fit.variogram_fit import _collect_lags, _Criterion, fit_semivariogram_model, fit_wls
 from fieldcast.algorithms.model.covariance import CovarianceModel, Structure
-from reference import gaussian_field
+from reference import MEUSE_LOG_ZINC, gaussian_field
 
 
 def brute_force_semivariogram(xy, values, edges, azimuth=None, tolerance=90.0):
@@ -321,14 +321,15 @@ def test_meuse_log_zinc_varies_more_slowly_along_the_river(meuse):
 
 
 def test_meuse_spherical_fit_is_in_the_published_neighbourhood(meuse):
-    # From memory: fits of a spherical model to the omnidirectional semivariogram of log(zinc)
-    # are usually printed with a nugget near 0.05, a partial sill near 0.6 and a range near 900 m.
-    # The weights differ between those fits and Cressie's, so only the neighbourhood is asserted.
+    # From memory: fits of a spherical model to the omnidirectional semivariogram of log(zinc) are usually printed
+    # near the usual Meuse model (MEUSE_LOG_ZINC: nugget 0.05, partial sill 0.59, range 897 m). The weights differ
+    # between those fits and Cressie's, so only the neighbourhood is asserted (common practice).
+    usual = MEUSE_LOG_ZINC.structures[0]
     fitted = fit_wls(meuse.xy, np.log(meuse.zinc), "spherical", anisotropy=False)
     s = fitted.structures[0]
-    assert 0.0 <= fitted.nugget <= 0.15
-    assert 0.45 <= s.partial_sill <= 0.75
-    assert 600.0 <= s.range <= 1300.0
+    assert 0.0 <= fitted.nugget <= 3.0 * MEUSE_LOG_ZINC.nugget
+    assert 0.75 * usual.partial_sill <= s.partial_sill <= 1.25 * usual.partial_sill
+    assert usual.range / 1.5 <= s.range <= 1.45 * usual.range
 
 
 def test_meuse_fit_minimises_cressie_criterion(meuse):
