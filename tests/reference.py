@@ -12,6 +12,7 @@ from functools import lru_cache
 from pathlib import Path
 
 import numpy as np
+from scipy import stats
 
 from fieldcast.algorithms import CovarianceModel, Structure, covariance_factor
 
@@ -106,8 +107,6 @@ def calibrated_msdr_range(n: int, probability: float = 0.999) -> tuple[float, fl
     With independent standard normal standardized errors ``n * MSDR`` is chi-square with ``n`` degrees of freedom
     (scipy.stats.chi2); leave-one-out errors are only weakly dependent, so this is an approximation.
     """
-    from scipy import stats
-
     low, high = stats.chi2.ppf([(1.0 - probability) / 2.0, (1.0 + probability) / 2.0], n)
     return float(low) / n, float(high) / n
 
@@ -115,7 +114,5 @@ def calibrated_msdr_range(n: int, probability: float = 0.999) -> tuple[float, fl
 def calibrated_coverage_range(n: int, probability: float = 0.999) -> tuple[float, float]:
     """Central ``probability`` interval of the share of ``n`` errors inside their 95 % intervals under a right
     model: binomial(n, 0.95) quantiles over n (scipy.stats.binom; independence assumed as above)."""
-    from scipy import stats
-
     low, high = stats.binom.ppf([(1.0 - probability) / 2.0, (1.0 + probability) / 2.0], n, 0.95)
     return float(low) / n, float(high) / n
