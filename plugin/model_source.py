@@ -29,11 +29,9 @@ class FitSettings:
     trend: str = "constant"
     method: str = "reml"
 
-    def options(self, progress: Callable[[float], None] | None = None,
-                should_stop: Callable[[], bool] | None = None) -> FitOptions:
+    def options(self) -> FitOptions:
         """The engine's settings object for these choices (the one place the dialog's words become it)."""
-        return FitOptions(kernel=self.kernel, anisotropy=self.anisotropy, mean=self.trend, method=self.method,
-                          progress=progress, should_stop=should_stop)
+        return FitOptions(kernel=self.kernel, anisotropy=self.anisotropy, mean=self.trend, method=self.method)
 
     def describe(self) -> str:
         """The settings in words, for the log."""
@@ -49,7 +47,7 @@ def fit_document(xy: np.ndarray, values: np.ndarray, transform: Transform, worki
     ``xy`` is in the working CRS and ``values`` in the modelling scale (after ``transform``).
     Returns the document and the engine's fit result (candidates and all), which the fit report reads.
     """
-    result = fit_with(xy, values, settings.options(progress, should_stop))
+    result = fit_with(xy, values, settings.options(), progress=progress, should_stop=should_stop)
     return result_document(result, transform, working, field), result
 
 
@@ -66,7 +64,7 @@ def fit_shared_documents(xy: np.ndarray, values: np.ndarray, transform: Transfor
 
     See :mod:`..algorithms.fit.shared`: every document holds the shared model at its field's scale.
     """
-    results = fit_shared(xy, values, settings.options(progress, should_stop), fields)
+    results = fit_shared(xy, values, settings.options(), fields, progress=progress, should_stop=should_stop)
     return [result_document(result, transform, working, field) for result, field in zip(results, fields)]
 
 

@@ -1,22 +1,118 @@
-"""What many tests share: the one Meuse log-zinc model and one Gaussian-field simulator.
+"""What tests and tools share: the Meuse data, the one Meuse log-zinc model and one Gaussian-field simulator.
 
-The Meuse data themselves are loaded by the fixtures in ``conftest.py`` (published data; see data/README.md).
+The Meuse data are the published data set (see data/README.md); ``conftest.py`` hands them to tests as the
+``meuse`` and ``meuse_grid`` fixtures, and the benchmark scripts in ``tools/`` read them from here too.
+Arrays are read-only, so a test fails loudly if engine code modifies its inputs.
 """
 from __future__ import annotations
 
-import numpy as np
+import csv
+from dataclasses import dataclass
+from functools import lru_cache
+from pathlib import Path
 
-from fieldcast.algorithms import CovarianceModel, Structure
+import numpy as np
+from scipy import stats
+
+from fieldcast.algorithms import CovarianceModel, Structure, covariance_factor
+
+DATA_DIR = Path(__file__).resolve().parent / "data"
 
 # Spherical log-zinc model of the Meuse data: nugget 0.05, partial sill 0.59, range 897 m, the magnitudes
-# usually quoted for this data set's log-zinc variogram (from memory). Every test that needs "the usual Meuse
-# model" uses this one.
+# usually quoted for this data set's log-zinc variogram (from memory). Every test and benchmark that needs
+# "the usual Meuse model" uses this one.
 MEUSE_LOG_ZINC = CovarianceModel((Structure("spherical", 0.59, 897.0),), nugget=0.05)
+
+
+@dataclass(frozen=True)
+class MeuseSamples:
+    """The 155 Meuse topsoil samples; coordinates in EPSG:28992 metres, metals in ppm."""
+
+    ids: np.ndarray
+    xy: np.ndarray
+    zinc: np.ndarray
+    copper: np.ndarray
+    lead: np.ndarray
+    cadmium: np.ndarray
+    elev: np.ndarray
+    dist: np.ndarray
+    crs: str = "EPSG:28992"
+
+
+@dataclass(frozen=True)
+class MeuseGrid:
+    """Centres of the 3103 cells of the 40 m Meuse prediction grid (EPSG:28992 metres)."""
+
+    xy: np.ndarray
+    dist: np.ndarray
+    crs: str = "EPSG:28992"
+
+
+def read_columns(path: Path) -> dict[str, list[str]]:
+    """Read a CSV file with a header into ``{column name: list of text fields}``."""
+    with open(path, newline="", encoding="utf-8") as handle:
+        rows = list(csv.DictReader(handle))
+    return {name: [row[name] for row in rows] for name in rows[0]}
+
+
+def float_column(columns: dict[str, list[str]], name: str) -> np.ndarray:
+    """Read-only float array of one column; empty fields become NaN."""
+    values = np.array([float(text) if text else np.nan for text in columns[name]])
+    values.setflags(write=False)
+    return values
+
+
+def stacked_xy(columns: dict[str, list[str]]) -> np.ndarray:
+    """Read-only (n, 2) array of the x and y columns."""
+    xy = np.column_stack([float_column(columns, "x"), float_column(columns, "y")])
+    xy.setflags(write=False)
+    return xy
+
+
+@lru_cache(maxsize=1)
+def load_meuse() -> MeuseSamples:
+    """The Meuse samples from tests/data/meuse.csv (read once)."""
+    columns = read_columns(DATA_DIR / "meuse.csv")
+    ids = np.array([int(text) for text in columns["id"]])
+    ids.setflags(write=False)
+    return MeuseSamples(
+        ids=ids,
+        xy=stacked_xy(columns),
+        **{name: float_column(columns, name)
+           for name in ("zinc", "copper", "lead", "cadmium", "elev", "dist")},
+    )
+
+
+@lru_cache(maxsize=1)
+def load_meuse_grid() -> MeuseGrid:
+    """The Meuse prediction grid from tests/data/meuse_grid.csv (read once)."""
+    columns = read_columns(DATA_DIR / "meuse_grid.csv")
+    return MeuseGrid(xy=stacked_xy(columns), dist=float_column(columns, "dist"))
 
 
 def gaussian_field(covariance: CovarianceModel, xy: np.ndarray, rng: np.random.Generator,
                    mean: float = 0.0) -> np.ndarray:
-    """One draw of a Gaussian field with ``covariance`` (nugget included) at ``xy``: ``mean + L z`` with
-    ``L`` the Cholesky factor of the sample covariance matrix and ``z`` standard normal (for simulation
-    studies: invented data, drawn from a known model)."""
-    return mean + np.linalg.cholesky(covariance.data_covariance(xy)) @ rng.standard_normal(len(xy))
+    """One draw of a Gaussian field with ``covariance`` (nugget included) at ``xy``.
+
+    ``mean + L z`` with ``L`` the engine's factor of the sample covariance matrix
+    (``covariance_factor``: Cholesky, or a clipped eigendecomposition when rounding makes it singular) and
+    ``z`` standard normal: for simulation studies and the demo, invented data drawn from a known model.
+    """
+    return mean + covariance_factor(covariance.data_covariance(xy)) @ rng.standard_normal(len(xy))
+
+
+def calibrated_msdr_range(n: int, probability: float = 0.999) -> tuple[float, float]:
+    """Central ``probability`` interval of the mean squared standardized error of ``n`` errors under a right model.
+
+    With independent standard normal standardized errors ``n * MSDR`` is chi-square with ``n`` degrees of freedom
+    (scipy.stats.chi2); leave-one-out errors are only weakly dependent, so this is an approximation.
+    """
+    low, high = stats.chi2.ppf([(1.0 - probability) / 2.0, (1.0 + probability) / 2.0], n)
+    return float(low) / n, float(high) / n
+
+
+def calibrated_coverage_range(n: int, probability: float = 0.999) -> tuple[float, float]:
+    """Central ``probability`` interval of the share of ``n`` errors inside their 95 % intervals under a right
+    model: binomial(n, 0.95) quantiles over n (scipy.stats.binom; independence assumed as above)."""
+    low, high = stats.binom.ppf([(1.0 - probability) / 2.0, (1.0 + probability) / 2.0], n, 0.95)
+    return float(low) / n, float(high) / n

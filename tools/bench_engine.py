@@ -5,23 +5,28 @@ runs on the same data and kernel as an outside yardstick.
 """
 from __future__ import annotations
 
+import sys
 import time
 import warnings
 from collections.abc import Callable
 from functools import partial
+from pathlib import Path
 from typing import TypeVar
 
 import numpy as np
-from engine import REPO_ROOT, load_engine
 
-load_engine()
-from fieldcast_engine import (  # noqa: E402
+sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "tests"))  # the repository loader, Meuse support
+from repo_package import load_repo_package  # noqa: E402
+
+load_repo_package()
+from fieldcast.algorithms import (  # noqa: E402
     CovarianceModel,
     KrigingPredictor,
     MeanModel,
     Structure,
     fit_model,
 )
+from reference import gaussian_field, load_meuse  # noqa: E402
 
 T = TypeVar("T")
 
@@ -36,19 +41,12 @@ _SAME_MODEL_TOLERANCE = 1e-6
 """Largest mean or std difference, in data standard deviations, with the same hyperparameters."""
 
 
-def _meuse_log_zinc() -> tuple[np.ndarray, np.ndarray]:
-    table = np.genfromtxt(REPO_ROOT / "tests" / "data" / "meuse.csv", delimiter=",", names=True)
-    return np.column_stack([table["x"], table["y"]]), np.log(table["zinc"])
-
-
 def _simulated(n: int, anisotropic: bool, seed: int = 7) -> tuple[np.ndarray, np.ndarray]:
     """A field drawn from a known model at n random sites in a 10 km square."""
     rng = np.random.default_rng(seed)
     xy = rng.uniform(0.0, 10_000.0, size=(n, 2))
     structure = Structure("exponential", 1.0, 1500.0, 30.0 if anisotropic else 0.0, 0.5 if anisotropic else 1.0)
-    model = CovarianceModel((structure,), 0.1)
-    factor = np.linalg.cholesky(model.data_covariance(xy))
-    return xy, 5.0 + factor @ rng.standard_normal(n)
+    return xy, gaussian_field(CovarianceModel((structure,), 0.1), xy, rng, mean=5.0)
 
 
 def _fit(xy: np.ndarray, values: np.ndarray, anisotropic: bool, kernel: str = "spherical") -> str:
@@ -153,7 +151,7 @@ def cases() -> list[dict]:
     """The engine benchmark cases (see tools/bench.py)."""
     return [
         {"name": "REML fit, Meuse n=155, anisotropic spherical", "target": "< 1 s", "seconds": 1.0,
-         "memory_mb": None, "run": lambda: _fit(*_meuse_log_zinc(), anisotropic=True)},
+         "memory_mb": None, "run": lambda: _fit(load_meuse().xy, np.log(load_meuse().zinc), anisotropic=True)},
         {"name": "REML fit, n=1000, isotropic", "target": "< 5 s", "seconds": 5.0, "memory_mb": None,
          "run": lambda: _fit(*_simulated(1000, anisotropic=False), anisotropic=False, kernel="exponential")},
         {"name": "REML fit, n=2000, anisotropic", "target": "< 30 s", "seconds": 30.0, "memory_mb": None,

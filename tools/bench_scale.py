@@ -14,14 +14,16 @@ import time
 from pathlib import Path
 
 import numpy as np
-from engine import load_engine
 from osgeo import ogr
 
 # In a venv pyproj does not find the system PROJ database by itself (see tests/conftest.py); the GeoTIFF needs it.
 if "PROJ_LIB" not in os.environ:
     os.environ.setdefault("PROJ_DATA", str(Path(sys.base_prefix, "share", "proj")))
-load_engine()
-from fieldcast_engine import (  # noqa: E402
+sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "tests"))  # the repository loader, Meuse support
+from repo_package import load_repo_package  # noqa: E402
+
+load_repo_package()
+from fieldcast.algorithms import (  # noqa: E402
     CovarianceModel,
     FieldRasters,
     FitOptions,

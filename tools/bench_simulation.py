@@ -7,12 +7,15 @@ from __future__ import annotations
 
 import sys
 import time
+from pathlib import Path
 
 import numpy as np
-from engine import REPO_ROOT, load_engine
 
-load_engine()
-from fieldcast_engine import (  # noqa: E402
+sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "tests"))  # the repository loader, Meuse support
+from repo_package import load_repo_package  # noqa: E402
+
+load_repo_package()
+from fieldcast.algorithms import (  # noqa: E402
     CovarianceModel,
     GridSpec,
     KrigingPredictor,
@@ -26,14 +29,13 @@ from fieldcast_engine import (  # noqa: E402
     simulate_conditional,
     summarise_realisations,
 )
-
-# Spherical model of log(zinc) for the Meuse data (nugget 0.05, partial sill 0.59, range 900 m).
-MEUSE_MODEL = CovarianceModel((Structure("spherical", 0.59, 900.0),), nugget=0.05)
+from reference import MEUSE_LOG_ZINC, load_meuse  # noqa: E402
 
 
 def _meuse_log_zinc() -> tuple[np.ndarray, np.ndarray]:
-    table = np.genfromtxt(REPO_ROOT / "tests" / "data" / "meuse.csv", delimiter=",", names=True)
-    return np.column_stack([table["x"], table["y"]]), np.log(table["zinc"])
+    """The Meuse sample locations and ln(zinc / ppm)."""
+    meuse = load_meuse()
+    return meuse.xy, np.log(meuse.zinc)
 
 
 def _meuse_grid(cells_per_side: int) -> GridSpec:
@@ -54,7 +56,7 @@ def _conditional_meuse_500() -> str:
     xy, values = _meuse_log_zinc()
     grid = _meuse_grid(500)
     start = time.perf_counter()
-    result = simulate_conditional(xy, values, MEUSE_MODEL, MeanModel.for_data("constant", xy), grid,
+    result = simulate_conditional(xy, values, MEUSE_LOG_ZINC, MeanModel.for_data("constant", xy), grid,
                                   n_realisations=100, seed=1, transform=Transform("log"))
     simulated = time.perf_counter() - start
     summary = summarise_realisations(result.realisations, grid.pixel_size ** 2, threshold=500.0)
@@ -66,7 +68,7 @@ def _conditional_meuse_500() -> str:
 def _exceedance_and_block_meuse() -> str:
     xy, values = _meuse_log_zinc()
     grid = _meuse_grid(100)
-    predictor = KrigingPredictor(xy, values, MEUSE_MODEL, MeanModel.for_data("constant", xy))
+    predictor = KrigingPredictor(xy, values, MEUSE_LOG_ZINC, MeanModel.for_data("constant", xy))
     mean, variance = block_predict(predictor, grid.cell_centres(), grid.pixel_size)
     probability = exceedance_probability(mean, variance, 500.0, transform=Transform("log"))
     return f"{grid.n_cells:,} blocks of 4 x 4 points; share of cells with P > 0.5: {np.mean(probability > 0.5):.2f}"

@@ -13,11 +13,18 @@ from __future__ import annotations
 
 import argparse
 import math
+import sys
 from pathlib import Path
 
 import numpy as np
-from engine import load_engine  # tools/engine.py: the repo's algorithms/ under a fixed name
 from osgeo import gdal, ogr, osr
+
+sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "tests"))  # the repository loader, the field draw
+from repo_package import load_repo_package  # noqa: E402
+
+load_repo_package()
+from fieldcast.algorithms import CovarianceModel, Structure  # noqa: E402
+from reference import gaussian_field  # noqa: E402
 
 REPO = Path(__file__).resolve().parent.parent
 DEFAULT_OUTPUT = REPO / "demo" / "hollmark_basin.gpkg"
@@ -36,15 +43,10 @@ MISSING_LEAD_IDS = ("HB-017", "HB-058", "T2-09")  # lab results "lost": written 
 DUPLICATE_OF = "HB-040"  # a field duplicate taken at exactly the same spot
 
 
-def true_covariance(engine):
-    """The simulation model for ln(lead): Matérn 3/2 along the basin axis plus a nugget.
-
-    ``engine`` is the loaded engine package (``tools/engine.py``).
-    """
-    structure = engine.Structure(
-        family="matern32", partial_sill=0.40, range=150.0, azimuth=BASIN_AXIS_AZIMUTH, ratio=0.4
-    )
-    return engine.CovarianceModel((structure,), nugget=0.05)
+def true_covariance() -> CovarianceModel:
+    """The simulation model for ln(lead): Matérn 3/2 along the basin axis plus a nugget."""
+    structure = Structure(family="matern32", partial_sill=0.40, range=150.0, azimuth=BASIN_AXIS_AZIMUTH, ratio=0.4)
+    return CovarianceModel((structure,), nugget=0.05)
 
 
 def boundary_geometry() -> ogr.Geometry:
@@ -100,8 +102,7 @@ def water_depth(xy: np.ndarray, rng: np.random.Generator) -> np.ndarray:
 def simulate(rows, covariance, rng: np.random.Generator) -> dict[str, np.ndarray]:
     """Lead and zinc (ppm) and water depth (m) at the sample locations."""
     xy = np.array([(r[2], r[3]) for r in rows])
-    factor = np.linalg.cholesky(covariance.data_covariance(xy))
-    log_lead = TRUE_MEAN_LOG_PPM + factor @ rng.standard_normal(len(xy))
+    log_lead = gaussian_field(covariance, xy, rng, mean=TRUE_MEAN_LOG_PPM)
     # zinc follows lead (same sources) with its own scatter: ln(zinc) = ln(210) + 0.75 (ln(lead) - mean) + e
     log_zinc = math.log(210.0) + 0.75 * (log_lead - TRUE_MEAN_LOG_PPM) + rng.normal(0.0, 0.25, len(xy))
     lead = np.round(np.exp(log_lead), 1)
@@ -152,7 +153,7 @@ def main() -> None:
     parser.add_argument("--output", type=Path, default=DEFAULT_OUTPUT, help="GeoPackage to write")
     args = parser.parse_args()
     rng = np.random.default_rng(SEED)
-    covariance = true_covariance(load_engine())
+    covariance = true_covariance()
     boundary = boundary_geometry()
     rows = sample_layout(boundary, rng)
     values = simulate(rows, covariance, rng)

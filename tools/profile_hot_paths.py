@@ -7,12 +7,17 @@ README's performance section summarises the output.
 """
 from __future__ import annotations
 
+import sys
+from pathlib import Path
+
 import numpy as np
-from engine import load_engine
 from pyinstrument import Profiler
 
-load_engine()
-from fieldcast_engine import (  # noqa: E402
+sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "tests"))  # the repository loader, Meuse support
+from repo_package import load_repo_package  # noqa: E402
+
+load_repo_package()
+from fieldcast.algorithms import (  # noqa: E402
     CovarianceModel,
     KrigingPredictor,
     LocalKrigingPredictor,

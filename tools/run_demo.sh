@@ -73,10 +73,9 @@ for s in model["structures"]:
           f"(effective {s['effective_range']:.4g}) {model['units']}, azimuth {s['azimuth']:.1f} deg, "
           f"ratio {s['ratio']:.3g}")
 sys.path.insert(0, str(Path(sys.argv[3])))
-from engine import load_engine  # noqa: E402
 from make_demo_data import TRUE_MEAN_LOG_PPM, true_covariance  # noqa: E402
 
-truth = true_covariance(load_engine())
+truth = true_covariance()
 for s in truth.structures:
     print(f"true model (demo/README.md): {s.family}, partial sill {s.partial_sill:.4g}, range {s.range:.4g} "
           f"(effective {s.effective_range:.4g}) m, azimuth {s.azimuth:.1f} deg, ratio {s.ratio:.3g}, "

@@ -7,6 +7,8 @@ the model and its starting values.
 """
 from __future__ import annotations
 
+from collections.abc import Callable
+
 import numpy as np
 
 from ..errors import Cancelled
@@ -62,11 +64,13 @@ def _wls_candidates(xy: np.ndarray, values: np.ndarray, mean: MeanModel, covaria
     return scored
 
 
-def fit_exact(xy: np.ndarray, values: np.ndarray, options: FitOptions) -> FitResult:
+def fit_exact(xy: np.ndarray, values: np.ndarray, options: FitOptions, *, covariates: np.ndarray | None = None,
+              progress: Callable[[float], None] | None = None,
+              should_stop: Callable[[], bool] | None = None) -> FitResult:
     """:func:`.fitting.fit_model` with the exact likelihood whatever the number of samples."""
-    kernel, anisotropy, mean, method, covariates, nested, smoothness, known_mean, progress, should_stop = (
-        options.kernel, options.anisotropy, options.mean, options.method, options.covariates, options.nested,
-        options.smoothness, options.known_mean, options.progress, options.should_stop)
+    kernel, anisotropy, mean, method, nested, smoothness, known_mean = (
+        options.kernel, options.anisotropy, options.mean, options.method, options.nested, options.smoothness,
+        options.known_mean)
     check_fit_choices(kernel, method, nested, smoothness)
     check_samples(xy, values)
     xy = np.asarray(xy, dtype=float)

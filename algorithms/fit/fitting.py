@@ -101,17 +101,20 @@ def fit_model(
     FitResult
         Ranges in CRS units, variances in value units squared.
     """
-    return fit_with(xy, values, FitOptions(kernel, anisotropy, mean, method, covariates, nested, smoothness,
-                                           known_mean, progress, should_stop, max_iterations))
+    options = FitOptions(kernel, anisotropy, mean, method, nested, smoothness, known_mean, max_iterations)
+    return fit_with(xy, values, options, covariates=covariates, progress=progress, should_stop=should_stop)
 
 
-def fit_with(xy: np.ndarray, values: np.ndarray, options: FitOptions) -> FitResult:
+def fit_with(xy: np.ndarray, values: np.ndarray, options: FitOptions, *, covariates: np.ndarray | None = None,
+             progress: Callable[[float], None] | None = None,
+             should_stop: Callable[[], bool] | None = None) -> FitResult:
     """:func:`fit_model` with its settings in one :class:`.options.FitOptions` object.
 
-    Data above :data:`VECCHIA_THRESHOLD` samples go to the Vecchia fit (except for WLS); smaller ones to the
-    exact fit, on one BLAS thread up to :data:`SINGLE_THREAD_LIMIT` samples.
+    ``covariates``, ``progress`` and ``should_stop`` are as for :func:`fit_model`. Data above :data:`VECCHIA_THRESHOLD`
+    samples go to the Vecchia fit (except for WLS); smaller ones to the exact fit, on one BLAS thread up to
+    :data:`SINGLE_THREAD_LIMIT` samples.
     """
     if options.method != "wls" and len(values) > VECCHIA_THRESHOLD:
-        return fit_vecchia(xy, values, options)
+        return fit_vecchia(xy, values, options, covariates=covariates, progress=progress, should_stop=should_stop)
     with single_blas_thread(len(values) <= SINGLE_THREAD_LIMIT):
-        return fit_exact(xy, values, options)
+        return fit_exact(xy, values, options, covariates=covariates, progress=progress, should_stop=should_stop)

@@ -8,7 +8,6 @@ the module docstring of :mod:`.fitting` defines them.
 from __future__ import annotations
 
 import math
-from collections.abc import Callable
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -160,18 +159,19 @@ def check_fit_choices(kernel: str, method: str, nested: bool, smoothness: float 
 
 @dataclass(frozen=True)
 class FitOptions:
-    """The settings of one fit, as :func:`.fitting.fit_model` takes them (see its parameters)."""
+    """The settings of one fit, as :func:`.fitting.fit_model` takes them (see its parameters).
+
+    Settings only: the covariates (data) and the progress and cancel callables are arguments of the fits themselves
+    (:func:`.fitting.fit_with`, :func:`.vecchia_fit.fit_vecchia`, :func:`.shared.fit_shared`).
+    """
 
     kernel: str = "auto"
     anisotropy: bool = True
     mean: str | MeanModel = "constant"
     method: str = "reml"
-    covariates: np.ndarray | None = None
     nested: bool = False
     smoothness: float | None = None
     known_mean: float = 0.0
-    progress: Callable[[float], None] | None = None
-    should_stop: Callable[[], bool] | None = None
     max_iterations: int = MAX_ITERATIONS
 
     def __post_init__(self) -> None:

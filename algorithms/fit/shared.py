@@ -99,7 +99,9 @@ class JointObjective(PairedObjective):
 
 
 def fit_shared(xy: np.ndarray, values: np.ndarray, options: FitOptions,
-               names: list[str] | None = None) -> list[FitResult]:
+               names: list[str] | None = None, *, covariates: np.ndarray | None = None,
+               progress: Callable[[float], None] | None = None,
+               should_stop: Callable[[], bool] | None = None) -> list[FitResult]:
     """Fit one correlation model, with its own scale per field, to fields sampled at the same places.
 
     Parameters
@@ -113,6 +115,10 @@ def fit_shared(xy: np.ndarray, values: np.ndarray, options: FitOptions,
         mean of any kind but "known" (whose value could not differ between fields).
     names : list of str, optional
         Field names for messages, one per column.
+    covariates : ndarray of shape (n, k), optional
+        External-drift columns for the mean, the same for every field.
+    progress, should_stop : callable, optional
+        Progress fraction in [0, 1]; cancel request (raises ``Cancelled``).
 
     Returns
     -------
@@ -125,29 +131,30 @@ def fit_shared(xy: np.ndarray, values: np.ndarray, options: FitOptions,
     values = np.asarray(values, dtype=float)
     names = _checked_fields(xy, values, options, names)
     xy = np.asarray(xy, dtype=float)
-    mean_model = mean_model_for(options.mean, xy, options.covariates, options.known_mean)
-    design = mean_model.design(xy, options.covariates)
+    mean_model = mean_model_for(options.mean, xy, covariates, options.known_mean)
+    design = mean_model.design(xy, covariates)
     column_scales = _column_scales(values, MeanBasis.from_design(design), names)
     standardised = values / column_scales
     average = standardised.mean(axis=1)
-    start = fit_with(xy, average, replace(options, progress=_part(options.progress, 0.0, START_SHARE)))
+    start = fit_with(xy, average, options, covariates=covariates, progress=_part(progress, 0.0, START_SHARE),
+                     should_stop=should_stop)
     layout = _start_layout(start, options)
-    problem = SearchProblem.standardise(xy, average, design, options.method, options.should_stop)
-    objective = JointObjective(problem.xy, standardised, problem.basis, options.method, layout, options.should_stop)
+    problem = SearchProblem.standardise(xy, average, design, options.method, should_stop)
+    objective = JointObjective(problem.xy, standardised, problem.basis, options.method, layout, should_stop)
     internal_start = problem.to_internal_units(start.covariance)
     theta, failure = _refine(objective, layout, layout.pack(internal_start.scaled(
         1.0 / internal_start.structures[0].partial_sill)), problem.internal_scales,
-        _part(options.progress, START_SHARE, 1.0), options.max_iterations)
+        _part(progress, START_SHARE, 1.0), options.max_iterations)
     shared = layout.unpack(theta)
     messages = [] if failure is None else [
         f"Joint fit of the shared model: {failure} The model may be off its best; a model per field, or fewer "
         "fields, also help."]
     scales = objective.field_scales(theta) * column_scales ** 2
-    results = [_field_result(xy, column, replace(problem, value_scale=math.sqrt(scale)), shared, mean_model, options,
-                             layout, len(names), messages)
+    results = [_field_result(xy, column, covariates, replace(problem, value_scale=math.sqrt(scale)), shared,
+                             mean_model, options.method, layout, len(names), messages)
                for column, scale in zip(values.T, scales)]
-    if options.progress is not None:
-        options.progress(1.0)
+    if progress is not None:
+        progress(1.0)
     return results
 
 
@@ -235,8 +242,8 @@ def _refine(objective: JointObjective, layout: ParameterLayout, theta: np.ndarra
     return full(result.x), convergence_warning(result)
 
 
-def _field_result(xy: np.ndarray, values: np.ndarray, field: SearchProblem, shared: CovarianceModel,
-                  mean_model: MeanModel, options: FitOptions, layout: ParameterLayout, fields: int,
+def _field_result(xy: np.ndarray, values: np.ndarray, covariates: np.ndarray | None, field: SearchProblem,
+                  shared: CovarianceModel, mean_model: MeanModel, method: str, layout: ParameterLayout, fields: int,
                   shared_messages: list[str]) -> FitResult:
     """One field's FitResult: the shared model at its scale, its GLS coefficients and log-likelihood.
 
@@ -245,7 +252,7 @@ def _field_result(xy: np.ndarray, values: np.ndarray, field: SearchProblem, shar
     and its bounds into the field's units (bound warnings then quote the field's numbers).
     """
     covariance = field.to_data_units(shared)
-    evaluation = evaluate_model(xy, values, covariance, mean_model, field.method, options.covariates)
+    evaluation = evaluate_model(xy, values, covariance, mean_model, field.method, covariates)
     messages = bound_warnings(layout, layout.pack(covariance), parameter_bounds(layout, field.data_scales))
     messages += shared_messages
     covariance = with_jitter_in_nugget(covariance, evaluation.jitter, messages)
@@ -253,5 +260,5 @@ def _field_result(xy: np.ndarray, values: np.ndarray, field: SearchProblem, shar
     likelihood = f"exact; one correlation model shared by {fields} fields (joint {field.method.upper()})"
     candidate = CandidateFit(layout.family, layout.anisotropy, evaluation.log_likelihood, aic, bic, covariance,
                              list(messages))
-    return FitResult(covariance, mean_model, evaluation.coefficients, options.method, evaluation.log_likelihood,
+    return FitResult(covariance, mean_model, evaluation.coefficients, method, evaluation.log_likelihood,
                      aic, bic, len(values), k, messages, likelihood, [candidate])

@@ -87,7 +87,9 @@ def _optimise(problem: SearchProblem, layout: ParameterLayout, start: np.ndarray
 
 
 def fit_vecchia(xy: np.ndarray, values: np.ndarray, options: FitOptions, *,
-                neighbours: int = DEFAULT_NEIGHBOURS, subset_size: int = SUBSET_SIZE) -> FitResult:
+                neighbours: int = DEFAULT_NEIGHBOURS, subset_size: int = SUBSET_SIZE,
+                covariates: np.ndarray | None = None, progress: Callable[[float], None] | None = None,
+                should_stop: Callable[[], bool] | None = None) -> FitResult:
     """Fit a covariance model to many samples with the Vecchia likelihood (see the module docstring).
 
     Parameters
@@ -100,6 +102,10 @@ def fit_vecchia(xy: np.ndarray, values: np.ndarray, options: FitOptions, *,
         Conditioning-set size ``m`` of the Vecchia likelihood.
     subset_size : int
         Samples of the exact fit that chooses the model (all if fewer).
+    covariates : ndarray of shape (n, k), optional
+        External-drift columns for the mean.
+    progress, should_stop : callable, optional
+        Progress fraction in [0, 1]; cancel request (raises ``Cancelled``).
 
     Returns
     -------
@@ -107,25 +113,24 @@ def fit_vecchia(xy: np.ndarray, values: np.ndarray, options: FitOptions, *,
         ``likelihood`` is ``"vecchia (m neighbours)"``; ``candidates`` holds
         the chosen model only.
     """
-    kernel, method, progress = options.kernel, options.method, options.progress
+    kernel, method = options.kernel, options.method
     check_fit_choices(kernel, method, options.nested, options.smoothness)
     if method == "wls":
         raise FieldcastError("The Vecchia fit maximises a likelihood; choose method 'reml' or 'ml'.")
     check_samples(xy, values)
     points = np.asarray(xy, dtype=float)
     observed = np.asarray(values, dtype=float)
-    mean_model = mean_model_for(options.mean, points, options.covariates, options.known_mean)
-    design = mean_model.design(points, options.covariates)
+    mean_model = mean_model_for(options.mean, points, covariates, options.known_mean)
+    design = mean_model.design(points, covariates)
     n = len(observed)
     subset = np.sort(np.random.default_rng(0).choice(n, min(subset_size, n), replace=False))
-    covariates = None if options.covariates is None else np.asarray(options.covariates)[subset]
-    rough = fit_exact(points[subset], observed[subset], replace(
-        options, mean=mean_model, covariates=covariates,
-        progress=None if progress is None else (lambda f: progress(0.5 * f))))
+    rough = fit_exact(points[subset], observed[subset], replace(options, mean=mean_model),
+                      covariates=None if covariates is None else np.asarray(covariates)[subset],
+                      progress=None if progress is None else (lambda f: progress(0.5 * f)), should_stop=should_stop)
     chosen = min(rough.candidates, key=lambda c: c.aic)
     layout = ParameterLayout(chosen.family, len(chosen.covariance.structures), chosen.anisotropy, options.smoothness)
     problem = SearchProblem.standardise(points, observed - mean_model.known_mean(n), design, method,
-                                        options.should_stop, options.max_iterations)
+                                        should_stop, options.max_iterations)
     start = layout.pack(problem.to_internal_units(chosen.covariance))
     theta, minus_two, basis_coefficients, stopped = _optimise(problem, layout, start, neighbours, progress)
     model = problem.to_data_units(layout.unpack(theta))

@@ -5,7 +5,7 @@ import numpy as np
 import pytest
 from scipy.stats import chi2
 
-from fieldcast.algorithms.errors import FieldcastError
+from fieldcast.algorithms.errors import Cancelled, FieldcastError
 from fieldcast.algorithms.fit import fitting
 from fieldcast.algorithms.fit.fitting import fit_model
 from fieldcast.algorithms.fit.likelihood import MeanBasis, log_likelihood
@@ -172,6 +172,22 @@ def test_a_vecchia_fit_stopped_by_the_iteration_limit_says_so():
     converged = fit_vecchia(xy, values, FitOptions(**settings), subset_size=200)
     assert not any("optimiser stopped" in w for w in converged.warnings)
     assert converged.log_likelihood > stopped.log_likelihood
+
+
+def test_a_vecchia_fit_reports_progress_and_stops_when_asked():
+    xy, values = simulated_samples(400, seed=3)
+    options = FitOptions(kernel="exponential", anisotropy=False, mean="constant")
+    seen: list[float] = []
+    fit_vecchia(xy, values, options, subset_size=200, progress=seen.append)
+    assert seen[-1] == 1.0 and all(b >= a for a, b in zip(seen, seen[1:])) and len(seen) > 3
+    calls = []
+
+    def stop_after_ten() -> bool:
+        calls.append(1)
+        return len(calls) > 10
+
+    with pytest.raises(Cancelled):
+        fit_vecchia(xy, values, options, subset_size=200, should_stop=stop_after_ten)
 
 
 def test_fit_model_hands_large_data_to_the_vecchia_fit(monkeypatch):

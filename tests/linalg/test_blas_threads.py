@@ -11,6 +11,8 @@ import threadpoolctl
 
 from fieldcast.algorithms.fit.fitting import fit_model
 from fieldcast.algorithms.linalg.blas_threads import _openblas_thread_controls, single_blas_thread
+from fieldcast.algorithms.model.covariance import CovarianceModel, Structure
+from reference import gaussian_field
 from requirements_check import skip_unless_available
 
 pytestmark = skip_unless_available(bool(_openblas_thread_controls()),
@@ -115,9 +117,7 @@ def test_two_fits_on_two_threads_restore_the_count(backend):
     def fit(seed: int):
         rng = np.random.default_rng(seed)
         xy = rng.uniform(0.0, 1000.0, (60, 2))
-        distance = np.hypot(*(xy[:, None, :] - xy[None, :, :]).transpose(2, 0, 1))
-        covariance = np.exp(-distance / 200.0) + 0.1 * np.eye(60)
-        values = 5.0 + np.linalg.cholesky(covariance) @ rng.normal(size=60)
+        values = gaussian_field(CovarianceModel((Structure("exponential", 1.0, 200.0),), 0.1), xy, rng, mean=5.0)
         start.wait()
         return fit_model(xy, values, kernel="exponential", anisotropy=False)
 

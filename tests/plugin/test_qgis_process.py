@@ -26,11 +26,11 @@ from qgis_process_support import (
     write_meuse_geopackage,
 )
 from qgis_support import fieldcast_plugin  # noqa: F401 - fixture: a QgsApplication to build the .model3 in
+from reference import calibrated_coverage_range, calibrated_msdr_range, load_meuse_grid
 from requirements_check import skip_unless_available
 
 pytestmark = skip_unless_available(QGIS_PROCESS is not None, "qgis_process.bin is not installed")
 
-DATA_DIR = Path(__file__).resolve().parents[1] / "data"
 FIT_SETTINGS = {"TRANSFORM": "log", "KERNEL": "spherical", "ANISOTROPY": False, "TREND": "constant",
                 "METHOD": "reml"}
 # Cell centres of the published 40 m Meuse grid (tests/data/meuse_grid.csv) run from x 178460 to 181540
@@ -91,9 +91,9 @@ def check_meuse_grid(path: Path) -> np.ndarray:
 
 def meuse_grid_cells() -> tuple[np.ndarray, np.ndarray]:
     """Row and column indices of the published 40 m Meuse grid cells in the rasters of :func:`predict`."""
-    cells = np.genfromtxt(DATA_DIR / "meuse_grid.csv", delimiter=",", names=True)
-    rows = np.round((333760.0 - cells["y"]) / MEUSE_CELL - 0.5).astype(int)
-    cols = np.round((cells["x"] - 178440.0) / MEUSE_CELL - 0.5).astype(int)
+    x, y = load_meuse_grid().xy.T
+    rows = np.round((333760.0 - y) / MEUSE_CELL - 0.5).astype(int)
+    cols = np.round((x - 178440.0) / MEUSE_CELL - 0.5).astype(int)
     return rows, cols
 
 
@@ -138,9 +138,12 @@ def test_fit_predict_crossvalidate_meuse_zinc(profile, meuse_layer, meuse, tmp_p
     # Leave-one-out RMSE for ln(zinc) on Meuse is about 0.4 with a fitted spherical model (from memory);
     # the bounds leave room for the fit and still catch a broken pipeline.
     assert 0.2 < summary["RMSE"] < 0.6
-    # A calibrated model has mean squared standardized residual near 1 and ~95 % coverage (common practice).
-    assert 0.5 < summary["MSDR"] < 2.0
-    assert 0.85 < summary["COVERAGE95"] <= 1.0
+    # A right model has MSDR and 95 % coverage inside their 99.9 % chi-square and binomial intervals for 155 errors
+    # (tests/reference.py: calibrated_msdr_range, calibrated_coverage_range).
+    low, high = calibrated_msdr_range(155)
+    assert low < summary["MSDR"] < high
+    low, high = calibrated_coverage_range(155)
+    assert low <= summary["COVERAGE95"] <= high
 
 
 def test_graphical_model_chains_fit_into_predict(profile, meuse_layer, tmp_path, fieldcast_plugin):  # noqa: F811

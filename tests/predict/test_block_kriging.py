@@ -14,9 +14,6 @@ from fieldcast.algorithms.predict.block import block_covariance, block_offsets, 
 from fieldcast.algorithms.predict.kriging import KrigingPredictor
 from reference import MEUSE_LOG_ZINC
 
-# The usual Meuse log-zinc model (tests/reference.py; from memory).
-MEUSE_MODEL = MEUSE_LOG_ZINC
-
 
 def test_simple_block_kriging_equals_scikit_learn_posterior_averages():
     # Reference: scikit-learn's GaussianProcessRegressor with a zero prior mean (simple kriging) gives the
@@ -46,7 +43,7 @@ def test_fine_discretisation_tends_to_the_average_of_point_predictions(meuse):
     # sub-grid approximates that integral (midpoint rule), and the block prediction converges to it as the
     # discretisation is refined. Meuse data (Rikken & Van Rijn 1993), ordinary kriging of log(zinc).
     xy = np.asarray(meuse.xy)
-    predictor = KrigingPredictor(xy, np.log(meuse.zinc), MEUSE_MODEL, MeanModel.for_data("constant", xy))
+    predictor = KrigingPredictor(xy, np.log(meuse.zinc), MEUSE_LOG_ZINC, MeanModel.for_data("constant", xy))
     centres = np.array([[179500.0, 331000.0], [180620.0, 332100.0], [181100.0, 333500.0]])
     pixel = 200.0
     fine = np.array([predictor.predict(c + block_offsets(pixel, 24))[0].mean() for c in centres])
@@ -65,7 +62,7 @@ def test_block_variance_is_below_point_variance_away_from_samples(meuse, meuse_g
     # at a cell centre a few metres from a sample, where the point prediction leans on that sample (one cell of
     # the Meuse grid has a sample 2 m from its centre).
     xy = np.asarray(meuse.xy)
-    predictor = KrigingPredictor(xy, np.log(meuse.zinc), MEUSE_MODEL, MeanModel.for_data("constant", xy))
+    predictor = KrigingPredictor(xy, np.log(meuse.zinc), MEUSE_LOG_ZINC, MeanModel.for_data("constant", xy))
     centres = np.asarray(meuse_grid.xy)
     _, point_variance = predictor.predict(centres)
     _, block_variance = block_predict(predictor, centres, 40.0)
@@ -73,7 +70,7 @@ def test_block_variance_is_below_point_variance_away_from_samples(meuse, meuse_g
     away = nearest > 5.0
     assert np.count_nonzero(~away) < 10
     assert np.all(block_variance[away] < point_variance[away])
-    assert block_covariance(MEUSE_MODEL, 40.0) < MEUSE_MODEL.field_variance
+    assert block_covariance(MEUSE_LOG_ZINC, 40.0) < MEUSE_LOG_ZINC.field_variance
 
 
 def test_one_point_per_block_is_point_kriging_with_a_trend(meuse):
@@ -81,7 +78,7 @@ def test_one_point_per_block_is_point_kriging_with_a_trend(meuse):
     # must reproduce universal (point) kriging exactly (the kriging equations of Cressie 1993, Statistics for
     # Spatial Data, section 3.4, as KrigingPredictor.predict solves them).
     xy = np.asarray(meuse.xy)
-    predictor = KrigingPredictor(xy, np.log(meuse.zinc), MEUSE_MODEL, MeanModel.for_data("linear", xy))
+    predictor = KrigingPredictor(xy, np.log(meuse.zinc), MEUSE_LOG_ZINC, MeanModel.for_data("linear", xy))
     centres = np.array([[179500.0, 331000.0], [180620.0, 332100.0], [181100.0, 333500.0], xy[7]])
     point_mean, point_variance = predictor.predict(centres)
     block_mean, block_variance = block_predict(predictor, centres, 40.0, points_per_side=1)
@@ -91,7 +88,7 @@ def test_one_point_per_block_is_point_kriging_with_a_trend(meuse):
 
 def test_bad_input_and_cancel(meuse):
     xy = np.asarray(meuse.xy)
-    predictor = KrigingPredictor(xy, np.log(meuse.zinc), MEUSE_MODEL, MeanModel.for_data("constant", xy))
+    predictor = KrigingPredictor(xy, np.log(meuse.zinc), MEUSE_LOG_ZINC, MeanModel.for_data("constant", xy))
     with pytest.raises(FieldcastError, match="points per side"):
         block_predict(predictor, xy[:2], 40.0, points_per_side=0)
     with pytest.raises(FieldcastError, match="must be an"):

@@ -18,6 +18,7 @@ from fieldcast.algorithms.predict.crossval import (
     random_folds,
 )
 from fieldcast.algorithms.predict.kriging import KrigingPredictor
+from reference import gaussian_field
 
 SUBSET = slice(0, 155, 3)  # 52 Meuse samples keep the brute-force refits quick
 
@@ -122,17 +123,21 @@ def test_standardized_errors_are_standard_normal_under_the_model(meuse):
     xy = meuse.xy[::3][:40]
     covariance = CovarianceModel((Structure("exponential", 1.0, 400.0),), 0.2)
     mean = MeanModel.for_data("constant", xy)
-    factor = np.linalg.cholesky(covariance.data_covariance(xy))
     rng = np.random.default_rng(2024)
     standardized = []
     for _ in range(300):
-        values = 3.0 + factor @ rng.standard_normal(len(xy))
+        values = gaussian_field(covariance, xy, rng, mean=3.0)
         standardized.append(leave_one_out(xy, values, covariance, mean).standardized)
-    pooled = np.concatenate(standardized)
-    # 12000 values: MSDR has sampling spread of roughly sqrt(2 / 12000) = 0.013 if independent
-    # (they are not quite, so the bounds are wider).
-    assert abs(np.mean(pooled**2) - 1.0) < 0.06
-    assert abs(np.mean(np.abs(pooled) <= NORMAL_95_QUANTILE) - 0.95) < 0.01
+    # Tolerance from theory: the errors of one field are correlated, but the 300 fields are independent, so each
+    # field's MSDR and coverage are i.i.d. draws and their means over fields are within 4 Monte Carlo standard
+    # errors, sd / sqrt(300), of 1 and 0.95 (central limit theorem; Koehler, Brown & Haneuse 2009, Am. Stat. 63,
+    # 155-162, on Monte Carlo error); 4 sd is a two-sided 99.994 % normal interval.
+    per_field = np.array(standardized)
+    msdr = np.mean(per_field**2, axis=1)
+    covered = np.mean(np.abs(per_field) <= NORMAL_95_QUANTILE, axis=1)
+    for statistic, expected in ((msdr, 1.0), (covered, 0.95)):
+        standard_error = statistic.std(ddof=1) / np.sqrt(len(statistic))
+        assert abs(statistic.mean() - expected) < 4 * standard_error, (statistic.mean(), standard_error)
 
 
 def test_cross_validation_refuses_bad_setups(data):

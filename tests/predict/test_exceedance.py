@@ -14,8 +14,6 @@ from fieldcast.algorithms.predict.kriging import KrigingPredictor
 from fieldcast.algorithms.simulate.simulation import simulate_conditional, summarise_realisations
 from reference import MEUSE_LOG_ZINC
 
-# The usual Meuse log-zinc model (tests/reference.py; from memory).
-MEUSE_MODEL = MEUSE_LOG_ZINC
 ZINC_THRESHOLD = 500.0  # ppm
 
 
@@ -69,9 +67,9 @@ def meuse_exceedance(meuse, meuse_grid):
     mask[row, column] = True
     distance = np.full(mask.shape, np.nan)
     distance[row, column] = meuse_grid.dist
-    mean, variance = KrigingPredictor(xy, values, MEUSE_MODEL, mean_model).predict(grid.cell_centres())
+    mean, variance = KrigingPredictor(xy, values, MEUSE_LOG_ZINC, mean_model).predict(grid.cell_centres())
     probability = exceedance_probability(mean, variance, ZINC_THRESHOLD, transform=Transform("log"))
-    result = simulate_conditional(xy, values, MEUSE_MODEL, mean_model, grid, n_realisations=400, seed=500,
+    result = simulate_conditional(xy, values, MEUSE_LOG_ZINC, mean_model, grid, n_realisations=400, seed=500,
                                   transform=Transform("log"))
     summary = summarise_realisations(result.realisations, grid.pixel_size ** 2, threshold=ZINC_THRESHOLD,
                                      mask=mask)

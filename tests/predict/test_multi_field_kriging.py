@@ -16,10 +16,6 @@ from fieldcast.algorithms.predict.kriging import KrigingPredictor
 from fieldcast.algorithms.predict.local import LocalKrigingPredictor
 from reference import MEUSE_LOG_ZINC
 
-# The usual Meuse log-zinc model (tests/reference.py; from memory). The identity holds for any model, so all four
-# metals share it here.
-SPHERICAL = MEUSE_LOG_ZINC
-
 # Search radius (m) that leaves some cells of the 40 m Meuse grid with too few samples for a linear trend.
 SHORT_RADIUS = 150.0
 
@@ -49,12 +45,13 @@ def case(request, meuse, meuse_grid):
     return mean_model(kind, meuse, drift), covariate, covariate0
 
 
+# Every metal uses the usual Meuse log-zinc model (tests/reference.py; from memory): the identity holds for any model.
 def global_predictor(meuse, values, mean, covariate):
-    return KrigingPredictor(meuse.xy, values, SPHERICAL, mean, covariate)
+    return KrigingPredictor(meuse.xy, values, MEUSE_LOG_ZINC, mean, covariate)
 
 
 def local_predictor(meuse, values, mean, covariate, search_radius=None):
-    return LocalKrigingPredictor(meuse.xy, values, SPHERICAL, mean, neighbours=16, search_radius=search_radius,
+    return LocalKrigingPredictor(meuse.xy, values, MEUSE_LOG_ZINC, mean, neighbours=16, search_radius=search_radius,
                                  covariates=covariate)
 
 
@@ -70,7 +67,7 @@ def assert_columns_match_single_fields(build, log_metals, xy0, covariate0):
         expected_mean, expected_variance = alone.predict(xy0, covariate0)
         assert expected_mean.shape == (len(xy0),)
         np.testing.assert_allclose(mean[:, column], expected_mean, rtol=0, atol=1e-10 * scale)
-        np.testing.assert_allclose(variance, expected_variance, rtol=0, atol=1e-10 * SPHERICAL.sill)
+        np.testing.assert_allclose(variance, expected_variance, rtol=0, atol=1e-10 * MEUSE_LOG_ZINC.sill)
         assert np.array_equal(np.isnan(mean[:, column]), np.isnan(expected_mean))
     return together, mean, variance
 
@@ -119,7 +116,7 @@ def test_local_leave_one_out_columns_equal_single_fields(meuse, log_metals):
         expected_mean, expected_variance = local_predictor(meuse, log_metals[:, column], mean, None).leave_one_out()
         np.testing.assert_allclose(predicted[:, column], expected_mean, rtol=0,
                                    atol=1e-10 * float(np.max(np.abs(log_metals))))
-        np.testing.assert_allclose(variance, expected_variance, rtol=0, atol=1e-10 * SPHERICAL.sill)
+        np.testing.assert_allclose(variance, expected_variance, rtol=0, atol=1e-10 * MEUSE_LOG_ZINC.sill)
 
 
 def test_one_column_matrix_gives_a_column_of_means(meuse, meuse_grid, log_metals):

@@ -11,8 +11,6 @@ from fieldcast.algorithms.predict.kriging import KrigingPredictor
 from fieldcast.algorithms.predict.local import ROW_HASH_SEED, LocalKrigingPredictor, distinct_rows
 from reference import MEUSE_LOG_ZINC
 
-# The usual Meuse log-zinc model (tests/reference.py; from memory).
-SPHERICAL = MEUSE_LOG_ZINC
 # Anisotropic variant rotated to the river's course.
 ANISOTROPIC = CovarianceModel((Structure("exponential", 0.6, 400.0, azimuth=40.0, ratio=0.5),), 0.05)
 # Nested structures with different anisotropies (the search frame follows the first one only).
@@ -31,7 +29,7 @@ def mean_model(kind, meuse, log_zinc, covariate=False):
 
 
 @pytest.mark.parametrize("kind", MEAN_KINDS)
-@pytest.mark.parametrize("model", [SPHERICAL, ANISOTROPIC, CROSSED], ids=["spherical", "anisotropic", "crossed"])
+@pytest.mark.parametrize("model", [MEUSE_LOG_ZINC, ANISOTROPIC, CROSSED], ids=["spherical", "anisotropic", "crossed"])
 def test_all_samples_as_neighbours_is_global_kriging(meuse, meuse_grid, log_zinc, kind, model):
     # Identity: with every sample in every neighbourhood the Lagrange system (Cressie 1993, Statistics for Spatial
     # Data, section 3.4) is the global universal-kriging system, whose solution KrigingPredictor computes in the
@@ -49,8 +47,8 @@ def test_external_drift_with_all_samples_is_global_kriging(meuse, meuse_grid, lo
     # Same identity with a covariate (square root of the distance to the river, published with the data).
     mean = mean_model("constant", meuse, log_zinc, covariate=True)
     covariate, covariate0 = np.sqrt(meuse.dist), np.sqrt(meuse_grid.dist)
-    expected = KrigingPredictor(meuse.xy, log_zinc, SPHERICAL, mean, covariate).predict(meuse_grid.xy, covariate0)
-    local = LocalKrigingPredictor(meuse.xy, log_zinc, SPHERICAL, mean, neighbours=155, covariates=covariate)
+    expected = KrigingPredictor(meuse.xy, log_zinc, MEUSE_LOG_ZINC, mean, covariate).predict(meuse_grid.xy, covariate0)
+    local = LocalKrigingPredictor(meuse.xy, log_zinc, MEUSE_LOG_ZINC, mean, neighbours=155, covariates=covariate)
     np.testing.assert_allclose(local.predict(meuse_grid.xy, covariate0), expected, rtol=0, atol=1e-9)
 
 
@@ -83,7 +81,7 @@ def test_neighbouring_cells_share_their_systems(meuse, log_zinc):
     # A fine lattice around one sample: most cells have the same 10 nearest samples, so most cells are solved
     # through the shared inverse; the results must equal those of solving every cell alone (chunks of one cell).
     mean = mean_model("linear", meuse, log_zinc)
-    local = LocalKrigingPredictor(meuse.xy, log_zinc, SPHERICAL, mean, neighbours=10)
+    local = LocalKrigingPredictor(meuse.xy, log_zinc, MEUSE_LOG_ZINC, mean, neighbours=10)
     side = np.linspace(-30.0, 30.0, 25)
     cells = meuse.xy[40] + np.stack(np.meshgrid(side, side), axis=-1).reshape(-1, 2)
     together = local.predict(cells)
@@ -92,7 +90,7 @@ def test_neighbouring_cells_share_their_systems(meuse, log_zinc):
 
 
 @pytest.mark.parametrize("kind", MEAN_KINDS)
-@pytest.mark.parametrize("model", [SPHERICAL, ANISOTROPIC], ids=["spherical", "anisotropic"])
+@pytest.mark.parametrize("model", [MEUSE_LOG_ZINC, ANISOTROPIC], ids=["spherical", "anisotropic"])
 def test_fewer_neighbours_never_shrink_the_variance(meuse, meuse_grid, log_zinc, kind, model):
     # The kriging predictor has the smallest error variance among unbiased linear predictors (Cressie 1993,
     # section 3.4; Goldberger 1962, JASA 57). The 8 nearest samples are a subset of the 64 nearest, which are a
@@ -124,11 +122,11 @@ def test_sixty_four_neighbours_match_global_simple_kriging(meuse, meuse_grid, lo
 
 def test_nugget_progress_and_cancel(meuse, meuse_grid, log_zinc):
     mean = mean_model("constant", meuse, log_zinc)
-    local = LocalKrigingPredictor(meuse.xy, log_zinc, SPHERICAL, mean, neighbours=16)
+    local = LocalKrigingPredictor(meuse.xy, log_zinc, MEUSE_LOG_ZINC, mean, neighbours=16)
     fractions = []
     _, latent = local.predict(meuse_grid.xy, chunk_size=1000, progress=fractions.append)
     _, measured = local.predict(meuse_grid.xy, include_nugget=True)
-    np.testing.assert_allclose(measured - latent, SPHERICAL.nugget, rtol=1e-12)
+    np.testing.assert_allclose(measured - latent, MEUSE_LOG_ZINC.nugget, rtol=1e-12)
     assert fractions[-1] == 1.0 and len(fractions) == 4
     with pytest.raises(Cancelled):
         local.predict(meuse_grid.xy, should_stop=lambda: True)
@@ -137,22 +135,22 @@ def test_nugget_progress_and_cancel(meuse, meuse_grid, log_zinc):
 def test_bad_settings_say_what_to_change(meuse, log_zinc):
     linear = mean_model("linear", meuse, log_zinc)
     with pytest.raises(FieldcastError, match="at least 4"):
-        LocalKrigingPredictor(meuse.xy, log_zinc, SPHERICAL, linear, neighbours=3)
+        LocalKrigingPredictor(meuse.xy, log_zinc, MEUSE_LOG_ZINC, linear, neighbours=3)
     with pytest.raises(FieldcastError, match="search radius must be a positive"):
-        LocalKrigingPredictor(meuse.xy, log_zinc, SPHERICAL, linear, search_radius=0.0)
+        LocalKrigingPredictor(meuse.xy, log_zinc, MEUSE_LOG_ZINC, linear, search_radius=0.0)
     with pytest.raises(FieldcastError, match="NaN"):
-        LocalKrigingPredictor(meuse.xy, np.where(np.arange(155) == 3, np.nan, log_zinc), SPHERICAL, linear)
+        LocalKrigingPredictor(meuse.xy, np.where(np.arange(155) == 3, np.nan, log_zinc), MEUSE_LOG_ZINC, linear)
 
 
 def test_clearly_negative_local_variance_is_refused_with_advice(meuse, meuse_grid, log_zinc, monkeypatch):
     # Constructed case: every neighbourhood solve reports a variance one sill below zero.
-    local = LocalKrigingPredictor(meuse.xy, log_zinc, SPHERICAL, mean_model("constant", meuse, log_zinc),
+    local = LocalKrigingPredictor(meuse.xy, log_zinc, MEUSE_LOG_ZINC, mean_model("constant", meuse, log_zinc),
                                   neighbours=16)
     solve = local._predict_group
 
     def below_zero(*args):
         mean, variance = solve(*args)
-        return mean, variance - SPHERICAL.sill
+        return mean, variance - MEUSE_LOG_ZINC.sill
 
     monkeypatch.setattr(local, "_predict_group", below_zero)
     with pytest.raises(FieldcastError, match="clearly negative.*neighbourhood system.*nugget"):

@@ -12,8 +12,6 @@ from fieldcast.algorithms.predict.local import LocalKrigingPredictor
 from fieldcast.algorithms.predict.neighbourhood_check import grid_targets, neighbourhood_gap
 from reference import MEUSE_LOG_ZINC
 
-# The usual Meuse log-zinc model (tests/reference.py; from memory).
-SPHERICAL = MEUSE_LOG_ZINC
 # A smooth, shorter-range model (Matérn 3/2, 300 m) under which the nearest samples screen the others.
 SMOOTH = CovarianceModel((Structure("matern32", 0.6, 300.0),), 0.05)
 
@@ -31,17 +29,18 @@ def gap_on_grid(meuse, meuse_grid, log_zinc, model, kind, neighbours):
 
 def test_every_sample_as_neighbour_has_no_gap(meuse, meuse_grid, log_zinc):
     # Identity: with all 155 samples in every neighbourhood local kriging is global kriging.
-    gap, _ = gap_on_grid(meuse, meuse_grid, log_zinc, SPHERICAL, "constant", 155)
+    gap, _ = gap_on_grid(meuse, meuse_grid, log_zinc, MEUSE_LOG_ZINC, "constant", 155)
     assert gap.targets == len(meuse_grid.xy)
     assert gap.prediction < 1e-9 and gap.variance < 1e-9
 
 
 def test_gap_is_the_largest_difference_at_the_targets(meuse, meuse_grid, log_zinc):
-    gap, local = gap_on_grid(meuse, meuse_grid, log_zinc, SPHERICAL, "constant", 32)
+    gap, local = gap_on_grid(meuse, meuse_grid, log_zinc, MEUSE_LOG_ZINC, "constant", 32)
     ours = local.predict(meuse_grid.xy)
-    theirs = KrigingPredictor(meuse.xy, log_zinc, SPHERICAL, local.mean).predict(meuse_grid.xy)
-    assert gap.prediction == pytest.approx(np.max(np.abs(ours[0] - theirs[0])) / np.sqrt(SPHERICAL.sill), rel=1e-12)
-    assert gap.variance == pytest.approx(np.max(np.abs(ours[1] - theirs[1])) / SPHERICAL.sill, rel=1e-12)
+    theirs = KrigingPredictor(meuse.xy, log_zinc, MEUSE_LOG_ZINC, local.mean).predict(meuse_grid.xy)
+    assert gap.prediction == pytest.approx(np.max(np.abs(ours[0] - theirs[0])) / np.sqrt(MEUSE_LOG_ZINC.sill),
+                                           rel=1e-12)
+    assert gap.variance == pytest.approx(np.max(np.abs(ours[1] - theirs[1])) / MEUSE_LOG_ZINC.sill, rel=1e-12)
 
 
 def test_meuse_with_sixty_four_neighbours(meuse, meuse_grid, log_zinc):
@@ -54,18 +53,18 @@ def test_meuse_with_sixty_four_neighbours(meuse, meuse_grid, log_zinc):
     # 64 nearest still carry weight, and local ordinary kriging re-estimates the mean in each neighbourhood, so
     # the 1 % bound fails at some cells. This is why the toolbox measures the gap on every local run rather than
     # promising a bound.
-    spherical, _ = gap_on_grid(meuse, meuse_grid, log_zinc, SPHERICAL, "constant", 64)
+    spherical, _ = gap_on_grid(meuse, meuse_grid, log_zinc, MEUSE_LOG_ZINC, "constant", 64)
     assert spherical.prediction > 0.01 and spherical.variance > 0.01
     # More neighbours close the gap (all 155: none, above).
-    wider, _ = gap_on_grid(meuse, meuse_grid, log_zinc, SPHERICAL, "constant", 128)
+    wider, _ = gap_on_grid(meuse, meuse_grid, log_zinc, MEUSE_LOG_ZINC, "constant", 128)
     assert wider.prediction < spherical.prediction and wider.variance < spherical.variance
 
 
 def test_several_fields_compare_the_first(meuse, meuse_grid, log_zinc):
     mean = MeanModel.for_data("constant", meuse.xy)
     both = np.column_stack([log_zinc, np.log(meuse.copper)])
-    local = LocalKrigingPredictor(meuse.xy, both, SPHERICAL, mean, neighbours=32)
-    single = LocalKrigingPredictor(meuse.xy, log_zinc, SPHERICAL, mean, neighbours=32)
+    local = LocalKrigingPredictor(meuse.xy, both, MEUSE_LOG_ZINC, mean, neighbours=32)
+    single = LocalKrigingPredictor(meuse.xy, log_zinc, MEUSE_LOG_ZINC, mean, neighbours=32)
     assert (neighbourhood_gap(local, meuse.xy, both, meuse_grid.xy)
             == neighbourhood_gap(single, meuse.xy, log_zinc, meuse_grid.xy))
 

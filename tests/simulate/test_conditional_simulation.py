@@ -16,9 +16,6 @@ from fieldcast.algorithms.simulate.conditioning import SampleDraw, choose_neighb
 from fieldcast.algorithms.simulate.simulation import simulate_conditional, simulation_lattice, summarise_realisations
 from reference import MEUSE_LOG_ZINC
 
-# The usual Meuse log-zinc model (tests/reference.py; from memory).
-MEUSE_MODEL = MEUSE_LOG_ZINC
-
 
 def meuse_grid_spec(pixel: float) -> GridSpec:
     # Extent of the Meuse samples; edges on multiples of the pixel, as the published 40 m grid has.
@@ -51,9 +48,9 @@ def meuse_log_zinc(meuse):
 
 def simulate_meuse(meuse_log_zinc, kind: str, pixel: float, count: int, seed: int,
                    **options) -> simulation.SimulationResult:
-    """Realisations of Meuse log(zinc) under MEUSE_MODEL with a ``kind`` mean on the samples' extent."""
+    """Realisations of Meuse log(zinc) under MEUSE_LOG_ZINC with a ``kind`` mean on the samples' extent."""
     xy, values = meuse_log_zinc
-    return simulate_conditional(xy, values, MEUSE_MODEL, MeanModel.for_data(kind, xy), meuse_grid_spec(pixel),
+    return simulate_conditional(xy, values, MEUSE_LOG_ZINC, MeanModel.for_data(kind, xy), meuse_grid_spec(pixel),
                                 n_realisations=count, seed=seed, **options)
 
 
@@ -64,11 +61,11 @@ def test_meuse_realisations_converge_to_ordinary_kriging(meuse_log_zinc):
     xy, values = meuse_log_zinc
     mean_model = MeanModel.for_data("constant", xy)
     grid = meuse_grid_spec(80.0)
-    result = simulate_conditional(xy, values, MEUSE_MODEL, mean_model, grid, n_realisations=600, seed=20)
+    result = simulate_conditional(xy, values, MEUSE_LOG_ZINC, mean_model, grid, n_realisations=600, seed=20)
     assert result.method == "circulant embedding" and result.warnings == []
     assert result.realisations.shape == (600, grid.n_rows, grid.n_cols)
-    mean, variance = KrigingPredictor(xy, values, MEUSE_MODEL, mean_model).predict(grid.cell_centres())
-    assert_converges_to_kriging(result.realisations, mean, variance, MEUSE_MODEL.field_variance)
+    mean, variance = KrigingPredictor(xy, values, MEUSE_LOG_ZINC, mean_model).predict(grid.cell_centres())
+    assert_converges_to_kriging(result.realisations, mean, variance, MEUSE_LOG_ZINC.field_variance)
 
 
 def test_anisotropic_universal_kriging_with_samples_off_the_grid():
@@ -100,9 +97,9 @@ def test_meuse_local_realisations_converge_to_local_kriging(meuse_log_zinc):
     xy, values = meuse_log_zinc
     mean_model = MeanModel.for_data("constant", xy)
     result = simulate_meuse(meuse_log_zinc, "constant", 80.0, 200, 31, neighbours=32)
-    mean, variance = LocalKrigingPredictor(xy, values, MEUSE_MODEL, mean_model,
+    mean, variance = LocalKrigingPredictor(xy, values, MEUSE_LOG_ZINC, mean_model,
                                            neighbours=32).predict(meuse_grid_spec(80.0).cell_centres())
-    assert_converges_to_kriging(result.realisations, mean, variance, MEUSE_MODEL.field_variance)
+    assert_converges_to_kriging(result.realisations, mean, variance, MEUSE_LOG_ZINC.field_variance)
 
 
 def test_cells_beyond_the_search_radius_are_nodata_and_left_out_of_summaries(meuse_log_zinc):
@@ -141,7 +138,7 @@ def test_sample_draw_reproduces_sample_to_node_covariance(meuse_log_zinc):
     grid = meuse_grid_spec(40.0)
     rows, cols = choose_neighbourhood(grid, xy)
     lattice, row_offset, col_offset = simulation_lattice(grid, rows, cols)
-    draw = SampleDraw(MEUSE_MODEL, lattice, xy, rows + row_offset, cols + col_offset)
+    draw = SampleDraw(MEUSE_LOG_ZINC, lattice, xy, rows + row_offset, cols + col_offset)
     assert draw.side == 4
     assert draw.largest_cross_covariance_error(window=10) < 0.01
 
@@ -161,7 +158,7 @@ def test_progress_and_cancel(meuse_log_zinc):
     grid = meuse_grid_spec(160.0)
     assert grid.n_cells <= 4096  # one block of kriging weights (the default chunk size)
     fractions = []
-    simulate_conditional(xy, values, MEUSE_MODEL, mean_model, grid, n_realisations=6, seed=1,
+    simulate_conditional(xy, values, MEUSE_LOG_ZINC, mean_model, grid, n_realisations=6, seed=1,
                          progress=fractions.append)
     # One report after each of the 6 realisations, then one for the single block: 7 steps in all.
     assert fractions == pytest.approx([step / 7 for step in range(1, 8)])
@@ -171,17 +168,17 @@ def test_progress_and_cancel(meuse_log_zinc):
         return len(reports) >= 3
 
     with pytest.raises(Cancelled):
-        simulate_conditional(xy, values, MEUSE_MODEL, mean_model, grid, n_realisations=6, seed=1,
+        simulate_conditional(xy, values, MEUSE_LOG_ZINC, mean_model, grid, n_realisations=6, seed=1,
                              progress=reports.append, should_stop=stop_after_three_realisations)
     # The cancel took effect between the third and the fourth realisation, inside a drawn pair.
     assert reports == pytest.approx([1 / 7, 2 / 7, 3 / 7])
     with pytest.raises(FieldcastError, match="number of realisations"):
-        simulate_conditional(xy, values, MEUSE_MODEL, mean_model, grid, n_realisations=0)
+        simulate_conditional(xy, values, MEUSE_LOG_ZINC, mean_model, grid, n_realisations=0)
     flat_model = CovarianceModel((Structure("spherical", 0.0, 900.0),), nugget=0.6)
     with pytest.raises(FieldcastError, match="no spatial structure"):
         simulate_conditional(xy, values, flat_model, mean_model, grid, n_realisations=2)
     with pytest.raises(FieldcastError, match="fewer realisations"):
-        simulate_conditional(xy, values, MEUSE_MODEL, mean_model, grid, n_realisations=10, max_bytes=1000.0)
+        simulate_conditional(xy, values, MEUSE_LOG_ZINC, mean_model, grid, n_realisations=10, max_bytes=1000.0)
 
 
 @pytest.mark.parametrize("rows_at_a_time", [64, 3])
