@@ -186,7 +186,7 @@ def test_files_left_by_a_killed_run_are_cleared_and_logged(qgis_processing, meus
     feedback = QgsProcessingFeedback()
     qgis_processing.run("fieldcast:predict", predict_parameters(meuse, meuse_grid, zinc_model, tmp_path),
                         feedback=feedback)
-    assert names(tmp_path) == ["exceedance.tif", "notes.part", "prediction.tif", "variance.tif"]
+    assert names(tmp_path) == ["distance.tif", "exceedance.tif", "notes.part", "prediction.tif", "variance.tif"]
     assert (f"Cleared in {tmp_path} the files an interrupted earlier run left behind: {left[0]} removed; "
             f"{left[1]} removed.") in feedback.textLog()
 
