@@ -1,11 +1,11 @@
 """Toolbox algorithm 'Fit covariance model' (fieldcast:fitmodel)."""
 from __future__ import annotations
 
-from collections.abc import Callable, Mapping
+from collections.abc import Mapping
 
-from qgis.core import QgsProcessingOutputNumber, QgsProcessingParameterFileDestination
+from qgis.core import QgsProcessingFeedback, QgsProcessingOutputNumber, QgsProcessingParameterFileDestination
 
-from ..algorithms import FitResult, ModelDocument, candidate_rmse, parse_crs, residual_semivariograms
+from ..algorithms import FieldcastError, FitResult, ModelDocument, candidate_rmse, parse_crs, residual_semivariograms
 from .algorithm_base import FieldcastAlgorithm, progress_callback
 from .help_text import FIT_HELP, TARGET_CRS_HELP, compose_help
 from .model_source import fit_document
@@ -28,24 +28,29 @@ leave-one-out runs of the candidate models fill the rest."""
 
 
 def fit_report_arguments(samples: ModelSamples, skipped: Mapping[str, int], result: FitResult,
-                         document: ModelDocument, progress: Callable[[float], None],
-                         should_stop: Callable[[], bool]) -> dict:
+                         document: ModelDocument, feedback: QgsProcessingFeedback) -> dict:
     """Everything :func:`.report.fit_report.write_fit_report` takes besides the path.
 
     The semivariograms (omnidirectional, and at 0, 45, 90 and 135 degrees) are of the residuals
     ``values - F beta`` from the fitted mean, in the modelling scale. Each candidate model is
-    cross-validated by leave-one-out with the fitted mean kind, for its RMSE (modelling units);
-    ``should_stop`` is asked before each candidate.
+    cross-validated by leave-one-out with the fitted mean kind, for its RMSE (modelling units), with
+    progress from :data:`FIT_PERCENT_WITH_REPORT` to 99 %; a cancel is asked before each candidate.
+    Too few samples for leave-one-out leave the RMSE column empty, with a warning.
 
     Raises
     ------
     Cancelled
-        When ``should_stop()`` turns True.
+        When the user cancels.
     """
     residuals = samples.values - result.mean.design(samples.xy) @ result.coefficients
     variograms = residual_semivariograms(samples.xy, residuals)
-    loo_rmse = candidate_rmse(samples.xy, samples.values, [candidate.covariance for candidate in result.candidates],
-                              result.mean, progress=progress, should_stop=should_stop)
+    try:
+        loo_rmse = candidate_rmse(samples.xy, samples.values, [c.covariance for c in result.candidates],
+                                  result.mean, progress=progress_callback(feedback, FIT_PERCENT_WITH_REPORT, 99.0),
+                                  should_stop=feedback.isCanceled)
+    except FieldcastError as error:  # too few samples for leave-one-out: the report shows dashes
+        feedback.pushWarning(f"The report shows no leave-one-out RMSE: {error}")
+        loo_rmse = None
     return dict(samples=samples.engine_samples(), fit=result, model=document, variograms=variograms,
                 crs_name=parse_crs(document.crs_wkt).name, skipped=skipped, candidate_loo_rmse=loo_rmse)
 
@@ -104,8 +109,7 @@ class FitModelAlgorithm(FieldcastAlgorithm):
         report = None
         if report_path:
             feedback.pushInfo(f"Leave-one-out of the {len(result.candidates)} candidate model(s) for the report.")
-            report = fit_report_arguments(samples, layer_samples.skipped, result, document,
-                                          progress_callback(feedback, fit_percent, 99.0), feedback.isCanceled)
+            report = fit_report_arguments(samples, layer_samples.skipped, result, document, feedback)
         path = self.parameterAsFileOutput(parameters, self.OUTPUT_MODEL, context)
         document.save(path)
         outputs = {self.OUTPUT_MODEL: path}

@@ -14,6 +14,7 @@ from ..io.samples import check_samples
 from ..model.mean import MeanModel
 from ..model.parameters import ParameterLayout, parameter_bounds
 from .bound_warnings import bound_warnings
+from .data_warnings import data_warnings
 from .likelihood import evaluate_model, jitter_message
 from .options import (
     AUTO_FAMILIES,
@@ -87,7 +88,7 @@ def fit_exact(xy: np.ndarray, values: np.ndarray, options: FitOptions) -> FitRes
                   for fit in fit_family(problem, family, smoothness, settings, nested, steps)]
     chosen, layout = min(scored, key=lambda pair: pair[0].aic)
     evaluation = evaluate_model(xy, values, chosen.covariance, mean_model, problem.method, covariates)
-    messages = list(chosen.warnings)
+    messages = data_warnings(xy, chosen.covariance) + list(chosen.warnings)
     covariance = with_jitter_in_nugget(chosen.covariance, evaluation.jitter, messages)
     _, _, k = information_criteria(problem, chosen.log_likelihood, layout)
     if progress is not None:
