@@ -50,6 +50,7 @@ _PUBLIC = {
     "fit_model": "fit.fitting",
     "fit_with": "fit.fitting",
     "fit_shared": "fit.shared",
+    "fit_log_lines": "fit.fit_log",
     "fit_vecchia": "fit.vecchia_fit",
     "log_likelihood": "fit.likelihood",
     "EmpiricalVariogram": "fit.variogram",

@@ -3,9 +3,22 @@ from __future__ import annotations
 
 from collections.abc import Mapping
 
-from qgis.core import QgsProcessingFeedback, QgsProcessingOutputNumber, QgsProcessingParameterFileDestination
+from qgis.core import (
+    QgsProcessingFeedback,
+    QgsProcessingOutputNumber,
+    QgsProcessingOutputString,
+    QgsProcessingParameterFileDestination,
+)
 
-from ..algorithms import FieldcastError, FitResult, ModelDocument, candidate_rmse, parse_crs, residual_semivariograms
+from ..algorithms import (
+    FieldcastError,
+    FitResult,
+    ModelDocument,
+    candidate_rmse,
+    fit_log_lines,
+    parse_crs,
+    residual_semivariograms,
+)
 from .algorithm_base import FieldcastAlgorithm, progress_callback
 from .help_text import FIT_HELP, TARGET_CRS_HELP, compose_help
 from .model_source import fit_document
@@ -15,6 +28,7 @@ from .sample_reader import ModelSamples, prepare_samples
 NUMBER_OUTPUTS = (
     ("PARTIAL_SILL", "Partial sill (modelling units squared)"),
     ("RANGE", "Range along the major axis (working CRS units)"),
+    ("EFFECTIVE_RANGE", "Effective range along the major axis, where correlation falls to 0.05 (working CRS units)"),
     ("NUGGET", "Nugget (modelling units squared)"),
     ("AZIMUTH", "Azimuth of the major axis (degrees clockwise from north)"),
     ("RATIO", "Anisotropy ratio (minor / major range)"),
@@ -73,15 +87,17 @@ class FitModelAlgorithm(FieldcastAlgorithm):
          *FIT_HELP,
          TARGET_CRS_HELP],
         [("Model file", "JSON file with the fitted model, its CRS, transform and fit statistics."),
+         ("Log", "The chosen model in words (family, anisotropy, effective range), every candidate with its AIC "
+          "and ΔAIC (the difference from the lowest AIC), and the fit warnings."),
          ("Fit report", "HTML page (a temporary file unless you name one or skip it): the samples "
           "used and left out, their histogram and map, the empirical semivariogram of the residuals from the mean "
           "in all directions and in four, with the fitted model drawn over it, every candidate model with its AIC "
           "and leave-one-out RMSE and the chosen one marked, the parameters in words, and the fit warnings. Read "
           "it before trusting a map made with this model. The model file and the report are written only when "
           "all the computing is done: cancelling leaves neither."),
-         ("Numbers", "Partial sill, range (working CRS units, e.g. metres), nugget, azimuth (degrees), ratio "
-          "of the first structure, log-likelihood and AIC, in the modelling scale (after the transform). "
-          "Fit warnings appear in the log.")],
+         ("Numbers", "Family, partial sill, range and effective range (working CRS units, e.g. metres), nugget, "
+          "azimuth (degrees), ratio of the first structure, log-likelihood and AIC, in the modelling scale "
+          "(after the transform). Fit warnings appear in the log.")],
     )
 
     def initAlgorithm(self, config=None):
@@ -93,6 +109,7 @@ class FitModelAlgorithm(FieldcastAlgorithm):
         self.add_report_parameter(self.tr("Fit report"))
         for name, description in NUMBER_OUTPUTS:
             self.addOutput(QgsProcessingOutputNumber(name, self.tr(description)))
+        self.addOutput(QgsProcessingOutputString("FAMILY", self.tr("Covariance family of the first structure")))
 
     def compute(self, parameters, context, feedback) -> dict:
         transform, settings = self.fit_choices(parameters, context)
@@ -104,6 +121,8 @@ class FitModelAlgorithm(FieldcastAlgorithm):
         document, result = fit_document(samples.xy, samples.values, transform, layer_samples.working,
                                         layer_samples.field, settings, progress_callback(feedback, 0.0, fit_percent),
                                         feedback.isCanceled)
+        for line in fit_log_lines(result, document.units):
+            feedback.pushInfo(line)
         for warning in document.fit.get("warnings", []):
             feedback.pushWarning(warning)
         report = None
@@ -122,6 +141,8 @@ class FitModelAlgorithm(FieldcastAlgorithm):
             **outputs,
             "PARTIAL_SILL": first.partial_sill,
             "RANGE": first.range,
+            "EFFECTIVE_RANGE": first.effective_range,
+            "FAMILY": first.family,
             "NUGGET": document.covariance.nugget,
             "AZIMUTH": first.azimuth,
             "RATIO": first.ratio,
