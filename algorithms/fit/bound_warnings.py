@@ -94,7 +94,7 @@ def _message(layout: ParameterLayout, name: str, upper: bool, value: float, azim
 
 
 def bound_warnings(layout: ParameterLayout, theta: np.ndarray, bounds: list) -> list[str]:
-    """Warnings for every entry of ``theta`` within :data:`BOUND_TOLERANCE` of its bound.
+    """Warnings for every entry of ``theta`` within :data:`BOUND_TOLERANCE` of its bound or beyond it.
 
     Parameters
     ----------
@@ -108,6 +108,9 @@ def bound_warnings(layout: ParameterLayout, theta: np.ndarray, bounds: list) -> 
     messages = []
     for name, value, (low, high) in zip(layout.names, theta, bounds):
         for limit, upper in ((low, False), (high, True)):
-            if limit is not None and abs(value - limit) <= BOUND_TOLERANCE:
+            if limit is None:
+                continue
+            beyond = value - limit if upper else limit - value  # >= 0 past the bound (fits not bounded by it)
+            if beyond >= -BOUND_TOLERANCE:
                 messages.append(_message(layout, name, upper, math.exp(value), azimuth))
     return messages
