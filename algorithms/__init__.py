@@ -93,6 +93,7 @@ _PUBLIC = {
     "simulate_conditional": "simulate.simulation",
     "summarise_realisations": "simulate.simulation",
     # io
+    "area_words": "io.area_words",
     "Samples": "io.samples",
     "check_samples": "io.samples",
     "merge_coincident": "io.samples",

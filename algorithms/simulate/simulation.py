@@ -69,10 +69,12 @@ class SimulationResult:
     seed : int or None
         Seed of the random generator.
     warnings : list of str
-        Enlarged paddings, fall-backs and approximations, in plain words.
+        Fall-backs and approximations, in plain words.
     unresolved : int
         Cells left as NaN in every realisation (local conditioning: too few
         neighbours within the search radius, or a singular local system).
+    notes : list of str
+        Enlarged paddings of an embedding that ended exact: information for the log.
     """
 
     realisations: np.ndarray
@@ -83,6 +85,7 @@ class SimulationResult:
     seed: int | None
     warnings: list[str] = field(default_factory=list)
     unresolved: int = 0
+    notes: list[str] = field(default_factory=list)
 
 
 def simulation_lattice(grid: GridSpec, rows: np.ndarray, cols: np.ndarray) -> tuple[GridSpec, int, int]:
@@ -213,7 +216,7 @@ def simulate_conditional(xy: np.ndarray, values: np.ndarray, covariance: Covaria
                         "smooth model); a jitter of at most 1e-6 of the field variance was added to draw the "
                         "unconditional values at the samples.")
     return SimulationResult(realisations, grid, generator.method, generator.padded_shape, sampler.side, seed,
-                            warnings, unresolved)
+                            warnings, unresolved, list(generator.notes))
 
 
 class _Steps:
