@@ -39,8 +39,8 @@ def _message(layout: ParameterLayout, name: str, upper: bool, value: float, azim
             return (
                 f"The range{which} hit its upper bound ({value:.4g} coordinate units, {RANGE_UPPER_FACTOR:g} times "
                 "the largest distance between samples): the data show no clear sill within the study area, and the "
-                "fit is close to a linear variogram, so range and sill are poorly determined. Try a trend (mean "
-                "'linear' or 'quadratic') or covariates that explain the large-scale change."
+                "fit is close to a linear variogram, so range and sill are poorly determined. Try a trend (TREND "
+                "'linear' or 'quadratic') that takes up the large-scale change."
             )
         return (
             f"The range{which} hit its lower bound ({value:.4g} coordinate units, {RANGE_LOWER_FRACTION:g} of the "
@@ -51,8 +51,8 @@ def _message(layout: ParameterLayout, name: str, upper: bool, value: float, azim
         if upper:
             return (
                 f"The partial sill{which} hit its upper bound ({value:.4g}, {PARTIAL_SILL_BOUNDS[1]:g} times the "
-                "sample variance): the variance keeps growing with distance (no sill). Try a trend (mean "
-                "'linear' or 'quadratic') or covariates."
+                "sample variance): the variance keeps growing with distance (no sill). Try a trend (TREND "
+                "'linear' or 'quadratic')."
             )
         return (
             f"The partial sill{which} hit its lower bound ({value:.4g}): the structure adds almost no variance, "
@@ -63,8 +63,8 @@ def _message(layout: ParameterLayout, name: str, upper: bool, value: float, azim
         if upper:
             return (
                 f"The nugget hit its upper bound ({value:.4g}, {NUGGET_BOUNDS[1]:g} times the sample variance): the "
-                "model finds no spatial correlation. Check the values for outliers or a wrong field, or try "
-                "another family."
+                "model finds no spatial correlation. Check the values for outliers or a wrong FIELD, or try "
+                "another KERNEL."
             )
         return (
             f"The nugget hit its lower bound ({value:.4g}, essentially zero): the model treats the measurements "
@@ -80,16 +80,16 @@ def _message(layout: ParameterLayout, name: str, upper: bool, value: float, azim
         return (
             f"The anisotropy ratio hit its lower bound ({value:.3g}) with the major axis at azimuth {azimuth:.0f} "
             "degrees: values change far faster across that direction than along it, which usually means a "
-            "trend. Try a linear mean, or anisotropy off."
+            "trend. Try TREND 'linear', or ANISOTROPY off."
         )
     if upper:
         return (
             f"The Matérn smoothness hit its upper bound ({value:.3g}): the field is very smooth, and the gaussian "
-            "family is the limit of this case. Try the gaussian family, or a fixed smoothness."
+            "family is the limit of this case. Try KERNEL 'gaussian' (or 'matern52')."
         )
     return (
         f"The Matérn smoothness hit its lower bound ({value:.3g}): the field is rougher than the exponential "
-        "family (smoothness 0.5). Check the values for outliers, or try the exponential family."
+        "family (smoothness 0.5). Check the values for outliers, or try KERNEL 'exponential'."
     )
 
 

@@ -233,7 +233,8 @@ def fit_semivariogram_model(
     if len(lags.gamma) < n_parameters + 1:
         raise FieldcastError(
             f"Only {len(lags.gamma)} distance lags contain sample pairs, too few to fit {n_parameters} "
-            "parameters by least squares. Use more lags, a larger cutoff, or turn anisotropy off."
+            "parameters by least squares. Turn ANISOTROPY off, fit with METHOD 'reml' (a likelihood fit needs "
+            "no lags), or add samples."
         )
     if not np.max(lags.gamma) > 0:
         raise FieldcastError("Every lag has zero semivariance: the values do not vary, so there is nothing to fit.")

@@ -333,7 +333,8 @@ def summarise_realisations(realisations: np.ndarray, cell_area: float, *, thresh
             per_realisation[1] += above[:, block_mask].sum(axis=1)
     if n_inside == 0:
         raise FieldcastError("Every cell of the mask is nodata in the realisations (no neighbours within the search "
-                             "radius); use a larger search radius, or a mask or extent near the samples.")
+                             "radius); enlarge SEARCH_RADIUS (or leave it empty), or choose a MASK or EXTENT near "
+                             "the samples.")
     cell_area = float(cell_area)
     share_above, area_above = (None, None) if threshold is None else (per_cell[4], per_realisation[1] * cell_area)
     return RealisationSummary(per_cell[0], per_cell[1], per_cell[2], per_cell[3], share_above, area_above,
