@@ -50,6 +50,7 @@ _PUBLIC = {
     "fit_model": "fit.fitting",
     "fit_with": "fit.fitting",
     "fit_shared": "fit.shared",
+    "fit_log_lines": "fit.fit_log",
     "fit_vecchia": "fit.vecchia_fit",
     "range_warning": "fit.range_check",
     "log_likelihood": "fit.likelihood",
@@ -95,6 +96,7 @@ _PUBLIC = {
     "simulate_conditional": "simulate.simulation",
     "summarise_realisations": "simulate.simulation",
     # io
+    "area_words": "io.area_words",
     "Samples": "io.samples",
     "check_samples": "io.samples",
     "merge_coincident": "io.samples",

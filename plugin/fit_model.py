@@ -1,14 +1,21 @@
 """Toolbox algorithm 'Fit covariance model' (fieldcast:fitmodel)."""
 from __future__ import annotations
 
-from collections.abc import Callable, Mapping
+from collections.abc import Mapping
 
-from qgis.core import QgsProcessingOutputNumber, QgsProcessingParameterFileDestination
+from qgis.core import (
+    QgsProcessingFeedback,
+    QgsProcessingOutputNumber,
+    QgsProcessingOutputString,
+    QgsProcessingParameterFileDestination,
+)
 
 from ..algorithms import (
+    FieldcastError,
     FitResult,
     ModelDocument,
     candidate_rmse,
+    fit_log_lines,
     parse_crs,
     range_warning,
     residual_semivariograms,
@@ -22,6 +29,7 @@ from .sample_reader import ModelSamples, prepare_samples
 NUMBER_OUTPUTS = (
     ("PARTIAL_SILL", "Partial sill (modelling units squared)"),
     ("RANGE", "Range along the major axis (working CRS units)"),
+    ("EFFECTIVE_RANGE", "Effective range along the major axis, where correlation falls to 0.05 (working CRS units)"),
     ("NUGGET", "Nugget (modelling units squared)"),
     ("AZIMUTH", "Azimuth of the major axis (degrees clockwise from north)"),
     ("RATIO", "Anisotropy ratio (minor / major range)"),
@@ -35,24 +43,29 @@ leave-one-out runs of the candidate models fill the rest."""
 
 
 def fit_report_arguments(samples: ModelSamples, skipped: Mapping[str, int], result: FitResult,
-                         document: ModelDocument, progress: Callable[[float], None],
-                         should_stop: Callable[[], bool]) -> dict:
+                         document: ModelDocument, feedback: QgsProcessingFeedback) -> dict:
     """Everything :func:`.report.fit_report.write_fit_report` takes besides the path.
 
     The semivariograms (omnidirectional, and at 0, 45, 90 and 135 degrees) are of the residuals
     ``values - F beta`` from the fitted mean, in the modelling scale. Each candidate model is
-    cross-validated by leave-one-out with the fitted mean kind, for its RMSE (modelling units);
-    ``should_stop`` is asked before each candidate.
+    cross-validated by leave-one-out with the fitted mean kind, for its RMSE (modelling units), with
+    progress from :data:`FIT_PERCENT_WITH_REPORT` to 99 %; a cancel is asked before each candidate.
+    Too few samples for leave-one-out leave the RMSE column empty, with a warning.
 
     Raises
     ------
     Cancelled
-        When ``should_stop()`` turns True.
+        When the user cancels.
     """
     residuals = samples.values - result.mean.design(samples.xy) @ result.coefficients
     variograms = residual_semivariograms(samples.xy, residuals)
-    loo_rmse = candidate_rmse(samples.xy, samples.values, [candidate.covariance for candidate in result.candidates],
-                              result.mean, progress=progress, should_stop=should_stop)
+    try:
+        loo_rmse = candidate_rmse(samples.xy, samples.values, [c.covariance for c in result.candidates],
+                                  result.mean, progress=progress_callback(feedback, FIT_PERCENT_WITH_REPORT, 99.0),
+                                  should_stop=feedback.isCanceled)
+    except FieldcastError as error:  # too few samples for leave-one-out: the report shows dashes
+        feedback.pushWarning(f"The report shows no leave-one-out RMSE: {error}")
+        loo_rmse = None
     return dict(samples=samples.engine_samples(), fit=result, model=document, variograms=variograms,
                 crs_name=parse_crs(document.crs_wkt).name, skipped=skipped, candidate_loo_rmse=loo_rmse)
 
@@ -75,15 +88,17 @@ class FitModelAlgorithm(FieldcastAlgorithm):
          *FIT_HELP,
          TARGET_CRS_HELP],
         [("Model file", "JSON file with the fitted model, its CRS, transform and fit statistics."),
+         ("Log", "The chosen model in words (family, anisotropy, effective range), every candidate with its AIC "
+          "and ΔAIC (the difference from the lowest AIC), and the fit warnings."),
          ("Fit report", "HTML page (a temporary file unless you name one or skip it): the samples "
           "used and left out, their histogram and map, the empirical semivariogram of the residuals from the mean "
           "in all directions and in four, with the fitted model drawn over it, every candidate model with its AIC "
           "and leave-one-out RMSE and the chosen one marked, the parameters in words, and the fit warnings. Read "
           "it before trusting a map made with this model. The model file and the report are written only when "
           "all the computing is done: cancelling leaves neither."),
-         ("Numbers", "Partial sill, range (working CRS units, e.g. metres), nugget, azimuth (degrees), ratio "
-          "of the first structure, log-likelihood and AIC, in the modelling scale (after the transform). "
-          "Fit warnings appear in the log.")],
+         ("Numbers", "Family, partial sill, range and effective range (working CRS units, e.g. metres), nugget, "
+          "azimuth (degrees), ratio of the first structure, log-likelihood and AIC, in the modelling scale "
+          "(after the transform). Fit warnings appear in the log.")],
     )
 
     def initAlgorithm(self, config=None):
@@ -95,6 +110,7 @@ class FitModelAlgorithm(FieldcastAlgorithm):
         self.add_report_parameter(self.tr("Fit report"))
         for name, description in NUMBER_OUTPUTS:
             self.addOutput(QgsProcessingOutputNumber(name, self.tr(description)))
+        self.addOutput(QgsProcessingOutputString("FAMILY", self.tr("Covariance family of the first structure")))
 
     def compute(self, parameters, context, feedback) -> dict:
         transform, settings = self.fit_choices(parameters, context)
@@ -106,6 +122,8 @@ class FitModelAlgorithm(FieldcastAlgorithm):
         document, result = fit_document(samples.xy, samples.values, transform, layer_samples.working,
                                         layer_samples.field, settings, progress_callback(feedback, 0.0, fit_percent),
                                         feedback.isCanceled)
+        for line in fit_log_lines(result, document.units):
+            feedback.pushInfo(line)
         for warning in document.fit.get("warnings", []):
             feedback.pushWarning(warning)
         long_range = range_warning(samples.xy, samples.values, result, document.units)
@@ -114,8 +132,7 @@ class FitModelAlgorithm(FieldcastAlgorithm):
         report = None
         if report_path:
             feedback.pushInfo(f"Leave-one-out of the {len(result.candidates)} candidate model(s) for the report.")
-            report = fit_report_arguments(samples, layer_samples.skipped, result, document,
-                                          progress_callback(feedback, fit_percent, 99.0), feedback.isCanceled)
+            report = fit_report_arguments(samples, layer_samples.skipped, result, document, feedback)
         path = self.parameterAsFileOutput(parameters, self.OUTPUT_MODEL, context)
         document.save(path)
         outputs = {self.OUTPUT_MODEL: path}
@@ -128,6 +145,8 @@ class FitModelAlgorithm(FieldcastAlgorithm):
             **outputs,
             "PARTIAL_SILL": first.partial_sill,
             "RANGE": first.range,
+            "EFFECTIVE_RANGE": first.effective_range,
+            "FAMILY": first.family,
             "NUGGET": document.covariance.nugget,
             "AZIMUTH": first.azimuth,
             "RATIO": first.ratio,

@@ -25,6 +25,7 @@ from ..algorithms import (
     NodataCounts,
     RealisationSummary,
     SimulationResult,
+    area_words,
     search_words,
     simulate_conditional,
     summarise_realisations,
@@ -199,9 +200,9 @@ class SimulateAlgorithm(RasterAlgorithm):
             areas = np.percentile(summary.area_above, [percent for _, _, percent in AREA_OUTPUTS])
             outputs.update({name: float(area) for (name, _, _), area in zip(AREA_OUTPUTS, areas)})
             feedback.pushInfo(
-                f"Area of the masked cells above {threshold:g}: P10 {areas[0]:.6g}, P50 {areas[1]:.6g}, "
-                f"P90 {areas[2]:.6g} square {document.units}s, of {summary.mask_area:.6g} in all, over {count} "
-                "realisations.")
+                f"Area of the masked cells above {threshold:g}: P10 {area_words(areas[0], document.units)}, P50 "
+                f"{area_words(areas[1], document.units)}, P90 {area_words(areas[2], document.units)}, of "
+                f"{area_words(summary.mask_area, document.units)} in all, over {count} realisations.")
         feedback.setProgress(100.0)
         return outputs
 
@@ -216,11 +217,13 @@ class SimulateAlgorithm(RasterAlgorithm):
 
     @staticmethod
     def log_method(result: SimulationResult, feedback) -> None:
-        """Say how the fields were drawn, and pass the engine's warnings on."""
+        """Say how the fields were drawn, and pass the engine's notes (as information) and warnings on."""
         padded = "" if result.padded_shape is None else \
             f" on a {result.padded_shape[0]} x {result.padded_shape[1]} torus"
         feedback.pushInfo(f"Unconditional fields by {result.method}{padded}; samples drawn from their "
                           f"{result.neighbourhood_side} x {result.neighbourhood_side} nearest lattice nodes.")
+        for note in result.notes:
+            feedback.pushInfo(note)
         for warning in result.warnings:
             feedback.pushWarning(warning)
 

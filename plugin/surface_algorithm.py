@@ -149,7 +149,9 @@ class SurfaceAlgorithm(RasterAlgorithm):
         predictor, lines = choose_predictor(xy, values, document.covariance, document.mean, neighbourhood,
                                             support=scale.support, units=document.units)
         push_log(feedback, lines)
-        settings = {"fieldcast_backtransform": scale.backtransform, "fieldcast_support": scale.support}
+        settings = {"fieldcast_support": scale.support}
+        if document.transform.kind != "none":  # a back-transform applies to a transformed model only
+            settings["fieldcast_backtransform"] = scale.backtransform
         if isinstance(predictor, LocalKrigingPredictor):
             settings["fieldcast_neighbours"] = predictor.neighbours
             if neighbourhood.search_radius is not None:

@@ -39,8 +39,8 @@ def _message(layout: ParameterLayout, name: str, upper: bool, value: float, azim
             return (
                 f"The range{which} hit its upper bound ({value:.4g} coordinate units, {RANGE_UPPER_FACTOR:g} times "
                 "the largest distance between samples): the data show no clear sill within the study area, and the "
-                "fit is close to a linear variogram, so range and sill are poorly determined. Try a trend (mean "
-                "'linear' or 'quadratic') or covariates that explain the large-scale change."
+                "fit is close to a linear variogram, so range and sill are poorly determined. Try a trend (TREND "
+                "'linear' or 'quadratic') that takes up the large-scale change."
             )
         return (
             f"The range{which} hit its lower bound ({value:.4g} coordinate units, {RANGE_LOWER_FRACTION:g} of the "
@@ -51,8 +51,8 @@ def _message(layout: ParameterLayout, name: str, upper: bool, value: float, azim
         if upper:
             return (
                 f"The partial sill{which} hit its upper bound ({value:.4g}, {PARTIAL_SILL_BOUNDS[1]:g} times the "
-                "sample variance): the variance keeps growing with distance (no sill). Try a trend (mean "
-                "'linear' or 'quadratic') or covariates."
+                "sample variance): the variance keeps growing with distance (no sill). Try a trend (TREND "
+                "'linear' or 'quadratic')."
             )
         return (
             f"The partial sill{which} hit its lower bound ({value:.4g}): the structure adds almost no variance, "
@@ -63,8 +63,8 @@ def _message(layout: ParameterLayout, name: str, upper: bool, value: float, azim
         if upper:
             return (
                 f"The nugget hit its upper bound ({value:.4g}, {NUGGET_BOUNDS[1]:g} times the sample variance): the "
-                "model finds no spatial correlation. Check the values for outliers or a wrong field, or try "
-                "another family."
+                "model finds no spatial correlation. Check the values for outliers or a wrong FIELD, or try "
+                "another KERNEL."
             )
         return (
             f"The nugget hit its lower bound ({value:.4g}, essentially zero): the model treats the measurements "
@@ -80,21 +80,21 @@ def _message(layout: ParameterLayout, name: str, upper: bool, value: float, azim
         return (
             f"The anisotropy ratio hit its lower bound ({value:.3g}) with the major axis at azimuth {azimuth:.0f} "
             "degrees: values change far faster across that direction than along it, which usually means a "
-            "trend. Try a linear mean, or anisotropy off."
+            "trend. Try TREND 'linear', or ANISOTROPY off."
         )
     if upper:
         return (
             f"The Matérn smoothness hit its upper bound ({value:.3g}): the field is very smooth, and the gaussian "
-            "family is the limit of this case. Try the gaussian family, or a fixed smoothness."
+            "family is the limit of this case. Try KERNEL 'gaussian' (or 'matern52')."
         )
     return (
         f"The Matérn smoothness hit its lower bound ({value:.3g}): the field is rougher than the exponential "
-        "family (smoothness 0.5). Check the values for outliers, or try the exponential family."
+        "family (smoothness 0.5). Check the values for outliers, or try KERNEL 'exponential'."
     )
 
 
 def bound_warnings(layout: ParameterLayout, theta: np.ndarray, bounds: list) -> list[str]:
-    """Warnings for every entry of ``theta`` within :data:`BOUND_TOLERANCE` of its bound.
+    """Warnings for every entry of ``theta`` within :data:`BOUND_TOLERANCE` of its bound or beyond it.
 
     Parameters
     ----------
@@ -108,6 +108,9 @@ def bound_warnings(layout: ParameterLayout, theta: np.ndarray, bounds: list) -> 
     messages = []
     for name, value, (low, high) in zip(layout.names, theta, bounds):
         for limit, upper in ((low, False), (high, True)):
-            if limit is not None and abs(value - limit) <= BOUND_TOLERANCE:
+            if limit is None:
+                continue
+            beyond = value - limit if upper else limit - value  # >= 0 past the bound (fits not bounded by it)
+            if beyond >= -BOUND_TOLERANCE:
                 messages.append(_message(layout, name, upper, math.exp(value), azimuth))
     return messages

@@ -13,9 +13,11 @@ import numpy as np
 
 from ..errors import Cancelled
 from ..io.samples import check_samples
+from ..model.covariance import CovarianceModel
 from ..model.mean import MeanModel
-from ..model.parameters import ParameterLayout, parameter_bounds
+from ..model.parameters import NUGGET_BOUNDS, ParameterLayout, parameter_bounds
 from .bound_warnings import bound_warnings
+from .data_warnings import data_warnings
 from .likelihood import evaluate_model, jitter_message
 from .options import (
     AUTO_FAMILIES,
@@ -54,10 +56,16 @@ def _wls_candidates(xy: np.ndarray, values: np.ndarray, mean: MeanModel, covaria
     for layout in layouts:
         if problem.should_stop is not None and problem.should_stop():
             raise Cancelled("Fitting was cancelled.")
-        model = fit_wls(xy, residual, layout.family, anisotropy=layout.anisotropy, smoothness=layout.smoothness)
+        scales = problem.data_scales
+        model = fit_wls(xy, residual, layout.family, anisotropy=layout.anisotropy, smoothness=layout.smoothness,
+                        scales=scales)
+        floor = NUGGET_BOUNDS[0] * scales.variance  # the likelihood fits' nugget floor
+        model = CovarianceModel(model.structures, max(model.nugget, floor))
         evaluation = evaluate_model(xy, values, model, mean, "reml", covariates)
         aic, bic, _ = information_criteria(problem, evaluation.log_likelihood, layout)
-        messages = [jitter_message(evaluation.jitter)] if evaluation.jitter else []
+        messages = bound_warnings(layout, layout.pack(model), parameter_bounds(layout, scales))
+        if evaluation.jitter:
+            messages.append(jitter_message(evaluation.jitter))
         scored.append((CandidateFit(layout.family, layout.anisotropy, evaluation.log_likelihood, aic, bic, model,
                                     messages), layout))
         steps.advance()
@@ -91,7 +99,7 @@ def fit_exact(xy: np.ndarray, values: np.ndarray, options: FitOptions, *, covari
                   for fit in fit_family(problem, family, smoothness, settings, nested, steps)]
     chosen, layout = min(scored, key=lambda pair: pair[0].aic)
     evaluation = evaluate_model(xy, values, chosen.covariance, mean_model, problem.method, covariates)
-    messages = list(chosen.warnings)
+    messages = data_warnings(xy, chosen.covariance) + list(chosen.warnings)
     covariance = with_jitter_in_nugget(chosen.covariance, evaluation.jitter, messages)
     _, _, k = information_criteria(problem, chosen.log_likelihood, layout)
     if progress is not None:

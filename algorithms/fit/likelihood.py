@@ -82,14 +82,15 @@ class MeanBasis:
         if design.shape[1] >= design.shape[0]:
             raise FieldcastError(
                 f"The mean model has {design.shape[1]} terms but there are only {design.shape[0]} samples; "
-                "use a simpler mean (constant or linear) or fewer covariates."
+                "choose a simpler TREND (constant needs 2 samples, linear 4, quadratic 7; each covariate adds a "
+                "term) or add samples."
             )
         q, r = np.linalg.qr(design)
         diagonal = np.abs(np.diag(r))
         if diagonal.min() <= 1e-10 * diagonal.max():
             raise FieldcastError(
                 "The mean terms are linearly dependent at the samples (a covariate is constant, or repeats "
-                "another term); drop that covariate or choose a simpler mean model."
+                "another term); drop that covariate or choose a simpler TREND."
             )
         return cls(q, r, 2.0 * float(np.sum(np.log(diagonal))))
 

@@ -152,7 +152,7 @@ class SearchProblem:
         value_scale = float(basis.residual_rms(y))
         if not value_scale > 0:
             raise FieldcastError("The mean model reproduces the values exactly, leaving nothing for a "
-                                 "covariance model; choose a simpler mean model or fewer covariates.")
+                                 "covariance model; choose a simpler TREND, or add samples.")
         low, high = xy.min(axis=0), xy.max(axis=0)
         length_scale = float(np.hypot(*(high - low)))
         if not length_scale > 0:

@@ -26,7 +26,12 @@ log_smoothness  ln(Matérn nu)                             ln of SMOOTHNESS_BOUN
 ==============  ========================================  ===============
 
 (azimuth and log_ratio only when anisotropic, log_smoothness only for the
-general Matérn family with the smoothness left free). The nugget share,
+general Matérn family with the smoothness left free). Given the data's
+:class:`..model.parameters.DataScales` (as :func:`.exact_fit.fit_exact` gives
+them), the sill and the range take the bounds of the likelihood fits instead
+(:func:`..model.parameters.parameter_bounds`): the sill that of the partial
+sill, the range that of the range, so a WLS fit cannot wander further than a
+REML fit, and its estimates on a bound get the same warnings. The nugget share,
 not the nugget, is a parameter so that a zero nugget is reachable. The
 fit is bounded trust-region least squares
 (:func:`scipy.optimize.least_squares`) with the analytic Jacobian, run
@@ -51,7 +56,7 @@ from ..model.correlation import (
     reach_factor,
 )
 from ..model.covariance import CovarianceModel, Structure
-from ..model.parameters import RATIO_LOWER
+from ..model.parameters import PARTIAL_SILL_BOUNDS, RATIO_LOWER, DataScales, ParameterLayout, parameter_bounds
 from .search import AZIMUTH_STARTS
 from .variogram import EmpiricalVariogram, directional_semivariograms, empirical_semivariogram
 
@@ -91,8 +96,9 @@ class _Criterion:
     """Residuals ``sqrt(N_j) (gamma_j / gamma_model_j - 1)`` and their Jacobian for one model layout."""
 
     def __init__(self, lags: _Lags, family: str, anisotropic: bool, smoothness: float | None,
-                 fit_smoothness: bool) -> None:
+                 fit_smoothness: bool, scales: DataScales | None = None) -> None:
         self.lags = lags
+        self.scales = scales
         self.family = family
         self.anisotropic = anisotropic
         self.smoothness = smoothness
@@ -145,10 +151,18 @@ class _Criterion:
 
     def bounds(self) -> tuple[np.ndarray, np.ndarray]:
         """Lower and upper bounds of the parameter vector."""
-        log_gamma = math.log(float(np.max(self.lags.gamma)))
-        log_h = math.log(float(np.max(np.hypot(self.lags.dx, self.lags.dy))))
-        low = [log_gamma + _LOG_SPAN[0], 0.0, log_h + _LOG_SPAN[0]]
-        high = [log_gamma + _LOG_SPAN[1], 1.0, log_h + _LOG_SPAN[1]]
+        if self.scales is None:
+            log_gamma = math.log(float(np.max(self.lags.gamma)))
+            log_h = math.log(float(np.max(np.hypot(self.lags.dx, self.lags.dy))))
+            log_sill = (log_gamma + _LOG_SPAN[0], log_gamma + _LOG_SPAN[1])
+            log_range = (log_h + _LOG_SPAN[0], log_h + _LOG_SPAN[1])
+        else:
+            log_variance = math.log(self.scales.variance)
+            log_sill = tuple(log_variance + math.log(b) for b in PARTIAL_SILL_BOUNDS)
+            layout = ParameterLayout(self.family, 1, False, self.smoothness)
+            log_range = parameter_bounds(layout, self.scales)[layout.index("log_range_1")]
+        low = [log_sill[0], 0.0, log_range[0]]
+        high = [log_sill[1], 1.0, log_range[1]]
         if self.anisotropic:
             low += [-np.inf, math.log(RATIO_LOWER)]
             high += [np.inf, 0.0]
@@ -185,7 +199,7 @@ def _isotropic_starts(
 
 def fit_semivariogram_model(
     variograms: Sequence[EmpiricalVariogram], family: str, *, anisotropy: bool = True,
-    smoothness: float | None = None,
+    smoothness: float | None = None, scales: DataScales | None = None,
 ) -> CovarianceModel:
     """Nugget plus one structure fitted to empirical semivariograms by Cressie's weighted least squares.
 
@@ -201,6 +215,9 @@ def fit_semivariogram_model(
     smoothness : float, optional
         Matérn ``nu`` for ``family == "matern"``; fitted when None. Other
         families ignore it.
+    scales : DataScales, optional
+        Spacing, diameter and variance of the data: the sill and range then take the bounds of the
+        likelihood fits (module docstring); without them, bounds around the largest lag and estimate.
 
     Returns
     -------
@@ -216,19 +233,20 @@ def fit_semivariogram_model(
     if len(lags.gamma) < n_parameters + 1:
         raise FieldcastError(
             f"Only {len(lags.gamma)} distance lags contain sample pairs, too few to fit {n_parameters} "
-            "parameters by least squares. Use more lags, a larger cutoff, or turn anisotropy off."
+            "parameters by least squares. Turn ANISOTROPY off, fit with METHOD 'reml' (a likelihood fit needs "
+            "no lags), or add samples."
         )
     if not np.max(lags.gamma) > 0:
         raise FieldcastError("Every lag has zero semivariance: the values do not vary, so there is nothing to fit.")
 
-    isotropic = _Criterion(lags, family, False, smoothness, fit_smoothness)
+    isotropic = _Criterion(lags, family, False, smoothness, fit_smoothness, scales)
     cost, theta = min((isotropic.solve(start) for start in _isotropic_starts(lags, family, smoothness,
                                                                                fit_smoothness)),
                       key=lambda fit: fit[0])
     if not anisotropy:
         return isotropic.model(theta)
 
-    anisotropic = _Criterion(lags, family, True, smoothness, fit_smoothness)
+    anisotropic = _Criterion(lags, family, True, smoothness, fit_smoothness, scales)
     # The isotropic optimum is itself an anisotropic model with ratio 1 (azimuth 0).
     best = (cost, np.concatenate([theta[:3], [0.0, 0.0], theta[3:]]))
     for azimuth in AZIMUTH_STARTS:
@@ -240,6 +258,7 @@ def fit_semivariogram_model(
 def fit_wls(
     xy: np.ndarray, residuals: np.ndarray, family: str, *, anisotropy: bool = True,
     smoothness: float | None = None, n_lags: int = 15, cutoff: float | None = None,
+    scales: DataScales | None = None,
 ) -> CovarianceModel:
     """Fit a nugget plus one structure to the empirical semivariogram by weighted least squares.
 
@@ -267,6 +286,8 @@ def fit_wls(
         families ignore it.
     n_lags, cutoff
         As in :func:`.variogram.empirical_semivariogram`.
+    scales : DataScales, optional
+        As in :func:`fit_semivariogram_model`.
 
     Returns
     -------
@@ -277,4 +298,4 @@ def fit_wls(
         variograms = directional_semivariograms(xy, residuals, n_lags=n_lags, cutoff=cutoff)
     else:
         variograms = [empirical_semivariogram(xy, residuals, n_lags=n_lags, cutoff=cutoff)]
-    return fit_semivariogram_model(variograms, family, anisotropy=anisotropy, smoothness=smoothness)
+    return fit_semivariogram_model(variograms, family, anisotropy=anisotropy, smoothness=smoothness, scales=scales)

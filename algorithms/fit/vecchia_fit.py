@@ -36,6 +36,7 @@ from ..errors import FieldcastError
 from ..io.samples import check_samples
 from ..model.parameters import ParameterLayout, parameter_bounds
 from .bound_warnings import bound_warnings
+from .data_warnings import data_warnings
 from .exact_fit import fit_exact
 from .minimiser import clamped, convergence_warning, minimise
 from .options import CandidateFit, FitOptions, FitResult, check_fit_choices, information_criteria, mean_model_for
@@ -136,7 +137,8 @@ def fit_vecchia(xy: np.ndarray, values: np.ndarray, options: FitOptions, *,
     model = problem.to_data_units(layout.unpack(theta))
     log_likelihood = problem.log_likelihood(minus_two)
     aic, bic, k = information_criteria(problem, log_likelihood, layout)
-    messages = bound_warnings(layout, layout.pack(model), parameter_bounds(layout, problem.data_scales))
+    messages = data_warnings(points, model) + bound_warnings(layout, layout.pack(model),
+                                                             parameter_bounds(layout, problem.data_scales))
     if stopped:
         messages.append(stopped)
     coefficients = problem.basis.coefficients(basis_coefficients) * problem.value_scale

@@ -160,7 +160,7 @@ def leave_one_out(xy: np.ndarray, values: np.ndarray, covariance: CovarianceMode
     if not diagonal.min() > len(diagonal) * UNIT_ROUNDOFF * diagonal.max():
         raise FieldcastError(
             f"Leaving out sample {int(np.argmin(diagonal))} leaves the {mean.kind} mean impossible to "
-            "estimate from the others; use a simpler mean model."
+            "estimate from the others; refit the model with a simpler TREND."
         )
     return _result(values, precision_values / diagonal, 1.0 / diagonal, np.arange(predictor.n))
 
@@ -230,8 +230,8 @@ def k_fold(xy: np.ndarray, values: np.ndarray, covariance: CovarianceModel, mean
         members = np.flatnonzero(fold == number)
         factor = (cholesky_factor(
             precision[np.ix_(members, members)], f"precision matrix of fold {number}",
-            f"The samples outside this fold cannot estimate the {mean.kind} mean; use more folds or a "
-            "simpler mean model."), True)
+            f"The samples outside this fold cannot estimate the {mean.kind} mean; use more folds or refit the "
+            "model with a simpler TREND."), True)
         residual[members] = linalg.cho_solve(factor, precision_values[members], check_finite=False)
         variance[members] = np.diag(linalg.cho_solve(factor, np.eye(len(members)), check_finite=False))
     return _result(values, residual, variance, fold)

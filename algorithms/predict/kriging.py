@@ -282,7 +282,7 @@ class KrigingPredictor:
         factor = cholesky_factor(
             trend_matrix * np.outer(scale, scale), "trend (mean model) matrix",
             "The trend terms cannot be told apart at these samples (points on a line, a constant or "
-            "duplicated covariate, or too few samples); use a simpler mean model or other covariates.",
+            "duplicated covariate, or too few samples); refit the model with a simpler TREND.",
             self.warnings)
         return scale, factor
 

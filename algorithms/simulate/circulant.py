@@ -25,7 +25,8 @@ smallest size that reproduces the lattice covariance exactly: ``2 n - 1`` per ax
 or ``n + s`` when every structure has compact support (spherical) reaching ``s``
 cells along that axis, because an offset that wraps around the torus then falls
 where the covariance is zero both ways. It is enlarged while some eigenvalue is
-negative; every enlargement is reported in ``warnings``. Should no embedding within
+negative; every enlargement is noted in ``notes`` (information: the result is exact).
+Should no embedding within
 the size limit be non-negative, a small lattice falls back to a Cholesky factor of
 its exact covariance, and a large one clips the negative eigenvalues to zero and
 states the share of variance lost (the approximate method of Wood & Chan 1994,
@@ -144,8 +145,10 @@ class UnconditionalGenerator:
         ``"circulant embedding"`` or ``"Cholesky"``.
     padded_shape : (int, int) or None
         Torus size used by the FFT method.
+    notes : list of str
+        Enlargements of the padding that ended in an exact embedding: information, not a warning.
     warnings : list of str
-        Enlargements of the padding, fall-backs and approximations, in plain words.
+        Fall-backs and approximations (no embedding within the size limit), in plain words.
     """
 
     def __init__(self, covariance: CovarianceModel, shape: tuple[int, int], pixel_size: float,
@@ -158,6 +161,7 @@ class UnconditionalGenerator:
         self.shape = (n_rows, n_cols)
         self.pixel_size = float(pixel_size)
         self.covariance = covariance
+        self.notes: list[str] = []
         self.warnings: list[str] = []
         self.padded_shape: tuple[int, int] | None = None
         self._scaled_root: np.ndarray | None = None
@@ -182,7 +186,7 @@ class UnconditionalGenerator:
             grown = tuple(odd_fast_length(math.ceil(ENLARGEMENT * m)) for m in padded)
             if grown[0] * grown[1] > max_padded_cells:
                 break
-            self.warnings.append(
+            self.notes.append(
                 f"The circulant embedding on a {padded[0]} x {padded[1]} torus had negative eigenvalues "
                 f"(smallest {smallest:.3g}, largest {largest:.3g}); the padding was enlarged to "
                 f"{grown[0]} x {grown[1]} cells.")

@@ -69,10 +69,12 @@ class SimulationResult:
     seed : int or None
         Seed of the random generator.
     warnings : list of str
-        Enlarged paddings, fall-backs and approximations, in plain words.
+        Fall-backs and approximations, in plain words.
     unresolved : int
         Cells left as NaN in every realisation (local conditioning: too few
         neighbours within the search radius, or a singular local system).
+    notes : list of str
+        Enlarged paddings of an embedding that ended exact: information for the log.
     """
 
     realisations: np.ndarray
@@ -83,6 +85,7 @@ class SimulationResult:
     seed: int | None
     warnings: list[str] = field(default_factory=list)
     unresolved: int = 0
+    notes: list[str] = field(default_factory=list)
 
 
 def simulation_lattice(grid: GridSpec, rows: np.ndarray, cols: np.ndarray) -> tuple[GridSpec, int, int]:
@@ -213,7 +216,7 @@ def simulate_conditional(xy: np.ndarray, values: np.ndarray, covariance: Covaria
                         "smooth model); a jitter of at most 1e-6 of the field variance was added to draw the "
                         "unconditional values at the samples.")
     return SimulationResult(realisations, grid, generator.method, generator.padded_shape, sampler.side, seed,
-                            warnings, unresolved)
+                            warnings, unresolved, list(generator.notes))
 
 
 class _Steps:
@@ -330,7 +333,8 @@ def summarise_realisations(realisations: np.ndarray, cell_area: float, *, thresh
             per_realisation[1] += above[:, block_mask].sum(axis=1)
     if n_inside == 0:
         raise FieldcastError("Every cell of the mask is nodata in the realisations (no neighbours within the search "
-                             "radius); use a larger search radius, or a mask or extent near the samples.")
+                             "radius); enlarge SEARCH_RADIUS (or leave it empty), or choose a MASK or EXTENT near "
+                             "the samples.")
     cell_area = float(cell_area)
     share_above, area_above = (None, None) if threshold is None else (per_cell[4], per_realisation[1] * cell_area)
     return RealisationSummary(per_cell[0], per_cell[1], per_cell[2], per_cell[3], share_above, area_above,

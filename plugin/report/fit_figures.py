@@ -33,9 +33,9 @@ def histogram_plot(plotly: SimpleNamespace, histogram: dict[str, list[float]], l
 
 
 def pair_marker_sizes(pairs: np.ndarray) -> list[float]:
-    """Marker diameters in pixels growing with the square root of the pair count."""
+    """Marker diameters in pixels growing with the square root of the pair count (none for no lags)."""
     pairs = np.asarray(pairs, dtype=float)
-    largest = max(float(pairs.max()), 1.0)
+    largest = max(float(pairs.max(initial=0.0)), 1.0)
     return (SMALLEST_MARKER + (LARGEST_MARKER - SMALLEST_MARKER) * np.sqrt(pairs / largest)).tolist()
 
 

@@ -230,7 +230,9 @@ def test_wls_delegates_to_the_variogram_fit_and_scores_by_reml():
     mean = result.mean
     design = mean.design(xy)
     residual = values - design @ np.linalg.lstsq(design, values, rcond=None)[0]
-    direct = fit_wls(xy, residual, "spherical", anisotropy=True)
+    # The fit bounds sill and range as the likelihood fits do, from the data's spacing, diameter and variance.
+    scales = DataScales(fit_search.smallest_spacing(xy), fit_search.diameter(xy), float(np.mean(residual ** 2)))
+    direct = fit_wls(xy, residual, "spherical", anisotropy=True, scales=scales)
     ours, theirs = result.covariance.structures[0], direct.structures[0]
     assert ours.family == theirs.family
     assert result.covariance.nugget == pytest.approx(direct.nugget, rel=1e-8)

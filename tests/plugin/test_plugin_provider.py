@@ -16,7 +16,7 @@ CONTRACT = {
     "fitmodel": ("Fit covariance model",
                  {"INPUT", "FIELD", "TRANSFORM", "LOG_OFFSET", "KERNEL", "ANISOTROPY", "TREND", "METHOD",
                   "TARGET_CRS", "OUTPUT_MODEL", "OUTPUT_REPORT"},
-                 {"OUTPUT_MODEL", "OUTPUT_REPORT", "PARTIAL_SILL", "RANGE",
+                 {"OUTPUT_MODEL", "OUTPUT_REPORT", "FAMILY", "PARTIAL_SILL", "RANGE", "EFFECTIVE_RANGE",
                   "NUGGET", "AZIMUTH", "RATIO", "LOG_LIKELIHOOD", "AIC"}),
     "predict": ("Predict surface",
                 {"INPUT", "FIELD", "MODEL", "EXTENT", "PIXEL_SIZE", "MASK", "MAP_AREA", "HULL_MARGIN", "BACKTRANSFORM",

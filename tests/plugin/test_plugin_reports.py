@@ -173,3 +173,9 @@ def test_report_error_becomes_a_processing_error(qgis_processing, meuse_layer, f
             "INPUT": meuse_layer, "FIELD": "zinc", "MODEL": fit_run["OUTPUT_MODEL"], "OUTPUT": "memory:",
             "OUTPUT_REPORT": str(tmp_path / "r.html")})
     assert list(tmp_path.iterdir()) == []
+
+
+def test_fit_outputs_name_the_family_and_the_effective_range(fit_run):
+    first = ModelDocument.load(fit_run["OUTPUT_MODEL"]).covariance.structures[0]
+    assert fit_run["FAMILY"] == first.family
+    assert fit_run["EFFECTIVE_RANGE"] == pytest.approx(first.effective_range, rel=1e-12)

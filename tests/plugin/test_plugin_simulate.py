@@ -20,6 +20,7 @@ from qgis.core import (
     QgsProcessingFeedback,
 )
 
+from fieldcast.algorithms.io.area_words import area_words
 from fieldcast.algorithms.io.crs import same_crs
 from qgis_process_support import QGIS_PROCESS, make_profile, run_algorithm, write_meuse_geopackage
 from qgis_support import CancelAfterFirstProgress, fieldcast_plugin, point_layer, qgis_processing  # noqa: F401
@@ -126,7 +127,10 @@ def test_area_percentiles_are_returned_and_logged(simulation):
     found = [simulation.results[name] for name in ("AREA_P10", "AREA_P50", "AREA_P90")]
     np.testing.assert_allclose(found, expected)
     assert found[0] <= found[1] <= found[2]
-    assert f"P10 {expected[0]:.6g}" in simulation.log and f"P90 {expected[2]:.6g}" in simulation.log
+    # Meuse areas in metres squared are logged in hectares (1 ha = 10,000 m^2) or m^2 below one hectare.
+    assert f"P10 {area_words(expected[0], 'metre')}" in simulation.log
+    assert f"P90 {area_words(expected[2], 'metre')}" in simulation.log
+    assert "square metre" not in simulation.log
     assert "circulant embedding" in simulation.log
 
 

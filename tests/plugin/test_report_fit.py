@@ -19,6 +19,7 @@ from fieldcast.algorithms.io.model_file import ModelDocument
 from fieldcast.algorithms.io.samples import merge_coincident
 from fieldcast.algorithms.model.transform import Transform
 from fieldcast.algorithms.predict.crossval import leave_one_out
+from fieldcast.plugin.report.fit_figures import pair_marker_sizes
 from fieldcast.plugin.report.fit_report import write_fit_report
 from fieldcast.plugin.report.page import ReportError, format_number
 
@@ -179,6 +180,15 @@ def test_candidate_table_lists_every_family_with_its_aic(zinc_case, zinc_report)
             rel=1e-9)
     rows = re.findall(r'<tr class="(fc-chosen|)" data-family="(\w+)">', zinc_report)
     assert [family for _, family in rows] == [c.family for c in fit.candidates]
+
+
+def test_a_reml_candidate_table_says_its_criteria_do_not_compare_trends(zinc_report):
+    assert "REML criteria of different trends do not" in zinc_report and "METHOD ml" in zinc_report
+
+
+def test_a_direction_without_filled_lags_gets_no_markers():
+    # Three or four samples leave some directions without a pair in any lag: nothing to draw, no failure.
+    assert pair_marker_sizes(np.array([])) == []
 
 
 def test_chosen_model_is_lowest_aic(zinc_case, zinc_report):
