@@ -53,7 +53,9 @@ def run_and_load(processing, algorithm: str, parameters: dict, loaded: tuple[str
 
 @pytest.fixture()
 def project():
-    """QgsProject.instance(), emptied after the test."""
+    """QgsProject.instance(), emptied after the test; post-processors left by earlier tests' runs (whose contexts
+    are gone, so nothing can call them) are let go first, so each test sees only its own."""
+    layer_style._WAITING.clear()
     yield QgsProject.instance()
     QgsProject.instance().removeAllMapLayers()
 
@@ -148,7 +150,7 @@ def test_predictmany_loads_each_fields_rasters_styled(qgis_processing, samples, 
     assert_stretched(layers["zinc \u2014 variance"], str(tmp_path / "zinc_variance.tif"))
 
 
-def test_predictmany_without_a_project_loads_nothing(qgis_processing, samples, tmp_path):  # noqa: F811 - fixture
+def test_predictmany_without_a_project_loads_nothing(qgis_processing, samples, project, tmp_path):  # noqa: F811 - fixture
     context = QgsProcessingContext()  # no project, as for a run outside any project
     qgis_processing.run("fieldcast:predictmany", {"INPUT": samples, "FIELDS": ["zinc"], **GRID,
                                                   "OUTPUT_FOLDER": str(tmp_path)}, context=context)
