@@ -46,6 +46,7 @@ from ..algorithms import (
     ModelDocument,
     Neighbourhood,
     OutputSet,
+    RasterTemplate,
     Transform,
     refuse_read_only,
     remove_stale_files,
@@ -295,13 +296,17 @@ class FieldcastAlgorithm(QgsProcessingAlgorithm):
     # --- reading samples and models ----------------------------------------------------------------------
 
     def read_samples(self, parameters, context, feedback) -> LayerSamples:
-        """Samples of INPUT/FIELD in the working CRS (chosen from TARGET_CRS and the layer CRS)."""
+        """Samples of INPUT/FIELD in the working CRS (chosen from the template, TARGET_CRS and the layer CRS)."""
         source = self.parameterAsSource(parameters, self.INPUT, context)
         if source is None:
             raise QgsProcessingException(self.invalidSourceError(parameters, self.INPUT))
         field = self.parameterAsString(parameters, self.FIELD, context)
         target = self.parameterAsCrs(parameters, self.TARGET_CRS, context)
-        return read_layer_samples(source, field, target, feedback)
+        return read_layer_samples(source, field, target, feedback, self.grid_template(parameters, context))
+
+    def grid_template(self, parameters, context) -> RasterTemplate | None:
+        """The template raster whose CRS is the working CRS; None here (see ``RasterAlgorithm``)."""
+        return None
 
     def model_and_samples(self, parameters, context, feedback,
                           progress: Callable[[float], None]) -> tuple[ModelDocument, ModelSamples]:

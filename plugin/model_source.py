@@ -74,16 +74,19 @@ def load_document(path: str, working: WorkingCrs) -> ModelDocument:
     Raises
     ------
     FieldcastError
-        If the file is unreadable or malformed, or its CRS differs from the working CRS.
+        If the file is unreadable or malformed, or its CRS differs from the working CRS (the advice names the
+        template when the working CRS is a template's).
     """
     document = ModelDocument.load(path)
     if not same_crs(document.crs_wkt, working.wkt):
         model_crs = parse_crs(document.crs_wkt)
         code = model_crs.to_authority()
         named = model_crs.name + (f" ({code[0]}:{code[1]})" if code else "")
+        remedy = (f"Choose a template in {named}, or refit the model with 'Target CRS' set to the template's CRS"
+                  if working.template else f"Set 'Target CRS' to {named}, or refit the model on these samples")
         raise FieldcastError(f"The model was fitted in {model_crs.name!r}, but the samples are worked in "
                              f"{parse_crs(working.wkt).name!r}, so its ranges would be read in the wrong units "
-                             f"or axes. Set 'Target CRS' to {named}, or refit the model on these samples.")
+                             f"or axes. {remedy}.")
     return document
 
 

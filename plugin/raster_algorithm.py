@@ -1,8 +1,10 @@
-"""What the raster-writing algorithms (predict, simulate) share: extent, pixel size, mask, threshold, GeoTIFF outputs.
+"""What the raster-writing algorithms (predict, simulate) share: template, extent, pixel size, mask, threshold.
 
 :class:`RasterAlgorithm` adds to :class:`.algorithm_base.FieldcastAlgorithm` the
 parameters that define the output grid and the threshold of the decision maps,
-and turns them into an engine :class:`GridSpec`, a cell mask and a threshold.
+and turns them into an engine :class:`GridSpec`, a cell mask and a threshold. A
+template raster (TEMPLATE) gives the grid and the working CRS exactly, and its nodata
+cells may serve as mask (TEMPLATE_NODATA_MASK); EXTENT and PIXEL_SIZE are then refused.
 """
 from __future__ import annotations
 
@@ -13,20 +15,23 @@ from qgis.core import (
     QgsCoordinateReferenceSystem,
     QgsFeatureRequest,
     QgsProcessing,
+    QgsProcessingParameterBoolean,
     QgsProcessingParameterExtent,
     QgsProcessingParameterFeatureSource,
     QgsProcessingParameterNumber,
+    QgsProcessingParameterRasterLayer,
 )
 
 from ..algorithms import (
     FieldcastError,
     GridSpec,
+    RasterTemplate,
     check_extent_reach,
     checked_cell_mask,
     default_pixel_size,
     defined_crs,
 )
-from .algorithm_base import FieldcastAlgorithm
+from .algorithm_base import FieldcastAlgorithm, advanced
 from .sample_reader import crs_wkt
 
 MAX_DEFAULT_CELLS = 1_000_000
@@ -47,6 +52,8 @@ def geotiff_path(path: str) -> str:
 class RasterAlgorithm(FieldcastAlgorithm):
     """Base of the algorithms that write rasters on a grid chosen by EXTENT, PIXEL_SIZE and MASK."""
 
+    TEMPLATE = "TEMPLATE"
+    TEMPLATE_NODATA_MASK = "TEMPLATE_NODATA_MASK"
     EXTENT = "EXTENT"
     PIXEL_SIZE = "PIXEL_SIZE"
     MASK = "MASK"
@@ -54,7 +61,10 @@ class RasterAlgorithm(FieldcastAlgorithm):
     OUTPUT_EXCEEDANCE = "OUTPUT_EXCEEDANCE"
 
     def add_grid_parameters(self) -> None:
-        """EXTENT, PIXEL_SIZE and MASK, all optional."""
+        """TEMPLATE, EXTENT, PIXEL_SIZE, MASK and TEMPLATE_NODATA_MASK (advanced), all optional."""
+        self.addParameter(QgsProcessingParameterRasterLayer(
+            self.TEMPLATE, self.tr("Template raster (its grid and CRS; empty = extent and pixel size)"),
+            optional=True))
         self.addParameter(QgsProcessingParameterExtent(self.EXTENT, self.tr("Extent (empty = samples)"),
                                                        optional=True))
         self.addParameter(QgsProcessingParameterNumber(
@@ -62,6 +72,8 @@ class RasterAlgorithm(FieldcastAlgorithm):
             type=QgsProcessingParameterNumber.Double, optional=True, minValue=0.0))
         self.addParameter(QgsProcessingParameterFeatureSource(
             self.MASK, self.tr("Mask polygons"), [QgsProcessing.TypeVectorPolygon], optional=True))
+        self.addParameter(advanced(QgsProcessingParameterBoolean(
+            self.TEMPLATE_NODATA_MASK, self.tr("Template nodata cells stay nodata"), defaultValue=True)))
 
     def add_threshold_parameter(self) -> None:
         """THRESHOLD: optional value in the attribute's original units."""
@@ -98,7 +110,14 @@ class RasterAlgorithm(FieldcastAlgorithm):
         return path, threshold
 
     def checkParameterValues(self, parameters, context):
-        """Refuse a PIXEL_SIZE of 0 or less with our advice (before Processing's generic range message)."""
+        """Refuse a PIXEL_SIZE of 0 or less, and EXTENT or PIXEL_SIZE beside TEMPLATE, with our advice (before
+        Processing's generic messages)."""
+        given = [name for name in (self.EXTENT, self.PIXEL_SIZE) if parameters.get(name) not in (None, "")]
+        if parameters.get(self.TEMPLATE) not in (None, "") and given:
+            names = " and ".join(given)
+            return False, (f"TEMPLATE gives the output grid (its extent, cell size and CRS), so {names} cannot be "
+                           f"set beside it. Leave {names} empty to use the template's grid (the template wins), or "
+                           f"leave TEMPLATE empty to use {names}.")
         if parameters.get(self.PIXEL_SIZE) not in (None, ""):
             size = self.parameterAsDouble(parameters, self.PIXEL_SIZE, context)
             if not (math.isfinite(size) and size > 0):
@@ -107,15 +126,50 @@ class RasterAlgorithm(FieldcastAlgorithm):
                                "or leave it empty to derive it from the sample spacing.")
         return super().checkParameterValues(parameters, context)
 
+    def grid_template(self, parameters, context) -> RasterTemplate | None:
+        """The TEMPLATE raster's grid and CRS (the CRS QGIS shows for the layer), None when TEMPLATE is empty.
+
+        Raises
+        ------
+        FieldcastError
+            For a layer GDAL cannot read, a CRS in degrees, or a grid that is rotated or has non-square cells.
+        """
+        layer = self.parameterAsRasterLayer(parameters, self.TEMPLATE, context)
+        if layer is None:
+            return None
+        name = f"the template raster {layer.name()!r} (TEMPLATE)"
+        if layer.providerType() != "gdal":
+            raise FieldcastError(f"{name} is not a raster file (its provider is {layer.providerType()!r}). Save it "
+                                 "as a GeoTIFF first (Export > Save As) and choose that file as TEMPLATE.")
+        return RasterTemplate.read(layer.source(), name, crs_wkt(layer.crs()) if layer.crs().isValid() else None)
+
     def grid_and_mask(self, parameters, context, xy: np.ndarray, crs_wkt: str, units: str, feedback,
                       n_bands: int) -> tuple[GridSpec, np.ndarray | None]:
         """The output grid (checked to fit ``n_bands`` Float32 bands in memory) and its cell mask, logged."""
         working_crs = QgsCoordinateReferenceSystem.fromWkt(crs_wkt)
-        grid = self.grid(parameters, context, xy, working_crs, units)
-        feedback.pushInfo(f"Grid: {grid.n_cols} x {grid.n_rows} cells of {grid.pixel_size:g} {units}, "
-                          f"extent {', '.join(f'{v:.10g}' for v in grid.extent)}.")
+        template = self.grid_template(parameters, context)
+        grid = self.grid(parameters, context, xy, working_crs, units) if template is None else template.grid
+        feedback.pushInfo(f"Grid{'' if template is None else ' of ' + template.name}: {grid.n_cols} x "
+                          f"{grid.n_rows} cells of {grid.pixel_size:g} {units}, extent "
+                          f"{', '.join(f'{v:.10g}' for v in grid.extent)}.")
+        if template is not None and not grid.overlaps(xy):
+            raise FieldcastError(f"The grid of {template.name} does not overlap the samples. Choose a template that "
+                                 "covers (part of) the sample layer, or leave TEMPLATE empty.")
         grid.check_memory(MEMORY_LIMIT_BYTES, n_bands=n_bands)
-        return grid, self.mask(parameters, context, grid, working_crs, units, feedback)
+        inside = self.mask(parameters, context, grid, working_crs, units, feedback)
+        if template is None or not self.parameterAsBoolean(parameters, self.TEMPLATE_NODATA_MASK, context):
+            return grid, inside
+        valid = template.valid_cells(feedback.isCanceled)
+        if valid is None:
+            return grid, inside
+        feedback.pushInfo(f"Template nodata: {grid.n_cells - int(valid.sum()):,} of {grid.n_cells:,} cells are "
+                          f"nodata in {template.name} and stay nodata (TEMPLATE_NODATA_MASK; set it to false to "
+                          "map them).")
+        kept = valid if inside is None else valid & inside
+        if not kept.any():
+            raise FieldcastError(f"No cell inside the mask polygons has a value in {template.name}. Set "
+                                 "TEMPLATE_NODATA_MASK to false, or choose other mask polygons.")
+        return grid, kept
 
     def grid(self, parameters, context, xy: np.ndarray, working_crs: QgsCoordinateReferenceSystem,
              units: str) -> GridSpec:

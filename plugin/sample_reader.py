@@ -15,6 +15,7 @@ from qgis.core import QgsCoordinateReferenceSystem, QgsFeatureRequest, QgsProces
 
 from ..algorithms import (
     FieldcastError,
+    RasterTemplate,
     Samples,
     Transform,
     WorkingCrs,
@@ -106,7 +107,7 @@ def _point(geometry, fid: int) -> tuple[float, float] | None:
 
 
 def read_layer_samples(source: QgsProcessingFeatureSource, field: str, target_crs: QgsCoordinateReferenceSystem,
-                       feedback) -> LayerSamples:
+                       feedback, template: RasterTemplate | None = None) -> LayerSamples:
     """Read point locations and one numeric attribute from a layer.
 
     Parameters
@@ -119,6 +120,8 @@ def read_layer_samples(source: QgsProcessingFeatureSource, field: str, target_cr
         Working CRS chosen by the user; an invalid CRS means "choose for me".
     feedback : QgsProcessingFeedback
         Receives the log lines.
+    template : RasterTemplate, optional
+        A template raster: its CRS is then the working CRS (``target_crs`` must be invalid or the same).
     """
     layer_crs = source.sourceCrs()
     if not layer_crs.isValid():
@@ -157,7 +160,7 @@ def read_layer_samples(source: QgsProcessingFeatureSource, field: str, target_cr
     layer_xy = np.array(points, dtype=float)
     layer_wkt = crs_wkt(layer_crs)
     target_wkt = crs_wkt(target_crs) if target_crs.isValid() else None
-    working = choose_working_crs(layer_wkt, layer_xy, target_wkt, source.sourceName())
+    working = choose_working_crs(layer_wkt, layer_xy, target_wkt, source.sourceName(), template)
     feedback.pushInfo(working.reason)
     for warning in working.warnings:
         feedback.pushWarning(warning)

@@ -126,6 +126,37 @@ class GridSpec:
         return cls(x_min=x0 + left * pixel_size, y_max=y0 + top * pixel_size, pixel_size=float(pixel_size),
                    n_cols=right - left, n_rows=top - bottom)
 
+    @classmethod
+    def from_geotransform(cls, geotransform: tuple[float, float, float, float, float, float], n_cols: int,
+                          n_rows: int, name: str = "The raster") -> GridSpec:
+        """The grid of a raster with GDAL geotransform ``geotransform`` and ``n_cols`` x ``n_rows`` cells, exactly.
+
+        The corner, cell size and size are taken as they are (no snapping), so a raster written on the grid
+        has the same geotransform. ``name`` opens the messages (e.g. ``"The template raster x.tif (TEMPLATE)"``).
+
+        Raises
+        ------
+        FieldcastError
+            For a rotated or sheared geotransform, one that is not north-up (rows counted upwards), or
+            cells that are not square (width and height differing by more than :data:`SNAP_TOLERANCE`
+            relative): the grid holds north-up square cells only.
+        """
+        x_min, width, row_rotation, y_max, column_rotation, height = (float(v) for v in geotransform)
+        check_pixel_size(width)
+        if abs(row_rotation) > SNAP_TOLERANCE * width or abs(column_rotation) > SNAP_TOLERANCE * width:
+            raise FieldcastError(f"{name} is rotated or sheared (geotransform {tuple(geotransform)}); Fieldcast "
+                                 "writes north-up grids only. Warp it to a north-up raster first (Raster > "
+                                 "Projections > Warp (reproject)), or use EXTENT and PIXEL_SIZE instead.")
+        if height >= 0:
+            raise FieldcastError(f"{name} is not north-up: its rows run from south to north (cell height "
+                                 f"{height:g}). Warp it to a north-up raster first (Raster > Projections > Warp "
+                                 "(reproject)), or use EXTENT and PIXEL_SIZE instead.")
+        if abs(width + height) > SNAP_TOLERANCE * width:
+            raise FieldcastError(f"{name} has cells of {width:g} x {-height:g} CRS units; Fieldcast needs square "
+                                 "cells. Resample it to square cells first (Raster > Projections > Warp (reproject) "
+                                 "with one output resolution for both axes), or use EXTENT and PIXEL_SIZE instead.")
+        return cls(x_min=x_min, y_max=y_max, pixel_size=width, n_cols=n_cols, n_rows=n_rows)
+
     @property
     def n_cells(self) -> int:
         """Number of cells, ``n_cols * n_rows``."""

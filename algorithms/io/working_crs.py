@@ -7,7 +7,8 @@ import numpy as np
 import pyproj
 
 from ..errors import FieldcastError
-from .crs import defined_crs, linear_units, longitude_span, parse_crs, to_wkt2, utm_crs_for
+from .crs import defined_crs, linear_units, longitude_span, parse_crs, same_crs, to_wkt2, utm_crs_for
+from .template import RasterTemplate
 
 UTM_ZONE_WIDTH = 6.0  # degrees of longitude (Snyder 1987, USGS Professional Paper 1395, Transverse Mercator chapter)
 
@@ -26,12 +27,15 @@ class WorkingCrs:
         One sentence for the log saying which CRS is used and why.
     warnings : tuple of str
         Sentences for the log about distance errors the working CRS brings to these samples (may be empty).
+    template : bool
+        True when it is the CRS of a template raster (then a model file must have been fitted in it).
     """
 
     wkt: str
     units: str
     reason: str
     warnings: tuple[str, ...] = ()
+    template: bool = False
 
 
 def sample_lonlat(layer: pyproj.CRS, layer_xy: np.ndarray) -> np.ndarray:
@@ -89,11 +93,31 @@ def wide_span_warnings(utm: pyproj.CRS, width: float) -> tuple[str, ...]:
             "for the whole region, or model smaller areas separately.",)
 
 
+def template_working_crs(template: RasterTemplate, target_wkt: str | None, lonlat: np.ndarray) -> WorkingCrs:
+    """The CRS of a template raster (projected, see :class:`.template.RasterTemplate`) as the working CRS.
+
+    Raises
+    ------
+    FieldcastError
+        If a target CRS other than the template's is set: the outputs take the template's CRS.
+    """
+    crs = parse_crs(template.crs_wkt)
+    if target_wkt and not same_crs(target_wkt, template.crs_wkt):
+        raise FieldcastError(f"'Target CRS' (TARGET_CRS) is {parse_crs(target_wkt).name!r}, but the outputs take the "
+                             f"CRS of {template.name}, {crs.name!r}. Leave 'Target CRS' empty (the template's CRS is "
+                             "then the working CRS), or leave TEMPLATE empty to work in the target CRS.")
+    return WorkingCrs(template.crs_wkt, linear_units(template.crs_wkt),
+                      f"Working CRS: {crs.name} (the CRS of {template.name}); samples are reprojected into it where "
+                      "their CRS differs.", crs_warnings(crs, lonlat), template=True)
+
+
 def choose_working_crs(layer_wkt: str, layer_xy: np.ndarray, target_wkt: str | None = None,
-                       layer_name: str = "with the samples") -> WorkingCrs:
+                       layer_name: str = "with the samples", template: RasterTemplate | None = None
+                       ) -> WorkingCrs:
     """Pick the working CRS for samples at ``layer_xy`` (layer CRS coordinates).
 
-    A target CRS, when given, is used as it is (it must be projected). Otherwise
+    A template raster's CRS, when given, is the working CRS (see :func:`template_working_crs`; a target
+    CRS must then be the same or empty). A target CRS, when given, is used as it is (it must be projected). Otherwise
     a projected layer CRS is kept, and a geographic one is replaced by the WGS 84
     UTM zone of the samples' centre: the middle of the shortest longitude interval
     holding them (so data across the antimeridian stay near 180 degrees) and of their
@@ -104,10 +128,12 @@ def choose_working_crs(layer_wkt: str, layer_xy: np.ndarray, target_wkt: str | N
     ------
     FieldcastError
         If the layer CRS is empty or undefined (naming ``layer_name``), the target CRS is
-        geographic, or a CRS has no usable distance unit.
+        geographic or differs from the template's, or a CRS has no usable distance unit.
     """
     layer = defined_crs(layer_wkt, layer_name)
     lonlat = sample_lonlat(layer, layer_xy)
+    if template is not None:
+        return template_working_crs(template, target_wkt, lonlat)
     if target_wkt:
         target = parse_crs(target_wkt)
         if target.is_geographic:
