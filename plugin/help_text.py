@@ -16,11 +16,16 @@ CAUTIONS = (
 
 WORKING_CRS_NOTE = (
     "Distances are measured in a projected working CRS: the layer's own CRS when it is projected; for a "
-    "longitude/latitude layer the UTM zone of the data centre, unless you set a target CRS. The log says "
-    "which CRS was used."
+    "longitude/latitude layer the UTM zone of the data centre, unless you set a target CRS (or a template "
+    "raster, where the tool has one: its CRS). The log says which CRS was used."
 )
 
 TARGET_CRS_HELP = ("Target CRS", "Projected CRS to work in; empty = the layer CRS, or a UTM zone for degrees.")
+RASTER_TARGET_CRS_HELP = (
+    "Target CRS",
+    "Projected CRS to work in; empty = the template raster's CRS when a template is given (another target CRS is "
+    "then refused), else the layer CRS, or a UTM zone for degrees.",
+)
 
 MODEL_FILE_HELP = (
     "Model file",
@@ -42,6 +47,12 @@ FIT_HELP = [
 ]
 
 GRID_HELP = [
+    ("Template raster", "Optional raster layer (a file GDAL reads, e.g. a DEM or land-use GeoTIFF) whose grid the "
+     "outputs take exactly: its CRS, corner, cell size, columns and rows, so they overlay it cell for cell. Its "
+     "CRS is then the working CRS (samples are reprojected into it; a model file must have been fitted in it); it "
+     "must be projected (warp a template in degrees first, Raster > Projections > Warp (reproject)), north-up, "
+     "not rotated, with square cells. Leave Extent and Pixel size empty with a template (setting them is refused), "
+     "and Target CRS empty or the template's CRS. Empty: the grid follows Extent and Pixel size."),
     ("Extent", "Area of the raster; empty = extent of the samples. Cell edges fall on whole multiples of the pixel "
      "size, so rasters from several runs line up. An extent more than 10 times as wide (diagonal) as the samples "
      "is refused: so far from every sample kriging only repeats the mean."),
@@ -49,6 +60,9 @@ GRID_HELP = [
      "neighbouring samples, rounded, and coarser if the grid would exceed a million cells."),
     ("Mask", "Optional polygon layer: cells whose centre is outside every polygon are nodata (and, in "
      "'Simulate conditional fields', left out of the areas and means)."),
+    ("Template nodata cells stay nodata", "With a template raster only: on (the default), cells where band 1 of "
+     "the template is nodata (its nodata value, mask band, or NaN) are nodata in the outputs too, and with Mask "
+     "polygons only cells inside both are mapped. Off: the template gives only the grid."),
 ]
 
 MAP_AREA_HELP = [

@@ -22,7 +22,7 @@ from .help_text import (
     GRID_HELP,
     MAP_AREA_HELP,
     NEIGHBOURHOOD_HELP,
-    TARGET_CRS_HELP,
+    RASTER_TARGET_CRS_HELP,
     compose_help,
 )
 from .layer_style import load_styled
@@ -87,7 +87,7 @@ class PredictManyAlgorithm(SurfaceAlgorithm):
          *MAP_AREA_HELP,
          BACKTRANSFORM_HELP,
          *NEIGHBOURHOOD_HELP,
-         TARGET_CRS_HELP],
+         RASTER_TARGET_CRS_HELP],
         [("Output folder", "Receives, per field, <field>_model.json (the model file, as 'Fit covariance model' "
           "writes it), <field>_prediction.tif, <field>_variance.tif and <field>_sd.tif (Float32 GeoTIFFs as "
           "'Predict surface' writes them: attribute units, the variance of the smooth field in attribute units "
@@ -175,9 +175,10 @@ class PredictManyAlgorithm(SurfaceAlgorithm):
         folder = self.output_folder(parameters, context)
         transform, settings = self.fit_choices(parameters, context)
         target = self.parameterAsCrs(parameters, self.TARGET_CRS, context)
+        template = self.grid_template(parameters, context)
         prepared = []
         for field in fields:  # every field is checked before any file is written
-            layer_samples = read_layer_samples(source, field, target, feedback)
+            layer_samples = read_layer_samples(source, field, target, feedback, template)
             prepared.append((layer_samples, prepare_samples(layer_samples, transform, feedback)))
         run = FieldsRun(prepared, file_stems(fields), folder, transform, settings,
                         self.neighbourhood(parameters, context),

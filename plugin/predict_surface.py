@@ -12,7 +12,7 @@ from .help_text import (
     MAP_AREA_HELP,
     MODEL_FILE_HELP,
     NEIGHBOURHOOD_HELP,
-    TARGET_CRS_HELP,
+    RASTER_TARGET_CRS_HELP,
     THRESHOLD_HELP,
     compose_help,
 )
@@ -53,7 +53,7 @@ class PredictSurfaceAlgorithm(SurfaceAlgorithm):
          *NEIGHBOURHOOD_HELP,
          THRESHOLD_HELP,
          INTERVAL_HELP,
-         TARGET_CRS_HELP],
+         RASTER_TARGET_CRS_HELP],
         [("Prediction", "Float32 GeoTIFF in attribute units (for a log model back-transformed as chosen; "
           "the band description says which). Nodata is -9999; it also marks cells whose kriging prediction lies "
           "more than 6 standard deviations of the model from its mean, which the model gives a chance of about "

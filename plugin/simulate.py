@@ -32,7 +32,7 @@ from ..algorithms import (
 )
 from .algorithm_base import advanced, progress_callback, push_log
 from .field_types import field_type
-from .help_text import GRID_HELP, MODEL_FILE_HELP, TARGET_CRS_HELP, THRESHOLD_HELP, compose_help
+from .help_text import GRID_HELP, MODEL_FILE_HELP, RASTER_TARGET_CRS_HELP, THRESHOLD_HELP, compose_help
 from .layer_style import style_on_load
 from .raster_algorithm import RasterAlgorithm
 from .sinks import checked_sink
@@ -90,7 +90,7 @@ class SimulateAlgorithm(RasterAlgorithm):
           "range are nodata in every realisation and left out of the summaries, areas and means; the log says "
           "how many. Empty: no limit."),
          THRESHOLD_HELP,
-         TARGET_CRS_HELP],
+         RASTER_TARGET_CRS_HELP],
         [("Realisations", "Multiband Float32 GeoTIFF, one band per realisation, in attribute units (a log model "
           "is simulated in the log scale and back-transformed cell by cell)."),
          ("Mean / Standard deviation / 10th percentile / 90th percentile",

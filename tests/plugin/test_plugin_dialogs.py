@@ -24,14 +24,14 @@ from repo_package import REPO_ROOT
 
 MAIN_PAGE_INPUTS = {
     "fitmodel": {"INPUT", "FIELD", "TRANSFORM", "KERNEL", "ANISOTROPY", "TREND", "METHOD"},
-    "predict": {"INPUT", "FIELD", "MODEL", "EXTENT", "PIXEL_SIZE", "MASK", "MAP_AREA", "THRESHOLD"},
+    "predict": {"INPUT", "FIELD", "MODEL", "TEMPLATE", "EXTENT", "PIXEL_SIZE", "MASK", "MAP_AREA", "THRESHOLD"},
     "predictmany": {"INPUT", "FIELDS", "TRANSFORM", "KERNEL", "ANISOTROPY", "TREND", "METHOD", "SHARED_MODEL",
-                    "EXTENT", "PIXEL_SIZE", "MASK", "MAP_AREA"},
-    "simulate": {"INPUT", "FIELD", "MODEL", "EXTENT", "PIXEL_SIZE", "MASK", "REALIZATIONS", "THRESHOLD"},
+                    "TEMPLATE", "EXTENT", "PIXEL_SIZE", "MASK", "MAP_AREA"},
+    "simulate": {"INPUT", "FIELD", "MODEL", "TEMPLATE", "EXTENT", "PIXEL_SIZE", "MASK", "REALIZATIONS", "THRESHOLD"},
     "crossvalidate": {"INPUT", "FIELD", "MODEL"},
 }
 EXPERT = {"NEIGHBOURS", "SEARCH_RADIUS", "SUPPORT", "BACKTRANSFORM", "TARGET_CRS", "LOG_OFFSET", "SEED", "HULL_MARGIN",
-          "INTERVAL_PROBABILITY"}
+          "INTERVAL_PROBABILITY", "TEMPLATE_NODATA_MASK"}
 
 
 def algorithm(name: str):
