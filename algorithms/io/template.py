@@ -88,7 +88,8 @@ class RasterTemplate:
         Cancelled
             When ``should_stop()`` turns true between blocks.
         """
-        band = open_raster(self.path, self.name).GetRasterBand(1)
+        dataset = open_raster(self.path, self.name)  # kept referenced: GDAL frees a band with its dataset
+        band = dataset.GetRasterBand(1)
         floating = band.DataType in FLOAT_TYPES
         if band.GetMaskFlags() == gdal.GMF_ALL_VALID and not floating:
             return None
