@@ -47,7 +47,7 @@ FIT_HELP = [
 ]
 
 GRID_HELP = [
-    ("Template raster", "Optional raster layer (a file GDAL reads, e.g. a DEM or land-use GeoTIFF) whose grid the "
+    ("Template raster", "Optional raster layer (a file GDAL reads, e.g. an elevation or land-use GeoTIFF) whose grid the "
      "outputs take exactly: its CRS, corner, cell size, columns and rows, so they overlay it cell for cell. Its "
      "CRS is then the working CRS (samples are reprojected into it; a model file must have been fitted in it); it "
      "must be projected (warp a template in degrees first, Raster > Projections > Warp (reproject)), north-up, "
