@@ -47,12 +47,12 @@ FIT_HELP = [
 ]
 
 GRID_HELP = [
-    ("Template raster", "Optional raster layer (a file GDAL reads, e.g. an elevation or land-use GeoTIFF) whose grid the "
-     "outputs take exactly: its CRS, corner, cell size, columns and rows, so they overlay it cell for cell. Its "
-     "CRS is then the working CRS (samples are reprojected into it; a model file must have been fitted in it); it "
-     "must be projected (warp a template in degrees first, Raster > Projections > Warp (reproject)), north-up, "
-     "not rotated, with square cells. Leave Extent and Pixel size empty with a template (setting them is refused), "
-     "and Target CRS empty or the template's CRS. Empty: the grid follows Extent and Pixel size."),
+    ("Template raster", "Optional raster layer (a file GDAL reads, e.g. an elevation or land-use GeoTIFF) whose "
+     "grid the outputs take exactly: its CRS, corner, cell size, columns and rows, so they overlay it cell for "
+     "cell. Its CRS is then the working CRS (samples are reprojected into it; a model file must have been fitted "
+     "in it); it must be projected (warp a template in degrees first, Raster > Projections > Warp (reproject)), "
+     "north-up, not rotated, with square cells. Leave Extent and Pixel size empty with a template (setting them "
+     "is refused), and Target CRS empty or the template's CRS. Empty: the grid follows Extent and Pixel size."),
     ("Extent", "Area of the raster; empty = extent of the samples. Cell edges fall on whole multiples of the pixel "
      "size, so rasters from several runs line up. An extent more than 10 times as wide (diagonal) as the samples "
      "is refused: so far from every sample kriging only repeats the mean."),
