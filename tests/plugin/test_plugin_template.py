@@ -10,7 +10,7 @@ import numpy as np
 import pytest
 from osgeo import gdal, osr
 from pyproj import Transformer
-from qgis.core import QgsProcessingException
+from qgis.core import QgsFeature, QgsGeometry, QgsProcessingException, QgsRectangle, QgsVectorLayer
 
 from fieldcast.algorithms.io.crs import to_wkt2
 from fieldcast.algorithms.io.model_file import ModelDocument
@@ -218,3 +218,34 @@ def test_a_model_fitted_in_another_crs_than_the_template_is_refused(qgis_process
         "INPUT": point_layer(meuse.xy, {"zinc": meuse.zinc}), "FIELD": "zinc",
         "MODEL": model_file(tmp_path / "model.json", meuse.xy, "EPSG:28992"), "TEMPLATE": template,
         "OUTPUT": str(tmp_path / "prediction.tif")}, tmp_path, "Choose a template in", "EPSG:28992")
+
+
+def test_a_template_away_from_the_samples_is_refused(qgis_processing, meuse, tmp_path):  # noqa: F811
+    template = write_template(tmp_path / "template.tif", (190005.0, 40.0, 0.0, 340015.0, 0.0, -40.0))
+    run_refused(qgis_processing, "fieldcast:predict", {
+        "INPUT": point_layer(meuse.xy, {"zinc": meuse.zinc}), "FIELD": "zinc",
+        "MODEL": model_file(tmp_path / "model.json", meuse.xy, "EPSG:28992"), "TEMPLATE": template,
+        "OUTPUT": str(tmp_path / "prediction.tif")}, tmp_path, "does not overlap the samples", "leave TEMPLATE empty")
+
+
+def test_mask_polygons_only_over_template_nodata_are_refused(qgis_processing, meuse, tmp_path):  # noqa: F811
+    # The polygon covers exactly the template's nodata block: the top-left 20 columns and 10 rows.
+    template = write_template(tmp_path / "template.tif")
+    mask = QgsVectorLayer("Polygon?crs=EPSG:28992", "mask", "memory")
+    feature = QgsFeature()
+    feature.setGeometry(QgsGeometry.fromRect(QgsRectangle(178605.0, 333215.0, 179405.0, 333615.0)))
+    mask.dataProvider().addFeatures([feature])
+    run_refused(qgis_processing, "fieldcast:predict", {
+        "INPUT": point_layer(meuse.xy, {"zinc": meuse.zinc}), "FIELD": "zinc",
+        "MODEL": model_file(tmp_path / "model.json", meuse.xy, "EPSG:28992"), "TEMPLATE": template,
+        "MASK": mask, "OUTPUT": str(tmp_path / "prediction.tif")}, tmp_path,
+        "No cell inside the mask polygons has a value", "Set TEMPLATE_NODATA_MASK to false")
+
+
+def test_a_template_that_is_all_nodata_is_refused_as_mask(qgis_processing, meuse, tmp_path):  # noqa: F811
+    template = write_template(tmp_path / "template.tif", size=(20, 10))  # nothing but the nodata block
+    run_refused(qgis_processing, "fieldcast:simulate", {
+        "INPUT": point_layer(meuse.xy, {"zinc": meuse.zinc}), "FIELD": "zinc",
+        "MODEL": model_file(tmp_path / "model.json", meuse.xy, "EPSG:28992"), "TEMPLATE": template,
+        "OUTPUT": str(tmp_path / "realisations.tif")}, tmp_path, "is nodata, so as a mask it keeps no cell",
+        "Set TEMPLATE_NODATA_MASK to false")
