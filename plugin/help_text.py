@@ -53,9 +53,10 @@ GRID_HELP = [
      "in it); it must be projected (warp a template in degrees first, Raster > Projections > Warp (reproject)), "
      "north-up, not rotated, with square cells. Leave Extent and Pixel size empty with a template (setting them "
      "is refused), and Target CRS empty or the template's CRS. Empty: the grid follows Extent and Pixel size."),
-    ("Extent", "Area of the raster; empty = extent of the samples. Cell edges fall on whole multiples of the pixel "
-     "size, so rasters from several runs line up. An extent more than 10 times as wide (diagonal) as the samples "
-     "is refused: so far from every sample kriging only repeats the mean."),
+    ("Extent", "Area of the raster; empty = extent of the samples (leave it empty with a template). Without a "
+     "template, cell edges fall on whole multiples of the pixel size, so rasters from several runs line up. An "
+     "extent more than 10 times as wide (diagonal) as the samples is refused: so far from every sample kriging "
+     "only repeats the mean."),
     ("Pixel size", "Cell width in working CRS units (e.g. metres). Empty: half the median distance between "
      "neighbouring samples, rounded, and coarser if the grid would exceed a million cells."),
     ("Mask", "Optional polygon layer: cells whose centre is outside every polygon are nodata (and, in "
