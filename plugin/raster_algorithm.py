@@ -1,4 +1,4 @@
-"""What the raster-writing algorithms (predict, simulate) share: template, extent, pixel size, mask, threshold.
+"""What the raster-writing algorithms (predict, predictmany, simulate) share: the output grid, mask and threshold.
 
 :class:`RasterAlgorithm` adds to :class:`.algorithm_base.FieldcastAlgorithm` the
 parameters that define the output grid and the threshold of the decision maps,
@@ -50,7 +50,7 @@ def geotiff_path(path: str) -> str:
 
 
 class RasterAlgorithm(FieldcastAlgorithm):
-    """Base of the algorithms that write rasters on a grid chosen by EXTENT, PIXEL_SIZE and MASK."""
+    """Base of the algorithms that write rasters on a grid chosen by TEMPLATE, or EXTENT and PIXEL_SIZE, and MASK."""
 
     TEMPLATE = "TEMPLATE"
     TEMPLATE_NODATA_MASK = "TEMPLATE_NODATA_MASK"
@@ -159,9 +159,21 @@ class RasterAlgorithm(FieldcastAlgorithm):
         inside = self.mask(parameters, context, grid, working_crs, units, feedback)
         if template is None or not self.parameterAsBoolean(parameters, self.TEMPLATE_NODATA_MASK, context):
             return grid, inside
+        return grid, self.template_mask(template, inside, feedback)
+
+    @staticmethod
+    def template_mask(template: RasterTemplate, inside: np.ndarray | None, feedback) -> np.ndarray | None:
+        """``inside`` (None = every cell) without the template's nodata cells (TEMPLATE_NODATA_MASK), logged.
+
+        Raises
+        ------
+        FieldcastError
+            If no cell is left: the template is all nodata, or has values only outside the mask polygons.
+        """
+        grid = template.grid
         valid = template.valid_cells(feedback.isCanceled)
         if valid is None:
-            return grid, inside
+            return inside
         feedback.pushInfo(f"Template nodata: {grid.n_cells - int(valid.sum()):,} of {grid.n_cells:,} cells are "
                           f"nodata in {template.name} and stay nodata (TEMPLATE_NODATA_MASK; set it to false to "
                           "map them).")
@@ -169,7 +181,7 @@ class RasterAlgorithm(FieldcastAlgorithm):
         if not kept.any():
             raise FieldcastError(f"No cell inside the mask polygons has a value in {template.name}. Set "
                                  "TEMPLATE_NODATA_MASK to false, or choose other mask polygons.")
-        return grid, kept
+        return kept
 
     def grid(self, parameters, context, xy: np.ndarray, working_crs: QgsCoordinateReferenceSystem,
              units: str) -> GridSpec:
