@@ -27,17 +27,45 @@ Python path of local kriging. The cheaper ``(min_i L_ii / max_i L_ii)^2`` is not
 ``rcond`` from above, and on the Meuse samples with a Gaussian model it was
 up to a thousand times too optimistic.
 
-Scope. Kriging (:mod:`..predict.kriging`, :mod:`..predict.local`) follows
-this rule. The likelihood (:mod:`..fit.likelihood`) and the sample-point draw
-of conditional simulation (:mod:`..simulate.conditioning`) instead add the
-smallest diagonal jitter that makes the factorisation succeed: the fitter must
-be able to evaluate every candidate parameter set, so they do not refuse.
+Scope. The rule above is for solves whose result is shown to the user:
+global and local kriging (:mod:`..predict.kriging`, :mod:`..predict.local`)
+and cross-validation (:mod:`..predict.crossval`, through the global factor).
+Three other kinds of factorisation follow their own stated rule, for the
+reasons given:
+
+* Fits and sample draws (the exact likelihood of :mod:`..fit.likelihood`,
+  also used by the joint fit, and the lattice-node covariance of
+  :mod:`..simulate.conditioning`) use :func:`jittered_cholesky`: the matrix
+  as it is, else the smallest diagonal jitter from :data:`JITTER_START` up to
+  :data:`JITTER_LIMIT` of its mean diagonal (steps of ten) that makes it
+  factorise, else a :class:`FieldcastError` that says what to change. A fit
+  explores parameters: the optimiser's way to the optimum may pass near-singular
+  candidates (a long range, a small nugget) that the chosen model is not, and
+  refusing them would stop fits that end well-posed. The jitter is a nugget of
+  at most 1e-4 of the variance; it is reported (the fit adds it to the model's
+  nugget, so predictions use the matrix the likelihood used; simulation says so
+  in its warnings). Condition warnings are not given there: the fitted model is
+  checked by the kriging rule when it predicts.
+* The Vecchia likelihood (:mod:`..fit.vecchia`) factorises its small
+  conditioning sets as one stack; a set that is not positive definite raises a
+  :class:`FieldcastError` (merge near-duplicate samples, use a nugget), without
+  jitter. A jitter there would have to be the same in every set to stay one
+  model, and the sets hold the nearest neighbours of distinct samples (the toolbox
+  averages coincident samples before a fit), so only near-duplicate samples
+  without a nugget make one singular.
+* Square roots for drawing Gaussian values (:func:`..simulate.circulant.covariance_factor`:
+  the Cholesky lattice and the residual of the sample draw) need ``L L^T = K``,
+  not a solve, so ill-conditioning does not amplify errors there; a matrix
+  that rounding makes indefinite is factorised by its symmetric
+  eigendecomposition with rounding-level negative eigenvalues set to zero.
 """
 from __future__ import annotations
 
 import numpy as np
+from scipy import linalg
 from scipy.linalg import lapack
 
+from ..errors import FieldcastError
 from .batched import back_substitution, forward_substitution
 
 UNIT_ROUNDOFF = float(np.finfo(float).eps)
@@ -53,6 +81,12 @@ CONDITION_ADVICE = ("Refit with a less smooth family such as exponential or MatÃ
                     "model), give the model a nugget (the model file's \"nugget\"), or merge near-duplicate samples.")
 """What the user can change to get a better conditioned system."""
 
+
+JITTER_START = 1e-10
+"""First diagonal jitter :func:`jittered_cholesky` tries, as a fraction of the matrix's mean diagonal."""
+
+JITTER_LIMIT = 1e-4
+"""Largest jitter :func:`jittered_cholesky` tries (same units) before refusing the matrix."""
 
 ESTIMATE_STEPS = 5
 """Most climbing steps of the stacked 1-norm estimate (LAPACK's estimator also stops at five).
@@ -125,3 +159,46 @@ def warning_text(what: str, estimate: float) -> str | None:
             f"relative {UNIT_ROUNDOFF / estimate:.0e} of accuracy), so predictions can stray far from the data. "
             + CONDITION_ADVICE)
 
+
+
+def jittered_cholesky(matrix: np.ndarray, what: str, remedy: str) -> tuple[tuple[np.ndarray, bool], float]:
+    """Lower Cholesky factor of a symmetric matrix, with the smallest jitter that lets it factorise (fits, draws).
+
+    Tries ``K``, then ``K + j I`` for ``j`` = :data:`JITTER_START` times the mean diagonal of ``K``, ten times
+    more at each step, up to :data:`JITTER_LIMIT` times it.
+
+    Parameters
+    ----------
+    matrix : ndarray of shape (n, n)
+        Symmetric; its lower triangle is read.
+    what : str
+        The matrix in words, for the refusal ("covariance matrix of the samples").
+    remedy : str
+        What the user can change, appended to the refusal.
+
+    Returns
+    -------
+    factor : tuple
+        As from ``scipy.linalg.cho_factor(..., lower=True)``.
+    jitter : float
+        Value added to the diagonal (0 when none was needed), in the units of ``matrix``.
+
+    Raises
+    ------
+    FieldcastError
+        If the diagonal is not finite, or ``K`` does not factorise with the largest jitter.
+    """
+    diagonal = np.diag(matrix)
+    if not np.all(np.isfinite(diagonal)):
+        raise FieldcastError(f"The {what} has infinite or missing entries; check the model parameters.")
+    scale = float(np.mean(diagonal)) if diagonal.size else 0.0
+    jitter, step = 0.0, JITTER_START * scale
+    while True:
+        shifted = matrix if jitter == 0.0 else matrix + jitter * np.eye(len(matrix))
+        try:
+            return linalg.cho_factor(shifted, lower=True, check_finite=False), jitter
+        except linalg.LinAlgError:
+            if not 0.0 < step <= JITTER_LIMIT * scale:
+                raise FieldcastError(f"The {what} is not positive definite even after adding {jitter:.3g} to its "
+                                     f"diagonal. {remedy}") from None
+            jitter, step = step, step * 10.0

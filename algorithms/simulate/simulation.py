@@ -211,9 +211,9 @@ def simulate_conditional(xy: np.ndarray, values: np.ndarray, covariance: Covaria
         for realisation in realisations:  # one at a time, in place: back_median(y) = exp(y) - offset
             realisation[...] = transform.back_median(realisation)
     warnings = list(generator.warnings)
-    if sampler.jittered:
+    if sampler.jitter:
         warnings.append("The covariance of the lattice nodes around the samples was numerically singular (a very "
-                        "smooth model); a jitter of at most 1e-6 of the field variance was added to draw the "
+                        f"smooth model); a jitter of {sampler.jitter:.0e} of the field variance was added to draw the "
                         "unconditional values at the samples.")
     return SimulationResult(realisations, grid, generator.method, generator.padded_shape, sampler.side, seed,
                             warnings, unresolved, list(generator.notes))
