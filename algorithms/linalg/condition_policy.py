@@ -69,7 +69,10 @@ from ..errors import FieldcastError
 from .batched import back_substitution, forward_substitution
 
 UNIT_ROUNDOFF = float(np.finfo(float).eps)
-"""Relative spacing of double-precision numbers."""
+"""Relative spacing of double-precision numbers at 1 (machine epsilon, 2**-52), used as ``u`` in the rule.
+
+It is twice the unit roundoff 2**-53 of Higham 2002 (section 2.1), so both levels lean towards refusing and
+warning."""
 
 WARN_RELATIVE_ERROR = 1e-4
 """Relative error of a solve (``cond * u``) above which a usable system draws a warning (common practice)."""
