@@ -103,6 +103,7 @@ _PUBLIC = {
     "GridSpec": "io.grid",
     "default_pixel_size": "io.grid",
     "check_extent_reach": "io.grid",
+    "output_grid": "io.grid",
     "cell_mask": "io.mask",
     "hull_mask": "io.mask",
     "checked_cell_mask": "io.mask",
