@@ -18,7 +18,7 @@ from fieldcast.algorithms.predict.crossval import (
     random_folds,
 )
 from fieldcast.algorithms.predict.kriging import KrigingPredictor
-from reference import gaussian_field
+from reference import MEUSE_LOG_ZINC, gaussian_field
 
 SUBSET = slice(0, 155, 3)  # 52 Meuse samples keep the brute-force refits quick
 
@@ -179,8 +179,7 @@ def test_attribute_summary_of_a_log_model_in_the_data_units(meuse, data):
     xy, _, _ = data
     zinc = meuse.zinc[SUBSET]
     transform = Transform("log", 10.0)
-    model = CovarianceModel((Structure("spherical", 0.55, 900.0),), 0.05)
-    result = leave_one_out(xy, transform.forward(zinc), model, MeanModel.for_data("constant", xy))
+    result = leave_one_out(xy, transform.forward(zinc), MEUSE_LOG_ZINC, MeanModel.for_data("constant", xy))
     observed, predicted = result.attribute_values(transform)
     np.testing.assert_allclose(observed, zinc, rtol=1e-12)
     np.testing.assert_allclose(predicted, np.exp(result.predicted) - 10.0, rtol=1e-12)
