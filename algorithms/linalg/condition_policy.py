@@ -58,6 +58,11 @@ reasons given:
   not a solve, so ill-conditioning does not amplify errors there; a matrix
   that rounding makes indefinite is factorised by its symmetric
   eigendecomposition with rounding-level negative eigenvalues set to zero.
+
+Not a covariance system: the average-information Newton steps of the exact
+fit (:mod:`..fit.search`) damp their information matrix by 1e-9 of its trace.
+A step there is only a proposal, kept when it lowers ``-2 l``, so its accuracy
+never reaches a result.
 """
 from __future__ import annotations
 
