@@ -17,7 +17,7 @@ from fieldcast.algorithms.fit import search as fit_search
 from fieldcast.algorithms.fit.bound_warnings import bound_warnings
 from fieldcast.algorithms.fit.fitting import fit_model
 from fieldcast.algorithms.fit.likelihood import log_likelihood
-from fieldcast.algorithms.fit.options import AUTO_FAMILIES, FIT_METHODS, KERNEL_CHOICES
+from fieldcast.algorithms.fit.options import AUTO_FAMILIES, FIT_METHODS, KERNEL_CHOICES, FitOptions
 from fieldcast.algorithms.fit.variogram_fit import fit_wls
 from fieldcast.algorithms.model.correlation import FAMILIES
 from fieldcast.algorithms.model.covariance import CovarianceModel, Structure
@@ -381,3 +381,12 @@ def test_a_fit_stopped_by_the_iteration_limit_says_so(meuse):
 def test_the_iteration_limit_must_be_a_positive_whole_number(meuse, limit):
     with pytest.raises(FieldcastError, match=f"iteration limit must be a whole number of 1 or more; got {limit!r}"):
         fit_model(meuse.xy, np.log(meuse.zinc), kernel="spherical", anisotropy=False, max_iterations=limit)
+
+
+def test_fit_options_in_words_use_the_documented_choice_words():
+    # The log words are the README's choice words of KERNEL, TREND and METHOD (read above), not internal names.
+    kernel, trend, method = documented_choices("KERNEL")[-1], "linear", documented_choices("METHOD")[-1]
+    words = FitOptions(kernel=kernel, anisotropy=False, mean=trend, method=method).describe()
+    assert words == f"kernel {kernel}, anisotropy off, {trend} trend, {method.upper()}"
+    xy = np.random.default_rng(0).uniform(0.0, 100.0, (10, 2))
+    assert "quadratic trend" in FitOptions(mean=MeanModel.for_data("quadratic", xy)).describe()
