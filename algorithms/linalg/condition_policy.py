@@ -1,4 +1,4 @@
-"""One rule for when a factorised covariance system is refused, accepted with a warning, or accepted.
+"""The one factorisation policy: when a covariance system is refused, used with a warning, or used.
 
 Accuracy. Cholesky factorisation of a symmetric positive definite ``K``
 (k x k) is backward stable: the computed factor is exact for ``K + E`` with
@@ -41,7 +41,9 @@ reasons given:
   factorise, else a :class:`FieldcastError` that says what to change. A fit
   explores parameters: the optimiser's way to the optimum may pass near-singular
   candidates (a long range, a small nugget) that the chosen model is not, and
-  refusing them would stop fits that end well-posed. The jitter is a nugget of
+  refusing them would stop fits that end well-posed. A draw needs the node
+  covariance only to well below the Monte Carlo error of its realisations, which
+  a jitter of 1e-4 of the variance is. The jitter is a nugget of
   at most 1e-4 of the variance; it is reported (the fit adds it to the model's
   nugget, so predictions use the matrix the likelihood used; simulation says so
   in its warnings). Condition warnings are not given there: the fitted model is
