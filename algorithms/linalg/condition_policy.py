@@ -51,10 +51,12 @@ reasons given:
 * The Vecchia likelihood (:mod:`..fit.vecchia`) factorises its small
   conditioning sets as one stack; a set that is not positive definite raises a
   :class:`FieldcastError` (merge near-duplicate samples, use a nugget), without
-  jitter. A jitter there would have to be the same in every set to stay one
-  model, and the sets hold the nearest neighbours of distinct samples (the toolbox
-  averages coincident samples before a fit), so only near-duplicate samples
-  without a nugget make one singular.
+  jitter. Within a fit the nugget is at least 1e-6 of the sample variance
+  (:data:`..model.parameters.NUGGET_BOUNDS`), which bounds every eigenvalue of a
+  set from below, far above the rounding error of a factor of a few dozen rows
+  (Higham 2002, theorem 10.3); so a set fails only for a model given from
+  outside with a (near) zero nugget and near-duplicate samples, and that model
+  is refused rather than changed.
 * Square roots for drawing Gaussian values (:func:`..simulate.circulant.covariance_factor`:
   the Cholesky lattice and the residual of the sample draw) need ``L L^T = K``,
   not a solve, so ill-conditioning does not amplify errors there; a matrix
