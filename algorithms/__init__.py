@@ -104,6 +104,7 @@ _PUBLIC = {
     "default_pixel_size": "io.grid",
     "check_extent_reach": "io.grid",
     "RasterTemplate": "io.template",
+    "output_grid": "io.grid",
     "cell_mask": "io.mask",
     "hull_mask": "io.mask",
     "checked_cell_mask": "io.mask",

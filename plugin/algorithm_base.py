@@ -42,6 +42,7 @@ from ..algorithms import (
     TRANSFORM_KINDS,
     Cancelled,
     FieldcastError,
+    FitOptions,
     LogLine,
     ModelDocument,
     Neighbourhood,
@@ -55,7 +56,7 @@ from ..algorithms import (
 from .destinations import destination_value, layer_file, refuse_clashes
 from .help_text import SHORT_DESCRIPTIONS, help_url, parameter_help, search_words
 from .icons import icon, icon_path
-from .model_source import FitSettings, describe_document, fit_document, load_document
+from .model_source import describe_document, fit_document, load_document
 from .report.page import ReportError
 from .sample_reader import LayerSamples, ModelSamples, prepare_samples, read_layer_samples
 from .whole_numbers import whole_number
@@ -214,14 +215,15 @@ class FieldcastAlgorithm(QgsProcessingAlgorithm):
         self.add_choice(self.TREND, self.tr("Trend"), TREND_CHOICES, "constant")
         self.add_choice(self.METHOD, self.tr("Fitting method"), FIT_METHODS, "reml")
 
-    def fit_choices(self, parameters, context) -> tuple[Transform, FitSettings]:
-        """The transform and fit settings chosen with the parameters of :meth:`add_fit_parameters`."""
+    def fit_choices(self, parameters, context) -> tuple[Transform, FitOptions]:
+        """The transform and the engine's fit settings chosen with the parameters of :meth:`add_fit_parameters`
+        (the one place the dialog's words become them)."""
         transform = Transform(self.choice(parameters, self.TRANSFORM, context),
                               self.parameterAsDouble(parameters, self.LOG_OFFSET, context))
-        settings = FitSettings(kernel=self.choice(parameters, self.KERNEL, context),
-                               anisotropy=self.parameterAsBoolean(parameters, self.ANISOTROPY, context),
-                               trend=self.choice(parameters, self.TREND, context),
-                               method=self.choice(parameters, self.METHOD, context))
+        settings = FitOptions(kernel=self.choice(parameters, self.KERNEL, context),
+                              anisotropy=self.parameterAsBoolean(parameters, self.ANISOTROPY, context),
+                              mean=self.choice(parameters, self.TREND, context),
+                              method=self.choice(parameters, self.METHOD, context))
         return transform, settings
 
     def add_neighbourhood_parameters(self, per: str = "cell") -> None:
@@ -321,7 +323,7 @@ class FieldcastAlgorithm(QgsProcessingAlgorithm):
                                      f"it is applied here to {layer_samples.field!r}.")
             samples = prepare_samples(layer_samples, document.transform, feedback)
         else:
-            settings = FitSettings()
+            settings = FitOptions()
             feedback.pushInfo(f"No model file given: fitting a model with the default settings "
                               f"({settings.describe()}, no transform). Run 'Fit covariance model' to choose them.")
             samples = prepare_samples(layer_samples, Transform(), feedback)

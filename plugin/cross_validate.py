@@ -23,7 +23,6 @@ from ..algorithms import (
     CrossValidation,
     FieldcastError,
     ModelDocument,
-    Transform,
     leave_one_out,
     local_leave_one_out,
     parse_crs,
@@ -62,15 +61,6 @@ def free_names(wanted: Sequence[str], taken: Iterable[str]) -> list[str]:
         used.add(candidate.lower())
         names.append(candidate)
     return names
-
-
-def result_columns(result: CrossValidation, transform: Transform) -> list[np.ndarray]:
-    """The columns of :data:`RESULT_FIELDS` (and, for a log model, :data:`ATTRIBUTE_FIELDS`), each (n,)."""
-    columns = [result.observed, result.predicted, np.sqrt(result.variance), result.residual, result.standardized]
-    if transform.kind != "none":
-        observed, predicted = result.attribute_values(transform)
-        columns += [observed, predicted, observed - predicted]
-    return columns
 
 
 class CrossValidateAlgorithm(FieldcastAlgorithm):
@@ -163,7 +153,7 @@ class CrossValidateAlgorithm(FieldcastAlgorithm):
         fids = [int(fid) for fid in samples.fids]
         request = QgsFeatureRequest().setFilterFids(fids).setFlags(QgsFeatureRequest.NoGeometry)
         inputs = {feature.id(): feature.attributes() for feature in source.getFeatures(request)}
-        columns = result_columns(result, document.transform)
+        columns = result.sample_columns(document.transform)
         names = free_names(["cv_feature_id", *RESULT_FIELDS, *ATTRIBUTE_FIELDS][:len(columns) + 1],
                            source.fields().names())
         fields = QgsFields(source.fields())

@@ -2,7 +2,6 @@
 from __future__ import annotations
 
 from collections.abc import Callable
-from dataclasses import dataclass
 
 import numpy as np
 
@@ -20,34 +19,15 @@ from ..algorithms import (
 )
 
 
-@dataclass(frozen=True)
-class FitSettings:
-    """The choices of 'Fit covariance model'; the defaults are what the other tools use without a model file."""
-
-    kernel: str = "auto"
-    anisotropy: bool = True
-    trend: str = "constant"
-    method: str = "reml"
-
-    def options(self) -> FitOptions:
-        """The engine's settings object for these choices (the one place the dialog's words become it)."""
-        return FitOptions(kernel=self.kernel, anisotropy=self.anisotropy, mean=self.trend, method=self.method)
-
-    def describe(self) -> str:
-        """The settings in words, for the log."""
-        return (f"kernel {self.kernel}, anisotropy {'on' if self.anisotropy else 'off'}, "
-                f"{self.trend} trend, {self.method.upper()}")
-
-
 def fit_document(xy: np.ndarray, values: np.ndarray, transform: Transform, working: WorkingCrs, field: str,
-                 settings: FitSettings, progress: Callable[[float], None] | None = None,
+                 settings: FitOptions, progress: Callable[[float], None] | None = None,
                  should_stop: Callable[[], bool] | None = None) -> tuple[ModelDocument, FitResult]:
     """Fit a covariance and mean model and wrap it, with its CRS and transform, as a model document.
 
     ``xy`` is in the working CRS and ``values`` in the modelling scale (after ``transform``).
     Returns the document and the engine's fit result (candidates and all), which the fit report reads.
     """
-    result = fit_with(xy, values, settings.options(), progress=progress, should_stop=should_stop)
+    result = fit_with(xy, values, settings, progress=progress, should_stop=should_stop)
     return result_document(result, transform, working, field), result
 
 
@@ -58,13 +38,13 @@ def result_document(result: FitResult, transform: Transform, working: WorkingCrs
 
 
 def fit_shared_documents(xy: np.ndarray, values: np.ndarray, transform: Transform, working: WorkingCrs,
-                         fields: list[str], settings: FitSettings, progress: Callable[[float], None] | None = None,
+                         fields: list[str], settings: FitOptions, progress: Callable[[float], None] | None = None,
                          should_stop: Callable[[], bool] | None = None) -> list[ModelDocument]:
     """One correlation model fitted jointly to several fields (``values`` (n, k)), as one document per field.
 
     See :mod:`..algorithms.fit.shared`: every document holds the shared model at its field's scale.
     """
-    results = fit_shared(xy, values, settings.options(), fields, progress=progress, should_stop=should_stop)
+    results = fit_shared(xy, values, settings, fields, progress=progress, should_stop=should_stop)
     return [result_document(result, transform, working, field) for result, field in zip(results, fields)]
 
 

@@ -14,7 +14,7 @@ from qgis.core import (
     QgsProcessingParameterFolderDestination,
 )
 
-from ..algorithms import Cancelled, FieldcastError, MeanModel, Neighbourhood, SurfaceScale, Transform
+from ..algorithms import Cancelled, FieldcastError, FitOptions, MeanModel, Neighbourhood, SurfaceScale, Transform
 from .algorithm_base import progress_callback
 from .help_text import (
     BACKTRANSFORM_HELP,
@@ -26,7 +26,7 @@ from .help_text import (
     compose_help,
 )
 from .layer_style import load_styled
-from .model_source import FitSettings, describe_document, fit_document, fit_shared_documents
+from .model_source import describe_document, fit_document, fit_shared_documents
 from .sample_reader import prepare_samples, read_layer_samples
 from .surface_algorithm import SurfaceAlgorithm
 
@@ -183,7 +183,7 @@ class PredictManyAlgorithm(SurfaceAlgorithm):
         run = FieldsRun(prepared, file_stems(fields), folder, transform, settings,
                         self.neighbourhood(parameters, context),
                         SurfaceScale(transform, self.choice(parameters, self.BACKTRANSFORM, context)))
-        run.neighbourhood.resolved(MeanModel.for_data(settings.trend, prepared[0][1].xy), "cell")  # refuse early
+        run.neighbourhood.resolved(MeanModel.for_data(settings.mean, prepared[0][1].xy), "cell")  # refuse early
         if self.parameterAsBoolean(parameters, self.SHARED_MODEL, context):
             self.predict_shared(run, parameters, context, feedback)
         else:
@@ -271,7 +271,7 @@ class FieldsRun:
     stems: dict[str, str]
     folder: str
     transform: Transform
-    settings: FitSettings
+    settings: FitOptions
     neighbourhood: Neighbourhood
     scale: SurfaceScale
 

@@ -26,16 +26,13 @@ from ..algorithms import (
     FieldcastError,
     GridSpec,
     RasterTemplate,
-    check_extent_reach,
     checked_cell_mask,
-    default_pixel_size,
     defined_crs,
+    output_grid,
 )
 from .algorithm_base import FieldcastAlgorithm, advanced
 from .sample_reader import crs_wkt
 
-MAX_DEFAULT_CELLS = 1_000_000
-"""Cap on the number of cells of a grid whose pixel size is chosen automatically."""
 MEMORY_LIMIT_BYTES = 2e9
 """Largest total size of the Float32 output bands accepted (a grid that large takes hours to krige)."""
 GEOTIFF_EXTENSIONS = (".tif", ".tiff")
@@ -188,21 +185,9 @@ class RasterAlgorithm(FieldcastAlgorithm):
         """The output grid from EXTENT (default: the samples' extent; at most ten times its diagonal) and
         PIXEL_SIZE (default: from spacing)."""
         rectangle = self.parameterAsExtent(parameters, self.EXTENT, context, working_crs)
-        if rectangle.isNull():
-            low, high = xy.min(axis=0), xy.max(axis=0)
-            extent = (float(low[0]), float(low[1]), float(high[0]), float(high[1]))
-        else:
-            extent = (rectangle.xMinimum(), rectangle.yMinimum(), rectangle.xMaximum(), rectangle.yMaximum())
-            check_extent_reach(extent, xy, units)
-        pixel_size = self.optional_number(parameters, self.PIXEL_SIZE, context)
-        if pixel_size is None:
-            pixel_size = default_pixel_size(xy, extent, max_cells=MAX_DEFAULT_CELLS)
-        grid = GridSpec.from_extent(*extent, pixel_size)
-        if not grid.overlaps(xy):
-            raise FieldcastError(f"The extent {', '.join(f'{v:.10g}' for v in extent)} does not overlap the "
-                                 "samples. Choose an extent that covers (part of) the sample layer, or leave it "
-                                 "empty to use the samples' extent.")
-        return grid
+        extent = None if rectangle.isNull() else (rectangle.xMinimum(), rectangle.yMinimum(), rectangle.xMaximum(),
+                                                  rectangle.yMaximum())
+        return output_grid(xy, extent, self.optional_number(parameters, self.PIXEL_SIZE, context), units)
 
     def mask(self, parameters, context, grid: GridSpec, working_crs: QgsCoordinateReferenceSystem, units: str,
              feedback) -> np.ndarray | None:

@@ -197,7 +197,7 @@ class SimulateAlgorithm(RasterAlgorithm):
         if wants_table:
             outputs[self.OUTPUT_TABLE] = self.write_table(parameters, context, summary)
         if summary is not None and summary.area_above is not None:
-            areas = np.percentile(summary.area_above, [percent for _, _, percent in AREA_OUTPUTS])
+            areas = summary.area_percentiles([percent for _, _, percent in AREA_OUTPUTS])
             outputs.update({name: float(area) for (name, _, _), area in zip(AREA_OUTPUTS, areas)})
             feedback.pushInfo(
                 f"Area of the masked cells above {threshold:g}: P10 {area_words(areas[0], document.units)}, P50 "

@@ -36,11 +36,11 @@ from fieldcast.algorithms import (  # noqa: E402
     UnconditionalGenerator,
     cell_mask,
     cell_predictor,
-    default_pixel_size,
     fit_model,
     fit_shared,
     fit_vecchia,
     log_likelihood,
+    output_grid,
     write_surfaces,
 )
 
@@ -116,8 +116,7 @@ def fields_at_shared_locations(n: int, n_fields: int, seed: int = 11, cells_per_
 
 def _grid_and_mask(xy: np.ndarray) -> tuple[GridSpec, np.ndarray]:
     """What predict does before kriging: the default grid over the samples, and a disc-shaped polygon mask."""
-    extent = (*xy.min(axis=0), *xy.max(axis=0))
-    grid = GridSpec.from_extent(*extent, default_pixel_size(xy, extent, max_cells=1_000_000))
+    grid = output_grid(xy)  # the shipped grid choice for empty EXTENT and PIXEL_SIZE
     disc = ogr.CreateGeometryFromWkt(f"POINT ({SIDE / 2} {SIDE / 2})").Buffer(SIDE / 2, 64)
     return grid, cell_mask(grid, [bytes(disc.ExportToWkb())])
 

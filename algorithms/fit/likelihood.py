@@ -30,8 +30,10 @@ evaluated as ``1/2 (a^T D a - sum(W * D))`` with ``D = dK/dtheta`` and
 ``W = P`` or ``K^-1`` (both symmetric), so no n x n product is formed.
 
 Numerics: Cholesky factors (``scipy.linalg.cho_factor``); a matrix that is
-not positive definite (e.g. coincident samples and a zero nugget) gets a
-small jitter on its diagonal, which is reported, never a silent NaN. The
+not positive definite (e.g. coincident samples and a zero nugget) gets the
+smallest diagonal jitter of the fit rule in :mod:`..linalg.condition_policy`
+(:func:`..linalg.condition_policy.jittered_cholesky`), which is reported, never
+a silent NaN. The
 design enters through an orthonormal basis ``F = Q R``:
 ``log|F^T K^-1 F| = log|Q^T K^-1 Q| + 2 log|det R|`` exactly, while the
 solves use the well-conditioned ``Q``.
@@ -49,6 +51,7 @@ from scipy.linalg import blas, lapack
 
 from ..errors import Cancelled, FieldcastError
 from ..io.samples import check_samples
+from ..linalg.condition_policy import jittered_cholesky
 from ..model.covariance import CovarianceModel
 from ..model.mean import MeanModel
 from ..model.parameters import ParameterLayout, covariance_derivatives
@@ -58,11 +61,8 @@ LIKELIHOOD_METHODS = ("reml", "ml")
 
 LOG_2PI = math.log(2.0 * math.pi)
 
-JITTER_START = 1e-10
-"""First jitter tried, as a fraction of the mean diagonal of the matrix."""
-
-JITTER_LIMIT = 1e-4
-"""Largest jitter tried (same units) before giving up."""
+SINGULAR_REMEDY = "Merge samples at the same location, or use a model with a nugget."
+"""What to change when the covariance matrix of the samples does not factorise."""
 
 
 @dataclass(frozen=True)
@@ -162,34 +162,6 @@ def jitter_message(jitter: float) -> str:
     )
 
 
-def factorise(matrix: np.ndarray) -> tuple[tuple[np.ndarray, bool], float]:
-    """Lower Cholesky factor of a symmetric matrix, with jitter if it is not positive definite.
-
-    Returns
-    -------
-    factor : tuple
-        As from ``scipy.linalg.cho_factor(..., lower=True)``.
-    jitter : float
-        Value added to the diagonal (0 when none was needed).
-    """
-    if not np.all(np.isfinite(np.diag(matrix))):
-        raise FieldcastError("The covariance matrix has infinite or missing entries; check the model parameters.")
-    scale = float(np.mean(np.diag(matrix)))
-    jitter = 0.0
-    step = JITTER_START * scale
-    while True:
-        shifted = matrix if jitter == 0.0 else matrix + jitter * np.eye(len(matrix))
-        try:
-            return linalg.cho_factor(shifted, lower=True, check_finite=False), jitter
-        except linalg.LinAlgError:
-            if step > JITTER_LIMIT * scale:
-                raise FieldcastError(
-                    "The covariance matrix of the samples is not positive definite even after adding "
-                    f"{jitter:.3g} to its diagonal. Merge samples at the same location, or use a model with a nugget."
-                ) from None
-            jitter, step = step, step * 10.0
-
-
 @dataclass(frozen=True)
 class GlsSolution:
     """The solves one likelihood evaluation shares between its value and its gradient.
@@ -226,7 +198,7 @@ class GlsSolution:
     @classmethod
     def solve(cls, matrix: np.ndarray, y: np.ndarray, basis: MeanBasis) -> GlsSolution:
         """Factorise ``K`` (lower triangle read) and solve for one (n,) or several (n, m) columns ``y``."""
-        factor, jitter = factorise(matrix)
+        factor, jitter = jittered_cholesky(matrix, "covariance matrix of the samples", SINGULAR_REMEDY)
         log_det_k = 2.0 * float(np.sum(np.log(np.diag(factor[0]))))
         solved_y = linalg.cho_solve(factor, y, check_finite=False)
         if not basis.q.shape[1]:

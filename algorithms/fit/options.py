@@ -180,6 +180,12 @@ class FitOptions:
             raise FieldcastError(f"The optimiser's iteration limit must be a whole number of 1 or more; got "
                                  f"{limit!r}. Give a positive whole number (default {MAX_ITERATIONS}).")
 
+    def describe(self) -> str:
+        """The main settings in words, for the log: ``kernel auto, anisotropy on, constant trend, REML``."""
+        mean = self.mean if isinstance(self.mean, str) else self.mean.kind
+        return (f"kernel {self.kernel}, anisotropy {'on' if self.anisotropy else 'off'}, {mean} trend, "
+                f"{self.method.upper()}")
+
 
 def with_jitter_in_nugget(covariance: CovarianceModel, jitter: float, messages: list[str]) -> CovarianceModel:
     """The model with a factorisation's diagonal jitter added to its nugget, said in ``messages`` (appended to).

@@ -25,6 +25,8 @@ EXTENT_REACH = 10.0
 """Largest ratio of an output extent's diagonal to the diagonal of the samples' bounding box. Farther than a few
 ranges from every sample kriging gives the mean and the sill, so a wider extent is almost all such cells (and
 hours of work)."""
+DEFAULT_MAX_CELLS = 1_000_000
+"""Most cells of a grid whose pixel size is derived from the sample spacing (PIXEL_SIZE empty)."""
 
 
 def readable_floor(value: float) -> float:
@@ -224,7 +226,7 @@ class GridSpec:
 
 
 def default_pixel_size(xy: np.ndarray, extent: tuple[float, float, float, float],
-                       max_cells: int = 1_000_000) -> float:
+                       max_cells: int = DEFAULT_MAX_CELLS) -> float:
     """A readable pixel size derived from the sample spacing.
 
     Half the median nearest-neighbour distance between distinct sample locations
@@ -288,3 +290,40 @@ def check_extent_reach(extent: tuple[float, float, float, float], xy: np.ndarray
             f"the samples' (a diagonal up to {reach * span:.6g} {units}s), or leave EXTENT empty to use the "
             "samples' extent."
         )
+
+
+def output_grid(xy: np.ndarray, extent: tuple[float, float, float, float] | None = None,
+                pixel_size: float | None = None, units: str = "CRS unit",
+                max_cells: int = DEFAULT_MAX_CELLS) -> GridSpec:
+    """The output grid of a raster run (predict, predictmany, simulate) from EXTENT and PIXEL_SIZE.
+
+    Parameters
+    ----------
+    xy : ndarray of shape (n, 2)
+        Sample locations (working CRS units).
+    extent : tuple of float, optional
+        ``x_min, y_min, x_max, y_max`` as chosen (checked by :func:`check_extent_reach`); None = the samples'
+        bounding box.
+    pixel_size : float, optional
+        Cell width as chosen; None = :func:`default_pixel_size` with at most ``max_cells`` cells.
+    units : str
+        Name of the working CRS unit, for the messages.
+
+    Raises
+    ------
+    FieldcastError
+        For an extent too wide for the samples or not overlapping them, or a pixel size that cannot be used.
+    """
+    if extent is None:
+        low, high = np.asarray(xy, dtype=float).min(axis=0), np.asarray(xy, dtype=float).max(axis=0)
+        extent = (float(low[0]), float(low[1]), float(high[0]), float(high[1]))
+    else:
+        check_extent_reach(extent, xy, units)
+    if pixel_size is None:
+        pixel_size = default_pixel_size(xy, extent, max_cells=max_cells)
+    grid = GridSpec.from_extent(*extent, pixel_size)
+    if not grid.overlaps(xy):
+        raise FieldcastError(f"The extent {', '.join(f'{v:.10g}' for v in extent)} does not overlap the "
+                             "samples. Choose an extent that covers (part of) the sample layer, or leave it "
+                             "empty to use the samples' extent.")
+    return grid

@@ -1,4 +1,4 @@
-"""One rule for when a factorised covariance system is refused, accepted with a warning, or accepted.
+"""The one factorisation policy: when a covariance system is refused, used with a warning, or used.
 
 Accuracy. Cholesky factorisation of a symmetric positive definite ``K``
 (k x k) is backward stable: the computed factor is exact for ``K + E`` with
@@ -27,21 +27,61 @@ Python path of local kriging. The cheaper ``(min_i L_ii / max_i L_ii)^2`` is not
 ``rcond`` from above, and on the Meuse samples with a Gaussian model it was
 up to a thousand times too optimistic.
 
-Scope. Kriging (:mod:`..predict.kriging`, :mod:`..predict.local`) follows
-this rule. The likelihood (:mod:`..fit.likelihood`) and the sample-point draw
-of conditional simulation (:mod:`..simulate.conditioning`) instead add the
-smallest diagonal jitter that makes the factorisation succeed: the fitter must
-be able to evaluate every candidate parameter set, so they do not refuse.
+Scope. The rule above is for solves whose result is shown to the user:
+global and local kriging (:mod:`..predict.kriging`, :mod:`..predict.local`)
+and cross-validation (:mod:`..predict.crossval`, through the global factor).
+Three other kinds of factorisation follow their own stated rule, for the
+reasons given:
+
+* Fits and sample draws (the exact likelihood of :mod:`..fit.likelihood`,
+  also used by the joint fit, and the lattice-node covariance of
+  :mod:`..simulate.conditioning`) use :func:`jittered_cholesky`: the matrix
+  as it is, else the smallest diagonal jitter from :data:`JITTER_START` up to
+  :data:`JITTER_LIMIT` of its mean diagonal (steps of ten) that makes it
+  factorise, else a :class:`FieldcastError` that says what to change. A fit
+  explores parameters: the optimiser's way to the optimum may pass near-singular
+  candidates (a long range, a small nugget) that the chosen model is not, and
+  refusing them would stop fits that end well-posed. A draw needs the node
+  covariance only to well below the Monte Carlo error of its realisations, which
+  a jitter of 1e-4 of the variance is. The jitter is a nugget of
+  at most 1e-4 of the variance; it is reported (the fit adds it to the model's
+  nugget, so predictions use the matrix the likelihood used; simulation says so
+  in its warnings). Condition warnings are not given there: the fitted model is
+  checked by the kriging rule when it predicts.
+* The Vecchia likelihood (:mod:`..fit.vecchia`) factorises its small
+  conditioning sets as one stack; a set that is not positive definite raises a
+  :class:`FieldcastError` (merge near-duplicate samples, use a nugget), without
+  jitter. Within a fit the nugget is at least 1e-6 of the sample variance
+  (:data:`..model.parameters.NUGGET_BOUNDS`), which bounds every eigenvalue of a
+  set from below, far above the rounding error of a factor of a few dozen rows
+  (Higham 2002, theorem 10.3); so a set fails only for a model given from
+  outside with a (near) zero nugget and near-duplicate samples, and that model
+  is refused rather than changed.
+* Square roots for drawing Gaussian values (:func:`..simulate.circulant.covariance_factor`:
+  the Cholesky lattice and the residual of the sample draw) need ``L L^T = K``,
+  not a solve, so ill-conditioning does not amplify errors there; a matrix
+  that rounding makes indefinite is factorised by its symmetric
+  eigendecomposition with rounding-level negative eigenvalues set to zero.
+
+Not a covariance system: the average-information Newton steps of the exact
+fit (:mod:`..fit.search`) damp their information matrix by 1e-9 of its trace.
+A step there is only a proposal, kept when it lowers ``-2 l``, so its accuracy
+never reaches a result.
 """
 from __future__ import annotations
 
 import numpy as np
+from scipy import linalg
 from scipy.linalg import lapack
 
+from ..errors import FieldcastError
 from .batched import back_substitution, forward_substitution
 
 UNIT_ROUNDOFF = float(np.finfo(float).eps)
-"""Relative spacing of double-precision numbers."""
+"""Relative spacing of double-precision numbers at 1 (machine epsilon, 2**-52), used as ``u`` in the rule.
+
+It is twice the unit roundoff 2**-53 of Higham 2002 (section 2.1), so both levels lean towards refusing and
+warning."""
 
 WARN_RELATIVE_ERROR = 1e-4
 """Relative error of a solve (``cond * u``) above which a usable system draws a warning (common practice)."""
@@ -53,6 +93,12 @@ CONDITION_ADVICE = ("Refit with a less smooth family such as exponential or MatÃ
                     "model), give the model a nugget (the model file's \"nugget\"), or merge near-duplicate samples.")
 """What the user can change to get a better conditioned system."""
 
+
+JITTER_START = 1e-10
+"""First diagonal jitter :func:`jittered_cholesky` tries, as a fraction of the matrix's mean diagonal."""
+
+JITTER_LIMIT = 1e-4
+"""Largest jitter :func:`jittered_cholesky` tries (same units) before refusing the matrix."""
 
 ESTIMATE_STEPS = 5
 """Most climbing steps of the stacked 1-norm estimate (LAPACK's estimator also stops at five).
@@ -125,3 +171,46 @@ def warning_text(what: str, estimate: float) -> str | None:
             f"relative {UNIT_ROUNDOFF / estimate:.0e} of accuracy), so predictions can stray far from the data. "
             + CONDITION_ADVICE)
 
+
+
+def jittered_cholesky(matrix: np.ndarray, what: str, remedy: str) -> tuple[tuple[np.ndarray, bool], float]:
+    """Lower Cholesky factor of a symmetric matrix, with the smallest jitter that lets it factorise (fits, draws).
+
+    Tries ``K``, then ``K + j I`` for ``j`` = :data:`JITTER_START` times the mean diagonal of ``K``, ten times
+    more at each step, up to :data:`JITTER_LIMIT` times it.
+
+    Parameters
+    ----------
+    matrix : ndarray of shape (n, n)
+        Symmetric; its lower triangle is read.
+    what : str
+        The matrix in words, for the refusal ("covariance matrix of the samples").
+    remedy : str
+        What the user can change, appended to the refusal.
+
+    Returns
+    -------
+    factor : tuple
+        As from ``scipy.linalg.cho_factor(..., lower=True)``.
+    jitter : float
+        Value added to the diagonal (0 when none was needed), in the units of ``matrix``.
+
+    Raises
+    ------
+    FieldcastError
+        If the diagonal is not finite, or ``K`` does not factorise with the largest jitter.
+    """
+    diagonal = np.diag(matrix)
+    if not np.all(np.isfinite(diagonal)):
+        raise FieldcastError(f"The {what} has infinite or missing entries; check the model parameters.")
+    scale = float(np.mean(diagonal)) if diagonal.size else 0.0
+    jitter, step = 0.0, JITTER_START * scale
+    while True:
+        shifted = matrix if jitter == 0.0 else matrix + jitter * np.eye(len(matrix))
+        try:
+            return linalg.cho_factor(shifted, lower=True, check_finite=False), jitter
+        except linalg.LinAlgError:
+            if not 0.0 < step <= JITTER_LIMIT * scale:
+                raise FieldcastError(f"The {what} is not positive definite even after adding {jitter:.3g} to its "
+                                     f"diagonal. {remedy}") from None
+            jitter, step = step, step * 10.0

@@ -119,6 +119,19 @@ class CrossValidation:
         """
         return transform.back_median(self.observed), transform.back_median(self.predicted)
 
+    def sample_columns(self, transform: Transform) -> list[np.ndarray]:
+        """The per-sample columns of the cross-validation layer, each (n,), in this order.
+
+        Observed, predicted, standard error ``sqrt(variance)``, residual and standardized residual (modelling
+        scale); for a transformed model also observed, predicted and ``observed - predicted`` in attribute units
+        (:meth:`attribute_values`).
+        """
+        columns = [self.observed, self.predicted, np.sqrt(self.variance), self.residual, self.standardized]
+        if transform.kind != "none":
+            observed, predicted = self.attribute_values(transform)
+            columns += [observed, predicted, observed - predicted]
+        return columns
+
     def attribute_summary(self, transform: Transform) -> dict:
         """``ME_ATTRIBUTE`` and ``RMSE_ATTRIBUTE``: mean and root mean squared ``observed - predicted`` in
         attribute units (:meth:`attribute_values`) over the resolved samples; NaN when none is resolved.

@@ -38,6 +38,7 @@ import numpy as np
 from scipy import linalg
 
 from ..io.grid import GridSpec
+from ..linalg.condition_policy import jittered_cholesky
 from ..model.covariance import CovarianceModel
 from .circulant import covariance_factor
 
@@ -47,8 +48,9 @@ NEIGHBOURHOOD_SIDES = (4, 3, 2, 1)
 MAX_CONDITIONING_NODES = 4000
 """Largest union of neighbourhood nodes factorised (a 4000 x 4000 Cholesky, about 1 s)."""
 
-JITTER_STEPS = (0.0, 1e-10, 1e-8, 1e-6)
-"""Multiples of the field variance added to the node covariance diagonal if it is numerically singular."""
+NODES_REMEDY = ("Use a larger PIXEL_SIZE, or refit with a less smooth family such as exponential or Matérn 3/2 "
+                "(KERNEL in Fit covariance model).")
+"""What to change when the covariance of the lattice nodes around the samples does not factorise."""
 
 
 def neighbourhood_indices(grid: GridSpec, xy: np.ndarray, side: int) -> tuple[np.ndarray, np.ndarray]:
@@ -83,17 +85,6 @@ def choose_neighbourhood(grid: GridSpec, xy: np.ndarray) -> tuple[np.ndarray, np
     raise AssertionError("unreachable")
 
 
-def _node_factor(node_covariance: np.ndarray, field_variance: float) -> tuple[np.ndarray, bool]:
-    """Cholesky factor of the node covariance, adding the smallest jitter that makes it positive definite."""
-    for step in JITTER_STEPS:
-        matrix = node_covariance + step * field_variance * np.eye(len(node_covariance))
-        try:
-            return linalg.cho_factor(matrix, lower=True, check_finite=False), step > 0
-        except linalg.LinAlgError:
-            continue
-    raise linalg.LinAlgError("node covariance is not positive definite")
-
-
 class SampleDraw:
     """Draws unconditional sample-point values jointly with lattice realisations.
 
@@ -113,8 +104,9 @@ class SampleDraw:
     ----------
     side : int
         Neighbourhood side ``k``.
-    jittered : bool
-        True when the node covariance needed a small diagonal jitter (very smooth models).
+    jitter : float
+        Diagonal jitter the node covariance needed, as a fraction of the field variance (0 normally; very
+        smooth models on fine lattices), by the fit-and-draw rule of :mod:`..linalg.condition_policy`.
     """
 
     def __init__(self, covariance: CovarianceModel, lattice: GridSpec, xy: np.ndarray,
@@ -127,8 +119,9 @@ class SampleDraw:
         self.side = math.isqrt(rows.shape[1])
         self.nodes = np.unique(rows.ravel() * lattice.n_cols + cols.ravel())
         node_xy = self.node_centres(self.nodes)
-        factor, self.jittered = _node_factor(covariance.cross_covariance(node_xy, node_xy),
-                                             covariance.field_variance)
+        factor, jitter = jittered_cholesky(covariance.cross_covariance(node_xy, node_xy),
+                                           "covariance of the lattice nodes around the samples", NODES_REMEDY)
+        self.jitter = jitter / covariance.field_variance if jitter else 0.0  # over the mean diagonal
         sample_node = covariance.cross_covariance(self.xy, node_xy)
         self.weights = linalg.cho_solve(factor, sample_node.T, check_finite=False).T  # A, (n, |U|)
         residual = covariance.data_covariance(self.xy) - self.weights @ sample_node.T

@@ -28,7 +28,7 @@ reproducible.
 """
 from __future__ import annotations
 
-from collections.abc import Callable
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -211,9 +211,9 @@ def simulate_conditional(xy: np.ndarray, values: np.ndarray, covariance: Covaria
         for realisation in realisations:  # one at a time, in place: back_median(y) = exp(y) - offset
             realisation[...] = transform.back_median(realisation)
     warnings = list(generator.warnings)
-    if sampler.jittered:
+    if sampler.jitter:
         warnings.append("The covariance of the lattice nodes around the samples was numerically singular (a very "
-                        "smooth model); a jitter of at most 1e-6 of the field variance was added to draw the "
+                        f"smooth model); a jitter of {sampler.jitter:.0e} of the field variance was added to draw the "
                         "unconditional values at the samples.")
     return SimulationResult(realisations, grid, generator.method, generator.padded_shape, sampler.side, seed,
                             warnings, unresolved, list(generator.notes))
@@ -284,6 +284,21 @@ class RealisationSummary:
     area_above: np.ndarray | None
     mask_mean: np.ndarray
     mask_area: float
+
+    def area_percentiles(self, percents: Sequence[float]) -> np.ndarray:
+        """Percentiles (0-100) over realisations of :attr:`area_above` (CRS units squared), one per percent.
+
+        Linear interpolation between order statistics: the ``p`` percentile of ``R`` sorted areas lies at
+        position ``(R - 1) p / 100`` (Hyndman & Fan 1996, *Am. Stat.* 50(4), definition 7).
+
+        Raises
+        ------
+        FieldcastError
+            Without a threshold (no area above it).
+        """
+        if self.area_above is None:
+            raise FieldcastError("Areas above a threshold need a THRESHOLD.")
+        return np.percentile(self.area_above, list(percents))
 
 
 def summarise_realisations(realisations: np.ndarray, cell_area: float, *, threshold: float | None = None,

@@ -9,7 +9,6 @@ import numpy as np
 import pytest
 
 from fieldcast.algorithms.fit.data_warnings import (
-    FEW_SAMPLES,
     median_neighbour_distance,
     sample_size_warning,
     unresolved_structure_warning,
@@ -32,7 +31,6 @@ def test_the_median_neighbour_distance_of_a_regular_grid_is_its_spacing():
 
 def test_the_sample_size_warning_starts_below_thirty_samples_and_calls_itself_a_rule_of_thumb():
     # Common practice: variogram estimation wants 50 to 100 samples or more (a rule of thumb).
-    assert FEW_SAMPLES == 30
     assert sample_size_warning(30) == []
     (message,) = sample_size_warning(29)
     assert message.startswith("Only 29 samples") and "rule of thumb" in message

@@ -7,7 +7,14 @@ from osgeo import gdal
 from sklearn.neighbors import NearestNeighbors
 
 from fieldcast.algorithms.errors import FieldcastError
-from fieldcast.algorithms.io.grid import GridSpec, check_extent_reach, default_pixel_size, readable_ceil, readable_floor
+from fieldcast.algorithms.io.grid import (
+    GridSpec,
+    check_extent_reach,
+    default_pixel_size,
+    output_grid,
+    readable_ceil,
+    readable_floor,
+)
 
 
 def meuse_grid_spec(meuse_grid) -> GridSpec:
@@ -136,3 +143,21 @@ def test_extent_reach_refuses_more_than_ten_sample_diagonals():
         check_extent_reach((-10.0, -10.0, 20.1, 30.0), xy, "metre")
     for fragment in ("50.0601 metres across", "10 times the samples'", "up to 50 metres", "leave EXTENT empty"):
         assert fragment in str(error.value)
+
+
+def test_output_grid_defaults_to_the_samples_bounding_box_and_their_spacing(meuse):
+    # Meuse samples: bounding box from numpy directly; 50 m from half the median spacing of about 107 m (above).
+    grid = output_grid(meuse.xy)
+    low, high = meuse.xy.min(axis=0), meuse.xy.max(axis=0)
+    assert grid.pixel_size == 50.0
+    assert grid.x_min <= low[0] and grid.extent[1] <= low[1] and grid.extent[2] >= high[0] and grid.y_max >= high[1]
+    assert grid.extent[2] - grid.x_min < high[0] - low[0] + 2 * 50.0  # no more than a cell beyond each side
+    chosen = output_grid(meuse.xy, (179000.0, 330000.0, 180000.0, 331000.0), 100.0)
+    assert (chosen.n_cols, chosen.n_rows, chosen.pixel_size) == (10, 10, 100.0)
+
+
+def test_output_grid_refuses_an_extent_away_from_or_far_wider_than_the_samples(meuse):
+    with pytest.raises(FieldcastError, match="does not overlap the samples.*leave it empty"):
+        output_grid(meuse.xy, (0.0, 0.0, 1000.0, 1000.0), 100.0, "metre")
+    with pytest.raises(FieldcastError, match="leave EXTENT empty"):
+        output_grid(meuse.xy, (100000.0, 250000.0, 260000.0, 410000.0), 1000.0, "metre")

@@ -68,11 +68,6 @@ def test_matern_roots_match_an_independent_brent_root(family, smoothness, rho):
     assert effective_range_factor(family, smoothness) == pytest.approx(expected, rel=1e-9)
 
 
-def test_matern_three_halves_agrees_with_its_closed_form_special_case():
-    # The general Matern at nu = 3/2 is the closed form (Rasmussen & Williams 2006, eq. 4.17).
-    assert effective_range_factor("matern", 1.5) == pytest.approx(effective_range_factor("matern32"), rel=1e-9)
-
-
 @pytest.mark.parametrize(("family", "rho"), [
     ("exponential", lambda r: math.exp(-r)),
     ("gaussian", lambda r: math.exp(-r * r)),

@@ -18,7 +18,7 @@ from fieldcast.algorithms.predict.crossval import (
     random_folds,
 )
 from fieldcast.algorithms.predict.kriging import KrigingPredictor
-from reference import gaussian_field
+from reference import MEUSE_LOG_ZINC, gaussian_field
 
 SUBSET = slice(0, 155, 3)  # 52 Meuse samples keep the brute-force refits quick
 
@@ -179,14 +179,20 @@ def test_attribute_summary_of_a_log_model_in_the_data_units(meuse, data):
     xy, _, _ = data
     zinc = meuse.zinc[SUBSET]
     transform = Transform("log", 10.0)
-    model = CovarianceModel((Structure("spherical", 0.55, 900.0),), 0.05)
-    result = leave_one_out(xy, transform.forward(zinc), model, MeanModel.for_data("constant", xy))
+    result = leave_one_out(xy, transform.forward(zinc), MEUSE_LOG_ZINC, MeanModel.for_data("constant", xy))
     observed, predicted = result.attribute_values(transform)
     np.testing.assert_allclose(observed, zinc, rtol=1e-12)
     np.testing.assert_allclose(predicted, np.exp(result.predicted) - 10.0, rtol=1e-12)
     summary = result.attribute_summary(transform)
     assert summary["RMSE_ATTRIBUTE"] == pytest.approx(np.sqrt(np.mean((zinc - predicted) ** 2)), rel=1e-12)
     assert summary["ME_ATTRIBUTE"] == pytest.approx(np.mean(zinc - predicted), rel=1e-12)
+    # The layer's columns: modelling-scale results, standard error = sqrt(prediction-error variance), then the
+    # attribute-unit observed, predicted and error by the same definitions.
+    columns = result.sample_columns(transform)
+    assert len(columns) == 8 and len(result.sample_columns(Transform())) == 5
+    np.testing.assert_allclose(columns[2] ** 2, result.variance, rtol=1e-12)
+    np.testing.assert_allclose(columns[5], zinc, rtol=1e-12)
+    np.testing.assert_allclose(columns[7], zinc - (np.exp(result.predicted) - 10.0), rtol=1e-9, atol=1e-9)
     # The typical error of a Meuse zinc map is a few hundred ppm (from memory: the values span 113-1839 ppm).
     assert 100.0 < summary["RMSE_ATTRIBUTE"] < 500.0
 

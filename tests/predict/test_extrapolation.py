@@ -83,7 +83,7 @@ def test_extrapolation_counts_match_brute_force(tmp_path, meuse, log_zinc):
     # The spherical correlation 1 - 1.5 r + 0.5 r^3 (Cressie 1993, Statistics for Spatial Data, chapter 2) falls
     # to 0.05 at its root in (0, 1).
     roots = np.roots([0.5, 0.0, -1.5, 0.95])
-    reach = 897.0 * float(roots[(roots.real > 0) & (roots.real < 1)].real[0])
+    reach = MEUSE_LOG_ZINC.structures[0].range * float(roots[(roots.real > 0) & (roots.real < 1)].real[0])
     assert check.beyond_range == np.count_nonzero(nearest > reach) > 0
     prediction = bands["prediction"]
     below = np.count_nonzero(prediction < meuse.zinc.min())

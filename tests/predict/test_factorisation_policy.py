@@ -16,11 +16,11 @@ from scipy.spatial import cKDTree
 from fieldcast.algorithms.errors import FieldcastError
 from fieldcast.algorithms.linalg.batched import cholesky_stack
 from fieldcast.algorithms.linalg.condition_policy import (
-    UNIT_ROUNDOFF,
     WARN_RECIPROCAL,
     reciprocal_condition,
     refuse_level,
     stack_reciprocal_condition,
+    usable,
     warning_text,
 )
 from fieldcast.algorithms.model.covariance import CovarianceModel, Structure
@@ -62,12 +62,13 @@ def test_dpocon_estimate_is_close_to_the_exact_condition(meuse):
         assert exact * (1 - 1e-6) <= estimate <= 10 * exact
 
 
-def test_levels_follow_unit_roundoff():
-    # Relative error of a solve ~ cond * u (Higham 2002, section 10.1): refuse at k * u, warn at u / 1e-4.
-    assert refuse_level(155) == pytest.approx(155 * UNIT_ROUNDOFF)
-    assert WARN_RECIPROCAL == pytest.approx(UNIT_ROUNDOFF / 1e-4)
-    assert warning_text("matrix", 2 * WARN_RECIPROCAL) is None
-    assert "condition number about 5.0e+11" in warning_text("matrix", UNIT_ROUNDOFF / 1e-4 / 1.1)
+def test_levels_follow_the_spacing_of_double_precision_numbers():
+    # Relative error of a solve ~ cond * u (Higham 2002, section 10.1): refuse at k * u, warn at u / 1e-4 (a relative
+    # error of 1e-4 is common practice), with u the spacing of IEEE 754 binary64 numbers at 1: 2**-52.
+    eps = 2.0 ** -52
+    assert usable(155 * eps * 1.01, 155) and not usable(155 * eps * 0.99, 155)
+    assert warning_text("matrix", eps / 1e-4 * 1.01) is None
+    assert "condition number about 5.0e+11" in warning_text("matrix", eps / 1e-4 / 1.1)  # 1.1 / (1e4 eps)
 
 
 def test_global_kriging_at_600_m_warns_with_the_condition_estimate(meuse, log_zinc, constant):

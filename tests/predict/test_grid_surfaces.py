@@ -12,16 +12,15 @@ from scipy import stats
 from fieldcast.algorithms.errors import FieldcastError
 from fieldcast.algorithms.io.crs import to_wkt2
 from fieldcast.algorithms.io.grid import GridSpec
-from fieldcast.algorithms.model.covariance import CovarianceModel, Structure
 from fieldcast.algorithms.model.mean import MeanModel
 from fieldcast.algorithms.model.transform import Transform
 from fieldcast.algorithms.predict.grid_surfaces import FieldRasters, SurfaceScale, cell_predictor, write_surfaces
 from fieldcast.algorithms.predict.kriging import KrigingPredictor
+from reference import MEUSE_LOG_ZINC
 
 GRID = GridSpec(x_min=178600.0, y_max=333600.0, pixel_size=100.0, n_cols=20, n_rows=25)
 KINDS = ("prediction", "variance", "sd", "lower", "upper")
-# A spherical model of ln(zinc) of the size reported for Meuse (sill about 0.6, range about 900 m; from memory).
-MODEL = CovarianceModel((Structure("spherical", 0.55, 900.0),), 0.05)
+MODEL = MEUSE_LOG_ZINC  # the usual Meuse log-zinc model (tests/reference.py; from memory)
 
 
 def band(path) -> np.ndarray:

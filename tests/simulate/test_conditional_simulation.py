@@ -198,5 +198,14 @@ def test_summaries_match_their_definitions(monkeypatch, rows_at_a_time):
     assert np.allclose(summary.area_above, 25.0 * (stack[:, 1:] > 1.5).sum(axis=(1, 2)))
     assert np.allclose(summary.mask_mean, stack[:, 1:].mean(axis=(1, 2)))
     assert summary.mask_area == 25.0 * 15
+    # Percentile p of R sorted values at position (R - 1) p / 100, linearly interpolated (Hyndman & Fan 1996, def. 7).
+    areas = np.sort(summary.area_above)
+    for percent, found in zip((10, 50, 90), summary.area_percentiles((10, 50, 90))):
+        position = (len(areas) - 1) * percent / 100
+        low = int(np.floor(position))
+        expected = areas[low] + (position - low) * (areas[min(low + 1, len(areas) - 1)] - areas[low])
+        assert found == pytest.approx(expected, rel=1e-12)
+    with pytest.raises(FieldcastError, match="THRESHOLD"):
+        summarise_realisations(stack, 25.0, mask=mask).area_percentiles((50,))
     with pytest.raises(FieldcastError, match="mask"):
         summarise_realisations(stack, 25.0, mask=np.ones((3, 3), dtype=bool))
