@@ -76,6 +76,8 @@ _PUBLIC = {
     "check_interval": "predict.grid_surfaces",
     "cell_predictor": "predict.grid_surfaces",
     "write_surfaces": "predict.grid_surfaces",
+    "PointValues": "predict.grid_surfaces",
+    "predict_points": "predict.grid_surfaces",
     "ExtrapolationCheck": "predict.extrapolation",
     "AUTOMATIC_NEIGHBOURS": "predict.choice",
     "GLOBAL_SAMPLE_LIMIT": "predict.choice",
