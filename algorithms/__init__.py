@@ -74,6 +74,7 @@ _PUBLIC = {
     "FieldRasters": "predict.grid_surfaces",
     "SurfaceScale": "predict.grid_surfaces",
     "check_interval": "predict.grid_surfaces",
+    "CellPredictor": "predict.grid_surfaces",
     "cell_predictor": "predict.grid_surfaces",
     "write_surfaces": "predict.grid_surfaces",
     "PointValues": "predict.grid_surfaces",

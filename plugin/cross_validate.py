@@ -2,7 +2,6 @@
 from __future__ import annotations
 
 import math
-from collections.abc import Iterable, Sequence
 
 import numpy as np
 from qgis.core import (
@@ -30,6 +29,7 @@ from ..algorithms import (
     search_words,
 )
 from .algorithm_base import FieldcastAlgorithm, progress_callback, push_log
+from .field_names import free_names
 from .field_types import field_type
 from .help_text import MODEL_FILE_HELP, TARGET_CRS_HELP, compose_help
 from .report.crossvalidation_report import write_crossvalidation_report
@@ -48,20 +48,6 @@ RESULT_FIELDS = ("cv_observed", "cv_predicted", "cv_std_error", "cv_error", "cv_
 """The modelling-scale result fields, after the input's own fields and ``cv_feature_id``."""
 ATTRIBUTE_FIELDS = ("cv_observed_value", "cv_predicted_value", "cv_error_value")
 """The attribute-unit result fields a log model adds (see :meth:`CrossValidation.attribute_values`)."""
-
-
-def free_names(wanted: Sequence[str], taken: Iterable[str]) -> list[str]:
-    """``wanted`` with ``_2``, ``_3``, ... appended to any name an input field already has (case ignored)."""
-    used = {name.lower() for name in taken}
-    names = []
-    for name in wanted:
-        candidate, number = name, 1
-        while candidate.lower() in used:
-            number += 1
-            candidate = f"{name}_{number}"
-        used.add(candidate.lower())
-        names.append(candidate)
-    return names
 
 
 def result_columns(result: CrossValidation, transform: Transform) -> list[np.ndarray]:

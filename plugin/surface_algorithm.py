@@ -14,7 +14,6 @@ import numpy as np
 from qgis.core import QgsProcessingParameterNumber
 
 from ..algorithms import (
-    BACKTRANSFORMS,
     CHECK_SAMPLE_LIMIT,
     CONDITION_ADVICE,
     ExtrapolationCheck,
@@ -71,18 +70,20 @@ def log_gap(predictor: LocalKrigingPredictor, xy: np.ndarray, values: np.ndarray
     else:
         feedback.pushInfo(words)
 
-def log_unresolved(unresolved: int, singular: int, ill_conditioned: int, feedback) -> None:
-    """Say how many cells were left nodata, how many of them for a singular neighbour system, and how many
-    were kriged from an ill-conditioned one (nothing when there are none)."""
+def log_unresolved(unresolved: int, singular: int, ill_conditioned: int, feedback, places: str = "cell(s)",
+                   missing: str = "are nodata") -> None:
+    """Say how many ``places`` were left without a value, how many of them for a singular neighbour system, and
+    how many were kriged from an ill-conditioned one (nothing when there are none); ``missing`` says how they
+    are left ("are nodata" in a raster)."""
     if unresolved > singular:
-        feedback.pushWarning(f"{unresolved - singular:,} cell(s) are nodata: fewer samples than the mean model "
+        feedback.pushWarning(f"{unresolved - singular:,} {places} {missing}: fewer samples than the mean model "
                              "needs lie within SEARCH_RADIUS of them. Enlarge SEARCH_RADIUS, or leave it empty, "
                              "to fill them.")
     if singular:
-        feedback.pushWarning(f"{singular:,} cell(s) are nodata: the covariance matrix of their neighbours is "
+        feedback.pushWarning(f"{singular:,} {places} {missing}: the covariance matrix of their neighbours is "
                              "numerically singular. " + CONDITION_ADVICE)
     if ill_conditioned:
-        feedback.pushWarning(f"{ill_conditioned:,} cell(s) were kriged from an ill-conditioned neighbour system "
+        feedback.pushWarning(f"{ill_conditioned:,} {places} were kriged from an ill-conditioned neighbour system "
                              "(condition number above the warning level), so their predictions can stray far "
                              "from the data. " + CONDITION_ADVICE)
 
@@ -90,7 +91,6 @@ def log_unresolved(unresolved: int, singular: int, ill_conditioned: int, feedbac
 class SurfaceAlgorithm(RasterAlgorithm):
     """Base of the algorithms that krige prediction and variance rasters."""
 
-    BACKTRANSFORM = "BACKTRANSFORM"
     MAP_AREA = "MAP_AREA"
     HULL_MARGIN = "HULL_MARGIN"
 
@@ -121,11 +121,6 @@ class SurfaceAlgorithm(RasterAlgorithm):
                           "of the samples' convex hull (MAP_AREA hull, HULL_MARGIN); the others are nodata. Set "
                           "MAP_AREA to extent to map every cell.")
         return grid, limited
-
-    def add_backtransform_parameter(self) -> None:
-        """BACKTRANSFORM (advanced): median (default) or mean, for log models."""
-        self.add_choice(self.BACKTRANSFORM, self.tr("Back-transform (log models)"), BACKTRANSFORMS, "median",
-                        expert=True)
 
     @staticmethod
     def krige_surface(documents: Sequence[ModelDocument], xy: np.ndarray, values: np.ndarray, grid: GridSpec,
