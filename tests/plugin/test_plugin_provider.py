@@ -30,6 +30,10 @@ CONTRACT = {
                      "SHARED_MODEL", "EXTENT", "PIXEL_SIZE", "MASK", "MAP_AREA", "HULL_MARGIN", "BACKTRANSFORM",
                      "NEIGHBOURS", "SEARCH_RADIUS", "TARGET_CRS", "OUTPUT_FOLDER"},
                     {"OUTPUT_FOLDER", "COUNT"}),
+    "predictpoints": ("Predict at points",
+                      {"INPUT", "FIELD", "MODEL", "TARGETS", "THRESHOLD", "BACKTRANSFORM", "NEIGHBOURS",
+                       "SEARCH_RADIUS", "TARGET_CRS", "OUTPUT"},
+                      {"OUTPUT"}),
     "simulate": ("Simulate conditional fields",
                  {"INPUT", "FIELD", "MODEL", "EXTENT", "PIXEL_SIZE", "MASK", "REALIZATIONS", "SEED", "NEIGHBOURS",
                   "SEARCH_RADIUS", "THRESHOLD", "TARGET_CRS", "OUTPUT", "OUTPUT_MEAN", "OUTPUT_STDDEV",
@@ -56,6 +60,7 @@ CHOICES = {
     ("predictmany", "TREND"): ["constant", "linear", "quadratic"],
     ("predictmany", "METHOD"): ["reml", "ml", "wls"],
     ("predictmany", "BACKTRANSFORM"): ["median", "mean"],
+    ("predictpoints", "BACKTRANSFORM"): ["median", "mean"],
 }
 
 
@@ -86,7 +91,7 @@ def test_metadata_names_every_algorithm_in_about_and_changelog():
         assert f'"{display}"' in general["about"] and display in general["changelog"], display
 
 
-def test_class_factory_registers_the_provider_with_five_algorithms(fieldcast_plugin):  # noqa: F811
+def test_class_factory_registers_the_provider_with_six_algorithms(fieldcast_plugin):  # noqa: F811
     provider = QgsApplication.processingRegistry().providerById("fieldcast")
     assert provider is not None and provider.name() == "Fieldcast"
     assert sorted(a.name() for a in provider.algorithms()) == sorted(CONTRACT)
