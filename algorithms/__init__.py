@@ -88,6 +88,7 @@ _PUBLIC = {
     "search_words": "predict.choice",
     "CHECK_SAMPLE_LIMIT": "predict.neighbourhood_check",
     "grid_targets": "predict.neighbourhood_check",
+    "TargetDraw": "predict.neighbourhood_check",
     "neighbourhood_gap": "predict.neighbourhood_check",
     # linalg
     "CONDITION_ADVICE": "linalg.condition_policy",

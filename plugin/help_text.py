@@ -83,7 +83,8 @@ POINT_NEIGHBOURHOOD_HELP = [
      "up to 5,000 samples; with more, each point uses its 64 nearest samples and the log says so. A number k: "
      "each point is kriged from its k nearest samples (local kriging; 16 to 64 is common practice), as 'Predict "
      "surface' does with the same setting. It must be more than the number of trend terms (at least 2 for a "
-     "constant mean)."),
+     "constant mean). With up to 2,000 samples the log reports how far local kriging is from kriging with all "
+     "samples at up to 500 target points drawn at random, and warns above 1 %."),
     ("Search radius", "With local kriging only: neighbours farther than this (working CRS units, along the "
      "major axis; the search ellipse follows the model's anisotropy) are left out. Points with too few samples "
      "in range get empty (NULL) results, and the log says how many. Empty: no limit."),

@@ -24,6 +24,7 @@ from ..algorithms import (
     FieldcastError,
     LocalKrigingPredictor,
     SurfaceScale,
+    TargetDraw,
     cell_predictor,
     choose_predictor,
     defined_crs,
@@ -44,7 +45,7 @@ from .help_text import (
 )
 from .sample_reader import crs_wkt, feature_point
 from .sinks import SinkWriter, checked_sink
-from .surface_algorithm import log_unresolved
+from .surface_algorithm import log_gap, log_unresolved
 
 CHUNK = 4096
 """Target features read, kriged and written at a time (memory stays bounded whatever the layer's size)."""
@@ -152,7 +153,8 @@ class PredictPointsAlgorithm(FieldcastAlgorithm):
         with checked_sink(self, parameters, self.OUTPUT, context, fields, source.wkbType(),
                           source.sourceCrs()) as sink:
             kriging = TargetKriging(sink, fields, cell_predictor(predictor), scale, kinds, check,
-                                    document.crs_wkt, crs_wkt(source.sourceCrs()), source.sourceName())
+                                    document.crs_wkt, crs_wkt(source.sourceCrs()), source.sourceName(),
+                                    TargetDraw() if local else None)
             chunk, total = [], max(source.featureCount(), 1)
             for feature in source.getFeatures(QgsFeatureRequest()):
                 chunk.append(feature)
@@ -162,6 +164,8 @@ class PredictPointsAlgorithm(FieldcastAlgorithm):
                     feedback.setProgress(20 + 80 * min(sink.count / total, 1.0))
             kriging.write(chunk, feedback.isCanceled)
         self.log_counts(kriging, predictor, before, document.units, feedback)
+        if local:
+            log_gap(predictor, samples.xy, samples.values, kriging.draw.targets, feedback, "target points")
         feedback.setProgress(100)
         return {self.OUTPUT: sink.destination}
 
@@ -184,8 +188,9 @@ class PredictPointsAlgorithm(FieldcastAlgorithm):
 class TargetKriging:
     """Chunks of target features kriged and copied, with the results appended, into one sink.
 
-    ``xy`` of the targets is reprojected from ``target_wkt`` to ``working_wkt``; ``empty`` counts features
-    without a point, ``unresolved`` those the predictor left without a value.
+    ``xy`` of the targets is reprojected from ``target_wkt`` to ``working_wkt``; ``draw``, when given, keeps a
+    few of them drawn at random for the neighbourhood check; ``empty`` counts features without a point,
+    ``unresolved`` those the predictor left without a value.
     """
 
     sink: SinkWriter
@@ -197,6 +202,7 @@ class TargetKriging:
     working_wkt: str
     target_wkt: str
     layer: str
+    draw: TargetDraw | None = None
     empty: int = 0
     unresolved: int = 0
 
@@ -217,6 +223,8 @@ class TargetKriging:
         located, xy = self.locations(features)
         self.empty += int(np.count_nonzero(~located))
         results = np.full((len(self.kinds), len(features)), np.nan)
+        if self.draw is not None:
+            self.draw.add(xy)
         if len(xy):
             found = predict_points(self.predict, xy, self.scale, self.kinds, check=self.check,
                                    should_stop=should_stop)

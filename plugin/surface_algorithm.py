@@ -41,9 +41,10 @@ GAP_WARNING = 0.01
 the prediction, of the sill for the variance)."""
 
 
-def log_gap(predictor: LocalKrigingPredictor, xy: np.ndarray, values: np.ndarray, grid: GridSpec,
-            inside: np.ndarray | None, feedback) -> None:
-    """Say how far local kriging departs from kriging with all samples at a few cells, with advice above 1 %.
+def log_gap(predictor: LocalKrigingPredictor, xy: np.ndarray, values: np.ndarray, targets: np.ndarray, feedback,
+            places: str = "cells") -> None:
+    """Say how far local kriging departs from kriging with all samples at a few ``targets`` (called ``places``
+    in the log), with advice above 1 %.
 
     Done for up to :data:`..algorithms.predict.neighbourhood_check.CHECK_SAMPLE_LIMIT` samples (the comparison
     factorises the full system); with several fields, for the first. The check is a diagnostic: a
@@ -52,13 +53,13 @@ def log_gap(predictor: LocalKrigingPredictor, xy: np.ndarray, values: np.ndarray
     if len(xy) > CHECK_SAMPLE_LIMIT or feedback.isCanceled():
         return
     try:
-        gap = neighbourhood_gap(predictor, xy, values, grid_targets(grid, inside))
+        gap = neighbourhood_gap(predictor, xy, values, targets)
     except FieldcastError as exc:
         feedback.pushInfo(f"Neighbourhood check skipped: {exc}")
         return
     if not gap.targets:
         return
-    words = (f"Neighbourhood check: at {gap.targets} cells drawn at random, local kriging differs from kriging "
+    words = (f"Neighbourhood check: at {gap.targets} {places} drawn at random, local kriging differs from kriging "
              f"with all {len(xy)} samples by up to {gap.prediction:.1%} of the field's standard deviation "
              f"(square root of the sill) in the prediction and {gap.variance:.1%} of the sill in the variance "
              "(modelling scale).")
@@ -151,7 +152,7 @@ class SurfaceAlgorithm(RasterAlgorithm):
             settings["fieldcast_neighbours"] = predictor.neighbours
             if neighbourhood.search_radius is not None:
                 settings["fieldcast_search_radius"] = neighbourhood.search_radius
-            log_gap(predictor, xy, values, grid, inside, feedback)
+            log_gap(predictor, xy, values, grid_targets(grid, inside), feedback)
         if scale.threshold is not None:
             settings["fieldcast_threshold"] = scale.threshold
         if any(paths.get("lower") or paths.get("upper") for _, paths in outputs):

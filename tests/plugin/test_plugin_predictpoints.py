@@ -222,6 +222,7 @@ def test_targets_beyond_the_search_radius_get_empty_results_counted(qgis_process
     assert written[3] is None and all(value is not None for value in written[:3])
     assert any(line.startswith("1 target point(s) get no value (NULL)") for line in log.lines)
     assert any("each target point from its 16 nearest samples" in line for line in log.lines)
+    assert any(line.startswith("Neighbourhood check: at 3 target points drawn at random") for line in log.lines)
 
 
 def test_a_multipoint_of_several_points_is_refused_and_nothing_written(qgis_processing, meuse_predict, tmp_path):  # noqa: F811
