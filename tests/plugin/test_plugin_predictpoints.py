@@ -263,3 +263,20 @@ def test_cancel_leaves_no_output(qgis_processing, meuse_predict, meuse, tmp_path
         run_points(qgis_processing, samples, model, labelled_layer(meuse.xy[:3] + 10.0), tmp_path / "c.gpkg",
                    feedback=feedback)
     assert list(tmp_path.iterdir()) == []
+
+
+def test_several_chunks_of_targets_each_get_their_own_values(qgis_processing, meuse_predict, meuse,  # noqa: F811
+                                                             tmp_path):
+    samples, model, _ = meuse_predict
+    rng = np.random.default_rng(11)
+    low, high = meuse.xy.min(axis=0), meuse.xy.max(axis=0)
+    targets = low + rng.random((5000, 2)) * (high - low)  # more than one chunk of 4,096 features
+    result = run_points(qgis_processing, samples, model, labelled_layer(targets), tmp_path / "many.gpkg")
+    written = columns(result["OUTPUT"], ["well", "zinc_est"])
+    order = [int(name[1:]) for name in written["well"]]
+    document = ModelDocument.load(model)
+    mu, _ = KrigingPredictor(meuse.xy, np.log(meuse.zinc + document.transform.offset), document.covariance,
+                             document.mean).predict(targets[order])
+    # The median back-transform of a log model is exp(mu) - offset (the lognormal median, Aitchison & Brown 1957).
+    np.testing.assert_allclose(written["zinc_est"], np.exp(mu) - document.transform.offset, rtol=1e-9)
+    assert sorted(order) == list(range(5000))
