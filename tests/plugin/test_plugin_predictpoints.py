@@ -280,3 +280,18 @@ def test_several_chunks_of_targets_each_get_their_own_values(qgis_processing, me
     # The median back-transform of a log model is exp(mu) - offset (the lognormal median, Aitchison & Brown 1957).
     np.testing.assert_allclose(written["zinc_est"], np.exp(mu) - document.transform.offset, rtol=1e-9)
     assert sorted(order) == list(range(5000))
+
+
+@pytest.mark.parametrize("extra, message", [
+    ({"NEIGHBOURS": 1}, r"NEIGHBOURS is 1, but the constant mean of the model needs at least 2 samples per target "
+                        r"point\. Set NEIGHBOURS to 2 or more"),
+    ({"BACKTRANSFORM": "mode"}, r"BACKTRANSFORM \(Back-transform \(log models\)\) must be one of median, mean"),
+    ({"NEIGHBOURS": 8, "SEARCH_RADIUS": -5.0}, r"SEARCH_RADIUS"),
+])
+def test_bad_neighbourhood_or_backtransform_is_refused_and_nothing_written(qgis_processing, meuse_predict,  # noqa: F811
+                                                                          meuse, tmp_path, extra, message):
+    samples, model, _ = meuse_predict
+    with pytest.raises(QgsProcessingException, match=message):
+        run_points(qgis_processing, samples, model, labelled_layer(meuse.xy[:3] + 10.0), tmp_path / "bad.gpkg",
+                   **extra)
+    assert list(tmp_path.iterdir()) == []
