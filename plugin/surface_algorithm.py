@@ -1,10 +1,11 @@
-"""What the kriging-surface algorithms (predict, predictmany) share: back-transform, local neighbourhood, writing.
+"""What the kriging-surface algorithms (predict, predictmany) share: map area, local neighbourhood, writing.
 
 :class:`SurfaceAlgorithm` adds to :class:`.raster_algorithm.RasterAlgorithm` the
-BACKTRANSFORM parameter, the choice (from NEIGHBOURS and SEARCH_RADIUS) between
+MAP_AREA parameters, the choice (from NEIGHBOURS and SEARCH_RADIUS) between
 global kriging (:class:`KrigingPredictor`, every sample) and local kriging
 (:class:`LocalKrigingPredictor`, the nearest samples of each cell), and the
-kriging of a grid into GeoTIFF files with its log lines.
+kriging of a grid into GeoTIFF files with its log lines (:func:`log_gap` and
+:func:`log_unresolved` serve predictpoints too).
 """
 from __future__ import annotations
 
