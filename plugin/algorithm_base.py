@@ -37,6 +37,7 @@ from qgis.core import (
 from qgis.PyQt.QtCore import QCoreApplication
 
 from ..algorithms import (
+    BACKTRANSFORMS,
     FIT_METHODS,
     KERNEL_CHOICES,
     TRANSFORM_KINDS,
@@ -126,6 +127,8 @@ class FieldcastAlgorithm(QgsProcessingAlgorithm):
     METHOD = "METHOD"
     NEIGHBOURS = "NEIGHBOURS"
     SEARCH_RADIUS = "SEARCH_RADIUS"
+    THRESHOLD = "THRESHOLD"
+    BACKTRANSFORM = "BACKTRANSFORM"
     ICON = "fieldcast.svg"
 
     def tr(self, text: str) -> str:
@@ -235,6 +238,17 @@ class FieldcastAlgorithm(QgsProcessingAlgorithm):
         self.addParameter(advanced(QgsProcessingParameterNumber(
             self.SEARCH_RADIUS, self.tr("Search radius (working CRS units; empty = no limit)"),
             type=QgsProcessingParameterNumber.Double, optional=True, minValue=0.0)))
+
+    def add_threshold_parameter(self) -> None:
+        """THRESHOLD: optional value in the attribute's original units."""
+        self.addParameter(QgsProcessingParameterNumber(
+            self.THRESHOLD, self.tr("Threshold (attribute units; for exceedance)"),
+            type=QgsProcessingParameterNumber.Double, optional=True))
+
+    def add_backtransform_parameter(self) -> None:
+        """BACKTRANSFORM (advanced): median (default) or mean, for log models."""
+        self.add_choice(self.BACKTRANSFORM, self.tr("Back-transform (log models)"), BACKTRANSFORMS, "median",
+                        expert=True)
 
     def neighbourhood(self, parameters, context) -> Neighbourhood:
         """The NEIGHBOURS and SEARCH_RADIUS chosen (SEARCH_RADIUS None when empty)."""

@@ -2,7 +2,6 @@
 from __future__ import annotations
 
 import math
-from collections.abc import Iterable, Sequence
 
 import numpy as np
 from qgis.core import (
@@ -29,6 +28,7 @@ from ..algorithms import (
     search_words,
 )
 from .algorithm_base import FieldcastAlgorithm, progress_callback, push_log
+from .field_names import free_names
 from .field_types import field_type
 from .help_text import MODEL_FILE_HELP, TARGET_CRS_HELP, compose_help
 from .report.crossvalidation_report import write_crossvalidation_report
@@ -49,18 +49,6 @@ ATTRIBUTE_FIELDS = ("cv_observed_value", "cv_predicted_value", "cv_error_value")
 """The attribute-unit result fields a log model adds (see :meth:`CrossValidation.attribute_values`)."""
 
 
-def free_names(wanted: Sequence[str], taken: Iterable[str]) -> list[str]:
-    """``wanted`` with ``_2``, ``_3``, ... appended to any name an input field already has (case ignored)."""
-    used = {name.lower() for name in taken}
-    names = []
-    for name in wanted:
-        candidate, number = name, 1
-        while candidate.lower() in used:
-            number += 1
-            candidate = f"{name}_{number}"
-        used.add(candidate.lower())
-        names.append(candidate)
-    return names
 
 
 class CrossValidateAlgorithm(FieldcastAlgorithm):

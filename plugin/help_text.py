@@ -93,6 +93,18 @@ NEIGHBOURHOOD_HELP = [
      "in range are nodata, and the log says how many. Empty: no limit."),
 ]
 
+POINT_NEIGHBOURHOOD_HELP = [
+    ("Neighbours per point", "0 (the default): every sample takes part in every target point (global kriging), "
+     "up to 5,000 samples; with more, each point uses its 64 nearest samples and the log says so. A number k: "
+     "each point is kriged from its k nearest samples (local kriging; 16 to 64 is common practice), as 'Predict "
+     "surface' does with the same setting. It must be more than the number of trend terms (at least 2 for a "
+     "constant mean). With up to 2,000 samples the log reports how far local kriging is from kriging with all "
+     "samples at up to 500 target points drawn at random, and warns above 1 %."),
+    ("Search radius", "With local kriging only: neighbours farther than this (working CRS units, along the "
+     "major axis; the search ellipse follows the model's anisotropy) are left out. Points with too few samples "
+     "in range get empty (NULL) results, and the log says how many. Empty: no limit."),
+]
+
 THRESHOLD_HELP = (
     "Threshold",
     "A limit in the attribute's own units (e.g. 500 for 500 ppm), also for a log model: the tool transforms it "
@@ -143,6 +155,8 @@ ALGORITHM_WORDS = {
     "predictmany": ("surface", "prediction", "variance", "several fields", "batch", "shared model"),
     "simulate": ("conditional simulation", "realisations", "circulant embedding", "Monte Carlo", "area above",
                  "exceedance"),
+    "predictpoints": ("points", "wells", "receptors", "prediction", "variance", "standard error", "exceedance",
+                      "threshold", "point layer"),
     "crossvalidate": ("cross-validation", "leave-one-out", "validation", "residuals", "RMSE", "model check"),
 }
 """Further search words per algorithm name (the id after ``fieldcast:``)."""
@@ -153,6 +167,7 @@ SHORT_DESCRIPTIONS = {
     "predictmany": "Fits a model to each of several fields and kriges their prediction and variance rasters.",
     "simulate": "Draws conditional simulations of the field on a grid, with summaries and areas above a threshold.",
     "crossvalidate": "Checks a kriging model by leave-one-out prediction of the samples.",
+    "predictpoints": "Kriges the value, its variance and standard error at the points of a layer, from samples.",
 }
 """One line per algorithm name, shown in the toolbox tooltip."""
 

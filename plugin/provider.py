@@ -8,6 +8,7 @@ from .cross_validate import CrossValidateAlgorithm
 from .fit_model import FitModelAlgorithm
 from .icons import icon, icon_path
 from .predict_many import PredictManyAlgorithm
+from .predict_points import PredictPointsAlgorithm
 from .predict_surface import PredictSurfaceAlgorithm
 from .simulate import SimulateAlgorithm
 
@@ -16,7 +17,7 @@ PROVIDER_ICON = "fieldcast.svg"
 
 class FieldcastProvider(QgsProcessingProvider):
     """Processing provider listing Fit covariance model, Predict surface, Predict surfaces for several fields,
-    Simulate conditional fields and Cross-validate model."""
+    Predict at points, Simulate conditional fields and Cross-validate model."""
 
     def id(self) -> str:
         return "fieldcast"
@@ -42,5 +43,5 @@ class FieldcastProvider(QgsProcessingProvider):
 
     def loadAlgorithms(self) -> None:
         for algorithm in (FitModelAlgorithm(), PredictSurfaceAlgorithm(), PredictManyAlgorithm(),
-                          SimulateAlgorithm(), CrossValidateAlgorithm()):
+                          PredictPointsAlgorithm(), SimulateAlgorithm(), CrossValidateAlgorithm()):
             self.addAlgorithm(algorithm)

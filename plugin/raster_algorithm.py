@@ -54,7 +54,6 @@ class RasterAlgorithm(FieldcastAlgorithm):
     EXTENT = "EXTENT"
     PIXEL_SIZE = "PIXEL_SIZE"
     MASK = "MASK"
-    THRESHOLD = "THRESHOLD"
     OUTPUT_EXCEEDANCE = "OUTPUT_EXCEEDANCE"
 
     def add_grid_parameters(self) -> None:
@@ -71,12 +70,6 @@ class RasterAlgorithm(FieldcastAlgorithm):
             self.MASK, self.tr("Mask polygons"), [QgsProcessing.TypeVectorPolygon], optional=True))
         self.addParameter(advanced(QgsProcessingParameterBoolean(
             self.TEMPLATE_NODATA_MASK, self.tr("Template nodata cells stay nodata"), defaultValue=True)))
-
-    def add_threshold_parameter(self) -> None:
-        """THRESHOLD: optional value in the attribute's original units."""
-        self.addParameter(QgsProcessingParameterNumber(
-            self.THRESHOLD, self.tr("Threshold (attribute units; for exceedance)"),
-            type=QgsProcessingParameterNumber.Double, optional=True))
 
     def raster_destination(self, parameters, name: str, context) -> str:
         """Path of a GeoTIFF destination parameter, "" when skipped; FieldcastError for other formats."""

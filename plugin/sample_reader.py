@@ -91,15 +91,16 @@ def _number(value) -> float:
         return math.nan
 
 
-def _point(geometry, fid: int) -> tuple[float, float] | None:
-    """The point of a feature, None without geometry; FieldcastError for several parts."""
+def feature_point(geometry, fid: int, layer: str = "the sample layer") -> tuple[float, float] | None:
+    """The point of a feature, None without geometry; FieldcastError for several parts (a multipoint of one
+    point is that point)."""
     if geometry is None or geometry.isNull() or geometry.isEmpty():
         return None
     if geometry.isMultipart():
         parts = geometry.asMultiPoint()
         if len(parts) != 1:
-            raise FieldcastError(f"Feature {fid} is a multipoint with {len(parts)} points. Run 'Multipart to "
-                                 "singleparts' on the layer first, so each sample is its own point feature.")
+            raise FieldcastError(f"Feature {fid} of {layer} is a multipoint with {len(parts)} points. Run "
+                                 "'Multipart to singleparts' on the layer first, so each point is its own feature.")
         point = parts[0]
     else:
         point = geometry.asPoint()
@@ -139,7 +140,7 @@ def read_layer_samples(source: QgsProcessingFeatureSource, field: str, target_cr
     points, values, fids = [], [], []
     skipped_values = skipped_geometry = 0
     for feature in source.getFeatures(request):
-        point = _point(feature.geometry(), feature.id())
+        point = feature_point(feature.geometry(), feature.id())
         value = _number(feature.attributes()[index])
         if point is None:
             skipped_geometry += 1

@@ -1,10 +1,11 @@
-"""What the kriging-surface algorithms (predict, predictmany) share: back-transform, local neighbourhood, writing.
+"""What the kriging-surface algorithms (predict, predictmany) share: map area, local neighbourhood, writing.
 
 :class:`SurfaceAlgorithm` adds to :class:`.raster_algorithm.RasterAlgorithm` the
-BACKTRANSFORM parameter, the choice (from NEIGHBOURS and SEARCH_RADIUS) between
+MAP_AREA parameters, the choice (from NEIGHBOURS and SEARCH_RADIUS) between
 global kriging (:class:`KrigingPredictor`, every sample) and local kriging
 (:class:`LocalKrigingPredictor`, the nearest samples of each cell), and the
-kriging of a grid into GeoTIFF files with its log lines.
+kriging of a grid into GeoTIFF files with its log lines (:func:`log_gap` and
+:func:`log_unresolved` serve predictpoints too).
 """
 from __future__ import annotations
 
@@ -14,7 +15,6 @@ import numpy as np
 from qgis.core import QgsProcessingParameterNumber
 
 from ..algorithms import (
-    BACKTRANSFORMS,
     CHECK_SAMPLE_LIMIT,
     CONDITION_ADVICE,
     ExtrapolationCheck,
@@ -42,9 +42,10 @@ GAP_WARNING = 0.01
 the prediction, of the sill for the variance)."""
 
 
-def log_gap(predictor: LocalKrigingPredictor, xy: np.ndarray, values: np.ndarray, grid: GridSpec,
-            inside: np.ndarray | None, feedback) -> None:
-    """Say how far local kriging departs from kriging with all samples at a few cells, with advice above 1 %.
+def log_gap(predictor: LocalKrigingPredictor, xy: np.ndarray, values: np.ndarray, targets: np.ndarray, feedback,
+            places: str = "cells") -> None:
+    """Say how far local kriging departs from kriging with all samples at a few ``targets`` (called ``places``
+    in the log), with advice above 1 %.
 
     Done for up to :data:`..algorithms.predict.neighbourhood_check.CHECK_SAMPLE_LIMIT` samples (the comparison
     factorises the full system); with several fields, for the first. The check is a diagnostic: a
@@ -53,13 +54,13 @@ def log_gap(predictor: LocalKrigingPredictor, xy: np.ndarray, values: np.ndarray
     if len(xy) > CHECK_SAMPLE_LIMIT or feedback.isCanceled():
         return
     try:
-        gap = neighbourhood_gap(predictor, xy, values, grid_targets(grid, inside))
+        gap = neighbourhood_gap(predictor, xy, values, targets)
     except FieldcastError as exc:
         feedback.pushInfo(f"Neighbourhood check skipped: {exc}")
         return
     if not gap.targets:
         return
-    words = (f"Neighbourhood check: at {gap.targets} cells drawn at random, local kriging differs from kriging "
+    words = (f"Neighbourhood check: at {gap.targets} {places} drawn at random, local kriging differs from kriging "
              f"with all {len(xy)} samples by up to {gap.prediction:.1%} of the field's standard deviation "
              f"(square root of the sill) in the prediction and {gap.variance:.1%} of the sill in the variance "
              "(modelling scale).")
@@ -71,18 +72,20 @@ def log_gap(predictor: LocalKrigingPredictor, xy: np.ndarray, values: np.ndarray
     else:
         feedback.pushInfo(words)
 
-def log_unresolved(unresolved: int, singular: int, ill_conditioned: int, feedback) -> None:
-    """Say how many cells were left nodata, how many of them for a singular neighbour system, and how many
-    were kriged from an ill-conditioned one (nothing when there are none)."""
+def log_unresolved(unresolved: int, singular: int, ill_conditioned: int, feedback, places: str = "cell(s)",
+                   missing: str = "are nodata") -> None:
+    """Say how many ``places`` were left without a value, how many of them for a singular neighbour system, and
+    how many were kriged from an ill-conditioned one (nothing when there are none); ``missing`` says how they
+    are left ("are nodata" in a raster)."""
     if unresolved > singular:
-        feedback.pushWarning(f"{unresolved - singular:,} cell(s) are nodata: fewer samples than the mean model "
+        feedback.pushWarning(f"{unresolved - singular:,} {places} {missing}: fewer samples than the mean model "
                              "needs lie within SEARCH_RADIUS of them. Enlarge SEARCH_RADIUS, or leave it empty, "
                              "to fill them.")
     if singular:
-        feedback.pushWarning(f"{singular:,} cell(s) are nodata: the covariance matrix of their neighbours is "
+        feedback.pushWarning(f"{singular:,} {places} {missing}: the covariance matrix of their neighbours is "
                              "numerically singular. " + CONDITION_ADVICE)
     if ill_conditioned:
-        feedback.pushWarning(f"{ill_conditioned:,} cell(s) were kriged from an ill-conditioned neighbour system "
+        feedback.pushWarning(f"{ill_conditioned:,} {places} were kriged from an ill-conditioned neighbour system "
                              "(condition number above the warning level), so their predictions can stray far "
                              "from the data. " + CONDITION_ADVICE)
 
@@ -90,7 +93,6 @@ def log_unresolved(unresolved: int, singular: int, ill_conditioned: int, feedbac
 class SurfaceAlgorithm(RasterAlgorithm):
     """Base of the algorithms that krige prediction and variance rasters."""
 
-    BACKTRANSFORM = "BACKTRANSFORM"
     MAP_AREA = "MAP_AREA"
     HULL_MARGIN = "HULL_MARGIN"
 
@@ -122,11 +124,6 @@ class SurfaceAlgorithm(RasterAlgorithm):
                           "MAP_AREA to extent to map every cell.")
         return grid, limited
 
-    def add_backtransform_parameter(self) -> None:
-        """BACKTRANSFORM (advanced): median (default) or mean, for log models."""
-        self.add_choice(self.BACKTRANSFORM, self.tr("Back-transform (log models)"), BACKTRANSFORMS, "median",
-                        expert=True)
-
     @staticmethod
     def krige_surface(documents: Sequence[ModelDocument], xy: np.ndarray, values: np.ndarray, grid: GridSpec,
                       inside: np.ndarray | None, scale: SurfaceScale, neighbourhood: Neighbourhood,
@@ -156,7 +153,7 @@ class SurfaceAlgorithm(RasterAlgorithm):
             settings["fieldcast_neighbours"] = predictor.neighbours
             if neighbourhood.search_radius is not None:
                 settings["fieldcast_search_radius"] = neighbourhood.search_radius
-            log_gap(predictor, xy, values, grid, inside, feedback)
+            log_gap(predictor, xy, values, grid_targets(grid, inside), feedback)
         if scale.threshold is not None:
             settings["fieldcast_threshold"] = scale.threshold
         if any(paths.get("lower") or paths.get("upper") for _, paths in outputs):

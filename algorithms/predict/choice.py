@@ -84,7 +84,7 @@ class Neighbourhood:
 
 def choose_predictor(xy: np.ndarray, values: np.ndarray, covariance: CovarianceModel, mean: MeanModel,
                      neighbourhood: Neighbourhood, *, support: str = "point", units: str = "metre",
-                     ) -> tuple[KrigingPredictor | LocalKrigingPredictor, list[LogLine]]:
+                     per: str = "cell") -> tuple[KrigingPredictor | LocalKrigingPredictor, list[LogLine]]:
     """The kriging predictor of a run, global or local, and the log lines that say which and why.
 
     With NEIGHBOURS 0, every sample is kriged together, except above :data:`GLOBAL_SAMPLE_LIMIT`
@@ -104,18 +104,20 @@ def choose_predictor(xy: np.ndarray, values: np.ndarray, covariance: CovarianceM
         ``"point"`` or ``"cell"`` (block kriging, global only).
     units : str
         Working CRS unit, for the log.
+    per : str
+        What each target is called in the log and the refusals ("cell", "target point").
 
     Raises
     ------
     FieldcastError
         If NEIGHBOURS is too small for the mean model, or local kriging is asked for cell support.
     """
-    neighbours, lines = neighbourhood.resolved(mean, "cell")
+    neighbours, lines = neighbourhood.resolved(mean, per)
     count = len(values)
     if neighbours == 0 and count > GLOBAL_SAMPLE_LIMIT and support == "point":
         neighbours = AUTOMATIC_NEIGHBOURS
         lines.append(LogLine("info", f"NEIGHBOURS is 0 but there are {count:,} samples, more than the "
-                                     f"{GLOBAL_SAMPLE_LIMIT:,} kriged all together: each cell uses its {neighbours} "
+                                     f"{GLOBAL_SAMPLE_LIMIT:,} kriged all together: each {per} uses its {neighbours} "
                                      "nearest samples instead. Set NEIGHBOURS to choose another number."))
     elif neighbours == 0 and count > GLOBAL_SAMPLE_LIMIT:
         lines.append(LogLine("warning", f"Cell support krigs all {count:,} samples together, which is slow and "
@@ -127,7 +129,7 @@ def choose_predictor(xy: np.ndarray, values: np.ndarray, covariance: CovarianceM
     if support == "cell":
         raise FieldcastError("Cell support is computed from all samples (block kriging); local "
                              "neighbourhoods are for point support. Set NEIGHBOURS to 0, or SUPPORT to point.")
-    lines.append(LogLine("info", f"Local kriging: each cell from its {min(neighbours, count)} nearest "
+    lines.append(LogLine("info", f"Local kriging: each {per} from its {min(neighbours, count)} nearest "
                                  f"samples{search_words(neighbourhood.search_radius, units)}."))
     return LocalKrigingPredictor(xy, values, covariance, mean, neighbours=neighbours,
                                  search_radius=neighbourhood.search_radius), lines

@@ -43,6 +43,11 @@ MODEL_ADVICE = ("Refit with 'Fit covariance model' and another Covariance family
                 "NEIGHBOURS = 0 (every sample) or a different number of neighbours changes the weights.")
 AREA_ADVICE = ("Limit the map to the samples with MAP_AREA = hull (and HULL_MARGIN), a MASK or a smaller EXTENT; "
                "read the variance beside the prediction there.")
+POINT_ADVICE = "Read the variance and standard error beside the estimate at those points."
+PLACE_WORDS = {"cell": ("mapped cells", "cell(s) are nodata", "per cell", AREA_ADVICE),
+               "point": ("target points", "target point(s) get no value (NULL)", "per point", POINT_ADVICE)}
+"""What :meth:`ExtrapolationCheck.lines` calls the places checked: the places, those left without a value, the
+probability's unit and the advice when many extrapolate."""
 
 
 @dataclass
@@ -150,34 +155,38 @@ class ExtrapolationCheck:
         """Euclidean distance from each of ``centres`` (m, 2) to its nearest sample (working CRS units)."""
         return self.tree.query(centres)[0]
 
-    def lines(self, units: str = "metre") -> list[LogLine]:
+    def lines(self, units: str = "metre", places: str = "cell") -> list[LogLine]:
         """The log lines of the counts: warnings for cells outside the model and above
-        :data:`EXTRAPOLATION_SHARE` of the cells extrapolated, information otherwise."""
+        :data:`EXTRAPOLATION_SHARE` of the cells extrapolated, information otherwise.
+
+        ``places`` is ``"cell"`` (a grid) or ``"point"`` (target points), for the words of :data:`PLACE_WORDS`.
+        """
         if not self.cells:
             return []
+        checked, missing, each, advice = PLACE_WORDS[places]
         reach = max(structure.effective_range for structure, _ in self.frames)
         share = self.beyond_range / self.cells
         lines = [LogLine("warning" if share > EXTRAPOLATION_SHARE else "info",
-                         f"{self.beyond_range:,} of {self.cells:,} mapped cells ({share:.1%}) lie farther than the "
+                         f"{self.beyond_range:,} of {self.cells:,} {checked} ({share:.1%}) lie farther than the "
                          f"model's effective range ({reach:.4g} {units} along the major axis) from every sample: "
                          "there the prediction is the model's mean and the variance near the sill."
-                         + (" " + AREA_ADVICE if share > EXTRAPOLATION_SHARE else ""))]
+                         + (" " + advice if share > EXTRAPOLATION_SHARE else ""))]
         for name, counts, sd, (low, high) in zip(self.fields, self.counts, self.sds, self.data_range):
             if counts.outside_model:
-                lines.append(LogLine("warning", f"{name}: {counts.outside_model:,} cell(s) are nodata: their kriging "
+                lines.append(LogLine("warning", f"{name}: {counts.outside_model:,} {missing}: their kriging "
                                      f"prediction lies more than {TAIL_SDS:g} standard deviations of the model "
                                      f"(square root of the sill, {sd:.4g} in the modelling scale) from the model's "
-                                     "mean, which a Gaussian field reaches with probability about 2e-9 per cell; "
+                                     f"mean, which a Gaussian field reaches with probability about 2e-9 {each}; "
                                      "the kriging weights are unstable there. " + MODEL_ADVICE))
             outside = counts.below + counts.above
             share = outside / self.cells
-            span = (f"; the map spans {counts.lowest:.4g} to {counts.highest:.4g}."
+            span = (f"; the predictions span {counts.lowest:.4g} to {counts.highest:.4g}."
                     if counts.lowest <= counts.highest else ".")
-            words = (f"{name}: {outside:,} mapped cells ({share:.1%}) are predicted outside the range of the "
+            words = (f"{name}: {outside:,} {checked} ({share:.1%}) are predicted outside the range of the "
                      f"samples ({low:.4g} to {high:.4g}): {counts.below:,} below, {counts.above:,} above{span}")
             if share > EXTRAPOLATION_SHARE:
                 lines.append(LogLine("warning", words + " Kriging beyond the data follows the model's mean and "
-                                     "trend, not measurements. " + AREA_ADVICE))
+                                     "trend, not measurements. " + advice))
             else:
                 lines.append(LogLine("info", words))
         return lines

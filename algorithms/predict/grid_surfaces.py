@@ -5,6 +5,8 @@ block of rows at a time, whatever the raster's height; the files appear only
 when every block is written (see :class:`..io.geotiff.GeoTiffWriter`).
 Each cell is predicted at its centre (point support) or as the average over the
 cell (cell support, block kriging: :func:`.block.block_predict`).
+:func:`predict_points` is the step per block that the point outputs share: kriging at any
+points, the extrapolation screen, and the output quantities in attribute units.
 """
 from __future__ import annotations
 
@@ -43,10 +45,10 @@ CellPredictor = Callable[[np.ndarray, Callable[[float], None], Optional[Callable
 one column per field when the predictor krigs several fields at once."""
 
 
-def cell_predictor(predictor: KrigingPredictor | LocalKrigingPredictor, support: str,
-                   pixel_size: float) -> CellPredictor:
-    """Kriging at cell centres (``support == "point"``) or of cell averages (``"cell"``, block kriging;
-    global :class:`KrigingPredictor` only)."""
+def cell_predictor(predictor: KrigingPredictor | LocalKrigingPredictor, support: str = "point",
+                   pixel_size: float = 0.0) -> CellPredictor:
+    """Kriging at cell centres or other points (``support == "point"``) or of cell averages of side
+    ``pixel_size`` (``"cell"``, block kriging; global :class:`KrigingPredictor` only)."""
     if support == "cell":
         def predict(centres, progress, should_stop):
             return block_predict(predictor, centres, pixel_size, progress=progress, should_stop=should_stop)
@@ -165,6 +167,67 @@ class SurfaceScale:
                 "exceedance": exceedance + (" (threshold log-transformed like the data)" if exceedance else "")}
 
 
+@dataclass(frozen=True)
+class PointValues:
+    """What :func:`predict_points` found at ``m`` points for ``k`` fields.
+
+    Attributes
+    ----------
+    layers : list of dict of str to ndarray
+        Per field, each kind asked for (of :data:`SURFACE_KINDS`), shape (m,), attribute units.
+        NaN where the point is unresolved or screened out.
+    resolved : ndarray of bool, shape (m,)
+        Points the predictor resolved (False: a local neighbourhood with too few samples in range, or singular).
+    kept : ndarray of bool, shape (m, k)
+        Resolved points whose mean lies within what the model allows (see :class:`.extrapolation.ExtrapolationCheck`).
+    """
+
+    layers: list[dict[str, np.ndarray]]
+    resolved: np.ndarray
+    kept: np.ndarray
+
+
+def predict_points(predict: CellPredictor, xy: np.ndarray, scale: SurfaceScale, kinds: Sequence[str], *,
+                   variance_factors: Sequence[float] = (1.0,), check: ExtrapolationCheck | None = None,
+                   progress: Callable[[float], None] | None = None,
+                   should_stop: Callable[[], bool] | None = None) -> PointValues:
+    """Krige ``xy`` and return the quantities ``kinds`` of every field in attribute units.
+
+    Parameters
+    ----------
+    predict : CellPredictor
+        ``predict(xy, progress, should_stop) -> (mean, variance)`` in the modelling scale
+        (:func:`cell_predictor`); ``mean`` (m,) or (m, k) for k fields.
+    xy : ndarray of shape (m, 2)
+        Points, working CRS units.
+    scale : SurfaceScale
+        Transform, back-transform, threshold and interval of the outputs.
+    kinds : sequence of str
+        Quantities wanted, of :data:`SURFACE_KINDS` (``"exceedance"`` needs ``scale.threshold``).
+    variance_factors : sequence of float
+        Per field, its kriging variance over the predictor's (1 for a field kriged with its own model).
+    check : ExtrapolationCheck, optional
+        Screens means beyond what the model allows (set to NaN) and counts the points beyond the effective
+        range and outside the data range.
+    progress, should_stop : callable, optional
+        Passed to ``predict`` (fraction done; raises :class:`..errors.Cancelled` when ``should_stop()``).
+    """
+    mean, variance = predict(xy, progress, should_stop)
+    mean = mean.reshape(len(variance), -1)
+    resolved = ~np.isnan(variance)
+    variances = variance[:, None] * np.asarray(variance_factors, dtype=float)
+    if check is not None:
+        mean, variances = check.screen(xy, mean, variances)
+    wanted = list(dict.fromkeys([*kinds, "prediction"]))
+    layers = []
+    for column in range(mean.shape[1]):
+        values = scale.layers(mean[:, column], variances[:, column], wanted)
+        if check is not None:
+            check.count_data_range(column, values["prediction"])
+        layers.append({kind: values[kind] for kind in kinds})
+    return PointValues(layers, resolved, ~np.isnan(variances))
+
+
 def block_rows(grid: GridSpec, fields: int = 1) -> int:
     """Rows per block: as many whole 256-row tile rows as fit in :data:`BLOCK_CELLS` cells per field, at least one.
 
@@ -238,6 +301,7 @@ def write_surfaces(predict: CellPredictor, grid: GridSpec, inside: np.ndarray | 
             writers.append({kind: stack.enter_context(GeoTiffWriter(output.paths[kind], grid, 1, crs_wkt,
                                                                      [descriptions[kind]], output.metadata))
                             for kind in kinds})
+        kinds_asked = [kind for kind in SURFACE_KINDS if any(kind in field_writers for field_writers in writers)]
         for start in range(0, grid.n_rows, step):
             if should_stop is not None and should_stop():
                 raise Cancelled("Prediction was cancelled.")
@@ -251,24 +315,19 @@ def write_surfaces(predict: CellPredictor, grid: GridSpec, inside: np.ndarray | 
                     if progress is not None:
                         progress((start + fraction * (stop - start)) / grid.n_rows)
 
-                mean, variance = predict(centres[keep], block_progress, should_stop)
-                mean = mean.reshape(len(variance), -1)
-                resolved = ~np.isnan(variance)
-                kriged += len(variance)
-                unresolved += int(np.count_nonzero(~resolved))
-                variances = variance[:, None] * np.array([output.variance_factor for output in fields])
-                if check is not None:
-                    mean, variances = check.screen(centres[keep], mean, variances)
+                found = predict_points(predict, centres[keep], scale, kinds_asked,
+                                       variance_factors=[output.variance_factor for output in fields], check=check,
+                                       progress=block_progress, should_stop=should_stop)
+                kriged += len(found.resolved)
+                unresolved += int(np.count_nonzero(~found.resolved))
                 if distance_writer is not None:
                     distance[keep] = check.distances(centres[keep])
                 for column, (output, field_bands) in enumerate(zip(fields, bands)):
-                    layers = scale.layers(mean[:, column], variances[:, column], list(field_bands) + ["prediction"])
-                    if check is not None:
-                        check.count_data_range(column, layers["prediction"])
-                    kept = ~np.isnan(variances[:, column])  # resolved, and within what the model allows
                     for kind in field_bands:
-                        field_bands[kind][keep] = layers[kind]
-                        lost[f"{output.field} {kind}"] += int(np.count_nonzero(kept & unwritable(layers[kind])))
+                        values = found.layers[column][kind]
+                        field_bands[kind][keep] = values
+                        lost[f"{output.field} {kind}"] += int(np.count_nonzero(found.kept[:, column]
+                                                                               & unwritable(values)))
             for field_writers, field_bands in zip(writers, bands):
                 for kind, writer in field_writers.items():
                     writer.write_block(0, start, field_bands[kind])

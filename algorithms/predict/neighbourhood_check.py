@@ -102,3 +102,29 @@ def grid_targets(grid: GridSpec, inside: np.ndarray | None, count: int = CHECK_T
     drawn = rng.permutation(drawn)[:count]
     rows, cols = np.divmod(drawn, grid.n_cols)
     return np.column_stack([grid.x_min + (cols + 0.5) * grid.pixel_size, grid.y_max - (rows + 0.5) * grid.pixel_size])
+
+
+class TargetDraw:
+    """Up to ``count`` points drawn at random, all equally likely, from points that arrive in chunks.
+
+    Each point gets a uniform random key (fixed ``seed``) and the ``count`` smallest keys are kept, so the
+    memory stays that of ``count`` points however many arrive (a streamed sample without replacement).
+    """
+
+    def __init__(self, count: int = CHECK_TARGETS, seed: int = 0) -> None:
+        self.count = count
+        self.rng = np.random.default_rng(seed)
+        self.keys = np.empty(0)
+        self.points = np.empty((0, 2))
+
+    def add(self, xy: np.ndarray) -> None:
+        """Offer the points ``xy`` (m, 2)."""
+        keys = np.concatenate([self.keys, self.rng.random(len(xy))])
+        points = np.concatenate([self.points, np.asarray(xy, dtype=float).reshape(-1, 2)])
+        kept = np.argsort(keys, kind="stable")[:self.count]
+        self.keys, self.points = keys[kept], points[kept]
+
+    @property
+    def targets(self) -> np.ndarray:
+        """The points drawn so far, (k, 2) with k at most ``count``."""
+        return self.points

@@ -29,6 +29,7 @@ MAIN_PAGE_INPUTS = {
                     "TEMPLATE", "EXTENT", "PIXEL_SIZE", "MASK", "MAP_AREA"},
     "simulate": {"INPUT", "FIELD", "MODEL", "TEMPLATE", "EXTENT", "PIXEL_SIZE", "MASK", "REALIZATIONS", "THRESHOLD"},
     "crossvalidate": {"INPUT", "FIELD", "MODEL"},
+    "predictpoints": {"INPUT", "FIELD", "MODEL", "TARGETS", "THRESHOLD"},
 }
 EXPERT = {"NEIGHBOURS", "SEARCH_RADIUS", "SUPPORT", "BACKTRANSFORM", "TARGET_CRS", "LOG_OFFSET", "SEED", "HULL_MARGIN",
           "INTERVAL_PROBABILITY", "TEMPLATE_NODATA_MASK"}
@@ -79,7 +80,7 @@ def test_value_field_widget_does_not_preselect_the_feature_id(tmp_path):
     assert json.loads(result.stdout.strip().splitlines()[-1]) == dict.fromkeys(names)
 
 
-@pytest.mark.parametrize("name", ["fitmodel", "predict", "simulate", "crossvalidate"])
+@pytest.mark.parametrize("name", ["fitmodel", "predict", "predictpoints", "simulate", "crossvalidate"])
 def test_run_without_value_field_is_refused_with_advice(qgis_processing, tmp_path, name):  # noqa: F811
     layer = point_layer(np.array([[0.0, 0.0], [10.0, 0.0], [0.0, 10.0]]), {"zinc": np.array([1.0, 2.0, 3.0])})
     with pytest.raises(QgsProcessingException, match=r"No value field chosen.*'Value field' \(FIELD\)"):
@@ -111,6 +112,7 @@ def test_toolbox_search_finds_the_algorithm_for_its_own_words(fieldcast_plugin):
     assert "fieldcast:fitmodel" in toolbox_search("variogram")
     assert "fieldcast:crossvalidate" in toolbox_search("leave-one-out")
     assert "fieldcast:simulate" in toolbox_search("conditional simulation")
+    assert "fieldcast:predictpoints" in toolbox_search("wells")
     assert "fieldcast:predict" not in toolbox_search("leave-one-out")
 
 

@@ -32,6 +32,10 @@ CONTRACT = {
                      "HULL_MARGIN", "BACKTRANSFORM",
                      "NEIGHBOURS", "SEARCH_RADIUS", "TARGET_CRS", "OUTPUT_FOLDER"},
                     {"OUTPUT_FOLDER", "COUNT"}),
+    "predictpoints": ("Predict at points",
+                      {"INPUT", "FIELD", "MODEL", "TARGETS", "THRESHOLD", "BACKTRANSFORM", "NEIGHBOURS",
+                       "SEARCH_RADIUS", "TARGET_CRS", "OUTPUT"},
+                      {"OUTPUT"}),
     "simulate": ("Simulate conditional fields",
                  {"INPUT", "FIELD", "MODEL", "TEMPLATE", "EXTENT", "PIXEL_SIZE", "MASK", "TEMPLATE_NODATA_MASK",
                   "REALIZATIONS", "SEED", "NEIGHBOURS",
@@ -59,6 +63,7 @@ CHOICES = {
     ("predictmany", "TREND"): ["constant", "linear", "quadratic"],
     ("predictmany", "METHOD"): ["reml", "ml", "wls"],
     ("predictmany", "BACKTRANSFORM"): ["median", "mean"],
+    ("predictpoints", "BACKTRANSFORM"): ["median", "mean"],
 }
 
 
@@ -89,7 +94,7 @@ def test_metadata_names_every_algorithm_in_about_and_changelog():
         assert f'"{display}"' in general["about"] and display in general["changelog"], display
 
 
-def test_class_factory_registers_the_provider_with_five_algorithms(fieldcast_plugin):  # noqa: F811
+def test_class_factory_registers_the_provider_with_six_algorithms(fieldcast_plugin):  # noqa: F811
     provider = QgsApplication.processingRegistry().providerById("fieldcast")
     assert provider is not None and provider.name() == "Fieldcast"
     assert sorted(a.name() for a in provider.algorithms()) == sorted(CONTRACT)

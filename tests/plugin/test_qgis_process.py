@@ -17,6 +17,8 @@ import numpy as np
 import pytest
 from osgeo import gdal, ogr, osr
 
+from fieldcast.algorithms.io.model_file import ModelDocument
+from fieldcast.algorithms.predict.kriging import KrigingPredictor
 from qgis_process_support import (
     MEUSE_METALS,
     QGIS_PROCESS,
@@ -214,3 +216,28 @@ def test_bad_values_on_the_command_line_get_our_message(profile, meuse_layer, tm
         assert fragment in run.messages
     assert "Traceback" not in run.messages
     assert list(tmp_path.iterdir()) == []
+
+
+def test_predictpoints_at_the_samples_is_the_kriging_of_the_model(profile, meuse_layer, meuse, tmp_path):
+    model_path = tmp_path / "zinc.json"
+    fit(profile, meuse_layer, "zinc", model_path)
+    points = tmp_path / "at_samples.gpkg"
+    run = run_algorithm(profile, "fieldcast:predictpoints", {"INPUT": meuse_layer, "FIELD": "zinc", "MODEL": model_path,
+                                                             "TARGETS": meuse_layer, "OUTPUT": points})
+    assert run.returncode == 0, run.messages
+    dataset = ogr.Open(str(points))  # held while the layer is read (a layer outliving its dataset crashes)
+    layer = dataset.GetLayer()
+    definition = layer.GetLayerDefn()
+    names = [definition.GetFieldDefn(i).GetName() for i in range(definition.GetFieldCount())]
+    assert names[:2] == ["id", "zinc"] and names[-3:] == ["zinc_est", "zinc_var", "zinc_sd"]
+    rows = {int(feature.GetField("id")): (feature.GetField("zinc_est"), feature.GetField("zinc_sd"))
+            for feature in layer}
+    document = ModelDocument.load(str(model_path))
+    offset = document.transform.offset
+    mu, s2 = KrigingPredictor(meuse.xy, np.log(meuse.zinc + offset), document.covariance,
+                              document.mean).predict(meuse.xy)
+    # The median of the lognormal exp(Y), Y ~ N(mu, s2), is exp(mu); its sd exp(mu + s2/2) sqrt(exp(s2) - 1)
+    # (Aitchison & Brown 1957, the lognormal distribution).
+    got = np.array([rows[int(sample)] for sample in meuse.ids])
+    np.testing.assert_allclose(got[:, 0], np.exp(mu) - offset, rtol=1e-9)
+    np.testing.assert_allclose(got[:, 1], np.exp(mu + s2 / 2) * np.sqrt(np.expm1(s2)), rtol=1e-9)

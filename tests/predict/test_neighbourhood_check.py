@@ -9,7 +9,7 @@ from fieldcast.algorithms.model.covariance import CovarianceModel, Structure
 from fieldcast.algorithms.model.mean import MeanModel
 from fieldcast.algorithms.predict.kriging import KrigingPredictor
 from fieldcast.algorithms.predict.local import LocalKrigingPredictor
-from fieldcast.algorithms.predict.neighbourhood_check import grid_targets, neighbourhood_gap
+from fieldcast.algorithms.predict.neighbourhood_check import TargetDraw, grid_targets, neighbourhood_gap
 from reference import MEUSE_LOG_ZINC
 
 # A smooth, shorter-range model (Matérn 3/2, 300 m) under which the nearest samples screen the others.
@@ -80,3 +80,21 @@ def test_grid_targets_are_distinct_cells_inside_the_mask():
     np.testing.assert_allclose(cols, np.round(cols), atol=1e-9)
     assert inside[np.round(rows).astype(int), np.round(cols).astype(int)].all()
     assert len(grid_targets(GridSpec(0.0, 10.0, 1.0, 3, 3), None, count=400)) == 9  # small grids: every cell
+
+
+def test_target_draw_keeps_a_uniform_sample_of_a_stream_in_bounded_memory():
+    draw = TargetDraw(count=50, seed=1)
+    stream = np.column_stack([np.arange(10_000.0), np.zeros(10_000)])
+    for start in range(0, len(stream), 999):
+        draw.add(stream[start:start + 999])
+    drawn = draw.targets[:, 0]
+    assert len(np.unique(drawn)) == 50 and set(drawn) <= set(stream[:, 0])
+    # A uniform draw of 50 of 10,000: each tenth of the stream holds about Binomial(50, 0.1) of them, more
+    # than 15 with probability 2e-5 (scipy.stats.binom(50, 0.1).sf(15)); each half Binomial(50, 0.5), 10 or
+    # fewer with probability 1.2e-5 (scipy.stats.binom(50, 0.5).cdf(10)). A draw that favours the first or
+    # last chunks fails.
+    counts = np.bincount((drawn // 1000).astype(int), minlength=10)
+    assert counts.max() <= 15 and counts[:5].sum() > 10 and counts[5:].sum() > 10
+    small = TargetDraw(count=50)
+    small.add(stream[:7])
+    assert sorted(small.targets[:, 0]) == list(range(7))
