@@ -53,6 +53,7 @@ from ..model.covariance import CovarianceModel
 from ..model.mean import MeanModel
 from ..model.parameters import DataScales, ParameterLayout, covariance_derivatives, parameter_bounds
 from .bound_warnings import bound_warnings
+from .data_warnings import data_warnings
 from .fitting import VECCHIA_THRESHOLD, fit_with
 from .likelihood import LOG_2PI, GlsSolution, LikelihoodTerms, MeanBasis, PairedObjective, evaluate_model
 from .minimiser import convergence_warning, minimise
@@ -249,11 +250,14 @@ def _field_result(xy: np.ndarray, values: np.ndarray, covariates: np.ndarray | N
 
     ``field`` is the internal problem with the field's scale as value scale, so that its
     :meth:`~.fit_search.SearchProblem.to_data_units` and data scales turn the shared internal model
-    and its bounds into the field's units (bound warnings then quote the field's numbers).
+    and its bounds into the field's units (bound warnings then quote the field's numbers). Its warnings are
+    those of a single-field fit: what the samples resolve (:func:`.data_warnings.data_warnings`), parameters at
+    a bound, then ``shared_messages``.
     """
     covariance = field.to_data_units(shared)
     evaluation = evaluate_model(xy, values, covariance, mean_model, field.method, covariates)
-    messages = bound_warnings(layout, layout.pack(covariance), parameter_bounds(layout, field.data_scales))
+    messages = data_warnings(xy, covariance) + bound_warnings(layout, layout.pack(covariance),
+                                                              parameter_bounds(layout, field.data_scales))
     messages += shared_messages
     covariance = with_jitter_in_nugget(covariance, evaluation.jitter, messages)
     aic, bic, k = information_criteria(field, evaluation.log_likelihood, layout)
