@@ -49,6 +49,7 @@ from scipy.linalg import blas, lapack
 
 from ..errors import Cancelled, FieldcastError
 from ..io.samples import check_samples
+from ..linalg.condition_policy import FIT_CONDITION_ADVICE
 from ..model.covariance import CovarianceModel
 from ..model.mean import MeanModel
 from ..model.parameters import ParameterLayout, covariance_derivatives
@@ -158,7 +159,7 @@ def jitter_message(jitter: float) -> str:
     return (
         f"The covariance matrix of the samples was not numerically positive definite; {jitter:.3g} was added "
         "to its diagonal. This usually means samples at (nearly) the same location with a (near) zero "
-        "nugget: merge coincident samples, or use a model with a nugget."
+        "nugget. " + FIT_CONDITION_ADVICE
     )
 
 
@@ -173,7 +174,8 @@ def factorise(matrix: np.ndarray) -> tuple[tuple[np.ndarray, bool], float]:
         Value added to the diagonal (0 when none was needed).
     """
     if not np.all(np.isfinite(np.diag(matrix))):
-        raise FieldcastError("The covariance matrix has infinite or missing entries; check the model parameters.")
+        raise FieldcastError("The covariance matrix has infinite or missing entries; check the model file's nugget, "
+                             "partial sills and ranges, or refit it with 'Fit covariance model'.")
     scale = float(np.mean(np.diag(matrix)))
     jitter = 0.0
     step = JITTER_START * scale
@@ -185,7 +187,7 @@ def factorise(matrix: np.ndarray) -> tuple[tuple[np.ndarray, bool], float]:
             if step > JITTER_LIMIT * scale:
                 raise FieldcastError(
                     "The covariance matrix of the samples is not positive definite even after adding "
-                    f"{jitter:.3g} to its diagonal. Merge samples at the same location, or use a model with a nugget."
+                    f"{jitter:.3g} to its diagonal. " + FIT_CONDITION_ADVICE
                 ) from None
             jitter, step = step, step * 10.0
 
@@ -241,7 +243,7 @@ class GlsSolution:
         """Lower triangle of ``W``: ``P = K^-1 - K^-1 Q (Q^T K^-1 Q)^-1 Q^T K^-1`` (REML) or ``K^-1`` (ML)."""
         precision, info = lapack.dpotri(self.factor[0], lower=1)  # lower triangle of K^-1
         if info != 0:
-            raise FieldcastError("The covariance matrix could not be inverted; use a model with a nugget.")
+            raise FieldcastError("The covariance matrix could not be inverted. " + FIT_CONDITION_ADVICE)
         if method == "reml" and self.gram_factor is not None:
             half = linalg.solve_triangular(self.gram_factor[0], self.solved_q.T, lower=True, check_finite=False)
             precision -= half.T @ half

@@ -148,8 +148,8 @@ def fit_shared(xy: np.ndarray, values: np.ndarray, options: FitOptions,
         _part(progress, START_SHARE, 1.0), options.max_iterations)
     shared = layout.unpack(theta)
     messages = [] if failure is None else [
-        f"Joint fit of the shared model: {failure} The model may be off its best; a model per field, or fewer "
-        "fields, also help."]
+        f"Joint fit of the shared model: {failure} The model may be off its best: turn off 'One correlation model "
+        "for all fields' (SHARED_MODEL) for a model per field, or choose fewer FIELDS."]
     scales = objective.field_scales(theta) * column_scales ** 2
     results = [_field_result(xy, column, covariates, replace(problem, value_scale=math.sqrt(scale)), shared,
                              mean_model, options.method, layout, len(names), messages)
@@ -168,8 +168,9 @@ def _checked_fields(xy: np.ndarray, values: np.ndarray, options: FitOptions, nam
         raise FieldcastError(f"Got {len(names)} field names for {values.shape[1]} columns of values; give one "
                              "name per field.")
     if options.method not in ("reml", "ml"):
-        raise FieldcastError("A model shared by several fields is fitted by likelihood; choose method 'reml' or "
-                             "'ml'.")
+        raise FieldcastError("A model shared by several fields is fitted by likelihood: choose METHOD reml or ml, "
+                             "or turn off 'One correlation model for all fields' (SHARED_MODEL) to fit each field "
+                             "by itself.")
     if (options.mean.kind if isinstance(options.mean, MeanModel) else options.mean) == "known":
         raise FieldcastError("A shared model needs a mean estimated from each field (constant, linear or "
                              "quadratic); a known mean would be the same number for every field.")

@@ -53,6 +53,11 @@ CONDITION_ADVICE = ("Refit with a less smooth family such as exponential or Mat√
                     "model), give the model a nugget (the model file's \"nugget\"), or merge near-duplicate samples.")
 """What the user can change to get a better conditioned system."""
 
+FIT_CONDITION_ADVICE = ("Choose a less smooth KERNEL such as exponential or matern32 in 'Fit covariance model', or "
+                        "average or remove samples that lie (nearly) at one place.")
+"""What the user can change when the samples' covariance matrix is singular during a fit (the nugget is then
+being estimated, so a nugget is not advice the user can follow)."""
+
 
 ESTIMATE_STEPS = 5
 """Most climbing steps of the stacked 1-norm estimate (LAPACK's estimator also stops at five).

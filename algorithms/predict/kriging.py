@@ -117,8 +117,8 @@ def check_distinct(xy: np.ndarray) -> None:
         raise FieldcastError(
             f"{int(np.sum(counts[repeated]))} samples coincide at {int(np.sum(repeated))} location(s) "
             f"(for example at x={x:g}, y={y:g}) and the covariance model has no nugget, so the kriging "
-            "system is singular. Average the values of coincident points (merge duplicates) or use a "
-            "model with a nugget."
+            "system is singular. Average the values of coincident samples, or give the model a nugget (the "
+            "model file's \"nugget\", or refit it with 'Fit covariance model', which estimates one)."
         )
 
 
@@ -153,13 +153,13 @@ def checked_variance(variance: np.ndarray, sill: float, *, unresolved_allowed: b
     """
     variance = np.asarray(variance, dtype=float)
     if not unresolved_allowed and not np.all(np.isfinite(variance)):
-        raise FieldcastError("Kriging produced non-finite variances; check the covariance model parameters.")
+        raise FieldcastError("Kriging produced non-finite variances; check the model file's nugget, partial sills "
+                             "and ranges, or refit it with 'Fit covariance model'.")
     lowest = float(np.nanmin(variance, initial=0.0))
     if lowest < -NEGATIVE_VARIANCE_TOLERANCE * sill:
         raise FieldcastError(
             f"Kriging variance came out clearly negative ({lowest:.3g} with sill {sill:.3g}): {system} is too "
-            "close to singular for reliable results. Merge near-duplicate points or use a model with a (larger) "
-            "nugget."
+            "close to singular for reliable results. " + CONDITION_ADVICE
         )
     return np.where(variance < 0.0, 0.0, variance)
 
