@@ -5,18 +5,23 @@ particular defect. Fits use one family without anisotropy to stay quick.
 """
 from __future__ import annotations
 
+import hashlib
 import math
+import os
+from pathlib import Path
 
 import numpy as np
 import pytest
 from osgeo import gdal, ogr
 from pyproj import Transformer
 from qgis.core import (
+    QgsCoordinateTransformContext,
     QgsField,
     QgsGeometry,
     QgsPointXY,
     QgsProcessingException,
     QgsProcessingFeedback,
+    QgsVectorFileWriter,
     QgsVectorLayer,
 )
 
@@ -37,6 +42,14 @@ def layer_state(layer: QgsVectorLayer) -> list:
     return [(f.id(), [repr(value) for value in f.attributes()], f.geometry().asWkt()) for f in layer.getFeatures()]
 
 
+def input_file_bytes(parameters: dict) -> dict[str, str]:
+    """SHA-256 of every existing file a run reads: layer sources and paths given as text (``path|layername=..``)."""
+    named = [value.source() if isinstance(value, QgsVectorLayer) else value for value in parameters.values()]
+    paths = {text.split("|")[0] for text in named if isinstance(text, str)}
+    return {path: hashlib.sha256(Path(path).read_bytes()).hexdigest() for path in sorted(paths)
+            if os.path.isfile(path)}
+
+
 def leftovers(folder) -> list[str]:
     """Names of files in ``folder`` (outputs and temporary files alike)."""
     return sorted(path.name for path in folder.iterdir())
@@ -44,11 +57,13 @@ def leftovers(folder) -> list[str]:
 
 @pytest.fixture()
 def run_refused(qgis_processing, tmp_path):  # noqa: F811
-    """Run an algorithm that must fail; check the message, that no file appeared, and that inputs are intact."""
+    """Run an algorithm that must fail; check the message, that no file appeared, and that inputs are intact
+    (memory layers feature by feature, input files byte for byte)."""
 
     def check(algorithm: str, parameters: dict, *fragments: str, feedback=None) -> None:
         layers = [value for value in parameters.values() if isinstance(value, QgsVectorLayer)]
         before = [layer_state(layer) for layer in layers]
+        bytes_before = input_file_bytes(parameters)
         files_before = leftovers(tmp_path)
         report = str(tmp_path / "out_report.html")
         if algorithm == "fieldcast:fitmodel":
@@ -64,6 +79,7 @@ def run_refused(qgis_processing, tmp_path):  # noqa: F811
             assert fragment in str(error.value)
         assert leftovers(tmp_path) == files_before
         assert [layer_state(layer) for layer in layers] == before
+        assert input_file_bytes(parameters) == bytes_before
 
     return check
 
@@ -93,6 +109,18 @@ def quick_fit_log(processing, layer, tmp_path) -> str:
     _, log = run_logged(processing, "fieldcast:fitmodel", {
         "INPUT": layer, "FIELD": "zinc", **QUICK_FIT, "OUTPUT_MODEL": str(tmp_path / "m.json")})
     return log
+
+
+def test_the_refusal_check_reads_the_bytes_of_layer_files_and_model_files(meuse, model_file, tmp_path):
+    path = tmp_path / "samples.gpkg"
+    layer = point_layer(meuse.xy[:5], {"zinc": meuse.zinc[:5]})
+    options = QgsVectorFileWriter.SaveVectorOptions()
+    options.driverName = "GPKG"
+    assert QgsVectorFileWriter.writeAsVectorFormatV3(layer, str(path), QgsCoordinateTransformContext(),
+                                                     options)[0] == QgsVectorFileWriter.NoError
+    on_disk = QgsVectorLayer(f"{path}|layername=samples", "samples", "ogr")
+    assert set(input_file_bytes({"INPUT": on_disk, "MODEL": model_file, "OUTPUT": str(tmp_path / "x.tif")})) == {
+        str(path), model_file}
 
 
 # --- layer reading -------------------------------------------------------------------------------------------
