@@ -12,7 +12,7 @@ from pathlib import Path
 
 import numpy as np
 import pytest
-from osgeo import gdal, ogr
+from osgeo import gdal
 from pyproj import Transformer
 from qgis.core import (
     QgsCoordinateTransformContext,
@@ -26,6 +26,7 @@ from qgis.core import (
 )
 
 from fieldcast.algorithms.io.crs import same_crs
+from qgis_process_support import write_geopackage_without_srs
 from qgis_support import (  # noqa: F401 - fieldcast_plugin and qgis_processing are fixtures
     CancelAfterFirstProgress,
     field_type,
@@ -141,17 +142,7 @@ def test_layer_without_crs_is_refused(run_refused, meuse):
 
 def test_geopackage_written_without_srs_is_refused_not_moved_to_utm(run_refused, tmp_path_factory):
     # GDAL gives such a layer its "Undefined geographic SRS", which QGIS reports as a valid CRS in degrees.
-    path = str(tmp_path_factory.mktemp("nosrs") / "site.gpkg")
-    source = ogr.GetDriverByName("GPKG").CreateDataSource(path)
-    table = source.CreateLayer("site", None, ogr.wkbPoint)
-    table.CreateField(ogr.FieldDefn("depth", ogr.OFTReal))
-    for x, y, depth in [(0, 0, 1.0), (6, 0, 2.0), (0, 6, 1.5), (6, 6, 3.0), (3, 3, 2.5), (2, 5, 1.2)]:
-        feature = ogr.Feature(table.GetLayerDefn())
-        feature.SetField("depth", depth)
-        feature.SetGeometry(ogr.CreateGeometryFromWkt(f"POINT ({x} {y})"))
-        table.CreateFeature(feature)
-    source = None
-    layer = QgsVectorLayer(f"{path}|layername=site", "site", "ogr")
+    layer = QgsVectorLayer(write_geopackage_without_srs(tmp_path_factory.mktemp("nosrs") / "site.gpkg"), "site", "ogr")
     assert layer.isValid() and "Undefined geographic SRS" in layer.crs().toWkt()
     run_refused("fieldcast:fitmodel", {"INPUT": layer, "FIELD": "depth"}, "The layer site has no defined CRS",
                 "local engineering CRS")
