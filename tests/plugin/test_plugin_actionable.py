@@ -115,6 +115,34 @@ def test_masks_that_keep_no_cell_are_refused_with_the_reason(run_refused, meuse_
                                       "PIXEL_SIZE": 100, "MASK": mask}, *fragments)
 
 
+# --- model files of the campaign ----------------------------------------------------------------------------
+
+def with_mean(kind: str, known_value: float):
+    def change(document: dict) -> None:
+        document["mean"].update(kind=kind, known_value=known_value, coefficients=[])
+    return change
+
+
+@pytest.mark.parametrize("algorithm", ["fieldcast:predict", "fieldcast:crossvalidate"])
+@pytest.mark.parametrize(("change", "fragments"), [
+    (lambda document: document["structures"][0].update(azimuth=float("nan")),
+     ("structures[0].azimuth = nan", "a finite number of degrees")),
+    (with_mean("known", float("nan")), ("mean.known_value = nan", "a finite number")),
+    (lambda document: document["structures"][0].update(partial_sill=1e300),
+     ("structures[0].partial_sill = 1e+300", "at most 1e+100")),
+    (lambda document: document.update(format_version="abc"), ('format_version = "abc"', "a whole number")),
+], ids=["nan-azimuth", "nan-known-mean", "huge-partial-sill", "text-format-version"])
+def test_model_files_the_campaign_broke_are_refused_naming_key_and_value(run_refused, meuse_layer, model_file,  # noqa: F811
+                                                                       tmp_path, algorithm, change, fragments):
+    # Each used to run: a constant map (NaN azimuth), all-nodata rasters reported as success, or a crash.
+    document = json.loads(Path(model_file).read_text(encoding="utf-8"))
+    change(document)
+    broken = tmp_path / "broken.json"
+    broken.write_text(json.dumps(document), encoding="utf-8")  # json.dumps writes NaN as the literal NaN
+    run_refused(algorithm, {"INPUT": meuse_layer, "FIELD": "zinc", "MODEL": str(broken)},
+                "The model file broken.json has", *fragments, "Refit the model with 'Fit covariance model'")
+
+
 # --- rasters that would be nodata ----------------------------------------------------------------------------
 
 def test_variance_beyond_float32_everywhere_is_refused(run_refused, meuse_layer, model_file, tmp_path):  # noqa: F811
