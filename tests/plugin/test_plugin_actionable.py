@@ -157,6 +157,24 @@ def test_variance_beyond_float32_everywhere_is_refused(run_refused, meuse_layer,
                 "Check the model's sill and partial sills")
 
 
+def test_variance_beyond_float32_at_most_cells_is_warned_about(qgis_processing, meuse_layer, model_file,  # noqa: F811
+                                                                tmp_path):
+    # A partial sill of 1e39 ppm^2 with a 20 m range and no nugget: kriging variances stay small at the cells
+    # next to a sample but reach the sill, beyond the Float32 range (about 3.4e38, IEEE 754 single precision),
+    # at most cells away from them, which the variance raster then holds as nodata.
+    document = json.loads(Path(model_file).read_text(encoding="utf-8"))
+    document["structures"][0].update(partial_sill=1e39, range=20.0)
+    document["nugget"] = 0.0
+    steep = tmp_path / "steep.json"
+    steep.write_text(json.dumps(document), encoding="utf-8")
+    feedback = QgsProcessingFeedback()
+    qgis_processing.run("fieldcast:predict", {
+        "INPUT": meuse_layer, "FIELD": "zinc", "MODEL": str(steep), "PIXEL_SIZE": 100,
+        "OUTPUT": str(tmp_path / "zinc.tif"), "OUTPUT_VARIANCE": str(tmp_path / "variance.tif")}, feedback=feedback)
+    assert "The zinc variance raster is nodata at" in feedback.textLog()
+    assert "The zinc prediction raster is nodata at" not in feedback.textLog()
+
+
 @pytest.mark.parametrize("neighbours", [-1, 2.5])
 def test_neighbours_that_are_not_whole_numbers_from_0_are_refused(run_refused, meuse_layer, model_file,  # noqa: F811
                                                                   neighbours):
