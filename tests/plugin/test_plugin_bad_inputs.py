@@ -58,8 +58,8 @@ def leftovers(folder) -> list[str]:
 
 @pytest.fixture()
 def run_refused(qgis_processing, tmp_path):  # noqa: F811
-    """Run an algorithm that must fail; check the message, that no file appeared, and that inputs are intact
-    (memory layers feature by feature, input files byte for byte)."""
+    """Run an algorithm that must fail; check the message, that no traceback reached the message or the log, that
+    no file appeared, and that inputs are intact (memory layers feature by feature, input files byte for byte)."""
 
     def check(algorithm: str, parameters: dict, *fragments: str, feedback=None) -> None:
         layers = [value for value in parameters.values() if isinstance(value, QgsVectorLayer)]
@@ -74,10 +74,12 @@ def run_refused(qgis_processing, tmp_path):  # noqa: F811
         else:
             outputs = {name: str(tmp_path / f"out_{name.lower()}.tif") for name in ("OUTPUT", "OUTPUT_VARIANCE")}
         outputs = {name: path for name, path in outputs.items() if name not in parameters}
+        feedback = feedback or QgsProcessingFeedback()
         with pytest.raises(QgsProcessingException) as error:
-            qgis_processing.run(algorithm, {**parameters, **outputs}, feedback=feedback or QgsProcessingFeedback())
+            qgis_processing.run(algorithm, {**parameters, **outputs}, feedback=feedback)
         for fragment in fragments:
             assert fragment in str(error.value)
+        assert "Traceback" not in str(error.value) and "Traceback" not in feedback.textLog()
         assert leftovers(tmp_path) == files_before
         assert [layer_state(layer) for layer in layers] == before
         assert input_file_bytes(parameters) == bytes_before
