@@ -318,7 +318,7 @@ def test_bad_inputs_are_refused(meuse, log_zinc):
         predictor.predict(np.array([[180000.0, np.nan]]))
     with pytest.raises(FieldcastError, match="quadratic mean model has 6 term"):
         KrigingPredictor(meuse.xy[:5], log_zinc[:5], model, MeanModel.for_data("quadratic", meuse.xy))
-    with pytest.raises(FieldcastError, match="trend term.*dist are zero at every sample"):
+    with pytest.raises(FieldcastError, match="trend term.*dist are zero at every sample.*simpler TREND"):
         KrigingPredictor(meuse.xy, log_zinc, model, MeanModel.for_data("constant", meuse.xy, ("dist",)),
                          np.zeros((155, 1)))
     on_a_line = np.column_stack([np.linspace(0.0, 1000.0, 20), np.full(20, 5.0)])
