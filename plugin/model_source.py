@@ -5,6 +5,7 @@ from collections.abc import Callable
 from dataclasses import dataclass
 
 import numpy as np
+from qgis.core import QgsProcessingFeedback
 
 from ..algorithms import (
     FieldcastError,
@@ -72,8 +73,8 @@ def fit_shared_documents(xy: np.ndarray, values: np.ndarray, transform: Transfor
     return [(result_document(result, transform, working, field), result) for result, field in zip(results, fields)]
 
 
-def log_fit(feedback, xy: np.ndarray, values: np.ndarray, result: FitResult, document: ModelDocument,
-            label: str = "") -> None:
+def log_fit(feedback: QgsProcessingFeedback, xy: np.ndarray, values: np.ndarray, result: FitResult,
+            document: ModelDocument, label: str = "") -> None:
     """The log of a fit, the same in every algorithm that fits a model.
 
     Info: the chosen model in words and every candidate with its AIC and ΔAIC (the engine's
