@@ -57,7 +57,7 @@ from ..algorithms import (
 from .destinations import destination_value, layer_file, refuse_clashes
 from .help_text import SHORT_DESCRIPTIONS, help_url, parameter_help, search_words
 from .icons import icon, icon_path
-from .model_source import describe_document, fit_document, load_document
+from .model_source import describe_document, fit_document, load_document, log_fit
 from .report.page import ReportError
 from .sample_reader import LayerSamples, ModelSamples, prepare_samples, read_layer_samples
 from .whole_numbers import whole_number
@@ -341,8 +341,9 @@ class FieldcastAlgorithm(QgsProcessingAlgorithm):
             feedback.pushInfo(f"No model file given: fitting a model with the default settings "
                               f"({settings.describe()}, no transform). Run 'Fit covariance model' to choose them.")
             samples = prepare_samples(layer_samples, Transform(), feedback)
-            document, _ = fit_document(samples.xy, samples.values, Transform(), layer_samples.working,
-                                       layer_samples.field, settings, progress, feedback.isCanceled)
+            document, result = fit_document(samples.xy, samples.values, Transform(), layer_samples.working,
+                                            layer_samples.field, settings, progress, feedback.isCanceled)
+            log_fit(feedback, samples.xy, samples.values, result, document)
         feedback.pushInfo(describe_document(document))
         return document, samples
 

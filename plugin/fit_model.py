@@ -15,14 +15,12 @@ from ..algorithms import (
     FitResult,
     ModelDocument,
     candidate_rmse,
-    fit_log_lines,
     parse_crs,
-    range_warning,
     residual_semivariograms,
 )
 from .algorithm_base import FieldcastAlgorithm, progress_callback
 from .help_text import FIT_HELP, TARGET_CRS_HELP, compose_help
-from .model_source import fit_document
+from .model_source import fit_document, log_fit
 from .report.fit_report import write_fit_report
 from .sample_reader import ModelSamples, prepare_samples
 
@@ -122,13 +120,7 @@ class FitModelAlgorithm(FieldcastAlgorithm):
         document, result = fit_document(samples.xy, samples.values, transform, layer_samples.working,
                                         layer_samples.field, settings, progress_callback(feedback, 0.0, fit_percent),
                                         feedback.isCanceled)
-        for line in fit_log_lines(result, document.units):
-            feedback.pushInfo(line)
-        for warning in document.fit.get("warnings", []):
-            feedback.pushWarning(warning)
-        long_range = range_warning(samples.xy, samples.values, result, document.units)
-        if long_range:
-            feedback.pushWarning(long_range)
+        log_fit(feedback, samples.xy, samples.values, result, document)
         report = None
         if report_path:
             feedback.pushInfo(f"Leave-one-out of the {len(result.candidates)} candidate model(s) for the report.")

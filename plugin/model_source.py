@@ -4,6 +4,7 @@ from __future__ import annotations
 from collections.abc import Callable
 
 import numpy as np
+from qgis.core import QgsProcessingFeedback
 
 from ..algorithms import (
     FieldcastError,
@@ -12,9 +13,11 @@ from ..algorithms import (
     ModelDocument,
     Transform,
     WorkingCrs,
+    fit_log_lines,
     fit_shared,
     fit_with,
     parse_crs,
+    range_warning,
     same_crs,
 )
 
@@ -39,13 +42,33 @@ def result_document(result: FitResult, transform: Transform, working: WorkingCrs
 
 def fit_shared_documents(xy: np.ndarray, values: np.ndarray, transform: Transform, working: WorkingCrs,
                          fields: list[str], settings: FitOptions, progress: Callable[[float], None] | None = None,
-                         should_stop: Callable[[], bool] | None = None) -> list[ModelDocument]:
+                         should_stop: Callable[[], bool] | None = None
+                         ) -> list[tuple[ModelDocument, FitResult]]:
     """One correlation model fitted jointly to several fields (``values`` (n, k)), as one document per field.
 
-    See :mod:`..algorithms.fit.shared`: every document holds the shared model at its field's scale.
+    See :mod:`..algorithms.fit.shared`: every document holds the shared model at its field's scale. Returns
+    each field's document with its fit result, in the order of ``fields``.
     """
     results = fit_shared(xy, values, settings, fields, progress=progress, should_stop=should_stop)
-    return [result_document(result, transform, working, field) for result, field in zip(results, fields)]
+    return [(result_document(result, transform, working, field), result) for result, field in zip(results, fields)]
+
+
+def log_fit(feedback: QgsProcessingFeedback, xy: np.ndarray, values: np.ndarray, result: FitResult,
+            document: ModelDocument, label: str = "") -> None:
+    """The log of a fit, the same in every algorithm that fits a model.
+
+    Info: the chosen model in words and every candidate with its AIC and ΔAIC (the engine's
+    ``fit_log_lines``). Warnings: the fit's own (few samples, no structure resolved, parameters at a bound,
+    convergence) and the engine's ``range_warning`` (a range beyond the study while the residuals level off
+    inside it). ``xy`` and ``values`` are the samples fitted, in the working CRS and the modelling scale;
+    ``label`` (a field name), when given, starts every line, for runs that fit several fields.
+    """
+    prefix = f"{label}: " if label else ""
+    for line in fit_log_lines(result, document.units):
+        feedback.pushInfo(prefix + line)
+    long_range = range_warning(xy, values, result, document.units)
+    for warning in [*document.fit.get("warnings", []), *([long_range] if long_range else [])]:
+        feedback.pushWarning(prefix + warning)
 
 
 def load_document(path: str, working: WorkingCrs) -> ModelDocument:

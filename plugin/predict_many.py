@@ -26,7 +26,7 @@ from .help_text import (
     compose_help,
 )
 from .layer_style import load_styled
-from .model_source import describe_document, fit_document, fit_shared_documents
+from .model_source import describe_document, fit_document, fit_shared_documents, log_fit
 from .sample_reader import prepare_samples, read_layer_samples
 from .surface_algorithm import SurfaceAlgorithm
 
@@ -205,10 +205,12 @@ class PredictManyAlgorithm(SurfaceAlgorithm):
                     raise Cancelled("Cancelled between fields.")
                 feedback.pushInfo(f"Field {index + 1} of {len(run.prepared)}: {field}. Fitting with "
                                   f"{run.settings.describe()}.")
-                document, _ = fit_document(samples.xy, samples.values, run.transform, layer_samples.working, field,
-                                           run.settings, progress_callback(feedback, start, start + FIT_SHARE * share),
-                                           feedback.isCanceled)
-                log_document(document, feedback)
+                document, result = fit_document(samples.xy, samples.values, run.transform, layer_samples.working,
+                                                field, run.settings,
+                                                progress_callback(feedback, start, start + FIT_SHARE * share),
+                                                feedback.isCanceled)
+                log_fit(feedback, samples.xy, samples.values, result, document, field)
+                feedback.pushInfo(describe_document(document))
                 key = (document.crs_wkt, samples.xy.tobytes())
                 if key in grids:
                     feedback.pushInfo("Same sample locations as an earlier field: its grid and mask are reused.")
@@ -240,10 +242,12 @@ class PredictManyAlgorithm(SurfaceAlgorithm):
         feedback.pushInfo(f"Fitting one correlation model to the {len(fields)} fields jointly with "
                           f"{run.settings.describe()}.")
         try:
-            documents = fit_shared_documents(first.xy, values, run.transform, working, fields, run.settings,
-                                             progress_callback(feedback, 0, 100 * FIT_SHARE), feedback.isCanceled)
-            for document in documents:
-                log_document(document, feedback)
+            fitted = fit_shared_documents(first.xy, values, run.transform, working, fields, run.settings,
+                                          progress_callback(feedback, 0, 100 * FIT_SHARE), feedback.isCanceled)
+            for (document, result), field_values in zip(fitted, values.T):
+                log_fit(feedback, first.xy, field_values, result, document, document.field)
+                feedback.pushInfo(describe_document(document))
+            documents = [document for document, _ in fitted]
             grid, inside = self.grid_and_mask(parameters, context, first.xy, working.wkt, working.units, feedback,
                                               n_bands=len(RASTER_KINDS))
             self.krige_surface(documents, first.xy, values, grid, inside, run.scale, run.neighbourhood,
@@ -254,13 +258,6 @@ class PredictManyAlgorithm(SurfaceAlgorithm):
         for document, field in zip(documents, fields):
             document.save(run.model_path(field))
             feedback.pushInfo(f"Finished {run.written(field)}.")
-
-
-def log_document(document, feedback) -> None:
-    """The fit's warnings and the model, in the log."""
-    for warning in document.fit.get("warnings", []):
-        feedback.pushWarning(f"{document.field}: {warning}")
-    feedback.pushInfo(describe_document(document))
 
 
 @dataclass(frozen=True)

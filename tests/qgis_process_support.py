@@ -182,3 +182,23 @@ def write_meuse_geopackage(path: Path) -> str:
         layer.CreateFeature(feature)
     source = None
     return f"{path}|layername=meuse"
+
+
+def write_geopackage_without_srs(path: Path) -> str:
+    """A GeoPackage point layer ``site`` written by GDAL without a spatial reference; returns its OGR URI.
+
+    GDAL gives such a layer its "Undefined geographic SRS", which QGIS reports as a valid CRS in degrees. The six
+    points of a 6 m site grid and their field ``depth`` are invented: only the missing CRS matters (a refusal).
+    """
+    from osgeo import ogr
+
+    source = ogr.GetDriverByName("GPKG").CreateDataSource(str(path))
+    table = source.CreateLayer("site", None, ogr.wkbPoint)
+    table.CreateField(ogr.FieldDefn("depth", ogr.OFTReal))
+    for x, y, depth in [(0, 0, 1.0), (6, 0, 2.0), (0, 6, 1.5), (6, 6, 3.0), (3, 3, 2.5), (2, 5, 1.2)]:
+        feature = ogr.Feature(table.GetLayerDefn())
+        feature.SetField("depth", depth)
+        feature.SetGeometry(ogr.CreateGeometryFromWkt(f"POINT ({x} {y})"))
+        table.CreateFeature(feature)
+    source = None
+    return f"{path}|layername=site"

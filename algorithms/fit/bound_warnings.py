@@ -33,7 +33,7 @@ def _structure_label(layout: ParameterLayout, name: str) -> str:
 def _message(layout: ParameterLayout, name: str, upper: bool, value: float, azimuth: float) -> str:
     """The warning for parameter ``name`` on its lower or upper bound (``value`` in data units)."""
     which = _structure_label(layout, name)
-    single = " Or use a single structure (nested off)." if layout.n_structures > 1 else ""
+    single = " Or fit a single structure, as 'Fit covariance model' does." if layout.n_structures > 1 else ""
     if name.startswith("log_range"):
         if upper:
             return (

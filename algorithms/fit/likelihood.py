@@ -51,7 +51,7 @@ from scipy.linalg import blas, lapack
 
 from ..errors import Cancelled, FieldcastError
 from ..io.samples import check_samples
-from ..linalg.condition_policy import jittered_cholesky
+from ..linalg.condition_policy import FIT_CONDITION_ADVICE, jittered_cholesky
 from ..model.covariance import CovarianceModel
 from ..model.mean import MeanModel
 from ..model.parameters import ParameterLayout, covariance_derivatives
@@ -60,10 +60,6 @@ LIKELIHOOD_METHODS = ("reml", "ml")
 """Likelihoods this module evaluates."""
 
 LOG_2PI = math.log(2.0 * math.pi)
-
-SINGULAR_REMEDY = "Merge samples at the same location, or use a model with a nugget."
-"""What to change when the covariance matrix of the samples does not factorise."""
-
 
 @dataclass(frozen=True)
 class MeanBasis:
@@ -158,7 +154,7 @@ def jitter_message(jitter: float) -> str:
     return (
         f"The covariance matrix of the samples was not numerically positive definite; {jitter:.3g} was added "
         "to its diagonal. This usually means samples at (nearly) the same location with a (near) zero "
-        "nugget: merge coincident samples, or use a model with a nugget."
+        "nugget. " + FIT_CONDITION_ADVICE
     )
 
 
@@ -198,7 +194,7 @@ class GlsSolution:
     @classmethod
     def solve(cls, matrix: np.ndarray, y: np.ndarray, basis: MeanBasis) -> GlsSolution:
         """Factorise ``K`` (lower triangle read) and solve for one (n,) or several (n, m) columns ``y``."""
-        factor, jitter = jittered_cholesky(matrix, "covariance matrix of the samples", SINGULAR_REMEDY)
+        factor, jitter = jittered_cholesky(matrix, "covariance matrix of the samples", FIT_CONDITION_ADVICE)
         log_det_k = 2.0 * float(np.sum(np.log(np.diag(factor[0]))))
         solved_y = linalg.cho_solve(factor, y, check_finite=False)
         if not basis.q.shape[1]:
@@ -213,7 +209,7 @@ class GlsSolution:
         """Lower triangle of ``W``: ``P = K^-1 - K^-1 Q (Q^T K^-1 Q)^-1 Q^T K^-1`` (REML) or ``K^-1`` (ML)."""
         precision, info = lapack.dpotri(self.factor[0], lower=1)  # lower triangle of K^-1
         if info != 0:
-            raise FieldcastError("The covariance matrix could not be inverted; use a model with a nugget.")
+            raise FieldcastError("The covariance matrix could not be inverted. " + FIT_CONDITION_ADVICE)
         if method == "reml" and self.gram_factor is not None:
             half = linalg.solve_triangular(self.gram_factor[0], self.solved_q.T, lower=True, check_finite=False)
             precision -= half.T @ half

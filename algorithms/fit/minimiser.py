@@ -60,5 +60,6 @@ def convergence_warning(result: optimize.OptimizeResult) -> str | None:
     """Plain-words warning when a :func:`minimise` run stopped before convergence, else None."""
     if result.success:
         return None
-    return (f"The optimiser stopped before convergence after {result.nit} iterations: {result.message}; raise the "
-            "iteration limit or simplify the model (fewer structures, no anisotropy).")
+    return (f"The optimiser stopped before convergence after {result.nit} iterations: {result.message}; simplify the "
+            "model (ANISOTROPY off, or one KERNEL such as exponential instead of auto), or, fitting in Python, raise "
+            "the iteration limit (max_iterations).")

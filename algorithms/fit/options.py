@@ -153,8 +153,8 @@ def check_fit_choices(kernel: str, method: str, nested: bool, smoothness: float 
         if not low <= smoothness <= high:
             raise FieldcastError(f"The Matérn smoothness must be between {low} and {high}; got {smoothness!r}.")
     if nested and method == "wls":
-        raise FieldcastError("Nested structures are fitted by likelihood only; choose method 'reml' or 'ml', "
-                             "or turn nested off.")
+        raise FieldcastError("Nested structures are fitted by likelihood only; choose METHOD reml or ml, or "
+                             "fit a single structure, as 'Fit covariance model' does.")
 
 
 @dataclass(frozen=True)

@@ -53,6 +53,7 @@ from ..model.covariance import CovarianceModel
 from ..model.mean import MeanModel
 from ..model.parameters import DataScales, ParameterLayout, covariance_derivatives, parameter_bounds
 from .bound_warnings import bound_warnings
+from .data_warnings import data_warnings
 from .fitting import VECCHIA_THRESHOLD, fit_with
 from .likelihood import LOG_2PI, GlsSolution, LikelihoodTerms, MeanBasis, PairedObjective, evaluate_model
 from .minimiser import convergence_warning, minimise
@@ -147,8 +148,8 @@ def fit_shared(xy: np.ndarray, values: np.ndarray, options: FitOptions,
         _part(progress, START_SHARE, 1.0), options.max_iterations)
     shared = layout.unpack(theta)
     messages = [] if failure is None else [
-        f"Joint fit of the shared model: {failure} The model may be off its best; a model per field, or fewer "
-        "fields, also help."]
+        f"Joint fit of the shared model: {failure} The model may be off its best: turn off 'One correlation model "
+        "for all fields' (SHARED_MODEL) for a model per field, or choose fewer FIELDS."]
     scales = objective.field_scales(theta) * column_scales ** 2
     results = [_field_result(xy, column, covariates, replace(problem, value_scale=math.sqrt(scale)), shared,
                              mean_model, options.method, layout, len(names), messages)
@@ -167,8 +168,9 @@ def _checked_fields(xy: np.ndarray, values: np.ndarray, options: FitOptions, nam
         raise FieldcastError(f"Got {len(names)} field names for {values.shape[1]} columns of values; give one "
                              "name per field.")
     if options.method not in ("reml", "ml"):
-        raise FieldcastError("A model shared by several fields is fitted by likelihood; choose method 'reml' or "
-                             "'ml'.")
+        raise FieldcastError("A model shared by several fields is fitted by likelihood: choose METHOD reml or ml, "
+                             "or turn off 'One correlation model for all fields' (SHARED_MODEL) to fit each field "
+                             "by itself.")
     if (options.mean.kind if isinstance(options.mean, MeanModel) else options.mean) == "known":
         raise FieldcastError("A shared model needs a mean estimated from each field (constant, linear or "
                              "quadratic); a known mean would be the same number for every field.")
@@ -249,11 +251,14 @@ def _field_result(xy: np.ndarray, values: np.ndarray, covariates: np.ndarray | N
 
     ``field`` is the internal problem with the field's scale as value scale, so that its
     :meth:`~.fit_search.SearchProblem.to_data_units` and data scales turn the shared internal model
-    and its bounds into the field's units (bound warnings then quote the field's numbers).
+    and its bounds into the field's units (bound warnings then quote the field's numbers). Its warnings are
+    those of a single-field fit: what the samples resolve (:func:`.data_warnings.data_warnings`), parameters at
+    a bound, then ``shared_messages``.
     """
     covariance = field.to_data_units(shared)
     evaluation = evaluate_model(xy, values, covariance, mean_model, field.method, covariates)
-    messages = bound_warnings(layout, layout.pack(covariance), parameter_bounds(layout, field.data_scales))
+    messages = data_warnings(xy, covariance) + bound_warnings(layout, layout.pack(covariance),
+                                                              parameter_bounds(layout, field.data_scales))
     messages += shared_messages
     covariance = with_jitter_in_nugget(covariance, evaluation.jitter, messages)
     aic, bic, k = information_criteria(field, evaluation.log_likelihood, layout)

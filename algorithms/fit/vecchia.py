@@ -66,6 +66,7 @@ from scipy.spatial import cKDTree
 from ..errors import Cancelled, FieldcastError
 from ..io.samples import check_samples
 from ..linalg.batched import back_substitution, cholesky_stack, forward_substitution
+from ..linalg.condition_policy import FIT_CONDITION_ADVICE
 from ..model.covariance import CovarianceModel, Structure, search_frame
 from ..model.mean import MeanModel
 from ..model.parameters import ParameterLayout, covariance_derivatives
@@ -266,7 +267,7 @@ class VecchiaData:
         if not positive.all():
             raise FieldcastError(
                 "A conditioning set of the Vecchia likelihood has a singular covariance: samples at (nearly) the "
-                "same location and no nugget. Merge coincident samples or use a model with a nugget."
+                "same location and no nugget. " + FIT_CONDITION_ADVICE
             )
         white = forward_substitution(factors, right)  # L^-1 [c, y_N, Q_N] with K_N = L L^T
         solved = back_substitution(factors, white)  # K_N^-1 [c, y_N, Q_N]
@@ -294,7 +295,7 @@ class VecchiaData:
         if not np.all(d > 0):
             raise FieldcastError(
                 "The Vecchia likelihood met a conditional variance <= 0: the covariance model is numerically "
-                "singular at these samples. Merge near-duplicate samples or use a model with a nugget."
+                "singular at these samples. " + FIT_CONDITION_ADVICE
             )
         root = np.sqrt(d)
         white_y = np.concatenate([part["u"] for part in parts]) / root

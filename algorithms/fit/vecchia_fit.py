@@ -117,7 +117,7 @@ def fit_vecchia(xy: np.ndarray, values: np.ndarray, options: FitOptions, *,
     kernel, method = options.kernel, options.method
     check_fit_choices(kernel, method, options.nested, options.smoothness)
     if method == "wls":
-        raise FieldcastError("The Vecchia fit maximises a likelihood; choose method 'reml' or 'ml'.")
+        raise FieldcastError("The Vecchia fit maximises a likelihood; choose METHOD reml or ml.")
     check_samples(xy, values)
     points = np.asarray(xy, dtype=float)
     observed = np.asarray(values, dtype=float)

@@ -93,6 +93,11 @@ CONDITION_ADVICE = ("Refit with a less smooth family such as exponential or MatÃ
                     "model), give the model a nugget (the model file's \"nugget\"), or merge near-duplicate samples.")
 """What the user can change to get a better conditioned system."""
 
+FIT_CONDITION_ADVICE = ("Choose a less smooth KERNEL such as exponential or matern32 in 'Fit covariance model', or "
+                        "average or remove samples that lie (nearly) at one place.")
+"""What the user can change when the samples' covariance matrix is singular during a fit (the nugget is then
+being estimated, so a nugget is not advice the user can follow)."""
+
 
 JITTER_START = 1e-10
 """First diagonal jitter :func:`jittered_cholesky` tries, as a fraction of the matrix's mean diagonal."""
@@ -202,7 +207,8 @@ def jittered_cholesky(matrix: np.ndarray, what: str, remedy: str) -> tuple[tuple
     """
     diagonal = np.diag(matrix)
     if not np.all(np.isfinite(diagonal)):
-        raise FieldcastError(f"The {what} has infinite or missing entries; check the model parameters.")
+        raise FieldcastError(f"The {what} has infinite or missing entries; check the model file's nugget, "
+                             "partial sills and ranges, or refit it with 'Fit covariance model'.")
     scale = float(np.mean(diagonal)) if diagonal.size else 0.0
     jitter, step = 0.0, JITTER_START * scale
     while True:

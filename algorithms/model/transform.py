@@ -52,7 +52,9 @@ class Transform:
         if self.kind not in TRANSFORM_KINDS:
             raise FieldcastError(f"Unknown transform {self.kind!r}; choose one of {', '.join(TRANSFORM_KINDS)}.")
         if not np.isfinite(self.offset):
-            raise FieldcastError("The log offset must be a finite number.")
+            raise FieldcastError(f"The log offset (LOG_OFFSET) must be a finite number of attribute units; got "
+                                 f"{self.offset!r}. Give 0 for values above zero, or a number that lifts the "
+                                 "smallest value above zero.")
 
     def forward(self, values: np.ndarray) -> np.ndarray:
         """Transform attribute values into the modelling scale."""

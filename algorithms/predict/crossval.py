@@ -39,7 +39,7 @@ from ..linalg.condition_policy import UNIT_ROUNDOFF
 from ..model.covariance import CovarianceModel
 from ..model.mean import MeanModel
 from ..model.transform import Transform
-from .kriging import KrigingPredictor, cholesky_factor
+from .kriging import MORE_SAMPLES_ADVICE, KrigingPredictor, cholesky_factor
 from .local import LocalKrigingPredictor
 
 NORMAL_95_QUANTILE = 1.959963984540054
@@ -166,7 +166,7 @@ def leave_one_out(xy: np.ndarray, values: np.ndarray, covariance: CovarianceMode
     if predictor.n <= mean.n_terms + 1:
         raise FieldcastError(
             f"Leave-one-out with a {mean.kind} mean needs at least {mean.n_terms + 2} samples; "
-            f"got {predictor.n}."
+            f"got {predictor.n}. {MORE_SAMPLES_ADVICE}"
         )
     precision, precision_values = predictor.projected_precision()
     diagonal = np.diag(precision).copy()
@@ -205,7 +205,7 @@ def local_leave_one_out(xy: np.ndarray, values: np.ndarray, covariance: Covarian
     if predictor.n <= predictor.minimum_neighbours:
         raise FieldcastError(
             f"Leave-one-out with a {mean.kind} mean needs at least {predictor.minimum_neighbours + 1} samples; "
-            f"got {predictor.n}."
+            f"got {predictor.n}. {MORE_SAMPLES_ADVICE}"
         )
     predicted, variance = predictor.leave_one_out(progress=progress, should_stop=should_stop)
     return _result(values, np.asarray(values, dtype=float) - predicted, variance, np.arange(predictor.n))

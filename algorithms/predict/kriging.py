@@ -54,6 +54,10 @@ from ..linalg.condition_policy import CONDITION_ADVICE, reciprocal_condition, us
 from ..model.covariance import CovarianceModel
 from ..model.mean import MeanModel
 
+MORE_SAMPLES_ADVICE = ("Use more samples, or refit the model with a simpler TREND (constant) in 'Fit covariance "
+                       "model'.")
+"""What the user can change when there are too few samples for the model's mean terms."""
+
 NEGATIVE_VARIANCE_TOLERANCE = 1e-8
 """Negative variances above ``-tolerance * sill`` are round-off and become 0."""
 
@@ -117,8 +121,8 @@ def check_distinct(xy: np.ndarray) -> None:
         raise FieldcastError(
             f"{int(np.sum(counts[repeated]))} samples coincide at {int(np.sum(repeated))} location(s) "
             f"(for example at x={x:g}, y={y:g}) and the covariance model has no nugget, so the kriging "
-            "system is singular. Average the values of coincident points (merge duplicates) or use a "
-            "model with a nugget."
+            "system is singular. Average the values of coincident samples, or give the model a nugget (the "
+            "model file's \"nugget\", or refit it with 'Fit covariance model', which estimates one)."
         )
 
 
@@ -153,13 +157,13 @@ def checked_variance(variance: np.ndarray, sill: float, *, unresolved_allowed: b
     """
     variance = np.asarray(variance, dtype=float)
     if not unresolved_allowed and not np.all(np.isfinite(variance)):
-        raise FieldcastError("Kriging produced non-finite variances; check the covariance model parameters.")
+        raise FieldcastError("Kriging produced non-finite variances; check the model file's nugget, partial sills "
+                             "and ranges, or refit it with 'Fit covariance model'.")
     lowest = float(np.nanmin(variance, initial=0.0))
     if lowest < -NEGATIVE_VARIANCE_TOLERANCE * sill:
         raise FieldcastError(
             f"Kriging variance came out clearly negative ({lowest:.3g} with sill {sill:.3g}): {system} is too "
-            "close to singular for reliable results. Merge near-duplicate points or use a model with a (larger) "
-            "nugget."
+            "close to singular for reliable results. " + CONDITION_ADVICE
         )
     return np.where(variance < 0.0, 0.0, variance)
 
@@ -246,8 +250,8 @@ class KrigingPredictor:
         n_terms = mean.n_terms
         if self.n <= n_terms:
             raise FieldcastError(
-                f"The {mean.kind} mean model has {n_terms} term(s) but there are only {self.n} samples; "
-                "use a simpler mean model or more samples."
+                f"The {mean.kind} mean model has {n_terms} term(s) but there are only {self.n} samples. "
+                + MORE_SAMPLES_ADVICE
             )
         if covariance.nugget == 0:
             check_distinct(points)
@@ -276,7 +280,9 @@ class KrigingPredictor:
         zero_terms = [name for name, size in zip(self.mean.term_names, diagonal) if not size > 0]
         if zero_terms:
             raise FieldcastError(
-                f"The trend term(s) {', '.join(zero_terms)} are zero at every sample; drop them from the mean model."
+                f"The trend term(s) {', '.join(zero_terms)} are zero at every sample, so the samples cannot "
+                "estimate them. Leave them out of the mean: refit the model with a simpler TREND (constant) in 'Fit "
+                "covariance model', or, in Python, without those covariates."
             )
         scale = 1.0 / np.sqrt(diagonal)
         factor = cholesky_factor(

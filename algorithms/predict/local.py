@@ -95,7 +95,14 @@ from ..linalg.condition_policy import WARN_RECIPROCAL, stack_reciprocal_conditio
 from ..model.correlation import correlation
 from ..model.covariance import CovarianceModel, search_frame
 from ..model.mean import MeanModel
-from .kriging import as_points, as_value_columns, check_distinct, checked_variance, target_covariates
+from .kriging import (
+    MORE_SAMPLES_ADVICE,
+    as_points,
+    as_value_columns,
+    check_distinct,
+    checked_variance,
+    target_covariates,
+)
 
 WORKERS = min(4, os.cpu_count() or 1)
 """Threads factorising and solving stacks at once (numpy releases the GIL in its loops and LAPACK)."""
@@ -147,7 +154,8 @@ class LocalKrigingPredictor:
             )
         if self.n < self.minimum_neighbours:
             raise FieldcastError(
-                f"The {mean.kind} mean model needs at least {self.minimum_neighbours} samples; there are {self.n}."
+                f"The {mean.kind} mean model needs at least {self.minimum_neighbours} samples; there are {self.n}. "
+                + MORE_SAMPLES_ADVICE
             )
         if search_radius is not None and not (math.isfinite(search_radius) and search_radius > 0):
             raise FieldcastError(

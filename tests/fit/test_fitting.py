@@ -368,7 +368,8 @@ def test_a_fit_stopped_by_the_iteration_limit_says_so(meuse):
     log_zinc = np.log(meuse.zinc)
     stopped = fit_model(meuse.xy, log_zinc, kernel="spherical", anisotropy=False, max_iterations=1)
     expected = (f"The optimiser stopped before convergence after 1 iterations: {scipy_iteration_limit_message()}; "
-                "raise the iteration limit or simplify the model (fewer structures, no anisotropy).")
+                "simplify the model (ANISOTROPY off, or one KERNEL such as exponential instead of auto), or, "
+                "fitting in Python, raise the iteration limit (max_iterations).")
     assert expected in stopped.warnings
     assert expected in stopped.summary()["warnings"]
     # With the default limit the same fit converges and carries no such warning.

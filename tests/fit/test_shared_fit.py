@@ -220,3 +220,28 @@ def test_a_joint_fit_stopped_by_the_iteration_limit_says_so(meuse, log_metals, s
     assert all(any("stopped before convergence after 1 iterations" in w for w in r.warnings) for r in stopped)
     assert not any("stopped before convergence" in w for r in shared for w in r.warnings)
     assert sum(r.log_likelihood for r in stopped) < sum(r.log_likelihood for r in shared)
+
+
+def test_a_shared_fit_warns_like_a_single_fit_about_few_samples(meuse, log_metals, shared):
+    # Common practice (a rule of thumb): fewer than about 30 samples determine a covariance model poorly.
+    few = fit_shared(meuse.xy[:20], log_metals[:20], FitOptions(kernel="exponential", anisotropy=False),
+                     list(METALS))
+    for result in few:
+        assert sum(w.startswith("Only 20 samples") for w in result.warnings) == 1
+    assert not any(w.startswith("Only ") for result in shared for w in result.warnings)
+
+
+def test_a_shared_fit_of_white_noise_warns_that_no_structure_is_resolved():
+    # Simulation study (invented values): two independent standard normal fields on a regular 70 m grid of
+    # 100 points, so no structure exists at any scale.
+    spacing = 70.0
+    grid = np.array([(x, y) for x in np.arange(10) * spacing for y in np.arange(10) * spacing])
+    flagged = 0
+    for seed in range(4):
+        values = np.random.default_rng(seed).standard_normal((len(grid), 2))
+        results = fit_shared(grid, values, FitOptions(kernel="exponential", anisotropy=False))
+        short = results[0].covariance.structures[0].effective_range < spacing
+        for result in results:
+            assert any("resolve no spatial structure" in w for w in result.warnings) == short
+        flagged += short
+    assert flagged >= 2

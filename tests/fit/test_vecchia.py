@@ -158,7 +158,7 @@ def test_bad_settings_say_what_to_change(meuse, log_zinc):
         vecchia_log_likelihood(meuse.xy, log_zinc, ANISOTROPIC, mean, neighbours=0)
     with pytest.raises(FieldcastError, match="Unknown likelihood"):
         vecchia_log_likelihood(meuse.xy, log_zinc, ANISOTROPIC, mean, method="wls")
-    with pytest.raises(FieldcastError, match="'reml' or 'ml'"):
+    with pytest.raises(FieldcastError, match="choose METHOD reml or ml"):
         fit_vecchia(meuse.xy, log_zinc, FitOptions(kernel="exponential", method="wls"))
 
 

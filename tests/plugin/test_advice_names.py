@@ -66,3 +66,17 @@ def test_every_upper_case_name_in_a_message_is_a_parameter_or_output_of_some_alg
     known = toolbox_names() | ABBREVIATIONS
     unknown = {name: sorted(files) for name, files in mentioned_names().items() if name not in known}
     assert unknown == {}
+
+
+ENGINE_ONLY_ADVICE = ("nested off", "turn nested", "use a model with a nugget", "fewer structures",
+                      "choose method '", "merge duplicates")
+"""Advice that names engine arguments or model edits the toolbox does not offer (the toolbox fits one structure,
+estimates the nugget itself and takes METHOD in upper case)."""
+
+
+def test_no_message_gives_advice_only_an_engine_caller_could_follow():
+    found = {phrase: sorted({str(path.relative_to(REPO_ROOT)) for folder in ("algorithms", "plugin")
+                             for path in (REPO_ROOT / folder).rglob("*.py")
+                             for text in message_strings(path) if phrase in text.lower()})
+             for phrase in ENGINE_ONLY_ADVICE}
+    assert {phrase: files for phrase, files in found.items() if files} == {}

@@ -115,6 +115,34 @@ def test_masks_that_keep_no_cell_are_refused_with_the_reason(run_refused, meuse_
                                       "PIXEL_SIZE": 100, "MASK": mask}, *fragments)
 
 
+# --- model files of the campaign ----------------------------------------------------------------------------
+
+def with_mean(kind: str, known_value: float):
+    def change(document: dict) -> None:
+        document["mean"].update(kind=kind, known_value=known_value, coefficients=[])
+    return change
+
+
+@pytest.mark.parametrize("algorithm", ["fieldcast:predict", "fieldcast:crossvalidate"])
+@pytest.mark.parametrize(("change", "fragments"), [
+    (lambda document: document["structures"][0].update(azimuth=float("nan")),
+     ("structures[0].azimuth = nan", "a finite number of degrees")),
+    (with_mean("known", float("nan")), ("mean.known_value = nan", "a finite number")),
+    (lambda document: document["structures"][0].update(partial_sill=1e300),
+     ("structures[0].partial_sill = 1e+300", "at most 1e+100")),
+    (lambda document: document.update(format_version="abc"), ('format_version = "abc"', "a whole number")),
+], ids=["nan-azimuth", "nan-known-mean", "huge-partial-sill", "text-format-version"])
+def test_model_files_the_campaign_broke_are_refused_naming_key_and_value(run_refused, meuse_layer, model_file,  # noqa: F811
+                                                                       tmp_path, algorithm, change, fragments):
+    # Each used to run: a constant map (NaN azimuth), all-nodata rasters reported as success, or a crash.
+    document = json.loads(Path(model_file).read_text(encoding="utf-8"))
+    change(document)
+    broken = tmp_path / "broken.json"
+    broken.write_text(json.dumps(document), encoding="utf-8")  # json.dumps writes NaN as the literal NaN
+    run_refused(algorithm, {"INPUT": meuse_layer, "FIELD": "zinc", "MODEL": str(broken)},
+                "The model file broken.json has", *fragments, "Refit the model with 'Fit covariance model'")
+
+
 # --- rasters that would be nodata ----------------------------------------------------------------------------
 
 def test_variance_beyond_float32_everywhere_is_refused(run_refused, meuse_layer, model_file, tmp_path):  # noqa: F811
@@ -127,6 +155,24 @@ def test_variance_beyond_float32_everywhere_is_refused(run_refused, meuse_layer,
     run_refused("fieldcast:predict", {"INPUT": meuse_layer, "FIELD": "zinc", "MODEL": str(huge), "PIXEL_SIZE": 100},
                 "The zinc variance raster(s) would be nodata at every cell", "Float32 GeoTIFF",
                 "Check the model's sill and partial sills")
+
+
+def test_variance_beyond_float32_at_most_cells_is_warned_about(qgis_processing, meuse_layer, model_file,  # noqa: F811
+                                                                tmp_path):
+    # A partial sill of 1e39 ppm^2 with a 20 m range and no nugget: kriging variances stay small at the cells
+    # next to a sample but reach the sill, beyond the Float32 range (about 3.4e38, IEEE 754 single precision),
+    # at most cells away from them, which the variance raster then holds as nodata.
+    document = json.loads(Path(model_file).read_text(encoding="utf-8"))
+    document["structures"][0].update(partial_sill=1e39, range=20.0)
+    document["nugget"] = 0.0
+    steep = tmp_path / "steep.json"
+    steep.write_text(json.dumps(document), encoding="utf-8")
+    feedback = QgsProcessingFeedback()
+    qgis_processing.run("fieldcast:predict", {
+        "INPUT": meuse_layer, "FIELD": "zinc", "MODEL": str(steep), "PIXEL_SIZE": 100,
+        "OUTPUT": str(tmp_path / "zinc.tif"), "OUTPUT_VARIANCE": str(tmp_path / "variance.tif")}, feedback=feedback)
+    assert "The zinc variance raster is nodata at" in feedback.textLog()
+    assert "The zinc prediction raster is nodata at" not in feedback.textLog()
 
 
 @pytest.mark.parametrize("neighbours", [-1, 2.5])

@@ -5,22 +5,28 @@ particular defect. Fits use one family without anisotropy to stay quick.
 """
 from __future__ import annotations
 
+import hashlib
 import math
+import os
+from pathlib import Path
 
 import numpy as np
 import pytest
-from osgeo import gdal, ogr
+from osgeo import gdal
 from pyproj import Transformer
 from qgis.core import (
+    QgsCoordinateTransformContext,
     QgsField,
     QgsGeometry,
     QgsPointXY,
     QgsProcessingException,
     QgsProcessingFeedback,
+    QgsVectorFileWriter,
     QgsVectorLayer,
 )
 
 from fieldcast.algorithms.io.crs import same_crs
+from qgis_process_support import write_geopackage_without_srs
 from qgis_support import (  # noqa: F401 - fieldcast_plugin and qgis_processing are fixtures
     CancelAfterFirstProgress,
     field_type,
@@ -37,6 +43,14 @@ def layer_state(layer: QgsVectorLayer) -> list:
     return [(f.id(), [repr(value) for value in f.attributes()], f.geometry().asWkt()) for f in layer.getFeatures()]
 
 
+def input_file_bytes(parameters: dict) -> dict[str, str]:
+    """SHA-256 of every existing file a run reads: layer sources and paths given as text (``path|layername=..``)."""
+    named = [value.source() if isinstance(value, QgsVectorLayer) else value for value in parameters.values()]
+    paths = {text.split("|")[0] for text in named if isinstance(text, str)}
+    return {path: hashlib.sha256(Path(path).read_bytes()).hexdigest() for path in sorted(paths)
+            if os.path.isfile(path)}
+
+
 def leftovers(folder) -> list[str]:
     """Names of files in ``folder`` (outputs and temporary files alike)."""
     return sorted(path.name for path in folder.iterdir())
@@ -44,11 +58,13 @@ def leftovers(folder) -> list[str]:
 
 @pytest.fixture()
 def run_refused(qgis_processing, tmp_path):  # noqa: F811
-    """Run an algorithm that must fail; check the message, that no file appeared, and that inputs are intact."""
+    """Run an algorithm that must fail; check the message, that no traceback reached the message or the log, that
+    no file appeared, and that inputs are intact (memory layers feature by feature, input files byte for byte)."""
 
     def check(algorithm: str, parameters: dict, *fragments: str, feedback=None) -> None:
         layers = [value for value in parameters.values() if isinstance(value, QgsVectorLayer)]
         before = [layer_state(layer) for layer in layers]
+        bytes_before = input_file_bytes(parameters)
         files_before = leftovers(tmp_path)
         report = str(tmp_path / "out_report.html")
         if algorithm == "fieldcast:fitmodel":
@@ -58,12 +74,15 @@ def run_refused(qgis_processing, tmp_path):  # noqa: F811
         else:
             outputs = {name: str(tmp_path / f"out_{name.lower()}.tif") for name in ("OUTPUT", "OUTPUT_VARIANCE")}
         outputs = {name: path for name, path in outputs.items() if name not in parameters}
+        feedback = feedback or QgsProcessingFeedback()
         with pytest.raises(QgsProcessingException) as error:
-            qgis_processing.run(algorithm, {**parameters, **outputs}, feedback=feedback or QgsProcessingFeedback())
+            qgis_processing.run(algorithm, {**parameters, **outputs}, feedback=feedback)
         for fragment in fragments:
             assert fragment in str(error.value)
+        assert "Traceback" not in str(error.value) and "Traceback" not in feedback.textLog()
         assert leftovers(tmp_path) == files_before
         assert [layer_state(layer) for layer in layers] == before
+        assert input_file_bytes(parameters) == bytes_before
 
     return check
 
@@ -95,6 +114,18 @@ def quick_fit_log(processing, layer, tmp_path) -> str:
     return log
 
 
+def test_the_refusal_check_reads_the_bytes_of_layer_files_and_model_files(meuse, model_file, tmp_path):
+    path = tmp_path / "samples.gpkg"
+    layer = point_layer(meuse.xy[:5], {"zinc": meuse.zinc[:5]})
+    options = QgsVectorFileWriter.SaveVectorOptions()
+    options.driverName = "GPKG"
+    assert QgsVectorFileWriter.writeAsVectorFormatV3(layer, str(path), QgsCoordinateTransformContext(),
+                                                     options)[0] == QgsVectorFileWriter.NoError
+    on_disk = QgsVectorLayer(f"{path}|layername=samples", "samples", "ogr")
+    assert set(input_file_bytes({"INPUT": on_disk, "MODEL": model_file, "OUTPUT": str(tmp_path / "x.tif")})) == {
+        str(path), model_file}
+
+
 # --- layer reading -------------------------------------------------------------------------------------------
 
 def test_text_field_is_refused(run_refused, meuse):
@@ -113,17 +144,7 @@ def test_layer_without_crs_is_refused(run_refused, meuse):
 
 def test_geopackage_written_without_srs_is_refused_not_moved_to_utm(run_refused, tmp_path_factory):
     # GDAL gives such a layer its "Undefined geographic SRS", which QGIS reports as a valid CRS in degrees.
-    path = str(tmp_path_factory.mktemp("nosrs") / "site.gpkg")
-    source = ogr.GetDriverByName("GPKG").CreateDataSource(path)
-    table = source.CreateLayer("site", None, ogr.wkbPoint)
-    table.CreateField(ogr.FieldDefn("depth", ogr.OFTReal))
-    for x, y, depth in [(0, 0, 1.0), (6, 0, 2.0), (0, 6, 1.5), (6, 6, 3.0), (3, 3, 2.5), (2, 5, 1.2)]:
-        feature = ogr.Feature(table.GetLayerDefn())
-        feature.SetField("depth", depth)
-        feature.SetGeometry(ogr.CreateGeometryFromWkt(f"POINT ({x} {y})"))
-        table.CreateFeature(feature)
-    source = None
-    layer = QgsVectorLayer(f"{path}|layername=site", "site", "ogr")
+    layer = QgsVectorLayer(write_geopackage_without_srs(tmp_path_factory.mktemp("nosrs") / "site.gpkg"), "site", "ogr")
     assert layer.isValid() and "Undefined geographic SRS" in layer.crs().toWkt()
     run_refused("fieldcast:fitmodel", {"INPUT": layer, "FIELD": "depth"}, "The layer site has no defined CRS",
                 "local engineering CRS")

@@ -85,8 +85,8 @@ def fill(folder: Path, room: int = 0) -> None:
 
 
 def fails_cleanly(processing, algorithm: str, parameters: dict, output: Path, disk: Path) -> str:
-    """Run ``algorithm``, which must fail naming ``output``; no traceback in the log; the disk holds only the
-    filler. Returns the message."""
+    """Run ``algorithm``, which must fail naming ``output`` and the way out; no traceback in the log; the disk holds
+    only the filler. Returns the message."""
     feedback = QgsProcessingFeedback()
     with pytest.raises(QgsProcessingException) as error:
         processing.run(algorithm, parameters, feedback=feedback)
@@ -94,6 +94,8 @@ def fails_cleanly(processing, algorithm: str, parameters: dict, output: Path, di
     assert str(output) in message
     assert "Traceback" not in message and "Traceback" not in feedback.textLog()
     assert "Internal error" not in message
+    # The way out: free space, or another file or folder.
+    assert "space" in message.lower() and ("another output file" in message or "another folder" in message)
     assert names(disk) == [FILLER]
     return message
 

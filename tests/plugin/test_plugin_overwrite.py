@@ -10,6 +10,8 @@ from pathlib import Path
 import pytest
 from qgis.core import (
     QgsCoordinateTransformContext,
+    QgsFeature,
+    QgsGeometry,
     QgsProcessingException,
     QgsVectorFileWriter,
     QgsVectorLayer,
@@ -110,6 +112,25 @@ def test_predict_many_refuses_a_folder_file_over_its_extent_raster(qgis_processi
                       {"INPUT": str(samples_file), "FIELDS": ["zinc"], **QUICK_FIT, "PIXEL_SIZE": 400,
                        "EXTENT": str(grid), "OUTPUT_FOLDER": str(tmp_path)}, grid)
     assert f"would overwrite the input file {grid} (EXTENT)" in message
+
+
+def test_simulate_refuses_a_table_over_its_mask_file(qgis_processing, samples_file, model_file, tmp_path):  # noqa: F811
+    mask_file = tmp_path / "site.gpkg"  # a square around the Meuse samples (EPSG:28992), saved as a GeoPackage
+    mask = QgsVectorLayer("Polygon?crs=EPSG:28992", "site", "memory")
+    square = QgsFeature()
+    square.setGeometry(QgsGeometry.fromWkt("POLYGON((178000 329000, 182000 329000, 182000 334000, "
+                                           "178000 334000, 178000 329000))"))
+    mask.dataProvider().addFeatures([square])
+    options = QgsVectorFileWriter.SaveVectorOptions()
+    options.driverName = "GPKG"
+    assert QgsVectorFileWriter.writeAsVectorFormatV3(mask, str(mask_file), QgsCoordinateTransformContext(),
+                                                     options)[0] == QgsVectorFileWriter.NoError
+    message = refused(qgis_processing, "fieldcast:simulate",
+                      {"INPUT": str(samples_file), "FIELD": "zinc", "MODEL": str(model_file), "PIXEL_SIZE": 400,
+                       "MASK": str(mask_file), "REALIZATIONS": 2, "OUTPUT": str(tmp_path / "sims.tif"),
+                       "OUTPUT_TABLE": str(mask_file)}, mask_file)
+    assert f"OUTPUT_TABLE would overwrite the input file {mask_file} (MASK)" in message
+    assert not (tmp_path / "sims.tif").exists()
 
 
 def test_separate_files_still_run(qgis_processing, samples_file, model_file, tmp_path):  # noqa: F811

@@ -84,7 +84,8 @@ def test_fields_with_different_samples_are_refused(qgis_processing, meuse, tmp_p
 
 
 def test_variogram_fitting_is_refused_with_advice(qgis_processing, layer, tmp_path):  # noqa: F811
-    with pytest.raises(QgsProcessingException, match="choose method 'reml' or 'ml'"):
+    with pytest.raises(QgsProcessingException,
+                       match="choose METHOD reml or ml, or turn off 'One correlation model for all fields'"):
         qgis_processing.run("fieldcast:predictmany", {
             "INPUT": layer, "FIELDS": ["zinc", "lead"], **FIT, "METHOD": "wls", **GRID,
             "OUTPUT_FOLDER": str(tmp_path / "out")})

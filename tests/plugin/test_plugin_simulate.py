@@ -33,6 +33,7 @@ from test_plugin_decision_maps import (  # noqa: F401 - zinc_model is a fixture
     grid_parameters,
     zinc_model,
 )
+from test_plugin_few_samples import WarningFeedback
 
 REALISATIONS = 50
 SUMMARY_RASTERS = ("OUTPUT_MEAN", "OUTPUT_STDDEV", "OUTPUT_EXCEEDANCE", "OUTPUT_P10", "OUTPUT_P90")
@@ -310,3 +311,19 @@ def test_help_explains_realisations(fieldcast_plugin):  # noqa: F811
     for phrase in ("equally plausible fields", "uncertainty of areas and totals", "not a certainty",
                    "CRS units squared", "same seed", "local kriging weights"):
         assert phrase in help_text
+
+
+def test_an_enlarged_embedding_is_information_not_a_warning(qgis_processing, meuse, meuse_grid, zinc_model,  # noqa: F811
+                                                             tmp_path):
+    # A Gaussian covariance of 800 m range on the 80 m lattice: the minimal torus has slightly negative
+    # eigenvalues and a larger one has none (tests/simulate/test_circulant.py), so the padding grows and the
+    # fields stay exact: something to say, nothing to warn about.
+    document = json.loads(Path(zinc_model).read_text(encoding="utf-8"))
+    document["structures"][0].update(family="gaussian", range=800.0)
+    smooth = tmp_path / "smooth.json"
+    smooth.write_text(json.dumps(document), encoding="utf-8")
+    feedback = WarningFeedback()
+    qgis_processing.run("fieldcast:simulate", {**grid_parameters(meuse, meuse_grid, str(smooth)), "REALIZATIONS": 2,
+                                               "SEED": 1, "OUTPUT": str(tmp_path / "sims.tif")}, feedback=feedback)
+    assert "the padding was enlarged" in feedback.textLog()
+    assert not any("padding" in warning or "eigenvalues" in warning for warning in feedback.warnings)

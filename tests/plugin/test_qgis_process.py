@@ -10,6 +10,7 @@ one covariance family, no anisotropy.
 """
 from __future__ import annotations
 
+import hashlib
 import json
 from pathlib import Path
 
@@ -25,6 +26,7 @@ from qgis_process_support import (
     make_profile,
     run_algorithm,
     write_fit_then_predict_model,
+    write_geopackage_without_srs,
     write_meuse_geopackage,
 )
 from qgis_support import fieldcast_plugin  # noqa: F401 - fixture: a QgsApplication to build the .model3 in
@@ -241,3 +243,64 @@ def test_predictpoints_at_the_samples_is_the_kriging_of_the_model(profile, meuse
     got = np.array([rows[int(sample)] for sample in meuse.ids])
     np.testing.assert_allclose(got[:, 0], np.exp(mu) - offset, rtol=1e-9)
     np.testing.assert_allclose(got[:, 1], np.exp(mu + s2 / 2) * np.sqrt(np.expm1(s2)), rtol=1e-9)
+
+
+@pytest.fixture(scope="module")
+def refusal_inputs(profile, meuse_layer, tmp_path_factory) -> dict[str, str]:
+    """Input files of the refusal runs: the Meuse GeoPackage, a zinc model, the same model with a bad
+    format_version, and a GeoPackage whose layer GDAL wrote without a spatial reference (a site grid in metres)."""
+    folder = tmp_path_factory.mktemp("refusal-inputs")
+    model = folder / "zinc.json"
+    document = fit(profile, meuse_layer, "zinc", model)
+    bad_model = folder / "bad.json"
+    bad_model.write_text(json.dumps({**document, "format_version": "abc"}), encoding="utf-8")
+    return {"samples": meuse_layer, "model": str(model), "bad_model": str(bad_model),
+            "no_srs": write_geopackage_without_srs(folder / "site.gpkg")}
+
+
+def file_digests(inputs: dict[str, str]) -> dict[str, str]:
+    """SHA-256 of the bytes of every input file (an OGR URI stands for its file)."""
+    return {name: hashlib.sha256(Path(uri.split("|")[0]).read_bytes()).hexdigest() for name, uri in inputs.items()}
+
+
+# Each case: algorithm, parameters ({name} = an input of refusal_inputs, {out} = the empty output folder), and
+# the fragments of the refusal that name the cause and the way out.
+REFUSALS = [
+    ("fieldcast:fitmodel", {"INPUT": "{samples}", "FIELD": "zinc", **FIT_SETTINGS, "OUTPUT_MODEL": "{samples_file}"},
+     ("OUTPUT_MODEL would overwrite the input file", "(INPUT)", "Choose another file name")),
+    ("fieldcast:predict", {"INPUT": "{samples}", "FIELD": "zinc", "MODEL": "{model}", "PIXEL_SIZE": 400,
+                           "OUTPUT": "{out}/zinc.tif", "OUTPUT_VARIANCE": "{out}/zinc.tif"},
+     ("OUTPUT and OUTPUT_VARIANCE are the same file", "give each output its own file name")),
+    ("fieldcast:predict", {"INPUT": "{samples}", "FIELD": "zinc", "MODEL": "{bad_model}", "PIXEL_SIZE": 400,
+                           "OUTPUT": "{out}/zinc.tif"},
+     ("format_version", '"abc"', "a whole number of 1 or more", "Refit the model with 'Fit covariance model'")),
+    ("fieldcast:predict", {"INPUT": "{samples}", "FIELD": "zinc", "MODEL": "{model}", "PIXEL_SIZE": 400,
+                           "THRESHOLD": 500, "OUTPUT": "{out}/zinc.tif"},
+     ("no exceedance raster is asked for", "OUTPUT_EXCEEDANCE", "leave 'Threshold' (THRESHOLD) empty")),
+    ("fieldcast:predict", {"INPUT": "{samples}", "FIELD": "zinc", "MODEL": "{model}",
+                           "EXTENT": "-8000000,9500000,-8000000,9500000 [EPSG:28992]", "OUTPUT": "{out}/zinc.tif"},
+     ("Choose an extent at most 10 times the samples'", "leave EXTENT empty")),
+    ("fieldcast:simulate", {"INPUT": "{samples}", "FIELD": "zinc", "MODEL": "{model}", "PIXEL_SIZE": 400,
+                            "REALIZATIONS": 2, "SEED": -1, "OUTPUT": "{out}/sims.tif"},
+     ("SEED (random seed) must be a whole number of 0 or more; got '-1'",)),
+    ("fieldcast:fitmodel", {"INPUT": "{no_srs}", "FIELD": "depth", "OUTPUT_MODEL": "{out}/site.json"},
+     ("The layer site has no defined CRS", "local engineering CRS")),
+]
+
+
+@pytest.mark.parametrize(("algorithm", "parameters", "fragments"), REFUSALS,
+                         ids=["output-on-input", "two-outputs-one-file", "bad-model-file", "threshold-unused",
+                              "extent-too-wide", "negative-seed", "geopackage-without-crs"])
+def test_refusals_through_qgis_process_name_cause_and_way_out_and_touch_nothing(profile, refusal_inputs, tmp_path,
+                                                                               algorithm, parameters, fragments):
+    out = tmp_path / "out"
+    out.mkdir()
+    names = {**refusal_inputs, "samples_file": refusal_inputs["samples"].split("|")[0], "out": str(out)}
+    before = file_digests(refusal_inputs)
+    run = run_algorithm(profile, algorithm, {key: str(value).format(**names) for key, value in parameters.items()})
+    assert run.returncode != 0
+    for fragment in fragments:
+        assert fragment in run.messages
+    assert "Traceback" not in run.messages
+    assert list(out.iterdir()) == []
+    assert file_digests(refusal_inputs) == before

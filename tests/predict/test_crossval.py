@@ -143,8 +143,11 @@ def test_standardized_errors_are_standard_normal_under_the_model(meuse):
 def test_cross_validation_refuses_bad_setups(data):
     xy, values, _ = data
     covariance, mean = model_and_mean("quadratic", xy)
-    with pytest.raises(FieldcastError, match="at least 8 samples"):
+    with pytest.raises(FieldcastError, match=r"at least 8 samples; got 7\. Use more samples, or refit the model "
+                                             r"with a simpler TREND \(constant\) in 'Fit covariance model'"):
         leave_one_out(xy[:7], values[:7], covariance, MeanModel.for_data("quadratic", xy[:7]))
+    with pytest.raises(FieldcastError, match=r"only 6 samples\. Use more samples, or refit"):
+        KrigingPredictor(xy[:6], values[:6], covariance, MeanModel.for_data("quadratic", xy[:6]))
     with pytest.raises(FieldcastError, match="number of folds"):
         k_fold(xy, values, covariance, mean, k=0)
     with pytest.raises(FieldcastError, match="cannot estimate the quadratic mean"):

@@ -280,7 +280,7 @@ def test_clearly_negative_variance_is_refused_with_advice(meuse, log_zinc):
     model = CovarianceModel((Structure("exponential", 0.6, RANGE),), 0.05)
     predictor = KrigingPredictor(meuse.xy, log_zinc, model, MeanModel.for_data("known", meuse.xy))
     cross = model.cross_covariance(meuse.xy, meuse.xy[:3] + 10.0)
-    with pytest.raises(FieldcastError, match=r"clearly negative \(-0\.\d+ with sill 0\.65\).*\(larger\) nugget"):
+    with pytest.raises(FieldcastError, match=r"clearly negative \(-0\.\d+ with sill 0\.65\).*model file.s \"nugget\""):
         predictor.predict_from_covariances(cross, np.zeros((3, 0)), 0.0)
     _, variance = predictor.predict_from_covariances(cross, np.zeros((3, 0)), model.field_variance)
     assert np.all(variance > 0)
@@ -318,7 +318,7 @@ def test_bad_inputs_are_refused(meuse, log_zinc):
         predictor.predict(np.array([[180000.0, np.nan]]))
     with pytest.raises(FieldcastError, match="quadratic mean model has 6 term"):
         KrigingPredictor(meuse.xy[:5], log_zinc[:5], model, MeanModel.for_data("quadratic", meuse.xy))
-    with pytest.raises(FieldcastError, match="trend term.*dist are zero at every sample"):
+    with pytest.raises(FieldcastError, match="trend term.*dist are zero at every sample.*simpler TREND"):
         KrigingPredictor(meuse.xy, log_zinc, model, MeanModel.for_data("constant", meuse.xy, ("dist",)),
                          np.zeros((155, 1)))
     on_a_line = np.column_stack([np.linspace(0.0, 1000.0, 20), np.full(20, 5.0)])
