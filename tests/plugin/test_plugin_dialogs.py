@@ -73,7 +73,7 @@ def geopackage_with_fid(path: Path) -> Path:
 
 
 def test_value_field_widget_does_not_preselect_the_feature_id(tmp_path):
-    names = ["fitmodel", "predict", "simulate", "crossvalidate"]
+    names = ["fitmodel", "predict", "simulate", "crossvalidate", "predictpoints"]
     result = subprocess.run([sys.executable, str(Path(__file__).with_name("field_widget_choice.py")),
                              str(geopackage_with_fid(tmp_path / "samples.gpkg")), *names],
                             capture_output=True, text=True, timeout=120, check=True)
