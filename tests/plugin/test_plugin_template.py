@@ -23,6 +23,10 @@ from reference import MEUSE_LOG_ZINC
 MEUSE_TEMPLATE = (178605.0, 40.0, 0.0, 333615.0, 0.0, -40.0)
 COLUMNS, ROWS = 70, 98  # to 181405 / 329695: every Meuse sample lies inside
 TEMPLATE_NODATA = -32768.0
+THRESHOLD = 500.0
+# The predictpoints field holding the value of each predict output raster.
+POINT_RESULTS = {"zinc_est": "OUTPUT", "zinc_var": "OUTPUT_VARIANCE", "zinc_sd": "OUTPUT_SD",
+                 "zinc_pexc": "OUTPUT_EXCEEDANCE"}
 
 
 def write_template(path, geotransform=MEUSE_TEMPLATE, epsg: int = 28992, size=(COLUMNS, ROWS),
@@ -94,24 +98,24 @@ def run_refused(processing, algorithm: str, parameters: dict, folder, *fragments
 
 @pytest.fixture(scope="module")
 def template_run(qgis_processing, meuse, tmp_path_factory):  # noqa: F811
+    """A predict run on the template with every surface output; returns the template, outputs and inputs."""
     folder = tmp_path_factory.mktemp("template")
     template = write_template(folder / "template.tif")
-    outputs = {"OUTPUT": str(folder / "prediction.tif"), "OUTPUT_VARIANCE": str(folder / "variance.tif")}
-    qgis_processing.run("fieldcast:predict", {
-        "INPUT": point_layer(meuse.xy, {"zinc": meuse.zinc}), "FIELD": "zinc",
-        "MODEL": model_file(folder / "model.json", meuse.xy, "EPSG:28992"), "TEMPLATE": template,
-        "MAP_AREA": "extent", **outputs})
-    return template, outputs
+    outputs = {name: str(folder / f"{name.lower()}.tif") for name in POINT_RESULTS.values()}
+    inputs = {"INPUT": point_layer(meuse.xy, {"zinc": meuse.zinc}), "FIELD": "zinc",
+              "MODEL": model_file(folder / "model.json", meuse.xy, "EPSG:28992"), "THRESHOLD": THRESHOLD}
+    qgis_processing.run("fieldcast:predict", {**inputs, "TEMPLATE": template, "MAP_AREA": "extent", **outputs})
+    return template, outputs, inputs
 
 
 def test_prediction_takes_the_template_grid_exactly(template_run):
-    template, outputs = template_run
+    template, outputs, _ = template_run
     for path in outputs.values():
         assert_same_grid(path, template)
 
 
 def test_prediction_at_cell_centres_is_the_engine_kriging(template_run, meuse):
-    template, outputs = template_run
+    template, outputs, _ = template_run
     expected = engine_median(meuse.xy, meuse.zinc, centres(template))
     written = band_values(outputs["OUTPUT"])
     inside = np.ones((ROWS, COLUMNS), dtype=bool)
@@ -119,8 +123,29 @@ def test_prediction_at_cell_centres_is_the_engine_kriging(template_run, meuse):
     np.testing.assert_allclose(written[inside], expected[inside], rtol=1e-5)  # Float32 storage
 
 
+def test_template_cells_equal_predictpoints_at_their_centres(template_run, qgis_processing, tmp_path):  # noqa: F811
+    # Issue 12's check: a template whose origin is off the cell-size multiples gives outputs with exactly its
+    # geotransform, size and CRS, and cell values equal to predictpoints at the cell centres.
+    template, outputs, inputs = template_run
+    for path in outputs.values():
+        assert_same_grid(path, template)
+    result = qgis_processing.run("fieldcast:predictpoints", {
+        **inputs, "TARGETS": point_layer(centres(template), {}), "OUTPUT": str(tmp_path / "centres.gpkg")})
+    layer = QgsVectorLayer(result["OUTPUT"], "centres", "ogr")
+    features = list(layer.getFeatures())
+    assert len(features) == ROWS * COLUMNS
+    inside = np.ones((ROWS, COLUMNS), dtype=bool)
+    inside[:10, :20] = False  # the template's nodata block: nodata in the rasters, predicted at the points
+    for field, output in POINT_RESULTS.items():
+        points = np.array([feature[field] for feature in features], dtype=float).reshape(ROWS, COLUMNS)
+        # The rasters hold Float32: equal to the points' doubles to single precision (IEEE 754, 2**-24);
+        # the exceedance gets an absolute floor for probabilities that round to 0 in either.
+        np.testing.assert_allclose(band_values(outputs[output])[inside], points[inside], rtol=2e-7,
+                                   atol=1e-7 if field == "zinc_pexc" else 0.0, err_msg=field)
+
+
 def test_template_nodata_cells_stay_nodata(template_run):
-    _, outputs = template_run
+    _, outputs, _ = template_run
     for path in outputs.values():
         values = band_values(path)
         assert np.isnan(values[:10, :20]).all()
