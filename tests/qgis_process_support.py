@@ -4,7 +4,8 @@ The profile is a folder used as ``QGIS_CUSTOM_CONFIG_PATH``: the repository is
 linked in as the plugin ``fieldcast`` and enabled in ``QGIS3.ini``, so nothing
 in the user's own QGIS settings is read or changed. ``qgis_process.bin`` is
 used instead of Debian's ``qgis_process`` wrapper, which passes an option that
-QGIS 3.22 rejects.
+QGIS 3.22 rejects. The Meuse GeoPackage and the template raster the runs take
+are written here too, so that the processing.run tests share them.
 """
 from __future__ import annotations
 
@@ -20,6 +21,10 @@ PLUGIN_NAME = "fieldcast"
 QGIS_PROCESS = shutil.which("qgis_process.bin")
 RUN_TIMEOUT_SECONDS = 900  # a hang guard, not a speed target
 MEUSE_METALS = ("zinc", "copper", "lead")
+# A template raster over the Meuse samples whose top-left corner is off the multiples of its 40 m cells.
+MEUSE_TEMPLATE = (178605.0, 40.0, 0.0, 333615.0, 0.0, -40.0)
+COLUMNS, ROWS = 70, 98  # to 181405 / 329695: every Meuse sample lies inside
+TEMPLATE_NODATA = -32768.0
 
 
 def make_profile(root: Path, plugin_folder: Path = REPO_ROOT) -> Path:
@@ -182,3 +187,39 @@ def write_meuse_geopackage(path: Path) -> str:
         layer.CreateFeature(feature)
     source = None
     return f"{path}|layername=meuse"
+
+
+def write_template(path: Path, geotransform: tuple = MEUSE_TEMPLATE, epsg: int = 28992,
+                   size: tuple[int, int] = (COLUMNS, ROWS), nodata_block: bool = True) -> str:
+    """A one-band Int16 GeoTIFF template raster; with ``nodata_block`` its top-left 10 x 20 cells hold nodata.
+
+    Returns its path as text. ``size`` is (columns, rows); the other cells hold 7.
+    """
+    import numpy as np
+    from osgeo import gdal, osr
+
+    dataset = gdal.GetDriverByName("GTiff").Create(str(path), size[0], size[1], 1, gdal.GDT_Int16)
+    dataset.SetGeoTransform(geotransform)
+    crs = osr.SpatialReference()
+    crs.ImportFromEPSG(epsg)
+    dataset.SetProjection(crs.ExportToWkt())
+    values = np.full((size[1], size[0]), 7, dtype=np.int16)
+    if nodata_block:
+        values[:10, :20] = TEMPLATE_NODATA
+    band = dataset.GetRasterBand(1)
+    band.SetNoDataValue(TEMPLATE_NODATA)
+    band.WriteArray(values)
+    dataset = None
+    return str(path)
+
+
+def template_centres(template: str):
+    """Cell centres of ``template`` in raster order as an (n, 2) array, by GDAL's ApplyGeoTransform at
+    (pixel + 0.5, line + 0.5)."""
+    import numpy as np
+    from osgeo import gdal
+
+    dataset = gdal.Open(str(template))
+    transform = dataset.GetGeoTransform()
+    return np.array([gdal.ApplyGeoTransform(transform, col + 0.5, row + 0.5)
+                     for row in range(dataset.RasterYSize) for col in range(dataset.RasterXSize)])
