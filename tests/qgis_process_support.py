@@ -158,35 +158,53 @@ def write_fit_then_predict_model(path: Path, fit_parameters: dict, predict_param
                           ("surface", "predict", "OUTPUT"))
 
 
+def write_point_geopackage(path: Path, name: str, xy, columns: dict[str, list]) -> str:
+    """A GeoPackage point layer ``name`` in EPSG:28992 with one point per row of ``xy``; returns ``path`` as text.
+
+    Each column becomes a field in the given order: text for ``str`` values, whole numbers for ``int``
+    values, real numbers otherwise (the type of the column's first value decides).
+    """
+    from osgeo import ogr, osr
+
+    def field_type(values: list) -> int:
+        first = values[0] if len(values) else 0.0
+        return ogr.OFTString if isinstance(first, str) else ogr.OFTInteger if isinstance(first, int) else ogr.OFTReal
+
+    srs = osr.SpatialReference()
+    srs.ImportFromEPSG(28992)
+    source = ogr.GetDriverByName("GPKG").CreateDataSource(str(path))
+    layer = source.CreateLayer(name, srs, ogr.wkbPoint)
+    for column, values in columns.items():
+        layer.CreateField(ogr.FieldDefn(column, field_type(values)))
+    layer.StartTransaction()
+    for row, (x, y) in enumerate(xy):
+        feature = ogr.Feature(layer.GetLayerDefn())
+        for column, values in columns.items():
+            feature.SetField(column, values[row])
+        point = ogr.Geometry(ogr.wkbPoint)
+        point.AddPoint_2D(float(x), float(y))
+        feature.SetGeometry(point)
+        layer.CreateFeature(feature)
+    layer.CommitTransaction()
+    source = None
+    return str(path)
+
+
 def write_meuse_geopackage(path: Path) -> str:
     """The Meuse samples (tests/data/meuse.csv) as a GeoPackage point layer ``meuse`` in EPSG:28992.
 
     Fields: ``id``, ``zinc``, ``copper``, ``lead`` (ppm) and the text field ``landuse``. Returns the
     layer's OGR URI. The data set is the published Meuse survey (see tests/data/README.md).
     """
-    from osgeo import ogr, osr
+    from osgeo import ogr
 
-    srs = osr.SpatialReference()
-    srs.ImportFromEPSG(28992)
-    source = ogr.GetDriverByName("GPKG").CreateDataSource(str(path))
-    layer = source.CreateLayer("meuse", srs, ogr.wkbPoint)
-    layer.CreateField(ogr.FieldDefn("id", ogr.OFTInteger))
-    for name in MEUSE_METALS:
-        layer.CreateField(ogr.FieldDefn(name, ogr.OFTReal))
-    layer.CreateField(ogr.FieldDefn("landuse", ogr.OFTString))
-    csv_source = ogr.Open(str(REPO_ROOT / "tests" / "data" / "meuse.csv"))
-    for row in csv_source.GetLayer():
-        feature = ogr.Feature(layer.GetLayerDefn())
-        feature.SetField("id", int(row["id"]))
-        for name in MEUSE_METALS:
-            feature.SetField(name, float(row[name]))
-        feature.SetField("landuse", row["landuse"])
-        point = ogr.Geometry(ogr.wkbPoint)
-        point.AddPoint_2D(float(row["x"]), float(row["y"]))
-        feature.SetGeometry(point)
-        layer.CreateFeature(feature)
-    source = None
-    return f"{path}|layername=meuse"
+    csv_source = ogr.Open(str(REPO_ROOT / "tests" / "data" / "meuse.csv"))  # held: a layer outliving it crashes
+    rows = list(csv_source.GetLayer())
+    columns = {"id": [int(row["id"]) for row in rows],
+               **{name: [float(row[name]) for row in rows] for name in MEUSE_METALS},
+               "landuse": [row["landuse"] for row in rows]}
+    xy = [(float(row["x"]), float(row["y"])) for row in rows]
+    return f"{write_point_geopackage(path, 'meuse', xy, columns)}|layername=meuse"
 
 
 def write_template(path: Path, geotransform: tuple = MEUSE_TEMPLATE, epsg: int = 28992,
