@@ -232,8 +232,8 @@ def write_template(path: Path, geotransform: tuple = MEUSE_TEMPLATE, epsg: int =
 
 
 def template_centres(template: str):
-    """Cell centres of ``template`` in raster order as an (n, 2) array, by GDAL's ApplyGeoTransform at
-    (pixel + 0.5, line + 0.5)."""
+    """Cell centres of the raster ``template`` (any GeoTIFF) in raster order as an (n, 2) array, by GDAL's
+    ApplyGeoTransform at (pixel + 0.5, line + 0.5)."""
     import numpy as np
     from osgeo import gdal
 
