@@ -4,7 +4,8 @@ The profile is a folder used as ``QGIS_CUSTOM_CONFIG_PATH``: the repository is
 linked in as the plugin ``fieldcast`` and enabled in ``QGIS3.ini``, so nothing
 in the user's own QGIS settings is read or changed. ``qgis_process.bin`` is
 used instead of Debian's ``qgis_process`` wrapper, which passes an option that
-QGIS 3.22 rejects.
+QGIS 3.22 rejects. The Meuse GeoPackage and the template raster the runs take
+are written here too, so that the processing.run tests share them.
 """
 from __future__ import annotations
 
@@ -20,6 +21,10 @@ PLUGIN_NAME = "fieldcast"
 QGIS_PROCESS = shutil.which("qgis_process.bin")
 RUN_TIMEOUT_SECONDS = 900  # a hang guard, not a speed target
 MEUSE_METALS = ("zinc", "copper", "lead")
+# A template raster over the Meuse samples whose top-left corner is off the multiples of its 40 m cells.
+MEUSE_TEMPLATE = (178605.0, 40.0, 0.0, 333615.0, 0.0, -40.0)
+COLUMNS, ROWS = 70, 98  # to 181405 / 329695: every Meuse sample lies inside
+TEMPLATE_NODATA = -32768.0
 
 
 def make_profile(root: Path, plugin_folder: Path = REPO_ROOT) -> Path:
@@ -153,35 +158,53 @@ def write_fit_then_predict_model(path: Path, fit_parameters: dict, predict_param
                           ("surface", "predict", "OUTPUT"))
 
 
+def write_point_geopackage(path: Path, name: str, xy, columns: dict[str, list]) -> str:
+    """A GeoPackage point layer ``name`` in EPSG:28992 with one point per row of ``xy``; returns ``path`` as text.
+
+    Each column becomes a field in the given order: text for ``str`` values, whole numbers for ``int``
+    values, real numbers otherwise (the type of the column's first value decides).
+    """
+    from osgeo import ogr, osr
+
+    def field_type(values: list) -> int:
+        first = values[0] if len(values) else 0.0
+        return ogr.OFTString if isinstance(first, str) else ogr.OFTInteger if isinstance(first, int) else ogr.OFTReal
+
+    srs = osr.SpatialReference()
+    srs.ImportFromEPSG(28992)
+    source = ogr.GetDriverByName("GPKG").CreateDataSource(str(path))
+    layer = source.CreateLayer(name, srs, ogr.wkbPoint)
+    for column, values in columns.items():
+        layer.CreateField(ogr.FieldDefn(column, field_type(values)))
+    layer.StartTransaction()
+    for row, (x, y) in enumerate(xy):
+        feature = ogr.Feature(layer.GetLayerDefn())
+        for column, values in columns.items():
+            feature.SetField(column, values[row])
+        point = ogr.Geometry(ogr.wkbPoint)
+        point.AddPoint_2D(float(x), float(y))
+        feature.SetGeometry(point)
+        layer.CreateFeature(feature)
+    layer.CommitTransaction()
+    source = None
+    return str(path)
+
+
 def write_meuse_geopackage(path: Path) -> str:
     """The Meuse samples (tests/data/meuse.csv) as a GeoPackage point layer ``meuse`` in EPSG:28992.
 
     Fields: ``id``, ``zinc``, ``copper``, ``lead`` (ppm) and the text field ``landuse``. Returns the
     layer's OGR URI. The data set is the published Meuse survey (see tests/data/README.md).
     """
-    from osgeo import ogr, osr
+    from osgeo import ogr
 
-    srs = osr.SpatialReference()
-    srs.ImportFromEPSG(28992)
-    source = ogr.GetDriverByName("GPKG").CreateDataSource(str(path))
-    layer = source.CreateLayer("meuse", srs, ogr.wkbPoint)
-    layer.CreateField(ogr.FieldDefn("id", ogr.OFTInteger))
-    for name in MEUSE_METALS:
-        layer.CreateField(ogr.FieldDefn(name, ogr.OFTReal))
-    layer.CreateField(ogr.FieldDefn("landuse", ogr.OFTString))
-    csv_source = ogr.Open(str(REPO_ROOT / "tests" / "data" / "meuse.csv"))
-    for row in csv_source.GetLayer():
-        feature = ogr.Feature(layer.GetLayerDefn())
-        feature.SetField("id", int(row["id"]))
-        for name in MEUSE_METALS:
-            feature.SetField(name, float(row[name]))
-        feature.SetField("landuse", row["landuse"])
-        point = ogr.Geometry(ogr.wkbPoint)
-        point.AddPoint_2D(float(row["x"]), float(row["y"]))
-        feature.SetGeometry(point)
-        layer.CreateFeature(feature)
-    source = None
-    return f"{path}|layername=meuse"
+    csv_source = ogr.Open(str(REPO_ROOT / "tests" / "data" / "meuse.csv"))  # held: a layer outliving it crashes
+    rows = list(csv_source.GetLayer())
+    columns = {"id": [int(row["id"]) for row in rows],
+               **{name: [float(row[name]) for row in rows] for name in MEUSE_METALS},
+               "landuse": [row["landuse"] for row in rows]}
+    xy = [(float(row["x"]), float(row["y"])) for row in rows]
+    return f"{write_point_geopackage(path, 'meuse', xy, columns)}|layername=meuse"
 
 
 def write_geopackage_without_srs(path: Path) -> str:
@@ -202,3 +225,39 @@ def write_geopackage_without_srs(path: Path) -> str:
         table.CreateFeature(feature)
     source = None
     return f"{path}|layername=site"
+
+
+def write_template(path: Path, geotransform: tuple = MEUSE_TEMPLATE, epsg: int = 28992,
+                   size: tuple[int, int] = (COLUMNS, ROWS), nodata_block: bool = True) -> str:
+    """A one-band Int16 GeoTIFF template raster; with ``nodata_block`` its top-left 10 x 20 cells hold nodata.
+
+    Returns its path as text. ``size`` is (columns, rows); the other cells hold 7.
+    """
+    import numpy as np
+    from osgeo import gdal, osr
+
+    dataset = gdal.GetDriverByName("GTiff").Create(str(path), size[0], size[1], 1, gdal.GDT_Int16)
+    dataset.SetGeoTransform(geotransform)
+    crs = osr.SpatialReference()
+    crs.ImportFromEPSG(epsg)
+    dataset.SetProjection(crs.ExportToWkt())
+    values = np.full((size[1], size[0]), 7, dtype=np.int16)
+    if nodata_block:
+        values[:10, :20] = TEMPLATE_NODATA
+    band = dataset.GetRasterBand(1)
+    band.SetNoDataValue(TEMPLATE_NODATA)
+    band.WriteArray(values)
+    dataset = None
+    return str(path)
+
+
+def template_centres(template: str):
+    """Cell centres of the raster ``template`` (any GeoTIFF) in raster order as an (n, 2) array, by GDAL's
+    ApplyGeoTransform at (pixel + 0.5, line + 0.5)."""
+    import numpy as np
+    from osgeo import gdal
+
+    dataset = gdal.Open(str(template))
+    transform = dataset.GetGeoTransform()
+    return np.array([gdal.ApplyGeoTransform(transform, col + 0.5, row + 0.5)
+                     for row in range(dataset.RasterYSize) for col in range(dataset.RasterXSize)])

@@ -14,7 +14,7 @@ import time
 from pathlib import Path
 
 import numpy as np
-from osgeo import ogr, osr
+from osgeo import ogr
 
 if "PROJ_LIB" not in os.environ:  # see tests/conftest.py: a venv's pyproj does not find the system PROJ database
     os.environ.setdefault("PROJ_DATA", str(Path(sys.base_prefix, "share", "proj")))
@@ -22,6 +22,7 @@ sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "tests"))  # the re
 from repo_package import load_repo_package  # noqa: E402
 
 load_repo_package()
+from qgis_process_support import write_point_geopackage  # noqa: E402
 from qgis_support import point_layer, started_plugin  # noqa: E402
 from reference import load_meuse  # noqa: E402
 
@@ -30,24 +31,8 @@ TARGETS = 100_000
 
 def target_geopackage(path: Path, xy: np.ndarray) -> str:
     """A GeoPackage point layer (EPSG:28992) at ``xy`` with fields ``name`` (text) and ``depth`` (real)."""
-    source = ogr.GetDriverByName("GPKG").CreateDataSource(str(path))
-    crs = osr.SpatialReference()
-    crs.ImportFromEPSG(28992)
-    layer = source.CreateLayer("targets", crs, ogr.wkbPoint)
-    layer.CreateField(ogr.FieldDefn("name", ogr.OFTString))
-    layer.CreateField(ogr.FieldDefn("depth", ogr.OFTReal))
-    layer.StartTransaction()
-    for row, (x, y) in enumerate(xy):
-        feature = ogr.Feature(layer.GetLayerDefn())
-        feature.SetField("name", f"T{row}")
-        feature.SetField("depth", row / 100.0)
-        point = ogr.Geometry(ogr.wkbPoint)
-        point.AddPoint_2D(float(x), float(y))
-        feature.SetGeometry(point)
-        layer.CreateFeature(feature)
-    layer.CommitTransaction()
-    source = None
-    return str(path)
+    return write_point_geopackage(path, "targets", xy, {"name": [f"T{row}" for row in range(len(xy))],
+                                                        "depth": [row / 100.0 for row in range(len(xy))]})
 
 
 def _hundred_thousand_points() -> str:

@@ -22,6 +22,7 @@ from qgis.gui import (  # noqa: E402
     QgsProcessingGui,
     QgsProcessingParameterWidgetContext,
 )
+from qgis.PyQt import sip  # noqa: E402
 from qgis.PyQt.QtWidgets import QWidget  # noqa: E402
 
 from repo_package import load_repo_package  # noqa: E402
@@ -57,8 +58,10 @@ def preselected(algorithm, path: str, context: QgsProcessingContext):
     parent_widget = parent.createWrappedWidget(context)
     widget.setParentLayerWrapperValue(parent)
     value = widget.parameterValue()
-    combo.deleteLater()
-    parent_widget.deleteLater()
+    # Deleted now, while their Python wrappers live: deleteLater left them to exitQgis, whose flush of the
+    # deferred deletes reached Python objects already collected and died with SIGBUS.
+    sip.delete(combo)
+    sip.delete(parent_widget)
     return value if isinstance(value, str) and value else None
 
 

@@ -9,7 +9,6 @@ from pathlib import Path
 
 import numpy as np
 import pytest
-from osgeo import ogr, osr
 from qgis.core import (
     QgsApplication,
     QgsProcessingDestinationParameter,
@@ -19,6 +18,7 @@ from qgis.core import (
 from qgis.gui import QgsProcessingToolboxModel, QgsProcessingToolboxProxyModel
 from qgis.PyQt.QtCore import QModelIndex, QUrl
 
+from qgis_process_support import write_point_geopackage
 from qgis_support import fieldcast_plugin, point_layer, qgis_processing  # noqa: F401 - fixtures
 from repo_package import REPO_ROOT
 
@@ -52,28 +52,15 @@ def test_main_page_shows_only_the_everyday_inputs(fieldcast_plugin, name):  # no
     assert all(is_advanced(d) for d in inputs if d.name() in EXPERT)
 
 
-def geopackage_with_fid(path: Path) -> Path:
+def geopackage_with_fid(path: Path) -> str:
     """A GeoPackage point layer with its feature id ``fid``, a text label and a numeric ``zinc``."""
-    source = ogr.GetDriverByName("GPKG").CreateDataSource(str(path))
-    crs = osr.SpatialReference()
-    crs.ImportFromEPSG(28992)
-    layer = source.CreateLayer("samples", crs, ogr.wkbPoint)
-    layer.CreateField(ogr.FieldDefn("label", ogr.OFTString))
-    layer.CreateField(ogr.FieldDefn("zinc", ogr.OFTReal))
-    for index in range(3):
-        feature = ogr.Feature(layer.GetLayerDefn())
-        feature.SetField("label", f"s{index}")
-        feature.SetField("zinc", 100.0 * (index + 1))
-        point = ogr.Geometry(ogr.wkbPoint)
-        point.AddPoint_2D(181000.0 + index, 333000.0 + index)
-        feature.SetGeometry(point)
-        layer.CreateFeature(feature)
-    source = None
-    return path
+    xy = [(181000.0 + index, 333000.0 + index) for index in range(3)]
+    return write_point_geopackage(path, "samples", xy, {"label": [f"s{index}" for index in range(3)],
+                                                        "zinc": [100.0 * (index + 1) for index in range(3)]})
 
 
 def test_value_field_widget_does_not_preselect_the_feature_id(tmp_path):
-    names = ["fitmodel", "predict", "simulate", "crossvalidate"]
+    names = ["fitmodel", "predict", "simulate", "crossvalidate", "predictpoints"]
     result = subprocess.run([sys.executable, str(Path(__file__).with_name("field_widget_choice.py")),
                              str(geopackage_with_fid(tmp_path / "samples.gpkg")), *names],
                             capture_output=True, text=True, timeout=120, check=True)

@@ -24,6 +24,7 @@ from scipy import stats
 
 from fieldcast.algorithms.io.model_file import ModelDocument
 from fieldcast.algorithms.predict.kriging import KrigingPredictor
+from qgis_process_support import template_centres
 from qgis_support import field_type, fieldcast_plugin, point_layer, qgis_processing  # noqa: F401 - fixtures
 
 FIT_SETTINGS = {"TRANSFORM": "log", "KERNEL": "spherical", "ANISOTROPY": False, "TREND": "constant",
@@ -76,14 +77,6 @@ def band(path) -> np.ndarray:
     return values
 
 
-def cell_centres(path) -> np.ndarray:
-    """Centres of the cells of a GeoTIFF in raster order, from its geotransform."""
-    dataset = gdal.Open(str(path))
-    x0, dx, _, y0, _, dy = dataset.GetGeoTransform()
-    cols, rows = np.meshgrid(np.arange(dataset.RasterXSize), np.arange(dataset.RasterYSize))
-    return np.column_stack([x0 + (cols.ravel() + 0.5) * dx, y0 + (rows.ravel() + 0.5) * dy])
-
-
 def columns(path, names) -> dict[str, np.ndarray]:
     """The named fields of a written layer, in feature order (NULL as None)."""
     layer = QgsVectorLayer(str(path), "out", "ogr")
@@ -118,7 +111,7 @@ def run_points(qgis_processing, samples, model, targets, path, feedback=None, **
 def test_points_at_cell_centres_equal_the_predict_rasters_and_keep_their_fields(qgis_processing, meuse_predict,  # noqa: F811
                                                                                 tmp_path):
     samples, model, rasters = meuse_predict
-    centres = cell_centres(rasters["zinc_est"])
+    centres = template_centres(rasters["zinc_est"])
     result = run_points(qgis_processing, samples, model, labelled_layer(centres), tmp_path / "points.gpkg")
     written = columns(result["OUTPUT"], ["well", "depth", "level", *RESULTS])
     for name in RESULTS:
@@ -135,7 +128,7 @@ def test_points_at_cell_centres_equal_the_predict_rasters_and_keep_their_fields(
 
 def test_targets_in_degrees_are_reprojected_and_keep_their_crs(qgis_processing, meuse_predict, tmp_path):  # noqa: F811
     samples, model, rasters = meuse_predict
-    centres = cell_centres(rasters["zinc_est"])
+    centres = template_centres(rasters["zinc_est"])
     # EPSG:28992 -> EPSG:4326 through PROJ (pyproj), as a user's GPS points would arrive.
     lon, lat = Transformer.from_crs("EPSG:28992", "EPSG:4326", always_xy=True).transform(centres[:, 0], centres[:, 1])
     result = run_points(qgis_processing, samples, model, labelled_layer(np.column_stack([lon, lat]), "EPSG:4326"),

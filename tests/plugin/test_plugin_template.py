@@ -1,14 +1,15 @@
 """TEMPLATE on predict, predictmany and simulate: outputs on the template's exact grid and CRS, checked with GDAL.
 
 Data: the published Meuse topsoil samples (Rikken & Van Rijn 1993, tests/data/README.md), EPSG:28992 metres. The
-template rasters are built here with GDAL, their top-left corner 178605 / 333615 off the multiples of the 40 m
-cells. Predictions at the cell centres are compared with the engine's kriging at those centres.
+template rasters are built with GDAL (tests/qgis_process_support.py), their top-left corner 178605 / 333615 off
+the multiples of the 40 m cells. Predictions at the cell centres are compared with the engine's kriging at those
+centres and with predictpoints there.
 """
 from __future__ import annotations
 
 import numpy as np
 import pytest
-from osgeo import gdal, osr
+from osgeo import gdal
 from pyproj import Transformer
 from qgis.core import QgsFeature, QgsGeometry, QgsProcessingException, QgsRectangle, QgsVectorLayer
 
@@ -17,30 +18,14 @@ from fieldcast.algorithms.io.model_file import ModelDocument
 from fieldcast.algorithms.model.mean import MeanModel
 from fieldcast.algorithms.model.transform import Transform
 from fieldcast.algorithms.predict.kriging import KrigingPredictor
+from qgis_process_support import COLUMNS, ROWS, template_centres, write_template
 from qgis_support import fieldcast_plugin, point_layer, qgis_processing  # noqa: F401 - fixtures
 from reference import MEUSE_LOG_ZINC
 
-MEUSE_TEMPLATE = (178605.0, 40.0, 0.0, 333615.0, 0.0, -40.0)
-COLUMNS, ROWS = 70, 98  # to 181405 / 329695: every Meuse sample lies inside
-TEMPLATE_NODATA = -32768.0
-
-
-def write_template(path, geotransform=MEUSE_TEMPLATE, epsg: int = 28992, size=(COLUMNS, ROWS),
-                   nodata_block: bool = True) -> str:
-    """A one-band Int16 GeoTIFF; with ``nodata_block`` its top-left 10 x 20 cells hold the nodata value."""
-    dataset = gdal.GetDriverByName("GTiff").Create(str(path), size[0], size[1], 1, gdal.GDT_Int16)
-    dataset.SetGeoTransform(geotransform)
-    crs = osr.SpatialReference()
-    crs.ImportFromEPSG(epsg)
-    dataset.SetProjection(crs.ExportToWkt())
-    values = np.full((size[1], size[0]), 7, dtype=np.int16)
-    if nodata_block:
-        values[:10, :20] = TEMPLATE_NODATA
-    band = dataset.GetRasterBand(1)
-    band.SetNoDataValue(TEMPLATE_NODATA)
-    band.WriteArray(values)
-    dataset = None
-    return str(path)
+THRESHOLD = 500.0
+# The predictpoints field holding the value of each predict output raster.
+POINT_RESULTS = {"zinc_est": "OUTPUT", "zinc_var": "OUTPUT_VARIANCE", "zinc_sd": "OUTPUT_SD",
+                 "zinc_pexc": "OUTPUT_EXCEEDANCE"}
 
 
 def model_file(path, xy: np.ndarray, crs: str) -> str:
@@ -68,14 +53,6 @@ def assert_same_grid(output: str, template: str) -> None:
     assert written.GetSpatialRef().IsSame(expected.GetSpatialRef())
 
 
-def centres(template: str) -> np.ndarray:
-    """Cell centres of ``template`` in raster order, by GDAL's ApplyGeoTransform at (pixel + 0.5, line + 0.5)."""
-    dataset = gdal.Open(template)
-    transform = dataset.GetGeoTransform()
-    return np.array([gdal.ApplyGeoTransform(transform, col + 0.5, row + 0.5)
-                     for row in range(dataset.RasterYSize) for col in range(dataset.RasterXSize)])
-
-
 def engine_median(xy: np.ndarray, zinc: np.ndarray, targets: np.ndarray) -> np.ndarray:
     """Kriging of log zinc with the engine directly, back-transformed to the median exp(mu), as (rows, cols)."""
     mean, _ = KrigingPredictor(xy, np.log(zinc), MEUSE_LOG_ZINC, MeanModel.for_data("constant", xy)).predict(targets)
@@ -94,33 +71,55 @@ def run_refused(processing, algorithm: str, parameters: dict, folder, *fragments
 
 @pytest.fixture(scope="module")
 def template_run(qgis_processing, meuse, tmp_path_factory):  # noqa: F811
+    """A predict run on the template with every surface output; returns the template, outputs and inputs."""
     folder = tmp_path_factory.mktemp("template")
     template = write_template(folder / "template.tif")
-    outputs = {"OUTPUT": str(folder / "prediction.tif"), "OUTPUT_VARIANCE": str(folder / "variance.tif")}
-    qgis_processing.run("fieldcast:predict", {
-        "INPUT": point_layer(meuse.xy, {"zinc": meuse.zinc}), "FIELD": "zinc",
-        "MODEL": model_file(folder / "model.json", meuse.xy, "EPSG:28992"), "TEMPLATE": template,
-        "MAP_AREA": "extent", **outputs})
-    return template, outputs
+    outputs = {name: str(folder / f"{name.lower()}.tif") for name in POINT_RESULTS.values()}
+    inputs = {"INPUT": point_layer(meuse.xy, {"zinc": meuse.zinc}), "FIELD": "zinc",
+              "MODEL": model_file(folder / "model.json", meuse.xy, "EPSG:28992"), "THRESHOLD": THRESHOLD}
+    qgis_processing.run("fieldcast:predict", {**inputs, "TEMPLATE": template, "MAP_AREA": "extent", **outputs})
+    return template, outputs, inputs
 
 
 def test_prediction_takes_the_template_grid_exactly(template_run):
-    template, outputs = template_run
+    template, outputs, _ = template_run
     for path in outputs.values():
         assert_same_grid(path, template)
 
 
 def test_prediction_at_cell_centres_is_the_engine_kriging(template_run, meuse):
-    template, outputs = template_run
-    expected = engine_median(meuse.xy, meuse.zinc, centres(template))
+    template, outputs, _ = template_run
+    expected = engine_median(meuse.xy, meuse.zinc, template_centres(template))
     written = band_values(outputs["OUTPUT"])
     inside = np.ones((ROWS, COLUMNS), dtype=bool)
     inside[:10, :20] = False
     np.testing.assert_allclose(written[inside], expected[inside], rtol=1e-5)  # Float32 storage
 
 
+def test_template_cells_equal_predictpoints_at_their_centres(template_run, qgis_processing, tmp_path):  # noqa: F811
+    # Issue 12's check: a template whose origin is off the cell-size multiples gives outputs with exactly its
+    # geotransform, size and CRS, and cell values equal to predictpoints at the cell centres.
+    template, outputs, inputs = template_run
+    for path in outputs.values():
+        assert_same_grid(path, template)
+    result = qgis_processing.run("fieldcast:predictpoints", {
+        **inputs, "TARGETS": point_layer(template_centres(template), {}),
+        "OUTPUT": str(tmp_path / "centres.gpkg")})
+    layer = QgsVectorLayer(result["OUTPUT"], "centres", "ogr")
+    features = list(layer.getFeatures())
+    assert len(features) == ROWS * COLUMNS
+    inside = np.ones((ROWS, COLUMNS), dtype=bool)
+    inside[:10, :20] = False  # the template's nodata block: nodata in the rasters, predicted at the points
+    for field, output in POINT_RESULTS.items():
+        points = np.array([feature[field] for feature in features], dtype=float).reshape(ROWS, COLUMNS)
+        # The rasters hold Float32: equal to the points' doubles to single precision (IEEE 754, 2**-24);
+        # the exceedance gets an absolute floor for probabilities that round to 0 in either.
+        np.testing.assert_allclose(band_values(outputs[output])[inside], points[inside], rtol=2e-7,
+                                   atol=1e-7 if field == "zinc_pexc" else 0.0, err_msg=field)
+
+
 def test_template_nodata_cells_stay_nodata(template_run):
-    _, outputs = template_run
+    _, outputs, _ = template_run
     for path in outputs.values():
         values = band_values(path)
         assert np.isnan(values[:10, :20]).all()
@@ -135,7 +134,7 @@ def test_without_the_nodata_mask_every_template_cell_is_mapped(qgis_processing, 
         "MODEL": model_file(tmp_path / "model.json", meuse.xy, "EPSG:28992"), "TEMPLATE": template,
         "TEMPLATE_NODATA_MASK": False, "MAP_AREA": "extent", "OUTPUT": output})
     assert_same_grid(output, template)
-    np.testing.assert_allclose(band_values(output), engine_median(meuse.xy, meuse.zinc, centres(template)),
+    np.testing.assert_allclose(band_values(output), engine_median(meuse.xy, meuse.zinc, template_centres(template)),
                                rtol=1e-5)
 
 
@@ -154,7 +153,7 @@ def test_template_in_another_projected_crs_reprojects_the_samples(qgis_processin
         "MAP_AREA": "extent", "OUTPUT": output})
     assert_same_grid(output, template)
     mean, _ = KrigingPredictor(utm, np.log(meuse.zinc), MEUSE_LOG_ZINC,
-                               MeanModel.for_data("constant", utm)).predict(centres(template))
+                               MeanModel.for_data("constant", utm)).predict(template_centres(template))
     np.testing.assert_allclose(band_values(output).ravel(), np.exp(mean), rtol=1e-5)
 
 

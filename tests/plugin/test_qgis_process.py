@@ -21,13 +21,18 @@ from osgeo import gdal, ogr, osr
 from fieldcast.algorithms.io.model_file import ModelDocument
 from fieldcast.algorithms.predict.kriging import KrigingPredictor
 from qgis_process_support import (
+    COLUMNS,
     MEUSE_METALS,
+    MEUSE_TEMPLATE,
     QGIS_PROCESS,
+    ROWS,
     make_profile,
     run_algorithm,
+    template_centres,
     write_fit_then_predict_model,
     write_geopackage_without_srs,
     write_meuse_geopackage,
+    write_template,
 )
 from qgis_support import fieldcast_plugin  # noqa: F401 - fixture: a QgsApplication to build the .model3 in
 from reference import calibrated_coverage_range, calibrated_msdr_range, load_meuse_grid
@@ -304,3 +309,25 @@ def test_refusals_through_qgis_process_name_cause_and_way_out_and_touch_nothing(
     assert "Traceback" not in run.messages
     assert list(out.iterdir()) == []
     assert file_digests(refusal_inputs) == before
+
+
+def test_predict_on_a_template_raster_takes_its_grid_and_nodata(profile, meuse_layer, meuse, tmp_path):
+    model_path = tmp_path / "zinc.json"
+    fit(profile, meuse_layer, "zinc", model_path)
+    template = write_template(tmp_path / "template.tif")  # origin off the 40 m multiples, nodata top-left block
+    raster = tmp_path / "on_template.tif"
+    run = run_algorithm(profile, "fieldcast:predict", {"INPUT": meuse_layer, "FIELD": "zinc", "MODEL": model_path,
+                                                       "TEMPLATE": template, "MAP_AREA": "extent",
+                                                       "OUTPUT": raster})
+    assert run.returncode == 0, run.messages
+    values, transform, epsg = read_raster(raster)
+    assert transform == MEUSE_TEMPLATE and epsg == "28992" and values.shape == (ROWS, COLUMNS)
+    inside = np.ones((ROWS, COLUMNS), dtype=bool)
+    inside[:10, :20] = False
+    assert np.isnan(values[~inside]).all()  # TEMPLATE_NODATA_MASK is on by default
+    document = ModelDocument.load(str(model_path))
+    offset = document.transform.offset
+    mu, _ = KrigingPredictor(meuse.xy, np.log(meuse.zinc + offset), document.covariance,
+                             document.mean).predict(template_centres(template))
+    # The median of the lognormal exp(Y), Y ~ N(mu, s2), is exp(mu) (Aitchison & Brown 1957); Float32 storage.
+    np.testing.assert_allclose(values[inside], (np.exp(mu) - offset).reshape(ROWS, COLUMNS)[inside], rtol=1e-5)
