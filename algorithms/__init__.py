@@ -85,6 +85,7 @@ _PUBLIC = {
     "LogLine": "predict.choice",
     "Neighbourhood": "predict.choice",
     "choose_predictor": "predict.choice",
+    "cross_validate_with": "predict.choice",
     "search_words": "predict.choice",
     "CHECK_SAMPLE_LIMIT": "predict.neighbourhood_check",
     "grid_targets": "predict.neighbourhood_check",
