@@ -30,6 +30,7 @@ from typing import Any
 
 from .errors import Cancelled as Cancelled
 from .errors import FieldcastError as FieldcastError
+from .errors import FieldcastUsageError as FieldcastUsageError
 from .version import __version__ as __version__
 
 #: Public name -> the module (relative to this package) that defines it.
@@ -136,7 +137,7 @@ _PUBLIC = {
     "choose_working_crs": "io.working_crs",
 }
 
-__all__ = sorted(["Cancelled", "FieldcastError", "__version__", *_PUBLIC])
+__all__ = sorted(["Cancelled", "FieldcastError", "FieldcastUsageError", "__version__", *_PUBLIC])
 
 
 def __getattr__(name: str) -> Any:
