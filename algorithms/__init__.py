@@ -30,6 +30,7 @@ from typing import Any
 
 from .errors import Cancelled as Cancelled
 from .errors import FieldcastError as FieldcastError
+from .errors import FieldcastUsageError as FieldcastUsageError
 from .version import __version__ as __version__
 
 #: Public name -> the module (relative to this package) that defines it.
@@ -85,6 +86,7 @@ _PUBLIC = {
     "LogLine": "predict.choice",
     "Neighbourhood": "predict.choice",
     "choose_predictor": "predict.choice",
+    "cross_validate_with": "predict.choice",
     "search_words": "predict.choice",
     "CHECK_SAMPLE_LIMIT": "predict.neighbourhood_check",
     "grid_targets": "predict.neighbourhood_check",
@@ -135,7 +137,7 @@ _PUBLIC = {
     "choose_working_crs": "io.working_crs",
 }
 
-__all__ = sorted(["Cancelled", "FieldcastError", "__version__", *_PUBLIC])
+__all__ = sorted(["Cancelled", "FieldcastError", "FieldcastUsageError", "__version__", *_PUBLIC])
 
 
 def __getattr__(name: str) -> Any:

@@ -1,4 +1,4 @@
-"""The error type for problems a user can fix."""
+"""The engine's error types: every error the engine raises is a :class:`FieldcastError`."""
 from __future__ import annotations
 
 
@@ -7,6 +7,14 @@ class FieldcastError(ValueError):
 
     The toolbox algorithms show this message to the user as it is, so it
     must name the offending value and the remedy in plain words.
+    """
+
+
+class FieldcastUsageError(FieldcastError):
+    """A programming error in a caller, not the user's input: a function called against its contract
+    (a band index out of range, an unknown keyword, a table that misses an entry).
+
+    No toolbox input reaches it; the plugin reports it as an internal error, its traceback in the log.
     """
 
 

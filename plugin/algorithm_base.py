@@ -43,6 +43,7 @@ from ..algorithms import (
     TRANSFORM_KINDS,
     Cancelled,
     FieldcastError,
+    FieldcastUsageError,
     FitOptions,
     LogLine,
     ModelDocument,
@@ -404,6 +405,8 @@ class FieldcastAlgorithm(QgsProcessingAlgorithm):
             return outputs
         except Cancelled as exc:
             raise QgsProcessingException(self.tr("Cancelled; no output was written.")) from exc
+        except FieldcastUsageError as exc:  # a bug in a caller, not the user's input
+            raise self.internal_error(exc, feedback) from exc
         except (FieldcastError, ReportError) as exc:
             raise QgsProcessingException(str(exc)) from exc
         except QgsProcessingException:

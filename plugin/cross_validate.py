@@ -20,12 +20,9 @@ from qgis.core import (
 
 from ..algorithms import (
     CrossValidation,
-    FieldcastError,
     ModelDocument,
-    leave_one_out,
-    local_leave_one_out,
+    cross_validate_with,
     parse_crs,
-    search_words,
 )
 from .algorithm_base import FieldcastAlgorithm, progress_callback, push_log
 from .field_names import free_names
@@ -49,8 +46,6 @@ ATTRIBUTE_FIELDS = ("cv_observed_value", "cv_predicted_value", "cv_error_value")
 """The attribute-unit result fields a log model adds (see :meth:`CrossValidation.attribute_values`)."""
 
 
-
-
 class CrossValidateAlgorithm(FieldcastAlgorithm):
     """Leave-one-out cross-validation of a model on the samples it describes."""
 
@@ -66,7 +61,8 @@ class CrossValidateAlgorithm(FieldcastAlgorithm):
           "location averaged)."),
          MODEL_FILE_HELP,
          ("Neighbours per sample", "0 (the default): each sample is predicted from all the others (global "
-          "kriging, computed in closed form). A number k: from its k nearest other samples (local kriging; 16 to "
+          "kriging, computed in closed form), up to 5,000 samples; with more, each sample from its 64 nearest others "
+          "and the log says so. A number k: from its k nearest other samples (local kriging; 16 to "
           "64 is common practice), as 'Predict surface' does with the same setting; check a model here with the "
           "neighbours you will map with. It must be more than the number of trend terms (at least 2 for a "
           "constant mean)."),
@@ -160,24 +156,10 @@ class CrossValidateAlgorithm(FieldcastAlgorithm):
 
     def cross_validation(self, parameters, context, feedback, document: ModelDocument,
                          samples: ModelSamples) -> CrossValidation:
-        """Global (closed form) or local leave-one-out by NEIGHBOURS and SEARCH_RADIUS, the choice logged."""
-        neighbourhood = self.neighbourhood(parameters, context)
-        neighbours, lines = neighbourhood.resolved(document.mean, "sample", pool="every other sample")
+        """Global (closed form) or local leave-one-out by NEIGHBOURS and SEARCH_RADIUS, the engine's choice logged."""
+        result, lines = cross_validate_with(samples.xy, samples.values, document.covariance, document.mean,
+                                            self.neighbourhood(parameters, context), units=document.units,
+                                            progress=progress_callback(feedback, 80, 95),
+                                            should_stop=feedback.isCanceled)
         push_log(feedback, lines)
-        if neighbours == 0:
-            return leave_one_out(samples.xy, samples.values, document.covariance, document.mean)
-        search_radius = neighbourhood.search_radius
-        feedback.pushInfo(f"Local leave-one-out: each sample from its {min(neighbours, len(samples.values) - 1)} "
-                          f"nearest other samples{search_words(search_radius, document.units)}.")
-        result = local_leave_one_out(samples.xy, samples.values, document.covariance, document.mean,
-                                     neighbours=neighbours, search_radius=search_radius,
-                                     progress=progress_callback(feedback, 80, 95), should_stop=feedback.isCanceled)
-        unresolved = len(result.residual) - result.summary()["n"]
-        if unresolved == len(result.residual):
-            raise FieldcastError("No sample has enough other samples within SEARCH_RADIUS to be predicted. "
-                                 "Enlarge SEARCH_RADIUS, or leave it empty.")
-        if unresolved:
-            feedback.pushWarning(f"{unresolved:,} sample(s) have too few other samples within SEARCH_RADIUS (or "
-                                 "neighbours that make a singular system): they get no prediction and are left "
-                                 "out of the summary. Enlarge SEARCH_RADIUS, or leave it empty, to include them.")
         return result

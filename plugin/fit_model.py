@@ -12,6 +12,7 @@ from qgis.core import (
 
 from ..algorithms import (
     FieldcastError,
+    FieldcastUsageError,
     FitResult,
     ModelDocument,
     candidate_rmse,
@@ -61,6 +62,8 @@ def fit_report_arguments(samples: ModelSamples, skipped: Mapping[str, int], resu
         loo_rmse = candidate_rmse(samples.xy, samples.values, [c.covariance for c in result.candidates],
                                   result.mean, progress=progress_callback(feedback, FIT_PERCENT_WITH_REPORT, 99.0),
                                   should_stop=feedback.isCanceled)
+    except FieldcastUsageError:
+        raise  # a programming error: processAlgorithm reports it as an internal error
     except FieldcastError as error:  # too few samples for leave-one-out: the report shows dashes
         feedback.pushWarning(f"The report shows no leave-one-out RMSE: {error}")
         loo_rmse = None

@@ -230,9 +230,7 @@ class SimulateAlgorithm(RasterAlgorithm):
     @staticmethod
     def log_unresolved(result: SimulationResult, inside: np.ndarray | None, feedback) -> None:
         """Count the cells (of the mask) that local conditioning left nodata; nothing when there are none."""
-        unresolved = result.unresolved
-        if unresolved and inside is not None:
-            unresolved = int(np.count_nonzero(np.isnan(result.realisations[0]) & inside))
+        unresolved = result.unresolved_cells(inside)
         if unresolved:
             feedback.pushWarning(f"{unresolved:,} cell(s) are nodata in every realisation: fewer samples "
                                  "than the mean model needs lie within SEARCH_RADIUS of them (or their neighbours "

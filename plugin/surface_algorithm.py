@@ -19,6 +19,7 @@ from ..algorithms import (
     CONDITION_ADVICE,
     ExtrapolationCheck,
     FieldcastError,
+    FieldcastUsageError,
     FieldRasters,
     GridSpec,
     LocalKrigingPredictor,
@@ -55,6 +56,8 @@ def log_gap(predictor: LocalKrigingPredictor, xy: np.ndarray, values: np.ndarray
         return
     try:
         gap = neighbourhood_gap(predictor, xy, values, targets)
+    except FieldcastUsageError:
+        raise  # a programming error: processAlgorithm reports it as an internal error
     except FieldcastError as exc:
         feedback.pushInfo(f"Neighbourhood check skipped: {exc}")
         return

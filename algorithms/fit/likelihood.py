@@ -51,7 +51,7 @@ from scipy.linalg import blas, lapack
 
 from ..errors import Cancelled, FieldcastError
 from ..io.samples import check_samples
-from ..linalg.condition_policy import FIT_CONDITION_ADVICE, jittered_cholesky
+from ..linalg.condition_policy import FIT_CONDITION_ADVICE, checked_cholesky, jittered_cholesky
 from ..model.covariance import CovarianceModel
 from ..model.mean import MeanModel
 from ..model.parameters import ParameterLayout, covariance_derivatives
@@ -60,6 +60,26 @@ LIKELIHOOD_METHODS = ("reml", "ml")
 """Likelihoods this module evaluates."""
 
 LOG_2PI = math.log(2.0 * math.pi)
+
+TREND_WHAT = "trend's matrix of the likelihood (F^T K^-1 F, the precision of the trend coefficients)"
+OVERFLOW_REMEDY = ("The covariance model is numerically singular at these samples: merge samples at the same "
+                   "location, choose a less smooth KERNEL in 'Fit covariance model', or, for an attribute with a tiny "
+                   "variance, rescale it to larger numbers (finer units).")
+"""What to change when a likelihood's solves overflow or lose the trend (exact and Vecchia likelihoods)."""
+
+
+def check_finite_terms(*terms: np.ndarray | float) -> None:
+    """Refuse a likelihood evaluation whose solves overflowed (an infinite or missing value in ``terms``).
+
+    Raises
+    ------
+    FieldcastError
+        If any entry of ``terms`` is not finite.
+    """
+    if not all(np.all(np.isfinite(term)) for term in terms):
+        raise FieldcastError("The likelihood could not be evaluated in double precision (a solve overflowed). "
+                             + OVERFLOW_REMEDY)
+
 
 @dataclass(frozen=True)
 class MeanBasis:
@@ -198,11 +218,13 @@ class GlsSolution:
         log_det_k = 2.0 * float(np.sum(np.log(np.diag(factor[0]))))
         solved_y = linalg.cho_solve(factor, y, check_finite=False)
         if not basis.q.shape[1]:
+            check_finite_terms(log_det_k, solved_y)
             return cls(factor, jitter, log_det_k, basis.q, None, 0.0, np.zeros((0,) + y.shape[1:]), solved_y)
         solved_q = linalg.cho_solve(factor, basis.q, check_finite=False)
-        gram_factor = linalg.cho_factor(basis.q.T @ solved_q, lower=True, check_finite=False)
+        gram_factor = checked_cholesky(basis.q.T @ solved_q, TREND_WHAT, OVERFLOW_REMEDY)
         beta = linalg.cho_solve(gram_factor, basis.q.T @ solved_y, check_finite=False)
         log_det_gram = 2.0 * float(np.sum(np.log(np.diag(gram_factor[0])))) + basis.log_det_r_squared
+        check_finite_terms(log_det_k, log_det_gram, beta, solved_y)
         return cls(factor, jitter, log_det_k, solved_q, gram_factor, log_det_gram, beta, solved_y - solved_q @ beta)
 
     def precision(self, method: str) -> np.ndarray:

@@ -198,19 +198,16 @@ def empirical_semivariogram(
 
 def directional_semivariograms(
     xy: np.ndarray, values: np.ndarray, azimuths: tuple[float, ...] = (0, 45, 90, 135),
-    tolerance: float = 22.5, **kw: int | float | None,
+    tolerance: float = 22.5, *, n_lags: int = 15, cutoff: float | None = None,
 ) -> list[EmpiricalVariogram]:
     """Directional semivariograms, one per azimuth, from a single pass over the sample pairs.
 
-    ``kw`` takes ``n_lags`` and ``cutoff`` as in :func:`empirical_semivariogram`.
+    ``n_lags`` and ``cutoff`` are as in :func:`empirical_semivariogram`.
     """
-    unknown = set(kw) - {"n_lags", "cutoff"}
-    if unknown:
-        raise TypeError(f"Unexpected keyword argument(s): {', '.join(sorted(unknown))}.")
     if not len(azimuths):
         raise FieldcastError("Give at least one azimuth for directional semivariograms.")
     directions = [(_check_direction(a, tolerance), float(tolerance)) for a in azimuths]
-    return _semivariograms(xy, values, directions, kw.get("n_lags", 15), kw.get("cutoff"))
+    return _semivariograms(xy, values, directions, n_lags, cutoff)
 
 
 def residual_semivariograms(xy: np.ndarray, residuals: np.ndarray) -> list[EmpiricalVariogram]:

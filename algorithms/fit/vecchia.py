@@ -66,11 +66,11 @@ from scipy.spatial import cKDTree
 from ..errors import Cancelled, FieldcastError
 from ..io.samples import check_samples
 from ..linalg.batched import back_substitution, cholesky_stack, forward_substitution
-from ..linalg.condition_policy import FIT_CONDITION_ADVICE
+from ..linalg.condition_policy import FIT_CONDITION_ADVICE, checked_cholesky
 from ..model.covariance import CovarianceModel, Structure, search_frame
 from ..model.mean import MeanModel
 from ..model.parameters import ParameterLayout, covariance_derivatives
-from .likelihood import LIKELIHOOD_METHODS, LOG_2PI, MeanBasis
+from .likelihood import LIKELIHOOD_METHODS, LOG_2PI, OVERFLOW_REMEDY, TREND_WHAT, MeanBasis, check_finite_terms
 
 DEFAULT_NEIGHBOURS = 30
 """Conditioning-set size ``m`` (Datta et al. 2016 find 15-25 enough in their examples, from memory; common practice)."""
@@ -303,12 +303,13 @@ class VecchiaData:
         value = float(np.sum(np.log(d)))
         beta = np.zeros(0)
         if p:
-            gram = linalg.cho_factor(white_q.T @ white_q, lower=True, check_finite=False)
+            gram = checked_cholesky(white_q.T @ white_q, TREND_WHAT, OVERFLOW_REMEDY)
             beta = linalg.cho_solve(gram, white_q.T @ white_y, check_finite=False)
             if self.method == "reml":
                 value += 2.0 * float(np.sum(np.log(np.diag(gram[0])))) + self.basis.log_det_r_squared
         residual = white_y - white_q @ beta
         value += float(residual @ residual) + self.basis.contrasts(self.method) * LOG_2PI
+        check_finite_terms(value, beta)
         if layout is None:
             return VecchiaTerms(value, beta, None)
         trend_weight = None

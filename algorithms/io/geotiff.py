@@ -25,7 +25,7 @@ from collections.abc import Iterator, Mapping, Sequence
 import numpy as np
 from osgeo import gdal
 
-from ..errors import FieldcastError
+from ..errors import FieldcastError, FieldcastUsageError
 from ..version import __version__
 from .crs import to_wkt2
 from .grid import GridSpec
@@ -87,7 +87,7 @@ def metadata_items(metadata: Mapping[str, object] | None) -> dict[str, str]:
     items = {VERSION_KEY: __version__}
     for key, value in (metadata or {}).items():
         if not isinstance(key, str) or not key or "=" in key or any(c.isspace() for c in key):
-            raise ValueError(f"metadata key {key!r} must be non-empty text without spaces or '='")
+            raise FieldcastUsageError(f"metadata key {key!r} must be non-empty text without spaces or '='")
         items[key] = value if isinstance(value, str) else json.dumps(value)
     return items
 
@@ -130,7 +130,7 @@ class GeoTiffWriter:
             raise FieldcastError(f"A GeoTIFF holds 1 to {MAX_BANDS:,} bands; {n_bands:,} were asked for. Write "
                                  "fewer bands (fewer realisations) per file.")
         if descriptions is not None and len(descriptions) != n_bands:
-            raise ValueError(f"{len(descriptions)} descriptions given for {n_bands} bands")
+            raise FieldcastUsageError(f"{len(descriptions)} descriptions given for {n_bands} bands")
         self.path = os.path.abspath(os.fspath(path))
         self.grid = grid
         self.n_bands = n_bands
@@ -175,18 +175,18 @@ class GeoTiffWriter:
         (multiples of 256 rows) write fastest.
         """
         if self._dataset is None:
-            raise ValueError("the writer is closed (committed or aborted)")
+            raise FieldcastUsageError("the writer is closed (committed or aborted)")
         if not 0 <= band_index < self.n_bands:
-            raise ValueError(f"band_index {band_index} is outside 0..{self.n_bands - 1}")
+            raise FieldcastUsageError(f"band_index {band_index} is outside 0..{self.n_bands - 1}")
         with np.errstate(over="ignore"):  # beyond the Float32 range: infinity, stored as nodata below
             values = np.array(array, dtype=np.float32)
         if values.ndim == 1 and values.size % self.grid.n_cols == 0:
             values = values.reshape(-1, self.grid.n_cols)
         if values.ndim != 2 or values.shape[1] != self.grid.n_cols:
-            raise ValueError(f"expected rows of {self.grid.n_cols} values, got shape {np.shape(array)}")
+            raise FieldcastUsageError(f"expected rows of {self.grid.n_cols} values, got shape {np.shape(array)}")
         row_stop = row_start + values.shape[0]
         if not 0 <= row_start <= row_stop <= self.grid.n_rows:
-            raise ValueError(f"rows {row_start}..{row_stop - 1} are outside 0..{self.grid.n_rows - 1}")
+            raise FieldcastUsageError(f"rows {row_start}..{row_stop - 1} are outside 0..{self.grid.n_rows - 1}")
         values[~np.isfinite(values)] = NODATA
         try:
             with gdal_errors(f"write band {band_index + 1} of {self.path}"):
@@ -208,12 +208,12 @@ class GeoTiffWriter:
             If GDAL cannot finish the file or it cannot be moved into place.
         """
         if self._dataset is None:
-            raise ValueError("the writer is closed (committed or aborted)")
+            raise FieldcastUsageError("the writer is closed (committed or aborted)")
         missing = np.argwhere(~self._rows_written)
         if len(missing):
             self.abort()
             band, row = missing[0]
-            raise ValueError(f"{len(missing)} band rows were never written, first band {band} row {row}")
+            raise FieldcastUsageError(f"{len(missing)} band rows were never written, first band {band} row {row}")
         try:
             with gdal_errors(f"finish {self.path}"):
                 self._dataset.FlushCache()

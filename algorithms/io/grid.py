@@ -17,7 +17,7 @@ from dataclasses import dataclass
 import numpy as np
 from scipy.spatial import cKDTree
 
-from ..errors import FieldcastError
+from ..errors import FieldcastError, FieldcastUsageError
 
 READABLE_MANTISSAS = (1.0, 2.0, 2.5, 5.0, 10.0)
 SNAP_TOLERANCE = 1e-9  # relative; absorbs float noise so 3.0000000001 cells snap to 3
@@ -186,7 +186,7 @@ class GridSpec:
         """
         row_stop = self.n_rows if row_stop is None else row_stop
         if not 0 <= row_start <= row_stop <= self.n_rows:
-            raise ValueError(f"rows {row_start}..{row_stop} are outside 0..{self.n_rows}")
+            raise FieldcastUsageError(f"rows {row_start}..{row_stop} are outside 0..{self.n_rows}")
         xs = self.x_min + (np.arange(self.n_cols) + 0.5) * self.pixel_size
         ys = self.y_max - (np.arange(row_start, row_stop) + 0.5) * self.pixel_size
         grid_x, grid_y = np.meshgrid(xs, ys)

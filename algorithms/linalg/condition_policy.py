@@ -57,6 +57,10 @@ reasons given:
   (Higham 2002, theorem 10.3); so a set fails only for a model given from
   outside with a (near) zero nugget and near-duplicate samples, and that model
   is refused rather than changed.
+* The trend's Gram matrix of both likelihoods (``F^T K^-1 F``, a few rows) goes
+  through :func:`checked_cholesky`: no jitter, a :class:`FieldcastError` when
+  the solves before it overflowed (variances near the double-precision limit,
+  near-duplicate samples without nugget) and left it non-finite or indefinite.
 * Square roots for drawing Gaussian values (:func:`..simulate.circulant.covariance_factor`:
   the Cholesky lattice and the residual of the sample draw) need ``L L^T = K``,
   not a solve, so ill-conditioning does not amplify errors there; a matrix
@@ -176,6 +180,33 @@ def warning_text(what: str, estimate: float) -> str | None:
             f"relative {UNIT_ROUNDOFF / estimate:.0e} of accuracy), so predictions can stray far from the data. "
             + CONDITION_ADVICE)
 
+
+
+def checked_cholesky(matrix: np.ndarray, what: str, remedy: str) -> tuple[np.ndarray, bool]:
+    """Lower Cholesky factor of a symmetric matrix that must factorise as it is (no jitter), else a refusal.
+
+    For the small Gram matrix of the trend in both likelihoods (``F^T K^-1 F`` of the exact one,
+    ``G^T D^-1 G`` of the Vecchia one): positive definite whenever the covariance solves before it
+    are finite, so a failure means those solves overflowed or lost the trend (variances too small for
+    double precision, near-duplicate samples without nugget), and it is refused like a Vecchia
+    conditioning set rather than changed.
+
+    Returns
+    -------
+    tuple
+        As from ``scipy.linalg.cho_factor(..., lower=True)``.
+
+    Raises
+    ------
+    FieldcastError
+        If ``matrix`` has an infinite or missing entry, or is not numerically positive definite.
+    """
+    if np.all(np.isfinite(matrix)):
+        try:
+            return linalg.cho_factor(matrix, lower=True, check_finite=False)
+        except linalg.LinAlgError:
+            pass
+    raise FieldcastError(f"The {what} could not be factorised in double precision. {remedy}")
 
 
 def jittered_cholesky(matrix: np.ndarray, what: str, remedy: str) -> tuple[tuple[np.ndarray, bool], float]:

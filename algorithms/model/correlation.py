@@ -29,7 +29,7 @@ from functools import lru_cache
 import numpy as np
 from scipy import optimize, special
 
-from ..errors import FieldcastError
+from ..errors import FieldcastError, FieldcastUsageError
 
 FAMILIES = ("exponential", "gaussian", "spherical", "matern32", "matern52", "matern")
 """Names of the covariance families a structure may use."""
@@ -117,7 +117,7 @@ def correlation(family: str, r: np.ndarray, smoothness: float | None = None) -> 
         check_family(family, smoothness)
         return _matern_general(r, float(smoothness))
     check_family(family, smoothness)
-    raise AssertionError("unreachable")
+    raise FieldcastUsageError(f"The family {family!r} is in FAMILIES but has no formula here.")
 
 
 def correlation_derivative(
@@ -144,7 +144,7 @@ def correlation_derivative(
         check_family(family, smoothness)
         return _matern_general_derivative(r, float(smoothness))
     check_family(family, smoothness)
-    raise AssertionError("unreachable")
+    raise FieldcastUsageError(f"The family {family!r} is in FAMILIES but has no formula here.")
 
 
 @lru_cache(maxsize=256)

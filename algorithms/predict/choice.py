@@ -4,11 +4,13 @@ Every toolbox algorithm that krigs (predict, predictmany, crossvalidate, simulat
 reads its NEIGHBOURS (0 = every sample) and SEARCH_RADIUS (empty = no limit) into a
 :class:`Neighbourhood`, which checks them once (:meth:`Neighbourhood.resolved`) and,
 for the surface algorithms, builds the global or local predictor
-(:func:`choose_predictor`). Both return the log lines to show, as :class:`LogLine`
+(:func:`choose_predictor`), for crossvalidate runs the global or local leave-one-out
+(:func:`cross_validate_with`, by the same rules). All three return the log lines to show, as :class:`LogLine`
 values, so the plugin only passes them on.
 """
 from __future__ import annotations
 
+from collections.abc import Callable
 from dataclasses import dataclass
 
 import numpy as np
@@ -16,6 +18,7 @@ import numpy as np
 from ..errors import FieldcastError
 from ..model.covariance import CovarianceModel
 from ..model.mean import MeanModel
+from .crossval import CrossValidation, leave_one_out, local_leave_one_out
 from .kriging import KrigingPredictor
 from .local import LocalKrigingPredictor
 
@@ -82,6 +85,22 @@ class Neighbourhood:
         return self.neighbours, lines
 
 
+def _run_neighbours(neighbourhood: Neighbourhood, mean: MeanModel, count: int, per: str, *, support: str = "point",
+                    pool: str = "every sample") -> tuple[int, list[LogLine]]:
+    """NEIGHBOURS checked (:meth:`Neighbourhood.resolved`), 0 turned into :data:`AUTOMATIC_NEIGHBOURS` above
+    :data:`GLOBAL_SAMPLE_LIMIT` samples with point support, and the log lines that say so."""
+    neighbours, lines = neighbourhood.resolved(mean, per, pool=pool)
+    if neighbours == 0 and count > GLOBAL_SAMPLE_LIMIT and support == "point":
+        neighbours = AUTOMATIC_NEIGHBOURS
+        lines.append(LogLine("info", f"NEIGHBOURS is 0 but there are {count:,} samples, more than the "
+                                     f"{GLOBAL_SAMPLE_LIMIT:,} kriged all together: each {per} uses its {neighbours} "
+                                     "nearest samples instead. Set NEIGHBOURS to choose another number."))
+    elif neighbours == 0 and count > GLOBAL_SAMPLE_LIMIT:
+        lines.append(LogLine("warning", f"Cell support krigs all {count:,} samples together, which is slow and "
+                                        "memory-hungry at this size; point support would use local neighbourhoods."))
+    return neighbours, lines
+
+
 def choose_predictor(xy: np.ndarray, values: np.ndarray, covariance: CovarianceModel, mean: MeanModel,
                      neighbourhood: Neighbourhood, *, support: str = "point", units: str = "metre",
                      per: str = "cell") -> tuple[KrigingPredictor | LocalKrigingPredictor, list[LogLine]]:
@@ -112,16 +131,8 @@ def choose_predictor(xy: np.ndarray, values: np.ndarray, covariance: CovarianceM
     FieldcastError
         If NEIGHBOURS is too small for the mean model, or local kriging is asked for cell support.
     """
-    neighbours, lines = neighbourhood.resolved(mean, per)
     count = len(values)
-    if neighbours == 0 and count > GLOBAL_SAMPLE_LIMIT and support == "point":
-        neighbours = AUTOMATIC_NEIGHBOURS
-        lines.append(LogLine("info", f"NEIGHBOURS is 0 but there are {count:,} samples, more than the "
-                                     f"{GLOBAL_SAMPLE_LIMIT:,} kriged all together: each {per} uses its {neighbours} "
-                                     "nearest samples instead. Set NEIGHBOURS to choose another number."))
-    elif neighbours == 0 and count > GLOBAL_SAMPLE_LIMIT:
-        lines.append(LogLine("warning", f"Cell support krigs all {count:,} samples together, which is slow and "
-                                        "memory-hungry at this size; point support would use local neighbourhoods."))
+    neighbours, lines = _run_neighbours(neighbourhood, mean, count, per, support=support)
     if neighbours == 0:
         lines.append(LogLine("info", f"Kriging from all {count} samples."))
         predictor = KrigingPredictor(xy, values, covariance, mean)
@@ -133,3 +144,50 @@ def choose_predictor(xy: np.ndarray, values: np.ndarray, covariance: CovarianceM
                                  f"samples{search_words(neighbourhood.search_radius, units)}."))
     return LocalKrigingPredictor(xy, values, covariance, mean, neighbours=neighbours,
                                  search_radius=neighbourhood.search_radius), lines
+
+
+def cross_validate_with(xy: np.ndarray, values: np.ndarray, covariance: CovarianceModel, mean: MeanModel,
+                        neighbourhood: Neighbourhood, *, units: str = "metre",
+                        progress: Callable[[float], None] | None = None,
+                        should_stop: Callable[[], bool] | None = None) -> tuple[CrossValidation, list[LogLine]]:
+    """Leave-one-out of a run, global (closed form) or local by the same rules as :func:`choose_predictor`,
+    and the log lines that say which and how many samples got no prediction.
+
+    With NEIGHBOURS 0 each sample is predicted from every other one (:func:`.crossval.leave_one_out`),
+    except above :data:`GLOBAL_SAMPLE_LIMIT` samples, where each uses its :data:`AUTOMATIC_NEIGHBOURS`
+    nearest (:func:`.crossval.local_leave_one_out`, as are all runs with NEIGHBOURS > 0).
+
+    Parameters
+    ----------
+    xy, values, covariance, mean, neighbourhood
+        As for :func:`choose_predictor` (one field of values).
+    units : str
+        Working CRS unit, for the log.
+    progress, should_stop : callable, optional
+        Progress (fraction) and cancel of the local leave-one-out.
+
+    Raises
+    ------
+    FieldcastError
+        If NEIGHBOURS is too small for the mean model, or no sample has enough other samples within
+        SEARCH_RADIUS.
+    """
+    count = len(values)
+    neighbours, lines = _run_neighbours(neighbourhood, mean, count, "sample", pool="every other sample")
+    if neighbours == 0:
+        return leave_one_out(xy, values, covariance, mean), lines
+    search_radius = neighbourhood.search_radius
+    lines.append(LogLine("info", f"Local leave-one-out: each sample from its {min(neighbours, count - 1)} nearest "
+                                 f"other samples{search_words(search_radius, units)}."))
+    result = local_leave_one_out(xy, values, covariance, mean, neighbours=neighbours, search_radius=search_radius,
+                                 progress=progress, should_stop=should_stop)
+    unresolved = count - result.summary()["n"]
+    if unresolved == count:
+        raise FieldcastError("No sample has enough other samples within SEARCH_RADIUS to be predicted. "
+                             "Enlarge SEARCH_RADIUS, or leave it empty.")
+    if unresolved:
+        lines.append(LogLine("warning", f"{unresolved:,} sample(s) have too few other samples within SEARCH_RADIUS "
+                                        "(or neighbours that make a singular system): they get no prediction and are "
+                                        "left out of the summary. Enlarge SEARCH_RADIUS, or leave it empty, to "
+                                        "include them."))
+    return result, lines

@@ -37,6 +37,7 @@ import math
 import numpy as np
 from scipy import linalg
 
+from ..errors import FieldcastUsageError
 from ..io.grid import GridSpec
 from ..linalg.condition_policy import jittered_cholesky
 from ..model.covariance import CovarianceModel
@@ -82,7 +83,7 @@ def choose_neighbourhood(grid: GridSpec, xy: np.ndarray) -> tuple[np.ndarray, np
         distinct = len(np.unique(np.stack([rows.ravel(), cols.ravel()]), axis=1)[0])
         if distinct <= MAX_CONDITIONING_NODES or side == 1:
             return rows, cols
-    raise AssertionError("unreachable")
+    raise FieldcastUsageError(f"NEIGHBOURHOOD_SIDES {NEIGHBOURHOOD_SIDES} must end with 1.")
 
 
 class SampleDraw:
@@ -112,7 +113,7 @@ class SampleDraw:
     def __init__(self, covariance: CovarianceModel, lattice: GridSpec, xy: np.ndarray,
                  rows: np.ndarray, cols: np.ndarray) -> None:
         if rows.min() < 0 or cols.min() < 0 or rows.max() >= lattice.n_rows or cols.max() >= lattice.n_cols:
-            raise ValueError("sample neighbourhoods must lie inside the simulation lattice")
+            raise FieldcastUsageError("sample neighbourhoods must lie inside the simulation lattice")
         self.covariance = covariance
         self.lattice = lattice
         self.xy = np.asarray(xy, dtype=float)

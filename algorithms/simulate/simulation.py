@@ -87,6 +87,16 @@ class SimulationResult:
     unresolved: int = 0
     notes: list[str] = field(default_factory=list)
 
+    def unresolved_cells(self, mask: np.ndarray | None = None) -> int:
+        """Cells left NaN in every realisation, counted inside ``mask`` (bool, grid shape) when given.
+
+        Without a mask this is :attr:`unresolved`; with one, only the unresolved cells the mask keeps
+        (those a masked output would show), so the log does not count cells written as nodata anyway.
+        """
+        if not self.unresolved or mask is None:
+            return self.unresolved
+        return int(np.count_nonzero(np.isnan(self.realisations[0]) & np.asarray(mask, dtype=bool)))
+
 
 def simulation_lattice(grid: GridSpec, rows: np.ndarray, cols: np.ndarray) -> tuple[GridSpec, int, int]:
     """The grid extended on its own alignment to hold the given node indices.

@@ -12,6 +12,7 @@ from sklearn.gaussian_process.kernels import RBF, ConstantKernel, Matern, WhiteK
 
 from fieldcast.algorithms.errors import FieldcastError
 from fieldcast.algorithms.fit.likelihood import LikelihoodObjective, MeanBasis, evaluate_model, log_likelihood
+from fieldcast.algorithms.fit.vecchia import vecchia_log_likelihood
 from fieldcast.algorithms.model.covariance import CovarianceModel, Structure
 from fieldcast.algorithms.model.mean import MeanModel
 from fieldcast.algorithms.model.parameters import ParameterLayout
@@ -160,6 +161,27 @@ def test_coincident_samples_without_nugget_get_jitter_and_a_warning():
     with pytest.warns(RuntimeWarning, match="positive definite"):
         value = log_likelihood(xy, values, model, MeanModel.for_data("constant", xy))
     assert math.isfinite(value)
+
+
+@pytest.mark.parametrize("likelihood, partial_sill, nugget, words", [
+    # K^-1 overflows, so the trend's Gram matrix F^T K^-1 F (G^T D^-1 G for Vecchia) is not finite
+    (log_likelihood, 1e-310, 1e-320, "trend's matrix of the likelihood"),
+    (vecchia_log_likelihood, 1e-310, 1e-320, "trend's matrix of the likelihood"),
+    # a finite trend matrix, but K^-1 y overflows
+    (log_likelihood, 1e-300, 1e-310, "could not be evaluated in double precision"),
+])
+def test_solves_that_overflow_are_refused_with_advice(likelihood, partial_sill, nugget, words):
+    # A duplicate location and variances near the smallest double (2.2e-308, IEEE 754) make the solves of
+    # both likelihoods overflow; the user is told what to change instead of meeting an internal error.
+    xy, values = scattered_samples(30, seed=7)
+    xy = np.vstack([xy, xy[:1]])
+    values = np.append(values, values[0] + 0.1)
+    model = CovarianceModel((Structure("exponential", partial_sill, 300.0),), nugget)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", RuntimeWarning)  # the jitter warning and numpy's overflow warnings
+        with pytest.raises(FieldcastError, match=words) as refusal:
+            likelihood(xy, values, model, MeanModel.for_data("constant", xy))
+    assert "use a model with a nugget" in str(refusal.value)
 
 
 def test_well_posed_model_gives_no_warning():

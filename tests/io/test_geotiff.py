@@ -8,7 +8,7 @@ import numpy as np
 import pytest
 from osgeo import gdal
 
-from fieldcast.algorithms.errors import FieldcastError
+from fieldcast.algorithms.errors import FieldcastError, FieldcastUsageError
 from fieldcast.algorithms.io import geotiff
 from fieldcast.algorithms.io.crs import same_crs, to_wkt2
 from fieldcast.algorithms.io.geotiff import NODATA, GeoTiffWriter, gdal_errors, write_geotiff
@@ -108,7 +108,7 @@ def test_incomplete_commit_is_refused_and_discarded(tmp_path):
     with GeoTiffWriter(tmp_path / "out.tif", GRID, 2, RD_NEW) as writer:
         writer.write_block(0, 0, bands[0])
         writer.write_block(1, 0, bands[1, :299])
-        with pytest.raises(ValueError, match="first band 1 row 299"):
+        with pytest.raises(FieldcastUsageError, match="first band 1 row 299"):
             writer.commit()
     assert os.listdir(tmp_path) == []
 
@@ -136,11 +136,11 @@ def test_bad_destinations(tmp_path, monkeypatch):
 
 def test_bad_blocks_are_rejected(tmp_path):
     with GeoTiffWriter(tmp_path / "out.tif", GRID, 1, RD_NEW) as writer:
-        with pytest.raises(ValueError, match="band_index 1"):
+        with pytest.raises(FieldcastUsageError, match="band_index 1"):
             writer.write_block(1, 0, np.zeros((1, 270)))
-        with pytest.raises(ValueError, match="rows of 270 values"):
+        with pytest.raises(FieldcastUsageError, match="rows of 270 values"):
             writer.write_block(0, 0, np.zeros((1, 269)))
-        with pytest.raises(ValueError, match="outside 0..299"):
+        with pytest.raises(FieldcastUsageError, match="outside 0..299"):
             writer.write_block(0, 299, np.zeros((2, 270)))
     assert os.listdir(tmp_path) == []
 

@@ -6,7 +6,7 @@ import pytest
 from osgeo import gdal
 from sklearn.neighbors import NearestNeighbors
 
-from fieldcast.algorithms.errors import FieldcastError
+from fieldcast.algorithms.errors import FieldcastError, FieldcastUsageError
 from fieldcast.algorithms.io.grid import (
     GridSpec,
     check_extent_reach,
@@ -47,7 +47,7 @@ def test_cell_centre_blocks_concatenate_to_the_whole_grid():
     blocks = [grid.cell_centres(start, min(start + 3, 7)) for start in range(0, 7, 3)]
     np.testing.assert_array_equal(np.vstack(blocks), grid.cell_centres())
     assert grid.cell_centres(2, 2).shape == (0, 2)
-    with pytest.raises(ValueError):
+    with pytest.raises(FieldcastUsageError):
         grid.cell_centres(5, 8)
 
 

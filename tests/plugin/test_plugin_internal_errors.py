@@ -45,6 +45,25 @@ def test_an_unexpected_engine_failure_is_reported_without_leaving_files(qgis_pro
     assert list(tmp_path.iterdir()) == []
 
 
+def misused_fit(*args, **kwargs):
+    """Stands in for the engine's fit and breaks a function's contract, as a bug in a caller would."""
+    raise importlib.import_module(f"{PACKAGE_NAME}.algorithms.errors").FieldcastUsageError("rows 5..8 are outside 0..7")
+
+
+def test_a_broken_contract_is_an_internal_error_not_advice(qgis_processing, meuse, monkeypatch, tmp_path):  # noqa: F811
+    # A FieldcastUsageError is a FieldcastError, but no user input causes it: the user sees "Internal error".
+    monkeypatch.setattr(importlib.import_module(f"{PACKAGE_NAME}.plugin.model_source"), "fit_with", misused_fit)
+    feedback = LoggingFeedback()
+    with pytest.raises(QgsProcessingException) as error:
+        qgis_processing.run("fieldcast:fitmodel", {
+            "INPUT": point_layer(meuse.xy, {"zinc": meuse.zinc}), "FIELD": "zinc",
+            "OUTPUT_MODEL": str(tmp_path / "zinc.json")}, feedback=feedback)
+    assert str(error.value) == ("Internal error in Fit covariance model: FieldcastUsageError: rows 5..8 are outside "
+                                "0..7. Please report it; the details are in the log.")
+    assert any("in misused_fit" in text for text in feedback.errors)
+    assert list(tmp_path.iterdir()) == []
+
+
 class FullDiskSink(QgsFeatureSink):
     """A sink that takes ``accepted`` features and then refuses every further one, as a full disk would."""
 

@@ -13,6 +13,9 @@ from fieldcast.algorithms import (
     Neighbourhood,
     Structure,
     choose_predictor,
+    cross_validate_with,
+    leave_one_out,
+    local_leave_one_out,
 )
 from fieldcast.algorithms.predict import choice
 
@@ -64,3 +67,41 @@ def test_local_cell_support_is_refused(meuse):
 def test_cross_validation_pool_words():
     _, lines = Neighbourhood(0, 100.0).resolved(MeanModel("constant"), "sample", pool="every other sample")
     assert lines[0].text == "SEARCH_RADIUS is ignored: every other sample is used (NEIGHBOURS is 0)."
+
+
+def test_cross_validation_with_neighbours_zero_is_the_closed_form(meuse):
+    mean = MeanModel.for_data("constant", meuse.xy)
+    values = np.log(meuse.zinc)
+    result, lines = cross_validate_with(meuse.xy, values, MODEL, mean, Neighbourhood(0, 300.0))
+    np.testing.assert_array_equal(result.residual, leave_one_out(meuse.xy, values, MODEL, mean).residual)
+    assert [line.text for line in lines] == ["SEARCH_RADIUS is ignored: every other sample is used (NEIGHBOURS is 0)."]
+
+
+def test_local_cross_validation_says_its_neighbours_and_the_samples_left_out(meuse):
+    mean = MeanModel.for_data("constant", meuse.xy)
+    values = np.log(meuse.zinc)
+    result, lines = cross_validate_with(meuse.xy, values, MODEL, mean, Neighbourhood(16, 150.0), units="metre")
+    expected = local_leave_one_out(meuse.xy, values, MODEL, mean, neighbours=16, search_radius=150.0)
+    np.testing.assert_array_equal(result.residual, expected.residual)
+    unresolved = int(np.count_nonzero(~expected.resolved_rows))
+    assert 0 < unresolved < len(values)  # a 150 m search leaves some Meuse samples with fewer than 2 others
+    assert lines[0] == choice.LogLine("info", "Local leave-one-out: each sample from its 16 nearest other samples "
+                                              "within 150 metre (along the major axis of the model's anisotropy).")
+    assert lines[1].level == "warning" and lines[1].text.startswith(f"{unresolved:,} sample(s) have too few")
+
+
+def test_cross_validation_refuses_a_radius_that_leaves_every_sample_out(meuse):
+    mean = MeanModel.for_data("constant", meuse.xy)
+    with pytest.raises(FieldcastError, match="No sample has enough other samples within SEARCH_RADIUS"):
+        cross_validate_with(meuse.xy, np.log(meuse.zinc), MODEL, mean, Neighbourhood(16, 1.0))
+
+
+def test_cross_validation_above_the_global_limit_goes_local(meuse, monkeypatch):
+    monkeypatch.setattr(choice, "GLOBAL_SAMPLE_LIMIT", 100)  # Meuse's 155 samples stand in for > 5,000
+    mean = MeanModel.for_data("constant", meuse.xy)
+    values = np.log(meuse.zinc)
+    result, lines = cross_validate_with(meuse.xy, values, MODEL, mean, Neighbourhood())
+    expected = local_leave_one_out(meuse.xy, values, MODEL, mean, neighbours=choice.AUTOMATIC_NEIGHBOURS)
+    np.testing.assert_array_equal(result.residual, expected.residual)
+    assert "each sample uses its 64 nearest samples instead" in lines[0].text
+    assert lines[1].text.startswith("Local leave-one-out: each sample from its 64 nearest other samples")

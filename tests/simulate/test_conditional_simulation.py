@@ -114,6 +114,12 @@ def test_cells_beyond_the_search_radius_are_nodata_and_left_out_of_summaries(meu
     assert np.isfinite(summary.mean[~missing[0]]).all()
     assert summary.mask_area == 160.0 ** 2 * (grid.n_cells - result.unresolved)
     np.testing.assert_allclose(summary.mask_mean, result.realisations[:, ~missing[0]].mean(axis=1))
+    # Counted inside a mask: the western half keeps only its own unresolved cells (counted by hand here).
+    west = np.zeros(missing[0].shape, dtype=bool)
+    west[:, : west.shape[1] // 2] = True
+    assert result.unresolved_cells() == result.unresolved
+    assert result.unresolved_cells(west) == int(missing[0][:, : west.shape[1] // 2].sum())
+    assert result.unresolved_cells(np.zeros_like(west)) == 0
 
 
 def test_data_on_cell_centres_are_honoured_exactly_without_nugget():
