@@ -117,7 +117,7 @@ def correlation(family: str, r: np.ndarray, smoothness: float | None = None) -> 
         check_family(family, smoothness)
         return _matern_general(r, float(smoothness))
     check_family(family, smoothness)
-    raise FieldcastUsageError(f"The family {family!r} is in FAMILIES but has no formula here.")
+    raise FieldcastUsageError(f"The family {family!r} is listed among the covariance families but has no formula here.")
 
 
 def correlation_derivative(
@@ -144,7 +144,7 @@ def correlation_derivative(
         check_family(family, smoothness)
         return _matern_general_derivative(r, float(smoothness))
     check_family(family, smoothness)
-    raise FieldcastUsageError(f"The family {family!r} is in FAMILIES but has no formula here.")
+    raise FieldcastUsageError(f"The family {family!r} is listed among the covariance families but has no formula here.")
 
 
 @lru_cache(maxsize=256)

@@ -181,7 +181,7 @@ def test_solves_that_overflow_are_refused_with_advice(likelihood, partial_sill, 
         warnings.simplefilter("ignore", RuntimeWarning)  # the jitter warning and numpy's overflow warnings
         with pytest.raises(FieldcastError, match=words) as refusal:
             likelihood(xy, values, model, MeanModel.for_data("constant", xy))
-    assert "use a model with a nugget" in str(refusal.value)
+    assert "choose a less smooth KERNEL" in str(refusal.value) and "rescale it" in str(refusal.value)
 
 
 def test_well_posed_model_gives_no_warning():
