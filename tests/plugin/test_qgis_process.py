@@ -303,6 +303,9 @@ def refusal_inputs(profile, meuse_layer, tmp_path_factory) -> dict[str, str]:
         "huge_sill": changed_model(folder, "huge_sill", document,
                                    lambda d: d["structures"][0].update(partial_sill=1e300)),
         "text_transform": changed_model(folder, "text_transform", document, lambda d: d.update(transform="log")),
+        "text_fit": changed_model(folder, "text_fit", document, lambda d: d.update(fit="reml")),
+        "nan_known_mean": changed_model(folder, "nan_known_mean", document, lambda d: d["mean"].update(
+            kind="known", known_value=float("nan"), coefficients=[])),
         # A partial sill of 1e50 (accepted: at most 1e100) puts every kriging variance beyond Float32 (about
         # 3.4e38, IEEE 754 single precision); 1e39 ppm^2 (no transform) with an exponential 20 m range and no
         # nugget does so away from the samples.
@@ -327,6 +330,15 @@ def file_digests(inputs: dict[str, str]) -> dict[str, str]:
     return {name: hashlib.sha256(Path(uri.split("|")[0]).read_bytes()).hexdigest() for name, uri in inputs.items()}
 
 
+def broken_model(algorithm: str, model: str, *fragments: str) -> tuple[str, dict, tuple[str, ...]]:
+    """A case of :data:`REFUSALS`: ``algorithm`` (predict or crossvalidate) on the Meuse zinc samples with the
+    broken model file ``model`` of refusal_inputs, refused with ``fragments`` and the advice to refit."""
+    output = "{out}/cv.gpkg" if algorithm == "fieldcast:crossvalidate" else "{out}/zinc.tif"
+    grid = {"PIXEL_SIZE": 400} if algorithm == "fieldcast:predict" else {}
+    return (algorithm, {"INPUT": "{samples}", "FIELD": "zinc", "MODEL": f"{{{model}}}", **grid, "OUTPUT": output},
+            (*fragments, "Refit the model with 'Fit covariance model'"))
+
+
 # Each case: algorithm, parameters ({name} = an input of refusal_inputs, {out} = the empty output folder), and
 # the fragments of the refusal that name the cause and the way out.
 REFUSALS = [
@@ -349,15 +361,11 @@ REFUSALS = [
      ("SEED (random seed) must be a whole number of 0 or more; got '-1'",)),
     ("fieldcast:fitmodel", {"INPUT": "{no_srs}", "FIELD": "depth", "OUTPUT_MODEL": "{out}/site.json"},
      ("The layer site has no defined CRS", "local engineering CRS")),
-    ("fieldcast:predict", {"INPUT": "{samples}", "FIELD": "zinc", "MODEL": "{nan_azimuth}", "PIXEL_SIZE": 400,
-                           "OUTPUT": "{out}/zinc.tif"},
-     ("structures[0].azimuth = nan", "a finite number of degrees", "Refit the model with 'Fit covariance model'")),
-    ("fieldcast:crossvalidate", {"INPUT": "{samples}", "FIELD": "zinc", "MODEL": "{huge_sill}",
-                                 "OUTPUT": "{out}/cv.gpkg"},
-     ("structures[0].partial_sill = 1e+300", "at most 1e+100", "Refit the model with 'Fit covariance model'")),
-    ("fieldcast:predict", {"INPUT": "{samples}", "FIELD": "zinc", "MODEL": "{text_transform}", "PIXEL_SIZE": 400,
-                           "OUTPUT": "{out}/zinc.tif"},
-     ('transform = "log"', "an object ({...})", "Refit the model with 'Fit covariance model'")),
+    broken_model("fieldcast:predict", "nan_azimuth", "structures[0].azimuth = nan", "a finite number of degrees"),
+    broken_model("fieldcast:crossvalidate", "huge_sill", "structures[0].partial_sill = 1e+300", "at most 1e+100"),
+    broken_model("fieldcast:predict", "text_transform", 'transform = "log"', "an object ({...})"),
+    broken_model("fieldcast:crossvalidate", "text_fit", 'fit = "reml"', "an object ({...})"),
+    broken_model("fieldcast:predict", "nan_known_mean", "mean.known_value = nan", "a finite number"),
     ("fieldcast:predict", {"INPUT": "{samples}", "FIELD": "zinc", "MODEL": "{float32_sill}", "PIXEL_SIZE": 400,
                            "OUTPUT": "{out}/zinc.tif", "OUTPUT_VARIANCE": "{out}/variance.tif"},
      ("The zinc variance raster(s) would be nodata at every cell", "Check the model's sill and partial sills")),
@@ -386,9 +394,9 @@ REFUSALS = [
 @pytest.mark.parametrize(("algorithm", "parameters", "fragments"), REFUSALS,
                          ids=["output-on-input", "two-outputs-one-file", "bad-model-file", "threshold-unused",
                               "extent-too-wide", "negative-seed", "geopackage-without-crs", "nan-azimuth",
-                              "huge-partial-sill", "transform-as-text", "variance-beyond-float32",
-                              "values-near-1e300", "realisations-beyond-geotiff-bands", "mask-without-crs",
-                              "empty-mask", "output-on-mask", "read-only-output"])
+                              "huge-partial-sill", "transform-as-text", "fit-as-text", "nan-known-mean",
+                              "variance-beyond-float32", "values-near-1e300", "realisations-beyond-geotiff-bands",
+                              "mask-without-crs", "empty-mask", "output-on-mask", "read-only-output"])
 def test_refusals_through_qgis_process_name_cause_and_way_out_and_touch_nothing(profile, refusal_inputs, tmp_path,
                                                                                algorithm, parameters, fragments):
     out = tmp_path / "out"
@@ -403,6 +411,7 @@ def test_refusals_through_qgis_process_name_cause_and_way_out_and_touch_nothing(
     assert "Traceback" not in run.messages
     assert list(out.iterdir()) == []
     assert file_digests(refusal_inputs) == before
+    assert Path(refusal_inputs["read_only"]).stat().st_mode & 0o777 == 0o444
 
 
 # Each case: algorithm, parameters (as for REFUSALS), the fragments the log must hold, and the files the run writes.
@@ -416,15 +425,20 @@ ODD_INPUTS_THAT_RUN = [
     ("fieldcast:predict", {"INPUT": "{samples}", "FIELD": "zinc", "MODEL": "{steep_model}", "PIXEL_SIZE": 100,
                            "OUTPUT": "{out}/zinc.tif", "OUTPUT_VARIANCE": "{out}/variance.tif"},
      ("The zinc variance raster is nodata at",), ("variance.tif", "zinc.tif")),
+    # EPSG:32633 (WGS 84 / UTM zone 33N) is defined from 12 to 18 degrees east (EPSG registry); Meuse lies near 5.7.
+    ("fieldcast:fitmodel", {"INPUT": "{samples}", "FIELD": "zinc", **FIT_SETTINGS, "TARGET_CRS": "EPSG:32633",
+                            "OUTPUT_MODEL": "{out}/utm33.json"},
+     ("155 of 155 samples lie outside the area of use",), ("utm33.json",)),
 ]
 
 
 @pytest.mark.parametrize(("algorithm", "parameters", "fragments", "written"), ODD_INPUTS_THAT_RUN,
-                         ids=["model-with-bom-and-crlf", "four-samples-with-report", "variance-mostly-nodata"])
+                         ids=["model-with-bom-and-crlf", "four-samples-with-report", "variance-mostly-nodata",
+                              "outside-the-crs-area-of-use"])
 def test_odd_inputs_through_qgis_process_run_and_say_what_is_odd(profile, refusal_inputs, tmp_path, algorithm,
                                                                  parameters, fragments, written):
     # Each used to be refused (a model file as Windows editors save it), crash (the report of 3-5 samples) or
-    # pass in silence (a variance raster mostly nodata).
+    # pass in silence (a variance raster mostly nodata, samples outside the working CRS's area of use).
     names = {**refusal_inputs, "out": str(tmp_path)}
     run = run_algorithm(profile, algorithm, {key: str(value).format(**names) for key, value in parameters.items()})
     assert run.returncode == 0, run.messages
