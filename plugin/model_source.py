@@ -2,6 +2,7 @@
 from __future__ import annotations
 
 from collections.abc import Callable
+from dataclasses import replace
 
 import numpy as np
 from qgis.core import QgsProcessingFeedback
@@ -28,9 +29,10 @@ def fit_document(xy: np.ndarray, values: np.ndarray, transform: Transform, worki
     """Fit a covariance and mean model and wrap it, with its CRS and transform, as a model document.
 
     ``xy`` is in the working CRS and ``values`` in the modelling scale (after ``transform``).
-    Returns the document and the engine's fit result (candidates and all), which the fit report reads.
+    Returns the document and the engine's fit result (candidates and all), which the fit report reads. The fit's
+    warnings give distances in the working CRS's units.
     """
-    result = fit_with(xy, values, settings, progress=progress, should_stop=should_stop)
+    result = fit_with(xy, values, replace(settings, units=working.units), progress=progress, should_stop=should_stop)
     return result_document(result, transform, working, field), result
 
 
@@ -49,7 +51,8 @@ def fit_shared_documents(xy: np.ndarray, values: np.ndarray, transform: Transfor
     See :mod:`..algorithms.fit.shared`: every document holds the shared model at its field's scale. Returns
     each field's document with its fit result, in the order of ``fields``.
     """
-    results = fit_shared(xy, values, settings, fields, progress=progress, should_stop=should_stop)
+    results = fit_shared(xy, values, replace(settings, units=working.units), fields, progress=progress,
+                         should_stop=should_stop)
     return [(result_document(result, transform, working, field), result) for result, field in zip(results, fields)]
 
 

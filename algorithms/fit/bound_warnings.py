@@ -30,20 +30,21 @@ def _structure_label(layout: ParameterLayout, name: str) -> str:
     return " of the short-range structure" if name.endswith("_1") else " of the long-range structure"
 
 
-def _message(layout: ParameterLayout, name: str, upper: bool, value: float, azimuth: float) -> str:
-    """The warning for parameter ``name`` on its lower or upper bound (``value`` in data units)."""
+def _message(layout: ParameterLayout, name: str, upper: bool, value: float, azimuth: float, units: str) -> str:
+    """The warning for parameter ``name`` on its lower or upper bound (``value`` in data units, a range in
+    ``units``)."""
     which = _structure_label(layout, name)
     single = " Or fit a single structure, as 'Fit covariance model' does." if layout.n_structures > 1 else ""
     if name.startswith("log_range"):
         if upper:
             return (
-                f"The range{which} hit its upper bound ({value:.4g} coordinate units, {RANGE_UPPER_FACTOR:g} times "
+                f"The range{which} hit its upper bound ({value:.4g} {units}, {RANGE_UPPER_FACTOR:g} times "
                 "the largest distance between samples): the data show no clear sill within the study area, and the "
                 "fit is close to a linear variogram, so range and sill are poorly determined. Try a trend (TREND "
                 "'linear' or 'quadratic') that takes up the large-scale change."
             )
         return (
-            f"The range{which} hit its lower bound ({value:.4g} coordinate units, {RANGE_LOWER_FRACTION:g} of the "
+            f"The range{which} hit its lower bound ({value:.4g} {units}, {RANGE_LOWER_FRACTION:g} of the "
             "smallest distance between samples): the correlation is shorter than the sample spacing, so it acts "
             f"as extra nugget. Denser sampling would be needed to resolve it.{single}"
         )
@@ -93,7 +94,8 @@ def _message(layout: ParameterLayout, name: str, upper: bool, value: float, azim
     )
 
 
-def bound_warnings(layout: ParameterLayout, theta: np.ndarray, bounds: list) -> list[str]:
+def bound_warnings(layout: ParameterLayout, theta: np.ndarray, bounds: list, units: str = "coordinate units"
+                   ) -> list[str]:
     """Warnings for every entry of ``theta`` within :data:`BOUND_TOLERANCE` of its bound or beyond it.
 
     Parameters
@@ -103,6 +105,8 @@ def bound_warnings(layout: ParameterLayout, theta: np.ndarray, bounds: list) -> 
         Parameter vector in the units of the data (log space, as packed by ``layout``).
     bounds : list of (low, high)
         From :func:`.parameters.parameter_bounds` for the same data units.
+    units : str
+        The coordinates' unit, for ranges in the messages (e.g. ``"metre"``).
     """
     azimuth = math.degrees(theta[layout.index("azimuth")]) % 180.0 if layout.anisotropy else 0.0
     messages = []
@@ -112,5 +116,5 @@ def bound_warnings(layout: ParameterLayout, theta: np.ndarray, bounds: list) -> 
                 continue
             beyond = value - limit if upper else limit - value  # >= 0 past the bound (fits not bounded by it)
             if beyond >= -BOUND_TOLERANCE:
-                messages.append(_message(layout, name, upper, math.exp(value), azimuth))
+                messages.append(_message(layout, name, upper, math.exp(value), azimuth, units))
     return messages

@@ -53,6 +53,7 @@ def unresolved_structure_warning(covariance: CovarianceModel, xy: np.ndarray, un
             "or sample more densely where the map matters."]
 
 
-def data_warnings(xy: np.ndarray, covariance: CovarianceModel) -> list[str]:
-    """:func:`sample_size_warning` and :func:`unresolved_structure_warning` of a chosen model."""
-    return sample_size_warning(len(xy)) + unresolved_structure_warning(covariance, xy)
+def data_warnings(xy: np.ndarray, covariance: CovarianceModel, units: str = "coordinate units") -> list[str]:
+    """:func:`sample_size_warning` and :func:`unresolved_structure_warning` of a chosen model (distances in
+    ``units``, the coordinates' unit)."""
+    return sample_size_warning(len(xy)) + unresolved_structure_warning(covariance, xy, units)

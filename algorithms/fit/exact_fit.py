@@ -33,13 +33,13 @@ from .search import ProgressSteps, SearchFit, SearchProblem, fit_family, planned
 from .variogram_fit import fit_wls
 
 
-def _candidate(problem: SearchProblem, fit: SearchFit) -> CandidateFit:
-    """A likelihood fit converted to data units, with its criteria and warnings."""
+def _candidate(problem: SearchProblem, fit: SearchFit, units: str) -> CandidateFit:
+    """A likelihood fit converted to data units, with its criteria and warnings (ranges in ``units``)."""
     model = problem.to_data_units(fit.layout.unpack(fit.theta))
     log_likelihood = problem.log_likelihood(fit.minus_two_log_likelihood)
     aic, bic, _ = information_criteria(problem, log_likelihood, fit.layout)
     bounds = parameter_bounds(fit.layout, problem.data_scales)
-    messages = bound_warnings(fit.layout, fit.layout.pack(model), bounds)
+    messages = bound_warnings(fit.layout, fit.layout.pack(model), bounds, units)
     if fit.jitter:
         messages.append(jitter_message(fit.jitter * problem.value_scale ** 2))
     if fit.stopped:
@@ -49,7 +49,7 @@ def _candidate(problem: SearchProblem, fit: SearchFit) -> CandidateFit:
 
 def _wls_candidates(xy: np.ndarray, values: np.ndarray, mean: MeanModel, covariates: np.ndarray | None,
                     layouts: list[ParameterLayout], problem: SearchProblem,
-                    steps: ProgressSteps) -> list[tuple[CandidateFit, ParameterLayout]]:
+                    steps: ProgressSteps, units: str) -> list[tuple[CandidateFit, ParameterLayout]]:
     """Variogram fits by weighted least squares, scored by the REML log-likelihood at the fitted model."""
     residual = (problem.y - problem.basis.q @ (problem.basis.q.T @ problem.y)) * problem.value_scale
     scored = []
@@ -63,7 +63,7 @@ def _wls_candidates(xy: np.ndarray, values: np.ndarray, mean: MeanModel, covaria
         model = CovarianceModel(model.structures, max(model.nugget, floor))
         evaluation = evaluate_model(xy, values, model, mean, "reml", covariates)
         aic, bic, _ = information_criteria(problem, evaluation.log_likelihood, layout)
-        messages = bound_warnings(layout, layout.pack(model), parameter_bounds(layout, scales))
+        messages = bound_warnings(layout, layout.pack(model), parameter_bounds(layout, scales), units)
         if evaluation.jitter:
             messages.append(jitter_message(evaluation.jitter))
         scored.append((CandidateFit(layout.family, layout.anisotropy, evaluation.log_likelihood, aic, bic, model,
@@ -92,14 +92,14 @@ def fit_exact(xy: np.ndarray, values: np.ndarray, options: FitOptions, *, covari
     if method == "wls":
         layouts = [ParameterLayout(f, 1, a, smoothness) for f in families for a in settings]
         steps = ProgressSteps(len(layouts), progress)
-        scored = _wls_candidates(xy, values, mean_model, covariates, layouts, problem, steps)
+        scored = _wls_candidates(xy, values, mean_model, covariates, layouts, problem, steps, options.units)
     else:
         steps = ProgressSteps(planned_steps(len(y), len(families), settings, nested), progress)
-        scored = [(_candidate(problem, fit), fit.layout) for family in families
+        scored = [(_candidate(problem, fit, options.units), fit.layout) for family in families
                   for fit in fit_family(problem, family, smoothness, settings, nested, steps)]
     chosen, layout = min(scored, key=lambda pair: pair[0].aic)
     evaluation = evaluate_model(xy, values, chosen.covariance, mean_model, problem.method, covariates)
-    messages = data_warnings(xy, chosen.covariance) + list(chosen.warnings)
+    messages = data_warnings(xy, chosen.covariance, options.units) + list(chosen.warnings)
     covariance = with_jitter_in_nugget(chosen.covariance, evaluation.jitter, messages)
     _, _, k = information_criteria(problem, chosen.log_likelihood, layout)
     if progress is not None:

@@ -173,6 +173,9 @@ class FitOptions:
     smoothness: float | None = None
     known_mean: float = 0.0
     max_iterations: int = MAX_ITERATIONS
+    units: str = "coordinate units"
+    """The coordinates' unit in the words of the fit's warnings (the working CRS's, e.g. ``"metre"``); the
+    default for callers that do not know it."""
 
     def __post_init__(self) -> None:
         limit = self.max_iterations

@@ -152,7 +152,7 @@ def fit_shared(xy: np.ndarray, values: np.ndarray, options: FitOptions,
         "for all fields' (SHARED_MODEL) for a model per field, or choose fewer FIELDS."]
     scales = objective.field_scales(theta) * column_scales ** 2
     results = [_field_result(xy, column, covariates, replace(problem, value_scale=math.sqrt(scale)), shared,
-                             mean_model, options.method, layout, len(names), messages)
+                             mean_model, options, layout, len(names), messages)
                for column, scale in zip(values.T, scales)]
     if progress is not None:
         progress(1.0)
@@ -245,25 +245,25 @@ def _refine(objective: JointObjective, layout: ParameterLayout, theta: np.ndarra
 
 
 def _field_result(xy: np.ndarray, values: np.ndarray, covariates: np.ndarray | None, field: SearchProblem,
-                  shared: CovarianceModel, mean_model: MeanModel, method: str, layout: ParameterLayout, fields: int,
-                  shared_messages: list[str]) -> FitResult:
+                  shared: CovarianceModel, mean_model: MeanModel, options: FitOptions, layout: ParameterLayout,
+                  fields: int, shared_messages: list[str]) -> FitResult:
     """One field's FitResult: the shared model at its scale, its GLS coefficients and log-likelihood.
 
     ``field`` is the internal problem with the field's scale as value scale, so that its
     :meth:`~.fit_search.SearchProblem.to_data_units` and data scales turn the shared internal model
     and its bounds into the field's units (bound warnings then quote the field's numbers). Its warnings are
     those of a single-field fit: what the samples resolve (:func:`.data_warnings.data_warnings`), parameters at
-    a bound, then ``shared_messages``.
+    a bound, then ``shared_messages``; distances in them are in ``options.units``.
     """
     covariance = field.to_data_units(shared)
     evaluation = evaluate_model(xy, values, covariance, mean_model, field.method, covariates)
-    messages = data_warnings(xy, covariance) + bound_warnings(layout, layout.pack(covariance),
-                                                              parameter_bounds(layout, field.data_scales))
+    messages = data_warnings(xy, covariance, options.units) + bound_warnings(
+        layout, layout.pack(covariance), parameter_bounds(layout, field.data_scales), options.units)
     messages += shared_messages
     covariance = with_jitter_in_nugget(covariance, evaluation.jitter, messages)
     aic, bic, k = information_criteria(field, evaluation.log_likelihood, layout)
     likelihood = f"exact; one correlation model shared by {fields} fields (joint {field.method.upper()})"
     candidate = CandidateFit(layout.family, layout.anisotropy, evaluation.log_likelihood, aic, bic, covariance,
                              list(messages))
-    return FitResult(covariance, mean_model, evaluation.coefficients, method, evaluation.log_likelihood,
+    return FitResult(covariance, mean_model, evaluation.coefficients, options.method, evaluation.log_likelihood,
                      aic, bic, len(values), k, messages, likelihood, [candidate])

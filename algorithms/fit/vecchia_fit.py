@@ -137,8 +137,8 @@ def fit_vecchia(xy: np.ndarray, values: np.ndarray, options: FitOptions, *,
     model = problem.to_data_units(layout.unpack(theta))
     log_likelihood = problem.log_likelihood(minus_two)
     aic, bic, k = information_criteria(problem, log_likelihood, layout)
-    messages = data_warnings(points, model) + bound_warnings(layout, layout.pack(model),
-                                                             parameter_bounds(layout, problem.data_scales))
+    messages = data_warnings(points, model, options.units) + bound_warnings(
+        layout, layout.pack(model), parameter_bounds(layout, problem.data_scales), options.units)
     if stopped:
         messages.append(stopped)
     coefficients = problem.basis.coefficients(basis_coefficients) * problem.value_scale

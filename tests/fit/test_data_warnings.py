@@ -13,7 +13,9 @@ from fieldcast.algorithms.fit.data_warnings import (
     sample_size_warning,
     unresolved_structure_warning,
 )
-from fieldcast.algorithms.fit.fitting import fit_model
+from fieldcast.algorithms.fit.fitting import fit_model, fit_with
+from fieldcast.algorithms.fit.options import FitOptions
+from fieldcast.algorithms.fit.shared import fit_shared
 from fieldcast.algorithms.model.covariance import CovarianceModel, Structure
 from reference import gaussian_field
 
@@ -64,3 +66,21 @@ def test_a_field_correlated_well_beyond_the_spacing_gets_no_such_warning():
     result = fit_model(GRID, values, kernel="exponential", anisotropy=False)
     assert unresolved(result.warnings) == []
     assert not any(w.startswith("Only ") for w in result.warnings)
+
+
+@pytest.mark.parametrize("fit", ["single", "shared"])
+def test_the_fits_say_distances_in_the_units_they_are_given_and_coordinate_units_otherwise(fit):
+    # Simulation study: independent standard normal values (seed 1), whose exponential fit puts its range on the
+    # lower bound, below the 70 m spacing: both the unresolved-structure and the bound warning quote distances.
+    values = np.random.default_rng(1).standard_normal(len(GRID))
+    both = np.column_stack([values, 2.0 * values])
+
+    def warnings(options: FitOptions) -> list[str]:
+        if fit == "single":
+            return fit_with(GRID, values, options).warnings
+        return fit_shared(GRID, both, options, ["a", "b"])[0].warnings
+
+    settings = {"kernel": "exponential", "anisotropy": False}
+    in_feet = [w for w in warnings(FitOptions(**settings, units="US survey foot")) if "US survey foot" in w]
+    assert len(unresolved(in_feet)) == 1 and any(w.startswith("The range hit its lower bound") for w in in_feet)
+    assert any("70 coordinate units" in w for w in unresolved(warnings(FitOptions(**settings))))

@@ -250,22 +250,98 @@ def test_predictpoints_at_the_samples_is_the_kriging_of_the_model(profile, meuse
     np.testing.assert_allclose(got[:, 1], np.exp(mu + s2 / 2) * np.sqrt(np.expm1(s2)), rtol=1e-9)
 
 
+def changed_model(folder: Path, name: str, document: dict, change) -> str:
+    """``document`` after ``change(copy)`` written to ``folder/name.json`` (NaN as JSON's literal NaN); its path."""
+    copy = json.loads(json.dumps(document))
+    change(copy)
+    path = folder / f"{name}.json"
+    path.write_text(json.dumps(copy), encoding="utf-8")
+    return str(path)
+
+
+def derived_layer(source: str, path: Path, sql: str) -> str:
+    """The result of ``sql`` on the Meuse GeoPackage ``source`` written as the layer ``meuse`` of ``path``."""
+    gdal.VectorTranslate(str(path), source.split("|")[0], SQLStatement=sql, layerName="meuse")
+    return f"{path}|layername=meuse"
+
+
+def polygon_geopackage(path: Path, wkts: list[str], epsg: int | None = 28992) -> str:
+    """A GeoPackage polygon layer ``site`` holding ``wkts`` (``epsg=None``: no spatial reference); its OGR URI."""
+    srs = None
+    if epsg is not None:
+        srs = osr.SpatialReference()
+        srs.ImportFromEPSG(epsg)
+    source = ogr.GetDriverByName("GPKG").CreateDataSource(str(path))
+    table = source.CreateLayer("site", srs, ogr.wkbPolygon)
+    for wkt in wkts:
+        feature = ogr.Feature(table.GetLayerDefn())
+        feature.SetGeometry(ogr.CreateGeometryFromWkt(wkt))
+        table.CreateFeature(feature)
+    source = None
+    return f"{path}|layername=site"
+
+
+# A square over the Meuse samples (they span x 178605-181390, y 329714-333611 m, tests/data/meuse.csv).
+MEUSE_SQUARE = "POLYGON((178000 329000, 182000 329000, 182000 334000, 178000 334000, 178000 329000))"
+
+
 @pytest.fixture(scope="module")
 def refusal_inputs(profile, meuse_layer, tmp_path_factory) -> dict[str, str]:
-    """Input files of the refusal runs: the Meuse GeoPackage, a zinc model, the same model with a bad
-    format_version, and a GeoPackage whose layer GDAL wrote without a spatial reference (a site grid in metres)."""
+    """Input files of the refusal runs and of the odd inputs that must run: the Meuse GeoPackage, a zinc model and
+    copies broken as the campaign broke them, the model saved with a BOM and CRLF line ends, Meuse zinc times 1e297,
+    the first four Meuse samples, masks (over the samples, without CRS, empty), a GeoPackage whose layer GDAL wrote
+    without a spatial reference (a site grid in metres), and a read-only file."""
     folder = tmp_path_factory.mktemp("refusal-inputs")
     model = folder / "zinc.json"
     document = fit(profile, meuse_layer, "zinc", model)
-    bad_model = folder / "bad.json"
-    bad_model.write_text(json.dumps({**document, "format_version": "abc"}), encoding="utf-8")
-    return {"samples": meuse_layer, "model": str(model), "bad_model": str(bad_model),
-            "no_srs": write_geopackage_without_srs(folder / "site.gpkg")}
+    bom_model = folder / "windows.json"
+    bom_model.write_bytes(b"\xef\xbb\xbf" + json.dumps(document, indent=1).replace("\n", "\r\n").encode("utf-8"))
+    read_only = folder / "kept.tif"
+    read_only.write_text("kept on purpose", encoding="utf-8")
+    read_only.chmod(0o444)
+    first = document["structures"][0]
+    return {
+        "samples": meuse_layer, "model": str(model), "bom_model": str(bom_model),
+        "bad_model": changed_model(folder, "bad", document, lambda d: d.update(format_version="abc")),
+        "nan_azimuth": changed_model(folder, "nan_azimuth", document,
+                                     lambda d: d["structures"][0].update(azimuth=float("nan"))),
+        "huge_sill": changed_model(folder, "huge_sill", document,
+                                   lambda d: d["structures"][0].update(partial_sill=1e300)),
+        "text_transform": changed_model(folder, "text_transform", document, lambda d: d.update(transform="log")),
+        "text_fit": changed_model(folder, "text_fit", document, lambda d: d.update(fit="reml")),
+        "nan_known_mean": changed_model(folder, "nan_known_mean", document, lambda d: d["mean"].update(
+            kind="known", known_value=float("nan"), coefficients=[])),
+        # A partial sill of 1e50 (accepted: at most 1e100) puts every kriging variance beyond Float32 (about
+        # 3.4e38, IEEE 754 single precision); 1e39 ppm^2 (no transform) with an exponential 20 m range and no
+        # nugget does so away from the samples.
+        "float32_sill": changed_model(folder, "float32_sill", document,
+                                      lambda d: d["structures"][0].update(partial_sill=1e50)),
+        "steep_model": changed_model(folder, "steep", document,
+                                     lambda d: d.update(nugget=0.0, transform={"kind": "none", "offset": 0.0},
+                                                        structures=[{**first, "family": "exponential",
+                                                                     "partial_sill": 1e39, "range": 20.0}])),
+        "huge_values": derived_layer(meuse_layer, folder / "huge.gpkg",
+                                     "SELECT geom, zinc * 1e297 AS zinc FROM meuse"),
+        "four_samples": derived_layer(meuse_layer, folder / "four.gpkg", "SELECT * FROM meuse ORDER BY id LIMIT 4"),
+        "mask": polygon_geopackage(folder / "mask.gpkg", [MEUSE_SQUARE]),
+        "mask_no_srs": polygon_geopackage(folder / "mask_no_srs.gpkg", [MEUSE_SQUARE], epsg=None),
+        "empty_mask": polygon_geopackage(folder / "empty_mask.gpkg", []),
+        "no_srs": write_geopackage_without_srs(folder / "site.gpkg"),
+        "read_only": str(read_only)}
 
 
 def file_digests(inputs: dict[str, str]) -> dict[str, str]:
     """SHA-256 of the bytes of every input file (an OGR URI stands for its file)."""
     return {name: hashlib.sha256(Path(uri.split("|")[0]).read_bytes()).hexdigest() for name, uri in inputs.items()}
+
+
+def broken_model(algorithm: str, model: str, *fragments: str) -> tuple[str, dict, tuple[str, ...]]:
+    """A case of :data:`REFUSALS`: ``algorithm`` (predict or crossvalidate) on the Meuse zinc samples with the
+    broken model file ``model`` of refusal_inputs, refused with ``fragments`` and the advice to refit."""
+    output = "{out}/cv.gpkg" if algorithm == "fieldcast:crossvalidate" else "{out}/zinc.tif"
+    grid = {"PIXEL_SIZE": 400} if algorithm == "fieldcast:predict" else {}
+    return (algorithm, {"INPUT": "{samples}", "FIELD": "zinc", "MODEL": f"{{{model}}}", **grid, "OUTPUT": output},
+            (*fragments, "Refit the model with 'Fit covariance model'"))
 
 
 # Each case: algorithm, parameters ({name} = an input of refusal_inputs, {out} = the empty output folder), and
@@ -290,17 +366,48 @@ REFUSALS = [
      ("SEED (random seed) must be a whole number of 0 or more; got '-1'",)),
     ("fieldcast:fitmodel", {"INPUT": "{no_srs}", "FIELD": "depth", "OUTPUT_MODEL": "{out}/site.json"},
      ("The layer site has no defined CRS", "local engineering CRS")),
+    broken_model("fieldcast:predict", "nan_azimuth", "structures[0].azimuth = nan", "a finite number of degrees"),
+    broken_model("fieldcast:crossvalidate", "huge_sill", "structures[0].partial_sill = 1e+300", "at most 1e+100"),
+    broken_model("fieldcast:predict", "text_transform", 'transform = "log"', "an object ({...})"),
+    broken_model("fieldcast:crossvalidate", "text_fit", 'fit = "reml"', "an object ({...})"),
+    broken_model("fieldcast:predict", "nan_known_mean", "mean.known_value = nan", "a finite number"),
+    ("fieldcast:predict", {"INPUT": "{samples}", "FIELD": "zinc", "MODEL": "{float32_sill}", "PIXEL_SIZE": 400,
+                           "OUTPUT": "{out}/zinc.tif", "OUTPUT_VARIANCE": "{out}/variance.tif"},
+     ("The zinc variance raster(s) would be nodata at every cell", "Check the model's sill and partial sills")),
+    ("fieldcast:fitmodel", {"INPUT": "{huge_values}", "FIELD": "zinc", **FIT_SETTINGS, "TRANSFORM": "none",
+                            "OUTPUT_MODEL": "{out}/huge.json"},
+     ("155 sample value(s) are beyond \u00b11e+50", "Rescale the field to larger units")),
+    ("fieldcast:simulate", {"INPUT": "{samples}", "FIELD": "zinc", "MODEL": "{model}", "PIXEL_SIZE": 400,
+                            "REALIZATIONS": 65536, "OUTPUT": "{out}/sims.tif"},
+     ("must be a whole number from 1 to 65,535; got '65536'", "Set REALIZATIONS")),
+    ("fieldcast:predict", {"INPUT": "{samples}", "FIELD": "zinc", "MODEL": "{model}", "PIXEL_SIZE": 400,
+                           "MASK": "{mask_no_srs}", "OUTPUT": "{out}/zinc.tif"},
+     ("(MASK) has no defined CRS", "Assign its real CRS")),
+    ("fieldcast:predict", {"INPUT": "{samples}", "FIELD": "zinc", "MODEL": "{model}", "PIXEL_SIZE": 400,
+                           "MASK": "{empty_mask}", "OUTPUT": "{out}/zinc.tif"},
+     ("(MASK) holds no polygons", "leave MASK empty")),
+    ("fieldcast:simulate", {"INPUT": "{samples}", "FIELD": "zinc", "MODEL": "{model}", "PIXEL_SIZE": 400,
+                            "MASK": "{mask}", "REALIZATIONS": 2, "OUTPUT": "{out}/sims.tif",
+                            "OUTPUT_TABLE": "{mask_file}"},
+     ("OUTPUT_TABLE would overwrite the input file", "(MASK)", "Choose another file name")),
+    ("fieldcast:predict", {"INPUT": "{samples}", "FIELD": "zinc", "MODEL": "{model}", "PIXEL_SIZE": 400,
+                           "OUTPUT": "{read_only}"},
+     ("(OUTPUT) exists and is read-only, so it is not replaced", "Make the file writable")),
 ]
 
 
 @pytest.mark.parametrize(("algorithm", "parameters", "fragments"), REFUSALS,
                          ids=["output-on-input", "two-outputs-one-file", "bad-model-file", "threshold-unused",
-                              "extent-too-wide", "negative-seed", "geopackage-without-crs"])
+                              "extent-too-wide", "negative-seed", "geopackage-without-crs", "nan-azimuth",
+                              "huge-partial-sill", "transform-as-text", "fit-as-text", "nan-known-mean",
+                              "variance-beyond-float32", "values-near-1e300", "realisations-beyond-geotiff-bands",
+                              "mask-without-crs", "empty-mask", "output-on-mask", "read-only-output"])
 def test_refusals_through_qgis_process_name_cause_and_way_out_and_touch_nothing(profile, refusal_inputs, tmp_path,
                                                                                algorithm, parameters, fragments):
     out = tmp_path / "out"
     out.mkdir()
-    names = {**refusal_inputs, "samples_file": refusal_inputs["samples"].split("|")[0], "out": str(out)}
+    names = {**refusal_inputs, "samples_file": refusal_inputs["samples"].split("|")[0],
+             "mask_file": refusal_inputs["mask"].split("|")[0], "out": str(out)}
     before = file_digests(refusal_inputs)
     run = run_algorithm(profile, algorithm, {key: str(value).format(**names) for key, value in parameters.items()})
     assert run.returncode != 0
@@ -309,6 +416,56 @@ def test_refusals_through_qgis_process_name_cause_and_way_out_and_touch_nothing(
     assert "Traceback" not in run.messages
     assert list(out.iterdir()) == []
     assert file_digests(refusal_inputs) == before
+    assert Path(refusal_inputs["read_only"]).stat().st_mode & 0o777 == 0o444
+
+
+# Each case: algorithm, parameters (as for REFUSALS), the fragments the log must hold, and the files the run writes.
+ODD_INPUTS_THAT_RUN = [
+    ("fieldcast:predict", {"INPUT": "{samples}", "FIELD": "zinc", "MODEL": "{bom_model}", "PIXEL_SIZE": 400,
+                           "OUTPUT": "{out}/zinc.tif"},
+     ("Model read from",), ("zinc.tif",)),
+    ("fieldcast:fitmodel", {"INPUT": "{four_samples}", "FIELD": "zinc", "OUTPUT_MODEL": "{out}/four.json",
+                            "OUTPUT_REPORT": "{out}/four.html"},
+     ("Only 4 samples", "rule of thumb"), ("four.html", "four.json")),
+    ("fieldcast:predict", {"INPUT": "{samples}", "FIELD": "zinc", "MODEL": "{steep_model}", "PIXEL_SIZE": 100,
+                           "OUTPUT": "{out}/zinc.tif", "OUTPUT_VARIANCE": "{out}/variance.tif"},
+     ("The zinc variance raster is nodata at",), ("variance.tif", "zinc.tif")),
+    # EPSG:32633 (WGS 84 / UTM zone 33N) is defined from 12 to 18 degrees east (EPSG registry); Meuse lies near 5.7.
+    ("fieldcast:fitmodel", {"INPUT": "{samples}", "FIELD": "zinc", **FIT_SETTINGS, "TARGET_CRS": "EPSG:32633",
+                            "OUTPUT_MODEL": "{out}/utm33.json"},
+     ("155 of 155 samples lie outside the area of use",), ("utm33.json",)),
+]
+
+
+@pytest.mark.parametrize(("algorithm", "parameters", "fragments", "written"), ODD_INPUTS_THAT_RUN,
+                         ids=["model-with-bom-and-crlf", "four-samples-with-report", "variance-mostly-nodata",
+                              "outside-the-crs-area-of-use"])
+def test_odd_inputs_through_qgis_process_run_and_say_what_is_odd(profile, refusal_inputs, tmp_path, algorithm,
+                                                                 parameters, fragments, written):
+    # Each used to be refused (a model file as Windows editors save it), crash (the report of 3-5 samples) or
+    # pass in silence (a variance raster mostly nodata, samples outside the working CRS's area of use).
+    names = {**refusal_inputs, "out": str(tmp_path)}
+    run = run_algorithm(profile, algorithm, {key: str(value).format(**names) for key, value in parameters.items()})
+    assert run.returncode == 0, run.messages
+    for fragment in fragments:
+        assert fragment in run.messages
+    assert "Traceback" not in run.messages
+    assert sorted(path.name for path in tmp_path.iterdir()) == sorted(written)
+
+
+def test_seeds_from_two_to_the_31_on_the_command_line_are_taken_whole(profile, refusal_inputs, tmp_path):
+    # 2**31 and 2**32 + 2 used to become seed 0 (byte-identical realisations); numpy's default_rng takes any
+    # non-negative integer, so the two seeds give different fields.
+    fields = []
+    for seed in (2**31, 2**32 + 2):
+        path = tmp_path / f"seed_{seed}.tif"
+        run = run_algorithm(profile, "fieldcast:simulate", {
+            "INPUT": refusal_inputs["samples"], "FIELD": "zinc", "MODEL": refusal_inputs["model"], "PIXEL_SIZE": 400,
+            "REALIZATIONS": 1, "SEED": seed, "OUTPUT": path})
+        assert run.returncode == 0, run.messages
+        assert f"(seed {seed})" in run.messages
+        fields.append(read_raster(path)[0])
+    assert not np.array_equal(fields[0], fields[1], equal_nan=True)
 
 
 def test_predict_on_a_template_raster_takes_its_grid_and_nodata(profile, meuse_layer, meuse, tmp_path):
