@@ -25,12 +25,13 @@ from ..algorithms import (
     leave_one_out,
     local_leave_one_out,
     parse_crs,
+    refuse_local_covariates,
     search_words,
 )
 from .algorithm_base import FieldcastAlgorithm, progress_callback, push_log
 from .field_names import free_names
 from .field_types import field_type
-from .help_text import MODEL_FILE_HELP, TARGET_CRS_HELP, compose_help
+from .help_text import COVARIATE_HELP, MODEL_FILE_HELP, TARGET_CRS_HELP, compose_help
 from .report.crossvalidation_report import write_crossvalidation_report
 from .sample_reader import ModelSamples
 from .sinks import checked_sink
@@ -65,6 +66,7 @@ class CrossValidateAlgorithm(FieldcastAlgorithm):
         [("Sample points / Value field", "The samples to check (NULL values skipped, samples at one "
           "location averaged)."),
          MODEL_FILE_HELP,
+         *COVARIATE_HELP,
          ("Neighbours per sample", "0 (the default): each sample is predicted from all the others (global "
           "kriging, computed in closed form). A number k: from its k nearest other samples (local kriging; 16 to "
           "64 is common practice), as 'Predict surface' does with the same setting; check a model here with the "
@@ -103,6 +105,7 @@ class CrossValidateAlgorithm(FieldcastAlgorithm):
     def initAlgorithm(self, config=None):
         self.add_sample_parameters()
         self.add_model_parameter()
+        self.add_covariate_parameters()
         self.add_neighbourhood_parameters("sample")
         self.add_target_crs_parameter()
         self.addParameter(QgsProcessingParameterFeatureSink(self.OUTPUT, self.tr("Cross-validation points")))
@@ -164,8 +167,9 @@ class CrossValidateAlgorithm(FieldcastAlgorithm):
         neighbourhood = self.neighbourhood(parameters, context)
         neighbours, lines = neighbourhood.resolved(document.mean, "sample", pool="every other sample")
         push_log(feedback, lines)
+        refuse_local_covariates(document.mean, neighbours, len(samples.values))
         if neighbours == 0:
-            return leave_one_out(samples.xy, samples.values, document.covariance, document.mean)
+            return leave_one_out(samples.xy, samples.values, document.covariance, document.mean, samples.covariates)
         search_radius = neighbourhood.search_radius
         feedback.pushInfo(f"Local leave-one-out: each sample from its {min(neighbours, len(samples.values) - 1)} "
                           f"nearest other samples{search_words(search_radius, document.units)}.")

@@ -2,16 +2,21 @@
 from __future__ import annotations
 
 from collections.abc import Callable
+from dataclasses import replace
 
 import numpy as np
 
 from ..algorithms import (
+    CovariateSet,
     FieldcastError,
     FitOptions,
     FitResult,
+    KrigingPredictor,
+    MeanModel,
     ModelDocument,
     Transform,
     WorkingCrs,
+    check_design,
     fit_shared,
     fit_with,
     parse_crs,
@@ -21,20 +26,32 @@ from ..algorithms import (
 
 def fit_document(xy: np.ndarray, values: np.ndarray, transform: Transform, working: WorkingCrs, field: str,
                  settings: FitOptions, progress: Callable[[float], None] | None = None,
-                 should_stop: Callable[[], bool] | None = None) -> tuple[ModelDocument, FitResult]:
+                 should_stop: Callable[[], bool] | None = None, covariates: CovariateSet | None = None,
+                 columns: np.ndarray | None = None) -> tuple[ModelDocument, FitResult]:
     """Fit a covariance and mean model and wrap it, with its CRS and transform, as a model document.
 
-    ``xy`` is in the working CRS and ``values`` in the modelling scale (after ``transform``).
+    ``xy`` is in the working CRS and ``values`` in the modelling scale (after ``transform``); ``columns`` are the
+    design columns of ``covariates`` at the samples (refused when collinear with the trend terms).
     Returns the document and the engine's fit result (candidates and all), which the fit report reads.
     """
-    result = fit_with(xy, values, settings, progress=progress, should_stop=should_stop)
-    return result_document(result, transform, working, field), result
+    covariates = covariates or CovariateSet()
+    if covariates.covariates:
+        mean = MeanModel.for_data(settings.mean, xy, covariates.column_names)
+        check_design(mean.design(xy, columns), mean.term_names)
+        settings = replace(settings, mean=mean)
+    result = fit_with(xy, values, settings, covariates=columns, progress=progress, should_stop=should_stop)
+    errors = (KrigingPredictor(xy, values, result.covariance, result.mean, columns).coefficient_errors()
+              if result.likelihood == "exact" else np.zeros(0))
+    return result_document(result, transform, working, field, covariates, errors), result
 
 
-def result_document(result: FitResult, transform: Transform, working: WorkingCrs, field: str) -> ModelDocument:
-    """A fit result as a model document of ``field`` in the working CRS."""
+def result_document(result: FitResult, transform: Transform, working: WorkingCrs, field: str,
+                    covariates: CovariateSet | None = None, errors: np.ndarray | None = None) -> ModelDocument:
+    """A fit result as a model document of ``field`` in the working CRS, with its covariates and the standard
+    errors of its coefficients (when computed)."""
     return ModelDocument(result.covariance, result.mean, result.coefficients, transform, working.wkt, working.units,
-                         field, result.summary())
+                         field, result.summary(), covariates or CovariateSet(),
+                         np.zeros(0) if errors is None else errors)
 
 
 def fit_shared_documents(xy: np.ndarray, values: np.ndarray, transform: Transform, working: WorkingCrs,
@@ -78,4 +95,7 @@ def describe_document(document: ModelDocument) -> str:
                      f"{document.units}, azimuth {structure.azimuth:.1f}°, ratio {structure.ratio:.3g}")
     transform = "no transform" if document.transform.kind == "none" else \
         f"log transform (offset {document.transform.offset:g})"
-    return f"Model: {'; '.join(parts)}; {document.mean.kind} mean; {transform}."
+    covariates = ", ".join(f"{c.name} ({c.kind}" + (f", baseline class {c.baseline:g})" if c.kind == "class" else ")")
+                           for c in document.covariates.covariates)
+    mean = f"{document.mean.kind} mean" + (f" with covariates {covariates}" if covariates else "")
+    return f"Model: {'; '.join(parts)}; {mean}; {transform}."

@@ -6,11 +6,12 @@ frequent class among the samples (ties: the smallest class value). This is krigi
 universal kriging with covariates (Wackernagel 2003, ch. 38; Hengl, Heuvelink & Rossiter 2007).
 
 At points the rasters are read in their own CRS (the points transformed from the working CRS with pyproj):
-bilinear interpolation between the four nearest cell centres for continuous covariates (nodata when any of
-them is nodata), the cell that holds the point for classes. On an output grid they are warped by GDAL, one
-block of rows at a time (bounded memory): bilinear, or the average of the raster's cells where the raster is
-finer than the output cell, and nearest for classes. A location outside a raster or on a nodata cell has no
-covariate value (NaN), as has a location whose class no sample has (its coefficient cannot be estimated).
+bilinear interpolation between the four nearest cell centres for continuous covariates (nodata when one of
+them with a weight above zero is nodata), the cell that holds the point for classes. On an output grid they
+are warped by GDAL, one block of rows at a time (bounded memory): bilinear, or the average of the raster's
+cells where the raster is finer than the output cell, and nearest for classes. A location outside a raster
+or on a nodata cell has no covariate value (NaN), as has a location whose class no sample has (its
+coefficient cannot be estimated).
 """
 from __future__ import annotations
 
@@ -30,6 +31,8 @@ COVARIATE_KINDS = ("continuous", "class")
 """Kinds of covariate: a measured quantity, or a raster of class codes."""
 STRIP_CELLS = 4_000_000
 """Most cells of a covariate raster read at a time when it is sampled at points (whole strips of rows)."""
+CONSTANT_TOLERANCE = 1e-9
+"""Relative spread at the samples below which a covariate counts as constant (rounding of the bilinear weights)."""
 RANK_TOLERANCE = 1e-8
 """Relative singular value below which a design column counts as a combination of the others."""
 
@@ -165,7 +168,7 @@ class CovariateSet:
         covariates = []
         for k, source in enumerate(sources):
             column = raw[:, k]
-            if len(column) == 0 or np.ptp(column) == 0:
+            if len(column) == 0 or np.ptp(column) <= CONSTANT_TOLERANCE * np.max(np.abs(column)):
                 value = f" ({column[0]:g})" if len(column) else ""
                 raise FieldcastError(
                     f"Covariate {source.name!r} has the same value{value} at every sample, so it cannot explain "
@@ -357,8 +360,11 @@ def _read_points(dataset: gdal.Dataset, points: np.ndarray, bilinear: bool, name
             continue
         r1, c1 = np.minimum(r + 1, stop - start - 1), np.minimum(c + 1, n_cols - 1)
         fr, fc = row[chosen] - first_row[chosen], col[chosen] - first_col[chosen]
-        values[chosen] = ((1 - fr) * ((1 - fc) * data[r, c] + fc * data[r, c1])
-                          + fr * ((1 - fc) * data[r1, c] + fc * data[r1, c1]))
+        corners = [((1 - fr) * (1 - fc), data[r, c]), ((1 - fr) * fc, data[r, c1]),
+                   (fr * (1 - fc), data[r1, c]), (fr * fc, data[r1, c1])]
+        values[chosen] = sum(np.where(weight > 0, weight * value, 0.0) for weight, value in corners)
+        missing = np.any([(weight > 0) & np.isnan(value) for weight, value in corners], axis=0)
+        values[chosen[missing]] = np.nan
     return values
 
 

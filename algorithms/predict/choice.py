@@ -82,9 +82,28 @@ class Neighbourhood:
         return self.neighbours, lines
 
 
+def refuse_local_covariates(mean: MeanModel, neighbours: int, count: int) -> None:
+    """FieldcastError when local kriging (``neighbours`` > 0 of ``count`` samples) meets a mean with covariates.
+
+    Covariate coefficients are estimated from all samples (GLS); local kriging would re-estimate them from each
+    neighbourhood's few samples and extrapolate a local trend, so it is refused until it can take the global
+    coefficients.
+    """
+    if not (neighbours and mean.covariate_names):
+        return
+    automatic = count > GLOBAL_SAMPLE_LIMIT
+    raise FieldcastError(
+        "Covariates are kriged from all samples, so that their coefficients rest on every sample and not on "
+        f"each neighbourhood's few; local kriging ({neighbours} neighbours"
+        + (f", chosen because there are more than {GLOBAL_SAMPLE_LIMIT:,} samples" if automatic else "")
+        + ") does not take them yet. Set NEIGHBOURS to 0" + (", thin the samples" if automatic else "")
+        + ", or leave COVARIATES and CLASS_COVARIATES empty.")
+
+
 def choose_predictor(xy: np.ndarray, values: np.ndarray, covariance: CovarianceModel, mean: MeanModel,
                      neighbourhood: Neighbourhood, *, support: str = "point", units: str = "metre",
-                     per: str = "cell") -> tuple[KrigingPredictor | LocalKrigingPredictor, list[LogLine]]:
+                     per: str = "cell", covariates: np.ndarray | None = None,
+                     ) -> tuple[KrigingPredictor | LocalKrigingPredictor, list[LogLine]]:
     """The kriging predictor of a run, global or local, and the log lines that say which and why.
 
     With NEIGHBOURS 0, every sample is kriged together, except above :data:`GLOBAL_SAMPLE_LIMIT`
@@ -106,11 +125,15 @@ def choose_predictor(xy: np.ndarray, values: np.ndarray, covariance: CovarianceM
         Working CRS unit, for the log.
     per : str
         What each target is called in the log and the refusals ("cell", "target point").
+    covariates : ndarray, shape (n, c), optional
+        The mean's covariate columns at the samples, when it names covariates (global kriging only, so that
+        their coefficients come from all samples).
 
     Raises
     ------
     FieldcastError
-        If NEIGHBOURS is too small for the mean model, or local kriging is asked for cell support.
+        If NEIGHBOURS is too small for the mean model, local kriging is asked for cell support, or local kriging
+        would be used with covariates.
     """
     neighbours, lines = neighbourhood.resolved(mean, per)
     count = len(values)
@@ -122,9 +145,10 @@ def choose_predictor(xy: np.ndarray, values: np.ndarray, covariance: CovarianceM
     elif neighbours == 0 and count > GLOBAL_SAMPLE_LIMIT:
         lines.append(LogLine("warning", f"Cell support krigs all {count:,} samples together, which is slow and "
                                         "memory-hungry at this size; point support would use local neighbourhoods."))
+    refuse_local_covariates(mean, neighbours, count)
     if neighbours == 0:
         lines.append(LogLine("info", f"Kriging from all {count} samples."))
-        predictor = KrigingPredictor(xy, values, covariance, mean)
+        predictor = KrigingPredictor(xy, values, covariance, mean, covariates)
         return predictor, lines + [LogLine("warning", warning) for warning in predictor.warnings]
     if support == "cell":
         raise FieldcastError("Cell support is computed from all samples (block kriging); local "

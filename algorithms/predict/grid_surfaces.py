@@ -13,7 +13,6 @@ from __future__ import annotations
 import contextlib
 from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass
-from typing import Optional
 
 import numpy as np
 from scipy import stats
@@ -39,10 +38,10 @@ BLOCK_CELLS = 1 << 20
 TILE_ROWS = 256
 DISTANCE_DESCRIPTION = "distance from the cell centre to the nearest sample (working CRS units, straight line)"
 
-CellPredictor = Callable[[np.ndarray, Callable[[float], None], Optional[Callable[[], bool]]],
-                         tuple[np.ndarray, np.ndarray]]
-"""``predict(centres (m, 2), progress, should_stop) -> (mean, variance)`` in the modelling scale; ``mean`` has
-one column per field when the predictor krigs several fields at once."""
+CellPredictor = Callable[..., tuple[np.ndarray, np.ndarray]]
+"""``predict(centres (m, 2), progress, should_stop[, covariates0 (m, c)]) -> (mean, variance)`` in the modelling
+scale; ``mean`` has one column per field when the predictor krigs several fields at once. ``covariates0`` (the
+mean's covariate columns at the centres) is passed only when the mean names covariates."""
 
 
 def cell_predictor(predictor: KrigingPredictor | LocalKrigingPredictor, support: str = "point",
@@ -50,11 +49,15 @@ def cell_predictor(predictor: KrigingPredictor | LocalKrigingPredictor, support:
     """Kriging at cell centres or other points (``support == "point"``) or of cell averages of side
     ``pixel_size`` (``"cell"``, block kriging; global :class:`KrigingPredictor` only)."""
     if support == "cell":
+        if predictor.mean.covariate_names:
+            raise FieldcastError("Cell-average (block) kriging does not take covariates yet; set SUPPORT to point, "
+                                 "or leave COVARIATES and CLASS_COVARIATES empty.")
+
         def predict(centres, progress, should_stop):
             return block_predict(predictor, centres, pixel_size, progress=progress, should_stop=should_stop)
     else:
-        def predict(centres, progress, should_stop):
-            return predictor.predict(centres, progress=progress, should_stop=should_stop)
+        def predict(centres, progress, should_stop, covariates0=None):
+            return predictor.predict(centres, covariates0, progress=progress, should_stop=should_stop)
     return predict
 
 
@@ -189,7 +192,7 @@ class PointValues:
 
 def predict_points(predict: CellPredictor, xy: np.ndarray, scale: SurfaceScale, kinds: Sequence[str], *,
                    variance_factors: Sequence[float] = (1.0,), check: ExtrapolationCheck | None = None,
-                   progress: Callable[[float], None] | None = None,
+                   covariates: np.ndarray | None = None, progress: Callable[[float], None] | None = None,
                    should_stop: Callable[[], bool] | None = None) -> PointValues:
     """Krige ``xy`` and return the quantities ``kinds`` of every field in attribute units.
 
@@ -209,15 +212,18 @@ def predict_points(predict: CellPredictor, xy: np.ndarray, scale: SurfaceScale, 
     check : ExtrapolationCheck, optional
         Screens means beyond what the model allows (set to NaN) and counts the points beyond the effective
         range and outside the data range.
+    covariates : ndarray of shape (m, c), optional
+        The mean's covariate columns at ``xy`` (finite), when it names covariates.
     progress, should_stop : callable, optional
         Passed to ``predict`` (fraction done; raises :class:`..errors.Cancelled` when ``should_stop()``).
     """
-    mean, variance = predict(xy, progress, should_stop)
+    extra = () if covariates is None else (covariates,)
+    mean, variance = predict(xy, progress, should_stop, *extra)
     mean = mean.reshape(len(variance), -1)
     resolved = ~np.isnan(variance)
     variances = variance[:, None] * np.asarray(variance_factors, dtype=float)
     if check is not None:
-        mean, variances = check.screen(xy, mean, variances)
+        mean, variances = check.screen(xy, mean, variances, covariates)
     wanted = list(dict.fromkeys([*kinds, "prediction"]))
     layers = []
     for column in range(mean.shape[1]):

@@ -14,8 +14,8 @@ from repo_package import REPO_ROOT
 
 CONTRACT = {
     "fitmodel": ("Fit covariance model",
-                 {"INPUT", "FIELD", "TRANSFORM", "LOG_OFFSET", "KERNEL", "ANISOTROPY", "TREND", "METHOD",
-                  "TARGET_CRS", "OUTPUT_MODEL", "OUTPUT_REPORT"},
+                 {"INPUT", "FIELD", "COVARIATES", "CLASS_COVARIATES", "TRANSFORM", "LOG_OFFSET", "KERNEL",
+                  "ANISOTROPY", "TREND", "METHOD", "TARGET_CRS", "OUTPUT_MODEL", "OUTPUT_REPORT"},
                  {"OUTPUT_MODEL", "OUTPUT_REPORT", "FAMILY", "PARTIAL_SILL", "RANGE", "EFFECTIVE_RANGE",
                   "NUGGET", "AZIMUTH", "RATIO", "LOG_LIKELIHOOD", "AIC"}),
     "predict": ("Predict surface",
@@ -33,8 +33,8 @@ CONTRACT = {
                      "NEIGHBOURS", "SEARCH_RADIUS", "TARGET_CRS", "OUTPUT_FOLDER"},
                     {"OUTPUT_FOLDER", "COUNT"}),
     "predictpoints": ("Predict at points",
-                      {"INPUT", "FIELD", "MODEL", "TARGETS", "THRESHOLD", "BACKTRANSFORM", "NEIGHBOURS",
-                       "SEARCH_RADIUS", "TARGET_CRS", "OUTPUT"},
+                      {"INPUT", "FIELD", "MODEL", "COVARIATES", "CLASS_COVARIATES", "TARGETS", "THRESHOLD",
+                       "BACKTRANSFORM", "NEIGHBOURS", "SEARCH_RADIUS", "TARGET_CRS", "OUTPUT"},
                       {"OUTPUT"}),
     "simulate": ("Simulate conditional fields",
                  {"INPUT", "FIELD", "MODEL", "TEMPLATE", "EXTENT", "PIXEL_SIZE", "MASK", "TEMPLATE_NODATA_MASK",
@@ -44,8 +44,8 @@ CONTRACT = {
                  {"OUTPUT", "OUTPUT_MEAN", "OUTPUT_STDDEV", "OUTPUT_EXCEEDANCE", "OUTPUT_P10", "OUTPUT_P90",
                   "OUTPUT_TABLE", "AREA_P10", "AREA_P50", "AREA_P90"}),
     "crossvalidate": ("Cross-validate model",
-                      {"INPUT", "FIELD", "MODEL", "NEIGHBOURS", "SEARCH_RADIUS", "TARGET_CRS", "OUTPUT",
-                       "OUTPUT_REPORT"},
+                      {"INPUT", "FIELD", "MODEL", "COVARIATES", "CLASS_COVARIATES", "NEIGHBOURS", "SEARCH_RADIUS",
+                       "TARGET_CRS", "OUTPUT", "OUTPUT_REPORT"},
                       {"OUTPUT", "OUTPUT_REPORT", "ME", "RMSE", "MSDR", "COVERAGE95", "ME_ATTRIBUTE",
                        "RMSE_ATTRIBUTE"}),
 }

@@ -1,0 +1,141 @@
+"""COVARIATES and CLASS_COVARIATES through processing.run on the published Meuse data.
+
+Data: the Meuse topsoil samples and the published 40 m grid's distance to the river and flood-frequency class
+(tests/data/README.md), written as GeoTIFFs by ``reference.write_meuse_covariates``; EPSG:28992 metres.
+"""
+from __future__ import annotations
+
+import json
+
+import numpy as np
+import pytest
+from qgis.core import QgsProcessingException, QgsRasterLayer
+
+from fieldcast.algorithms.io.covariates import CovariateSource, SampleCovariates
+from fieldcast.algorithms.io.crs import to_wkt2
+from fieldcast.algorithms.io.model_file import ModelDocument
+from fieldcast.algorithms.predict.crossval import leave_one_out
+from fieldcast.algorithms.predict.kriging import KrigingPredictor
+from qgis_support import fieldcast_plugin, point_layer, qgis_processing  # noqa: F401 - fixtures
+from reference import write_meuse_covariates
+from test_plugin_predictpoints import Log, columns, labelled_layer
+
+FIT = {"FIELD": "zinc", "TRANSFORM": "log", "KERNEL": "spherical", "ANISOTROPY": False, "TREND": "constant",
+       "METHOD": "reml"}
+
+
+@pytest.fixture(scope="module")
+def covariate_run(qgis_processing, meuse, tmp_path_factory):  # noqa: F811
+    """Samples, the two covariate raster layers, and a model fitted with them (its path and log)."""
+    folder = tmp_path_factory.mktemp("covariates")
+    dist_path, ffreq_path = write_meuse_covariates(folder)
+    dist, ffreq = QgsRasterLayer(str(dist_path), "dist"), QgsRasterLayer(str(ffreq_path), "ffreq")
+    assert dist.isValid() and ffreq.isValid()
+    samples = point_layer(meuse.xy, {"zinc": meuse.zinc})
+    log = Log()
+    model = qgis_processing.run("fieldcast:fitmodel", {
+        "INPUT": samples, **FIT, "COVARIATES": [dist], "CLASS_COVARIATES": [ffreq],
+        "OUTPUT_MODEL": str(folder / "zinc.json"), "OUTPUT_REPORT": str(folder / "fit.html")},
+        feedback=log)["OUTPUT_MODEL"]
+    return samples, dist, ffreq, model, log.lines, folder
+
+
+def read_samples(meuse, dist, ffreq):
+    """The Meuse samples where both rasters have a value, their log-zinc and covariate columns (engine)."""
+    sources = [CovariateSource("dist", dist.source()), CovariateSource("ffreq", ffreq.source(), "class")]
+    read = SampleCovariates.read(sources, meuse.xy, to_wkt2("EPSG:28992"))
+    return meuse.xy[read.kept], np.log(meuse.zinc[read.kept]), read
+
+
+def test_fit_records_covariates_coefficients_and_standard_errors(covariate_run, meuse):
+    samples, dist, ffreq, model, lines, _ = covariate_run
+    document = ModelDocument.load(model)
+    data = json.load(open(model, encoding="utf-8"))["mean"]
+    assert data["covariates"] == ["dist", "ffreq=2", "ffreq=3"]
+    assert [(c["name"], c["kind"], c.get("baseline")) for c in data["covariate_rasters"]] == [
+        ("dist", "continuous", None), ("ffreq", "class", 1.0)]
+    assert data["covariate_rasters"][0]["source"] == dist.source()
+    xy, values, read = read_samples(meuse, dist, ffreq)
+    skipped = int(np.count_nonzero(~read.kept))
+    assert any(f"Skipped {skipped} of 155 samples where a covariate raster has no value" in line for line in lines)
+    # The coefficients are the GLS estimates and their standard errors sqrt(diag((F'C^-1 F)^-1)) at the fitted
+    # covariance (Cressie 1993, section 3.4), computed here with the engine's kriging system on the same samples.
+    predictor = KrigingPredictor(xy, values, document.covariance, document.mean, read.columns)
+    np.testing.assert_allclose(document.coefficients, predictor.coefficients, rtol=1e-6, atol=1e-9)
+    np.testing.assert_allclose(document.standard_errors, predictor.coefficient_errors(), rtol=1e-6)
+    assert document.coefficients[1] < 0  # zinc falls away from the river (from memory, published analyses)
+    line = next(line for line in lines if line.startswith("Mean coefficients"))
+    assert f"dist = {document.coefficients[1]:.4g} ± {document.standard_errors[1]:.3g}" in line
+    assert "ffreq=2" in line and "ffreq=3" in line
+
+
+def test_crossvalidate_with_the_covariates_equals_the_engine_and_beats_no_covariates(qgis_processing, meuse,  # noqa: F811
+                                                                                      covariate_run):
+    samples, dist, ffreq, model, _, folder = covariate_run
+    result = qgis_processing.run("fieldcast:crossvalidate", {
+        "INPUT": samples, "FIELD": "zinc", "MODEL": model, "COVARIATES": [dist], "CLASS_COVARIATES": [ffreq],
+        "OUTPUT": str(folder / "cv.gpkg"), "OUTPUT_REPORT": ""})
+    document = ModelDocument.load(model)
+    xy, values, read = read_samples(meuse, dist, ffreq)
+    # Closed-form leave-one-out (Dubrule 1983) with the covariate columns, computed by the engine directly.
+    expected = leave_one_out(xy, values, document.covariance, document.mean, read.columns).summary()
+    assert result["RMSE"] == pytest.approx(expected["RMSE"], rel=1e-9)
+    plain = qgis_processing.run("fieldcast:fitmodel", {"INPUT": samples, **FIT,
+                                                       "OUTPUT_MODEL": str(folder / "plain.json")})["OUTPUT_MODEL"]
+    without = qgis_processing.run("fieldcast:crossvalidate", {
+        "INPUT": samples, "FIELD": "zinc", "MODEL": plain, "OUTPUT": str(folder / "cv_plain.gpkg"),
+        "OUTPUT_REPORT": ""})
+    # Distance to the river explains much of Meuse zinc (from memory, published analyses of these data).
+    assert result["RMSE"] < without["RMSE"]
+
+
+def test_predictpoints_with_covariates_equals_kriging_and_leaves_nodata_targets_empty(qgis_processing, meuse,  # noqa: F811
+                                                                                      covariate_run, meuse_grid):
+    samples, dist, ffreq, model, _, folder = covariate_run
+    inside = meuse_grid.xy[::97]
+    outside = np.array([[177000.0, 329000.0], [182500.0, 334500.0]])  # off the covariate rasters
+    targets = labelled_layer(np.vstack([inside, outside]))
+    log = Log()
+    path = folder / "points.gpkg"
+    qgis_processing.run("fieldcast:predictpoints", {
+        "INPUT": samples, "FIELD": "zinc", "MODEL": model, "TARGETS": targets, "COVARIATES": [dist],
+        "CLASS_COVARIATES": [ffreq], "BACKTRANSFORM": "median", "OUTPUT": str(path)}, feedback=log)
+    found = columns(path, ["zinc_est", "zinc_sd", "well"])
+    document = ModelDocument.load(model)
+    xy, values, read = read_samples(meuse, dist, ffreq)
+    # At the grid's cell centres the covariates are the published grid values exactly (bilinear at a centre).
+    target_columns = np.column_stack([meuse_grid.dist[::97], meuse_grid.ffreq[::97] == 2,
+                                      meuse_grid.ffreq[::97] == 3]).astype(float)
+    mean, _ = KrigingPredictor(xy, values, document.covariance, document.mean, read.columns).predict(
+        inside, target_columns)
+    np.testing.assert_allclose(np.array(found["zinc_est"][:len(inside)], dtype=float), np.exp(mean), rtol=1e-5)
+    assert found["zinc_est"][len(inside):] == [None, None]
+    assert found["well"][-1] == f"W{len(inside) + 1}"
+    assert any("2 target point(s) lie where a covariate raster has no value" in line for line in log.lines)
+
+
+def test_later_steps_refuse_other_covariates_and_write_nothing(qgis_processing, covariate_run):  # noqa: F811
+    samples, dist, ffreq, model, _, folder = covariate_run
+    path = folder / "refused.gpkg"
+    with pytest.raises(QgsProcessingException, match="missing 'ffreq'.*same raster layers"):
+        qgis_processing.run("fieldcast:crossvalidate", {
+            "INPUT": samples, "FIELD": "zinc", "MODEL": model, "COVARIATES": [dist], "OUTPUT": str(path),
+            "OUTPUT_REPORT": ""})
+    with pytest.raises(QgsProcessingException, match="missing 'dist', 'ffreq'"):
+        qgis_processing.run("fieldcast:predictpoints", {
+            "INPUT": samples, "FIELD": "zinc", "MODEL": model, "TARGETS": labelled_layer(np.zeros((1, 2)) + 180000),
+            "OUTPUT": str(path)})
+    with pytest.raises(QgsProcessingException, match="Covariates are kriged from all samples.*NEIGHBOURS to 0"):
+        qgis_processing.run("fieldcast:crossvalidate", {
+            "INPUT": samples, "FIELD": "zinc", "MODEL": model, "COVARIATES": [dist], "CLASS_COVARIATES": [ffreq],
+            "NEIGHBOURS": 16, "OUTPUT": str(path), "OUTPUT_REPORT": ""})
+    assert not path.exists()
+
+
+def test_a_covariate_repeated_in_both_lists_is_refused(qgis_processing, covariate_run):  # noqa: F811
+    samples, dist, _, _, _, folder = covariate_run
+    path = folder / "twice.json"
+    with pytest.raises(QgsProcessingException, match="Several covariate layers are named 'dist'"):
+        qgis_processing.run("fieldcast:fitmodel", {"INPUT": samples, **FIT, "COVARIATES": [dist],
+                                                   "CLASS_COVARIATES": [dist], "OUTPUT_MODEL": str(path)})
+    assert not path.exists()
