@@ -269,7 +269,8 @@ class FieldRasters:
 def write_surfaces(predict: CellPredictor, grid: GridSpec, inside: np.ndarray | None, scale: SurfaceScale,
                    crs_wkt: str, fields: Sequence[FieldRasters], progress: Callable[[float], None] | None = None,
                    should_stop: Callable[[], bool] | None = None, check: ExtrapolationCheck | None = None,
-                   distance_path: str = "") -> NodataCounts:
+                   distance_path: str = "", covariates: Callable[[int, int], np.ndarray] | None = None,
+                   ) -> NodataCounts:
     """Predict every cell (those with ``inside`` True) and write each field's GeoTIFFs; returns the nodata counts.
 
     ``predict`` gives one mean column per field of ``fields`` (shape (m,) for one field, (m, k) for k)
@@ -279,7 +280,9 @@ def write_surfaces(predict: CellPredictor, grid: GridSpec, inside: np.ndarray | 
     With a ``check``, a field's cells whose mean lies outside what the model allows are nodata too (and
     counted there, not in the counts returned), and the extrapolation counts are made; with a
     ``distance_path`` as well, the distance to the nearest sample is written there (GeoTIFF, nodata
-    outside the mask).
+    outside the mask). ``covariates(row_start, row_stop)``, when the mean names covariates, gives their design
+    columns at the cells of those rows (raster order, NaN where a covariate has no usable value: such cells
+    are nodata and counted in ``NodataCounts.no_covariate``).
 
     Every field's files appear together at the end (or, inside an :class:`..io.staging.OutputSet`, with
     the set's commit).
@@ -295,7 +298,7 @@ def write_surfaces(predict: CellPredictor, grid: GridSpec, inside: np.ndarray | 
     if distance_path and check is None:
         raise FieldcastError("The distance raster needs the samples: pass an ExtrapolationCheck with distance_path.")
     step = block_rows(grid, len(fields))
-    unresolved = kriged = 0
+    unresolved = kriged = no_covariate = 0
     lost = {f"{output.field} {kind}": 0 for output in fields for kind in SURFACE_KINDS if output.paths.get(kind)}
     with staged_together(), contextlib.ExitStack() as stack:
         distance_writer = (stack.enter_context(GeoTiffWriter(distance_path, grid, 1, crs_wkt, [DISTANCE_DESCRIPTION],
@@ -314,6 +317,13 @@ def write_surfaces(predict: CellPredictor, grid: GridSpec, inside: np.ndarray | 
             stop = min(start + step, grid.n_rows)
             centres = grid.cell_centres(start, stop)
             keep = np.ones(len(centres), bool) if inside is None else inside[start:stop].ravel()
+            columns = None
+            if covariates is not None and keep.any():
+                columns = covariates(start, stop)
+                usable = np.all(np.isfinite(columns), axis=1)
+                no_covariate += int(np.count_nonzero(keep & ~usable))
+                keep = keep & usable
+                columns = columns[keep]
             bands = [{kind: np.full(len(centres), np.nan) for kind in field_writers} for field_writers in writers]
             distance = np.full(len(centres), np.nan)
             if keep.any():
@@ -323,7 +333,7 @@ def write_surfaces(predict: CellPredictor, grid: GridSpec, inside: np.ndarray | 
 
                 found = predict_points(predict, centres[keep], scale, kinds_asked,
                                        variance_factors=[output.variance_factor for output in fields], check=check,
-                                       progress=block_progress, should_stop=should_stop)
+                                       covariates=columns, progress=block_progress, should_stop=should_stop)
                 kriged += len(found.resolved)
                 unresolved += int(np.count_nonzero(~found.resolved))
                 if distance_writer is not None:
@@ -341,7 +351,7 @@ def write_surfaces(predict: CellPredictor, grid: GridSpec, inside: np.ndarray | 
                 distance_writer.write_block(0, start, distance)
             if progress is not None:
                 progress(stop / grid.n_rows)
-        counts = NodataCounts(kriged, unresolved, lost)
+        counts = NodataCounts(kriged, unresolved, lost, no_covariate)
         if counts.error() is not None:
             raise counts.error()
         for writer in [*(writer for field_writers in writers for writer in field_writers.values()),

@@ -18,7 +18,7 @@ from fieldcast.algorithms.predict.crossval import leave_one_out
 from fieldcast.algorithms.predict.kriging import KrigingPredictor
 from qgis_support import fieldcast_plugin, point_layer, qgis_processing  # noqa: F401 - fixtures
 from reference import write_meuse_covariates
-from test_plugin_predictpoints import Log, columns, labelled_layer
+from test_plugin_predictpoints import Log, band, cell_centres, columns, labelled_layer
 
 FIT = {"FIELD": "zinc", "TRANSFORM": "log", "KERNEL": "spherical", "ANISOTROPY": False, "TREND": "constant",
        "METHOD": "reml"}
@@ -139,3 +139,37 @@ def test_a_covariate_repeated_in_both_lists_is_refused(qgis_processing, covariat
         qgis_processing.run("fieldcast:fitmodel", {"INPUT": samples, **FIT, "COVARIATES": [dist],
                                                    "CLASS_COVARIATES": [dist], "OUTPUT_MODEL": str(path)})
     assert not path.exists()
+
+
+def test_predict_with_covariates_on_their_grid_equals_kriging_and_counts_nodata(qgis_processing, meuse,  # noqa: F811
+                                                                                 covariate_run, meuse_grid):
+    samples, dist, ffreq, model, _, folder = covariate_run
+    log = Log()
+    path = folder / "zinc_map.tif"
+    qgis_processing.run("fieldcast:predict", {
+        "INPUT": samples, "FIELD": "zinc", "MODEL": model, "COVARIATES": [dist], "CLASS_COVARIATES": [ffreq],
+        "TEMPLATE": dist, "TEMPLATE_NODATA_MASK": False, "MAP_AREA": "extent", "OUTPUT": str(path),
+        "OUTPUT_VARIANCE": "", "OUTPUT_SD": ""}, feedback=log)
+    prediction = band(path)
+    centres = cell_centres(path)
+    document = ModelDocument.load(model)
+    xy, values, read = read_samples(meuse, dist, ffreq)
+    # The map's cells are the published grid's cells; where the grid has no cell the covariates have no value.
+    cell_of = {(round(x), round(y)): k for k, (x, y) in enumerate(meuse_grid.xy)}
+    rows = np.array([cell_of.get((round(x), round(y)), -1) for x, y in centres])
+    on_grid = rows >= 0
+    np.testing.assert_array_equal(np.isfinite(prediction), on_grid)
+    assert any(f"{np.count_nonzero(~on_grid):,} cells of the map area are nodata because a covariate raster has no "
+               "value there" in line for line in log.lines)
+    cell_columns = np.column_stack([meuse_grid.dist[rows[on_grid]], meuse_grid.ffreq[rows[on_grid]] == 2,
+                                    meuse_grid.ffreq[rows[on_grid]] == 3]).astype(float)
+    mean, _ = KrigingPredictor(xy, values, document.covariance, document.mean, read.columns).predict(
+        centres[on_grid], cell_columns)
+    np.testing.assert_allclose(prediction[on_grid], np.exp(mean), rtol=1e-5)  # Float32 GeoTIFF
+    # Cells whose distance to the river lies beyond the samples' range extrapolate the covariate trend: counted.
+    low, high = read.columns[:, 0].min(), read.columns[:, 0].max()
+    beyond = int(np.count_nonzero((cell_columns[:, 0] < low) | (cell_columns[:, 0] > high)))
+    assert beyond > 0
+    words = f"{beyond:,} of {np.count_nonzero(on_grid):,} mapped cells"
+    assert any(line.startswith(words) and "covariate value outside the range seen at the samples" in line
+               for line in log.lines)

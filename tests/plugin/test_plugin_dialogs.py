@@ -25,7 +25,8 @@ from repo_package import REPO_ROOT
 MAIN_PAGE_INPUTS = {
     "fitmodel": {"INPUT", "FIELD", "COVARIATES", "CLASS_COVARIATES", "TRANSFORM", "KERNEL", "ANISOTROPY", "TREND",
                  "METHOD"},
-    "predict": {"INPUT", "FIELD", "MODEL", "TEMPLATE", "EXTENT", "PIXEL_SIZE", "MASK", "MAP_AREA", "THRESHOLD"},
+    "predict": {"INPUT", "FIELD", "MODEL", "COVARIATES", "CLASS_COVARIATES", "TEMPLATE", "EXTENT", "PIXEL_SIZE",
+                "MASK", "MAP_AREA", "THRESHOLD"},
     "predictmany": {"INPUT", "FIELDS", "TRANSFORM", "KERNEL", "ANISOTROPY", "TREND", "METHOD", "SHARED_MODEL",
                     "TEMPLATE", "EXTENT", "PIXEL_SIZE", "MASK", "MAP_AREA"},
     "simulate": {"INPUT", "FIELD", "MODEL", "TEMPLATE", "EXTENT", "PIXEL_SIZE", "MASK", "REALIZATIONS", "THRESHOLD"},
