@@ -50,7 +50,8 @@ def read_samples(meuse, dist, ffreq):
 def test_fit_records_covariates_coefficients_and_standard_errors(covariate_run, meuse):
     samples, dist, ffreq, model, lines, _ = covariate_run
     document = ModelDocument.load(model)
-    data = json.load(open(model, encoding="utf-8"))["mean"]
+    with open(model, encoding="utf-8") as stream:
+        data = json.load(stream)["mean"]
     assert data["covariates"] == ["dist", "ffreq=2", "ffreq=3"]
     assert [(c["name"], c["kind"], c.get("baseline")) for c in data["covariate_rasters"]] == [
         ("dist", "continuous", None), ("ffreq", "class", 1.0)]
