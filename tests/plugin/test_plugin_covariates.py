@@ -9,6 +9,7 @@ import json
 
 import numpy as np
 import pytest
+from osgeo import gdal
 from qgis.core import QgsProcessingException, QgsRasterLayer
 
 from fieldcast.algorithms.io.covariates import CovariateSource, SampleCovariates
@@ -174,3 +175,37 @@ def test_predict_with_covariates_on_their_grid_equals_kriging_and_counts_nodata(
     words = f"{beyond:,} of {np.count_nonzero(on_grid):,} mapped cells"
     assert any(line.startswith(words) and "covariate value outside the range seen at the samples" in line
                for line in log.lines)
+
+
+def test_simulate_with_covariates_is_centred_on_kriging_with_them(qgis_processing, meuse, covariate_run,  # noqa: F811
+                                                                 meuse_grid):
+    samples, dist, ffreq, model, _, folder = covariate_run
+    log = Log()
+    path = folder / "realisations.tif"
+    count = 100
+    qgis_processing.run("fieldcast:simulate", {
+        "INPUT": samples, "FIELD": "zinc", "MODEL": model, "COVARIATES": [dist], "CLASS_COVARIATES": [ffreq],
+        "TEMPLATE": dist, "TEMPLATE_NODATA_MASK": False, "REALIZATIONS": count, "SEED": 7, "OUTPUT": str(path)},
+        feedback=log)
+    dataset = gdal.Open(str(path))
+    realisations = np.stack([dataset.GetRasterBand(k + 1).ReadAsArray().astype(float).ravel()
+                             for k in range(count)])
+    nodata = dataset.GetRasterBand(1).GetNoDataValue()
+    realisations[realisations == nodata] = np.nan
+    centres = cell_centres(path)
+    cell_of = {(round(x), round(y)): k for k, (x, y) in enumerate(meuse_grid.xy)}
+    rows = np.array([cell_of.get((round(x), round(y)), -1) for x, y in centres])
+    on_grid = rows >= 0
+    np.testing.assert_array_equal(np.isfinite(realisations).all(axis=0), on_grid)
+    assert any(f"{np.count_nonzero(~on_grid):,} cells are nodata in every output because a covariate raster" in line
+               for line in log.lines)
+    document = ModelDocument.load(model)
+    xy, values, read = read_samples(meuse, dist, ffreq)
+    cell_columns = np.column_stack([meuse_grid.dist[rows[on_grid]], meuse_grid.ffreq[rows[on_grid]] == 2,
+                                    meuse_grid.ffreq[rows[on_grid]] == 3]).astype(float)
+    mean, variance = KrigingPredictor(xy, values, document.covariance, document.mean, read.columns).predict(
+        centres[on_grid], cell_columns)
+    # Conditional simulation by kriging (Journel & Huijbregts 1978): at every cell the log of the realisations is
+    # normal with the kriging mean and variance, so the standardised mean of 100 realisations is about N(0, 1).
+    z = (np.log(realisations[:, on_grid]).mean(axis=0) - mean) / np.sqrt(variance / count)
+    assert abs(np.mean(z)) < 1.0 and np.mean(z ** 2) < 3.0

@@ -29,7 +29,8 @@ MAIN_PAGE_INPUTS = {
                 "MASK", "MAP_AREA", "THRESHOLD"},
     "predictmany": {"INPUT", "FIELDS", "TRANSFORM", "KERNEL", "ANISOTROPY", "TREND", "METHOD", "SHARED_MODEL",
                     "TEMPLATE", "EXTENT", "PIXEL_SIZE", "MASK", "MAP_AREA"},
-    "simulate": {"INPUT", "FIELD", "MODEL", "TEMPLATE", "EXTENT", "PIXEL_SIZE", "MASK", "REALIZATIONS", "THRESHOLD"},
+    "simulate": {"INPUT", "FIELD", "MODEL", "COVARIATES", "CLASS_COVARIATES", "TEMPLATE", "EXTENT", "PIXEL_SIZE",
+                 "MASK", "REALIZATIONS", "THRESHOLD"},
     "crossvalidate": {"INPUT", "FIELD", "MODEL", "COVARIATES", "CLASS_COVARIATES"},
     "predictpoints": {"INPUT", "FIELD", "MODEL", "COVARIATES", "CLASS_COVARIATES", "TARGETS", "THRESHOLD"},
 }
