@@ -34,15 +34,30 @@ def fit_document(xy: np.ndarray, values: np.ndarray, transform: Transform, worki
     design columns of ``covariates`` at the samples (refused when collinear with the trend terms).
     Returns the document and the engine's fit result (candidates and all), which the fit report reads.
     """
-    covariates = covariates or CovariateSet()
-    if covariates.covariates:
-        mean = MeanModel.for_data(settings.mean, xy, covariates.column_names)
-        check_design(mean.design(xy, columns), mean.term_names)
-        settings = replace(settings, mean=mean)
+    settings = with_covariate_mean(settings, xy, covariates, columns)
     result = fit_with(xy, values, settings, covariates=columns, progress=progress, should_stop=should_stop)
-    errors = (KrigingPredictor(xy, values, result.covariance, result.mean, columns).coefficient_errors()
-              if result.likelihood == "exact" else np.zeros(0))
-    return result_document(result, transform, working, field, covariates, errors), result
+    return result_document(result, transform, working, field, covariates,
+                           coefficient_errors(result, xy, values, columns)), result
+
+
+def with_covariate_mean(settings: FitOptions, xy: np.ndarray, covariates: CovariateSet | None,
+                        columns: np.ndarray | None) -> FitOptions:
+    """The settings with a mean model naming the covariates' columns, refused when they are collinear with the
+    trend at the samples; the settings unchanged without covariates."""
+    if covariates is None or not covariates.covariates:
+        return settings
+    mean = MeanModel.for_data(settings.mean, xy, covariates.column_names)
+    check_design(mean.design(xy, columns), mean.term_names)
+    return replace(settings, mean=mean)
+
+
+def coefficient_errors(result: FitResult, xy: np.ndarray, values: np.ndarray,
+                       columns: np.ndarray | None) -> np.ndarray:
+    """Standard errors of the fit's GLS coefficients given its covariance; empty for a Vecchia fit (the exact
+    system of a large data set is not formed)."""
+    if not result.likelihood.startswith("exact"):
+        return np.zeros(0)
+    return KrigingPredictor(xy, values, result.covariance, result.mean, columns).coefficient_errors()
 
 
 def result_document(result: FitResult, transform: Transform, working: WorkingCrs, field: str,
@@ -56,13 +71,18 @@ def result_document(result: FitResult, transform: Transform, working: WorkingCrs
 
 def fit_shared_documents(xy: np.ndarray, values: np.ndarray, transform: Transform, working: WorkingCrs,
                          fields: list[str], settings: FitOptions, progress: Callable[[float], None] | None = None,
-                         should_stop: Callable[[], bool] | None = None) -> list[ModelDocument]:
+                         should_stop: Callable[[], bool] | None = None, covariates: CovariateSet | None = None,
+                         columns: np.ndarray | None = None) -> list[ModelDocument]:
     """One correlation model fitted jointly to several fields (``values`` (n, k)), as one document per field.
 
-    See :mod:`..algorithms.fit.shared`: every document holds the shared model at its field's scale.
+    See :mod:`..algorithms.fit.shared`: every document holds the shared model at its field's scale. ``covariates``
+    and ``columns`` as for :func:`fit_document`.
     """
-    results = fit_shared(xy, values, settings, fields, progress=progress, should_stop=should_stop)
-    return [result_document(result, transform, working, field) for result, field in zip(results, fields)]
+    settings = with_covariate_mean(settings, xy, covariates, columns)
+    results = fit_shared(xy, values, settings, fields, covariates=columns, progress=progress, should_stop=should_stop)
+    return [result_document(result, transform, working, field, covariates,
+                            coefficient_errors(result, xy, values[:, k], columns))
+            for k, (result, field) in enumerate(zip(results, fields))]
 
 
 def load_document(path: str, working: WorkingCrs) -> ModelDocument:

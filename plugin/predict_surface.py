@@ -123,19 +123,15 @@ class PredictSurfaceAlgorithm(SurfaceAlgorithm):
         paths = {kind: self.raster_destination(parameters, name, context) for kind, name in self.OUTPUT_KINDS.items()}
         paths["exceedance"] = exceedance_path
         document, samples = self.model_and_samples(parameters, context, feedback, progress_callback(feedback, 0, 30))
-        sources = self.covariate_sources(parameters, context)
         grid, inside = self.grid_and_mask(parameters, context, samples.xy, document.crs_wkt, document.units,
                                           feedback, n_bands=sum(1 for path in paths.values() if path))
         support = self.choice(parameters, self.SUPPORT, context)
         scale = SurfaceScale(document.transform, self.choice(parameters, self.BACKTRANSFORM, context), support,
                              threshold, interval)
-        def cell_covariates(start: int, stop: int):
-            return document.covariates.at_rows(sources, grid, start, stop, document.crs_wkt)
-
         self.krige_surface([document], samples.xy, samples.values, grid, inside, scale,
                            self.neighbourhood(parameters, context), [(samples.field, paths)], feedback,
                            progress_callback(feedback, 30, 100), samples.covariates,
-                           cell_covariates if sources else None)
+                           self.cell_covariates(parameters, context, document, grid))
         percents = {"lower": 50 * (1 - interval), "upper": 50 * (1 + interval)}
         for quantity, path in paths.items():
             style_on_load(context, path, samples.field, quantity, threshold=threshold, percent=percents.get(quantity))

@@ -124,6 +124,18 @@ class SurfaceAlgorithm(RasterAlgorithm):
                           "MAP_AREA to extent to map every cell.")
         return grid, limited
 
+    def cell_covariates(self, parameters, context, document: ModelDocument,
+                        grid: GridSpec) -> Callable[[int, int], np.ndarray] | None:
+        """``rows(start, stop)``: the model's covariate columns at the cells of those rows of ``grid`` from the
+        COVARIATES and CLASS_COVARIATES rasters (the model's, see ``model_covariates``); None without them."""
+        sources = self.covariate_sources(parameters, context)
+        if not sources:
+            return None
+
+        def rows(start: int, stop: int) -> np.ndarray:
+            return document.covariates.at_rows(sources, grid, start, stop, document.crs_wkt)
+        return rows
+
     @staticmethod
     def krige_surface(documents: Sequence[ModelDocument], xy: np.ndarray, values: np.ndarray, grid: GridSpec,
                       inside: np.ndarray | None, scale: SurfaceScale, neighbourhood: Neighbourhood,

@@ -209,3 +209,33 @@ def test_simulate_with_covariates_is_centred_on_kriging_with_them(qgis_processin
     # normal with the kriging mean and variance, so the standardised mean of 100 realisations is about N(0, 1).
     z = (np.log(realisations[:, on_grid]).mean(axis=0) - mean) / np.sqrt(variance / count)
     assert abs(np.mean(z)) < 1.0 and np.mean(z ** 2) < 3.0
+
+
+@pytest.mark.parametrize("shared", [False, True])
+def test_predictmany_fits_and_maps_each_field_with_the_covariates(qgis_processing, meuse, covariate_run,  # noqa: F811
+                                                                  meuse_grid, shared):
+    _, dist, ffreq, _, _, folder = covariate_run
+    samples = point_layer(meuse.xy, {"zinc": meuse.zinc, "copper": meuse.copper})
+    out = folder / f"many_{shared}"
+    qgis_processing.run("fieldcast:predictmany", {
+        "INPUT": samples, "FIELDS": ["zinc", "copper"], "COVARIATES": [dist], "CLASS_COVARIATES": [ffreq],
+        **{key: value for key, value in FIT.items() if key != "FIELD"}, "SHARED_MODEL": shared, "TEMPLATE": dist,
+        "TEMPLATE_NODATA_MASK": False, "MAP_AREA": "extent", "OUTPUT_FOLDER": str(out)})
+    cell_of = {(round(x), round(y)): k for k, (x, y) in enumerate(meuse_grid.xy)}
+    for field in ("zinc", "copper"):
+        document = ModelDocument.load(str(out / f"{field}_model.json"))
+        assert document.covariates.column_names == ("dist", "ffreq=2", "ffreq=3")
+        assert len(document.standard_errors) == 4
+        path = out / f"{field}_prediction.tif"
+        prediction, centres = band(path), cell_centres(path)
+        rows = np.array([cell_of.get((round(x), round(y)), -1) for x, y in centres])
+        on_grid = rows >= 0
+        np.testing.assert_array_equal(np.isfinite(prediction), on_grid)
+        sources = [CovariateSource("dist", dist.source()), CovariateSource("ffreq", ffreq.source(), "class")]
+        read = SampleCovariates.read(sources, meuse.xy, to_wkt2("EPSG:28992"))
+        values = np.log(getattr(meuse, field)[read.kept])
+        cell_columns = np.column_stack([meuse_grid.dist[rows[on_grid]], meuse_grid.ffreq[rows[on_grid]] == 2,
+                                        meuse_grid.ffreq[rows[on_grid]] == 3]).astype(float)
+        mean, _ = KrigingPredictor(meuse.xy[read.kept], values, document.covariance, document.mean,
+                                   read.columns).predict(centres[on_grid], cell_columns)
+        np.testing.assert_allclose(prediction[on_grid], np.exp(mean), rtol=1e-5)  # Float32 GeoTIFF
