@@ -69,6 +69,9 @@ def test_fit_records_covariates_coefficients_and_standard_errors(covariate_run, 
     line = next(line for line in lines if line.startswith("Mean coefficients"))
     assert f"dist = {document.coefficients[1]:.4g} ± {document.standard_errors[1]:.3g}" in line
     assert "ffreq=2" in line and "ffreq=3" in line
+    report = (covariate_run[5] / "fit.html").read_text(encoding="utf-8")
+    assert "<th>standard error</th>" in report
+    assert "a term per class except the baseline class 1, the most frequent at the samples" in report
 
 
 def test_crossvalidate_with_the_covariates_equals_the_engine_and_beats_no_covariates(qgis_processing, meuse,  # noqa: F811
