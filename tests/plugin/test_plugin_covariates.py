@@ -242,3 +242,20 @@ def test_predictmany_fits_and_maps_each_field_with_the_covariates(qgis_processin
         mean, _ = KrigingPredictor(meuse.xy[read.kept], values, document.covariance, document.mean,
                                    read.columns).predict(centres[on_grid], cell_columns)
         np.testing.assert_allclose(prediction[on_grid], np.exp(mean), rtol=1e-5)  # Float32 GeoTIFF
+
+
+def test_collinear_or_constant_covariates_are_refused_by_fitmodel_writing_nothing(qgis_processing, meuse,  # noqa: F811
+                                                                                  covariate_run, tmp_path):
+    samples, dist, _, _, _, _ = covariate_run
+    scaled = tmp_path / "dist_km.tif"
+    gdal.Translate(str(scaled), dist.source(), scaleParams=[[0, 1, 0, 1000]], outputType=gdal.GDT_Float32)
+    flat = tmp_path / "flat.tif"
+    gdal.Translate(str(flat), dist.source(), scaleParams=[[0, 1, 5, 5]], outputType=gdal.GDT_Float32)
+    path = tmp_path / "model.json"
+    with pytest.raises(QgsProcessingException, match="'dist_km' is a combination of the columns before it"):
+        qgis_processing.run("fieldcast:fitmodel", {"INPUT": samples, **FIT, "OUTPUT_MODEL": str(path),
+                                                   "COVARIATES": [dist, QgsRasterLayer(str(scaled), "dist_km")]})
+    with pytest.raises(QgsProcessingException, match="'flat' has the same value .* at every sample"):
+        qgis_processing.run("fieldcast:fitmodel", {"INPUT": samples, **FIT, "OUTPUT_MODEL": str(path),
+                                                   "COVARIATES": [QgsRasterLayer(str(flat), "flat")]})
+    assert not path.exists()
