@@ -34,9 +34,9 @@ from fieldcast.algorithms import (  # noqa: E402
     Transform,
     cell_predictor,
     fit_with,
+    to_wkt2,
     write_surfaces,
 )
-from fieldcast.algorithms.io.crs import to_wkt2  # noqa: E402
 from reference import load_meuse, write_meuse_covariates  # noqa: E402
 
 COST_RATIO = 3.0
