@@ -259,7 +259,8 @@ class FieldcastAlgorithm(QgsProcessingAlgorithm):
         """Say how many samples were left out for want of a covariate value."""
         if skipped:
             feedback.pushWarning(f"Skipped {skipped:,} of {total:,} samples where a covariate raster has no value "
-                                 "(nodata, outside the raster, or a class the model has no coefficient for).")
+                                 "(nodata, outside the raster, or a class the model has no coefficient for); "
+                                 f"{total - skipped:,} samples remain.")
 
     def add_target_crs_parameter(self) -> None:
         """TARGET_CRS (advanced): optional projected CRS to work in."""

@@ -259,3 +259,18 @@ def test_collinear_or_constant_covariates_are_refused_by_fitmodel_writing_nothin
         qgis_processing.run("fieldcast:fitmodel", {"INPUT": samples, **FIT, "OUTPUT_MODEL": str(path),
                                                    "COVARIATES": [QgsRasterLayer(str(flat), "flat")]})
     assert not path.exists()
+
+
+def test_without_a_model_file_the_default_fit_takes_the_covariates(qgis_processing, meuse, covariate_run):  # noqa: F811
+    samples, dist, ffreq, _, _, folder = covariate_run
+    log = Log()
+    result = qgis_processing.run("fieldcast:crossvalidate", {
+        "INPUT": samples, "FIELD": "zinc", "COVARIATES": [dist], "CLASS_COVARIATES": [ffreq],
+        "OUTPUT": str(folder / "cv_default.gpkg"), "OUTPUT_REPORT": ""}, feedback=log)
+    model_line = next(line for line in log.lines if line.startswith("Model:"))
+    assert "with covariates dist (continuous), ffreq (class, baseline class 1)" in model_line
+    _, _, read = read_samples(meuse, dist, ffreq)
+    assert result["RMSE"] > 0
+    assert any(f"Using {len(meuse.zinc)} samples" in line for line in log.lines)
+    assert any(f"Skipped {np.count_nonzero(~read.kept)} of 155 samples" in line
+               and f"{np.count_nonzero(read.kept)} samples remain" in line for line in log.lines)
