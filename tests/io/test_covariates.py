@@ -10,18 +10,23 @@ from fieldcast.algorithms import (
     CovariateSet,
     CovariateSource,
     FieldcastError,
+    FieldRasters,
     FitOptions,
     KrigingPredictor,
     MeanModel,
     SampleCovariates,
+    SurfaceScale,
+    Transform,
+    cell_predictor,
     check_design,
     fit_with,
     leave_one_out,
+    write_surfaces,
 )
 from fieldcast.algorithms.io.covariates import resample_rows, sample_at_points
 from fieldcast.algorithms.io.crs import to_wkt2
 from fieldcast.algorithms.io.grid import GridSpec
-from reference import GRID_CELL, load_meuse_grid, write_meuse_covariates
+from reference import GRID_CELL, MEUSE_LOG_ZINC, load_meuse_grid, write_meuse_covariates
 
 WORKING = to_wkt2("EPSG:28992")
 
@@ -251,3 +256,21 @@ def test_a_raster_in_another_crs_is_read_with_the_points_transformed(tmp_path, m
     both = np.isfinite(block) & np.isfinite(expected)
     assert np.count_nonzero(both) > 0.8 * np.count_nonzero(np.isfinite(expected))
     assert np.max(np.abs(block[both] - expected[both])) < 0.03
+
+
+def test_a_map_where_no_cell_has_a_covariate_value_is_refused_writing_nothing(tmp_path, sources, sampled):
+    read, xy, values = sampled
+    mean = MeanModel.for_data("constant", xy, read.covariates.column_names)
+    predictor = KrigingPredictor(xy, values, MEUSE_LOG_ZINC, mean, read.columns)
+    grid = GridSpec(150000.0, 300000.0, 100.0, 20, 10)  # far off the covariate rasters
+    path = tmp_path / "prediction.tif"
+    fields = [FieldRasters("zinc", {"prediction": str(path)}, {}, 1.0)]
+
+    def rows(start, stop):
+        return read.covariates.at_rows(sources, grid, start, stop, WORKING)
+
+    with pytest.raises(FieldcastError, match="No cell of the map area has a value in every covariate raster"):
+        write_surfaces(cell_predictor(predictor), grid, None, SurfaceScale(Transform()), WORKING, fields,
+                       covariates=rows)
+    assert list(tmp_path.iterdir()) == []
+
