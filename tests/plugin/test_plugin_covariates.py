@@ -48,6 +48,17 @@ def read_samples(meuse, dist, ffreq):
     return meuse.xy[read.kept], np.log(meuse.zinc[read.kept]), read
 
 
+def published_cells(centres, meuse_grid):
+    """Which of ``centres`` are cells of the published grid, and the covariate columns (dist, ffreq=2, ffreq=3)
+    the published grid gives them."""
+    cell_of = {(round(x), round(y)): k for k, (x, y) in enumerate(meuse_grid.xy)}
+    rows = np.array([cell_of.get((round(x), round(y)), -1) for x, y in centres])
+    on_grid = rows >= 0
+    kept = rows[on_grid]
+    return on_grid, np.column_stack([meuse_grid.dist[kept], meuse_grid.ffreq[kept] == 2,
+                                     meuse_grid.ffreq[kept] == 3]).astype(float)
+
+
 def test_fit_records_covariates_coefficients_and_standard_errors(covariate_run, meuse):
     samples, dist, ffreq, model, lines, _ = covariate_run
     document = ModelDocument.load(model)
@@ -160,14 +171,10 @@ def test_predict_with_covariates_on_their_grid_equals_kriging_and_counts_nodata(
     document = ModelDocument.load(model)
     xy, values, read = read_samples(meuse, dist, ffreq)
     # The map's cells are the published grid's cells; where the grid has no cell the covariates have no value.
-    cell_of = {(round(x), round(y)): k for k, (x, y) in enumerate(meuse_grid.xy)}
-    rows = np.array([cell_of.get((round(x), round(y)), -1) for x, y in centres])
-    on_grid = rows >= 0
+    on_grid, cell_columns = published_cells(centres, meuse_grid)
     np.testing.assert_array_equal(np.isfinite(prediction), on_grid)
     assert any(f"{np.count_nonzero(~on_grid):,} cells of the map area are nodata because a covariate raster has no "
                "value there" in line for line in log.lines)
-    cell_columns = np.column_stack([meuse_grid.dist[rows[on_grid]], meuse_grid.ffreq[rows[on_grid]] == 2,
-                                    meuse_grid.ffreq[rows[on_grid]] == 3]).astype(float)
     mean, _ = KrigingPredictor(xy, values, document.covariance, document.mean, read.columns).predict(
         centres[on_grid], cell_columns)
     np.testing.assert_allclose(prediction[on_grid], np.exp(mean), rtol=1e-5)  # Float32 GeoTIFF
@@ -196,16 +203,12 @@ def test_simulate_with_covariates_is_centred_on_kriging_with_them(qgis_processin
     nodata = dataset.GetRasterBand(1).GetNoDataValue()
     realisations[realisations == nodata] = np.nan
     centres = cell_centres(path)
-    cell_of = {(round(x), round(y)): k for k, (x, y) in enumerate(meuse_grid.xy)}
-    rows = np.array([cell_of.get((round(x), round(y)), -1) for x, y in centres])
-    on_grid = rows >= 0
+    on_grid, cell_columns = published_cells(centres, meuse_grid)
     np.testing.assert_array_equal(np.isfinite(realisations).all(axis=0), on_grid)
     assert any(f"{np.count_nonzero(~on_grid):,} cells are nodata in every output because a covariate raster" in line
                for line in log.lines)
     document = ModelDocument.load(model)
     xy, values, read = read_samples(meuse, dist, ffreq)
-    cell_columns = np.column_stack([meuse_grid.dist[rows[on_grid]], meuse_grid.ffreq[rows[on_grid]] == 2,
-                                    meuse_grid.ffreq[rows[on_grid]] == 3]).astype(float)
     mean, variance = KrigingPredictor(xy, values, document.covariance, document.mean, read.columns).predict(
         centres[on_grid], cell_columns)
     # Conditional simulation by kriging (Journel & Huijbregts 1978): at every cell the log of the realisations is
@@ -224,21 +227,17 @@ def test_predictmany_fits_and_maps_each_field_with_the_covariates(qgis_processin
         "INPUT": samples, "FIELDS": ["zinc", "copper"], "COVARIATES": [dist], "CLASS_COVARIATES": [ffreq],
         **{key: value for key, value in FIT.items() if key != "FIELD"}, "SHARED_MODEL": shared, "TEMPLATE": dist,
         "TEMPLATE_NODATA_MASK": False, "MAP_AREA": "extent", "OUTPUT_FOLDER": str(out)})
-    cell_of = {(round(x), round(y)): k for k, (x, y) in enumerate(meuse_grid.xy)}
     for field in ("zinc", "copper"):
         document = ModelDocument.load(str(out / f"{field}_model.json"))
         assert document.covariates.column_names == ("dist", "ffreq=2", "ffreq=3")
         assert len(document.standard_errors) == 4
         path = out / f"{field}_prediction.tif"
         prediction, centres = band(path), cell_centres(path)
-        rows = np.array([cell_of.get((round(x), round(y)), -1) for x, y in centres])
-        on_grid = rows >= 0
+        on_grid, cell_columns = published_cells(centres, meuse_grid)
         np.testing.assert_array_equal(np.isfinite(prediction), on_grid)
         sources = [CovariateSource("dist", dist.source()), CovariateSource("ffreq", ffreq.source(), "class")]
         read = SampleCovariates.read(sources, meuse.xy, to_wkt2("EPSG:28992"))
         values = np.log(getattr(meuse, field)[read.kept])
-        cell_columns = np.column_stack([meuse_grid.dist[rows[on_grid]], meuse_grid.ffreq[rows[on_grid]] == 2,
-                                        meuse_grid.ffreq[rows[on_grid]] == 3]).astype(float)
         mean, _ = KrigingPredictor(meuse.xy[read.kept], values, document.covariance, document.mean,
                                    read.columns).predict(centres[on_grid], cell_columns)
         np.testing.assert_allclose(prediction[on_grid], np.exp(mean), rtol=1e-5)  # Float32 GeoTIFF
