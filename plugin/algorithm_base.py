@@ -423,7 +423,8 @@ class FieldcastAlgorithm(QgsProcessingAlgorithm):
                 for definition in self.parameterDefinitions() if isinstance(definition, FILE_OUTPUTS)]
 
     def input_files(self, parameters, context) -> list[tuple[str, str]]:
-        """``(parameter name, path)`` of every input file: layer sources (also EXTENT layers) and file parameters."""
+        """``(parameter name, path)`` of every input file: layer sources (also EXTENT layers and each covariate
+        raster) and file parameters."""
         files = []
         for definition in self.parameterDefinitions():
             name = definition.name()
@@ -431,6 +432,9 @@ class FieldcastAlgorithm(QgsProcessingAlgorithm):
                 files.append((name, self.parameterAsFile(parameters, name, context)))
             elif isinstance(definition, LAYER_INPUTS):
                 files.append((name, self.layer_input_file(parameters.get(name), context)))
+            elif isinstance(definition, QgsProcessingParameterMultipleLayers):
+                files.extend((name, self.layer_input_file(value, context))
+                             for value in parameters.get(name) or [])
         return files
 
     @staticmethod

@@ -6,6 +6,7 @@ Data: the Meuse topsoil samples and the published 40 m grid's distance to the ri
 from __future__ import annotations
 
 import json
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -273,3 +274,14 @@ def test_without_a_model_file_the_default_fit_takes_the_covariates(qgis_processi
     assert any(f"Using {len(meuse.zinc)} samples" in line for line in log.lines)
     assert any(f"Skipped {np.count_nonzero(~read.kept)} of 155 samples" in line
                and f"{np.count_nonzero(read.kept)} samples remain" in line for line in log.lines)
+
+
+def test_an_output_on_a_covariate_raster_is_refused(qgis_processing, covariate_run):  # noqa: F811
+    samples, dist, ffreq, model, _, _ = covariate_run
+    before = Path(ffreq.source()).read_bytes()
+    with pytest.raises(QgsProcessingException, match="OUTPUT would overwrite the input file .*ffreq.tif "
+                                                     "\\(CLASS_COVARIATES\\)"):
+        qgis_processing.run("fieldcast:predict", {
+            "INPUT": samples, "FIELD": "zinc", "MODEL": model, "COVARIATES": [dist], "CLASS_COVARIATES": [ffreq],
+            "TEMPLATE": dist, "OUTPUT": ffreq.source()})
+    assert Path(ffreq.source()).read_bytes() == before
