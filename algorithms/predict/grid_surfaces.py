@@ -47,14 +47,12 @@ mean's covariate columns at the centres) is passed only when the mean names cova
 def cell_predictor(predictor: KrigingPredictor | LocalKrigingPredictor, support: str = "point",
                    pixel_size: float = 0.0) -> CellPredictor:
     """Kriging at cell centres or other points (``support == "point"``) or of cell averages of side
-    ``pixel_size`` (``"cell"``, block kriging; global :class:`KrigingPredictor` only)."""
+    ``pixel_size`` (``"cell"``, block kriging; global :class:`KrigingPredictor` only; a cell's covariate columns
+    stand for their average over the cell)."""
     if support == "cell":
-        if predictor.mean.covariate_names:
-            raise FieldcastError("Cell-average (block) kriging does not take covariates yet; set SUPPORT to point, "
-                                 "or leave COVARIATES and CLASS_COVARIATES empty.")
-
-        def predict(centres, progress, should_stop):
-            return block_predict(predictor, centres, pixel_size, progress=progress, should_stop=should_stop)
+        def predict(centres, progress, should_stop, covariates0=None):
+            return block_predict(predictor, centres, pixel_size, covariates0, progress=progress,
+                                 should_stop=should_stop)
     else:
         def predict(centres, progress, should_stop, covariates0=None):
             return predictor.predict(centres, covariates0, progress=progress, should_stop=should_stop)

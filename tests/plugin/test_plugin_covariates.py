@@ -16,6 +16,7 @@ from qgis.core import QgsProcessingException, QgsRasterLayer
 from fieldcast.algorithms.io.covariates import CovariateSource, SampleCovariates
 from fieldcast.algorithms.io.crs import to_wkt2
 from fieldcast.algorithms.io.model_file import ModelDocument
+from fieldcast.algorithms.predict.block import block_predict
 from fieldcast.algorithms.predict.crossval import leave_one_out
 from fieldcast.algorithms.predict.kriging import KrigingPredictor
 from qgis_support import fieldcast_plugin, point_layer, qgis_processing  # noqa: F401 - fixtures
@@ -285,3 +286,23 @@ def test_an_output_on_a_covariate_raster_is_refused(qgis_processing, covariate_r
             "INPUT": samples, "FIELD": "zinc", "MODEL": model, "COVARIATES": [dist], "CLASS_COVARIATES": [ffreq],
             "TEMPLATE": dist, "OUTPUT": ffreq.source()})
     assert Path(ffreq.source()).read_bytes() == before
+
+
+def test_cell_support_with_covariates_is_block_kriging_with_the_cell_values(qgis_processing, meuse,  # noqa: F811
+                                                                            covariate_run, meuse_grid):
+    samples, dist, ffreq, model, _, folder = covariate_run
+    path = folder / "zinc_blocks.tif"
+    qgis_processing.run("fieldcast:predict", {
+        "INPUT": samples, "FIELD": "zinc", "MODEL": model, "COVARIATES": [dist], "CLASS_COVARIATES": [ffreq],
+        "TEMPLATE": dist, "TEMPLATE_NODATA_MASK": False, "MAP_AREA": "extent", "SUPPORT": "cell",
+        "OUTPUT": str(path), "OUTPUT_VARIANCE": "", "OUTPUT_SD": ""})
+    prediction, centres = band(path), cell_centres(path)
+    on_grid, cell_columns = published_cells(centres, meuse_grid)
+    document = ModelDocument.load(model)
+    xy, values, read = read_samples(meuse, dist, ffreq)
+    predictor = KrigingPredictor(xy, values, document.covariance, document.mean, read.columns)
+    # Block kriging (Journel & Huijbregts 1978) of the cell average, the covariates' cell values standing for
+    # their average over the cell (the output cells are the covariate raster's own cells here).
+    mean, _ = block_predict(predictor, centres[on_grid][::50], 40.0, cell_columns[::50])
+    np.testing.assert_array_equal(np.isfinite(prediction), on_grid)
+    np.testing.assert_allclose(prediction[on_grid][::50], np.exp(mean), rtol=1e-5)
