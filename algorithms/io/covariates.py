@@ -205,8 +205,12 @@ class CovariateSet:
             problems.append(f"extra {', '.join(map(repr, extra))}")
         if not problems:
             problems.append("given as another kind or in another order")
+        if not wanted:
+            raise FieldcastError(f"The model was fitted without covariates, but covariates are given ({problems[0]}). "
+                                 "Leave COVARIATES and CLASS_COVARIATES empty, or refit the model with these "
+                                 "covariates.")
         wanted_words = ", ".join(f"{name!r} ({'CLASS_COVARIATES' if kind == 'class' else 'COVARIATES'})"
-                                 for name, kind in wanted) or "none"
+                                 for name, kind in wanted)
         raise FieldcastError(f"The model was fitted with the covariates {wanted_words}; here they are "
                              f"{'; '.join(problems)}. Give the same raster layers (by layer name, in the same "
                              "order), or refit the model with these covariates.")

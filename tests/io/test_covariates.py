@@ -220,6 +220,9 @@ def test_later_steps_require_the_same_covariates(sources, sampled):
         covariates.require([*sources, CovariateSource("elev", sources[0].path)])
     with pytest.raises(FieldcastError, match="another kind or in another order"):
         covariates.require(sources[::-1])
+    with pytest.raises(FieldcastError, match="fitted without covariates.*extra 'dist'.*Leave COVARIATES"):
+        CovariateSet().require(sources[:1])
+    CovariateSet().require([])
     with pytest.raises(FieldcastError, match="'ffreq' \\(CLASS_COVARIATES\\).*another kind"):
         covariates.require([sources[0], CovariateSource("ffreq", sources[1].path)])
 
