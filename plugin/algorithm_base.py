@@ -11,6 +11,7 @@ import time
 import traceback
 from collections.abc import Callable, Sequence
 
+import numpy as np
 from qgis.core import (
     QgsProcessing,
     QgsProcessingAlgorithm,
@@ -27,6 +28,7 @@ from qgis.core import (
     QgsProcessingParameterFileDestination,
     QgsProcessingParameterFolderDestination,
     QgsProcessingParameterMapLayer,
+    QgsProcessingParameterMultipleLayers,
     QgsProcessingParameterNumber,
     QgsProcessingParameterRasterDestination,
     QgsProcessingParameterRasterLayer,
@@ -42,6 +44,8 @@ from ..algorithms import (
     KERNEL_CHOICES,
     TRANSFORM_KINDS,
     Cancelled,
+    CovariateSet,
+    CovariateSource,
     FieldcastError,
     FieldcastUsageError,
     FitOptions,
@@ -50,7 +54,9 @@ from ..algorithms import (
     Neighbourhood,
     OutputSet,
     RasterTemplate,
+    SampleCovariates,
     Transform,
+    WorkingCrs,
     refuse_read_only,
     remove_stale_files,
     termination_cleanup,
@@ -60,7 +66,7 @@ from .help_text import SHORT_DESCRIPTIONS, help_url, parameter_help, search_word
 from .icons import icon, icon_path
 from .model_source import describe_document, fit_document, load_document, log_fit
 from .report.page import ReportError
-from .sample_reader import LayerSamples, ModelSamples, prepare_samples, read_layer_samples
+from .sample_reader import LayerSamples, ModelSamples, crs_wkt, prepare_samples, read_layer_samples
 from .whole_numbers import whole_number
 
 TREND_CHOICES = ("constant", "linear", "quadratic")
@@ -130,6 +136,8 @@ class FieldcastAlgorithm(QgsProcessingAlgorithm):
     SEARCH_RADIUS = "SEARCH_RADIUS"
     THRESHOLD = "THRESHOLD"
     BACKTRANSFORM = "BACKTRANSFORM"
+    COVARIATES = "COVARIATES"
+    CLASS_COVARIATES = "CLASS_COVARIATES"
     ICON = "fieldcast.svg"
 
     def tr(self, text: str) -> str:
@@ -197,6 +205,63 @@ class FieldcastAlgorithm(QgsProcessingAlgorithm):
         self.addParameter(QgsProcessingParameterFile(
             self.MODEL, self.tr("Model file (from 'Fit covariance model'; empty = fit with the defaults)"),
             extension="json", optional=True))
+
+    def add_covariate_parameters(self) -> None:
+        """COVARIATES and CLASS_COVARIATES: optional raster layers whose values (or classes) enter the mean."""
+        for name, description in ((self.COVARIATES, "Covariate rasters (continuous values)"),
+                                  (self.CLASS_COVARIATES, "Class covariate rasters (class codes)")):
+            self.addParameter(QgsProcessingParameterMultipleLayers(
+                name, self.tr(description), QgsProcessing.TypeRaster, optional=True))
+
+    def covariate_sources(self, parameters, context) -> list[CovariateSource]:
+        """The COVARIATES then the CLASS_COVARIATES layers, named by their layer names (refused when two share one)."""
+        sources = []
+        for name, kind in ((self.COVARIATES, "continuous"), (self.CLASS_COVARIATES, "class")):
+            for layer in self.parameterAsLayerList(parameters, name, context) or []:
+                crs = layer.crs()
+                sources.append(CovariateSource(layer.name(), layer.source(), kind,
+                                               crs_wkt(crs) if crs.isValid() else ""))
+        names = [source.name for source in sources]
+        repeated = sorted({name for name in names if names.count(name) > 1})
+        if repeated:
+            raise FieldcastError(f"Several covariate layers are named {', '.join(map(repr, repeated))}; the model "
+                                 "knows covariates by layer name. Rename the layers (Layer Properties > Source > "
+                                 "Layer name) or give each raster once in COVARIATES or CLASS_COVARIATES.")
+        return sources
+
+    def fit_covariates(self, samples: ModelSamples, sources: list[CovariateSource], working: WorkingCrs,
+                       feedback) -> tuple[ModelSamples, CovariateSet]:
+        """The samples with the covariates read at them for a fit, and the covariates they describe."""
+        if not sources:
+            return samples, CovariateSet()
+        read = SampleCovariates.read(sources, samples.xy, working.wkt)
+        self.log_covariate_skips(read.skipped, len(samples.values), feedback)
+        return samples.with_covariates(read.columns, read.kept), read.covariates
+
+    def model_covariates(self, samples: ModelSamples, document: ModelDocument, sources: list[CovariateSource],
+                         working: WorkingCrs, feedback) -> ModelSamples:
+        """The samples with the model's covariates read at them; the rasters must be the model's (name, order)."""
+        if document.mean.covariate_names and not document.covariates.covariates:
+            raise FieldcastError("The model file names covariate columns but no covariate rasters. Refit it with "
+                                 "'Fit covariance model' and the rasters in COVARIATES or CLASS_COVARIATES.")
+        document.covariates.require(sources)
+        if not sources:
+            return samples
+        columns = document.covariates.at_points(sources, samples.xy, working.wkt)
+        kept = np.all(np.isfinite(columns), axis=1)
+        self.log_covariate_skips(int(np.count_nonzero(~kept)), len(kept), feedback)
+        if not kept.any():
+            raise FieldcastError("No sample has a value in every covariate raster (or a class the model knows). "
+                                 "Check that the rasters cover the samples, or refit the model.")
+        return samples.with_covariates(columns[kept], kept)
+
+    @staticmethod
+    def log_covariate_skips(skipped: int, total: int, feedback) -> None:
+        """Say how many samples were left out for want of a covariate value."""
+        if skipped:
+            feedback.pushWarning(f"Skipped {skipped:,} of {total:,} samples where a covariate raster has no value "
+                                 "(nodata, outside the raster, or a class the model has no coefficient for); "
+                                 f"{total - skipped:,} samples remain.")
 
     def add_target_crs_parameter(self) -> None:
         """TARGET_CRS (advanced): optional projected CRS to work in."""
@@ -329,22 +394,26 @@ class FieldcastAlgorithm(QgsProcessingAlgorithm):
                           progress: Callable[[float], None]) -> tuple[ModelDocument, ModelSamples]:
         """The model from MODEL, or one fitted with the default settings, and the samples in its scale."""
         layer_samples = self.read_samples(parameters, context, feedback)
+        sources = self.covariate_sources(parameters, context) if self.parameterDefinition(self.COVARIATES) else []
+        working = layer_samples.working
         path = self.parameterAsFile(parameters, self.MODEL, context)
         if path:
-            document = load_document(path, layer_samples.working)
+            document = load_document(path, working)
             feedback.pushInfo(f"Model read from {path}.")
             if document.field and document.field != layer_samples.field:
                 feedback.pushWarning(f"The model was fitted to field {document.field!r}; "
                                      f"it is applied here to {layer_samples.field!r}.")
             samples = prepare_samples(layer_samples, document.transform, feedback)
+            samples = self.model_covariates(samples, document, sources, working, feedback)
         else:
             settings = FitOptions()
             feedback.pushInfo(f"No model file given: fitting a model with the default settings "
                               f"({settings.describe()}, no transform). Run 'Fit covariance model' to choose them.")
-            samples = prepare_samples(layer_samples, Transform(), feedback)
-            document, result = fit_document(samples.xy, samples.values, Transform(), layer_samples.working,
-                                            layer_samples.field, settings, progress, feedback.isCanceled)
-            log_fit(feedback, samples.xy, samples.values, result, document)
+            samples, covariates = self.fit_covariates(prepare_samples(layer_samples, Transform(), feedback), sources,
+                                                      working, feedback)
+            document, result = fit_document(samples.xy, samples.values, Transform(), working, layer_samples.field,
+                                            settings, progress, feedback.isCanceled, covariates, samples.covariates)
+            log_fit(feedback, samples.xy, samples.values, result, document, columns=samples.covariates)
         feedback.pushInfo(describe_document(document))
         return document, samples
 
@@ -356,7 +425,8 @@ class FieldcastAlgorithm(QgsProcessingAlgorithm):
                 for definition in self.parameterDefinitions() if isinstance(definition, FILE_OUTPUTS)]
 
     def input_files(self, parameters, context) -> list[tuple[str, str]]:
-        """``(parameter name, path)`` of every input file: layer sources (also EXTENT layers) and file parameters."""
+        """``(parameter name, path)`` of every input file: layer sources (also EXTENT layers and each covariate
+        raster) and file parameters."""
         files = []
         for definition in self.parameterDefinitions():
             name = definition.name()
@@ -364,6 +434,9 @@ class FieldcastAlgorithm(QgsProcessingAlgorithm):
                 files.append((name, self.parameterAsFile(parameters, name, context)))
             elif isinstance(definition, LAYER_INPUTS):
                 files.append((name, self.layer_input_file(parameters.get(name), context)))
+            elif isinstance(definition, QgsProcessingParameterMultipleLayers):
+                files.extend((name, self.layer_input_file(value, context))
+                             for value in parameters.get(name) or [])
         return files
 
     @staticmethod

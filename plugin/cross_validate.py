@@ -27,7 +27,7 @@ from ..algorithms import (
 from .algorithm_base import FieldcastAlgorithm, progress_callback, push_log
 from .field_names import free_names
 from .field_types import field_type
-from .help_text import MODEL_FILE_HELP, TARGET_CRS_HELP, compose_help
+from .help_text import COVARIATE_HELP, MODEL_FILE_HELP, TARGET_CRS_HELP, compose_help
 from .report.crossvalidation_report import write_crossvalidation_report
 from .sample_reader import ModelSamples
 from .sinks import checked_sink
@@ -60,6 +60,7 @@ class CrossValidateAlgorithm(FieldcastAlgorithm):
         [("Sample points / Value field", "The samples to check (NULL values skipped, samples at one "
           "location averaged)."),
          MODEL_FILE_HELP,
+         *COVARIATE_HELP,
          ("Neighbours per sample", "0 (the default): each sample is predicted from all the others (global "
           "kriging, computed in closed form), up to 5,000 samples; with more, each sample from its 64 nearest others "
           "and the log says so. A number k: from its k nearest other samples (local kriging; 16 to "
@@ -99,6 +100,7 @@ class CrossValidateAlgorithm(FieldcastAlgorithm):
     def initAlgorithm(self, config=None):
         self.add_sample_parameters()
         self.add_model_parameter()
+        self.add_covariate_parameters()
         self.add_neighbourhood_parameters("sample")
         self.add_target_crs_parameter()
         self.addParameter(QgsProcessingParameterFeatureSink(self.OUTPUT, self.tr("Cross-validation points")))
@@ -158,7 +160,8 @@ class CrossValidateAlgorithm(FieldcastAlgorithm):
                          samples: ModelSamples) -> CrossValidation:
         """Global (closed form) or local leave-one-out by NEIGHBOURS and SEARCH_RADIUS, the engine's choice logged."""
         result, lines = cross_validate_with(samples.xy, samples.values, document.covariance, document.mean,
-                                            self.neighbourhood(parameters, context), units=document.units,
+                                            self.neighbourhood(parameters, context), covariates=samples.covariates,
+                                            units=document.units,
                                             progress=progress_callback(feedback, 80, 95),
                                             should_stop=feedback.isCanceled)
         push_log(feedback, lines)

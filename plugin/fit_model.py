@@ -20,7 +20,7 @@ from ..algorithms import (
     residual_semivariograms,
 )
 from .algorithm_base import FieldcastAlgorithm, progress_callback
-from .help_text import FIT_HELP, TARGET_CRS_HELP, compose_help
+from .help_text import COVARIATE_HELP, FIT_HELP, TARGET_CRS_HELP, compose_help
 from .model_source import fit_document, log_fit
 from .report.fit_report import write_fit_report
 from .sample_reader import ModelSamples, prepare_samples
@@ -46,7 +46,7 @@ def fit_report_arguments(samples: ModelSamples, skipped: Mapping[str, int], resu
     """Everything :func:`.report.fit_report.write_fit_report` takes besides the path.
 
     The semivariograms (omnidirectional, and at 0, 45, 90 and 135 degrees) are of the residuals
-    ``values - F beta`` from the fitted mean, in the modelling scale. Each candidate model is
+    ``values - F beta`` from the fitted mean (trend and covariates), in the modelling scale. Each candidate model is
     cross-validated by leave-one-out with the fitted mean kind, for its RMSE (modelling units), with
     progress from :data:`FIT_PERCENT_WITH_REPORT` to 99 %; a cancel is asked before each candidate.
     Too few samples for leave-one-out leave the RMSE column empty, with a warning.
@@ -56,11 +56,12 @@ def fit_report_arguments(samples: ModelSamples, skipped: Mapping[str, int], resu
     Cancelled
         When the user cancels.
     """
-    residuals = samples.values - result.mean.design(samples.xy) @ result.coefficients
+    residuals = samples.values - result.mean.design(samples.xy, samples.covariates) @ result.coefficients
     variograms = residual_semivariograms(samples.xy, residuals)
     try:
         loo_rmse = candidate_rmse(samples.xy, samples.values, [c.covariance for c in result.candidates],
-                                  result.mean, progress=progress_callback(feedback, FIT_PERCENT_WITH_REPORT, 99.0),
+                                  result.mean, covariates=samples.covariates,
+                                  progress=progress_callback(feedback, FIT_PERCENT_WITH_REPORT, 99.0),
                                   should_stop=feedback.isCanceled)
     except FieldcastUsageError:
         raise  # a programming error: processAlgorithm reports it as an internal error
@@ -86,6 +87,7 @@ class FitModelAlgorithm(FieldcastAlgorithm):
         "model'.",
         [("Sample points / Value field", "Point layer and its numeric attribute. NULL values are skipped; "
           "samples at the same location are averaged. Multipoints with several points are refused."),
+         *COVARIATE_HELP,
          *FIT_HELP,
          TARGET_CRS_HELP],
         [("Model file", "JSON file with the fitted model, its CRS, transform and fit statistics."),
@@ -104,6 +106,7 @@ class FitModelAlgorithm(FieldcastAlgorithm):
 
     def initAlgorithm(self, config=None):
         self.add_sample_parameters()
+        self.add_covariate_parameters()
         self.add_fit_parameters()
         self.add_target_crs_parameter()
         self.addParameter(QgsProcessingParameterFileDestination(
@@ -116,14 +119,17 @@ class FitModelAlgorithm(FieldcastAlgorithm):
     def compute(self, parameters, context, feedback) -> dict:
         transform, settings = self.fit_choices(parameters, context)
         report_path = self.report_destination(parameters, context)
+        sources = self.covariate_sources(parameters, context)
         layer_samples = self.read_samples(parameters, context, feedback)
-        samples = prepare_samples(layer_samples, transform, feedback)
-        feedback.pushInfo(f"Fitting with {settings.describe()}.")
+        samples, covariates = self.fit_covariates(prepare_samples(layer_samples, transform, feedback), sources,
+                                                  layer_samples.working, feedback)
+        feedback.pushInfo(f"Fitting with {settings.describe()}"
+                          + (f", covariates {', '.join(covariates.column_names)}." if sources else "."))
         fit_percent = FIT_PERCENT_WITH_REPORT if report_path else 99.0
         document, result = fit_document(samples.xy, samples.values, transform, layer_samples.working,
                                         layer_samples.field, settings, progress_callback(feedback, 0.0, fit_percent),
-                                        feedback.isCanceled)
-        log_fit(feedback, samples.xy, samples.values, result, document)
+                                        feedback.isCanceled, covariates, samples.covariates)
+        log_fit(feedback, samples.xy, samples.values, result, document, columns=samples.covariates)
         report = None
         if report_path:
             feedback.pushInfo(f"Leave-one-out of the {len(result.candidates)} candidate model(s) for the report.")

@@ -46,6 +46,26 @@ FIT_HELP = [
      "squares on the empirical semivariogram)."),
 ]
 
+COVARIATE_HELP = [
+    ("Covariate rasters", "Optional raster layers of continuous values that explain part of the value field "
+     "(distance to a river, elevation, ...). Each enters the mean as one term whose coefficient is estimated "
+     "from all samples by generalised least squares (kriging with external drift); kriging then works on what "
+     "they leave unexplained. They help when the field follows them closely and the rasters cover every place "
+     "mapped; the log and the model file give each coefficient with its standard error. Band 1 is read at the "
+     "samples (bilinear, in the raster's own CRS) and, for maps, resampled onto the output cells; samples where "
+     "a raster has no value are left out and counted, and such places get no prediction (counted). Caution: the "
+     "covariate trend extrapolates where a covariate leaves the range it has at the samples, and the log counts "
+     "those places. A covariate that does not vary at the samples, or repeats the trend or another covariate, "
+     "is refused. Covariates are known by their layer names: a tool reading a model file needs the rasters it "
+     "was fitted with, under the same names and in the same order (a missing or extra one is refused)."),
+    ("Class covariate rasters", "Optional raster layers of class codes (soil type, flood-frequency class, land "
+     "use). Each class seen at the samples gets a mean term of its own, except the most frequent one (the "
+     "baseline, recorded in the model file). Classes are taken from the cell that holds a sample or a target "
+     "(nearest), never averaged; a place whose class no sample has gets no prediction (its term cannot be "
+     "estimated), and is counted. With covariates, kriging uses all samples: Neighbours above 0 (local kriging) "
+     "is refused until it can take the coefficients estimated from all samples."),
+]
+
 GRID_HELP = [
     ("Template raster", "Optional raster layer (a file GDAL reads, e.g. an elevation or land-use GeoTIFF) whose "
      "grid the outputs take exactly: its CRS, corner, cell size, columns and rows, so they overlay it cell for "

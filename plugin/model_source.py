@@ -8,12 +8,17 @@ import numpy as np
 from qgis.core import QgsProcessingFeedback
 
 from ..algorithms import (
+    CovariateSet,
     FieldcastError,
     FitOptions,
     FitResult,
+    KrigingPredictor,
+    MeanModel,
     ModelDocument,
     Transform,
     WorkingCrs,
+    check_design,
+    coefficient_line,
     fit_log_lines,
     fit_shared,
     fit_with,
@@ -25,51 +30,84 @@ from ..algorithms import (
 
 def fit_document(xy: np.ndarray, values: np.ndarray, transform: Transform, working: WorkingCrs, field: str,
                  settings: FitOptions, progress: Callable[[float], None] | None = None,
-                 should_stop: Callable[[], bool] | None = None) -> tuple[ModelDocument, FitResult]:
+                 should_stop: Callable[[], bool] | None = None, covariates: CovariateSet | None = None,
+                 columns: np.ndarray | None = None) -> tuple[ModelDocument, FitResult]:
     """Fit a covariance and mean model and wrap it, with its CRS and transform, as a model document.
 
-    ``xy`` is in the working CRS and ``values`` in the modelling scale (after ``transform``).
+    ``xy`` is in the working CRS and ``values`` in the modelling scale (after ``transform``); ``columns`` are the
+    design columns of ``covariates`` at the samples (refused when collinear with the trend terms).
     Returns the document and the engine's fit result (candidates and all), which the fit report reads. The fit's
     warnings give distances in the working CRS's units.
     """
-    result = fit_with(xy, values, replace(settings, units=working.units), progress=progress, should_stop=should_stop)
-    return result_document(result, transform, working, field), result
+    settings = replace(with_covariate_mean(settings, xy, covariates, columns), units=working.units)
+    result = fit_with(xy, values, settings, covariates=columns, progress=progress, should_stop=should_stop)
+    return result_document(result, transform, working, field, covariates,
+                           coefficient_errors(result, xy, values, columns)), result
 
 
-def result_document(result: FitResult, transform: Transform, working: WorkingCrs, field: str) -> ModelDocument:
-    """A fit result as a model document of ``field`` in the working CRS."""
+def with_covariate_mean(settings: FitOptions, xy: np.ndarray, covariates: CovariateSet | None,
+                        columns: np.ndarray | None) -> FitOptions:
+    """The settings with a mean model naming the covariates' columns, refused when they are collinear with the
+    trend at the samples; the settings unchanged without covariates."""
+    if covariates is None or not covariates.covariates:
+        return settings
+    mean = MeanModel.for_data(settings.mean, xy, covariates.column_names)
+    check_design(mean.design(xy, columns), mean.term_names)
+    return replace(settings, mean=mean)
+
+
+def coefficient_errors(result: FitResult, xy: np.ndarray, values: np.ndarray,
+                       columns: np.ndarray | None) -> np.ndarray:
+    """Standard errors of the fit's GLS coefficients given its covariance; empty for a Vecchia fit (the exact
+    system of a large data set is not formed)."""
+    if not result.likelihood.startswith("exact"):
+        return np.zeros(0)
+    return KrigingPredictor(xy, values, result.covariance, result.mean, columns).coefficient_errors()
+
+
+def result_document(result: FitResult, transform: Transform, working: WorkingCrs, field: str,
+                    covariates: CovariateSet | None = None, errors: np.ndarray | None = None) -> ModelDocument:
+    """A fit result as a model document of ``field`` in the working CRS, with its covariates and the standard
+    errors of its coefficients (when computed)."""
     return ModelDocument(result.covariance, result.mean, result.coefficients, transform, working.wkt, working.units,
-                         field, result.summary())
+                         field, result.summary(), covariates or CovariateSet(),
+                         np.zeros(0) if errors is None else errors)
 
 
 def fit_shared_documents(xy: np.ndarray, values: np.ndarray, transform: Transform, working: WorkingCrs,
                          fields: list[str], settings: FitOptions, progress: Callable[[float], None] | None = None,
-                         should_stop: Callable[[], bool] | None = None
-                         ) -> list[tuple[ModelDocument, FitResult]]:
+                         should_stop: Callable[[], bool] | None = None, covariates: CovariateSet | None = None,
+                         columns: np.ndarray | None = None) -> list[tuple[ModelDocument, FitResult]]:
     """One correlation model fitted jointly to several fields (``values`` (n, k)), as one document per field.
 
-    See :mod:`..algorithms.fit.shared`: every document holds the shared model at its field's scale. Returns
-    each field's document with its fit result, in the order of ``fields``.
+    See :mod:`..algorithms.fit.shared`: every document holds the shared model at its field's scale. ``covariates``
+    and ``columns`` as for :func:`fit_document`. Returns each field's document with its fit result, in the order
+    of ``fields``.
     """
-    results = fit_shared(xy, values, replace(settings, units=working.units), fields, progress=progress,
-                         should_stop=should_stop)
-    return [(result_document(result, transform, working, field), result) for result, field in zip(results, fields)]
+    settings = replace(with_covariate_mean(settings, xy, covariates, columns), units=working.units)
+    results = fit_shared(xy, values, settings, fields, covariates=columns, progress=progress, should_stop=should_stop)
+    return [(result_document(result, transform, working, field, covariates,
+                             coefficient_errors(result, xy, values[:, k], columns)), result)
+            for k, (result, field) in enumerate(zip(results, fields))]
 
 
 def log_fit(feedback: QgsProcessingFeedback, xy: np.ndarray, values: np.ndarray, result: FitResult,
-            document: ModelDocument, label: str = "") -> None:
+            document: ModelDocument, label: str = "", columns: np.ndarray | None = None) -> None:
     """The log of a fit, the same in every algorithm that fits a model.
 
-    Info: the chosen model in words and every candidate with its AIC and ΔAIC (the engine's
-    ``fit_log_lines``). Warnings: the fit's own (few samples, no structure resolved, parameters at a bound,
-    convergence) and the engine's ``range_warning`` (a range beyond the study while the residuals level off
-    inside it). ``xy`` and ``values`` are the samples fitted, in the working CRS and the modelling scale;
-    ``label`` (a field name), when given, starts every line, for runs that fit several fields.
+    Info: the chosen model in words, every candidate with its AIC and ΔAIC (the engine's ``fit_log_lines``) and
+    the trend coefficients with their standard errors. Warnings: the fit's own (few samples, no structure
+    resolved, parameters at a bound, convergence) and the engine's ``range_warning`` (a range beyond the study
+    while the residuals level off inside it). ``xy`` and ``values`` are the samples fitted, in the working CRS
+    and the modelling scale, ``columns`` their covariate columns; ``label`` (a field name), when given, starts
+    every line, for runs that fit several fields.
     """
     prefix = f"{label}: " if label else ""
     for line in fit_log_lines(result, document.units):
         feedback.pushInfo(prefix + line)
-    long_range = range_warning(xy, values, result, document.units)
+    feedback.pushInfo(prefix + coefficient_line(document.mean.term_names, document.coefficients,
+                                                document.standard_errors))
+    long_range = range_warning(xy, values, result, document.units, columns)
     for warning in [*document.fit.get("warnings", []), *([long_range] if long_range else [])]:
         feedback.pushWarning(prefix + warning)
 
@@ -104,4 +142,7 @@ def describe_document(document: ModelDocument) -> str:
                      f"{document.units}, azimuth {structure.azimuth:.1f}°, ratio {structure.ratio:.3g}")
     transform = "no transform" if document.transform.kind == "none" else \
         f"log transform (offset {document.transform.offset:g})"
-    return f"Model: {'; '.join(parts)}; {document.mean.kind} mean; {transform}."
+    covariates = ", ".join(f"{c.name} ({c.kind}" + (f", baseline class {c.baseline:g})" if c.kind == "class" else ")")
+                           for c in document.covariates.covariates)
+    mean = f"{document.mean.kind} mean" + (f" with covariates {covariates}" if covariates else "")
+    return f"Model: {'; '.join(parts)}; {mean}; {transform}."

@@ -14,10 +14,21 @@ from qgis.core import (
     QgsProcessingParameterFolderDestination,
 )
 
-from ..algorithms import Cancelled, FieldcastError, FitOptions, MeanModel, Neighbourhood, SurfaceScale, Transform
+from ..algorithms import (
+    Cancelled,
+    CovariateSet,
+    FieldcastError,
+    FitOptions,
+    MeanModel,
+    Neighbourhood,
+    SurfaceScale,
+    Transform,
+    refuse_local_covariates,
+)
 from .algorithm_base import progress_callback
 from .help_text import (
     BACKTRANSFORM_HELP,
+    COVARIATE_HELP,
     FIT_HELP,
     GRID_HELP,
     MAP_AREA_HELP,
@@ -75,6 +86,7 @@ class PredictManyAlgorithm(SurfaceAlgorithm):
         [("Sample points", "The point layer."),
          ("Value fields", "One or more numeric attributes. Each field's NULL values are skipped "
           "separately, so the fields may have different samples; samples at one location are averaged."),
+         *COVARIATE_HELP,
          *FIT_HELP,
          ("One correlation model for all fields", "Off (default): each field gets a model of its own. On: one "
           "correlation model (family, ranges, anisotropy, nugget share) is fitted to all fields jointly, each field "
@@ -105,6 +117,7 @@ class PredictManyAlgorithm(SurfaceAlgorithm):
         self.addParameter(QgsProcessingParameterField(
             self.FIELDS, self.tr("Value fields"), parentLayerParameterName=self.INPUT,
             type=QgsProcessingParameterField.Numeric, allowMultiple=True))
+        self.add_covariate_parameters()
         self.add_fit_parameters()
         self.addParameter(QgsProcessingParameterBoolean(
             self.SHARED_MODEL, self.tr("One correlation model for all fields"), defaultValue=False))
@@ -176,14 +189,20 @@ class PredictManyAlgorithm(SurfaceAlgorithm):
         transform, settings = self.fit_choices(parameters, context)
         target = self.parameterAsCrs(parameters, self.TARGET_CRS, context)
         template = self.grid_template(parameters, context)
-        prepared = []
+        sources = self.covariate_sources(parameters, context)
+        prepared, covariates = [], []
         for field in fields:  # every field is checked before any file is written
             layer_samples = read_layer_samples(source, field, target, feedback, template)
-            prepared.append((layer_samples, prepare_samples(layer_samples, transform, feedback)))
+            samples, described = self.fit_covariates(prepare_samples(layer_samples, transform, feedback), sources,
+                                                     layer_samples.working, feedback)
+            prepared.append((layer_samples, samples))
+            covariates.append(described)
         run = FieldsRun(prepared, file_stems(fields), folder, transform, settings,
                         self.neighbourhood(parameters, context),
-                        SurfaceScale(transform, self.choice(parameters, self.BACKTRANSFORM, context)))
-        run.neighbourhood.resolved(MeanModel.for_data(settings.mean, prepared[0][1].xy), "cell")  # refuse early
+                        SurfaceScale(transform, self.choice(parameters, self.BACKTRANSFORM, context)), covariates)
+        first_mean = MeanModel.for_data(settings.mean, prepared[0][1].xy, covariates[0].column_names)
+        neighbours, _ = run.neighbourhood.resolved(first_mean, "cell")  # refuse early
+        refuse_local_covariates(first_mean, neighbours, len(prepared[0][1].values))
         if self.parameterAsBoolean(parameters, self.SHARED_MODEL, context):
             self.predict_shared(run, parameters, context, feedback)
         else:
@@ -208,8 +227,8 @@ class PredictManyAlgorithm(SurfaceAlgorithm):
                 document, result = fit_document(samples.xy, samples.values, run.transform, layer_samples.working,
                                                 field, run.settings,
                                                 progress_callback(feedback, start, start + FIT_SHARE * share),
-                                                feedback.isCanceled)
-                log_fit(feedback, samples.xy, samples.values, result, document, field)
+                                                feedback.isCanceled, run.covariates[index], samples.covariates)
+                log_fit(feedback, samples.xy, samples.values, result, document, field, samples.covariates)
                 feedback.pushInfo(describe_document(document))
                 key = (document.crs_wkt, samples.xy.tobytes())
                 if key in grids:
@@ -219,7 +238,9 @@ class PredictManyAlgorithm(SurfaceAlgorithm):
                                                     document.units, feedback, n_bands=len(RASTER_KINDS))
                 self.krige_surface([document], samples.xy, samples.values, *grids[key], run.scale, run.neighbourhood,
                                    [(field, run.raster_paths(field))], feedback,
-                                   progress_callback(feedback, start + FIT_SHARE * share, start + share))
+                                   progress_callback(feedback, start + FIT_SHARE * share, start + share),
+                                   samples.covariates, self.cell_covariates(parameters, context, document,
+                                                                            grids[key][0]))
                 document.save(run.model_path(field))
             except Cancelled as exc:
                 raise QgsProcessingException(self.tr(f"Cancelled at field {field}: no file was written.")) from exc
@@ -243,16 +264,18 @@ class PredictManyAlgorithm(SurfaceAlgorithm):
                           f"{run.settings.describe()}.")
         try:
             fitted = fit_shared_documents(first.xy, values, run.transform, working, fields, run.settings,
-                                          progress_callback(feedback, 0, 100 * FIT_SHARE), feedback.isCanceled)
+                                          progress_callback(feedback, 0, 100 * FIT_SHARE), feedback.isCanceled,
+                                          run.covariates[0], first.covariates)
             for (document, result), field_values in zip(fitted, values.T):
-                log_fit(feedback, first.xy, field_values, result, document, document.field)
+                log_fit(feedback, first.xy, field_values, result, document, document.field, first.covariates)
                 feedback.pushInfo(describe_document(document))
             documents = [document for document, _ in fitted]
             grid, inside = self.grid_and_mask(parameters, context, first.xy, working.wkt, working.units, feedback,
                                               n_bands=len(RASTER_KINDS))
             self.krige_surface(documents, first.xy, values, grid, inside, run.scale, run.neighbourhood,
                                [(field, run.raster_paths(field)) for field in fields], feedback,
-                               progress_callback(feedback, 100 * FIT_SHARE, 100))
+                               progress_callback(feedback, 100 * FIT_SHARE, 100), first.covariates,
+                               self.cell_covariates(parameters, context, documents[0], grid))
         except Cancelled as exc:
             raise QgsProcessingException(self.tr("Cancelled: no file was written.")) from exc
         for document, field in zip(documents, fields):
@@ -262,7 +285,8 @@ class PredictManyAlgorithm(SurfaceAlgorithm):
 
 @dataclass(frozen=True)
 class FieldsRun:
-    """What every field of one run shares: samples per field, file names, settings."""
+    """What every field of one run shares: samples per field, file names, settings, and per field the covariates
+    its samples describe."""
 
     prepared: list
     stems: dict[str, str]
@@ -271,6 +295,7 @@ class FieldsRun:
     settings: FitOptions
     neighbourhood: Neighbourhood
     scale: SurfaceScale
+    covariates: list[CovariateSet]
 
     def raster_paths(self, field: str) -> dict[str, str]:
         """The GeoTIFFs of a field, by the kinds of :data:`RASTER_KINDS`."""

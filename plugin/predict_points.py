@@ -20,6 +20,8 @@ from qgis.core import (
 from ..algorithms import (
     Cancelled,
     CellPredictor,
+    CovariateSet,
+    CovariateSource,
     ExtrapolationCheck,
     FieldcastError,
     LocalKrigingPredictor,
@@ -38,6 +40,7 @@ from .field_names import free_names, name_limit
 from .field_types import field_type
 from .help_text import (
     BACKTRANSFORM_HELP,
+    COVARIATE_HELP,
     MODEL_FILE_HELP,
     POINT_NEIGHBOURHOOD_HELP,
     TARGET_CRS_HELP,
@@ -70,6 +73,7 @@ class PredictPointsAlgorithm(FieldcastAlgorithm):
         [("Sample points / Value field", "The samples to predict from (the same kind the model was fitted "
           "to). NULL values are skipped; samples at one location are averaged."),
          MODEL_FILE_HELP,
+         *COVARIATE_HELP,
          ("Target points", "Point layer of the places to predict at, in any CRS: its points are reprojected to "
           "the working CRS for kriging, and the output keeps its own geometry, CRS and fields. Features without "
           "a geometry (or with an empty one) are copied with empty results and counted in the log; a multipoint "
@@ -97,6 +101,7 @@ class PredictPointsAlgorithm(FieldcastAlgorithm):
     def initAlgorithm(self, config=None):
         self.add_sample_parameters()
         self.add_model_parameter()
+        self.add_covariate_parameters()
         self.addParameter(QgsProcessingParameterFeatureSource(
             self.TARGETS, self.tr("Target points"), [QgsProcessing.TypeVectorPoint]))
         self.add_threshold_parameter()
@@ -137,14 +142,15 @@ class PredictPointsAlgorithm(FieldcastAlgorithm):
         kinds = ["prediction", "variance", "sd"] + (["exceedance"] if threshold is not None else [])
         names = self.result_names(parameters, field, kinds, source, feedback)
         document, samples = self.model_and_samples(parameters, context, feedback, progress_callback(feedback, 0, 20))
+        sources = self.covariate_sources(parameters, context)
         predictor, lines = choose_predictor(samples.xy, samples.values, document.covariance, document.mean,
                                             self.neighbourhood(parameters, context), units=document.units,
-                                            per="target point")
+                                            per="target point", covariates=samples.covariates)
         push_log(feedback, lines)
         scale = SurfaceScale(document.transform, self.choice(parameters, self.BACKTRANSFORM, context),
                              threshold=threshold)
         check = ExtrapolationCheck.for_samples(samples.xy, samples.values, document.covariance, document.mean,
-                                               document.transform, [samples.field])
+                                               document.transform, [samples.field], covariates=samples.covariates)
         fields = QgsFields(source.fields())
         for name in names:
             fields.append(QgsField(name, field_type("Double")))
@@ -154,7 +160,8 @@ class PredictPointsAlgorithm(FieldcastAlgorithm):
                           source.sourceCrs()) as sink:
             kriging = TargetKriging(sink, fields, cell_predictor(predictor), scale, kinds, check,
                                     document.crs_wkt, crs_wkt(source.sourceCrs()), source.sourceName(),
-                                    TargetDraw() if local else None)
+                                    TargetDraw() if local else None,
+                                    TargetCovariates(document.covariates, sources) if sources else None)
             chunk, total = [], max(source.featureCount(), 1)
             for feature in source.getFeatures(QgsFeatureRequest()):
                 chunk.append(feature)
@@ -174,6 +181,10 @@ class PredictPointsAlgorithm(FieldcastAlgorithm):
         """The run's log: points without geometry, unresolved, ill-conditioned, and the extrapolation counts."""
         written = kriging.sink.count
         feedback.pushInfo(f"Predicted at {written - kriging.empty:,} of {written:,} target points.")
+        if kriging.no_covariate:
+            feedback.pushWarning(f"{kriging.no_covariate:,} target point(s) lie where a covariate raster has no value "
+                                 "(nodata, outside the raster, or a class no sample has): they get empty (NULL) "
+                                 "results.")
         if kriging.empty:
             feedback.pushWarning(f"{kriging.empty:,} target feature(s) have no geometry (or an empty one): they "
                                  "are copied with empty (NULL) results.")
@@ -184,13 +195,26 @@ class PredictPointsAlgorithm(FieldcastAlgorithm):
         push_log(feedback, kriging.check.lines(units, places="point"))
 
 
+@dataclass(frozen=True)
+class TargetCovariates:
+    """The model's covariates and the rasters given for them (checked to be the model's by name and order)."""
+
+    model: CovariateSet
+    sources: list[CovariateSource]
+
+    def columns(self, xy: np.ndarray, working_wkt: str) -> np.ndarray:
+        """The design columns at ``xy`` (working CRS); NaN rows where a covariate has no usable value."""
+        return self.model.at_points(self.sources, xy, working_wkt)
+
+
 @dataclass
 class TargetKriging:
     """Chunks of target features kriged and copied, with the results appended, into one sink.
 
     ``xy`` of the targets is reprojected from ``target_wkt`` to ``working_wkt``; ``draw``, when given, keeps a
-    few of them drawn at random for the neighbourhood check; ``empty`` counts features without a point,
-    ``unresolved`` those the predictor left without a value.
+    few of them drawn at random for the neighbourhood check; ``covariates``, when given, reads the model's
+    covariates at the targets; ``empty`` counts features without a point, ``no_covariate`` those where a covariate
+    has no value, ``unresolved`` those the predictor left without a value.
     """
 
     sink: SinkWriter
@@ -203,7 +227,9 @@ class TargetKriging:
     target_wkt: str
     layer: str
     draw: TargetDraw | None = None
+    covariates: TargetCovariates | None = None
     empty: int = 0
+    no_covariate: int = 0
     unresolved: int = 0
 
     def locations(self, features) -> tuple[np.ndarray, np.ndarray]:
@@ -223,10 +249,17 @@ class TargetKriging:
         located, xy = self.locations(features)
         self.empty += int(np.count_nonzero(~located))
         results = np.full((len(self.kinds), len(features)), np.nan)
+        columns = None
+        if self.covariates is not None and len(xy):
+            columns = self.covariates.columns(xy, self.working_wkt)
+            usable = np.all(np.isfinite(columns), axis=1)
+            self.no_covariate += int(np.count_nonzero(~usable))
+            located[located] = usable
+            xy, columns = xy[usable], columns[usable]
         if self.draw is not None:
             self.draw.add(xy)
         if len(xy):
-            found = predict_points(self.predict, xy, self.scale, self.kinds, check=self.check,
+            found = predict_points(self.predict, xy, self.scale, self.kinds, check=self.check, covariates=columns,
                                    should_stop=should_stop)
             self.unresolved += int(np.count_nonzero(~found.resolved))
             for row, kind in enumerate(self.kinds):

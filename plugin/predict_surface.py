@@ -7,6 +7,7 @@ from ..algorithms import SUPPORTS, SurfaceScale, check_interval
 from .algorithm_base import advanced, progress_callback
 from .help_text import (
     BACKTRANSFORM_HELP,
+    COVARIATE_HELP,
     GRID_HELP,
     INTERVAL_HELP,
     MAP_AREA_HELP,
@@ -42,6 +43,7 @@ class PredictSurfaceAlgorithm(SurfaceAlgorithm):
         [("Sample points / Value field", "The samples to predict from (the same kind the model was fitted "
           "to). NULL values are skipped; samples at one location are averaged."),
          MODEL_FILE_HELP,
+         *COVARIATE_HELP,
          *GRID_HELP,
          *MAP_AREA_HELP,
          BACKTRANSFORM_HELP,
@@ -88,6 +90,7 @@ class PredictSurfaceAlgorithm(SurfaceAlgorithm):
     def initAlgorithm(self, config=None):
         self.add_sample_parameters()
         self.add_model_parameter()
+        self.add_covariate_parameters()
         self.add_grid_parameters()
         self.add_map_area_parameters()
         self.add_backtransform_parameter()
@@ -127,7 +130,8 @@ class PredictSurfaceAlgorithm(SurfaceAlgorithm):
                              threshold, interval)
         self.krige_surface([document], samples.xy, samples.values, grid, inside, scale,
                            self.neighbourhood(parameters, context), [(samples.field, paths)], feedback,
-                           progress_callback(feedback, 30, 100))
+                           progress_callback(feedback, 30, 100), samples.covariates,
+                           self.cell_covariates(parameters, context, document, grid))
         percents = {"lower": 50 * (1 - interval), "upper": 50 * (1 + interval)}
         for quantity, path in paths.items():
             style_on_load(context, path, samples.field, quantity, threshold=threshold, percent=percents.get(quantity))

@@ -63,7 +63,8 @@ class ModelSamples:
 
     ``xy`` is in the working CRS, ``values`` in the modelling scale; ``fids``
     belong to the first feature of each merged group; ``field`` names the attribute. ``merged_points``
-    samples were averaged into ``merged_groups`` shared locations.
+    samples were averaged into ``merged_groups`` shared locations. ``covariates`` are the mean's covariate
+    columns at the samples (None without covariates).
     """
 
     xy: np.ndarray
@@ -72,6 +73,13 @@ class ModelSamples:
     field: str
     merged_groups: int
     merged_points: int
+    covariates: np.ndarray | None = None
+
+    def with_covariates(self, columns: np.ndarray, kept: np.ndarray) -> ModelSamples:
+        """The samples ``kept`` (where every covariate has a value) with their covariate columns, checked again."""
+        check_samples(self.xy[kept], self.values[kept])
+        return ModelSamples(self.xy[kept], self.values[kept], self.fids[kept], self.field, self.merged_groups,
+                            self.merged_points, columns)
 
     def engine_samples(self) -> Samples:
         """The samples as the engine's :class:`Samples` (ids are the feature ids), e.g. for the fit report."""

@@ -22,17 +22,20 @@ from ..algorithms import (
     Cancelled,
     FieldcastError,
     GeoTiffWriter,
+    GridSpec,
+    ModelDocument,
     NodataCounts,
     RealisationSummary,
     SimulationResult,
     area_words,
+    refuse_local_covariates,
     search_words,
     simulate_conditional,
     summarise_realisations,
 )
 from .algorithm_base import advanced, progress_callback, push_log
 from .field_types import field_type
-from .help_text import GRID_HELP, MODEL_FILE_HELP, RASTER_TARGET_CRS_HELP, THRESHOLD_HELP, compose_help
+from .help_text import COVARIATE_HELP, GRID_HELP, MODEL_FILE_HELP, RASTER_TARGET_CRS_HELP, THRESHOLD_HELP, compose_help
 from .layer_style import style_on_load
 from .raster_algorithm import RasterAlgorithm
 from .sinks import checked_sink
@@ -75,6 +78,7 @@ class SimulateAlgorithm(RasterAlgorithm):
         [("Sample points / Value field", "The samples to condition on (NULL values skipped, samples at one "
           "location averaged)."),
          MODEL_FILE_HELP,
+         *COVARIATE_HELP,
          *GRID_HELP,
          ("Number of realisations", "How many fields to draw (default 100, at most 65,535: the bands of one "
           "GeoTIFF). Shares and percentiles from 100 realisations are good to a few per cent; more give steadier "
@@ -109,6 +113,7 @@ class SimulateAlgorithm(RasterAlgorithm):
     def initAlgorithm(self, config=None):
         self.add_sample_parameters()
         self.add_model_parameter()
+        self.add_covariate_parameters()
         self.add_grid_parameters()
         self.addParameter(QgsProcessingParameterNumber(
             self.REALIZATIONS, self.tr("Number of realisations"), type=QgsProcessingParameterNumber.Integer,
@@ -165,15 +170,18 @@ class SimulateAlgorithm(RasterAlgorithm):
                                                    progress_callback(feedback, 0, SIMULATION_PERCENT[0]))
         neighbourhood = self.neighbourhood(parameters, context)
         neighbours, lines = neighbourhood.resolved(document.mean, "cell")
+        refuse_local_covariates(document.mean, neighbours, len(samples.values))
         search_radius = neighbourhood.search_radius
         grid, inside = self.grid_and_mask(parameters, context, samples.xy, document.crs_wkt, document.units,
                                           feedback, n_bands=1 + len(summaries))  # realisations: checked below
+        grid_covariates, inside = self.grid_covariates(parameters, context, document, grid, inside, feedback)
         feedback.pushInfo(f"Simulating {count} realisations (seed {seed}).")
         push_log(feedback, lines)
         self.log_conditioning(neighbours, search_radius, len(samples.values), document.units, feedback)
         # The engine estimates the memory of the realisations before any work and refuses with advice.
         result = simulate_conditional(samples.xy, samples.values, document.covariance, document.mean, grid,
                                       n_realisations=count, seed=seed, transform=document.transform,
+                                      covariates=samples.covariates, grid_covariates=grid_covariates,
                                       neighbours=neighbours, search_radius=search_radius,
                                       progress=progress_callback(feedback, *SIMULATION_PERCENT),
                                       should_stop=feedback.isCanceled)
@@ -205,6 +213,32 @@ class SimulateAlgorithm(RasterAlgorithm):
                 f"{area_words(summary.mask_area, document.units)} in all, over {count} realisations.")
         feedback.setProgress(100.0)
         return outputs
+
+    def grid_covariates(self, parameters, context, document: ModelDocument, grid: GridSpec,
+                        inside: np.ndarray | None, feedback) -> tuple[np.ndarray | None, np.ndarray | None]:
+        """The model's covariate columns at every cell (raster order) and the cell mask without the cells where a
+        covariate has no value (counted in the log); (None, ``inside``) without covariates.
+
+        Those cells get zeros in place of their missing columns: they are nodata in every output and left out of
+        the summaries, so the zeros only keep the engine's arrays finite.
+        """
+        sources = self.covariate_sources(parameters, context)
+        if not sources:
+            return None, inside
+        columns = document.covariates.at_rows(sources, grid, 0, grid.n_rows, document.crs_wkt)
+        usable = np.all(np.isfinite(columns), axis=1).reshape(grid.n_rows, grid.n_cols)
+        missing = int(np.count_nonzero(~usable if inside is None else inside & ~usable))
+        limited = usable if inside is None else inside & usable
+        if not limited.any():
+            raise FieldcastError("No cell of the grid has a value in every covariate raster (or a class the samples "
+                                 "have). Choose covariate rasters that cover the grid, or another EXTENT or "
+                                 "TEMPLATE.")
+        if missing:
+            feedback.pushWarning(f"{missing:,} cells are nodata in every output because a covariate raster has no "
+                                 "value there (nodata, outside the raster, or a class no sample has, whose "
+                                 "coefficient cannot be estimated); they are left out of the summaries.")
+        columns[~usable.ravel()] = 0.0
+        return columns, limited
 
     @staticmethod
     def log_conditioning(neighbours: int, search_radius: float | None, count: int, units: str, feedback) -> None:

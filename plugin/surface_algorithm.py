@@ -127,18 +127,33 @@ class SurfaceAlgorithm(RasterAlgorithm):
                           "MAP_AREA to extent to map every cell.")
         return grid, limited
 
+    def cell_covariates(self, parameters, context, document: ModelDocument,
+                        grid: GridSpec) -> Callable[[int, int], np.ndarray] | None:
+        """``rows(start, stop)``: the model's covariate columns at the cells of those rows of ``grid`` from the
+        COVARIATES and CLASS_COVARIATES rasters (the model's, see ``model_covariates``); None without them."""
+        sources = self.covariate_sources(parameters, context)
+        if not sources:
+            return None
+
+        def rows(start: int, stop: int) -> np.ndarray:
+            return document.covariates.at_rows(sources, grid, start, stop, document.crs_wkt)
+        return rows
+
     @staticmethod
     def krige_surface(documents: Sequence[ModelDocument], xy: np.ndarray, values: np.ndarray, grid: GridSpec,
                       inside: np.ndarray | None, scale: SurfaceScale, neighbourhood: Neighbourhood,
                       outputs: Sequence[tuple[str, Mapping[str, str]]], feedback,
-                      progress: Callable[[float], None]) -> None:
+                      progress: Callable[[float], None], sample_covariates: np.ndarray | None = None,
+                      cell_covariates: Callable[[int, int], np.ndarray] | None = None) -> None:
         """Krige every cell of ``grid`` and write the rasters of ``outputs`` (see :func:`.surface.write_surfaces`).
 
         One field: ``values`` (n,), one document and one ``(field name, paths)`` output. Several fields
         sampled at the same places and sharing one correlation model: ``values`` (n, k), and per field
         its document (the shared model at the field's scale) and its output; one predictor krigs them all.
         A ``"distance"`` path of the first output receives the distance to the nearest sample. The
-        extrapolation counts (:class:`ExtrapolationCheck`) go to the log.
+        extrapolation counts (:class:`ExtrapolationCheck`) go to the log. With covariates, ``sample_covariates``
+        are their design columns at the samples and ``cell_covariates(row_start, row_stop)`` at the cells of
+        those rows.
 
         Raises
         ------
@@ -147,7 +162,7 @@ class SurfaceAlgorithm(RasterAlgorithm):
         """
         document = documents[0]
         predictor, lines = choose_predictor(xy, values, document.covariance, document.mean, neighbourhood,
-                                            support=scale.support, units=document.units)
+                                            support=scale.support, units=document.units, covariates=sample_covariates)
         push_log(feedback, lines)
         settings = {"fieldcast_support": scale.support}
         if document.transform.kind != "none":  # a back-transform applies to a transformed model only
@@ -168,10 +183,10 @@ class SurfaceAlgorithm(RasterAlgorithm):
         before = (predictor.singular_targets, predictor.ill_conditioned_targets) if local else (0, 0)
         check = ExtrapolationCheck.for_samples(xy, values, document.covariance, document.mean, scale.transform,
                                                [field for field, _ in outputs],
-                                               [raster.variance_factor for raster in rasters])
+                                               [raster.variance_factor for raster in rasters], sample_covariates)
         counts = write_surfaces(cell_predictor(predictor, scale.support, grid.pixel_size), grid, inside, scale,
                                 documents[0].crs_wkt, rasters, progress, feedback.isCanceled, check,
-                                outputs[0][1].get("distance", ""))
+                                outputs[0][1].get("distance", ""), cell_covariates)
         after = (predictor.singular_targets, predictor.ill_conditioned_targets) if local else (0, 0)
         log_unresolved(counts.unresolved, after[0] - before[0], after[1] - before[1], feedback)
         for warning in counts.warnings():

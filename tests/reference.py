@@ -36,6 +36,7 @@ class MeuseSamples:
     cadmium: np.ndarray
     elev: np.ndarray
     dist: np.ndarray
+    ffreq: np.ndarray
     crs: str = "EPSG:28992"
 
 
@@ -45,7 +46,44 @@ class MeuseGrid:
 
     xy: np.ndarray
     dist: np.ndarray
+    ffreq: np.ndarray
     crs: str = "EPSG:28992"
+
+
+GRID_CELL = 40.0
+"""Cell size of the published Meuse grid (metres)."""
+
+
+def write_meuse_covariates(folder: Path) -> tuple[Path, Path]:
+    """GeoTIFFs of the published Meuse grid's distance to the river (``dist.tif``, Float32, nodata -9999) and
+    flood-frequency class (``ffreq.tif``, Byte, nodata 0) in EPSG:28992: the 40 m cells of
+    tests/data/meuse_grid.csv, nodata where the published grid has no cell."""
+    from osgeo import gdal, osr
+
+    grid = load_meuse_grid()
+    x, y = grid.xy[:, 0], grid.xy[:, 1]
+    x_min, y_max = x.min() - GRID_CELL / 2, y.max() + GRID_CELL / 2
+    n_cols = int(round((x.max() - x.min()) / GRID_CELL)) + 1
+    n_rows = int(round((y.max() - y.min()) / GRID_CELL)) + 1
+    rows = np.round((y_max - y) / GRID_CELL - 0.5).astype(int)
+    cols = np.round((x - x_min) / GRID_CELL - 0.5).astype(int)
+    reference = osr.SpatialReference()
+    reference.ImportFromEPSG(28992)
+    paths = []
+    for name, values, data_type, nodata in (("dist", grid.dist, gdal.GDT_Float32, -9999.0),
+                                            ("ffreq", grid.ffreq, gdal.GDT_Byte, 0.0)):
+        cells = np.full((n_rows, n_cols), nodata)
+        cells[rows, cols] = values
+        path = Path(folder) / f"{name}.tif"
+        dataset = gdal.GetDriverByName("GTiff").Create(str(path), n_cols, n_rows, 1, data_type)
+        dataset.SetGeoTransform((x_min, GRID_CELL, 0.0, y_max, 0.0, -GRID_CELL))
+        dataset.SetProjection(reference.ExportToWkt())
+        band = dataset.GetRasterBand(1)
+        band.SetNoDataValue(nodata)
+        band.WriteArray(cells)
+        dataset = None
+        paths.append(path)
+    return paths[0], paths[1]
 
 
 def read_columns(path: Path) -> dict[str, list[str]]:
@@ -79,7 +117,7 @@ def load_meuse() -> MeuseSamples:
         ids=ids,
         xy=stacked_xy(columns),
         **{name: float_column(columns, name)
-           for name in ("zinc", "copper", "lead", "cadmium", "elev", "dist")},
+           for name in ("zinc", "copper", "lead", "cadmium", "elev", "dist", "ffreq")},
     )
 
 
@@ -87,7 +125,7 @@ def load_meuse() -> MeuseSamples:
 def load_meuse_grid() -> MeuseGrid:
     """The Meuse prediction grid from tests/data/meuse_grid.csv (read once)."""
     columns = read_columns(DATA_DIR / "meuse_grid.csv")
-    return MeuseGrid(xy=stacked_xy(columns), dist=float_column(columns, "dist"))
+    return MeuseGrid(xy=stacked_xy(columns), dist=float_column(columns, "dist"), ffreq=float_column(columns, "ffreq"))
 
 
 def gaussian_field(covariance: CovarianceModel, xy: np.ndarray, rng: np.random.Generator,

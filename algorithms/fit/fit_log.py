@@ -63,3 +63,21 @@ def fit_log_lines(result: FitResult, units: str) -> list[str]:
                      "criteria of different trends do not: to choose a TREND, fit each with METHOD ml and "
                      "compare their AIC, or compare their leave-one-out errors in 'Cross-validate model'.")
     return lines
+
+
+def coefficient_line(term_names: tuple[str, ...], coefficients, standard_errors) -> str:
+    """The GLS mean coefficients with their standard errors (given the covariance) for the log, e.g.
+    ``Mean coefficients (generalised least squares; ± standard error given the covariance): 1 = 6.52 ± 0.12,
+    dist = -2.1 ± 0.3.``
+
+    ``term_names`` as :attr:`..model.mean.MeanModel.term_names` (``1`` the constant, ``u``/``v`` the scaled
+    coordinates, covariate columns by name, ``name=class`` the indicator of a class); ``standard_errors`` may be
+    empty (not computed), then they are left out.
+    """
+    if not term_names:
+        return "The mean is known: no coefficients were estimated."
+    errors = list(standard_errors)
+    parts = [f"{name} = {value:.4g}" + (f" ± {errors[k]:.3g}" if errors else "")
+             for k, (name, value) in enumerate(zip(term_names, coefficients))]
+    words = "generalised least squares" + ("; ± standard error given the covariance" if errors else "")
+    return f"Mean coefficients ({words}): {', '.join(parts)}."

@@ -52,9 +52,11 @@ def levelling_distance(xy: np.ndarray, residuals: np.ndarray, size: float) -> fl
     return float(variogram.distance[reached][0]) if reached.any() else None
 
 
-def range_warning(xy: np.ndarray, values: np.ndarray, result: FitResult, units: str = "metre") -> str | None:
+def range_warning(xy: np.ndarray, values: np.ndarray, result: FitResult, units: str = "metre",
+                  covariates: np.ndarray | None = None) -> str | None:
     """Advice when the fitted effective range exceeds the study size while the residuals' empirical semivariogram
-    levels off within a quarter of it; None otherwise.
+    levels off within a quarter of it; None otherwise. ``covariates`` are the mean's covariate columns at the
+    samples, when it names any.
 
     Parameters
     ----------
@@ -71,7 +73,7 @@ def range_warning(xy: np.ndarray, values: np.ndarray, result: FitResult, units: 
     reach = max(structure.effective_range for structure in result.covariance.structures)
     if not size > 0 or reach <= size:
         return None
-    residuals = np.asarray(values, dtype=float) - result.mean.design(xy) @ result.coefficients
+    residuals = np.asarray(values, dtype=float) - result.mean.design(xy, covariates) @ result.coefficients
     level = levelling_distance(np.asarray(xy, dtype=float), residuals, size)
     if level is None or level >= size / 4:
         return None

@@ -18,6 +18,7 @@ from ..model.correlation import FAMILIES, SMOOTHNESS_BOUNDS
 from ..model.covariance import MAX_SILL
 from ..model.mean import MEAN_KINDS
 from ..model.transform import TRANSFORM_KINDS
+from .covariates import COVARIATE_KINDS
 
 ADVICE = "Refit the model with 'Fit covariance model', or correct the file."
 
@@ -162,6 +163,25 @@ def check_mean(check: DocumentCheck, data: dict) -> None:
     check.number(data, "scale", "mean.", " above 0 (a distance in CRS units)", lambda v: v > 0, default=1.0)
     check.value(data, "covariates", "mean.", "a list of field names",
                 lambda item: isinstance(item, list) and all(isinstance(v, str) for v in item), default=[])
-    check.value(data, "coefficients", "mean.", "a list of finite numbers",
-                lambda item: isinstance(item, list) and all(is_number(v) and math.isfinite(v) for v in item),
-                default=[])
+    for key in ("coefficients", "standard_errors"):
+        check.value(data, key, "mean.", "a list of finite numbers",
+                    lambda item: isinstance(item, list) and all(is_number(v) and math.isfinite(v) for v in item),
+                    default=[])
+    rasters = check.value(data, "covariate_rasters", "mean.", "a list of covariate descriptions",
+                          lambda item: isinstance(item, list), default=[])
+    for k, raster in enumerate(rasters):
+        check_covariate(check, raster, f"mean.covariate_rasters[{k}]")
+
+
+def check_covariate(check: DocumentCheck, data: Any, path: str) -> None:
+    """Check one covariate: name, kind, source and, for a class covariate, its classes and baseline."""
+    if not isinstance(data, dict):
+        raise check.refuse(path, data, "an object ({...}) describing a covariate")
+    prefix = f"{path}."
+    check.text(data, "name", prefix)
+    check.text(data, "source", prefix, default="")
+    if check.text(data, "kind", prefix, COVARIATE_KINDS) == "class":
+        classes = check.value(data, "classes", prefix, "a list of two or more distinct finite class values",
+                              lambda item: isinstance(item, list) and len(set(item)) == len(item) >= 2
+                              and all(is_number(v) and math.isfinite(v) for v in item))
+        check.value(data, "baseline", prefix, "one of the classes", lambda item: item in classes)

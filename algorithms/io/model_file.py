@@ -21,6 +21,7 @@ from ..model.mean import MeanModel
 from ..model.transform import Transform
 from ..version import __version__
 from .atomic import write_text_atomically
+from .covariates import CovariateSet
 from .model_checks import check_document
 
 FORMAT_NAME = "fieldcast-model"
@@ -51,6 +52,11 @@ class ModelDocument:
         Name of the attribute the model was fitted to.
     fit : dict
         Method, log-likelihood, AIC, BIC, n, warnings and other fit facts.
+    covariates : CovariateSet
+        The covariate rasters of the mean (name, kind, classes, baseline, source), whose design columns are
+        ``mean.covariate_names``; empty for a model fitted to covariate columns given as arrays.
+    standard_errors : ndarray
+        Standard errors of ``coefficients`` given the covariance (empty when not computed).
     """
 
     covariance: CovarianceModel
@@ -61,12 +67,20 @@ class ModelDocument:
     units: str
     field: str = ""
     fit: dict = dataclasses.field(default_factory=dict)
+    covariates: CovariateSet = CovariateSet()
+    standard_errors: np.ndarray = dataclasses.field(default_factory=lambda: np.zeros(0))
+
+    def __post_init__(self) -> None:
+        if self.covariates.covariates and self.covariates.column_names != self.mean.covariate_names:
+            raise ValueError("The covariate set does not give the mean model's covariate columns.")
 
     def to_dict(self) -> dict:
         """The JSON-ready document."""
         mean = self.mean.to_dict()
         mean["terms"] = list(self.mean.term_names)
         mean["coefficients"] = [float(c) for c in np.asarray(self.coefficients, dtype=float)]
+        mean["standard_errors"] = [float(c) for c in np.asarray(self.standard_errors, dtype=float)]
+        mean["covariate_rasters"] = self.covariates.to_list()
         return {
             "format": FORMAT_NAME,
             "format_version": FORMAT_VERSION,
@@ -100,13 +114,20 @@ class ModelDocument:
             raise FieldcastError(f"{source} describes an unusable model: {exc} Refit the model with 'Fit "
                                  "covariance model' and use the new file.") from exc
         coefficients = np.asarray(data["mean"].get("coefficients", []), dtype=float)
-        if coefficients.size not in (0, mean.n_terms):
+        errors = np.asarray(data["mean"].get("standard_errors", []), dtype=float)
+        for name, numbers in (("coefficients", coefficients), ("standard errors", errors)):
+            if numbers.size not in (0, mean.n_terms):
+                raise FieldcastError(
+                    f"{source} lists {numbers.size} mean {name} for a {mean.kind} mean with "
+                    f"{mean.n_terms} terms. Refit the model."
+                )
+        covariates = CovariateSet.from_list(data["mean"].get("covariate_rasters", []))
+        if covariates.covariates and covariates.column_names != mean.covariate_names:
             raise FieldcastError(
-                f"{source} lists {coefficients.size} mean coefficients for a {mean.kind} mean with "
-                f"{mean.n_terms} terms. Refit the model."
-            )
+                f"{source} has mean.covariates {list(mean.covariate_names)}, but its mean.covariate_rasters give "
+                f"the columns {list(covariates.column_names)}. Refit the model with 'Fit covariance model'.")
         return cls(covariance, mean, coefficients, transform, data["crs"], data["units"],
-                   data.get("field", ""), dict(data.get("fit", {})))
+                   data.get("field", ""), dict(data.get("fit", {})), covariates, errors)
 
     def to_json(self) -> str:
         """The document as indented JSON text."""

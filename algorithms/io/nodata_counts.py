@@ -40,11 +40,15 @@ class NodataCounts:
     unwritable : dict of str to int
         Per raster name, resolved cells whose value is not a number or beyond the Float32 range, stored as
         nodata.
+    no_covariate : int
+        Cells inside the mask left nodata (not computed) because a covariate raster has no value there, or a
+        class no sample has.
     """
 
     computed: int
     unresolved: int
     unwritable: dict[str, int]
+    no_covariate: int = 0
 
     @classmethod
     def of_rasters(cls, rasters: Mapping[str, np.ndarray], inside: np.ndarray | None,
@@ -65,12 +69,21 @@ class NodataCounts:
     def warnings(self, share: float = 0.5) -> list[str]:
         """A warning for each raster nodata at more than ``share`` of its resolved cells (not the mask's doing)."""
         resolved = self.computed - self.unresolved
-        return [f"The {name} raster is nodata at {count:,} of {resolved:,} computed cells: {UNWRITABLE_REASON}"
-                for name, count in self.unwritable.items() if count > share * resolved]
+        lines = [f"The {name} raster is nodata at {count:,} of {resolved:,} computed cells: {UNWRITABLE_REASON}"
+                 for name, count in self.unwritable.items() if count > share * resolved]
+        if self.no_covariate:
+            lines.append(f"{self.no_covariate:,} cells of the map area are nodata because a covariate raster has no "
+                         "value there (nodata, outside the raster, or a class no sample has, whose coefficient "
+                         "cannot be estimated).")
+        return lines
 
     def error(self) -> FieldcastError | None:
         """The refusal for rasters that would hold no value at any resolved cell, None when every raster holds some."""
         resolved = self.computed - self.unresolved
+        if self.no_covariate and not self.computed:
+            return FieldcastError("No cell of the map area has a value in every covariate raster (or a class the "
+                                  "samples have). Choose covariate rasters that cover the map area, or another "
+                                  "EXTENT or TEMPLATE.")
         empty = [name for name, count in self.unwritable.items() if resolved and count == resolved]
         if not empty:
             return None

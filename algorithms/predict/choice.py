@@ -101,9 +101,28 @@ def _run_neighbours(neighbourhood: Neighbourhood, mean: MeanModel, count: int, p
     return neighbours, lines
 
 
+def refuse_local_covariates(mean: MeanModel, neighbours: int, count: int) -> None:
+    """FieldcastError when local kriging (``neighbours`` > 0 of ``count`` samples) meets a mean with covariates.
+
+    Covariate coefficients are estimated from all samples (GLS); local kriging would re-estimate them from each
+    neighbourhood's few samples and extrapolate a local trend, so it is refused until it can take the global
+    coefficients.
+    """
+    if not (neighbours and mean.covariate_names):
+        return
+    automatic = count > GLOBAL_SAMPLE_LIMIT
+    raise FieldcastError(
+        "Covariates are kriged from all samples, so that their coefficients rest on every sample and not on "
+        f"each neighbourhood's few; local kriging ({neighbours} neighbours"
+        + (f", chosen because there are more than {GLOBAL_SAMPLE_LIMIT:,} samples" if automatic else "")
+        + ") does not take them yet. Set NEIGHBOURS to 0" + (", thin the samples" if automatic else "")
+        + ", or leave COVARIATES and CLASS_COVARIATES empty.")
+
+
 def choose_predictor(xy: np.ndarray, values: np.ndarray, covariance: CovarianceModel, mean: MeanModel,
                      neighbourhood: Neighbourhood, *, support: str = "point", units: str = "metre",
-                     per: str = "cell") -> tuple[KrigingPredictor | LocalKrigingPredictor, list[LogLine]]:
+                     per: str = "cell", covariates: np.ndarray | None = None,
+                     ) -> tuple[KrigingPredictor | LocalKrigingPredictor, list[LogLine]]:
     """The kriging predictor of a run, global or local, and the log lines that say which and why.
 
     With NEIGHBOURS 0, every sample is kriged together, except above :data:`GLOBAL_SAMPLE_LIMIT`
@@ -125,17 +144,22 @@ def choose_predictor(xy: np.ndarray, values: np.ndarray, covariance: CovarianceM
         Working CRS unit, for the log.
     per : str
         What each target is called in the log and the refusals ("cell", "target point").
+    covariates : ndarray, shape (n, c), optional
+        The mean's covariate columns at the samples, when it names covariates (global kriging only, so that
+        their coefficients come from all samples).
 
     Raises
     ------
     FieldcastError
-        If NEIGHBOURS is too small for the mean model, or local kriging is asked for cell support.
+        If NEIGHBOURS is too small for the mean model, local kriging is asked for cell support, or local kriging
+        would be used with covariates.
     """
     count = len(values)
     neighbours, lines = _run_neighbours(neighbourhood, mean, count, per, support=support)
+    refuse_local_covariates(mean, neighbours, count)
     if neighbours == 0:
         lines.append(LogLine("info", f"Kriging from all {count} samples."))
-        predictor = KrigingPredictor(xy, values, covariance, mean)
+        predictor = KrigingPredictor(xy, values, covariance, mean, covariates)
         return predictor, lines + [LogLine("warning", warning) for warning in predictor.warnings]
     if support == "cell":
         raise FieldcastError("Cell support is computed from all samples (block kriging); local "
@@ -147,7 +171,7 @@ def choose_predictor(xy: np.ndarray, values: np.ndarray, covariance: CovarianceM
 
 
 def cross_validate_with(xy: np.ndarray, values: np.ndarray, covariance: CovarianceModel, mean: MeanModel,
-                        neighbourhood: Neighbourhood, *, units: str = "metre",
+                        neighbourhood: Neighbourhood, *, covariates: np.ndarray | None = None, units: str = "metre",
                         progress: Callable[[float], None] | None = None,
                         should_stop: Callable[[], bool] | None = None) -> tuple[CrossValidation, list[LogLine]]:
     """Leave-one-out of a run, global (closed form) or local by the same rules as :func:`choose_predictor`,
@@ -161,6 +185,9 @@ def cross_validate_with(xy: np.ndarray, values: np.ndarray, covariance: Covarian
     ----------
     xy, values, covariance, mean, neighbourhood
         As for :func:`choose_predictor` (one field of values).
+    covariates : ndarray of shape (n, c), optional
+        The mean's covariate columns at the samples (global leave-one-out only, see
+        :func:`refuse_local_covariates`).
     units : str
         Working CRS unit, for the log.
     progress, should_stop : callable, optional
@@ -169,13 +196,14 @@ def cross_validate_with(xy: np.ndarray, values: np.ndarray, covariance: Covarian
     Raises
     ------
     FieldcastError
-        If NEIGHBOURS is too small for the mean model, or no sample has enough other samples within
-        SEARCH_RADIUS.
+        If NEIGHBOURS is too small for the mean model, local leave-one-out meets covariates, or no sample
+        has enough other samples within SEARCH_RADIUS.
     """
     count = len(values)
     neighbours, lines = _run_neighbours(neighbourhood, mean, count, "sample", pool="every other sample")
+    refuse_local_covariates(mean, neighbours, count)
     if neighbours == 0:
-        return leave_one_out(xy, values, covariance, mean), lines
+        return leave_one_out(xy, values, covariance, mean, covariates), lines
     search_radius = neighbourhood.search_radius
     lines.append(LogLine("info", f"Local leave-one-out: each sample from its {min(neighbours, count - 1)} nearest "
                                  f"other samples{search_words(search_radius, units)}."))

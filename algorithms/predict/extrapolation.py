@@ -87,6 +87,10 @@ class ExtrapolationCheck:
     cells, beyond_range : int
         Cells checked so far, and those farther than the effective range from every sample.
     counts : list of FieldCounts
+    covariate_range : ndarray of shape (c, 2)
+        Smallest and largest value of each covariate column at the samples ((0, 2) without covariates).
+    beyond_covariates : int
+        Cells checked so far where a covariate column lies outside its range at the samples.
     """
 
     tree: cKDTree
@@ -99,44 +103,54 @@ class ExtrapolationCheck:
     cells: int = 0
     beyond_range: int = 0
     counts: list[FieldCounts] = field(default_factory=list)
+    covariate_range: np.ndarray = field(default_factory=lambda: np.zeros((0, 2)))
+    beyond_covariates: int = 0
 
     @classmethod
     def for_samples(cls, xy: np.ndarray, values: np.ndarray, covariance: CovarianceModel, mean: MeanModel,
                     transform: Transform, fields: Sequence[str], sill_factors: Sequence[float] | None = None,
-                    ) -> ExtrapolationCheck:
+                    covariates: np.ndarray | None = None) -> ExtrapolationCheck:
         """The check of a run kriging ``values`` (modelling scale, (n,) or (n, k)) at ``xy`` (n, 2).
 
         ``sill_factors`` scales the covariance's sill per field (a model shared by several fields at
-        their own scales); 1 for each field when None.
+        their own scales); 1 for each field when None. ``covariates`` are the mean's covariate columns at the
+        samples, when it names any.
         """
         columns = np.asarray(values, dtype=float).reshape(len(xy), -1)
-        design = mean.design(xy)
+        design = mean.design(xy, covariates)
         residual = columns - mean.known_mean(1)[0]
         coefficients = (np.linalg.lstsq(design, residual, rcond=None)[0] if design.shape[1]
                         else np.zeros((0, columns.shape[1])))
         factors = np.ones(columns.shape[1]) if sill_factors is None else np.asarray(sill_factors, dtype=float)
         original = transform.back_median(columns)
         frames = [(structure, cKDTree(search_frame(structure, xy))) for structure in covariance.structures]
+        ranges = np.zeros((0, 2)) if covariates is None else np.column_stack(
+            [np.min(covariates, axis=0), np.max(covariates, axis=0)])
         return cls(cKDTree(xy), frames, mean, coefficients, np.sqrt(covariance.sill * factors),
                    np.column_stack([original.min(axis=0), original.max(axis=0)]), list(fields),
-                   counts=[FieldCounts() for _ in fields])
+                   counts=[FieldCounts() for _ in fields], covariate_range=ranges)
 
-    def trend(self, centres: np.ndarray) -> np.ndarray:
-        """The least-squares trend at ``centres`` (m, 2), one column per field (modelling scale)."""
-        return self.mean.known_mean(1)[0] + self.mean.design(centres) @ self.coefficients
+    def trend(self, centres: np.ndarray, covariates0: np.ndarray | None = None) -> np.ndarray:
+        """The least-squares trend at ``centres`` (m, 2) with their covariate columns, one column per field
+        (modelling scale)."""
+        return self.mean.known_mean(1)[0] + self.mean.design(centres, covariates0) @ self.coefficients
 
     def screen(self, centres: np.ndarray, mean: np.ndarray, variance: np.ndarray,
-               ) -> tuple[np.ndarray, np.ndarray]:
+               covariates0: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:
         """``mean`` (m, k) and ``variance`` (m, k) with NaN where a field's mean lies more than
         :data:`TAIL_SDS` standard deviations from its trend; those cells are counted, and every cell
-        is counted beyond the effective range or not."""
+        is counted beyond the effective range or not, and outside the covariates' range at the samples or not."""
         self.cells += len(centres)
+        if covariates0 is not None and len(self.covariate_range):
+            low, high = self.covariate_range.T
+            self.beyond_covariates += int(np.count_nonzero(np.any((covariates0 < low) | (covariates0 > high),
+                                                                  axis=1)))
         beyond = np.ones(len(centres), bool)
         for structure, tree in self.frames:
             nearest, _ = tree.query(search_frame(structure, centres))
             beyond &= nearest > structure.effective_range
         self.beyond_range += int(np.count_nonzero(beyond))
-        outside = np.abs(mean - self.trend(centres)) > TAIL_SDS * self.sds
+        outside = np.abs(mean - self.trend(centres, covariates0)) > TAIL_SDS * self.sds
         for counts, column in zip(self.counts, outside.T):
             counts.outside_model += int(np.count_nonzero(column))
         return np.where(outside, np.nan, mean), np.where(outside, np.nan, variance)
@@ -171,6 +185,11 @@ class ExtrapolationCheck:
                          f"model's effective range ({reach:.4g} {units} along the major axis) from every sample: "
                          "there the prediction is the model's mean and the variance near the sill."
                          + (" " + advice if share > EXTRAPOLATION_SHARE else ""))]
+        if self.beyond_covariates:
+            lines.append(LogLine("warning", f"{self.beyond_covariates:,} of {self.cells:,} {checked} "
+                                 f"({self.beyond_covariates / self.cells:.1%}) have a covariate value outside the "
+                                 "range seen at the samples: there the covariate trend is extrapolated, beyond "
+                                 "what the samples support. Read those places with care, or add samples there."))
         for name, counts, sd, (low, high) in zip(self.fields, self.counts, self.sds, self.data_range):
             if counts.outside_model:
                 lines.append(LogLine("warning", f"{name}: {counts.outside_model:,} {missing}: their kriging "

@@ -13,7 +13,6 @@ from __future__ import annotations
 import contextlib
 from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass
-from typing import Optional
 
 import numpy as np
 from scipy import stats
@@ -39,22 +38,24 @@ BLOCK_CELLS = 1 << 20
 TILE_ROWS = 256
 DISTANCE_DESCRIPTION = "distance from the cell centre to the nearest sample (working CRS units, straight line)"
 
-CellPredictor = Callable[[np.ndarray, Callable[[float], None], Optional[Callable[[], bool]]],
-                         tuple[np.ndarray, np.ndarray]]
-"""``predict(centres (m, 2), progress, should_stop) -> (mean, variance)`` in the modelling scale; ``mean`` has
-one column per field when the predictor krigs several fields at once."""
+CellPredictor = Callable[..., tuple[np.ndarray, np.ndarray]]
+"""``predict(centres (m, 2), progress, should_stop[, covariates0 (m, c)]) -> (mean, variance)`` in the modelling
+scale; ``mean`` has one column per field when the predictor krigs several fields at once. ``covariates0`` (the
+mean's covariate columns at the centres) is passed only when the mean names covariates."""
 
 
 def cell_predictor(predictor: KrigingPredictor | LocalKrigingPredictor, support: str = "point",
                    pixel_size: float = 0.0) -> CellPredictor:
     """Kriging at cell centres or other points (``support == "point"``) or of cell averages of side
-    ``pixel_size`` (``"cell"``, block kriging; global :class:`KrigingPredictor` only)."""
+    ``pixel_size`` (``"cell"``, block kriging; global :class:`KrigingPredictor` only; a cell's covariate columns
+    stand for their average over the cell)."""
     if support == "cell":
-        def predict(centres, progress, should_stop):
-            return block_predict(predictor, centres, pixel_size, progress=progress, should_stop=should_stop)
+        def predict(centres, progress, should_stop, covariates0=None):
+            return block_predict(predictor, centres, pixel_size, covariates0, progress=progress,
+                                 should_stop=should_stop)
     else:
-        def predict(centres, progress, should_stop):
-            return predictor.predict(centres, progress=progress, should_stop=should_stop)
+        def predict(centres, progress, should_stop, covariates0=None):
+            return predictor.predict(centres, covariates0, progress=progress, should_stop=should_stop)
     return predict
 
 
@@ -189,7 +190,7 @@ class PointValues:
 
 def predict_points(predict: CellPredictor, xy: np.ndarray, scale: SurfaceScale, kinds: Sequence[str], *,
                    variance_factors: Sequence[float] = (1.0,), check: ExtrapolationCheck | None = None,
-                   progress: Callable[[float], None] | None = None,
+                   covariates: np.ndarray | None = None, progress: Callable[[float], None] | None = None,
                    should_stop: Callable[[], bool] | None = None) -> PointValues:
     """Krige ``xy`` and return the quantities ``kinds`` of every field in attribute units.
 
@@ -209,15 +210,18 @@ def predict_points(predict: CellPredictor, xy: np.ndarray, scale: SurfaceScale, 
     check : ExtrapolationCheck, optional
         Screens means beyond what the model allows (set to NaN) and counts the points beyond the effective
         range and outside the data range.
+    covariates : ndarray of shape (m, c), optional
+        The mean's covariate columns at ``xy`` (finite), when it names covariates.
     progress, should_stop : callable, optional
         Passed to ``predict`` (fraction done; raises :class:`..errors.Cancelled` when ``should_stop()``).
     """
-    mean, variance = predict(xy, progress, should_stop)
+    extra = () if covariates is None else (covariates,)
+    mean, variance = predict(xy, progress, should_stop, *extra)
     mean = mean.reshape(len(variance), -1)
     resolved = ~np.isnan(variance)
     variances = variance[:, None] * np.asarray(variance_factors, dtype=float)
     if check is not None:
-        mean, variances = check.screen(xy, mean, variances)
+        mean, variances = check.screen(xy, mean, variances, covariates)
     wanted = list(dict.fromkeys([*kinds, "prediction"]))
     layers = []
     for column in range(mean.shape[1]):
@@ -263,7 +267,8 @@ class FieldRasters:
 def write_surfaces(predict: CellPredictor, grid: GridSpec, inside: np.ndarray | None, scale: SurfaceScale,
                    crs_wkt: str, fields: Sequence[FieldRasters], progress: Callable[[float], None] | None = None,
                    should_stop: Callable[[], bool] | None = None, check: ExtrapolationCheck | None = None,
-                   distance_path: str = "") -> NodataCounts:
+                   distance_path: str = "", covariates: Callable[[int, int], np.ndarray] | None = None,
+                   ) -> NodataCounts:
     """Predict every cell (those with ``inside`` True) and write each field's GeoTIFFs; returns the nodata counts.
 
     ``predict`` gives one mean column per field of ``fields`` (shape (m,) for one field, (m, k) for k)
@@ -273,7 +278,9 @@ def write_surfaces(predict: CellPredictor, grid: GridSpec, inside: np.ndarray | 
     With a ``check``, a field's cells whose mean lies outside what the model allows are nodata too (and
     counted there, not in the counts returned), and the extrapolation counts are made; with a
     ``distance_path`` as well, the distance to the nearest sample is written there (GeoTIFF, nodata
-    outside the mask).
+    outside the mask). ``covariates(row_start, row_stop)``, when the mean names covariates, gives their design
+    columns at the cells of those rows (raster order, NaN where a covariate has no usable value: such cells
+    are nodata and counted in ``NodataCounts.no_covariate``).
 
     Every field's files appear together at the end (or, inside an :class:`..io.staging.OutputSet`, with
     the set's commit).
@@ -289,7 +296,7 @@ def write_surfaces(predict: CellPredictor, grid: GridSpec, inside: np.ndarray | 
     if distance_path and check is None:
         raise FieldcastError("The distance raster needs the samples: pass an ExtrapolationCheck with distance_path.")
     step = block_rows(grid, len(fields))
-    unresolved = kriged = 0
+    unresolved = kriged = no_covariate = 0
     lost = {f"{output.field} {kind}": 0 for output in fields for kind in SURFACE_KINDS if output.paths.get(kind)}
     with staged_together(), contextlib.ExitStack() as stack:
         distance_writer = (stack.enter_context(GeoTiffWriter(distance_path, grid, 1, crs_wkt, [DISTANCE_DESCRIPTION],
@@ -308,6 +315,13 @@ def write_surfaces(predict: CellPredictor, grid: GridSpec, inside: np.ndarray | 
             stop = min(start + step, grid.n_rows)
             centres = grid.cell_centres(start, stop)
             keep = np.ones(len(centres), bool) if inside is None else inside[start:stop].ravel()
+            columns = None
+            if covariates is not None and keep.any():
+                columns = covariates(start, stop)
+                usable = np.all(np.isfinite(columns), axis=1)
+                no_covariate += int(np.count_nonzero(keep & ~usable))
+                keep = keep & usable
+                columns = columns[keep]
             bands = [{kind: np.full(len(centres), np.nan) for kind in field_writers} for field_writers in writers]
             distance = np.full(len(centres), np.nan)
             if keep.any():
@@ -317,7 +331,7 @@ def write_surfaces(predict: CellPredictor, grid: GridSpec, inside: np.ndarray | 
 
                 found = predict_points(predict, centres[keep], scale, kinds_asked,
                                        variance_factors=[output.variance_factor for output in fields], check=check,
-                                       progress=block_progress, should_stop=should_stop)
+                                       covariates=columns, progress=block_progress, should_stop=should_stop)
                 kriged += len(found.resolved)
                 unresolved += int(np.count_nonzero(~found.resolved))
                 if distance_writer is not None:
@@ -335,7 +349,7 @@ def write_surfaces(predict: CellPredictor, grid: GridSpec, inside: np.ndarray | 
                 distance_writer.write_block(0, start, distance)
             if progress is not None:
                 progress(stop / grid.n_rows)
-        counts = NodataCounts(kriged, unresolved, lost)
+        counts = NodataCounts(kriged, unresolved, lost, no_covariate)
         if counts.error() is not None:
             raise counts.error()
         for writer in [*(writer for field_writers in writers for writer in field_writers.values()),

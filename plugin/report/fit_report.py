@@ -136,10 +136,12 @@ def data_section(samples: Samples, model: ModelDocument, skipped: Mapping[str, i
     }
 
 
-def mean_section(fit: FitResult) -> dict[str, Any]:
-    """Kind of mean in words, whether it varies in space (trend or covariates), and its coefficients."""
+def mean_section(fit: FitResult, standard_errors: Sequence[float] = ()) -> dict[str, Any]:
+    """Kind of mean in words, whether it varies in space (trend or covariates), its coefficients and their
+    standard errors (None each when not computed), and the covariates' classes and baselines."""
     names = fit.mean.term_names
     coefficients = np.asarray(fit.coefficients, dtype=float)
+    errors = [float(error) for error in standard_errors] or [None] * len(names)
     return {
         "kind": fit.mean.kind,
         "has_trend": fit.mean.kind in ("linear", "quadratic") or bool(fit.mean.covariate_names),
@@ -147,8 +149,9 @@ def mean_section(fit: FitResult) -> dict[str, Any]:
         "known_value": fit.mean.known_value,
         "origin": list(fit.mean.origin),
         "scale": fit.mean.scale,
-        "coefficients": [{"term": name, "words": TERM_WORDS.get(name, name), "value": float(value)}
-                         for name, value in zip(names, coefficients)],
+        "coefficients": [{"term": name, "words": TERM_WORDS.get(name, name), "value": float(value),
+                          "standard_error": error}
+                         for name, value, error in zip(names, coefficients, errors)],
     }
 
 
@@ -198,7 +201,8 @@ def write_fit_report(
     data = data_section(samples, model, skipped or {})
     candidates = candidate_rows(fit, candidate_loo_rmse)
     parameters = parameter_rows(fit.covariance, units, variance_unit)
-    mean = mean_section(fit)
+    mean = mean_section(fit, model.standard_errors)
+    mean["covariates"] = model.covariates.to_list()
     warnings = warning_items(fit)
     records = [variogram_record(v) for v in [omnidirectional, *directional]]
     plotly = load_plotly()

@@ -56,3 +56,13 @@ def test_reml_logs_say_trends_are_compared_by_ml_aic_or_leave_one_out(meuse, aut
     assert any("METHOD ml" in line and "different trends" in line for line in fit_log_lines(auto_fit, "m"))
     ml = fit_model(meuse.xy, np.log(meuse.zinc), kernel="exponential", anisotropy=False, method="ml")
     assert not any("different trends" in line for line in fit_log_lines(ml, "m"))
+
+
+def test_coefficient_line_gives_each_term_with_its_standard_error():
+    from fieldcast.algorithms import coefficient_line
+
+    line = coefficient_line(("1", "dist", "ffreq=2"), [6.5, -2.125, -0.5], [0.1, 0.25, 0.125])
+    assert line == ("Mean coefficients (generalised least squares; ± standard error given the covariance): "
+                    "1 = 6.5 ± 0.1, dist = -2.125 ± 0.25, ffreq=2 = -0.5 ± 0.125.")
+    assert coefficient_line(("1",), [6.5], []) == "Mean coefficients (generalised least squares): 1 = 6.5."
+    assert coefficient_line((), [], []) == "The mean is known: no coefficients were estimated."

@@ -11,6 +11,7 @@ import numpy as np
 import pytest
 
 from fieldcast.algorithms.errors import FieldcastError
+from fieldcast.algorithms.io.covariates import Covariate, CovariateSet
 from fieldcast.algorithms.io.model_file import FORMAT_NAME, FORMAT_VERSION, ModelDocument
 from fieldcast.algorithms.model.covariance import CovarianceModel, Structure
 from fieldcast.algorithms.model.mean import MeanModel
@@ -35,6 +36,17 @@ def known_mean_document() -> ModelDocument:
                          "metre", "lead")
 
 
+def covariate_document() -> ModelDocument:
+    """A constant mean with a continuous and a class covariate (baseline class 1), and standard errors."""
+    covariates = CovariateSet((Covariate("dist", source="/data/dist.tif"),
+                               Covariate("ffreq", "class", (1.0, 2.0, 3.0), 1.0, "/data/ffreq.tif")))
+    mean = MeanModel("constant", origin=(179_123.5, 331_987.5), scale=2_000.0,
+                     covariate_names=covariates.column_names)
+    return ModelDocument(CovarianceModel((Structure("spherical", 0.4, 800.0),), 0.05), mean,
+                         np.array([6.5, -2.0, -0.5, -0.75]), Transform("log"), CRS_WKT, "metre", "zinc", {},
+                         covariates, np.array([0.1, 0.3, 0.12, 0.2]))
+
+
 def assert_same(loaded: ModelDocument, original: ModelDocument) -> None:
     assert loaded.covariance == original.covariance
     assert loaded.mean == original.mean
@@ -42,9 +54,11 @@ def assert_same(loaded: ModelDocument, original: ModelDocument) -> None:
     assert loaded.transform == original.transform
     assert (loaded.crs_wkt, loaded.units, loaded.field, loaded.fit) == (
         original.crs_wkt, original.units, original.field, original.fit)
+    assert loaded.covariates == original.covariates
+    np.testing.assert_array_equal(loaded.standard_errors, original.standard_errors)
 
 
-@pytest.mark.parametrize("make", [nested_document, known_mean_document])
+@pytest.mark.parametrize("make", [nested_document, known_mean_document, covariate_document])
 def test_round_trip_through_a_file_is_exact(make, tmp_path):
     original = make()
     path = tmp_path / "model.json"
@@ -195,3 +209,30 @@ def test_unreadable_paths_are_refused_with_advice(tmp_path, name):
     path = str(tmp_path / name)
     with pytest.raises(FieldcastError, match=f"Cannot read the model file {re.escape(path)}: .*Check the path"):
         ModelDocument.load(path)
+
+
+def test_covariates_are_recorded_with_kind_classes_baseline_and_source():
+    mean = json.loads(covariate_document().to_json())["mean"]
+    assert mean["covariates"] == ["dist", "ffreq=2", "ffreq=3"]
+    assert mean["standard_errors"] == [0.1, 0.3, 0.12, 0.2]
+    assert mean["covariate_rasters"] == [
+        {"name": "dist", "kind": "continuous", "source": "/data/dist.tif"},
+        {"name": "ffreq", "kind": "class", "source": "/data/ffreq.tif", "classes": [1.0, 2.0, 3.0], "baseline": 1.0}]
+
+
+@pytest.mark.parametrize(("change", "fragments"), [
+    (lambda mean: mean["covariate_rasters"][1].update(baseline=4.0),
+     ["mean.covariate_rasters[1].baseline = 4.0", "one of the classes"]),
+    (lambda mean: mean["covariate_rasters"][1].update(kind="soil"),
+     ["mean.covariate_rasters[1].kind", "\"continuous\", \"class\""]),
+    (lambda mean: mean["covariate_rasters"][0].pop("name"), ["no mean.covariate_rasters[0].name"]),
+    (lambda mean: mean["covariate_rasters"].pop(), ["covariate_rasters give the columns ['dist']", "Refit"]),
+    (lambda mean: mean.update(standard_errors=[0.1]), ["1 mean standard errors", "Refit"]),
+])
+def test_bad_covariate_records_are_refused(change, fragments):
+    data = json.loads(covariate_document().to_json())
+    change(data["mean"])
+    with pytest.raises(FieldcastError) as caught:
+        ModelDocument.from_dict(data)
+    for fragment in fragments:
+        assert fragment in str(caught.value)

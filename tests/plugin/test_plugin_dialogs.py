@@ -23,13 +23,16 @@ from qgis_support import fieldcast_plugin, point_layer, qgis_processing  # noqa:
 from repo_package import REPO_ROOT
 
 MAIN_PAGE_INPUTS = {
-    "fitmodel": {"INPUT", "FIELD", "TRANSFORM", "KERNEL", "ANISOTROPY", "TREND", "METHOD"},
-    "predict": {"INPUT", "FIELD", "MODEL", "TEMPLATE", "EXTENT", "PIXEL_SIZE", "MASK", "MAP_AREA", "THRESHOLD"},
-    "predictmany": {"INPUT", "FIELDS", "TRANSFORM", "KERNEL", "ANISOTROPY", "TREND", "METHOD", "SHARED_MODEL",
-                    "TEMPLATE", "EXTENT", "PIXEL_SIZE", "MASK", "MAP_AREA"},
-    "simulate": {"INPUT", "FIELD", "MODEL", "TEMPLATE", "EXTENT", "PIXEL_SIZE", "MASK", "REALIZATIONS", "THRESHOLD"},
-    "crossvalidate": {"INPUT", "FIELD", "MODEL"},
-    "predictpoints": {"INPUT", "FIELD", "MODEL", "TARGETS", "THRESHOLD"},
+    "fitmodel": {"INPUT", "FIELD", "COVARIATES", "CLASS_COVARIATES", "TRANSFORM", "KERNEL", "ANISOTROPY", "TREND",
+                 "METHOD"},
+    "predict": {"INPUT", "FIELD", "MODEL", "COVARIATES", "CLASS_COVARIATES", "TEMPLATE", "EXTENT", "PIXEL_SIZE",
+                "MASK", "MAP_AREA", "THRESHOLD"},
+    "predictmany": {"INPUT", "FIELDS", "COVARIATES", "CLASS_COVARIATES", "TRANSFORM", "KERNEL", "ANISOTROPY",
+                    "TREND", "METHOD", "SHARED_MODEL", "TEMPLATE", "EXTENT", "PIXEL_SIZE", "MASK", "MAP_AREA"},
+    "simulate": {"INPUT", "FIELD", "MODEL", "COVARIATES", "CLASS_COVARIATES", "TEMPLATE", "EXTENT", "PIXEL_SIZE",
+                 "MASK", "REALIZATIONS", "THRESHOLD"},
+    "crossvalidate": {"INPUT", "FIELD", "MODEL", "COVARIATES", "CLASS_COVARIATES"},
+    "predictpoints": {"INPUT", "FIELD", "MODEL", "COVARIATES", "CLASS_COVARIATES", "TARGETS", "THRESHOLD"},
 }
 EXPERT = {"NEIGHBOURS", "SEARCH_RADIUS", "SUPPORT", "BACKTRANSFORM", "TARGET_CRS", "LOG_OFFSET", "SEED", "HULL_MARGIN",
           "INTERVAL_PROBABILITY", "TEMPLATE_NODATA_MASK"}

@@ -18,6 +18,8 @@ import numpy as np
 import pytest
 from osgeo import gdal, ogr, osr
 
+from fieldcast.algorithms.io.covariates import CovariateSource, SampleCovariates
+from fieldcast.algorithms.io.crs import to_wkt2
 from fieldcast.algorithms.io.model_file import ModelDocument
 from fieldcast.algorithms.predict.kriging import KrigingPredictor
 from qgis_process_support import (
@@ -35,7 +37,7 @@ from qgis_process_support import (
     write_template,
 )
 from qgis_support import fieldcast_plugin  # noqa: F401 - fixture: a QgsApplication to build the .model3 in
-from reference import calibrated_coverage_range, calibrated_msdr_range, load_meuse_grid
+from reference import calibrated_coverage_range, calibrated_msdr_range, load_meuse_grid, write_meuse_covariates
 from requirements_check import skip_unless_available
 
 pytestmark = skip_unless_available(QGIS_PROCESS is not None, "qgis_process.bin is not installed")
@@ -488,3 +490,29 @@ def test_predict_on_a_template_raster_takes_its_grid_and_nodata(profile, meuse_l
                              document.mean).predict(template_centres(template))
     # The median of the lognormal exp(Y), Y ~ N(mu, s2), is exp(mu) (Aitchison & Brown 1957); Float32 storage.
     np.testing.assert_allclose(values[inside], (np.exp(mu) - offset).reshape(ROWS, COLUMNS)[inside], rtol=1e-5)
+
+
+def test_qgis_process_fits_and_predicts_points_with_covariate_rasters(profile, meuse_layer, meuse, tmp_path):
+    # Covariates given as raster files on the command line (one NAME=path pair per raster) are named by their
+    # file names; the points are kriged with the covariates read at them (the published Meuse samples' places).
+    dist, ffreq = write_meuse_covariates(tmp_path)
+    model_path = tmp_path / "zinc.json"
+    rasters = {"COVARIATES": [str(dist)], "CLASS_COVARIATES": [str(ffreq)]}
+    run = run_algorithm(profile, "fieldcast:fitmodel", {"INPUT": meuse_layer, "FIELD": "zinc", **FIT_SETTINGS,
+                                                        **rasters, "OUTPUT_MODEL": model_path})
+    assert run.returncode == 0, run.messages
+    document = ModelDocument.load(str(model_path))
+    assert document.covariates.column_names == ("dist", "ffreq=2", "ffreq=3")
+    points = tmp_path / "points.gpkg"
+    run = run_algorithm(profile, "fieldcast:predictpoints", {"INPUT": meuse_layer, "FIELD": "zinc", "MODEL": model_path,
+                                                             **rasters, "TARGETS": meuse_layer, "OUTPUT": points})
+    assert run.returncode == 0, run.messages
+    dataset = ogr.Open(str(points))
+    rows = {int(feature.GetField("id")): feature.GetField("zinc_est") for feature in dataset.GetLayer()}
+    sources = [CovariateSource("dist", str(dist)), CovariateSource("ffreq", str(ffreq), "class")]
+    read = SampleCovariates.read(sources, meuse.xy, to_wkt2("EPSG:28992"))
+    mu, _ = KrigingPredictor(meuse.xy[read.kept], np.log(meuse.zinc[read.kept]), document.covariance,
+                             document.mean, read.columns).predict(meuse.xy[read.kept], read.columns)
+    got = np.array([rows[int(sample)] for sample in meuse.ids[read.kept]], dtype=float)
+    np.testing.assert_allclose(got, np.exp(mu), rtol=1e-9)
+    assert all(rows[int(sample)] is None for sample in meuse.ids[~read.kept])
