@@ -19,9 +19,10 @@ from fieldcast.algorithms.io.model_file import ModelDocument
 from fieldcast.algorithms.predict.block import block_predict
 from fieldcast.algorithms.predict.crossval import leave_one_out
 from fieldcast.algorithms.predict.kriging import KrigingPredictor
+from qgis_process_support import template_centres
 from qgis_support import fieldcast_plugin, point_layer, qgis_processing  # noqa: F401 - fixtures
 from reference import write_meuse_covariates
-from test_plugin_predictpoints import Log, band, cell_centres, columns, labelled_layer
+from test_plugin_predictpoints import Log, band, columns, labelled_layer
 
 FIT = {"FIELD": "zinc", "TRANSFORM": "log", "KERNEL": "spherical", "ANISOTROPY": False, "TREND": "constant",
        "METHOD": "reml"}
@@ -169,7 +170,7 @@ def test_predict_with_covariates_on_their_grid_equals_kriging_and_counts_nodata(
         "TEMPLATE": dist, "TEMPLATE_NODATA_MASK": False, "MAP_AREA": "extent", "OUTPUT": str(path),
         "OUTPUT_VARIANCE": "", "OUTPUT_SD": ""}, feedback=log)
     prediction = band(path)
-    centres = cell_centres(path)
+    centres = template_centres(path)
     document = ModelDocument.load(model)
     xy, values, read = read_samples(meuse, dist, ffreq)
     # The map's cells are the published grid's cells; where the grid has no cell the covariates have no value.
@@ -204,7 +205,7 @@ def test_simulate_with_covariates_is_centred_on_kriging_with_them(qgis_processin
                              for k in range(count)])
     nodata = dataset.GetRasterBand(1).GetNoDataValue()
     realisations[realisations == nodata] = np.nan
-    centres = cell_centres(path)
+    centres = template_centres(path)
     on_grid, cell_columns = published_cells(centres, meuse_grid)
     np.testing.assert_array_equal(np.isfinite(realisations).all(axis=0), on_grid)
     assert any(f"{np.count_nonzero(~on_grid):,} cells are nodata in every output because a covariate raster" in line
@@ -234,7 +235,7 @@ def test_predictmany_fits_and_maps_each_field_with_the_covariates(qgis_processin
         assert document.covariates.column_names == ("dist", "ffreq=2", "ffreq=3")
         assert len(document.standard_errors) == 4
         path = out / f"{field}_prediction.tif"
-        prediction, centres = band(path), cell_centres(path)
+        prediction, centres = band(path), template_centres(path)
         on_grid, cell_columns = published_cells(centres, meuse_grid)
         np.testing.assert_array_equal(np.isfinite(prediction), on_grid)
         sources = [CovariateSource("dist", dist.source()), CovariateSource("ffreq", ffreq.source(), "class")]
@@ -296,7 +297,7 @@ def test_cell_support_with_covariates_is_block_kriging_with_the_cell_values(qgis
         "INPUT": samples, "FIELD": "zinc", "MODEL": model, "COVARIATES": [dist], "CLASS_COVARIATES": [ffreq],
         "TEMPLATE": dist, "TEMPLATE_NODATA_MASK": False, "MAP_AREA": "extent", "SUPPORT": "cell",
         "OUTPUT": str(path), "OUTPUT_VARIANCE": "", "OUTPUT_SD": ""})
-    prediction, centres = band(path), cell_centres(path)
+    prediction, centres = band(path), template_centres(path)
     on_grid, cell_columns = published_cells(centres, meuse_grid)
     document = ModelDocument.load(model)
     xy, values, read = read_samples(meuse, dist, ffreq)
