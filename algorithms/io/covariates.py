@@ -64,7 +64,7 @@ class CovariateSource:
 
     def open(self) -> tuple[gdal.Dataset, str]:
         """The GDAL dataset and its CRS (WKT2); FieldcastError when it cannot be opened or has no CRS."""
-        dataset = open_raster(self.path, f"covariate {self.name!r}")
+        dataset = open_raster(self.path, f"covariate {self.name!r}", "in COVARIATES or CLASS_COVARIATES")
         wkt = self.crs_wkt or dataset.GetProjection()
         if not wkt:
             raise FieldcastError(f"The covariate raster {self.name!r} has no CRS. Assign one (Layer Properties > "

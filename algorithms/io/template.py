@@ -114,14 +114,15 @@ class RasterTemplate:
         return None if valid.all() else valid
 
 
-def open_raster(path: str, name: str) -> gdal.Dataset:
-    """The GDAL dataset at ``path``; FieldcastError naming ``name`` when GDAL cannot open it."""
+def open_raster(path: str, name: str, role: str = "as template (TEMPLATE)") -> gdal.Dataset:
+    """The GDAL dataset at ``path``; FieldcastError naming ``name`` when GDAL cannot open it, whose advice says to
+    choose a raster file ``role`` (e.g. ``"in COVARIATES or CLASS_COVARIATES"``)."""
     gdal.PushErrorHandler("CPLQuietErrorHandler")
     try:
         dataset = gdal.Open(path) if path else None
     finally:
         gdal.PopErrorHandler()
     if dataset is None or dataset.RasterCount < 1:
-        raise FieldcastError(f"GDAL cannot open {name} as a raster ({path!r}). Choose a raster file layer as "
-                             "template (e.g. a GeoTIFF; save other layers with Export > Save As first).")
+        raise FieldcastError(f"GDAL cannot open {name} as a raster ({path!r}). Choose a raster file layer "
+                             f"{role} (e.g. a GeoTIFF; save other layers with Export > Save As first).")
     return dataset

@@ -277,3 +277,11 @@ def test_a_map_where_no_cell_has_a_covariate_value_is_refused_writing_nothing(tm
                        covariates=rows)
     assert list(tmp_path.iterdir()) == []
 
+
+
+def test_a_covariate_gdal_cannot_open_is_refused_naming_the_covariate_parameters(tmp_path, meuse):
+    path = tmp_path / "not_a_raster.tif"
+    path.write_text("no raster here")
+    with pytest.raises(FieldcastError, match="GDAL cannot open covariate 'dist'") as caught:
+        SampleCovariates.read([CovariateSource("dist", str(path))], meuse.xy, WORKING)
+    assert "in COVARIATES or CLASS_COVARIATES" in str(caught.value) and "TEMPLATE" not in str(caught.value)

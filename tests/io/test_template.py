@@ -93,7 +93,7 @@ def test_read_refuses_a_template_in_degrees_with_advice(tmp_path):
 
 def test_read_refuses_what_gdal_cannot_open(tmp_path):
     (tmp_path / "not_a_raster.tif").write_text("no raster here")
-    with pytest.raises(FieldcastError, match="GDAL cannot open"):
+    with pytest.raises(FieldcastError, match="GDAL cannot open.*Choose a raster file layer as template \\(TEMPLATE\\)"):
         RasterTemplate.read(str(tmp_path / "not_a_raster.tif"), "not_a_raster.tif (TEMPLATE)")
 
 
