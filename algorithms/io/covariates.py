@@ -162,7 +162,8 @@ class CovariateSet:
         ------
         FieldcastError
             If a covariate has the same value (or class) at every sample: its column would repeat the
-            constant of the trend.
+            constant of the trend; or if a class covariate holds a value that is not a whole number (a
+            raster of measured values given as classes, which would make one class per sample).
         """
         raw = np.asarray(raw, dtype=float).reshape(-1, len(sources))
         covariates = []
@@ -177,6 +178,12 @@ class CovariateSet:
             if source.kind == "continuous":
                 covariates.append(Covariate(source.name, "continuous", source=source.path))
                 continue
+            if not np.all(column == np.round(column)):
+                fraction = column[column != np.round(column)][0]
+                raise FieldcastError(
+                    f"Class covariate {source.name!r} holds {fraction:g} at a sample, not a whole-number class code: "
+                    "it looks like a raster of measured values. Give it in COVARIATES (continuous) instead of "
+                    "CLASS_COVARIATES, or turn it into class codes first (Raster analysis > Reclassify by table).")
             classes, counts = np.unique(column, return_counts=True)
             baseline = float(classes[np.argmax(counts)])
             covariates.append(Covariate(source.name, "class", tuple(float(c) for c in classes), baseline,

@@ -285,3 +285,12 @@ def test_a_covariate_gdal_cannot_open_is_refused_naming_the_covariate_parameters
     with pytest.raises(FieldcastError, match="GDAL cannot open covariate 'dist'") as caught:
         SampleCovariates.read([CovariateSource("dist", str(path))], meuse.xy, WORKING)
     assert "in COVARIATES or CLASS_COVARIATES" in str(caught.value) and "TEMPLATE" not in str(caught.value)
+
+
+def test_a_class_covariate_of_measured_values_is_refused_naming_covariates(meuse, sources):
+    # The published Meuse grid (tests/data/meuse_grid.csv) gives the distance to the river as fractions of 0..1,
+    # not class codes.
+    dist = sources[0]
+    with pytest.raises(FieldcastError, match="Class covariate 'dist' holds .* not a whole-number class code") as caught:
+        SampleCovariates.read([CovariateSource("dist", dist.path, "class")], meuse.xy, WORKING)
+    assert "Give it in COVARIATES" in str(caught.value)
