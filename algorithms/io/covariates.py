@@ -22,7 +22,7 @@ from dataclasses import dataclass
 import numpy as np
 from osgeo import gdal
 
-from ..errors import FieldcastError
+from ..errors import FieldcastError, FieldcastUsageError
 from .crs import same_crs, to_wkt2, transform_points
 from .grid import GridSpec
 from .template import open_raster
@@ -60,7 +60,7 @@ class CovariateSource:
 
     def __post_init__(self) -> None:
         if self.kind not in COVARIATE_KINDS:
-            raise ValueError(f"Unknown covariate kind {self.kind!r}.")
+            raise FieldcastUsageError(f"Unknown covariate kind {self.kind!r}; one of {COVARIATE_KINDS}.")
 
     def open(self) -> tuple[gdal.Dataset, str]:
         """The GDAL dataset and its CRS (WKT2); FieldcastError when it cannot be opened or has no CRS."""

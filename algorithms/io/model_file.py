@@ -15,7 +15,7 @@ from typing import Any
 
 import numpy as np
 
-from ..errors import FieldcastError
+from ..errors import FieldcastError, FieldcastUsageError
 from ..model.covariance import CovarianceModel
 from ..model.mean import MeanModel
 from ..model.transform import Transform
@@ -72,7 +72,7 @@ class ModelDocument:
 
     def __post_init__(self) -> None:
         if self.covariates.covariates and self.covariates.column_names != self.mean.covariate_names:
-            raise ValueError("The covariate set does not give the mean model's covariate columns.")
+            raise FieldcastUsageError("The covariate set does not give the mean model's covariate columns.")
 
     def to_dict(self) -> dict:
         """The JSON-ready document."""

@@ -10,6 +10,7 @@ from fieldcast.algorithms import (
     CovariateSet,
     CovariateSource,
     FieldcastError,
+    FieldcastUsageError,
     FieldRasters,
     FitOptions,
     KrigingPredictor,
@@ -294,3 +295,9 @@ def test_a_class_covariate_of_measured_values_is_refused_naming_covariates(meuse
     with pytest.raises(FieldcastError, match="Class covariate 'dist' holds .* not a whole-number class code") as caught:
         SampleCovariates.read([CovariateSource("dist", dist.path, "class")], meuse.xy, WORKING)
     assert "Give it in COVARIATES" in str(caught.value)
+
+
+def test_an_unknown_covariate_kind_is_a_usage_error():
+    """The plugin passes only the kinds of COVARIATE_KINDS; another is a caller's bug, reported as internal."""
+    with pytest.raises(FieldcastUsageError, match="Unknown covariate kind 'categorical'"):
+        CovariateSource("soil", "soil.tif", "categorical")

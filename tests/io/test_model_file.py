@@ -10,7 +10,7 @@ import re
 import numpy as np
 import pytest
 
-from fieldcast.algorithms.errors import FieldcastError
+from fieldcast.algorithms.errors import FieldcastError, FieldcastUsageError
 from fieldcast.algorithms.io.covariates import Covariate, CovariateSet
 from fieldcast.algorithms.io.model_file import FORMAT_NAME, FORMAT_VERSION, ModelDocument
 from fieldcast.algorithms.model.covariance import CovarianceModel, Structure
@@ -236,3 +236,11 @@ def test_bad_covariate_records_are_refused(change, fragments):
         ModelDocument.from_dict(data)
     for fragment in fragments:
         assert fragment in str(caught.value)
+
+
+def test_a_document_whose_covariates_do_not_give_its_columns_is_a_usage_error():
+    """A caller's broken contract, not the user's input (a loaded file is refused with advice before it)."""
+    document = covariate_document()
+    with pytest.raises(FieldcastUsageError, match="does not give the mean model's covariate columns"):
+        ModelDocument(document.covariance, document.mean, document.coefficients, document.transform, CRS_WKT,
+                      "metre", "zinc", {}, CovariateSet((Covariate("elev"),)))
