@@ -96,6 +96,15 @@ def progress_callback(feedback, start: float = 0.0, stop: float = 100.0) -> Call
     return lambda fraction: feedback.setProgress(start + (stop - start) * min(max(fraction, 0.0), 1.0))
 
 
+def raster_file_source(layer, name: str, parameter: str) -> str:
+    """What GDAL opens for a raster layer (its source); FieldcastError naming ``name`` when it is served by
+    another provider (a WMS, WCS or XYZ layer), which has no file to read."""
+    if layer.providerType() != "gdal":
+        raise FieldcastError(f"{name} is not a raster file (its provider is {layer.providerType()!r}). Save it "
+                             f"as a GeoTIFF first (Export > Save As) and choose that file in {parameter}.")
+    return layer.source()
+
+
 def choice_problem(definition, value) -> str:
     """Why ``value`` is not a valid word of an enum parameter made by :meth:`FieldcastAlgorithm.add_choice`
     ("" when it is valid, empty, or the parameter is not such a choice)."""
@@ -219,7 +228,8 @@ class FieldcastAlgorithm(QgsProcessingAlgorithm):
         for name, kind in ((self.COVARIATES, "continuous"), (self.CLASS_COVARIATES, "class")):
             for layer in self.parameterAsLayerList(parameters, name, context) or []:
                 crs = layer.crs()
-                sources.append(CovariateSource(layer.name(), layer.source(), kind,
+                path = raster_file_source(layer, f"The covariate raster {layer.name()!r} ({name})", name)
+                sources.append(CovariateSource(layer.name(), path, kind,
                                                crs_wkt(crs) if crs.isValid() else ""))
         names = [source.name for source in sources]
         repeated = sorted({name for name in names if names.count(name) > 1})

@@ -30,7 +30,7 @@ from ..algorithms import (
     defined_crs,
     output_grid,
 )
-from .algorithm_base import FieldcastAlgorithm, advanced
+from .algorithm_base import FieldcastAlgorithm, advanced, raster_file_source
 from .sample_reader import crs_wkt
 
 MEMORY_LIMIT_BYTES = 2e9
@@ -128,10 +128,8 @@ class RasterAlgorithm(FieldcastAlgorithm):
         if layer is None:
             return None
         name = f"the template raster {layer.name()!r} (TEMPLATE)"
-        if layer.providerType() != "gdal":
-            raise FieldcastError(f"{name} is not a raster file (its provider is {layer.providerType()!r}). Save it "
-                                 "as a GeoTIFF first (Export > Save As) and choose that file as TEMPLATE.")
-        return RasterTemplate.read(layer.source(), name, crs_wkt(layer.crs()) if layer.crs().isValid() else None)
+        return RasterTemplate.read(raster_file_source(layer, name, self.TEMPLATE), name,
+                                   crs_wkt(layer.crs()) if layer.crs().isValid() else None)
 
     def grid_and_mask(self, parameters, context, xy: np.ndarray, crs_wkt: str, units: str, feedback,
                       n_bands: int) -> tuple[GridSpec, np.ndarray | None]:

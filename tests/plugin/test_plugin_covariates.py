@@ -307,3 +307,22 @@ def test_cell_support_with_covariates_is_block_kriging_with_the_cell_values(qgis
     mean, _ = block_predict(predictor, centres[on_grid][::50], 40.0, cell_columns[::50])
     np.testing.assert_array_equal(np.isfinite(prediction), on_grid)
     np.testing.assert_allclose(prediction[on_grid][::50], np.exp(mean), rtol=1e-5)
+
+
+def test_a_covariate_or_template_that_is_no_raster_file_is_refused_naming_its_parameter(qgis_processing,  # noqa: F811
+                                                                                        covariate_run):
+    samples, _, _, _, _, folder = covariate_run
+    # An XYZ tile layer (served by the wms provider): valid without a network, but no file GDAL could read.
+    tiles = QgsRasterLayer("type=xyz&url=http://127.0.0.1:9/%7Bz%7D/%7Bx%7D/%7By%7D.png&zmax=19&zmin=0", "tiles",
+                           "wms")
+    assert tiles.providerType() == "wms"
+    model, surface = folder / "tiles.json", folder / "tiles.tif"
+    with pytest.raises(QgsProcessingException, match=r"'tiles' \(COVARIATES\) is not a raster file.*Save it as a "
+                                                     r"GeoTIFF.*in COVARIATES"):
+        qgis_processing.run("fieldcast:fitmodel", {"INPUT": samples, **FIT, "COVARIATES": [tiles],
+                                                   "OUTPUT_MODEL": str(model)})
+    with pytest.raises(QgsProcessingException, match=r"template raster 'tiles' \(TEMPLATE\) is not a raster file.*"
+                                                     r"in TEMPLATE"):
+        qgis_processing.run("fieldcast:predict", {"INPUT": samples, "FIELD": "zinc", "TEMPLATE": tiles,
+                                                  "OUTPUT": str(surface)})
+    assert not model.exists() and not surface.exists()
