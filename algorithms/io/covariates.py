@@ -23,7 +23,7 @@ import numpy as np
 from osgeo import gdal
 
 from ..errors import FieldcastError, FieldcastUsageError
-from .crs import same_crs, to_wkt2, transform_points
+from .crs import defined_crs, same_crs, to_wkt2, transform_points
 from .grid import GridSpec
 from .template import open_raster
 
@@ -63,13 +63,11 @@ class CovariateSource:
             raise FieldcastUsageError(f"Unknown covariate kind {self.kind!r}; one of {COVARIATE_KINDS}.")
 
     def open(self) -> tuple[gdal.Dataset, str]:
-        """The GDAL dataset and its CRS (WKT2); FieldcastError when it cannot be opened or has no CRS."""
+        """The GDAL dataset and its CRS (WKT2); FieldcastError when it cannot be opened or has no defined CRS (none,
+        or a placeholder that does not say whether its coordinates are degrees or metres)."""
         dataset = open_raster(self.path, f"covariate {self.name!r}", "in COVARIATES or CLASS_COVARIATES")
-        wkt = self.crs_wkt or dataset.GetProjection()
-        if not wkt:
-            raise FieldcastError(f"The covariate raster {self.name!r} has no CRS. Assign one (Layer Properties > "
-                                 "Source) and save it, or choose another raster.")
-        return dataset, to_wkt2(wkt)
+        crs = defined_crs(self.crs_wkt or dataset.GetProjection(), f"{self.name} (a covariate raster)")
+        return dataset, to_wkt2(crs)
 
 
 @dataclass(frozen=True)

@@ -301,3 +301,15 @@ def test_an_unknown_covariate_kind_is_a_usage_error():
     """The plugin passes only the kinds of COVARIATE_KINDS; another is a caller's bug, reported as internal."""
     with pytest.raises(FieldcastUsageError, match="Unknown covariate kind 'categorical'"):
         CovariateSource("soil", "soil.tif", "categorical")
+
+
+@pytest.mark.parametrize("projection", ["", 'LOCAL_CS["Undefined Cartesian SRS",UNIT["unknown",1]]'])
+def test_a_covariate_raster_without_a_defined_crs_is_refused_with_advice(tmp_path, meuse, projection):
+    path = tmp_path / "no_crs.tif"
+    dataset = gdal.GetDriverByName("GTiff").Create(str(path), 10, 10, 1, gdal.GDT_Float32)
+    dataset.SetGeoTransform((178000.0, 500.0, 0.0, 334000.0, 0.0, -500.0))
+    if projection:
+        dataset.SetProjection(projection)
+    dataset = None
+    with pytest.raises(FieldcastError, match="no_crs \\(a covariate raster\\) has no defined CRS.*Assign its real CRS"):
+        SampleCovariates.read([CovariateSource("no_crs", str(path))], meuse.xy, WORKING)
