@@ -82,6 +82,7 @@ _PUBLIC = {
     "PointValues": "predict.grid_surfaces",
     "predict_points": "predict.grid_surfaces",
     "ExtrapolationCheck": "predict.extrapolation",
+    "covariate_extrapolation": "predict.extrapolation",
     "AUTOMATIC_NEIGHBOURS": "predict.choice",
     "GLOBAL_SAMPLE_LIMIT": "predict.choice",
     "LogLine": "predict.choice",

@@ -28,6 +28,7 @@ from ..algorithms import (
     RealisationSummary,
     SimulationResult,
     area_words,
+    covariate_extrapolation,
     refuse_local_covariates,
     search_words,
     simulate_conditional,
@@ -175,6 +176,9 @@ class SimulateAlgorithm(RasterAlgorithm):
         grid, inside = self.grid_and_mask(parameters, context, samples.xy, document.crs_wkt, document.units,
                                           feedback, n_bands=1 + len(summaries))  # realisations: checked below
         grid_covariates, inside = self.grid_covariates(parameters, context, document, grid, inside, feedback)
+        if grid_covariates is not None:
+            cells = grid_covariates if inside is None else grid_covariates[inside.ravel()]
+            push_log(feedback, covariate_extrapolation(samples.covariates, cells))
         feedback.pushInfo(f"Simulating {count} realisations (seed {seed}).")
         push_log(feedback, lines)
         self.log_conditioning(neighbours, search_radius, len(samples.values), document.units, feedback)

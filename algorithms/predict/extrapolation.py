@@ -124,8 +124,7 @@ class ExtrapolationCheck:
         factors = np.ones(columns.shape[1]) if sill_factors is None else np.asarray(sill_factors, dtype=float)
         original = transform.back_median(columns)
         frames = [(structure, cKDTree(search_frame(structure, xy))) for structure in covariance.structures]
-        ranges = np.zeros((0, 2)) if covariates is None else np.column_stack(
-            [np.min(covariates, axis=0), np.max(covariates, axis=0)])
+        ranges = np.zeros((0, 2)) if covariates is None else covariate_range(covariates)
         return cls(cKDTree(xy), frames, mean, coefficients, np.sqrt(covariance.sill * factors),
                    np.column_stack([original.min(axis=0), original.max(axis=0)]), list(fields),
                    counts=[FieldCounts() for _ in fields], covariate_range=ranges)
@@ -142,9 +141,7 @@ class ExtrapolationCheck:
         is counted beyond the effective range or not, and outside the covariates' range at the samples or not."""
         self.cells += len(centres)
         if covariates0 is not None and len(self.covariate_range):
-            low, high = self.covariate_range.T
-            self.beyond_covariates += int(np.count_nonzero(np.any((covariates0 < low) | (covariates0 > high),
-                                                                  axis=1)))
+            self.beyond_covariates += beyond_covariate_range(self.covariate_range, covariates0)
         beyond = np.ones(len(centres), bool)
         for structure, tree in self.frames:
             nearest, _ = tree.query(search_frame(structure, centres))
@@ -186,10 +183,7 @@ class ExtrapolationCheck:
                          "there the prediction is the model's mean and the variance near the sill."
                          + (" " + advice if share > EXTRAPOLATION_SHARE else ""))]
         if self.beyond_covariates:
-            lines.append(LogLine("warning", f"{self.beyond_covariates:,} of {self.cells:,} {checked} "
-                                 f"({self.beyond_covariates / self.cells:.1%}) have a covariate value outside the "
-                                 "range seen at the samples: there the covariate trend is extrapolated, beyond "
-                                 "what the samples support. Read those places with care, or add samples there."))
+            lines.append(covariate_range_line(self.beyond_covariates, self.cells, checked))
         for name, counts, sd, (low, high) in zip(self.fields, self.counts, self.sds, self.data_range):
             if counts.outside_model:
                 lines.append(LogLine("warning", f"{name}: {counts.outside_model:,} {missing}: their kriging "
@@ -209,3 +203,30 @@ class ExtrapolationCheck:
             else:
                 lines.append(LogLine("info", words))
         return lines
+
+
+def covariate_range(columns: np.ndarray) -> np.ndarray:
+    """Smallest and largest value of each covariate column ``(n, c)`` at the samples: ``(c, 2)``."""
+    columns = np.asarray(columns, dtype=float)
+    return np.column_stack([np.min(columns, axis=0), np.max(columns, axis=0)])
+
+
+def beyond_covariate_range(ranges: np.ndarray, columns: np.ndarray) -> int:
+    """How many rows of ``columns`` ``(m, c)`` have a column outside its range ``ranges`` ``(c, 2)`` (NaN rows are
+    not counted)."""
+    low, high = np.asarray(ranges, dtype=float).T
+    return int(np.count_nonzero(np.any((columns < low) | (columns > high), axis=1)))
+
+
+def covariate_range_line(beyond: int, places: int, checked: str) -> LogLine:
+    """The warning that ``beyond`` of ``places`` (called ``checked``, e.g. "mapped cells") extrapolate the trend."""
+    return LogLine("warning", f"{beyond:,} of {places:,} {checked} ({beyond / places:.1%}) have a covariate value "
+                   "outside the range seen at the samples: there the covariate trend is extrapolated, beyond what "
+                   "the samples support. Read those places with care, or add samples there.")
+
+
+def covariate_extrapolation(sample_columns: np.ndarray, columns: np.ndarray, places: str = "cell") -> list[LogLine]:
+    """The log of places whose covariate columns ``(m, c)`` leave their range at the samples ``(n, c)``: one
+    warning, or none when no place does. ``places`` as for :meth:`ExtrapolationCheck.lines`."""
+    beyond = beyond_covariate_range(covariate_range(sample_columns), columns)
+    return [covariate_range_line(beyond, len(columns), PLACE_WORDS[places][0])] if beyond else []

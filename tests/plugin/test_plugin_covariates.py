@@ -212,6 +212,12 @@ def test_simulate_with_covariates_is_centred_on_kriging_with_them(qgis_processin
                for line in log.lines)
     document = ModelDocument.load(model)
     xy, values, read = read_samples(meuse, dist, ffreq)
+    # The covariate trend extrapolates at the cells whose published distance to the river lies outside the range
+    # read at the samples (both flood-frequency indicators take 0 and 1 at the samples, so never leave it).
+    low, high = read.columns[:, 0].min(), read.columns[:, 0].max()
+    beyond = np.count_nonzero((cell_columns[:, 0] < low) | (cell_columns[:, 0] > high))
+    assert any(line.startswith(f"{beyond:,} of {np.count_nonzero(on_grid):,} mapped cells") and
+               "covariate trend is extrapolated" in line for line in log.lines)
     mean, variance = KrigingPredictor(xy, values, document.covariance, document.mean, read.columns).predict(
         centres[on_grid], cell_columns)
     # Conditional simulation by kriging (Journel & Huijbregts 1978): at every cell the log of the realisations is
