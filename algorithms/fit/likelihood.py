@@ -99,7 +99,8 @@ class MeanBasis:
             raise FieldcastError(
                 f"The mean model has {design.shape[1]} terms but there are only {design.shape[0]} samples; "
                 "choose a simpler TREND (constant needs 2 samples, linear 4, quadratic 7; each covariate adds a "
-                "term) or add samples."
+                "term, and a class covariate one per class but its baseline: a raster of many codes belongs in "
+                "COVARIATES, not CLASS_COVARIATES, or needs its classes merged) or add samples."
             )
         q, r = np.linalg.qr(design)
         diagonal = np.abs(np.diag(r))

@@ -219,3 +219,12 @@ def test_best_scale_is_the_minimum_over_a_common_variance_factor(method):
     value, log_scale = objective.best_scale(theta)
     assert value == pytest.approx(numeric.fun, rel=1e-9)
     assert log_scale == pytest.approx(numeric.x, abs=1e-5)
+
+
+def test_as_many_mean_terms_as_samples_is_refused_with_advice_on_class_covariates():
+    # A class covariate with a class of its own at each of 6 samples: the constant and 5 indicators are 6 terms,
+    # which leave REML no error contrast (n - p = 0, Harville 1974).
+    design = np.column_stack([np.ones(6), np.eye(6)[:, 1:]])
+    with pytest.raises(FieldcastError, match="6 terms but there are only 6 samples.*belongs in COVARIATES, not "
+                                             "CLASS_COVARIATES"):
+        MeanBasis.from_design(design)
