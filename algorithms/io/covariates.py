@@ -181,7 +181,8 @@ class CovariateSet:
                 raise FieldcastError(
                     f"Class covariate {source.name!r} holds {fraction:g} at a sample, not a whole-number class code: "
                     "it looks like a raster of measured values. Give it in COVARIATES (continuous) instead of "
-                    "CLASS_COVARIATES, or turn it into class codes first (Raster analysis > Reclassify by table).")
+                    "CLASS_COVARIATES, or turn it into class codes first (Processing Toolbox > Raster analysis > "
+                    "Reclassify by table).")
             classes, counts = np.unique(column, return_counts=True)
             baseline = float(classes[np.argmax(counts)])
             covariates.append(Covariate(source.name, "class", tuple(float(c) for c in classes), baseline,
