@@ -8,7 +8,6 @@ does not take covariates yet, so the 10^5-sample case of the issue is not run.
 """
 from __future__ import annotations
 
-import os
 import sys
 import tempfile
 import time
@@ -16,8 +15,6 @@ from pathlib import Path
 
 import numpy as np
 
-if "PROJ_LIB" not in os.environ:
-    os.environ.setdefault("PROJ_DATA", str(Path(sys.base_prefix, "share", "proj")))
 sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "tests"))  # the repository loader, Meuse support
 from repo_package import load_repo_package  # noqa: E402
 

@@ -7,7 +7,6 @@ a few chunks, not a copy of the layer.
 """
 from __future__ import annotations
 
-import os
 import sys
 import tempfile
 import time
@@ -16,8 +15,6 @@ from pathlib import Path
 import numpy as np
 from osgeo import ogr
 
-if "PROJ_LIB" not in os.environ:  # see tests/conftest.py: a venv's pyproj does not find the system PROJ database
-    os.environ.setdefault("PROJ_DATA", str(Path(sys.base_prefix, "share", "proj")))
 sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "tests"))  # the repository loader, Meuse support
 from repo_package import load_repo_package  # noqa: E402
 

@@ -7,7 +7,6 @@ noise, so their joint law is exactly the model's and drawing 100,000 of them tak
 from __future__ import annotations
 
 import math
-import os
 import sys
 import tempfile
 import time
@@ -16,9 +15,6 @@ from pathlib import Path
 import numpy as np
 from osgeo import ogr
 
-# In a venv pyproj does not find the system PROJ database by itself (see tests/conftest.py); the GeoTIFF needs it.
-if "PROJ_LIB" not in os.environ:
-    os.environ.setdefault("PROJ_DATA", str(Path(sys.base_prefix, "share", "proj")))
 sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "tests"))  # the repository loader, Meuse support
 from repo_package import load_repo_package  # noqa: E402
 
