@@ -16,15 +16,20 @@ from collections.abc import Callable, Sequence
 
 from ..errors import Cancelled, FieldcastError
 from ..io.interruption import termination_cleanup
+from ..io.nodata_counts import NodataCounts
 from ..predict.choice import LogLine, Neighbourhood
 from ..predict.grid_surfaces import BACKTRANSFORMS
-from .job import GridJob, prepare_job
+from .job import GridJob, GridRun, prepare_job
 
-PROGRAM = "fieldcast-grid"
+PROGRAM = "fieldcast"
+"""What starts every line the command line prints."""
 OPTION_WORDS = {"EXTENT": "--extent", "PIXEL_SIZE": "--pixel-size", "TEMPLATE": "--template",
                 "NEIGHBOURS": "--neighbours", "SEARCH_RADIUS": "--search-radius", "THRESHOLD": "--threshold",
                 "INTERVAL_PROBABILITY": "--interval", "BACKTRANSFORM": "--backtransform"}
 """Toolbox parameter names in the engine's messages, and the options that set them here."""
+DESCRIPTION = ("Krige a grid from a Fieldcast model file and point samples, in this process or on Dask. The results "
+               "are model-based estimates: read the variance or standard error beside the prediction; decisions "
+               "follow local regulations and licensed professional judgement.")
 OUTPUT_OPTIONS = {"prediction": "out", "variance": "variance", "sd": "sd", "lower": "lower", "upper": "upper",
                   "exceedance": "exceedance", "distance": "distance"}
 """Output kind -> its option (``--out`` for the prediction)."""
@@ -39,7 +44,7 @@ class OneLineParser(argparse.ArgumentParser):
     """An argument parser whose refusals are one line (what is wrong and where the options are), status 2."""
 
     def error(self, message: str):
-        self.exit(2, f"{self.prog}: {message}. Run {self.prog} --help for the options.\n")
+        self.exit(2, f"{PROGRAM}: {message}. Run {self.prog} --help for the options.\n")
 
 
 def number(text: str) -> float:
@@ -76,10 +81,7 @@ def extent(text: str) -> tuple[float, float, float, float]:
 
 def parser() -> OneLineParser:
     """The options of the command line."""
-    parse = OneLineParser(prog=PROGRAM, description="Krige a grid from a Fieldcast model file and point samples, "
-                          "in this process or on Dask. The results are model-based estimates: read the variance "
-                          "or standard error beside the prediction; decisions follow local regulations and "
-                          "licensed professional judgement.")
+    parse = OneLineParser(prog=f"python -m {__package__}", description=DESCRIPTION)
     parse.add_argument("--model", required=True, help="model file written by 'Fit covariance model'")
     parse.add_argument("--samples", required=True, help="point file of the samples (GeoPackage, shapefile, ...)")
     parse.add_argument("--layer", default="", help="layer of --samples, when it holds several")
@@ -124,6 +126,18 @@ def job_of(options: argparse.Namespace) -> GridJob:
                    options.backtransform, options.threshold, options.interval)
 
 
+def runner(options: argparse.Namespace) -> Callable[[GridRun, Callable[[float], None]], NodataCounts]:
+    """``execute(run, progress)``: on Dask when --workers or --scheduler is given (Dask imported now, so that
+    its absence is said before any work), otherwise in this process."""
+    if options.workers is None and not options.scheduler:
+        from .runners import run_in_process
+        return lambda run, progress: run_in_process(run, progress)
+    from .dask_runner import import_distributed, run_on_dask
+    import_distributed()
+    return lambda run, progress: run_on_dask(run, workers=options.workers or 2, scheduler=options.scheduler,
+                                             progress=progress)
+
+
 def printer(stream) -> Callable[[float], None]:
     """Progress for the terminal: a line at every further tenth of the work."""
     shown = [0]
@@ -154,15 +168,10 @@ def main(argv: Sequence[str] | None = None, stream=None) -> int:
     try:
         with termination_cleanup():
             job = job_of(options)
+            execute = runner(options)
             run = prepare_job(job)
             say(run.lines, stream)
-            if options.workers is not None or options.scheduler:
-                from .dask_runner import run_on_dask
-                counts = run_on_dask(run, workers=options.workers or 2, scheduler=options.scheduler,
-                                     progress=printer(stream))
-            else:
-                from .runners import run_in_process
-                counts = run_in_process(run, progress=printer(stream))
+            counts = execute(run, printer(stream))
     except (Cancelled, KeyboardInterrupt):
         print(f"{PROGRAM}: cancelled; no output file was written.", file=stream)
         return 130
