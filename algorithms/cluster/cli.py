@@ -19,13 +19,14 @@ from ..io.interruption import termination_cleanup
 from ..io.nodata_counts import NodataCounts
 from ..predict.choice import LogLine, Neighbourhood
 from ..predict.grid_surfaces import BACKTRANSFORMS
-from .job import GridJob, GridRun, prepare_job
+from .job import MAP_AREAS, GridJob, GridRun, prepare_job
 
 PROGRAM = "fieldcast"
 """What starts every line the command line prints."""
 OPTION_WORDS = {"EXTENT": "--extent", "PIXEL_SIZE": "--pixel-size", "TEMPLATE": "--template",
                 "NEIGHBOURS": "--neighbours", "SEARCH_RADIUS": "--search-radius", "THRESHOLD": "--threshold",
-                "INTERVAL_PROBABILITY": "--interval", "BACKTRANSFORM": "--backtransform"}
+                "INTERVAL_PROBABILITY": "--interval", "BACKTRANSFORM": "--backtransform",
+                "MAP_AREA": "--map-area", "HULL_MARGIN": "--hull-margin"}
 """Toolbox parameter names in the engine's messages, and the options that set them here."""
 DESCRIPTION = ("Krige a grid from a Fieldcast model file and point samples, in this process or on Dask. The results "
                "are model-based estimates: read the variance or standard error beside the prediction; decisions "
@@ -93,6 +94,10 @@ def parser() -> OneLineParser:
                        "sample spacing)")
     parse.add_argument("--template", default="", help="raster whose grid the outputs take (in the model's CRS), "
                        "instead of --extent and --pixel-size")
+    parse.add_argument("--map-area", choices=MAP_AREAS, default="hull", help="hull (default): only cells near the "
+                       "samples' convex hull; extent: every cell")
+    parse.add_argument("--hull-margin", type=number, help="how far the hull is grown (model CRS units; default: the "
+                       "median sample spacing)")
     for kind, option in OUTPUT_OPTIONS.items():
         parse.add_argument(f"--{option}", default="", required=kind == "prediction",
                            help=f"GeoTIFF of the {kind}" + (" (required)" if kind == "prediction" else ""))
@@ -123,7 +128,7 @@ def job_of(options: argparse.Namespace) -> GridJob:
     outputs = {kind: getattr(options, option.replace("-", "_")) for kind, option in OUTPUT_OPTIONS.items()}
     return GridJob(options.model, options.samples, options.field, outputs, options.extent, options.pixel_size,
                    options.template, options.layer, Neighbourhood(options.neighbours, options.search_radius),
-                   options.backtransform, options.threshold, options.interval)
+                   options.backtransform, options.threshold, options.interval, options.map_area, options.hull_margin)
 
 
 def runner(options: argparse.Namespace) -> Callable[[GridRun, Callable[[float], None]], NodataCounts]:

@@ -19,6 +19,8 @@ from collections.abc import Callable, Iterator
 from dataclasses import dataclass
 from types import ModuleType
 
+import numpy as np
+
 from ..errors import Cancelled, FieldcastError
 from ..io.grid import GridSpec
 from ..io.nodata_counts import NodataCounts
@@ -70,13 +72,19 @@ class TaskInputs:
     distance: bool
 
 
-def krige_task(inputs: TaskInputs, start: int, stop: int) -> tuple[SurfaceBlock, ExtrapolationCheck]:
-    """One Dask task: rows ``start`` to ``stop - 1`` kriged by the engine's block function, with the counts of
-    a fresh copy of the check (the workers' copies are not the run's)."""
+def krige_task(inputs: TaskInputs, start: int, stop: int,
+               inside: np.ndarray | None) -> tuple[SurfaceBlock, ExtrapolationCheck]:
+    """One Dask task: rows ``start`` to ``stop - 1`` (their cell mask ``inside``) kriged by the engine's block
+    function, with the counts of a fresh copy of the check (the workers' copies are not the run's)."""
     check = inputs.check.emptied()
     block = krige_block(cell_predictor(inputs.predictor), inputs.grid, start, stop, inputs.scale, inputs.fields,
-                        check=check, distance=inputs.distance)
+                        inside=inside, check=check, distance=inputs.distance)
     return block, check
+
+
+def rows_inside(inside: np.ndarray | None, start: int, stop: int) -> np.ndarray | None:
+    """The cell mask of rows ``start`` to ``stop - 1`` (None: every cell), the only part a task is sent."""
+    return None if inside is None else inside[start:stop]
 
 
 @contextlib.contextmanager
@@ -125,7 +133,8 @@ def run_on_dask(run: GridRun, *, workers: int = 2, scheduler: str = "",
             dask_client(distributed, workers, scheduler) as client:
         inputs = client.scatter(TaskInputs(run.predictor, run.grid, run.scale, run.fields, run.check,
                                            bool(run.distance_path)), broadcast=True)
-        futures = [client.submit(krige_task, inputs, start, stop, pure=False) for start, stop in blocks]
+        futures = [client.submit(krige_task, inputs, start, stop, rows_inside(run.inside, start, stop), pure=False)
+                   for start, stop in blocks]
         try:
             for done, future in enumerate(distributed.as_completed(futures), start=1):
                 if should_stop is not None and should_stop():

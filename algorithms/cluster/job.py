@@ -17,6 +17,7 @@ import numpy as np
 from ..errors import FieldcastError
 from ..io.crs import same_crs
 from ..io.grid import GridSpec, output_grid
+from ..io.mask import hull_mask
 from ..io.model_file import ModelDocument
 from ..io.samples import check_samples, merge_coincident
 from ..io.staging import refuse_read_only
@@ -28,6 +29,8 @@ from ..predict.kriging import KrigingPredictor
 from ..predict.local import LocalKrigingPredictor
 from .point_file import read_point_file
 
+MAP_AREAS = ("hull", "extent")
+"""Where a job krigs: the samples' convex hull grown by a margin, or every cell of the grid."""
 OUTPUT_KINDS = (*SURFACE_KINDS, "distance")
 """The rasters a job can write: those of :data:`..predict.grid_surfaces.SURFACE_KINDS` and the distance to the
 nearest sample."""
@@ -63,6 +66,11 @@ class GridJob:
         Threshold of the exceedance probability (attribute units); needed for an ``"exceedance"`` output.
     interval : float
         Probability of the central interval of the ``"lower"`` and ``"upper"`` rasters.
+    map_area : str
+        ``"hull"``: only cells within ``hull_margin`` of the samples' convex hull are kriged (the others are
+        nodata); ``"extent"``: every cell.
+    hull_margin : float, optional
+        How far the hull is grown (CRS units); None = the median sample spacing (:func:`..io.mask.hull_mask`).
     """
 
     model: str
@@ -77,6 +85,8 @@ class GridJob:
     backtransform: str = "median"
     threshold: float | None = None
     interval: float = 0.9
+    map_area: str = "hull"
+    hull_margin: float | None = None
 
     def check_outputs(self) -> None:
         """Refuse outputs that cannot be written as asked, before any work.
@@ -132,6 +142,8 @@ class GridRun:
         The one field's destinations and metadata.
     check : ExtrapolationCheck
         The samples and model the extrapolation counts are made from (it accumulates them).
+    inside : ndarray of bool, shape (n_rows, n_cols), or None
+        The cells kriged (MAP_AREA hull), None: every cell.
     distance_path : str
         Destination of the distance raster ("" for none).
     units : str
@@ -146,6 +158,7 @@ class GridRun:
     crs_wkt: str
     fields: list[FieldRasters]
     check: ExtrapolationCheck
+    inside: np.ndarray | None = None
     distance_path: str = ""
     units: str = "metre"
     lines: list[LogLine] = field(default_factory=list)
@@ -175,6 +188,27 @@ def job_grid(job: GridJob, xy: np.ndarray, document: ModelDocument) -> GridSpec:
     return template.grid
 
 
+def map_area(job: GridJob, grid: GridSpec, xy: np.ndarray, units: str) -> tuple[np.ndarray | None, list[LogLine]]:
+    """The cells to krige (None: every cell) and the log line that says how many.
+
+    Raises
+    ------
+    FieldcastError
+        For an unknown map area, or a hull that keeps no cell centre of the grid.
+    """
+    if job.map_area not in MAP_AREAS:
+        raise FieldcastError(f"MAP_AREA is {job.map_area!r}; choose one of {', '.join(MAP_AREAS)}.")
+    if job.map_area == "extent":
+        return None, []
+    inside, margin = hull_mask(grid, xy, job.hull_margin)
+    if not inside.any():
+        raise FieldcastError(f"No cell centre lies within {margin:g} {units} of the samples' convex hull. Enlarge "
+                             "HULL_MARGIN, or set MAP_AREA to extent to map every cell.")
+    return inside, [LogLine("info", f"Map area: {int(inside.sum()):,} of {grid.n_cells:,} cells lie within "
+                                    f"{margin:.4g} {units} of the samples' convex hull (MAP_AREA hull, HULL_MARGIN); "
+                                    "the others are nodata. Set MAP_AREA to extent to map every cell.")]
+
+
 def prepare_job(job: GridJob) -> GridRun:
     """Load the model and the samples of ``job`` and build its predictor, grid and check.
 
@@ -197,6 +231,7 @@ def prepare_job(job: GridJob) -> GridRun:
         lines.append(LogLine("info", f"Averaged {merged.merged_points} samples at {merged.merged_groups} shared "
                                      f"locations (in the modelling scale); {len(merged.values)} samples remain."))
     grid = job_grid(job, merged.xy, document)
+    inside, area = map_area(job, grid, merged.xy, document.units)
     scale = SurfaceScale(document.transform, job.backtransform, "point", job.threshold, job.interval)
     predictor, choice = choose_predictor(merged.xy, merged.values, document.covariance, document.mean,
                                          job.neighbourhood, units=document.units)
@@ -207,4 +242,4 @@ def prepare_job(job: GridJob) -> GridRun:
     check = ExtrapolationCheck.for_samples(merged.xy, merged.values, document.covariance, document.mean,
                                            document.transform, [job.field])
     return GridRun(predictor, grid, scale, document.crs_wkt, [FieldRasters(job.field, paths, metadata)], check,
-                   job.outputs.get("distance", ""), document.units, lines + choice)
+                   inside, job.outputs.get("distance", ""), document.units, lines + area + choice)

@@ -19,5 +19,5 @@ def run_in_process(run: GridRun, progress: Callable[[float], None] | None = None
     Cancelled
         When ``should_stop()`` turns true; no output file is left.
     """
-    return write_surfaces(run.cell_predictor(), run.grid, None, run.scale, run.crs_wkt, run.fields, progress,
+    return write_surfaces(run.cell_predictor(), run.grid, run.inside, run.scale, run.crs_wkt, run.fields, progress,
                           should_stop, run.check, run.distance_path)

@@ -61,6 +61,9 @@ REFUSALS = [
     ({"--pixel-size": "-5"}, "Enter a pixel size larger than zero"),
     ({"--extent": "0,0,900000,900000"}, "or leave --extent empty to use the samples' extent"),
     ({"--neighbours": "1"}, "Set --neighbours to 2 or more"),
+    ({"--map-area": "box"}, "argument --map-area: invalid choice: 'box' (choose from 'hull', 'extent')"),
+    ({"--extent": "178605,329714,178705,329814", "--hull-margin": "0"},
+     "Enlarge --hull-margin, or set --map-area to extent"),  # the lower left corner of the samples' box
 ]
 
 
@@ -122,6 +125,6 @@ def test_command_line_on_two_local_workers_equals_one_process(job_files, tmp_pat
     here = job_outputs(job_files.folder, "here")
     run_in_process(prepare_job(GridJob(job_files.model, job_files.samples, "zinc",
                                        {"prediction": here["prediction"], "sd": here["sd"]}, EXTENT, PIXEL,
-                                       neighbourhood=Neighbourhood(16))))
+                                       neighbourhood=Neighbourhood(16))))  # MAP_AREA hull, as the command line
     for kind in ("prediction", "sd"):
         assert same_rasters(outputs[kind], here[kind]), kind

@@ -38,16 +38,17 @@ def scheduler(tmp_path_factory):
         sys.path.remove(str(folder))
 
 
-@pytest.mark.parametrize("neighbours", [0, 16], ids=["global", "local"])
-def test_dask_run_equals_the_single_process_run(job_files, scheduler, neighbours):
+@pytest.mark.parametrize(("neighbours", "area"), [(0, "hull"), (16, "extent")], ids=["global-hull", "local-extent"])
+def test_dask_run_equals_the_single_process_run(job_files, scheduler, neighbours, area):
     job = GridJob(job_files.model, job_files.samples, "zinc", {}, EXTENT, PIXEL,
-                  neighbourhood=Neighbourhood(neighbours))
+                  neighbourhood=Neighbourhood(neighbours), map_area=area)
     here = prepare_job(replace(job, outputs=job_outputs(job_files.folder, "here")))
     run_in_process(here)
     spread = prepare_job(replace(job, outputs=job_outputs(job_files.folder, "dask")))
     fractions = []
     run_on_dask(spread, scheduler=scheduler, progress=fractions.append)
     assert spread.grid.n_rows > 256  # at least two blocks of rows, so two tasks
+    assert (spread.inside is None) == (area == "extent")
     for kind, path in job_outputs(job_files.folder, "here").items():
         assert same_rasters(path, job_outputs(job_files.folder, "dask")[kind]), kind
     assert spread.check.lines() == here.check.lines()

@@ -29,7 +29,7 @@ from reference import MEUSE_LOG_ZINC
 
 def test_in_process_run_equals_write_surfaces_on_the_same_arrays(job_files, meuse):
     outputs = job_outputs(job_files.folder, "job")
-    run = prepare_job(GridJob(job_files.model, job_files.samples, "zinc", outputs, EXTENT, PIXEL))
+    run = prepare_job(GridJob(job_files.model, job_files.samples, "zinc", outputs, EXTENT, PIXEL, map_area="extent"))
     run_in_process(run)
     # The same kriging written by the engine's writer directly from the Meuse arrays, without files in between.
     grid = GridSpec.from_extent(*EXTENT, PIXEL)
