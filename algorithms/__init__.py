@@ -117,6 +117,7 @@ _PUBLIC = {
     # io
     "area_words": "io.area_words",
     "Samples": "io.samples",
+    "FeatureReadings": "io.samples",
     "check_samples": "io.samples",
     "merge_coincident": "io.samples",
     "GridSpec": "io.grid",

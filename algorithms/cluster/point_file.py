@@ -14,6 +14,7 @@ from osgeo import ogr
 
 from ..errors import FieldcastError
 from ..io.crs import is_undefined, parse_crs, same_crs, transform_points
+from ..io.samples import FeatureReadings
 
 NUMERIC_FIELD_TYPES = (ogr.OFTInteger, ogr.OFTInteger64, ogr.OFTReal)
 
@@ -99,27 +100,16 @@ def read_point_file(path: str, field: str, crs_wkt: str, layer: str = "") -> Poi
     if reference is None or is_undefined(parse_crs(reference.ExportToWkt())):
         raise FieldcastError(f"The sample layer {table.GetName()} has no defined CRS, so its coordinates cannot be "
                              "put in the model's CRS. Assign its real CRS first (e.g. ogr2ogr -a_srs EPSG:code).")
-    points, values = [], []
-    skipped_values = skipped_geometry = 0
-    for feature in table:
-        point = feature_point(feature.GetGeometryRef(), feature.GetFID())
-        value = feature.GetFieldAsDouble(index) if feature.IsFieldSetAndNotNull(index) else math.nan
-        if point is None:
-            skipped_geometry += 1
-        elif not math.isfinite(value):
-            skipped_values += 1
-        else:
-            points.append(point)
-            values.append(value)
+    found = FeatureReadings.sort(
+        (feature_point(feature.GetGeometryRef(), feature.GetFID()),
+         feature.GetFieldAsDouble(index) if feature.IsFieldSetAndNotNull(index) else math.nan) for feature in table)
     layer_wkt = reference.ExportToWkt()
     del table, source
-    if not points:
-        raise FieldcastError(f"The sample layer has no point with a value in {field!r} ({skipped_values} "
-                             f"NULL/NaN values, {skipped_geometry} empty geometries). Give a layer with samples, or "
-                             "another --field.")
-    xy = np.array(points, dtype=float)
+    if not len(found.values):
+        raise FieldcastError(f"The sample layer has no point with a value in {field!r} ({found.skipped_values} "
+                             f"NULL/NaN values, {found.skipped_geometry} empty geometries). Give a layer with "
+                             "samples, or another --field.")
+    xy = found.xy
     if not same_crs(layer_wkt, crs_wkt):
         xy = transform_points(xy, layer_wkt, crs_wkt)
-    skipped = {reason: count for reason, count in (("value is NULL or not a number", skipped_values),
-                                                   ("no geometry", skipped_geometry)) if count}
-    return PointSamples(xy, np.array(values, dtype=float), skipped)
+    return PointSamples(xy, found.values, found.skipped)
