@@ -187,7 +187,11 @@ def main(argv: Sequence[str] | None = None, stream=None) -> int:
         print(f"{PROGRAM}: internal error ({type(exc).__name__}: {exc}). Please report it with the command line "
               "used.", file=stream)
         return 1
-    say([LogLine("warning", text) for text in counts.warnings()] + run.check.lines(run.units), stream)
+    unresolved = ([LogLine("warning", f"{counts.unresolved:,} cell(s) are nodata: fewer samples than the mean "
+                                      "model needs lie within --search-radius of them, or their neighbours make a "
+                                      "singular system. Enlarge --search-radius, or leave it out, to fill them.")]
+                  if counts.unresolved else [])
+    say(unresolved + [LogLine("warning", text) for text in counts.warnings()] + run.check.lines(run.units), stream)
     written = [path for path in job.outputs.values() if path]
     print(f"{PROGRAM}: wrote {', '.join(written)}.", file=stream)
     return 0

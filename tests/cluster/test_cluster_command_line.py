@@ -89,6 +89,13 @@ def test_a_run_writes_the_rasters_and_says_so(job_files):
     assert sorted(path.name for path in job_files.folder.iterdir()) == ["zinc.tif", "zinc_var.tif"]
 
 
+def test_cells_without_enough_neighbours_in_the_search_radius_are_counted(job_files):
+    status, text = run_main(arguments(job_files, **{"--neighbours": "8", "--search-radius": "150",
+                                                    "--map-area": "extent"}))
+    assert status == 0 and "cell(s) are nodata: fewer samples than the mean model needs lie within --search-radius" \
+        in text
+
+
 def run_elsewhere(tmp_path, code_or_module: list[str]) -> subprocess.CompletedProcess:
     """Run Python in a fresh process that sees the repository as the package :data:`FOLDER_NAME`."""
     root = tmp_path / "plugins"
