@@ -14,7 +14,7 @@ SYSTEM_PYTHON := /usr/bin/python3
 VENV := .venv
 PY := $(VENV)/bin/python
 APT_PACKAGES := qgis python3-qgis qgis-providers python3-gdal python3-pyproj python3-scipy python3-venv \
-	python3-pip python3-pil r-cran-sp chromium libopenblas0-pthread
+	python3-pip python3-pil r-cran-sp chromium libopenblas0-pthread python3-dask python3-distributed
 TEST_PACKAGES := pytest ruff scikit-learn rdata pyinstrument
 PYTHON_MODULES := qgis.core, osgeo.gdal, pyproj, scipy, numpy
 PACKAGE_CONTENT := __init__.py metadata.txt LICENSE README.md plugin algorithms icons

@@ -81,6 +81,10 @@ _PUBLIC = {
     "write_surfaces": "predict.grid_surfaces",
     "PointValues": "predict.grid_surfaces",
     "predict_points": "predict.grid_surfaces",
+    "krige_block": "predict.grid_surfaces",
+    "row_blocks": "predict.grid_surfaces",
+    "SurfaceBlock": "predict.grid_surfaces",
+    "SurfaceWriters": "predict.grid_surfaces",
     "ExtrapolationCheck": "predict.extrapolation",
     "covariate_extrapolation": "predict.extrapolation",
     "AUTOMATIC_NEIGHBOURS": "predict.choice",
@@ -95,6 +99,12 @@ _PUBLIC = {
     "grid_targets": "predict.neighbourhood_check",
     "TargetDraw": "predict.neighbourhood_check",
     "neighbourhood_gap": "predict.neighbourhood_check",
+    # cluster (runs outside QGIS; Dask only inside run_on_dask)
+    "GridJob": "cluster.job",
+    "GridRun": "cluster.job",
+    "prepare_job": "cluster.job",
+    "run_in_process": "cluster.runners",
+    "run_on_dask": "cluster.dask_runner",
     # linalg
     "CONDITION_ADVICE": "linalg.condition_policy",
     # simulate
@@ -107,6 +117,7 @@ _PUBLIC = {
     # io
     "area_words": "io.area_words",
     "Samples": "io.samples",
+    "FeatureReadings": "io.samples",
     "check_samples": "io.samples",
     "merge_coincident": "io.samples",
     "GridSpec": "io.grid",

@@ -14,6 +14,7 @@ import numpy as np
 from qgis.core import QgsCoordinateReferenceSystem, QgsFeatureRequest, QgsProcessingFeatureSource
 
 from ..algorithms import (
+    FeatureReadings,
     FieldcastError,
     RasterTemplate,
     Samples,
@@ -145,28 +146,24 @@ def read_layer_samples(source: QgsProcessingFeatureSource, field: str, target_cr
     if source.featureCount() == 0:
         raise FieldcastError("The sample layer is empty. Choose a point layer that holds samples.")
     request = QgsFeatureRequest().setSubsetOfAttributes([index])
-    points, values, fids = [], [], []
-    skipped_values = skipped_geometry = 0
-    for feature in source.getFeatures(request):
-        point = feature_point(feature.geometry(), feature.id())
-        value = _number(feature.attributes()[index])
-        if point is None:
-            skipped_geometry += 1
-        elif not math.isfinite(value):
-            skipped_values += 1
-        else:
-            points.append(point)
-            values.append(value)
-            fids.append(feature.id())
-    if skipped_values:
-        feedback.pushInfo(f"Skipped {skipped_values} feature(s) whose {field} is NULL or not a number.")
-    if skipped_geometry:
-        feedback.pushInfo(f"Skipped {skipped_geometry} feature(s) without a geometry.")
-    if not points:
+    read_fids = []
+
+    def readings():
+        for feature in source.getFeatures(request):
+            read_fids.append(feature.id())
+            yield feature_point(feature.geometry(), feature.id()), _number(feature.attributes()[index])
+
+    found = FeatureReadings.sort(readings())
+    if found.skipped_values:
+        feedback.pushInfo(f"Skipped {found.skipped_values} feature(s) whose {field} is NULL or not a number.")
+    if found.skipped_geometry:
+        feedback.pushInfo(f"Skipped {found.skipped_geometry} feature(s) without a geometry.")
+    if not len(found.values):
         raise FieldcastError(f"The sample layer has no point with a value in {field!r} "
-                             f"({skipped_values} NULL/NaN values, {skipped_geometry} empty geometries). "
+                             f"({found.skipped_values} NULL/NaN values, {found.skipped_geometry} empty geometries). "
                              "Choose a layer with samples, or another field.")
-    layer_xy = np.array(points, dtype=float)
+    fids = np.array(read_fids, dtype=np.int64)[found.kept]
+    layer_xy = found.xy
     layer_wkt = crs_wkt(layer_crs)
     target_wkt = crs_wkt(target_crs) if target_crs.isValid() else None
     working = choose_working_crs(layer_wkt, layer_xy, target_wkt, source.sourceName(), template)
@@ -174,9 +171,7 @@ def read_layer_samples(source: QgsProcessingFeatureSource, field: str, target_cr
     for warning in working.warnings:
         feedback.pushWarning(warning)
     xy = layer_xy if same_crs(layer_wkt, working.wkt) else transform_points(layer_xy, layer_wkt, working.wkt)
-    skipped = {reason: count for reason, count in (("value is NULL or not a number", skipped_values),
-                                                   ("no geometry", skipped_geometry)) if count}
-    return LayerSamples(xy, np.array(values, dtype=float), np.array(fids, dtype=np.int64), working, field, skipped)
+    return LayerSamples(xy, found.values, fids, working, field, found.skipped)
 
 
 def prepare_samples(samples: LayerSamples, transform: Transform, feedback) -> ModelSamples:

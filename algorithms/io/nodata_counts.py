@@ -8,7 +8,7 @@ that is mostly nodata (:meth:`NodataCounts.warnings`).
 """
 from __future__ import annotations
 
-from collections.abc import Mapping
+from collections.abc import Iterable, Mapping
 from dataclasses import dataclass
 
 import numpy as np
@@ -65,6 +65,17 @@ class NodataCounts:
                 bad |= unwritable(band)
             lost[name] = int(np.count_nonzero(resolved & bad))
         return cls(int(np.count_nonzero(keep)), int(np.count_nonzero(keep & unresolved)), lost)
+
+    @classmethod
+    def total(cls, parts: Iterable[NodataCounts]) -> NodataCounts:
+        """The counts of a run made of ``parts`` (one per block): every count summed, raster by raster."""
+        parts = list(parts)
+        lost: dict[str, int] = {}
+        for part in parts:
+            for name, count in part.unwritable.items():
+                lost[name] = lost.get(name, 0) + count
+        return cls(sum(part.computed for part in parts), sum(part.unresolved for part in parts), lost,
+                   sum(part.no_covariate for part in parts))
 
     def warnings(self, share: float = 0.5) -> list[str]:
         """A warning for each raster nodata at more than ``share`` of its resolved cells (not the mask's doing)."""

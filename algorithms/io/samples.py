@@ -11,6 +11,7 @@ modelled at all.
 from __future__ import annotations
 
 import math
+from collections.abc import Iterable
 from dataclasses import dataclass
 
 import numpy as np
@@ -51,6 +52,52 @@ class Samples:
     ids: np.ndarray
     merged_groups: int
     merged_points: int
+
+
+@dataclass(frozen=True)
+class FeatureReadings:
+    """Features read from a point layer, sorted into samples and the skipped.
+
+    Attributes
+    ----------
+    xy : ndarray of shape (n, 2)
+        Points of the features with a geometry and a finite value, in the layer's CRS.
+    values : ndarray of shape (n,)
+        Their values.
+    kept : ndarray of int, shape (n,)
+        Their positions in the order read.
+    skipped_values, skipped_geometry : int
+        Features left out for a NULL or non-finite value, and for no geometry.
+    """
+
+    xy: np.ndarray
+    values: np.ndarray
+    kept: np.ndarray
+    skipped_values: int
+    skipped_geometry: int
+
+    @classmethod
+    def sort(cls, readings: Iterable[tuple[tuple[float, float] | None, float]]) -> FeatureReadings:
+        """Sort ``(point or None, value)`` pairs, one per feature in the order read (NaN for a NULL value)."""
+        points, values, kept = [], [], []
+        skipped_values = skipped_geometry = 0
+        for position, (point, value) in enumerate(readings):
+            if point is None:
+                skipped_geometry += 1
+            elif not math.isfinite(value):
+                skipped_values += 1
+            else:
+                points.append(point)
+                values.append(value)
+                kept.append(position)
+        return cls(np.array(points, dtype=float).reshape(-1, 2), np.array(values, dtype=float),
+                   np.array(kept, dtype=np.int64), skipped_values, skipped_geometry)
+
+    @property
+    def skipped(self) -> dict[str, int]:
+        """Features left out, by reason (only reasons that occurred)."""
+        return {reason: count for reason, count in (("value is NULL or not a number", self.skipped_values),
+                                                    ("no geometry", self.skipped_geometry)) if count}
 
 
 def _sample_arrays(xy: np.ndarray, values: np.ndarray) -> tuple[np.ndarray, np.ndarray]:

@@ -22,7 +22,7 @@ distance raster.
 from __future__ import annotations
 
 from collections.abc import Sequence
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 
 import numpy as np
 from scipy.spatial import cKDTree
@@ -128,6 +128,24 @@ class ExtrapolationCheck:
         return cls(cKDTree(xy), frames, mean, coefficients, np.sqrt(covariance.sill * factors),
                    np.column_stack([original.min(axis=0), original.max(axis=0)]), list(fields),
                    counts=[FieldCounts() for _ in fields], covariate_range=ranges)
+
+    def emptied(self) -> ExtrapolationCheck:
+        """The same samples and model with nothing counted yet (the check of one block of a run kriged in
+        separate tasks; :meth:`absorb` adds its counts to the run's)."""
+        return replace(self, cells=0, beyond_range=0, counts=[FieldCounts() for _ in self.fields],
+                       beyond_covariates=0)
+
+    def absorb(self, part: ExtrapolationCheck) -> None:
+        """Add the counts of ``part`` (an :meth:`emptied` copy that checked other cells) to these."""
+        self.cells += part.cells
+        self.beyond_range += part.beyond_range
+        self.beyond_covariates += part.beyond_covariates
+        for mine, theirs in zip(self.counts, part.counts):
+            mine.outside_model += theirs.outside_model
+            mine.below += theirs.below
+            mine.above += theirs.above
+            mine.lowest = min(mine.lowest, theirs.lowest)
+            mine.highest = max(mine.highest, theirs.highest)
 
     def trend(self, centres: np.ndarray, covariates0: np.ndarray | None = None) -> np.ndarray:
         """The least-squares trend at ``centres`` (m, 2) with their covariate columns, one column per field

@@ -263,6 +263,149 @@ class FieldRasters:
     metadata: Mapping[str, object]
     variance_factor: float = 1.0
 
+    @property
+    def kinds(self) -> list[str]:
+        """The kinds of :data:`SURFACE_KINDS` written for this field, in that order."""
+        return [kind for kind in SURFACE_KINDS if self.paths.get(kind)]
+
+
+def row_blocks(grid: GridSpec, fields: int = 1) -> list[tuple[int, int]]:
+    """The ``(row_start, row_stop)`` blocks a grid is kriged in, top to bottom (:func:`block_rows` rows each)."""
+    step = block_rows(grid, fields)
+    return [(start, min(start + step, grid.n_rows)) for start in range(0, grid.n_rows, step)]
+
+
+@dataclass(frozen=True)
+class SurfaceBlock:
+    """What :func:`krige_block` computed for one block of rows.
+
+    Attributes
+    ----------
+    start : int
+        First row of the block.
+    bands : list of dict of str to ndarray
+        Per field, each kind it writes, in raster order (NaN: nodata).
+    distance : ndarray or None
+        Distance to the nearest sample per cell (NaN outside the mask), when asked for.
+    counts : NodataCounts
+        The block's nodata counts.
+    """
+
+    start: int
+    bands: list[dict[str, np.ndarray]]
+    distance: np.ndarray | None
+    counts: NodataCounts
+
+
+def krige_block(predict: CellPredictor, grid: GridSpec, start: int, stop: int, scale: SurfaceScale,
+                fields: Sequence[FieldRasters], *, inside: np.ndarray | None = None,
+                check: ExtrapolationCheck | None = None, distance: bool = False,
+                covariates: Callable[[int, int], np.ndarray] | None = None,
+                progress: Callable[[float], None] | None = None,
+                should_stop: Callable[[], bool] | None = None) -> SurfaceBlock:
+    """Krige the cells of rows ``start`` to ``stop - 1`` of ``grid``: the one step of every grid writer.
+
+    :func:`write_surfaces` calls it block by block in one process, and the cluster runners
+    (:mod:`..cluster`) as one task per block, so both write the same numbers. Parameters are those of
+    :func:`write_surfaces`, but ``inside`` is the mask of these rows only (``(stop - start, n_cols)``, None:
+    every cell), ``distance`` asks for the distance to the nearest sample (needs ``check``), and ``progress``
+    gets the fraction of this block done. ``check`` counts the block's cells (see
+    :class:`.extrapolation.ExtrapolationCheck`).
+    """
+    centres = grid.cell_centres(start, stop)
+    keep = np.ones(len(centres), bool) if inside is None else np.asarray(inside).ravel()
+    columns = None
+    no_covariate = 0
+    if covariates is not None and keep.any():
+        columns = covariates(start, stop)
+        usable = np.all(np.isfinite(columns), axis=1)
+        no_covariate = int(np.count_nonzero(keep & ~usable))
+        keep = keep & usable
+        columns = columns[keep]
+    bands = [{kind: np.full(len(centres), np.nan) for kind in output.kinds} for output in fields]
+    lost = {f"{output.field} {kind}": 0 for output in fields for kind in output.kinds}
+    nearest = np.full(len(centres), np.nan) if distance else None
+    kriged = unresolved = 0
+    if keep.any():
+        kinds_asked = [kind for kind in SURFACE_KINDS if any(kind in field_bands for field_bands in bands)]
+        found = predict_points(predict, centres[keep], scale, kinds_asked,
+                               variance_factors=[output.variance_factor for output in fields], check=check,
+                               covariates=columns, progress=progress, should_stop=should_stop)
+        kriged, unresolved = len(found.resolved), int(np.count_nonzero(~found.resolved))
+        if nearest is not None:
+            nearest[keep] = check.distances(centres[keep])
+        for column, (output, field_bands) in enumerate(zip(fields, bands)):
+            for kind in field_bands:
+                values = found.layers[column][kind]
+                field_bands[kind][keep] = values
+                lost[f"{output.field} {kind}"] += int(np.count_nonzero(found.kept[:, column] & unwritable(values)))
+    return SurfaceBlock(start, bands, nearest, NodataCounts(kriged, unresolved, lost, no_covariate))
+
+
+class SurfaceWriters:
+    """The GeoTIFF writers of a grid run, one per field and kind (and the distance raster): blocks go in
+    in any order, and :meth:`finish` places every file together.
+
+    Use it as a context manager: leaving the block without :meth:`finish` (an error, a cancel) leaves no file.
+    Parameters are those of :func:`write_surfaces`.
+    """
+
+    def __init__(self, grid: GridSpec, scale: SurfaceScale, crs_wkt: str, fields: Sequence[FieldRasters],
+                 distance_path: str = ""):
+        self._stack = contextlib.ExitStack()
+        self._staging = staged_together()
+        self._writers: list[GeoTiffWriter] = []
+        try:
+            self._stack.enter_context(self._staging)
+            self.distance = (self._open(distance_path, grid, crs_wkt, DISTANCE_DESCRIPTION, fields[0].metadata)
+                             if distance_path else None)
+            self.fields = []
+            for output in fields:
+                descriptions = scale.descriptions(output.field)
+                self.fields.append({kind: self._open(output.paths[kind], grid, crs_wkt, descriptions[kind],
+                                                     output.metadata) for kind in output.kinds})
+        except BaseException:
+            self._stack.close()
+            raise
+        self.counts: list[NodataCounts] = []
+
+    def _open(self, path: str, grid: GridSpec, crs_wkt: str, description: str, metadata) -> GeoTiffWriter:
+        writer = self._stack.enter_context(GeoTiffWriter(path, grid, 1, crs_wkt, [description], metadata))
+        self._writers.append(writer)
+        return writer
+
+    def __enter__(self) -> SurfaceWriters:
+        return self
+
+    def __exit__(self, exc_type, exc_value, traceback) -> None:
+        self._stack.__exit__(exc_type, exc_value, traceback)
+
+    def write(self, block: SurfaceBlock) -> None:
+        """Write the rasters of one block and keep its counts."""
+        for field_writers, field_bands in zip(self.fields, block.bands):
+            for kind, writer in field_writers.items():
+                writer.write_block(0, block.start, field_bands[kind])
+        if self.distance is not None:
+            self.distance.write_block(0, block.start, block.distance)
+        self.counts.append(block.counts)
+
+    def finish(self) -> NodataCounts:
+        """The run's nodata counts; every file committed together (or, inside an :class:`..io.staging.OutputSet`,
+        registered for its commit).
+
+        Raises
+        ------
+        FieldcastError
+            When a raster would be nodata at every resolved cell; no file is left.
+        """
+        counts = NodataCounts.total(self.counts)
+        if counts.error() is not None:
+            raise counts.error()
+        for writer in self._writers:
+            writer.commit()
+        self._stack.close()
+        return counts
+
 
 def write_surfaces(predict: CellPredictor, grid: GridSpec, inside: np.ndarray | None, scale: SurfaceScale,
                    crs_wkt: str, fields: Sequence[FieldRasters], progress: Callable[[float], None] | None = None,
@@ -282,8 +425,8 @@ def write_surfaces(predict: CellPredictor, grid: GridSpec, inside: np.ndarray | 
     columns at the cells of those rows (raster order, NaN where a covariate has no usable value: such cells
     are nodata and counted in ``NodataCounts.no_covariate``).
 
-    Every field's files appear together at the end (or, inside an :class:`..io.staging.OutputSet`, with
-    the set's commit).
+    The grid is kriged in the blocks of :func:`row_blocks`, each by :func:`krige_block`. Every field's files
+    appear together at the end (or, inside an :class:`..io.staging.OutputSet`, with the set's commit).
 
     Raises
     ------
@@ -295,64 +438,19 @@ def write_surfaces(predict: CellPredictor, grid: GridSpec, inside: np.ndarray | 
     """
     if distance_path and check is None:
         raise FieldcastError("The distance raster needs the samples: pass an ExtrapolationCheck with distance_path.")
-    step = block_rows(grid, len(fields))
-    unresolved = kriged = no_covariate = 0
-    lost = {f"{output.field} {kind}": 0 for output in fields for kind in SURFACE_KINDS if output.paths.get(kind)}
-    with staged_together(), contextlib.ExitStack() as stack:
-        distance_writer = (stack.enter_context(GeoTiffWriter(distance_path, grid, 1, crs_wkt, [DISTANCE_DESCRIPTION],
-                                                             fields[0].metadata)) if distance_path else None)
-        writers = []
-        for output in fields:
-            descriptions = scale.descriptions(output.field)
-            kinds = [kind for kind in SURFACE_KINDS if output.paths.get(kind)]
-            writers.append({kind: stack.enter_context(GeoTiffWriter(output.paths[kind], grid, 1, crs_wkt,
-                                                                     [descriptions[kind]], output.metadata))
-                            for kind in kinds})
-        kinds_asked = [kind for kind in SURFACE_KINDS if any(kind in field_writers for field_writers in writers)]
-        for start in range(0, grid.n_rows, step):
+    with SurfaceWriters(grid, scale, crs_wkt, fields, distance_path) as writers:
+        for start, stop in row_blocks(grid, len(fields)):
             if should_stop is not None and should_stop():
                 raise Cancelled("Prediction was cancelled.")
-            stop = min(start + step, grid.n_rows)
-            centres = grid.cell_centres(start, stop)
-            keep = np.ones(len(centres), bool) if inside is None else inside[start:stop].ravel()
-            columns = None
-            if covariates is not None and keep.any():
-                columns = covariates(start, stop)
-                usable = np.all(np.isfinite(columns), axis=1)
-                no_covariate += int(np.count_nonzero(keep & ~usable))
-                keep = keep & usable
-                columns = columns[keep]
-            bands = [{kind: np.full(len(centres), np.nan) for kind in field_writers} for field_writers in writers]
-            distance = np.full(len(centres), np.nan)
-            if keep.any():
-                def block_progress(fraction: float, start: int = start, stop: int = stop) -> None:
-                    if progress is not None:
-                        progress((start + fraction * (stop - start)) / grid.n_rows)
 
-                found = predict_points(predict, centres[keep], scale, kinds_asked,
-                                       variance_factors=[output.variance_factor for output in fields], check=check,
-                                       covariates=columns, progress=block_progress, should_stop=should_stop)
-                kriged += len(found.resolved)
-                unresolved += int(np.count_nonzero(~found.resolved))
-                if distance_writer is not None:
-                    distance[keep] = check.distances(centres[keep])
-                for column, (output, field_bands) in enumerate(zip(fields, bands)):
-                    for kind in field_bands:
-                        values = found.layers[column][kind]
-                        field_bands[kind][keep] = values
-                        lost[f"{output.field} {kind}"] += int(np.count_nonzero(found.kept[:, column]
-                                                                               & unwritable(values)))
-            for field_writers, field_bands in zip(writers, bands):
-                for kind, writer in field_writers.items():
-                    writer.write_block(0, start, field_bands[kind])
-            if distance_writer is not None:
-                distance_writer.write_block(0, start, distance)
+            def block_progress(fraction: float, start: int = start, stop: int = stop) -> None:
+                if progress is not None:
+                    progress((start + fraction * (stop - start)) / grid.n_rows)
+
+            writers.write(krige_block(predict, grid, start, stop, scale, fields,
+                                      inside=None if inside is None else inside[start:stop], check=check,
+                                      distance=bool(distance_path), covariates=covariates,
+                                      progress=block_progress, should_stop=should_stop))
             if progress is not None:
                 progress(stop / grid.n_rows)
-        counts = NodataCounts(kriged, unresolved, lost, no_covariate)
-        if counts.error() is not None:
-            raise counts.error()
-        for writer in [*(writer for field_writers in writers for writer in field_writers.values()),
-                       *([distance_writer] if distance_writer is not None else [])]:
-            writer.commit()
-    return counts
+        return writers.finish()
