@@ -11,8 +11,11 @@ follow from the same argument)::
 
 with ``Q = K^-1`` for a known mean (``y`` replaced by ``y - m``) and
 ``Q = K^-1 - K^-1 F (F^T K^-1 F)^-1 F^T K^-1`` when the mean or trend is
-estimated. ``K`` includes the nugget, so the variance is that of the error
-in predicting the observation itself. Leave-one-out is the case of
+estimated. ``K`` includes the nugget (and any per-sample measurement-error
+variances on its diagonal), so the variance is that of the error in
+predicting the observation itself. The partitioned-inverse argument holds
+for any positive definite ``K``, so the formulas stay exact with a
+heteroscedastic diagonal. Leave-one-out is the case of
 one-point sets: ``e_i = (Q y)_i / Q_ii`` and ``var_i = 1 / Q_ii``.
 
 For a log model the errors can also be read in attribute units
@@ -155,14 +158,15 @@ def _result(values: np.ndarray, residual: np.ndarray, variance: np.ndarray,
 
 
 def leave_one_out(xy: np.ndarray, values: np.ndarray, covariance: CovarianceModel, mean: MeanModel,
-                  covariates: np.ndarray | None = None) -> CrossValidation:
+                  covariates: np.ndarray | None = None, error_variance: np.ndarray | None = None) -> CrossValidation:
     """Leave-one-out cross-validation in closed form (Dubrule 1983).
 
     Each sample is predicted by kriging from all the others with the same
     covariance model, the trend coefficients re-estimated without it.
     Needs more samples than the mean model has terms plus one.
+    ``error_variance`` (n,) are per-sample measurement-error variances (u2, on the diagonal of ``K``).
     """
-    predictor = KrigingPredictor(xy, values, covariance, mean, covariates)
+    predictor = KrigingPredictor(xy, values, covariance, mean, covariates, error_variance)
     if predictor.n <= mean.n_terms + 1:
         raise FieldcastError(
             f"Leave-one-out with a {mean.kind} mean needs at least {mean.n_terms + 2} samples; "
@@ -180,7 +184,7 @@ def leave_one_out(xy: np.ndarray, values: np.ndarray, covariance: CovarianceMode
 
 def local_leave_one_out(xy: np.ndarray, values: np.ndarray, covariance: CovarianceModel, mean: MeanModel, *,
                         neighbours: int, search_radius: float | None = None, covariates: np.ndarray | None = None,
-                        progress: Callable[[float], None] | None = None,
+                        error_variance: np.ndarray | None = None, progress: Callable[[float], None] | None = None,
                         should_stop: Callable[[], bool] | None = None) -> CrossValidation:
     """Leave-one-out cross-validation with local kriging from each sample's nearest other samples.
 
@@ -201,7 +205,8 @@ def local_leave_one_out(xy: np.ndarray, values: np.ndarray, covariance: Covarian
         :class:`.neighbourhood.LocalKrigingPredictor`.
     """
     predictor = LocalKrigingPredictor(xy, values, covariance, mean, neighbours=neighbours,
-                                      search_radius=search_radius, covariates=covariates)
+                                      search_radius=search_radius, covariates=covariates,
+                                      error_variance=error_variance)
     if predictor.n <= predictor.minimum_neighbours:
         raise FieldcastError(
             f"Leave-one-out with a {mean.kind} mean needs at least {predictor.minimum_neighbours + 1} samples; "
