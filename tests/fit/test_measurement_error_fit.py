@@ -16,6 +16,7 @@ from fieldcast.algorithms.errors import FieldcastError
 from fieldcast.algorithms.fit.fitting import fit_model
 from fieldcast.algorithms.fit.likelihood import LikelihoodObjective, MeanBasis, log_likelihood
 from fieldcast.algorithms.fit.options import FitOptions
+from fieldcast.algorithms.fit.shared import fit_shared
 from fieldcast.algorithms.fit.vecchia import VecchiaData, VecchiaObjective, VecchiaPlan, vecchia_log_likelihood
 from fieldcast.algorithms.fit.vecchia_fit import fit_vecchia
 from fieldcast.algorithms.model.covariance import CovarianceModel, Structure
@@ -144,3 +145,9 @@ def test_settings_that_do_not_go_together_are_refused_with_advice(data):
         FitOptions(nugget=-1.0)
     with pytest.raises(FieldcastError, match="leave ERROR_VARIANCE_FIELD empty"):
         fit_model(xy, values, kernel="spherical", anisotropy=False, method="wls", error_variance=error_variance)
+
+
+def test_a_shared_fit_refuses_a_fixed_nugget_with_advice(meuse):
+    values = np.column_stack([np.log(meuse.zinc), np.log(meuse.copper)])
+    with pytest.raises(FieldcastError, match="leave NUGGET empty, or turn off"):
+        fit_shared(np.asarray(meuse.xy), values, FitOptions(kernel="spherical", nugget=0.1))
