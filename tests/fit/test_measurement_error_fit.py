@@ -104,8 +104,8 @@ def test_gradients_match_central_differences_with_the_diagonal_and_a_fixed_nugge
 
 
 def test_exact_fit_keeps_a_fixed_nugget_and_records_it(meuse):
-    # Meuse log cadmium: REML puts the nugget near zero although the first lag of the semivariogram is far above
-    # it; a user with laboratory duplicates fixes it instead. A held nugget cannot raise the maximum likelihood.
+    # Meuse log cadmium, with the nugget held where a user's laboratory duplicates would put it: the fit keeps it,
+    # and a held nugget cannot raise the maximum of the likelihood.
     xy, values = np.asarray(meuse.xy), np.log(meuse.cadmium)
     free = fit_model(xy, values, kernel="spherical", anisotropy=False)
     fixed = fit_model(xy, values, kernel="spherical", anisotropy=False, nugget=0.3)
