@@ -69,7 +69,7 @@ def fit_report_arguments(samples: ModelSamples, skipped: Mapping[str, int], resu
         loo_rmse = candidate_rmse(samples.xy, samples.values, [c.covariance for c in result.candidates],
                                   result.mean, covariates=samples.covariates,
                                   progress=progress_callback(feedback, FIT_PERCENT_WITH_REPORT, 99.0),
-                                  should_stop=feedback.isCanceled)
+                                  should_stop=feedback.isCanceled, error_variance=samples.error_variance)
     except FieldcastUsageError:
         raise  # a programming error: processAlgorithm reports it as an internal error
     except FieldcastError as error:  # too few samples for leave-one-out: the report shows dashes

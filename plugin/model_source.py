@@ -153,4 +153,6 @@ def describe_document(document: ModelDocument) -> str:
     covariates = ", ".join(f"{c.name} ({c.kind}" + (f", baseline class {c.baseline:g})" if c.kind == "class" else ")")
                            for c in document.covariates.covariates)
     mean = f"{document.mean.kind} mean" + (f" with covariates {covariates}" if covariates else "")
-    return f"Model: {'; '.join(parts)}; {mean}; {transform}."
+    errors = document.fit.get("error_variance_field")
+    fitted_with = f"; fitted with the per-sample error variances of {errors}" if errors else ""
+    return f"Model: {'; '.join(parts)}; {mean}; {transform}{fitted_with}."

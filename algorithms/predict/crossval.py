@@ -257,11 +257,13 @@ def k_fold(xy: np.ndarray, values: np.ndarray, covariance: CovarianceModel, mean
 
 def candidate_rmse(xy: np.ndarray, values: np.ndarray, candidates: Sequence[CovarianceModel], mean: MeanModel, *,
                    covariates: np.ndarray | None = None, progress: Callable[[float], None] | None = None,
-                   should_stop: Callable[[], bool] | None = None) -> list[float]:
+                   should_stop: Callable[[], bool] | None = None,
+                   error_variance: np.ndarray | None = None) -> list[float]:
     """Leave-one-out RMSE (modelling units) of each candidate covariance model under the same mean kind.
 
     Used by the fit report to set the candidates' AIC beside how well each predicts held-out samples.
-    ``covariates`` are the mean model's covariate columns at the samples, when it names any.
+    ``covariates`` are the mean model's covariate columns at the samples, when it names any; ``error_variance``
+    the samples' measurement-error variances, when the fit used them.
 
     Raises
     ------
@@ -272,7 +274,7 @@ def candidate_rmse(xy: np.ndarray, values: np.ndarray, candidates: Sequence[Cova
     for index, covariance in enumerate(candidates):
         if should_stop is not None and should_stop():
             raise Cancelled("Cancelled while cross-validating the candidate models.")
-        rmse.append(leave_one_out(xy, values, covariance, mean, covariates).summary()["RMSE"])
+        rmse.append(leave_one_out(xy, values, covariance, mean, covariates, error_variance).summary()["RMSE"])
         if progress is not None:
             progress((index + 1) / len(candidates))
     return rmse

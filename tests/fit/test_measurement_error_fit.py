@@ -13,7 +13,8 @@ import pytest
 from scipy import linalg, stats
 
 from fieldcast.algorithms.errors import FieldcastError
-from fieldcast.algorithms.fit.fitting import fit_model
+from fieldcast.algorithms.fit.fit_log import fit_log_lines
+from fieldcast.algorithms.fit.fitting import fit_model, fit_with
 from fieldcast.algorithms.fit.likelihood import LikelihoodObjective, MeanBasis, log_likelihood
 from fieldcast.algorithms.fit.options import FitOptions
 from fieldcast.algorithms.fit.shared import fit_shared
@@ -151,3 +152,10 @@ def test_a_shared_fit_refuses_a_fixed_nugget_with_advice(meuse):
     values = np.column_stack([np.log(meuse.zinc), np.log(meuse.copper)])
     with pytest.raises(FieldcastError, match="leave NUGGET empty, or turn off"):
         fit_shared(np.asarray(meuse.xy), values, FitOptions(kernel="spherical", nugget=0.1))
+
+
+def test_the_fit_log_says_the_nugget_was_held_and_names_the_error_variances(data):
+    xy, values, error_variance = data
+    options = FitOptions(kernel="spherical", anisotropy=False, nugget=0.02, error_variance_field="lab_var")
+    first = fit_log_lines(fit_with(xy, values, options, error_variance=error_variance), "metre")[0]
+    assert "nugget 0.02 (held fixed)" in first and "per-sample error variances of lab_var" in first

@@ -155,3 +155,17 @@ def test_predictmany_of_a_new_measurement_adds_the_fixed_nugget(qgis_processing,
     # Float32 rasters: equal to single precision (IEEE 754, 2**-24) of the larger variances.
     np.testing.assert_allclose(variances["measurement"] - variances["true"], 900.0, rtol=0,
                                atol=1e-6 * variances["measurement"].max())
+
+
+def test_fitmodel_report_and_simulate_take_the_error_variances(qgis_processing, layer, fitted, tmp_path):  # noqa: F811
+    _, log = run_logged(qgis_processing, "fieldcast:fitmodel", {
+        "INPUT": layer, "FIELD": "zinc", **LOG_FIT, "ERROR_VARIANCE_FIELD": "ev",
+        "OUTPUT_MODEL": str(tmp_path / "zinc.json"), "OUTPUT_REPORT": str(tmp_path / "fit.html")})
+    assert "with the error variances of ev" in log and "per-sample error variances of ev" in log
+    assert (tmp_path / "fit.html").is_file()
+    _, path = fitted
+    _, log = run_logged(qgis_processing, "fieldcast:simulate", {
+        "INPUT": layer, "FIELD": "zinc", "MODEL": path, "ERROR_VARIANCE_FIELD": "ev", "PIXEL_SIZE": 400.0,
+        "REALIZATIONS": 2, "OUTPUT": str(tmp_path / "realisations.tif")})
+    assert "fitted with the per-sample error variances of ev" in log
+    assert gdal.Open(str(tmp_path / "realisations.tif")).RasterCount == 2
