@@ -94,7 +94,7 @@ class ModelSamples:
 
     def engine_samples(self) -> Samples:
         """The samples as the engine's :class:`Samples` (ids are the feature ids), e.g. for the fit report."""
-        return Samples(self.xy, self.values, self.fids, self.merged_groups, self.merged_points)
+        return Samples(self.xy, self.values, self.fids, self.merged_groups, self.merged_points, self.error_variance)
 
 
 def crs_wkt(crs: QgsCoordinateReferenceSystem) -> str:
