@@ -104,16 +104,17 @@ def test_gradients_match_central_differences_with_the_diagonal_and_a_fixed_nugge
     np.testing.assert_allclose(gradient, central_differences(vecchia.value, theta), rtol=1e-5, atol=1e-5)
 
 
-def test_exact_fit_keeps_a_fixed_nugget_and_records_it(meuse):
+@pytest.mark.parametrize("nugget", [0.0, 0.3])
+def test_exact_fit_keeps_a_fixed_nugget_and_records_it(meuse, nugget):
     # Meuse log cadmium, with the nugget held where a user's laboratory duplicates would put it: the fit keeps it,
     # and a held nugget cannot raise the maximum of the likelihood.
     xy, values = np.asarray(meuse.xy), np.log(meuse.cadmium)
     free = fit_model(xy, values, kernel="spherical", anisotropy=False)
-    fixed = fit_model(xy, values, kernel="spherical", anisotropy=False, nugget=0.3)
-    assert fixed.covariance.nugget == 0.3
+    fixed = fit_model(xy, values, kernel="spherical", anisotropy=False, nugget=nugget)
+    assert fixed.covariance.nugget == nugget
     assert fixed.log_likelihood <= free.log_likelihood + 1e-6
     assert fixed.n_parameters == free.n_parameters - 1
-    assert fixed.summary()["fixed_nugget"] == 0.3 and "fixed_nugget" not in free.summary()
+    assert fixed.summary()["fixed_nugget"] == nugget and "fixed_nugget" not in free.summary()
     evaluated = log_likelihood(xy, values, fixed.covariance, fixed.mean)
     assert evaluated == pytest.approx(fixed.log_likelihood, rel=1e-9)
 
