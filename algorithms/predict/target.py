@@ -2,9 +2,9 @@
 
 The kriging variance of :mod:`.kriging` is that of the error in predicting the
 latent field, the true value without measurement error. A new measurement at
-the place adds its own error, independent of the prediction's (Cressie 1993,
-*Statistics for Spatial Data*, rev. ed., section 3.2, on kriging with
-measurement error)::
+the place adds its own error, independent of the prediction's (the ordinary
+kriging equations of Cressie 1993, *Statistics for Spatial Data*, rev. ed.,
+section 3.2; the section number of its measurement-error discussion from memory)::
 
     variance(new measurement) = variance(true value) + nugget + e_new
 

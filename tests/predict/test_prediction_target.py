@@ -1,7 +1,8 @@
 """PREDICT_TARGET: a new measurement's error variance is the true value's plus the nugget and its own error.
 
-Cressie 1993, Statistics for Spatial Data, section 3.2 (kriging with measurement error): the prediction of a new
-measurement Z(x0) = S(x0) + e0 has the same weights as that of S(x0) and error variance var(S) + var(e0). Data:
+Cressie 1993, Statistics for Spatial Data, section 3.2 (ordinary kriging; where it treats measurement error is
+from memory): the prediction of a new measurement Z(x0) = S(x0) + e0, e0 independent of the data, has the same
+weights as that of S(x0) and error variance var(S) + var(e0). Data:
 the published Meuse samples (Rikken & Van Rijn 1993); error variances a stated test diagonal.
 """
 from __future__ import annotations
