@@ -42,6 +42,7 @@ from ..algorithms import (
     BACKTRANSFORMS,
     FIT_METHODS,
     KERNEL_CHOICES,
+    PREDICT_TARGETS,
     TRANSFORM_KINDS,
     Cancelled,
     CovariateSet,
@@ -57,8 +58,10 @@ from ..algorithms import (
     SampleCovariates,
     Transform,
     WorkingCrs,
+    measurement_variance,
     refuse_read_only,
     remove_stale_files,
+    target_words,
     termination_cleanup,
 )
 from .destinations import destination_value, layer_file, refuse_clashes
@@ -147,6 +150,9 @@ class FieldcastAlgorithm(QgsProcessingAlgorithm):
     BACKTRANSFORM = "BACKTRANSFORM"
     COVARIATES = "COVARIATES"
     CLASS_COVARIATES = "CLASS_COVARIATES"
+    NUGGET = "NUGGET"
+    ERROR_VARIANCE_FIELD = "ERROR_VARIANCE_FIELD"
+    PREDICT_TARGET = "PREDICT_TARGET"
     ICON = "fieldcast.svg"
 
     def tr(self, text: str) -> str:
@@ -296,14 +302,53 @@ class FieldcastAlgorithm(QgsProcessingAlgorithm):
 
     def fit_choices(self, parameters, context) -> tuple[Transform, FitOptions]:
         """The transform and the engine's fit settings chosen with the parameters of :meth:`add_fit_parameters`
-        (the one place the dialog's words become them)."""
+        (the one place the dialog's words become them) and NUGGET."""
         transform = Transform(self.choice(parameters, self.TRANSFORM, context),
                               self.parameterAsDouble(parameters, self.LOG_OFFSET, context))
         settings = FitOptions(kernel=self.choice(parameters, self.KERNEL, context),
                               anisotropy=self.parameterAsBoolean(parameters, self.ANISOTROPY, context),
                               mean=self.choice(parameters, self.TREND, context),
-                              method=self.choice(parameters, self.METHOD, context))
+                              method=self.choice(parameters, self.METHOD, context),
+                              nugget=self.fixed_nugget(parameters, context))
         return transform, settings
+
+    # --- measurement error --------------------------------------------------------------------------------
+
+    def add_measurement_parameters(self, nugget: bool = True) -> None:
+        """ERROR_VARIANCE_FIELD (optional numeric field of INPUT) and, with ``nugget``, NUGGET (optional, empty =
+        fitted), both advanced."""
+        if nugget:
+            self.addParameter(advanced(QgsProcessingParameterNumber(
+                self.NUGGET, self.tr("Nugget (held fixed; modelling units squared; empty = fitted)"),
+                type=QgsProcessingParameterNumber.Double, optional=True, minValue=0.0)))
+        self.addParameter(advanced(QgsProcessingParameterField(
+            self.ERROR_VARIANCE_FIELD, self.tr("Error variance field (per sample; modelling units squared)"),
+            parentLayerParameterName=self.INPUT, type=QgsProcessingParameterField.Numeric, optional=True)))
+
+    def add_prediction_target_parameter(self) -> None:
+        """PREDICT_TARGET (advanced): the true value (default) or a new measurement."""
+        self.add_choice(self.PREDICT_TARGET, self.tr("Target of the prediction (true value or new measurement)"),
+                        PREDICT_TARGETS, "true", expert=True)
+
+    def fixed_nugget(self, parameters, context) -> float | None:
+        """NUGGET, None when empty (or when the algorithm has none)."""
+        if self.parameterDefinition(self.NUGGET) is None:
+            return None
+        return self.optional_number(parameters, self.NUGGET, context)
+
+    def error_field(self, parameters, context) -> str:
+        """ERROR_VARIANCE_FIELD, "" when empty (or when the algorithm has none)."""
+        if self.parameterDefinition(self.ERROR_VARIANCE_FIELD) is None:
+            return ""
+        return self.parameterAsString(parameters, self.ERROR_VARIANCE_FIELD, context) or ""
+
+    def added_variance(self, parameters, context, document: ModelDocument, samples: ModelSamples, feedback,
+                       support: str = "point") -> float | None:
+        """The variance PREDICT_TARGET adds to the kriging variance (engine's ``measurement_variance``), logged."""
+        variance = measurement_variance(self.choice(parameters, self.PREDICT_TARGET, context), document.covariance,
+                                        samples.error_variance, support)
+        feedback.pushInfo(target_words(variance, samples.error_variance))
+        return variance
 
     def add_neighbourhood_parameters(self, per: str = "cell") -> None:
         """NEIGHBOURS (0 = all samples) and SEARCH_RADIUS (optional), both advanced; ``per`` is what each
@@ -394,7 +439,8 @@ class FieldcastAlgorithm(QgsProcessingAlgorithm):
             raise QgsProcessingException(self.invalidSourceError(parameters, self.INPUT))
         field = self.parameterAsString(parameters, self.FIELD, context)
         target = self.parameterAsCrs(parameters, self.TARGET_CRS, context)
-        return read_layer_samples(source, field, target, feedback, self.grid_template(parameters, context))
+        return read_layer_samples(source, field, target, feedback, self.grid_template(parameters, context),
+                                  self.error_field(parameters, context))
 
     def grid_template(self, parameters, context) -> RasterTemplate | None:
         """The template raster whose CRS is the working CRS; None here (see ``RasterAlgorithm``)."""
@@ -413,19 +459,37 @@ class FieldcastAlgorithm(QgsProcessingAlgorithm):
             if document.field and document.field != layer_samples.field:
                 feedback.pushWarning(f"The model was fitted to field {document.field!r}; "
                                      f"it is applied here to {layer_samples.field!r}.")
+            self.log_measurement_settings(parameters, context, document, layer_samples.error_field, feedback)
             samples = prepare_samples(layer_samples, document.transform, feedback)
             samples = self.model_covariates(samples, document, sources, working, feedback)
         else:
-            settings = FitOptions()
+            settings = FitOptions(nugget=self.fixed_nugget(parameters, context))
             feedback.pushInfo(f"No model file given: fitting a model with the default settings "
                               f"({settings.describe()}, no transform). Run 'Fit covariance model' to choose them.")
             samples, covariates = self.fit_covariates(prepare_samples(layer_samples, Transform(), feedback), sources,
                                                       working, feedback)
             document, result = fit_document(samples.xy, samples.values, Transform(), working, layer_samples.field,
-                                            settings, progress, feedback.isCanceled, covariates, samples.covariates)
+                                            settings, progress, feedback.isCanceled, covariates, samples.covariates,
+                                            samples.error_variance, samples.error_field)
             log_fit(feedback, samples.xy, samples.values, result, document, columns=samples.covariates)
         feedback.pushInfo(describe_document(document))
         return document, samples
+
+    def log_measurement_settings(self, parameters, context, document: ModelDocument, error_field: str,
+                                 feedback) -> None:
+        """Warn when NUGGET is given beside a model file (ignored), and when the model was fitted with error
+        variances but ERROR_VARIANCE_FIELD is empty here, or the other way round."""
+        if self.fixed_nugget(parameters, context) is not None:
+            feedback.pushWarning("NUGGET is ignored: the model file's nugget applies. Refit the model with "
+                                 "'Fit covariance model' and NUGGET to change it.")
+        fitted_with = document.fit.get("error_variance_field")
+        if fitted_with and not error_field:
+            feedback.pushWarning(f"The model was fitted with the per-sample error variances of {fitted_with!r}, but "
+                                 "ERROR_VARIANCE_FIELD is empty here, so kriging treats the samples as exact but for "
+                                 "the nugget. Set ERROR_VARIANCE_FIELD to that field.")
+        elif error_field and not fitted_with:
+            feedback.pushInfo(f"The model was fitted without per-sample error variances; kriging adds those of "
+                              f"{error_field!r} to its nugget.")
 
     # --- running -------------------------------------------------------------------------------------------
 

@@ -27,7 +27,14 @@ from ..algorithms import (
 from .algorithm_base import FieldcastAlgorithm, progress_callback, push_log
 from .field_names import free_names
 from .field_types import field_type
-from .help_text import COVARIATE_HELP, MODEL_FILE_HELP, TARGET_CRS_HELP, compose_help
+from .help_text import (
+    COVARIATE_HELP,
+    ERROR_VARIANCE_HELP,
+    MODEL_FILE_HELP,
+    NUGGET_HELP,
+    TARGET_CRS_HELP,
+    compose_help,
+)
 from .report.crossvalidation_report import write_crossvalidation_report
 from .sample_reader import ModelSamples
 from .sinks import checked_sink
@@ -71,6 +78,8 @@ class CrossValidateAlgorithm(FieldcastAlgorithm):
           "the major axis; the search ellipse follows the model's anisotropy) are left out. Samples with too few "
           "others in range get no prediction (empty fields), are left out of the summary and the report, and the "
           "log says how many. Empty: no limit."),
+         NUGGET_HELP,
+         ERROR_VARIANCE_HELP,
          TARGET_CRS_HELP],
         [("Cross-validation points", "One point per sample (per location, where samples at one location were "
           "averaged) with the input layer's own fields (those of the first sample at the location), then "
@@ -102,6 +111,7 @@ class CrossValidateAlgorithm(FieldcastAlgorithm):
         self.add_model_parameter()
         self.add_covariate_parameters()
         self.add_neighbourhood_parameters("sample")
+        self.add_measurement_parameters()
         self.add_target_crs_parameter()
         self.addParameter(QgsProcessingParameterFeatureSink(self.OUTPUT, self.tr("Cross-validation points")))
         self.add_report_parameter(self.tr("Cross-validation report"))
@@ -161,7 +171,7 @@ class CrossValidateAlgorithm(FieldcastAlgorithm):
         """Global (closed form) or local leave-one-out by NEIGHBOURS and SEARCH_RADIUS, the engine's choice logged."""
         result, lines = cross_validate_with(samples.xy, samples.values, document.covariance, document.mean,
                                             self.neighbourhood(parameters, context), covariates=samples.covariates,
-                                            units=document.units,
+                                            units=document.units, error_variance=samples.error_variance,
                                             progress=progress_callback(feedback, 80, 95),
                                             should_stop=feedback.isCanceled)
         push_log(feedback, lines)

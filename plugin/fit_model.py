@@ -20,7 +20,14 @@ from ..algorithms import (
     residual_semivariograms,
 )
 from .algorithm_base import FieldcastAlgorithm, progress_callback
-from .help_text import COVARIATE_HELP, FIT_HELP, TARGET_CRS_HELP, compose_help
+from .help_text import (
+    COVARIATE_HELP,
+    ERROR_VARIANCE_HELP,
+    FIT_HELP,
+    NUGGET_HELP,
+    TARGET_CRS_HELP,
+    compose_help,
+)
 from .model_source import fit_document, log_fit
 from .report.fit_report import write_fit_report
 from .sample_reader import ModelSamples, prepare_samples
@@ -62,7 +69,7 @@ def fit_report_arguments(samples: ModelSamples, skipped: Mapping[str, int], resu
         loo_rmse = candidate_rmse(samples.xy, samples.values, [c.covariance for c in result.candidates],
                                   result.mean, covariates=samples.covariates,
                                   progress=progress_callback(feedback, FIT_PERCENT_WITH_REPORT, 99.0),
-                                  should_stop=feedback.isCanceled)
+                                  should_stop=feedback.isCanceled, error_variance=samples.error_variance)
     except FieldcastUsageError:
         raise  # a programming error: processAlgorithm reports it as an internal error
     except FieldcastError as error:  # too few samples for leave-one-out: the report shows dashes
@@ -89,6 +96,8 @@ class FitModelAlgorithm(FieldcastAlgorithm):
           "samples at the same location are averaged. Multipoints with several points are refused."),
          *COVARIATE_HELP,
          *FIT_HELP,
+         NUGGET_HELP,
+         ERROR_VARIANCE_HELP,
          TARGET_CRS_HELP],
         [("Model file", "JSON file with the fitted model, its CRS, transform and fit statistics."),
          ("Log", "The chosen model in words (family, anisotropy, effective range), every candidate with its AIC "
@@ -108,6 +117,7 @@ class FitModelAlgorithm(FieldcastAlgorithm):
         self.add_sample_parameters()
         self.add_covariate_parameters()
         self.add_fit_parameters()
+        self.add_measurement_parameters()
         self.add_target_crs_parameter()
         self.addParameter(QgsProcessingParameterFileDestination(
             self.OUTPUT_MODEL, self.tr("Model file"), self.tr("Fieldcast model (*.json)")))
@@ -128,7 +138,8 @@ class FitModelAlgorithm(FieldcastAlgorithm):
         fit_percent = FIT_PERCENT_WITH_REPORT if report_path else 99.0
         document, result = fit_document(samples.xy, samples.values, transform, layer_samples.working,
                                         layer_samples.field, settings, progress_callback(feedback, 0.0, fit_percent),
-                                        feedback.isCanceled, covariates, samples.covariates)
+                                        feedback.isCanceled, covariates, samples.covariates, samples.error_variance,
+                                        samples.error_field)
         log_fit(feedback, samples.xy, samples.values, result, document, columns=samples.covariates)
         report = None
         if report_path:

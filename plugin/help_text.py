@@ -131,6 +131,33 @@ THRESHOLD_HELP = (
     "the same way as the data. Needed for the exceedance output.",
 )
 
+NUGGET_HELP = (
+    "Nugget",
+    "Advanced. Holds the nugget at this value instead of fitting it, e.g. from laboratory duplicates (half the "
+    "mean squared difference of duplicate pairs), in modelling units squared: with the log transform in log units "
+    "squared (of ln(value + offset)). Used when a model is fitted here (with a model file the file's nugget "
+    "applies); likelihood methods only, and not with one model shared by several fields. Empty: fitted.",
+)
+
+ERROR_VARIANCE_HELP = (
+    "Error variance field",
+    "Advanced. Optional numeric field of the sample layer: each sample's own measurement-error variance "
+    "(heteroscedastic nugget), in modelling units squared (log units squared for a log model), 0 for an exact "
+    "value. It adds to the diagonal of the kriging system beside the model's nugget (which then stands for the "
+    "micro-scale variation and any error the field leaves out) in the fit, kriging, leave-one-out and "
+    "simulation. Samples at one location merge to their inverse-variance weighted mean, with the combined "
+    "variance. A sample with a value but an empty, non-numeric or negative error variance is refused (the "
+    "message names its feature id). A model file records the field's name; give the same field when you use it.",
+)
+
+PREDICT_TARGET_HELP = (
+    "Target of the prediction",
+    "Advanced. true (default): the true value at the place, without measurement error; the variance leaves out "
+    "the nugget and the error variances. measurement: a new measurement at the place, whose variance adds the "
+    "nugget and, with an error variance field, the median of the samples' error variances; the quantiles and "
+    "exceedance follow. Point support only.",
+)
+
 INTERVAL_HELP = (
     "Interval probability",
     "Probability of the central predictive interval whose ends the lower and upper quantile outputs hold, "

@@ -31,18 +31,24 @@ from ..algorithms import (
 def fit_document(xy: np.ndarray, values: np.ndarray, transform: Transform, working: WorkingCrs, field: str,
                  settings: FitOptions, progress: Callable[[float], None] | None = None,
                  should_stop: Callable[[], bool] | None = None, covariates: CovariateSet | None = None,
-                 columns: np.ndarray | None = None) -> tuple[ModelDocument, FitResult]:
+                 columns: np.ndarray | None = None, error_variance: np.ndarray | None = None,
+                 error_field: str = "") -> tuple[ModelDocument, FitResult]:
     """Fit a covariance and mean model and wrap it, with its CRS and transform, as a model document.
 
     ``xy`` is in the working CRS and ``values`` in the modelling scale (after ``transform``); ``columns`` are the
-    design columns of ``covariates`` at the samples (refused when collinear with the trend terms).
+    design columns of ``covariates`` at the samples (refused when collinear with the trend terms);
+    ``error_variance`` the samples' measurement-error variances from the field ``error_field`` (its name goes
+    into the model file).
     Returns the document and the engine's fit result (candidates and all), which the fit report reads. The fit's
     warnings give distances in the working CRS's units.
     """
     settings = replace(with_covariate_mean(settings, xy, covariates, columns), units=working.units)
-    result = fit_with(xy, values, settings, covariates=columns, progress=progress, should_stop=should_stop)
+    if error_field:
+        settings = replace(settings, error_variance_field=error_field)
+    result = fit_with(xy, values, settings, covariates=columns, progress=progress, should_stop=should_stop,
+                      error_variance=error_variance)
     return result_document(result, transform, working, field, covariates,
-                           coefficient_errors(result, xy, values, columns)), result
+                           coefficient_errors(result, xy, values, columns, error_variance)), result
 
 
 def with_covariate_mean(settings: FitOptions, xy: np.ndarray, covariates: CovariateSet | None,
@@ -56,13 +62,14 @@ def with_covariate_mean(settings: FitOptions, xy: np.ndarray, covariates: Covari
     return replace(settings, mean=mean)
 
 
-def coefficient_errors(result: FitResult, xy: np.ndarray, values: np.ndarray,
-                       columns: np.ndarray | None) -> np.ndarray:
-    """Standard errors of the fit's GLS coefficients given its covariance; empty for a Vecchia fit (the exact
-    system of a large data set is not formed)."""
+def coefficient_errors(result: FitResult, xy: np.ndarray, values: np.ndarray, columns: np.ndarray | None,
+                       error_variance: np.ndarray | None = None) -> np.ndarray:
+    """Standard errors of the fit's GLS coefficients given its covariance (and the samples' error variances);
+    empty for a Vecchia fit (the exact system of a large data set is not formed)."""
     if not result.likelihood.startswith("exact"):
         return np.zeros(0)
-    return KrigingPredictor(xy, values, result.covariance, result.mean, columns).coefficient_errors()
+    return KrigingPredictor(xy, values, result.covariance, result.mean, columns,
+                            error_variance).coefficient_errors()
 
 
 def result_document(result: FitResult, transform: Transform, working: WorkingCrs, field: str,
@@ -136,7 +143,8 @@ def load_document(path: str, working: WorkingCrs) -> ModelDocument:
 
 def describe_document(document: ModelDocument) -> str:
     """One paragraph for the log: structures, nugget, mean and transform of a model."""
-    parts = [f"nugget {document.covariance.nugget:.4g}"]
+    fixed = " (fixed)" if document.fit.get("fixed_nugget") is not None else ""
+    parts = [f"nugget {document.covariance.nugget:.4g}{fixed}"]
     for structure in document.covariance.structures:
         parts.append(f"{structure.family} partial sill {structure.partial_sill:.4g}, range {structure.range:.4g} "
                      f"{document.units}, azimuth {structure.azimuth:.1f}°, ratio {structure.ratio:.3g}")
@@ -145,4 +153,6 @@ def describe_document(document: ModelDocument) -> str:
     covariates = ", ".join(f"{c.name} ({c.kind}" + (f", baseline class {c.baseline:g})" if c.kind == "class" else ")")
                            for c in document.covariates.covariates)
     mean = f"{document.mean.kind} mean" + (f" with covariates {covariates}" if covariates else "")
-    return f"Model: {'; '.join(parts)}; {mean}; {transform}."
+    errors = document.fit.get("error_variance_field")
+    fitted_with = f"; fitted with the per-sample error variances of {errors}" if errors else ""
+    return f"Model: {'; '.join(parts)}; {mean}; {transform}{fitted_with}."

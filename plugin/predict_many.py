@@ -3,7 +3,7 @@ from __future__ import annotations
 
 import os
 import re
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import numpy as np
 from qgis.core import (
@@ -29,10 +29,13 @@ from .algorithm_base import progress_callback
 from .help_text import (
     BACKTRANSFORM_HELP,
     COVARIATE_HELP,
+    ERROR_VARIANCE_HELP,
     FIT_HELP,
     GRID_HELP,
     MAP_AREA_HELP,
     NEIGHBOURHOOD_HELP,
+    NUGGET_HELP,
+    PREDICT_TARGET_HELP,
     RASTER_TARGET_CRS_HELP,
     compose_help,
 )
@@ -99,6 +102,9 @@ class PredictManyAlgorithm(SurfaceAlgorithm):
          *MAP_AREA_HELP,
          BACKTRANSFORM_HELP,
          *NEIGHBOURHOOD_HELP,
+         NUGGET_HELP,
+         ERROR_VARIANCE_HELP,
+         PREDICT_TARGET_HELP,
          RASTER_TARGET_CRS_HELP],
         [("Output folder", "Receives, per field, <field>_model.json (the model file, as 'Fit covariance model' "
           "writes it), <field>_prediction.tif, <field>_variance.tif and <field>_sd.tif (Float32 GeoTIFFs as "
@@ -125,6 +131,8 @@ class PredictManyAlgorithm(SurfaceAlgorithm):
         self.add_map_area_parameters()
         self.add_backtransform_parameter()
         self.add_neighbourhood_parameters()
+        self.add_measurement_parameters()
+        self.add_prediction_target_parameter()
         self.add_target_crs_parameter()
         self.addParameter(QgsProcessingParameterFolderDestination(self.OUTPUT_FOLDER, self.tr("Output folder")))
         self.addOutput(QgsProcessingOutputNumber(self.COUNT, self.tr("Number of fields predicted")))
@@ -185,6 +193,13 @@ class PredictManyAlgorithm(SurfaceAlgorithm):
         if source is None:
             raise QgsProcessingException(self.invalidSourceError(parameters, self.INPUT))
         fields = self.chosen_fields(parameters, context, source)
+        error_field = self.error_field(parameters, context)
+        shared = self.parameterAsBoolean(parameters, self.SHARED_MODEL, context)
+        if shared and (error_field or self.fixed_nugget(parameters, context) is not None):
+            raise FieldcastError("A model shared by several fields takes each field's own scale, so it is fitted "
+                                 "without a fixed nugget or per-sample error variances: leave NUGGET and "
+                                 "ERROR_VARIANCE_FIELD empty, or turn off 'One correlation model for all fields' "
+                                 "(SHARED_MODEL).")
         folder = self.output_folder(parameters, context)
         transform, settings = self.fit_choices(parameters, context)
         target = self.parameterAsCrs(parameters, self.TARGET_CRS, context)
@@ -192,7 +207,7 @@ class PredictManyAlgorithm(SurfaceAlgorithm):
         sources = self.covariate_sources(parameters, context)
         prepared, covariates = [], []
         for field in fields:  # every field is checked before any file is written
-            layer_samples = read_layer_samples(source, field, target, feedback, template)
+            layer_samples = read_layer_samples(source, field, target, feedback, template, error_field)
             samples, described = self.fit_covariates(prepare_samples(layer_samples, transform, feedback), sources,
                                                      layer_samples.working, feedback)
             prepared.append((layer_samples, samples))
@@ -203,7 +218,7 @@ class PredictManyAlgorithm(SurfaceAlgorithm):
         first_mean = MeanModel.for_data(settings.mean, prepared[0][1].xy, covariates[0].column_names)
         neighbours, _ = run.neighbourhood.resolved(first_mean, "cell")  # refuse early
         refuse_local_covariates(first_mean, neighbours, len(prepared[0][1].values))
-        if self.parameterAsBoolean(parameters, self.SHARED_MODEL, context):
+        if shared:
             self.predict_shared(run, parameters, context, feedback)
         else:
             self.predict_each(run, parameters, context, feedback)
@@ -227,20 +242,23 @@ class PredictManyAlgorithm(SurfaceAlgorithm):
                 document, result = fit_document(samples.xy, samples.values, run.transform, layer_samples.working,
                                                 field, run.settings,
                                                 progress_callback(feedback, start, start + FIT_SHARE * share),
-                                                feedback.isCanceled, run.covariates[index], samples.covariates)
+                                                feedback.isCanceled, run.covariates[index], samples.covariates,
+                                                samples.error_variance, samples.error_field)
                 log_fit(feedback, samples.xy, samples.values, result, document, field, samples.covariates)
                 feedback.pushInfo(describe_document(document))
+                scale = replace(run.scale, measurement_variance=self.added_variance(parameters, context, document,
+                                                                                    samples, feedback))
                 key = (document.crs_wkt, samples.xy.tobytes())
                 if key in grids:
                     feedback.pushInfo("Same sample locations as an earlier field: its grid and mask are reused.")
                 else:
                     grids[key] = self.grid_and_mask(parameters, context, samples.xy, document.crs_wkt,
                                                     document.units, feedback, n_bands=len(RASTER_KINDS))
-                self.krige_surface([document], samples.xy, samples.values, *grids[key], run.scale, run.neighbourhood,
+                self.krige_surface([document], samples.xy, samples.values, *grids[key], scale, run.neighbourhood,
                                    [(field, run.raster_paths(field))], feedback,
                                    progress_callback(feedback, start + FIT_SHARE * share, start + share),
                                    samples.covariates, self.cell_covariates(parameters, context, document,
-                                                                            grids[key][0]))
+                                                                            grids[key][0]), samples.error_variance)
                 document.save(run.model_path(field))
             except Cancelled as exc:
                 raise QgsProcessingException(self.tr(f"Cancelled at field {field}: no file was written.")) from exc
@@ -272,7 +290,9 @@ class PredictManyAlgorithm(SurfaceAlgorithm):
             documents = [document for document, _ in fitted]
             grid, inside = self.grid_and_mask(parameters, context, first.xy, working.wkt, working.units, feedback,
                                               n_bands=len(RASTER_KINDS))
-            self.krige_surface(documents, first.xy, values, grid, inside, run.scale, run.neighbourhood,
+            scale = replace(run.scale, measurement_variance=self.added_variance(parameters, context, documents[0],
+                                                                                first, feedback))
+            self.krige_surface(documents, first.xy, values, grid, inside, scale, run.neighbourhood,
                                [(field, run.raster_paths(field)) for field in fields], feedback,
                                progress_callback(feedback, 100 * FIT_SHARE, 100), first.covariates,
                                self.cell_covariates(parameters, context, documents[0], grid))

@@ -41,8 +41,11 @@ from .field_types import field_type
 from .help_text import (
     BACKTRANSFORM_HELP,
     COVARIATE_HELP,
+    ERROR_VARIANCE_HELP,
     MODEL_FILE_HELP,
+    NUGGET_HELP,
     POINT_NEIGHBOURHOOD_HELP,
+    PREDICT_TARGET_HELP,
     TARGET_CRS_HELP,
     compose_help,
 )
@@ -83,6 +86,9 @@ class PredictPointsAlgorithm(FieldcastAlgorithm):
           "exceeding it."),
          BACKTRANSFORM_HELP,
          *POINT_NEIGHBOURHOOD_HELP,
+         NUGGET_HELP,
+         ERROR_VARIANCE_HELP,
+         PREDICT_TARGET_HELP,
          TARGET_CRS_HELP],
         [("Predicted points", "A copy of the target layer (its geometry, CRS and every field) with, for the "
           "value field FIELD: FIELD_est, the estimate at the point (point support; for a log model back-transformed "
@@ -107,6 +113,8 @@ class PredictPointsAlgorithm(FieldcastAlgorithm):
         self.add_threshold_parameter()
         self.add_backtransform_parameter()
         self.add_neighbourhood_parameters("point")
+        self.add_measurement_parameters()
+        self.add_prediction_target_parameter()
         self.add_target_crs_parameter()
         self.addParameter(QgsProcessingParameterFeatureSink(
             self.OUTPUT, self.tr("Predicted points"), QgsProcessing.TypeVectorPoint))
@@ -145,10 +153,12 @@ class PredictPointsAlgorithm(FieldcastAlgorithm):
         sources = self.covariate_sources(parameters, context)
         predictor, lines = choose_predictor(samples.xy, samples.values, document.covariance, document.mean,
                                             self.neighbourhood(parameters, context), units=document.units,
-                                            per="target point", covariates=samples.covariates)
+                                            per="target point", covariates=samples.covariates,
+                                            error_variance=samples.error_variance)
         push_log(feedback, lines)
         scale = SurfaceScale(document.transform, self.choice(parameters, self.BACKTRANSFORM, context),
-                             threshold=threshold)
+                             threshold=threshold, measurement_variance=self.added_variance(
+                                 parameters, context, document, samples, feedback))
         check = ExtrapolationCheck.for_samples(samples.xy, samples.values, document.covariance, document.mean,
                                                document.transform, [samples.field], covariates=samples.covariates)
         fields = QgsFields(source.fields())

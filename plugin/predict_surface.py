@@ -8,11 +8,14 @@ from .algorithm_base import advanced, progress_callback
 from .help_text import (
     BACKTRANSFORM_HELP,
     COVARIATE_HELP,
+    ERROR_VARIANCE_HELP,
     GRID_HELP,
     INTERVAL_HELP,
     MAP_AREA_HELP,
     MODEL_FILE_HELP,
     NEIGHBOURHOOD_HELP,
+    NUGGET_HELP,
+    PREDICT_TARGET_HELP,
     RASTER_TARGET_CRS_HELP,
     THRESHOLD_HELP,
     compose_help,
@@ -53,6 +56,9 @@ class PredictSurfaceAlgorithm(SurfaceAlgorithm):
           "is smaller, because small-scale variation averages out. For a log model the average is taken in the "
           "log scale. Cell support uses all samples (NEIGHBOURS 0)."),
          *NEIGHBOURHOOD_HELP,
+         NUGGET_HELP,
+         ERROR_VARIANCE_HELP,
+         PREDICT_TARGET_HELP,
          THRESHOLD_HELP,
          INTERVAL_HELP,
          RASTER_TARGET_CRS_HELP],
@@ -97,6 +103,8 @@ class PredictSurfaceAlgorithm(SurfaceAlgorithm):
         self.add_choice(self.SUPPORT, self.tr("Support (point = cell centre, cell = cell average)"), SUPPORTS,
                         "point", expert=True)
         self.add_neighbourhood_parameters()
+        self.add_measurement_parameters()
+        self.add_prediction_target_parameter()
         self.add_threshold_parameter()
         self.addParameter(advanced(QgsProcessingParameterNumber(
             self.INTERVAL_PROBABILITY, self.tr("Interval probability (for the lower and upper quantiles)"),
@@ -127,11 +135,12 @@ class PredictSurfaceAlgorithm(SurfaceAlgorithm):
                                           feedback, n_bands=sum(1 for path in paths.values() if path))
         support = self.choice(parameters, self.SUPPORT, context)
         scale = SurfaceScale(document.transform, self.choice(parameters, self.BACKTRANSFORM, context), support,
-                             threshold, interval)
+                             threshold, interval, self.added_variance(parameters, context, document, samples,
+                                                                      feedback, support))
         self.krige_surface([document], samples.xy, samples.values, grid, inside, scale,
                            self.neighbourhood(parameters, context), [(samples.field, paths)], feedback,
                            progress_callback(feedback, 30, 100), samples.covariates,
-                           self.cell_covariates(parameters, context, document, grid))
+                           self.cell_covariates(parameters, context, document, grid), samples.error_variance)
         percents = {"lower": 50 * (1 - interval), "upper": 50 * (1 + interval)}
         for quantity, path in paths.items():
             style_on_load(context, path, samples.field, quantity, threshold=threshold, percent=percents.get(quantity))

@@ -48,6 +48,11 @@ class LayerSamples:
     skipped : dict of str to int
         Features left out, by reason (only reasons that occurred), e.g.
         ``{"value is NULL or not a number": 2}``.
+    error_variance : ndarray (n,) or None
+        Measurement-error variance of each sample from ERROR_VARIANCE_FIELD (modelling units squared), None
+        without that field.
+    error_field : str
+        Name of that field ("" without it).
     """
 
     xy: np.ndarray
@@ -56,6 +61,8 @@ class LayerSamples:
     working: WorkingCrs
     field: str
     skipped: dict[str, int]
+    error_variance: np.ndarray | None = None
+    error_field: str = ""
 
 
 @dataclass(frozen=True)
@@ -65,7 +72,8 @@ class ModelSamples:
     ``xy`` is in the working CRS, ``values`` in the modelling scale; ``fids``
     belong to the first feature of each merged group; ``field`` names the attribute. ``merged_points``
     samples were averaged into ``merged_groups`` shared locations. ``covariates`` are the mean's covariate
-    columns at the samples (None without covariates).
+    columns at the samples (None without covariates); ``error_variance`` each sample's measurement-error
+    variance (merged samples: the combined one) from the field ``error_field``, None without one.
     """
 
     xy: np.ndarray
@@ -75,16 +83,19 @@ class ModelSamples:
     merged_groups: int
     merged_points: int
     covariates: np.ndarray | None = None
+    error_variance: np.ndarray | None = None
+    error_field: str = ""
 
     def with_covariates(self, columns: np.ndarray, kept: np.ndarray) -> ModelSamples:
         """The samples ``kept`` (where every covariate has a value) with their covariate columns, checked again."""
         check_samples(self.xy[kept], self.values[kept])
         return ModelSamples(self.xy[kept], self.values[kept], self.fids[kept], self.field, self.merged_groups,
-                            self.merged_points, columns)
+                            self.merged_points, columns,
+                            None if self.error_variance is None else self.error_variance[kept], self.error_field)
 
     def engine_samples(self) -> Samples:
         """The samples as the engine's :class:`Samples` (ids are the feature ids), e.g. for the fit report."""
-        return Samples(self.xy, self.values, self.fids, self.merged_groups, self.merged_points)
+        return Samples(self.xy, self.values, self.fids, self.merged_groups, self.merged_points, self.error_variance)
 
 
 def crs_wkt(crs: QgsCoordinateReferenceSystem) -> str:
@@ -116,8 +127,33 @@ def feature_point(geometry, fid: int, layer: str = "the sample layer") -> tuple[
     return point.x(), point.y()
 
 
+def numeric_field_index(source: QgsProcessingFeatureSource, field: str, parameter: str) -> int:
+    """The index of a numeric attribute of ``source``; FieldcastError naming ``parameter`` when it is missing or
+    not numeric."""
+    index = source.fields().lookupField(field)
+    if index < 0:
+        raise FieldcastError(f"The sample layer has no field {field!r} ({parameter}); choose one of its numeric "
+                             "fields.")
+    if not source.fields().at(index).isNumeric():
+        kind = source.fields().at(index).typeName()
+        raise FieldcastError(f"Field {field!r} ({parameter}) holds {kind} values, not numbers. Choose a numeric "
+                             "field, or make one with the Field calculator (e.g. to_real(\"field\")).")
+    return index
+
+
+def refuse_bad_error_variances(variances: list[float], fids: list[int], field: str) -> None:
+    """FieldcastError naming the features (up to five) whose error variance is empty, not a number or negative."""
+    bad = [fid for fid, variance in zip(fids, variances) if not (math.isfinite(variance) and variance >= 0)]
+    if bad:
+        shown = ", ".join(str(fid) for fid in bad[:5]) + (f" and {len(bad) - 5} more" if len(bad) > 5 else "")
+        raise FieldcastError(f"{len(bad)} sample(s) have an empty, non-numeric or negative error variance in "
+                             f"{field!r} (ERROR_VARIANCE_FIELD; feature id(s) {shown}). Give every sample with a "
+                             "value a variance of 0 or more (modelling units squared), or leave "
+                             "ERROR_VARIANCE_FIELD empty.")
+
+
 def read_layer_samples(source: QgsProcessingFeatureSource, field: str, target_crs: QgsCoordinateReferenceSystem,
-                       feedback, template: RasterTemplate | None = None) -> LayerSamples:
+                       feedback, template: RasterTemplate | None = None, error_field: str = "") -> LayerSamples:
     """Read point locations and one numeric attribute from a layer.
 
     Parameters
@@ -132,25 +168,25 @@ def read_layer_samples(source: QgsProcessingFeatureSource, field: str, target_cr
         Receives the log lines.
     template : RasterTemplate, optional
         A template raster: its CRS is then the working CRS (``target_crs`` must be invalid or the same).
+    error_field : str
+        Optional numeric attribute of per-sample measurement-error variances (ERROR_VARIANCE_FIELD, modelling
+        units squared); every sample with a value must have one of 0 or more.
     """
     layer_crs = source.sourceCrs()
     if not layer_crs.isValid():
         raise undefined_crs_error(source.sourceName())
-    index = source.fields().lookupField(field)
-    if index < 0:
-        raise FieldcastError(f"The sample layer has no field {field!r}; choose one of its numeric fields.")
-    if not source.fields().at(index).isNumeric():
-        kind = source.fields().at(index).typeName()
-        raise FieldcastError(f"Field {field!r} holds {kind} values, not numbers. Choose a numeric field, or "
-                             "make one with the Field calculator (e.g. to_real(\"field\")).")
+    index = numeric_field_index(source, field, "FIELD")
+    error_index = numeric_field_index(source, error_field, "ERROR_VARIANCE_FIELD") if error_field else None
     if source.featureCount() == 0:
         raise FieldcastError("The sample layer is empty. Choose a point layer that holds samples.")
-    request = QgsFeatureRequest().setSubsetOfAttributes([index])
-    read_fids = []
+    request = QgsFeatureRequest().setSubsetOfAttributes([index] if error_index is None else [index, error_index])
+    read_fids, read_variances = [], []
 
     def readings():
         for feature in source.getFeatures(request):
             read_fids.append(feature.id())
+            if error_index is not None:
+                read_variances.append(_number(feature.attributes()[error_index]))
             yield feature_point(feature.geometry(), feature.id()), _number(feature.attributes()[index])
 
     found = FeatureReadings.sort(readings())
@@ -171,7 +207,12 @@ def read_layer_samples(source: QgsProcessingFeatureSource, field: str, target_cr
     for warning in working.warnings:
         feedback.pushWarning(warning)
     xy = layer_xy if same_crs(layer_wkt, working.wkt) else transform_points(layer_xy, layer_wkt, working.wkt)
-    return LayerSamples(xy, found.values, fids, working, field, found.skipped)
+    error_variance = None
+    if error_index is not None:
+        variances = [read_variances[position] for position in found.kept]
+        refuse_bad_error_variances(variances, fids, error_field)
+        error_variance = np.array(variances, dtype=float)
+    return LayerSamples(xy, found.values, fids, working, field, found.skipped, error_variance, error_field)
 
 
 def prepare_samples(samples: LayerSamples, transform: Transform, feedback) -> ModelSamples:
@@ -183,11 +224,14 @@ def prepare_samples(samples: LayerSamples, transform: Transform, feedback) -> Mo
         For values the transform cannot take, fewer than three samples or a constant attribute.
     """
     values = transform.forward(samples.values)
-    merged = merge_coincident(samples.xy, values, ids=np.arange(len(values)))
+    merged = merge_coincident(samples.xy, values, ids=np.arange(len(values)), error_variance=samples.error_variance)
     if merged.merged_groups:
+        weights = ("inverse-variance weighted by their error variances" if samples.error_variance is not None
+                   else "in the modelling scale")
         feedback.pushInfo(f"Averaged {merged.merged_points} samples at {merged.merged_groups} shared locations "
-                          f"(in the modelling scale); {len(merged.values)} samples remain.")
+                          f"({weights}); {len(merged.values)} samples remain.")
     check_samples(merged.xy, merged.values)
-    feedback.pushInfo(f"Using {len(merged.values)} samples of {samples.field}.")
+    feedback.pushInfo(f"Using {len(merged.values)} samples of {samples.field}"
+                      + (f", with the error variances of {samples.error_field}." if samples.error_field else "."))
     return ModelSamples(merged.xy, merged.values, samples.fids[merged.ids], samples.field, merged.merged_groups,
-                        merged.merged_points)
+                        merged.merged_points, error_variance=merged.error_variance, error_field=samples.error_field)

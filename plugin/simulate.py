@@ -36,7 +36,16 @@ from ..algorithms import (
 )
 from .algorithm_base import advanced, progress_callback, push_log
 from .field_types import field_type
-from .help_text import COVARIATE_HELP, GRID_HELP, MODEL_FILE_HELP, RASTER_TARGET_CRS_HELP, THRESHOLD_HELP, compose_help
+from .help_text import (
+    COVARIATE_HELP,
+    ERROR_VARIANCE_HELP,
+    GRID_HELP,
+    MODEL_FILE_HELP,
+    NUGGET_HELP,
+    RASTER_TARGET_CRS_HELP,
+    THRESHOLD_HELP,
+    compose_help,
+)
 from .layer_style import style_on_load
 from .raster_algorithm import RasterAlgorithm
 from .sinks import checked_sink
@@ -94,6 +103,8 @@ class SimulateAlgorithm(RasterAlgorithm):
           "axis; the search ellipse follows the model's anisotropy) are left out. Cells with too few samples in "
           "range are nodata in every realisation and left out of the summaries, areas and means; the log says "
           "how many. Empty: no limit."),
+         NUGGET_HELP,
+         ERROR_VARIANCE_HELP,
          THRESHOLD_HELP,
          RASTER_TARGET_CRS_HELP],
         [("Realisations", "Multiband Float32 GeoTIFF, one band per realisation, in attribute units (a log model "
@@ -123,6 +134,7 @@ class SimulateAlgorithm(RasterAlgorithm):
             self.SEED, self.tr("Random seed"), type=QgsProcessingParameterNumber.Integer, defaultValue=1,
             minValue=0)))
         self.add_neighbourhood_parameters(per="cell")
+        self.add_measurement_parameters()
         self.add_threshold_parameter()
         self.add_target_crs_parameter()
         self.addParameter(QgsProcessingParameterRasterDestination(self.OUTPUT, self.tr("Realisations")))
@@ -187,6 +199,7 @@ class SimulateAlgorithm(RasterAlgorithm):
                                       n_realisations=count, seed=seed, transform=document.transform,
                                       covariates=samples.covariates, grid_covariates=grid_covariates,
                                       neighbours=neighbours, search_radius=search_radius,
+                                      error_variance=samples.error_variance,
                                       progress=progress_callback(feedback, *SIMULATION_PERCENT),
                                       should_stop=feedback.isCanceled)
         self.log_method(result, feedback)

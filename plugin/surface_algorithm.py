@@ -144,7 +144,8 @@ class SurfaceAlgorithm(RasterAlgorithm):
                       inside: np.ndarray | None, scale: SurfaceScale, neighbourhood: Neighbourhood,
                       outputs: Sequence[tuple[str, Mapping[str, str]]], feedback,
                       progress: Callable[[float], None], sample_covariates: np.ndarray | None = None,
-                      cell_covariates: Callable[[int, int], np.ndarray] | None = None) -> None:
+                      cell_covariates: Callable[[int, int], np.ndarray] | None = None,
+                      error_variance: np.ndarray | None = None) -> None:
         """Krige every cell of ``grid`` and write the rasters of ``outputs`` (see :func:`.surface.write_surfaces`).
 
         One field: ``values`` (n,), one document and one ``(field name, paths)`` output. Several fields
@@ -153,7 +154,7 @@ class SurfaceAlgorithm(RasterAlgorithm):
         A ``"distance"`` path of the first output receives the distance to the nearest sample. The
         extrapolation counts (:class:`ExtrapolationCheck`) go to the log. With covariates, ``sample_covariates``
         are their design columns at the samples and ``cell_covariates(row_start, row_stop)`` at the cells of
-        those rows.
+        those rows; ``error_variance`` the samples' measurement-error variances (ERROR_VARIANCE_FIELD).
 
         Raises
         ------
@@ -162,7 +163,8 @@ class SurfaceAlgorithm(RasterAlgorithm):
         """
         document = documents[0]
         predictor, lines = choose_predictor(xy, values, document.covariance, document.mean, neighbourhood,
-                                            support=scale.support, units=document.units, covariates=sample_covariates)
+                                            support=scale.support, units=document.units, covariates=sample_covariates,
+                                            error_variance=error_variance)
         push_log(feedback, lines)
         settings = {"fieldcast_support": scale.support}
         if document.transform.kind != "none":  # a back-transform applies to a transformed model only
@@ -174,6 +176,8 @@ class SurfaceAlgorithm(RasterAlgorithm):
             log_gap(predictor, xy, values, grid_targets(grid, inside), feedback)
         if scale.threshold is not None:
             settings["fieldcast_threshold"] = scale.threshold
+        if scale.measurement_variance is not None:
+            settings["fieldcast_measurement_variance"] = scale.measurement_variance
         if any(paths.get("lower") or paths.get("upper") for _, paths in outputs):
             settings["fieldcast_interval_probability"] = scale.interval
         rasters = [FieldRasters(field, paths, {"fieldcast_model": document.to_dict(), **settings},

@@ -25,6 +25,7 @@ from .options import (
     FitOptions,
     FitResult,
     check_fit_choices,
+    checked_error_variance,
     information_criteria,
     mean_model_for,
     with_jitter_in_nugget,
@@ -73,9 +74,13 @@ def _wls_candidates(xy: np.ndarray, values: np.ndarray, mean: MeanModel, covaria
 
 
 def fit_exact(xy: np.ndarray, values: np.ndarray, options: FitOptions, *, covariates: np.ndarray | None = None,
-              progress: Callable[[float], None] | None = None,
-              should_stop: Callable[[], bool] | None = None) -> FitResult:
-    """:func:`.fitting.fit_model` with the exact likelihood whatever the number of samples."""
+              progress: Callable[[float], None] | None = None, should_stop: Callable[[], bool] | None = None,
+              error_variance: np.ndarray | None = None) -> FitResult:
+    """:func:`.fitting.fit_model` with the exact likelihood whatever the number of samples.
+
+    ``options.nugget`` holds the nugget fixed; ``error_variance`` (n,) adds per-sample measurement-error
+    variances (value units squared) to the diagonal (see :func:`.fitting.fit_with`).
+    """
     kernel, anisotropy, mean, method, nested, smoothness, known_mean = (
         options.kernel, options.anisotropy, options.mean, options.method, options.nested, options.smoothness,
         options.known_mean)
@@ -83,10 +88,11 @@ def fit_exact(xy: np.ndarray, values: np.ndarray, options: FitOptions, *, covari
     check_samples(xy, values)
     xy = np.asarray(xy, dtype=float)
     values = np.asarray(values, dtype=float)
+    error_variance = checked_error_variance(error_variance, len(values), method)
     mean_model = mean_model_for(mean, xy, covariates, known_mean)
     y = values - mean_model.known_mean(len(values))
     problem = SearchProblem.standardise(xy, y, mean_model.design(xy, covariates), "ml" if method == "ml" else "reml",
-                                        should_stop, options.max_iterations)
+                                        should_stop, options.max_iterations, options.nugget, error_variance)
     families = AUTO_FAMILIES if kernel == "auto" else (kernel,)
     settings = (False, True) if anisotropy and kernel == "auto" else (anisotropy,)
     if method == "wls":
@@ -98,11 +104,13 @@ def fit_exact(xy: np.ndarray, values: np.ndarray, options: FitOptions, *, covari
         scored = [(_candidate(problem, fit, options.units), fit.layout) for family in families
                   for fit in fit_family(problem, family, smoothness, settings, nested, steps)]
     chosen, layout = min(scored, key=lambda pair: pair[0].aic)
-    evaluation = evaluate_model(xy, values, chosen.covariance, mean_model, problem.method, covariates)
+    evaluation = evaluate_model(xy, values, chosen.covariance, mean_model, problem.method, covariates, error_variance)
     messages = data_warnings(xy, chosen.covariance, options.units) + list(chosen.warnings)
     covariance = with_jitter_in_nugget(chosen.covariance, evaluation.jitter, messages)
     _, _, k = information_criteria(problem, chosen.log_likelihood, layout)
     if progress is not None:
         progress(1.0)
     return FitResult(covariance, mean_model, evaluation.coefficients, method, chosen.log_likelihood,
-                     chosen.aic, chosen.bic, len(values), k, messages, candidates=[pair[0] for pair in scored])
+                     chosen.aic, chosen.bic, len(values), k, messages, candidates=[pair[0] for pair in scored],
+                     fixed_nugget=options.nugget,
+                     error_variance_field=None if error_variance is None else options.error_variance_field)

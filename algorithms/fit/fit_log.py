@@ -50,8 +50,11 @@ def fit_log_lines(result: FitResult, units: str) -> list[str]:
     units : str
         Distance units of the working CRS, e.g. ``"metres"``.
     """
-    lines = [f"Chosen model: {model_words(result.covariance, units)} (variances in modelling units squared); "
-             f"{result.mean.kind} mean; {result.method.upper()} fit, AIC {result.aic:.2f}."]
+    held = " (held fixed)" if result.fixed_nugget is not None else ""
+    errors = (f"; per-sample error variances of {result.error_variance_field} beside the nugget"
+              if result.error_variance_field else "")
+    lines = [f"Chosen model: {model_words(result.covariance, units)}{held} (variances in modelling units squared)"
+             f"{errors}; {result.mean.kind} mean; {result.method.upper()} fit, AIC {result.aic:.2f}."]
     if result.candidates:
         lowest = min(candidate.aic for candidate in result.candidates)
         chosen = min(result.candidates, key=lambda candidate: candidate.aic)

@@ -63,6 +63,8 @@ def fit_model(
     progress: Callable[[float], None] | None = None,
     should_stop: Callable[[], bool] | None = None,
     max_iterations: int = MAX_ITERATIONS,
+    nugget: float | None = None,
+    error_variance: np.ndarray | None = None,
 ) -> FitResult:
     """Fit a covariance model (and the GLS mean coefficients) to samples.
 
@@ -95,26 +97,36 @@ def fit_model(
     max_iterations : int
         L-BFGS-B iteration limit of each optimiser run; a chosen model whose run stopped at it (or
         for another reason before convergence) carries a warning saying so.
+    nugget : float, optional
+        Hold the nugget at this value (value units squared; in the log scale for log-transformed values),
+        e.g. the variance of laboratory duplicates; None fits it. Likelihood methods only.
+    error_variance : ndarray of shape (n,), optional
+        Each sample's own measurement-error variance (value units squared), added to the diagonal of the
+        covariance beside the nugget (data, not model: it is not stored in the result). Likelihood methods only.
 
     Returns
     -------
     FitResult
         Ranges in CRS units, variances in value units squared.
     """
-    options = FitOptions(kernel, anisotropy, mean, method, nested, smoothness, known_mean, max_iterations)
-    return fit_with(xy, values, options, covariates=covariates, progress=progress, should_stop=should_stop)
+    options = FitOptions(kernel, anisotropy, mean, method, nested, smoothness, known_mean, max_iterations,
+                         nugget=nugget)
+    return fit_with(xy, values, options, covariates=covariates, progress=progress, should_stop=should_stop,
+                    error_variance=error_variance)
 
 
 def fit_with(xy: np.ndarray, values: np.ndarray, options: FitOptions, *, covariates: np.ndarray | None = None,
-             progress: Callable[[float], None] | None = None,
-             should_stop: Callable[[], bool] | None = None) -> FitResult:
+             progress: Callable[[float], None] | None = None, should_stop: Callable[[], bool] | None = None,
+             error_variance: np.ndarray | None = None) -> FitResult:
     """:func:`fit_model` with its settings in one :class:`.options.FitOptions` object.
 
-    ``covariates``, ``progress`` and ``should_stop`` are as for :func:`fit_model`. Data above :data:`VECCHIA_THRESHOLD`
-    samples go to the Vecchia fit (except for WLS); smaller ones to the exact fit, on one BLAS thread up to
-    :data:`SINGLE_THREAD_LIMIT` samples.
+    ``covariates``, ``progress``, ``should_stop`` and ``error_variance`` are as for :func:`fit_model`. Data above
+    :data:`VECCHIA_THRESHOLD` samples go to the Vecchia fit (except for WLS); smaller ones to the exact fit, on one
+    BLAS thread up to :data:`SINGLE_THREAD_LIMIT` samples.
     """
     if options.method != "wls" and len(values) > VECCHIA_THRESHOLD:
-        return fit_vecchia(xy, values, options, covariates=covariates, progress=progress, should_stop=should_stop)
+        return fit_vecchia(xy, values, options, covariates=covariates, progress=progress, should_stop=should_stop,
+                           error_variance=error_variance)
     with single_blas_thread(len(values) <= SINGLE_THREAD_LIMIT):
-        return fit_exact(xy, values, options, covariates=covariates, progress=progress, should_stop=should_stop)
+        return fit_exact(xy, values, options, covariates=covariates, progress=progress, should_stop=should_stop,
+                         error_variance=error_variance)

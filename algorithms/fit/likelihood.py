@@ -2,7 +2,10 @@
 
 Observations ``y`` (n values) have mean ``F beta`` (``F``: n x p design
 matrix from :meth:`.mean.MeanModel.design`) and covariance ``K`` (the
-structures plus the nugget on the diagonal). With
+structures plus the nugget on the diagonal, plus per-sample measurement-error
+variances ``diag(e)`` when the data carry them: a fixed, known part of ``K``
+whose derivative by every parameter is 0, so the gradients below hold as they
+are). With
 ``beta_GLS = (F^T K^-1 F)^-1 F^T K^-1 y`` and ``r = y - F beta_GLS``:
 
 ML (beta profiled out; a known mean has p = 0 and ``r = y - known_value``)::
@@ -50,7 +53,7 @@ from scipy import linalg
 from scipy.linalg import blas, lapack
 
 from ..errors import Cancelled, FieldcastError
-from ..io.samples import check_samples
+from ..io.samples import check_error_variance, check_samples
 from ..linalg.condition_policy import FIT_CONDITION_ADVICE, checked_cholesky, jittered_cholesky
 from ..model.covariance import CovarianceModel
 from ..model.mean import MeanModel
@@ -285,7 +288,8 @@ class ModelEvaluation:
 
 
 def evaluate_model(xy: np.ndarray, values: np.ndarray, covariance: CovarianceModel, mean: MeanModel,
-                   method: str = "reml", covariates: np.ndarray | None = None) -> ModelEvaluation:
+                   method: str = "reml", covariates: np.ndarray | None = None,
+                   error_variance: np.ndarray | None = None) -> ModelEvaluation:
     """Log-likelihood and GLS coefficients (for the columns of ``mean.design``) of a model.
 
     Arguments as for :func:`log_likelihood`, which is this function's log-likelihood.
@@ -295,8 +299,11 @@ def evaluate_model(xy: np.ndarray, values: np.ndarray, covariance: CovarianceMod
     check_samples(xy, values)
     xy = np.asarray(xy, dtype=float)
     values = np.asarray(values, dtype=float)
+    if error_variance is not None:
+        error_variance = check_error_variance(error_variance, len(values))
     basis = MeanBasis.from_design(mean.design(xy, covariates))
-    terms = likelihood_terms(covariance.data_covariance(xy), values - mean.known_mean(len(values)), basis, method)
+    terms = likelihood_terms(covariance.data_covariance(xy, error_variance), values - mean.known_mean(len(values)),
+                             basis, method)
     return ModelEvaluation(-0.5 * terms.minus_two_log_likelihood, basis.coefficients(terms.basis_coefficients),
                            terms.jitter)
 
@@ -308,6 +315,7 @@ def log_likelihood(
     mean: MeanModel,
     method: str = "reml",
     covariates: np.ndarray | None = None,
+    error_variance: np.ndarray | None = None,
 ) -> float:
     """Exact log-likelihood ``l`` (ML) or restricted log-likelihood ``l_R`` (REML) of a model.
 
@@ -326,6 +334,9 @@ def log_likelihood(
         See the module docstring for the formulas and the constant convention.
     covariates : ndarray of shape (n, k), optional
         External-drift columns named by ``mean.covariate_names``.
+    error_variance : ndarray of shape (n,), optional
+        Per-sample measurement-error variances (value units squared), added to the diagonal of ``K`` beside the
+        nugget.
 
     Returns
     -------
@@ -333,7 +344,7 @@ def log_likelihood(
         The log-likelihood (natural log, dimensionless). A covariance matrix
         that needed a diagonal jitter issues a ``RuntimeWarning``.
     """
-    evaluation = evaluate_model(xy, values, covariance, mean, method, covariates)
+    evaluation = evaluate_model(xy, values, covariance, mean, method, covariates, error_variance)
     if evaluation.jitter:
         warnings.warn(jitter_message(evaluation.jitter), RuntimeWarning, stacklevel=2)
     return evaluation.log_likelihood
@@ -357,10 +368,13 @@ class PairedObjective:
     layout : ParameterLayout
     should_stop : callable, optional
         Checked at every evaluation; True raises :class:`.errors.Cancelled`.
+    error_variance : ndarray of shape (n,), optional
+        Per-sample measurement-error variances (the units of ``y``, squared), a fixed part of the diagonal of
+        ``K`` beside the nugget; their derivative by every parameter is 0.
     """
 
     def __init__(self, xy: np.ndarray, y: np.ndarray, basis: MeanBasis, method: str, layout: ParameterLayout,
-                 should_stop: Callable[[], bool] | None = None) -> None:
+                 should_stop: Callable[[], bool] | None = None, error_variance: np.ndarray | None = None) -> None:
         n = len(y)
         rows, columns = np.tril_indices(n, -1)
         self.rows, self.columns = rows, columns
@@ -372,6 +386,7 @@ class PairedObjective:
         self.method = method
         self.layout = layout
         self.should_stop = should_stop
+        self.error_variance = error_variance
         self.evaluations = 0
         self.jitter = 0.0
 
@@ -381,11 +396,12 @@ class PairedObjective:
             raise Cancelled("Fitting was cancelled.")
 
     def _matrix(self, pair_covariance: np.ndarray, diagonal: float) -> np.ndarray:
-        """Data covariance with the lower triangle and diagonal filled (all the Cholesky factor reads)."""
+        """Data covariance with the lower triangle and diagonal (``diagonal`` plus any error variances) filled
+        (all the Cholesky factor reads)."""
         n = len(self.y)
         matrix = np.zeros((n, n))
         np.put(matrix, self.pairs, pair_covariance)
-        matrix[np.diag_indices(n)] = diagonal
+        matrix[np.diag_indices(n)] = diagonal if self.error_variance is None else diagonal + self.error_variance
         return matrix
 
     def gradient(self, model: CovarianceModel, derivatives: list[tuple[int, np.ndarray, float]],
@@ -394,7 +410,8 @@ class PairedObjective:
         gradient = np.zeros(self.layout.n_parameters)
         for index, pair_derivative, diagonal_derivative in derivatives:
             gradient[index] += terms.gradient_term(pair_derivative, diagonal_derivative)
-        gradient[self.layout.index("log_nugget")] = model.nugget * terms.diagonal_weight  # dK/dlog(nugget) = nugget I
+        if self.layout.nugget is None:  # dK/dlog(nugget) = nugget I
+            gradient[self.layout.index("log_nugget")] = model.nugget * terms.diagonal_weight
         return gradient
 
 
@@ -405,8 +422,8 @@ class LikelihoodObjective(PairedObjective):
     """
 
     def __init__(self, xy: np.ndarray, y: np.ndarray, basis: MeanBasis, method: str, layout: ParameterLayout,
-                 should_stop: Callable[[], bool] | None = None) -> None:
-        super().__init__(xy, y, basis, method, layout, should_stop)
+                 should_stop: Callable[[], bool] | None = None, error_variance: np.ndarray | None = None) -> None:
+        super().__init__(xy, y, basis, method, layout, should_stop, error_variance)
         self._last: tuple[bytes, tuple] | None = None
 
     def value(self, theta: np.ndarray) -> float:
@@ -465,7 +482,6 @@ class LikelihoodObjective(PairedObjective):
                                  self.pairs)
         self.jitter = terms.jitter
         gradient = self.gradient(model, derivatives, terms)
-        nugget_index = self.layout.index("log_nugget")
         if not with_information:
             return terms.minus_two_log_likelihood, gradient, None
         a = terms.weights
@@ -476,6 +492,7 @@ class LikelihoodObjective(PairedObjective):
             products[:, index] += (np.bincount(self.rows, pair_derivative * a_columns, n)
                                    + np.bincount(self.columns, pair_derivative * a_rows, n)
                                    + diagonal_derivative * a)
-        products[:, nugget_index] = model.nugget * a
+        if self.layout.nugget is None:
+            products[:, self.layout.index("log_nugget")] = model.nugget * a
         weighted = blas.dsymm(1.0, terms.precision, products, side=0, lower=1)
         return terms.minus_two_log_likelihood, gradient, products.T @ weighted

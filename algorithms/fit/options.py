@@ -13,8 +13,9 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from ..errors import FieldcastError
+from ..io.samples import check_error_variance
 from ..model.correlation import SMOOTHNESS_BOUNDS
-from ..model.covariance import CovarianceModel
+from ..model.covariance import CovarianceModel, check_variance
 from ..model.mean import MEAN_KINDS, MeanModel
 from ..model.parameters import ParameterLayout
 from .likelihood import jitter_message
@@ -84,6 +85,11 @@ class FitResult:
         "exact", or "vecchia (m neighbours)" above :data:`.fitting.VECCHIA_THRESHOLD` samples.
     candidates : list of CandidateFit
         Every model compared, the chosen one included.
+    fixed_nugget : float or None
+        The nugget the fit held (:attr:`FitOptions.nugget`), None when it was fitted.
+    error_variance_field : str or None
+        Name of the per-sample measurement-error variances the fit used (:attr:`FitOptions.error_variance_field`),
+        None without them.
     """
 
     covariance: CovarianceModel
@@ -98,10 +104,16 @@ class FitResult:
     warnings: list[str]
     likelihood: str = "exact"
     candidates: list[CandidateFit] = field(default_factory=list)
+    fixed_nugget: float | None = None
+    error_variance_field: str | None = None
 
     def summary(self) -> dict:
-        """JSON-ready facts of the fit, for ``ModelDocument.fit``."""
-        return {
+        """JSON-ready facts of the fit, for ``ModelDocument.fit`` (``fixed_nugget`` and ``error_variance_field``
+        only when set)."""
+        measurement = {key: value for key, value in (("fixed_nugget", self.fixed_nugget),
+                                                     ("error_variance_field", self.error_variance_field))
+                       if value is not None}
+        return {**measurement,
             "method": self.method,
             "likelihood": self.likelihood,
             "likelihood_method": "ml" if self.method == "ml" else "reml",
@@ -176,8 +188,19 @@ class FitOptions:
     units: str = "coordinate units"
     """The coordinates' unit in the words of the fit's warnings (the working CRS's, e.g. ``"metre"``); the
     default for callers that do not know it."""
+    nugget: float | None = None
+    """The nugget held fixed (modelling units squared: log units squared for a log model), e.g. the variance of
+    laboratory duplicates; None fits it. Likelihood fits only."""
+    error_variance_field: str = "error variances"
+    """The name the per-sample measurement-error variances (the fits' ``error_variance`` argument) go by in the
+    model file and the log (the plugin gives the field's)."""
 
     def __post_init__(self) -> None:
+        if self.nugget is not None:
+            check_variance("fixed nugget (NUGGET)", self.nugget)
+            if self.method == "wls":
+                raise FieldcastError("A fixed NUGGET is held by the likelihood fits only; choose METHOD reml or ml, "
+                                     "or leave NUGGET empty.")
         limit = self.max_iterations
         if isinstance(limit, bool) or not isinstance(limit, (int, np.integer)) or limit < 1:
             raise FieldcastError(f"The optimiser's iteration limit must be a whole number of 1 or more; got "
@@ -186,8 +209,25 @@ class FitOptions:
     def describe(self) -> str:
         """The main settings in words, for the log: ``kernel auto, anisotropy on, constant trend, REML``."""
         mean = self.mean if isinstance(self.mean, str) else self.mean.kind
+        nugget = "" if self.nugget is None else f", nugget fixed at {self.nugget:g}"
         return (f"kernel {self.kernel}, anisotropy {'on' if self.anisotropy else 'off'}, {mean} trend, "
-                f"{self.method.upper()}")
+                f"{self.method.upper()}{nugget}")
+
+
+def checked_error_variance(error_variance: np.ndarray | None, n: int, method: str) -> np.ndarray | None:
+    """Per-sample error variances for a likelihood fit, checked (:func:`..io.samples.check_error_variance`).
+
+    Raises
+    ------
+    FieldcastError
+        For unusable variances, or with METHOD wls (its variogram fit has no place for them).
+    """
+    if error_variance is None:
+        return None
+    if method == "wls":
+        raise FieldcastError("Per-sample error variances are used by the likelihood fits only; choose METHOD reml "
+                             "or ml, or leave ERROR_VARIANCE_FIELD empty.")
+    return check_error_variance(error_variance, n)
 
 
 def with_jitter_in_nugget(covariance: CovarianceModel, jitter: float, messages: list[str]) -> CovarianceModel:

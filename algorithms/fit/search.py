@@ -131,6 +131,10 @@ class SearchProblem:
     should_stop : callable or None
     max_iterations : int
         L-BFGS-B iteration limit of each optimiser run.
+    nugget : float or None
+        Nugget held fixed, internal units (divided by ``value_scale`` squared); None fits it.
+    error_variance : ndarray of shape (n,) or None
+        Per-sample measurement-error variances, internal units, on the diagonal beside the nugget.
     """
 
     xy: np.ndarray
@@ -143,11 +147,17 @@ class SearchProblem:
     internal_scales: DataScales
     should_stop: Callable[[], bool] | None
     max_iterations: int = MAX_ITERATIONS
+    nugget: float | None = None
+    error_variance: np.ndarray | None = None
 
     @classmethod
     def standardise(cls, xy: np.ndarray, y: np.ndarray, design: np.ndarray, method: str,
-                    should_stop: Callable[[], bool] | None, max_iterations: int = MAX_ITERATIONS) -> SearchProblem:
-        """Centre and scale the coordinates, standardise the values, and measure the data."""
+                    should_stop: Callable[[], bool] | None, max_iterations: int = MAX_ITERATIONS,
+                    nugget: float | None = None, error_variance: np.ndarray | None = None) -> SearchProblem:
+        """Centre and scale the coordinates, standardise the values, and measure the data.
+
+        ``nugget`` (a fixed nugget) and ``error_variance`` (per-sample variances) are in value units squared.
+        """
         basis = MeanBasis.from_design(design)
         value_scale = float(basis.residual_rms(y))
         if not value_scale > 0:
@@ -160,8 +170,10 @@ class SearchProblem:
                                  "different places.")
         internal_xy = (xy - (low + high) / 2.0) / length_scale
         scales = DataScales(smallest_spacing(internal_xy), diameter(internal_xy), 1.0)
+        square = value_scale ** 2
         return cls(internal_xy, y / value_scale, design, basis, method, length_scale, value_scale, scales,
-                   should_stop, max_iterations)
+                   should_stop, max_iterations, None if nugget is None else nugget / square,
+                   None if error_variance is None else np.asarray(error_variance, dtype=float) / square)
 
     @property
     def contrasts(self) -> int:
@@ -172,7 +184,9 @@ class SearchProblem:
         """The same problem on a random subset of the samples (bounds unchanged)."""
         keep = np.sort(np.random.default_rng(seed).choice(len(self.y), size, replace=False))
         design = self.design[keep]
-        return replace(self, xy=self.xy[keep], y=self.y[keep], design=design, basis=MeanBasis.from_design(design))
+        error_variance = None if self.error_variance is None else self.error_variance[keep]
+        return replace(self, xy=self.xy[keep], y=self.y[keep], design=design, basis=MeanBasis.from_design(design),
+                       error_variance=error_variance)
 
     def log_likelihood(self, minus_two_internal: float) -> float:
         """Log-likelihood of the data in their own units from an internal ``-2 l``.
@@ -283,7 +297,8 @@ def _optimise(problem: SearchProblem, layout: ParameterLayout, starts: list[np.n
     ``refine`` (for the refinement after a warm start, one start close to
     the optimum) takes Newton steps before L-BFGS-B.
     """
-    objective = LikelihoodObjective(problem.xy, problem.y, problem.basis, problem.method, layout, problem.should_stop)
+    objective = LikelihoodObjective(problem.xy, problem.y, problem.basis, problem.method, layout, problem.should_stop,
+                                    problem.error_variance)
     bounds = parameter_bounds(layout, problem.internal_scales)
     starts = [clamped(start, bounds) for start in starts]
     if len(starts) > 1:
@@ -362,18 +377,19 @@ def _short_range_first(fit: SearchFit) -> SearchFit:
 def _search_stages(problem: SearchProblem, family: str, smoothness: float | None, settings: tuple[bool, ...],
                    nested: bool, steps: ProgressSteps) -> list[SearchFit]:
     """Isotropic, then anisotropic, then nested fits; one result per anisotropy setting."""
-    isotropic_layout = ParameterLayout(family, 1, False, smoothness)
+    nugget = problem.nugget
+    isotropic_layout = ParameterLayout(family, 1, False, smoothness, nugget)
     isotropic = _optimise(problem, isotropic_layout, _isotropic_starts(isotropic_layout), steps)
     fits = []
     for anisotropy in settings:
         single = isotropic
         if anisotropy:
-            layout = ParameterLayout(family, 1, True, smoothness)
+            layout = ParameterLayout(family, 1, True, smoothness, nugget)
             single = _optimise(problem, layout, _anisotropic_starts(isotropic, layout), steps)
             if isotropic.minus_two_log_likelihood < single.minus_two_log_likelihood:
                 single = _as_isotropic(isotropic, layout)
         if nested:
-            layout = ParameterLayout(family, 2, anisotropy, smoothness)
+            layout = ParameterLayout(family, 2, anisotropy, smoothness, nugget)
             single = _short_range_first(_optimise(problem, layout, _nested_starts(single, layout), steps))
         fits.append(single)
     return fits

@@ -171,6 +171,10 @@ def _checked_fields(xy: np.ndarray, values: np.ndarray, options: FitOptions, nam
         raise FieldcastError("A model shared by several fields is fitted by likelihood: choose METHOD reml or ml, "
                              "or turn off 'One correlation model for all fields' (SHARED_MODEL) to fit each field "
                              "by itself.")
+    if options.nugget is not None:
+        raise FieldcastError("A fixed NUGGET is in one field's units, but a model shared by several fields takes "
+                             "each field's own scale: leave NUGGET empty, or turn off 'One correlation model for all "
+                             "fields' (SHARED_MODEL) to fit each field by itself.")
     if (options.mean.kind if isinstance(options.mean, MeanModel) else options.mean) == "known":
         raise FieldcastError("A shared model needs a mean estimated from each field (constant, linear or "
                              "quadratic); a known mean would be the same number for every field.")

@@ -228,14 +228,19 @@ class VecchiaData:
         Orthonormal basis of the design, rows in the original sample order.
     method : {"reml", "ml"}
     plan : VecchiaPlan
+    error_variance : ndarray of shape (n,), optional
+        Per-sample measurement-error variances (the units of ``y``, squared), added to the diagonal of every
+        joint set beside the nugget; their derivative by every parameter is 0.
     """
 
-    def __init__(self, xy: np.ndarray, y: np.ndarray, basis: MeanBasis, method: str, plan: VecchiaPlan) -> None:
+    def __init__(self, xy: np.ndarray, y: np.ndarray, basis: MeanBasis, method: str, plan: VecchiaPlan,
+                 error_variance: np.ndarray | None = None) -> None:
         if method not in LIKELIHOOD_METHODS:
             raise FieldcastError(f"Unknown likelihood {method!r}; choose one of {', '.join(LIKELIHOOD_METHODS)}.")
         self.xy = np.asarray(xy, dtype=float)[plan.order]
         self.y = np.asarray(y, dtype=float)[plan.order]
         self.q = basis.q[plan.order]
+        self.error_variance = None if error_variance is None else np.asarray(error_variance, dtype=float)[plan.order]
         self.basis = basis
         self.method = method
         self.plan = plan
@@ -247,6 +252,13 @@ class VecchiaData:
         first, second = self._triangle
         return joint[:, first, 0] - joint[:, second, 0], joint[:, first, 1] - joint[:, second, 1]
 
+    def _joint_error_variance(self, rows: slice, valid: np.ndarray) -> np.ndarray | float:
+        """The error variances of each joint set ``(N(i), i)``, (c, m + 1); 0 without them (missing neighbours 0)."""
+        if self.error_variance is None:
+            return 0.0
+        neighbours = np.where(valid, self.error_variance[np.where(valid, self.plan.neighbours[rows], 0)], 0.0)
+        return np.concatenate([neighbours, self.error_variance[rows, None]], axis=1)
+
     def _conditionals(self, model: CovarianceModel, rows: slice) -> dict[str, np.ndarray]:
         """``b_i``, ``d_i``, ``(B y)_i``, ``(B Q)_i`` and ``K_N^-1 [y_N, Q_N]`` for the rows."""
         m = self.plan.size
@@ -256,7 +268,7 @@ class VecchiaData:
         pairs = model.covariance_from_offsets(*self._offsets(rows))
         joint[:, first, second] = pairs
         joint[:, second, first] = pairs
-        joint[:, np.arange(m + 1), np.arange(m + 1)] += model.nugget
+        joint[:, np.arange(m + 1), np.arange(m + 1)] += model.nugget + self._joint_error_variance(rows, valid)
         joint_valid = np.concatenate([valid, np.ones((len(valid), 1), dtype=bool)], axis=1)
         pair_valid = joint_valid[:, :, None] & joint_valid[:, None, :]
         joint = np.where(pair_valid, joint, np.eye(m + 1))  # a missing neighbour is decoupled
@@ -343,7 +355,8 @@ class VecchiaData:
         gradient = np.zeros(layout.n_parameters)
         for index, derivative, _ in derivatives:
             gradient[index] += float(np.einsum("cp,cp->", derivative, pair_weight))
-        gradient[layout.index("log_nugget")] = model.nugget * float(np.einsum("cjj->", weight))
+        if layout.nugget is None:
+            gradient[layout.index("log_nugget")] = model.nugget * float(np.einsum("cjj->", weight))
         return gradient
 
 

@@ -39,7 +39,15 @@ from .bound_warnings import bound_warnings
 from .data_warnings import data_warnings
 from .exact_fit import fit_exact
 from .minimiser import clamped, convergence_warning, minimise
-from .options import CandidateFit, FitOptions, FitResult, check_fit_choices, information_criteria, mean_model_for
+from .options import (
+    CandidateFit,
+    FitOptions,
+    FitResult,
+    check_fit_choices,
+    checked_error_variance,
+    information_criteria,
+    mean_model_for,
+)
 from .search import SearchProblem
 from .vecchia import DEFAULT_NEIGHBOURS, VecchiaData, VecchiaObjective, VecchiaPlan
 
@@ -65,7 +73,7 @@ def _optimise(problem: SearchProblem, layout: ParameterLayout, start: np.ndarray
     rounds = 2 if layout.anisotropy else 1
     for round_index in range(rounds):
         plan = VecchiaPlan.build(problem.xy, neighbours, layout.unpack(theta).structures[0])
-        data = VecchiaData(problem.xy, problem.y, problem.basis, problem.method, plan)
+        data = VecchiaData(problem.xy, problem.y, problem.basis, problem.method, plan, problem.error_variance)
 
         def on_step(evaluations: int, done: int = round_index) -> None:
             if progress is not None:
@@ -90,7 +98,7 @@ def _optimise(problem: SearchProblem, layout: ParameterLayout, start: np.ndarray
 def fit_vecchia(xy: np.ndarray, values: np.ndarray, options: FitOptions, *,
                 neighbours: int = DEFAULT_NEIGHBOURS, subset_size: int = SUBSET_SIZE,
                 covariates: np.ndarray | None = None, progress: Callable[[float], None] | None = None,
-                should_stop: Callable[[], bool] | None = None) -> FitResult:
+                should_stop: Callable[[], bool] | None = None, error_variance: np.ndarray | None = None) -> FitResult:
     """Fit a covariance model to many samples with the Vecchia likelihood (see the module docstring).
 
     Parameters
@@ -107,6 +115,9 @@ def fit_vecchia(xy: np.ndarray, values: np.ndarray, options: FitOptions, *,
         External-drift columns for the mean.
     progress, should_stop : callable, optional
         Progress fraction in [0, 1]; cancel request (raises ``Cancelled``).
+    error_variance : ndarray of shape (n,), optional
+        Per-sample measurement-error variances (value units squared), as for :func:`.fitting.fit_with`;
+        ``options.nugget`` holds the nugget fixed in both steps.
 
     Returns
     -------
@@ -121,17 +132,20 @@ def fit_vecchia(xy: np.ndarray, values: np.ndarray, options: FitOptions, *,
     check_samples(xy, values)
     points = np.asarray(xy, dtype=float)
     observed = np.asarray(values, dtype=float)
+    error_variance = checked_error_variance(error_variance, len(observed), method)
     mean_model = mean_model_for(options.mean, points, covariates, options.known_mean)
     design = mean_model.design(points, covariates)
     n = len(observed)
     subset = np.sort(np.random.default_rng(0).choice(n, min(subset_size, n), replace=False))
     rough = fit_exact(points[subset], observed[subset], replace(options, mean=mean_model),
                       covariates=None if covariates is None else np.asarray(covariates)[subset],
-                      progress=None if progress is None else (lambda f: progress(0.5 * f)), should_stop=should_stop)
+                      progress=None if progress is None else (lambda f: progress(0.5 * f)), should_stop=should_stop,
+                      error_variance=None if error_variance is None else error_variance[subset])
     chosen = min(rough.candidates, key=lambda c: c.aic)
-    layout = ParameterLayout(chosen.family, len(chosen.covariance.structures), chosen.anisotropy, options.smoothness)
     problem = SearchProblem.standardise(points, observed - mean_model.known_mean(n), design, method,
-                                        should_stop, options.max_iterations)
+                                        should_stop, options.max_iterations, options.nugget, error_variance)
+    layout = ParameterLayout(chosen.family, len(chosen.covariance.structures), chosen.anisotropy, options.smoothness,
+                             problem.nugget)
     start = layout.pack(problem.to_internal_units(chosen.covariance))
     theta, minus_two, basis_coefficients, stopped = _optimise(problem, layout, start, neighbours, progress)
     model = problem.to_data_units(layout.unpack(theta))
@@ -146,4 +160,6 @@ def fit_vecchia(xy: np.ndarray, values: np.ndarray, options: FitOptions, *,
         progress(1.0)
     candidate = CandidateFit(layout.family, layout.anisotropy, log_likelihood, aic, bic, model, list(messages))
     return FitResult(model, mean_model, coefficients, method, log_likelihood, aic, bic, n, k, messages,
-                     likelihood=f"vecchia ({min(neighbours, n - 1)} neighbours)", candidates=[candidate])
+                     likelihood=f"vecchia ({min(neighbours, n - 1)} neighbours)", candidates=[candidate],
+                     fixed_nugget=options.nugget,
+                     error_variance_field=None if error_variance is None else options.error_variance_field)

@@ -4,7 +4,10 @@ Two samples at the same location make the covariance matrix of the data
 singular when the model has no nugget, and they tell nothing about spatial
 variation at any distance but zero. :func:`merge_coincident` replaces each
 group of samples that lie within ``tolerance`` (CRS units) of one another
-by a single sample carrying their average value. :func:`check_samples`
+by a single sample carrying their average value (with per-sample
+measurement-error variances, their inverse-variance weighted mean, see
+:func:`merge_coincident`). :func:`check_error_variance` checks such
+variances. :func:`check_samples`
 stops with a message saying what to change when the data cannot be
 modelled at all.
 """
@@ -45,6 +48,9 @@ class Samples:
     merged_points : int
         Number of input samples that went into those groups, so
         ``m = n - merged_points + merged_groups`` for ``n`` input samples.
+    error_variance : ndarray of shape (m,) or None
+        Measurement-error variance of each sample (modelling units squared) when the input had one; a merged
+        sample carries the combined variance of its group (see :func:`merge_coincident`).
     """
 
     xy: np.ndarray
@@ -52,6 +58,28 @@ class Samples:
     ids: np.ndarray
     merged_groups: int
     merged_points: int
+    error_variance: np.ndarray | None = None
+
+
+def check_error_variance(error_variance: np.ndarray, n: int) -> np.ndarray:
+    """Per-sample measurement-error variances as a float array (n,), refused unless finite and not negative.
+
+    Raises
+    ------
+    FieldcastError
+        For another shape, or a value that is missing, infinite, negative or beyond :data:`MAX_SILL`, naming the
+        first row.
+    """
+    variance = np.asarray(error_variance, dtype=float)
+    if variance.shape != (n,):
+        raise FieldcastError(f"Expected one measurement-error variance per sample ({n}), got an array of shape "
+                             f"{variance.shape}.")
+    bad = np.flatnonzero(~((variance >= 0) & (variance <= MAX_SILL)))
+    if len(bad):
+        raise FieldcastError(f"{len(bad)} measurement-error variance(s) are missing, negative or not finite (first "
+                             f"at row {bad[0]}: {variance[bad[0]]!r}); give every sample a variance of 0 or more "
+                             "(modelling units squared), or leave the error variances out.")
+    return variance
 
 
 @dataclass(frozen=True)
@@ -115,7 +143,8 @@ def _sample_arrays(xy: np.ndarray, values: np.ndarray) -> tuple[np.ndarray, np.n
 
 
 def merge_coincident(
-    xy: np.ndarray, values: np.ndarray, ids: np.ndarray | None = None, tolerance: float = 0.0
+    xy: np.ndarray, values: np.ndarray, ids: np.ndarray | None = None, tolerance: float = 0.0,
+    error_variance: np.ndarray | None = None,
 ) -> Samples:
     """Average the values of samples that share a location.
 
@@ -136,6 +165,11 @@ def merge_coincident(
     tolerance : float
         Largest distance (CRS units) at which two samples count as the same
         location; 0 merges exact duplicates only.
+    error_variance : ndarray of shape (n,), optional
+        Measurement-error variance of each sample (modelling units squared). A group then merges to the
+        inverse-variance weighted mean ``sum(y_i / e_i) / sum(1 / e_i)`` with the combined variance
+        ``1 / sum(1 / e_i)`` (the best linear unbiased combination of independent measurements of one value);
+        members with variance 0 are exact, and a group holding any merges to their plain mean with variance 0.
 
     Returns
     -------
@@ -143,6 +177,8 @@ def merge_coincident(
     """
     xy, values = _sample_arrays(xy, values)
     n = len(xy)
+    if error_variance is not None:
+        error_variance = check_error_variance(error_variance, n)
     ids = np.arange(n) if ids is None else np.asarray(ids)
     if ids.shape != (n,):
         raise FieldcastError(f"Expected one id per sample ({n}), got an array of shape {ids.shape}.")
@@ -155,7 +191,8 @@ def merge_coincident(
             "Some samples have missing or infinite coordinates; drop those features or repair their geometry."
         )
     if n == 0:
-        return Samples(xy.copy(), values.copy(), ids.copy(), 0, 0)
+        return Samples(xy.copy(), values.copy(), ids.copy(), 0, 0,
+                       None if error_variance is None else error_variance.copy())
 
     label = _group_labels(xy, float(tolerance))
     # Renumber groups in the order of their first sample.
@@ -168,15 +205,35 @@ def merge_coincident(
     first_index = first_index[order]
 
     size = np.bincount(group)
-    mean_value = np.bincount(group, weights=values) / size
     merged = size > 1
+    if error_variance is None:
+        mean_value, combined = np.bincount(group, weights=values) / size, None
+    else:
+        mean_value, combined = _inverse_variance_means(group, values, error_variance)
     return Samples(
         xy=xy[first_index].copy(),
         values=mean_value,
         ids=ids[first_index].copy(),
         merged_groups=int(np.count_nonzero(merged)),
         merged_points=int(size[merged].sum()),
+        error_variance=combined,
     )
+
+
+def _inverse_variance_means(group: np.ndarray, values: np.ndarray,
+                            error_variance: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Per group, the inverse-variance weighted mean and its variance (exact members alone where a group has any)."""
+    exact = error_variance == 0
+    exact_count = np.bincount(group, weights=exact.astype(float))
+    safe = np.where(exact, 1.0, error_variance)
+    precision = np.bincount(group, weights=np.where(exact, 0.0, 1.0 / safe))
+    weighted = np.bincount(group, weights=np.where(exact, 0.0, values / safe))
+    exact_sum = np.bincount(group, weights=np.where(exact, values, 0.0))
+    has_exact = exact_count > 0
+    mean = np.where(has_exact, exact_sum / np.where(has_exact, exact_count, 1.0),
+                    weighted / np.where(has_exact, 1.0, precision))
+    variance = np.where(has_exact, 0.0, 1.0 / np.where(has_exact, 1.0, precision))
+    return mean, variance
 
 
 def _group_labels(xy: np.ndarray, tolerance: float) -> np.ndarray:

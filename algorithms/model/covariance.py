@@ -261,10 +261,15 @@ class CovarianceModel:
             total += s.covariance_between(a_xy, b_xy)
         return total
 
-    def data_covariance(self, xy: np.ndarray) -> np.ndarray:
-        """Covariance matrix of observations at ``xy``: structures plus nugget on the diagonal."""
+    def data_covariance(self, xy: np.ndarray, error_variance: np.ndarray | None = None) -> np.ndarray:
+        """Covariance matrix of observations at ``xy``: structures plus nugget on the diagonal.
+
+        ``error_variance`` (n,), when given, is each observation's own measurement-error variance (attribute
+        units squared), added to the diagonal beside the nugget: ``K = C + nugget I + diag(error_variance)``.
+        """
         matrix = self.cross_covariance(xy, xy)
-        matrix[np.diag_indices_from(matrix)] += self.nugget
+        own = 0.0 if error_variance is None else error_variance
+        matrix[np.diag_indices_from(matrix)] += self.nugget + own
         return matrix
 
     def semivariogram(self, dx: np.ndarray, dy: np.ndarray) -> np.ndarray:

@@ -15,7 +15,8 @@ name                     meaning
                          (anisotropy only)
 ``log_smoothness``       log of the Matérn ``nu`` (family ``"matern"`` with
                          the smoothness left free)
-``log_nugget``           log of the nugget
+``log_nugget``           log of the nugget (absent when the nugget is held
+                         fixed, :attr:`ParameterLayout.nugget`)
 =======================  =====================================================
 
 Nested structures share one geometric anisotropy (ratio and azimuth) and one
@@ -105,12 +106,16 @@ class ParameterLayout:
         Estimate ratio and azimuth; otherwise ratio 1 and azimuth 0.
     smoothness : float or None
         Fixed Matérn ``nu`` for family ``"matern"``; None fits it.
+    nugget : float or None
+        Nugget held at this value (the units of the variances the vector describes; 0 allowed) and left out of
+        the vector; None fits it.
     """
 
     family: str
     n_structures: int = 1
     anisotropy: bool = False
     smoothness: float | None = None
+    nugget: float | None = None
 
     def __post_init__(self) -> None:
         if self.family != "matern" or self.smoothness is not None:
@@ -131,7 +136,8 @@ class ParameterLayout:
             names += ["log_ratio", "azimuth"]
         if self.fits_smoothness:
             names.append("log_smoothness")
-        names.append("log_nugget")
+        if self.nugget is None:
+            names.append("log_nugget")
         return tuple(names)
 
     @property
@@ -156,13 +162,14 @@ class ParameterLayout:
                       azimuth, ratio, nu)
             for k in range(1, self.n_structures + 1)
         )
-        return CovarianceModel(structures, math.exp(value["log_nugget"]))
+        return CovarianceModel(structures, math.exp(value["log_nugget"]) if self.nugget is None else self.nugget)
 
     def pack(self, model: CovarianceModel) -> np.ndarray:
         """The parameter vector of a model (inverse of :meth:`unpack`)."""
         first = model.structures[0]
-        value = {"log_nugget": math.log(model.nugget), "log_ratio": math.log(first.ratio),
-                 "azimuth": math.radians(first.azimuth)}
+        value = {"log_ratio": math.log(first.ratio), "azimuth": math.radians(first.azimuth)}
+        if self.nugget is None:
+            value["log_nugget"] = math.log(model.nugget)
         if self.fits_smoothness:
             value["log_smoothness"] = math.log(first.smoothness)
         for k, structure in enumerate(model.structures, start=1):

@@ -122,6 +122,7 @@ def refuse_local_covariates(mean: MeanModel, neighbours: int, count: int) -> Non
 def choose_predictor(xy: np.ndarray, values: np.ndarray, covariance: CovarianceModel, mean: MeanModel,
                      neighbourhood: Neighbourhood, *, support: str = "point", units: str = "metre",
                      per: str = "cell", covariates: np.ndarray | None = None,
+                     error_variance: np.ndarray | None = None,
                      ) -> tuple[KrigingPredictor | LocalKrigingPredictor, list[LogLine]]:
     """The kriging predictor of a run, global or local, and the log lines that say which and why.
 
@@ -147,6 +148,8 @@ def choose_predictor(xy: np.ndarray, values: np.ndarray, covariance: CovarianceM
     covariates : ndarray, shape (n, c), optional
         The mean's covariate columns at the samples, when it names covariates (global kriging only, so that
         their coefficients come from all samples).
+    error_variance : ndarray, shape (n,), optional
+        Per-sample measurement-error variances (modelling units squared), on the diagonal beside the nugget.
 
     Raises
     ------
@@ -159,7 +162,7 @@ def choose_predictor(xy: np.ndarray, values: np.ndarray, covariance: CovarianceM
     refuse_local_covariates(mean, neighbours, count)
     if neighbours == 0:
         lines.append(LogLine("info", f"Kriging from all {count} samples."))
-        predictor = KrigingPredictor(xy, values, covariance, mean, covariates)
+        predictor = KrigingPredictor(xy, values, covariance, mean, covariates, error_variance)
         return predictor, lines + [LogLine("warning", warning) for warning in predictor.warnings]
     if support == "cell":
         raise FieldcastError("Cell support is computed from all samples (block kriging); local "
@@ -167,12 +170,12 @@ def choose_predictor(xy: np.ndarray, values: np.ndarray, covariance: CovarianceM
     lines.append(LogLine("info", f"Local kriging: each {per} from its {min(neighbours, count)} nearest "
                                  f"samples{search_words(neighbourhood.search_radius, units)}."))
     return LocalKrigingPredictor(xy, values, covariance, mean, neighbours=neighbours,
-                                 search_radius=neighbourhood.search_radius), lines
+                                 search_radius=neighbourhood.search_radius, error_variance=error_variance), lines
 
 
 def cross_validate_with(xy: np.ndarray, values: np.ndarray, covariance: CovarianceModel, mean: MeanModel,
                         neighbourhood: Neighbourhood, *, covariates: np.ndarray | None = None, units: str = "metre",
-                        progress: Callable[[float], None] | None = None,
+                        error_variance: np.ndarray | None = None, progress: Callable[[float], None] | None = None,
                         should_stop: Callable[[], bool] | None = None) -> tuple[CrossValidation, list[LogLine]]:
     """Leave-one-out of a run, global (closed form) or local by the same rules as :func:`choose_predictor`,
     and the log lines that say which and how many samples got no prediction.
@@ -190,6 +193,8 @@ def cross_validate_with(xy: np.ndarray, values: np.ndarray, covariance: Covarian
         :func:`refuse_local_covariates`).
     units : str
         Working CRS unit, for the log.
+    error_variance : ndarray of shape (n,), optional
+        Per-sample measurement-error variances, as for :func:`choose_predictor`.
     progress, should_stop : callable, optional
         Progress (fraction) and cancel of the local leave-one-out.
 
@@ -203,12 +208,12 @@ def cross_validate_with(xy: np.ndarray, values: np.ndarray, covariance: Covarian
     neighbours, lines = _run_neighbours(neighbourhood, mean, count, "sample", pool="every other sample")
     refuse_local_covariates(mean, neighbours, count)
     if neighbours == 0:
-        return leave_one_out(xy, values, covariance, mean, covariates), lines
+        return leave_one_out(xy, values, covariance, mean, covariates, error_variance), lines
     search_radius = neighbourhood.search_radius
     lines.append(LogLine("info", f"Local leave-one-out: each sample from its {min(neighbours, count - 1)} nearest "
                                  f"other samples{search_words(search_radius, units)}."))
     result = local_leave_one_out(xy, values, covariance, mean, neighbours=neighbours, search_radius=search_radius,
-                                 progress=progress, should_stop=should_stop)
+                                 error_variance=error_variance, progress=progress, should_stop=should_stop)
     unresolved = count - result.summary()["n"]
     if unresolved == count:
         raise FieldcastError("No sample has enough other samples within SEARCH_RADIUS to be predicted. "

@@ -11,8 +11,11 @@ follow from the same argument)::
 
 with ``Q = K^-1`` for a known mean (``y`` replaced by ``y - m``) and
 ``Q = K^-1 - K^-1 F (F^T K^-1 F)^-1 F^T K^-1`` when the mean or trend is
-estimated. ``K`` includes the nugget, so the variance is that of the error
-in predicting the observation itself. Leave-one-out is the case of
+estimated. ``K`` includes the nugget (and any per-sample measurement-error
+variances on its diagonal), so the variance is that of the error in
+predicting the observation itself. The partitioned-inverse argument holds
+for any positive definite ``K``, so the formulas stay exact with a
+heteroscedastic diagonal. Leave-one-out is the case of
 one-point sets: ``e_i = (Q y)_i / Q_ii`` and ``var_i = 1 / Q_ii``.
 
 For a log model the errors can also be read in attribute units
@@ -155,14 +158,15 @@ def _result(values: np.ndarray, residual: np.ndarray, variance: np.ndarray,
 
 
 def leave_one_out(xy: np.ndarray, values: np.ndarray, covariance: CovarianceModel, mean: MeanModel,
-                  covariates: np.ndarray | None = None) -> CrossValidation:
+                  covariates: np.ndarray | None = None, error_variance: np.ndarray | None = None) -> CrossValidation:
     """Leave-one-out cross-validation in closed form (Dubrule 1983).
 
     Each sample is predicted by kriging from all the others with the same
     covariance model, the trend coefficients re-estimated without it.
     Needs more samples than the mean model has terms plus one.
+    ``error_variance`` (n,) are per-sample measurement-error variances (u2, on the diagonal of ``K``).
     """
-    predictor = KrigingPredictor(xy, values, covariance, mean, covariates)
+    predictor = KrigingPredictor(xy, values, covariance, mean, covariates, error_variance)
     if predictor.n <= mean.n_terms + 1:
         raise FieldcastError(
             f"Leave-one-out with a {mean.kind} mean needs at least {mean.n_terms + 2} samples; "
@@ -180,7 +184,7 @@ def leave_one_out(xy: np.ndarray, values: np.ndarray, covariance: CovarianceMode
 
 def local_leave_one_out(xy: np.ndarray, values: np.ndarray, covariance: CovarianceModel, mean: MeanModel, *,
                         neighbours: int, search_radius: float | None = None, covariates: np.ndarray | None = None,
-                        progress: Callable[[float], None] | None = None,
+                        error_variance: np.ndarray | None = None, progress: Callable[[float], None] | None = None,
                         should_stop: Callable[[], bool] | None = None) -> CrossValidation:
     """Leave-one-out cross-validation with local kriging from each sample's nearest other samples.
 
@@ -201,7 +205,8 @@ def local_leave_one_out(xy: np.ndarray, values: np.ndarray, covariance: Covarian
         :class:`.neighbourhood.LocalKrigingPredictor`.
     """
     predictor = LocalKrigingPredictor(xy, values, covariance, mean, neighbours=neighbours,
-                                      search_radius=search_radius, covariates=covariates)
+                                      search_radius=search_radius, covariates=covariates,
+                                      error_variance=error_variance)
     if predictor.n <= predictor.minimum_neighbours:
         raise FieldcastError(
             f"Leave-one-out with a {mean.kind} mean needs at least {predictor.minimum_neighbours + 1} samples; "
@@ -252,11 +257,13 @@ def k_fold(xy: np.ndarray, values: np.ndarray, covariance: CovarianceModel, mean
 
 def candidate_rmse(xy: np.ndarray, values: np.ndarray, candidates: Sequence[CovarianceModel], mean: MeanModel, *,
                    covariates: np.ndarray | None = None, progress: Callable[[float], None] | None = None,
-                   should_stop: Callable[[], bool] | None = None) -> list[float]:
+                   should_stop: Callable[[], bool] | None = None,
+                   error_variance: np.ndarray | None = None) -> list[float]:
     """Leave-one-out RMSE (modelling units) of each candidate covariance model under the same mean kind.
 
     Used by the fit report to set the candidates' AIC beside how well each predicts held-out samples.
-    ``covariates`` are the mean model's covariate columns at the samples, when it names any.
+    ``covariates`` are the mean model's covariate columns at the samples, when it names any; ``error_variance``
+    the samples' measurement-error variances, when the fit used them.
 
     Raises
     ------
@@ -267,7 +274,7 @@ def candidate_rmse(xy: np.ndarray, values: np.ndarray, candidates: Sequence[Cova
     for index, covariance in enumerate(candidates):
         if should_stop is not None and should_stop():
             raise Cancelled("Cancelled while cross-validating the candidate models.")
-        rmse.append(leave_one_out(xy, values, covariance, mean, covariates).summary()["RMSE"])
+        rmse.append(leave_one_out(xy, values, covariance, mean, covariates, error_variance).summary()["RMSE"])
         if progress is not None:
             progress((index + 1) / len(candidates))
     return rmse

@@ -90,6 +90,10 @@ class SurfaceScale:
         Probability of the central predictive interval whose ends the ``"lower"`` and ``"upper"``
         rasters hold: the quantiles at ``(1 - interval) / 2`` and ``(1 + interval) / 2``
         (0.9 gives the 5 % and 95 % quantiles).
+    measurement_variance : float or None
+        None predicts the true value (the kriging variance as it is); a number (modelling units squared, of the
+        predictor's model: :func:`.target.measurement_variance`) predicts a new measurement, whose error variance
+        adds it to the kriging variance before any field's variance factor.
 
     Raises
     ------
@@ -102,9 +106,17 @@ class SurfaceScale:
     support: str = "point"
     threshold: float | None = None
     interval: float = 0.9
+    measurement_variance: float | None = None
 
     def __post_init__(self) -> None:
         check_interval(self.interval)
+
+    @property
+    def variance_words(self) -> str:
+        """What the variances leave out or include, for the band descriptions."""
+        if self.measurement_variance is None:
+            return "nugget excluded"
+        return f"of a new measurement: nugget and measurement error {self.measurement_variance:.4g} included"
 
     @property
     def interval_z(self) -> float:
@@ -149,9 +161,9 @@ class SurfaceScale:
                         f"{where})")
             return {"prediction": f"prediction of {field} (attribute units; kriging prediction {where})",
                     "variance": f"variance of {field} (attribute units squared; kriging error variance {where}, "
-                                "nugget excluded)",
+                                f"{self.variance_words})",
                     "sd": f"standard error of {field} (attribute units; square root of the kriging error variance "
-                          f"{where}, nugget excluded)",
+                          f"{where}, {self.variance_words})",
                     "lower": quantile.format(low, "-"), "upper": quantile.format(high, "+"),
                     "exceedance": exceedance}
         offset = self.transform.offset
@@ -161,9 +173,9 @@ class SurfaceScale:
         return {"prediction": f"prediction of {field} (attribute units; log model back-transformed to the "
                               f"{self.backtransform}: {formula}, offset {offset:g}; {where} in the log scale)",
                 "variance": f"variance of {field} (attribute units squared; lognormal: exp(2 mu + s2) (exp(s2) - 1), "
-                            f"nugget excluded; {where} in the log scale)",
+                            f"{self.variance_words}; {where} in the log scale)",
                 "sd": f"standard error of {field} (attribute units; lognormal: exp(mu + s2/2) sqrt(exp(s2) - 1), "
-                      f"nugget excluded; {where} in the log scale)",
+                      f"{self.variance_words}; {where} in the log scale)",
                 "lower": quantile.format(low, "-"), "upper": quantile.format(high, "+"),
                 "exceedance": exceedance + (" (threshold log-transformed like the data)" if exceedance else "")}
 
@@ -202,7 +214,7 @@ def predict_points(predict: CellPredictor, xy: np.ndarray, scale: SurfaceScale, 
     xy : ndarray of shape (m, 2)
         Points, working CRS units.
     scale : SurfaceScale
-        Transform, back-transform, threshold and interval of the outputs.
+        Transform, back-transform, threshold, interval and prediction target of the outputs.
     kinds : sequence of str
         Quantities wanted, of :data:`SURFACE_KINDS` (``"exceedance"`` needs ``scale.threshold``).
     variance_factors : sequence of float
@@ -217,6 +229,8 @@ def predict_points(predict: CellPredictor, xy: np.ndarray, scale: SurfaceScale, 
     """
     extra = () if covariates is None else (covariates,)
     mean, variance = predict(xy, progress, should_stop, *extra)
+    if scale.measurement_variance is not None:
+        variance = variance + scale.measurement_variance
     mean = mean.reshape(len(variance), -1)
     resolved = ~np.isnan(variance)
     variances = variance[:, None] * np.asarray(variance_factors, dtype=float)

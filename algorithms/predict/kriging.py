@@ -19,6 +19,13 @@ for Spatial Data*, rev. ed., section 3.4 on universal kriging)::
 where ``C(0)`` is the latent-field variance (sill without nugget). Adding
 the nugget gives the error variance for a new measurement at ``x0``.
 
+Measurement error. Per-sample measurement-error variances ``e`` (data, not
+model: they come with the samples) add to the diagonal, ``K = C + nugget I +
+diag(e)``, and change nothing else: ``c0`` is still the latent covariance, so
+the prediction is of the true value without measurement error. The nugget
+stays the model's uncorrelated part beside ``e`` (micro-scale variation and
+any measurement error that ``e`` leaves out).
+
 Algebra: ``K = L L^T`` (Cholesky) is factorised once and ``L^-1`` is kept.
 Per chunk of targets the (n, m) cross-covariance ``C0`` is built, the mean
 is the product ``alpha^T C0`` with ``alpha = K^-1 (y - F beta)``, and
@@ -50,6 +57,7 @@ import numpy as np
 from scipy import linalg
 
 from ..errors import Cancelled, FieldcastError
+from ..io.samples import check_error_variance
 from ..linalg.condition_policy import CONDITION_ADVICE, reciprocal_condition, usable, warning_text
 from ..model.covariance import CovarianceModel
 from ..model.mean import MeanModel
@@ -225,6 +233,8 @@ class KrigingPredictor:
         covariate columns universal kriging (external drift).
     covariates : ndarray of shape (n, k), optional
         Covariate values at the samples when the mean model names covariates.
+    error_variance : ndarray of shape (n,), optional
+        Measurement-error variance of each sample (u2), added to the diagonal of ``K`` beside the nugget.
 
     Attributes
     ----------
@@ -241,7 +251,7 @@ class KrigingPredictor:
     """
 
     def __init__(self, xy: np.ndarray, values: np.ndarray, covariance: CovarianceModel, mean: MeanModel,
-                 covariates: np.ndarray | None = None) -> None:
+                 covariates: np.ndarray | None = None, error_variance: np.ndarray | None = None) -> None:
         points = as_points(xy, "Sample coordinates")
         observed = as_value_columns(values, len(points))
         self.n = len(points)
@@ -253,13 +263,16 @@ class KrigingPredictor:
                 f"The {mean.kind} mean model has {n_terms} term(s) but there are only {self.n} samples. "
                 + MORE_SAMPLES_ADVICE
             )
-        if covariance.nugget == 0:
+        if error_variance is not None:
+            error_variance = check_error_variance(error_variance, self.n)
+        if covariance.nugget == 0 and (error_variance is None or not error_variance.min() > 0):
             check_distinct(points)
         self.covariance = covariance
         self.mean = mean
         self.xy = points.copy()
+        self.error_variance = error_variance
         self.warnings: list[str] = []
-        factor = cholesky_factor(covariance.data_covariance(points), "covariance matrix of the samples",
+        factor = cholesky_factor(covariance.data_covariance(points, error_variance), "covariance matrix of the samples",
                                  CONDITION_ADVICE, self.warnings)
         self._inverse_factor = linalg.solve_triangular(factor, np.eye(self.n), lower=True, check_finite=False)
         self._blocks = [(start, min(start + _BLOCK_ROWS, self.n)) for start in range(0, self.n, _BLOCK_ROWS)]

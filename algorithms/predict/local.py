@@ -90,6 +90,7 @@ import numpy as np
 from scipy.spatial import cKDTree
 
 from ..errors import Cancelled, FieldcastError
+from ..io.samples import check_error_variance
 from ..linalg.batched import back_substitution, cholesky_stack, forward_substitution
 from ..linalg.condition_policy import WARN_RECIPROCAL, stack_reciprocal_condition, usable
 from ..model.correlation import correlation
@@ -129,6 +130,9 @@ class LocalKrigingPredictor:
         Largest number of samples per target (at least ``mean.n_terms + 1``).
     search_radius : float, optional
         Major semi-axis of the search ellipse (CRS units); None searches all samples.
+    error_variance : ndarray of shape (n,), optional
+        Measurement-error variance of each sample (u2), added to the diagonal of each local ``K`` beside the
+        nugget (as for :class:`.kriging.KrigingPredictor`).
 
     After construction ``n`` is the number of samples, ``neighbours`` the
     number used per target (``min(neighbours, n)``) and
@@ -142,7 +146,7 @@ class LocalKrigingPredictor:
 
     def __init__(self, xy: np.ndarray, values: np.ndarray, covariance: CovarianceModel, mean: MeanModel, *,
                  neighbours: int = 32, search_radius: float | None = None,
-                 covariates: np.ndarray | None = None) -> None:
+                 covariates: np.ndarray | None = None, error_variance: np.ndarray | None = None) -> None:
         points = as_points(xy, "Sample coordinates")
         observed = as_value_columns(values, len(points))
         self.n = len(points)
@@ -162,8 +166,11 @@ class LocalKrigingPredictor:
                 f"The search radius must be a positive distance in CRS units (or empty for no limit); "
                 f"got {search_radius!r}."
             )
-        if covariance.nugget == 0:
+        if error_variance is not None:
+            error_variance = check_error_variance(error_variance, self.n)
+        if covariance.nugget == 0 and (error_variance is None or not error_variance.min() > 0):
             check_distinct(points)
+        self.error_variance = error_variance
         self.covariance = covariance
         self.mean = mean
         self.neighbours = min(int(neighbours), self.n)
@@ -222,7 +229,8 @@ class LocalKrigingPredictor:
         k = sets.shape[1]
         sill = self.covariance.sill
         matrices = self._set_covariances(points) / sill
-        matrices[:, np.arange(k), np.arange(k)] = 1.0  # (field variance + nugget) / sill
+        diagonal = 1.0 if self.error_variance is None else 1.0 + self.error_variance[sets] / sill
+        matrices[:, np.arange(k), np.arange(k)] = diagonal  # (field variance + nugget + error variance) / sill
         factors, positive = cholesky_stack(matrices)  # K / sill = L L^T
         estimate = stack_reciprocal_condition(matrices, factors, positive)
         solvable = positive & usable(estimate, k)
@@ -489,8 +497,8 @@ class LocalKrigingPredictor:
             Prediction of each sample value (u).
         variance : ndarray of shape (n,)
             Prediction-error variance of the observation, nugget included
-            (u2): the latent kriging variance plus the nugget, shared by the
-            fields. Both NaN for samples with too few other
+            (u2): the latent kriging variance plus the nugget (and the sample's
+            own error variance, when given), shared by the fields. Both NaN for samples with too few other
             samples within the search radius (or a singular local system),
             counted in :attr:`last_unresolved`.
         """
@@ -503,7 +511,8 @@ class LocalKrigingPredictor:
             self.n, LEAVE_ONE_OUT_CHUNK, lambda chunk, pool: self._predict_found(
                 self._frame_xy[chunk], None if self._covariates is None else self._covariates[chunk], others[chunk],
                 pool), progress, should_stop)
-        return mean, variance + self.covariance.nugget
+        own = 0.0 if self.error_variance is None else self.error_variance
+        return mean, variance + self.covariance.nugget + own
 
 
 ROW_HASH_SEED = 20261202

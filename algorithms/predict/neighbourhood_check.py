@@ -72,8 +72,8 @@ def neighbourhood_gap(local: LocalKrigingPredictor, xy: np.ndarray, values: np.n
     local_mean, local_variance = local.predict(targets, covariates0)
     first = values if values.ndim == 1 else values[:, 0]
     local_mean = local_mean.reshape(len(targets), -1)[:, 0]
-    global_mean, global_variance = KrigingPredictor(xy, first, local.covariance, local.mean, covariates).predict(
-        targets, covariates0)
+    global_mean, global_variance = KrigingPredictor(xy, first, local.covariance, local.mean, covariates,
+                                                    local.error_variance).predict(targets, covariates0)
     resolved = ~np.isnan(local_mean)
     if not resolved.any():
         return NeighbourhoodGap(np.nan, np.nan, 0)

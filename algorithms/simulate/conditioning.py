@@ -8,14 +8,15 @@ chapter on conditional simulation) turns an unconditional realisation ``S`` into
 where ``Z*(x; y)`` is the kriging prediction from the data ``y``, and
 ``S*(x; S_D + e)`` the prediction, with the same weights, from the unconditional
 values at the sample points ``S_D`` plus simulated measurement error ``e`` (nugget
-variance). It needs ``S`` on the lattice and ``S_D`` at the samples from one joint
-law, but the samples lie between lattice nodes and the FFT simulates nodes only.
+variance, plus each sample's own error variance when the data carry one). It
+needs ``S`` on the lattice and ``S_D`` at the samples from one joint law, but the
+samples lie between lattice nodes and the FFT simulates nodes only.
 
 Snapping samples to the nearest node would move each datum by up to half a cell
 diagonal. Instead ``S_D`` is drawn given the realisation at a neighbourhood ``U``
 of lattice nodes, the union of the ``k x k`` nodes around each sample::
 
-    S_D = A S_U + r,   A = C_DU C_UU^-1,   r ~ N(0, C_DD + nugget I - A C_UD)
+    S_D = A S_U + r,   A = C_DU C_UU^-1,   r ~ N(0, C_DD + nugget I + diag(e) - A C_UD)
 
 (the conditional law of the samples given ``S_U``; ``r`` is drawn afresh for every
 realisation). This reproduces exactly the covariance among the samples, among the
@@ -100,6 +101,8 @@ class SampleDraw:
     rows, cols : ndarray of int, shape (n, k * k)
         Lattice indices of each sample's neighbourhood (see :func:`neighbourhood_indices`);
         all must lie inside the lattice.
+    error_variance : ndarray of shape (n,), optional
+        Each sample's own measurement-error variance (u2), drawn beside the nugget.
 
     Attributes
     ----------
@@ -111,7 +114,7 @@ class SampleDraw:
     """
 
     def __init__(self, covariance: CovarianceModel, lattice: GridSpec, xy: np.ndarray,
-                 rows: np.ndarray, cols: np.ndarray) -> None:
+                 rows: np.ndarray, cols: np.ndarray, error_variance: np.ndarray | None = None) -> None:
         if rows.min() < 0 or cols.min() < 0 or rows.max() >= lattice.n_rows or cols.max() >= lattice.n_cols:
             raise FieldcastUsageError("sample neighbourhoods must lie inside the simulation lattice")
         self.covariance = covariance
@@ -125,7 +128,7 @@ class SampleDraw:
         self.jitter = jitter / covariance.field_variance if jitter else 0.0  # over the mean diagonal
         sample_node = covariance.cross_covariance(self.xy, node_xy)
         self.weights = linalg.cho_solve(factor, sample_node.T, check_finite=False).T  # A, (n, |U|)
-        residual = covariance.data_covariance(self.xy) - self.weights @ sample_node.T
+        residual = covariance.data_covariance(self.xy, error_variance) - self.weights @ sample_node.T
         self._residual_factor = covariance_factor((residual + residual.T) / 2.0)
 
     def node_centres(self, flat_index: np.ndarray) -> np.ndarray:

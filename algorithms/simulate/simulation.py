@@ -128,7 +128,7 @@ def simulate_conditional(xy: np.ndarray, values: np.ndarray, covariance: Covaria
                          transform: Transform | None = None, covariates: np.ndarray | None = None,
                          grid_covariates: np.ndarray | None = None, neighbours: int = 0,
                          search_radius: float | None = None, chunk_size: int = 4096,
-                         max_bytes: float = MAX_REALISATION_BYTES,
+                         max_bytes: float = MAX_REALISATION_BYTES, error_variance: np.ndarray | None = None,
                          progress: Callable[[float], None] | None = None,
                          should_stop: Callable[[], bool] | None = None) -> SimulationResult:
     """Conditional realisations of the latent field on ``grid``.
@@ -161,6 +161,9 @@ def simulate_conditional(xy: np.ndarray, values: np.ndarray, covariance: Covaria
         Cells per block of kriging weights; memory about ``8 n chunk_size`` bytes.
     max_bytes : float
         Limit on the memory of the realisations (``8 * n_realisations * cells`` bytes).
+    error_variance : ndarray of shape (n,), optional
+        Per-sample measurement-error variances (modelling units squared): added to the diagonal of the kriging
+        system, and drawn at the samples beside the nugget, so each realisation honours a datum within its error.
     progress, should_stop : callable, optional
         Progress fraction, reported per realisation and per block; ``should_stop()``
         is asked between realisations and blocks and raises :class:`Cancelled`.
@@ -181,10 +184,12 @@ def simulate_conditional(xy: np.ndarray, values: np.ndarray, covariance: Covaria
                              "is no field to simulate; fit a model with a structure, or map the kriging mean.")
     if neighbours:
         predictor = LocalKrigingPredictor(xy, values, covariance, mean, neighbours=neighbours,
-                                          search_radius=search_radius, covariates=covariates)
+                                          search_radius=search_radius, covariates=covariates,
+                                          error_variance=error_variance)
     else:
-        predictor = KrigingPredictor(xy, values, covariance, mean, covariates)
-    generator, sampler, window = _unconditional_sources(covariance, grid, np.asarray(xy, dtype=float))
+        predictor = KrigingPredictor(xy, values, covariance, mean, covariates, error_variance)
+    generator, sampler, window = _unconditional_sources(covariance, grid, np.asarray(xy, dtype=float),
+                                                        predictor.error_variance)
     steps = _Steps(count + -(-grid.n_cells // int(chunk_size)), progress, should_stop)
     rng = np.random.default_rng(seed)
     realisations = np.empty((count, grid.n_rows, grid.n_cols))
@@ -247,7 +252,8 @@ class _Steps:
             self.progress(self.done / self.total)
 
 
-def _unconditional_sources(covariance: CovarianceModel, grid: GridSpec, xy: np.ndarray
+def _unconditional_sources(covariance: CovarianceModel, grid: GridSpec, xy: np.ndarray,
+                           error_variance: np.ndarray | None
                            ) -> tuple[UnconditionalGenerator, SampleDraw, tuple[slice, slice]]:
     """The lattice generator, the sample-point draw, and the window of the output grid in the lattice."""
     rows, cols = choose_neighbourhood(grid, xy)
@@ -261,7 +267,7 @@ def _unconditional_sources(covariance: CovarianceModel, grid: GridSpec, xy: np.n
             f"{error} Samples beyond the output grid extend the simulation lattice from {grid.n_rows} x "
             f"{grid.n_cols} to {lattice.n_rows} x {lattice.n_cols} cells; use an extent that covers the samples "
             "or leave out distant samples.") from None
-    sampler = SampleDraw(covariance, lattice, xy, rows + row_offset, cols + col_offset)
+    sampler = SampleDraw(covariance, lattice, xy, rows + row_offset, cols + col_offset, error_variance)
     window = (slice(row_offset, row_offset + grid.n_rows), slice(col_offset, col_offset + grid.n_cols))
     return generator, sampler, window
 
