@@ -22,7 +22,7 @@ from ..io.geotiff import GeoTiffWriter
 from ..io.grid import GridSpec
 from ..io.nodata_counts import NodataCounts, unwritable
 from ..io.staging import staged_together
-from ..model.transform import Transform
+from ..model.transform import HERMITE_ORDER, Transform
 from .block import DEFAULT_POINTS_PER_SIDE, block_predict
 from .exceedance import exceedance_probability
 from .extrapolation import ExtrapolationCheck
@@ -81,7 +81,8 @@ class SurfaceScale:
     transform : Transform
         Transform of the model.
     backtransform : str
-        ``"median"`` (``exp(mu) - offset``) or ``"mean"`` (``exp(mu + s2/2) - offset``) for a log model.
+        ``"median"`` (``exp(mu) - offset`` for a log model, the inverse transform ``g(mu)`` in general) or ``"mean"``
+        (``exp(mu + s2/2) - offset``; Gauss-Hermite quadrature of ``g`` for Box-Cox and normal-score models).
     support : str
         ``"point"`` (value at the cell centre) or ``"cell"`` (average over the cell).
     threshold : float or None
@@ -154,6 +155,8 @@ class SurfaceScale:
                           f"{where}, nugget excluded)",
                     "lower": quantile.format(low, "-"), "upper": quantile.format(high, "+"),
                     "exceedance": exceedance}
+        if not self.transform.is_log:
+            return self._inverse_descriptions(field, where, exceedance, low, high)
         offset = self.transform.offset
         formula = "exp(mu) - offset" if self.backtransform == "median" else "exp(mu + s2/2) - offset"
         quantile = (f"{{}} quantile of {field} (attribute units; lognormal predictive distribution: exp(mu {{}} z s) "
@@ -166,6 +169,22 @@ class SurfaceScale:
                       f"nugget excluded; {where} in the log scale)",
                 "lower": quantile.format(low, "-"), "upper": quantile.format(high, "+"),
                 "exceedance": exceedance + (" (threshold log-transformed like the data)" if exceedance else "")}
+
+    def _inverse_descriptions(self, field: str, where: str, exceedance: str, low: str, high: str) -> dict[str, str]:
+        """Band descriptions of a Box-Cox (lambda not 0) or normal-score model: back-transforms through the inverse
+        ``g`` and Gauss-Hermite quadrature (:mod:`..model.transform`)."""
+        scale = self.transform.units_note
+        quadrature = f"Gauss-Hermite quadrature, {HERMITE_ORDER} nodes"
+        formula = "g(mu), the inverse transform" if self.backtransform == "median" else f"E g(Y), {quadrature}"
+        quantile = f"{{}} quantile of {field} (attribute units; g(mu {{}} z s); {where} in the {scale})"
+        return {"prediction": f"prediction of {field} (attribute units; {scale} back-transformed to the "
+                              f"{self.backtransform}: {formula}; {where} in the {scale})",
+                "variance": f"variance of {field} (attribute units squared; {quadrature}, nugget excluded; {where} "
+                            f"in the {scale})",
+                "sd": f"standard error of {field} (attribute units; square root of the variance by {quadrature}, "
+                      f"nugget excluded; {where} in the {scale})",
+                "lower": quantile.format(low, "-"), "upper": quantile.format(high, "+"),
+                "exceedance": exceedance + (" (threshold transformed like the data)" if exceedance else "")}
 
 
 @dataclass(frozen=True)
