@@ -121,6 +121,7 @@ class FitModelAlgorithm(FieldcastAlgorithm):
         report_path = self.report_destination(parameters, context)
         sources = self.covariate_sources(parameters, context)
         layer_samples = self.read_samples(parameters, context, feedback)
+        transform, declustering = self.complete_transform(layer_samples, transform, settings, sources, feedback)
         samples, covariates = self.fit_covariates(prepare_samples(layer_samples, transform, feedback), sources,
                                                   layer_samples.working, feedback)
         feedback.pushInfo(f"Fitting with {settings.describe()}"
