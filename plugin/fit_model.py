@@ -135,6 +135,7 @@ class FitModelAlgorithm(FieldcastAlgorithm):
         if report_path:
             feedback.pushInfo(f"Leave-one-out of the {len(result.candidates)} candidate model(s) for the report.")
             report = fit_report_arguments(samples, layer_samples.skipped, result, document, feedback)
+            report.update(declustering=declustering, attribute_values=layer_samples.values)
         path = self.parameterAsFileOutput(parameters, self.OUTPUT_MODEL, context)
         document.save(path)
         outputs = {self.OUTPUT_MODEL: path}

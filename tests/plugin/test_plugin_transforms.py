@@ -29,7 +29,9 @@ def fit(qgis_processing, meuse, path, feedback=None, **transform):  # noqa: F811
 
 def test_normal_score_model_round_trip_through_predictpoints(qgis_processing, meuse, tmp_path):  # noqa: F811
     log = Log()
-    model = fit(qgis_processing, meuse, tmp_path / "zinc.json", log, TRANSFORM="normalscore")["OUTPUT_MODEL"]
+    model = fit(qgis_processing, meuse, tmp_path / "zinc.json", log, TRANSFORM="normalscore",
+                OUTPUT_REPORT=str(tmp_path / "fit.html"))["OUTPUT_MODEL"]
+    assert "Declustering" in (tmp_path / "fit.html").read_text(encoding="utf-8")
     document = ModelDocument.load(model)
     # The knots are those of the engine's declustered normal scores of every sample (Deutsch & Journel 1998).
     assert document.transform == Transform.normal_score(meuse.zinc, decluster(meuse.xy, meuse.zinc).weights)
