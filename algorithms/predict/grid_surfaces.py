@@ -161,14 +161,14 @@ class SurfaceScale:
         formula = "exp(mu) - offset" if self.backtransform == "median" else "exp(mu + s2/2) - offset"
         quantile = (f"{{}} quantile of {field} (attribute units; lognormal predictive distribution: exp(mu {{}} z s) "
                     f"- offset, offset {offset:g}; {where} in the log scale)")
-        return {"prediction": f"prediction of {field} (attribute units; log model back-transformed to the "
-                              f"{self.backtransform}: {formula}, offset {offset:g}; {where} in the log scale)",
-                "variance": f"variance of {field} (attribute units squared; lognormal: exp(2 mu + s2) (exp(s2) - 1), "
-                            f"nugget excluded; {where} in the log scale)",
-                "sd": f"standard error of {field} (attribute units; lognormal: exp(mu + s2/2) sqrt(exp(s2) - 1), "
-                      f"nugget excluded; {where} in the log scale)",
-                "lower": quantile.format(low, "-"), "upper": quantile.format(high, "+"),
-                "exceedance": exceedance + (" (threshold log-transformed like the data)" if exceedance else "")}
+        return band_words(f"prediction of {field} (attribute units; log model back-transformed to the "
+                          f"{self.backtransform}: {formula}, offset {offset:g}; {where} in the log scale)",
+                          f"variance of {field} (attribute units squared; lognormal: exp(2 mu + s2) (exp(s2) - 1), "
+                          f"nugget excluded; {where} in the log scale)",
+                          f"standard error of {field} (attribute units; lognormal: exp(mu + s2/2) sqrt(exp(s2) - 1), "
+                          f"nugget excluded; {where} in the log scale)",
+                          (quantile.format(low, "-"), quantile.format(high, "+")),
+                          exceedance + (" (threshold log-transformed like the data)" if exceedance else ""))
 
     def _inverse_descriptions(self, field: str, where: str, exceedance: str, low: str, high: str) -> dict[str, str]:
         """Band descriptions of a Box-Cox (lambda not 0) or normal-score model: back-transforms through the inverse
@@ -177,14 +177,20 @@ class SurfaceScale:
         quadrature = f"Gauss-Hermite quadrature, {HERMITE_ORDER} nodes"
         formula = "g(mu), the inverse transform" if self.backtransform == "median" else f"E g(Y), {quadrature}"
         quantile = f"{{}} quantile of {field} (attribute units; g(mu {{}} z s); {where} in the {scale})"
-        return {"prediction": f"prediction of {field} (attribute units; {scale} back-transformed to the "
-                              f"{self.backtransform}: {formula}; {where} in the {scale})",
-                "variance": f"variance of {field} (attribute units squared; {quadrature}, nugget excluded; {where} "
-                            f"in the {scale})",
-                "sd": f"standard error of {field} (attribute units; square root of the variance by {quadrature}, "
-                      f"nugget excluded; {where} in the {scale})",
-                "lower": quantile.format(low, "-"), "upper": quantile.format(high, "+"),
-                "exceedance": exceedance + (" (threshold transformed like the data)" if exceedance else "")}
+        return band_words(f"prediction of {field} (attribute units; {scale} back-transformed to the "
+                          f"{self.backtransform}: {formula}; {where} in the {scale})",
+                          f"variance of {field} (attribute units squared; {quadrature}, nugget excluded; {where} in "
+                          f"the {scale})",
+                          f"standard error of {field} (attribute units; square root of the variance by {quadrature}, "
+                          f"nugget excluded; {where} in the {scale})",
+                          (quantile.format(low, "-"), quantile.format(high, "+")),
+                          exceedance + (" (threshold transformed like the data)" if exceedance else ""))
+
+
+def band_words(prediction: str, variance: str, sd: str, quantiles: tuple[str, str], exceedance: str) -> dict[str, str]:
+    """The band descriptions of :data:`SURFACE_KINDS` from their words (``quantiles``: the lower and upper end)."""
+    return {"prediction": prediction, "variance": variance, "sd": sd, "lower": quantiles[0], "upper": quantiles[1],
+            "exceedance": exceedance}
 
 
 @dataclass(frozen=True)

@@ -51,6 +51,11 @@ def test_normal_score_model_round_trip_through_predictpoints(qgis_processing, me
     np.testing.assert_allclose(estimates, document.transform.back_median(mean), rtol=1e-6)
     level = document.transform.forward(np.array([500.0]))[0]
     np.testing.assert_allclose(exceedance, stats.norm.sf((level - mean) / np.sqrt(variance)), atol=1e-6)
+    result = qgis_processing.run("fieldcast:predictpoints", {
+        "INPUT": point_layer(meuse.xy, {"zinc": meuse.zinc}), "FIELD": "zinc", "MODEL": model, "BACKTRANSFORM": "mean",
+        "TARGETS": labelled_layer(targets), "OUTPUT": str(tmp_path / "means.gpkg")})
+    means = [feature["zinc_est"] for feature in QgsVectorLayer(result["OUTPUT"], "means", "ogr").getFeatures()]
+    np.testing.assert_allclose(means, document.transform.back_mean(mean, variance), rtol=1e-6)
 
 
 def test_boxcox_with_lambda_zero_fits_the_log_model(qgis_processing, meuse, tmp_path):  # noqa: F811
