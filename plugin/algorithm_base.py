@@ -362,8 +362,8 @@ class FieldcastAlgorithm(QgsProcessingAlgorithm):
             type=QgsProcessingParameterNumber.Double, optional=True))
 
     def add_backtransform_parameter(self) -> None:
-        """BACKTRANSFORM (advanced): median (default) or mean, for log models."""
-        self.add_choice(self.BACKTRANSFORM, self.tr("Back-transform (log models)"), BACKTRANSFORMS, "median",
+        """BACKTRANSFORM (advanced): median (default) or mean, for transformed models."""
+        self.add_choice(self.BACKTRANSFORM, self.tr("Back-transform (transformed models)"), BACKTRANSFORMS, "median",
                         expert=True)
 
     def neighbourhood(self, parameters, context) -> Neighbourhood:

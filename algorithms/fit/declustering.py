@@ -49,7 +49,8 @@ def cell_weights(xy: np.ndarray, size: float, shifts: int = ORIGIN_SHIFTS) -> np
     total = np.zeros(len(xy))
     for k in range(shifts):
         cells = np.floor((xy - (origin - k * size / shifts)) / size).astype(np.int64)
-        _, which, counts = np.unique(cells, axis=0, return_inverse=True, return_counts=True)
+        key = cells[:, 0] * (int(cells[:, 1].max()) + 1) + cells[:, 1]  # one number per cell: a 1-D unique is fast
+        _, which, counts = np.unique(key, return_inverse=True, return_counts=True)
         total += 1.0 / (len(counts) * counts[which.ravel()])
     return total * len(xy) / total.sum()
 

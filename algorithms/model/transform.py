@@ -193,9 +193,15 @@ class Transform:
         mean = np.asarray(mean, dtype=float)
         if self.is_log:
             return np.exp(2.0 * mean + variance) * np.expm1(variance)
+        return self.back_moments(mean, variance)[1]
+
+    def back_moments(self, mean: np.ndarray, variance: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """:meth:`back_mean` and :meth:`back_variance` together (one quadrature for Box-Cox and normal score)."""
+        if self.kind == "none" or self.is_log:
+            return self.back_mean(mean, variance), self.back_variance(mean, variance)
         first, second = self._expectations(mean, variance)
         with np.errstate(invalid="ignore"):
-            return np.clip(second - first * first, 0.0, None)
+            return first, np.clip(second - first * first, 0.0, None)
 
     def back_sd(self, mean: np.ndarray, variance: np.ndarray) -> np.ndarray:
         """Standard deviation of the attribute, the square root of :meth:`back_variance` (original units).

@@ -115,17 +115,15 @@ class SurfaceScale:
     def values(self, mean: np.ndarray, variance: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         """Prediction and variance in attribute units (squared for the variance)."""
         if self.backtransform == "mean":
-            prediction = self.transform.back_mean(mean, variance)
-        else:
-            prediction = self.transform.back_median(mean)
-        return prediction, self.transform.back_variance(mean, variance)
+            return self.transform.back_moments(mean, variance)
+        return self.transform.back_median(mean), self.transform.back_variance(mean, variance)
 
     def layers(self, mean: np.ndarray, variance: np.ndarray, kinds) -> dict[str, np.ndarray]:
         """The rasters named in ``kinds`` (of :data:`SURFACE_KINDS`) for modelling-scale ``mean`` and ``variance``."""
         prediction, back_variance = self.values(mean, variance)
         layers = {"prediction": prediction, "variance": back_variance}
         if "sd" in kinds:
-            layers["sd"] = self.transform.back_sd(mean, variance)
+            layers["sd"] = np.sqrt(back_variance)  # Transform.back_sd, without a second quadrature
         if "lower" in kinds:
             layers["lower"] = self.transform.back_quantile(mean, variance, -self.interval_z)
         if "upper" in kinds:

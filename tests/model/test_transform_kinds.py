@@ -10,6 +10,7 @@ from fieldcast.algorithms import KrigingPredictor, MeanModel, SurfaceScale
 from fieldcast.algorithms.errors import FieldcastError
 from fieldcast.algorithms.io.model_checks import check_document
 from fieldcast.algorithms.model.transform import Transform
+from fieldcast.algorithms.predict.exceedance import exceedance_probability
 from reference import MEUSE_LOG_ZINC
 
 MU = np.array([-0.8, 0.0, 1.1, 2.3])
@@ -134,3 +135,14 @@ def test_incomplete_or_bad_transforms_are_refused():
         Transform("normalscore", knots=((1.0, -5.0), (3.0, 0.0), (2.0, 5.0)))
     with pytest.raises(FieldcastError, match="two different values"):
         Transform.normal_score(np.array([3.0, 3.0]))
+
+
+def test_exceedance_of_thresholds_outside_the_transform_range():
+    # Z + offset > 0 under Box-Cox, so every place exceeds a threshold at or below -offset; a normal-score
+    # threshold beyond the upper bound gets the tail score 5, P(N(0, 1) > 5) by scipy.stats.norm.sf.
+    mean, variance = np.array([0.2, 1.0]), np.array([0.3, 0.1])
+    np.testing.assert_array_equal(exceedance_probability(mean, variance, -2.0, transform=Transform("boxcox", 2.0, 0.5)),
+                                  [1.0, 1.0])
+    scores = Transform.normal_score(np.array([2.0, 4.0, 6.0, 12.0]))
+    np.testing.assert_allclose(exceedance_probability(np.zeros(1), np.ones(1), 99.0, transform=scores),
+                               stats.norm.sf(5.0), rtol=1e-12)
