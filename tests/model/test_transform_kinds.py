@@ -117,13 +117,28 @@ def test_normal_score_tails_are_as_stated():
     np.testing.assert_array_equal(transform.inverse(np.array([-9.0, 9.0])), [1.0, 13.0])
 
 
+def model_data(transform: dict) -> dict:
+    return {"format_version": 1, "crs": "x", "units": "m", "nugget": 0.1,
+            "structures": [{"family": "exponential", "partial_sill": 1.0, "range": 100.0}],
+            "mean": {"kind": "constant"}, "transform": transform}
+
+
 def test_transforms_round_trip_through_the_model_file_form(meuse):
     for transform in (Transform("boxcox", 0.5, -0.25), Transform.normal_score(meuse.zinc)):
         data = transform.to_dict()
         assert Transform.from_dict(data) == transform
-        check_document({"format_version": 1, "crs": "x", "units": "m", "nugget": 0.1,
-                          "structures": [{"family": "exponential", "partial_sill": 1.0, "range": 100.0}],
-                          "mean": {"kind": "constant"}, "transform": data}, "model.json", 1)
+        check_document(model_data(data), "model.json", 1)
+
+
+@pytest.mark.parametrize(("transform", "refusal"), [
+    ({"kind": "boxcox", "offset": 0.0}, r"has no transform.lambda; it must be a finite number between -5 and 5"),
+    ({"kind": "boxcox", "lambda": 9.0}, r"transform.lambda = 9.0; it must be a finite number between -5 and 5"),
+    ({"kind": "normalscore", "knots": [[1, -5], [3, 0], [2, 5]]}, r"transform.knots = .*both increasing"),
+    ({"kind": "normalscore"}, r"has no transform.knots"),
+])
+def test_model_files_with_unusable_transforms_are_refused(transform, refusal):
+    with pytest.raises(FieldcastError, match=refusal):
+        check_document(model_data(transform), "The model file", 1)
 
 
 def test_incomplete_or_bad_transforms_are_refused():
