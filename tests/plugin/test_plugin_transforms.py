@@ -6,6 +6,7 @@ import json
 
 import numpy as np
 import pytest
+from osgeo import gdal
 from qgis.core import QgsProcessingException, QgsVectorLayer
 from scipy import stats
 
@@ -14,6 +15,7 @@ from fieldcast.algorithms.fit.options import FitOptions
 from fieldcast.algorithms.fit.transform_fit import boxcox_profile
 from fieldcast.algorithms.io.model_file import ModelDocument
 from fieldcast.algorithms.model.transform import Transform
+from fieldcast.algorithms.predict.crossval import leave_one_out
 from fieldcast.algorithms.predict.kriging import KrigingPredictor
 from qgis_support import fieldcast_plugin, point_layer, qgis_processing  # noqa: F401 - fixtures
 from test_plugin_predictpoints import Log, labelled_layer
@@ -56,6 +58,25 @@ def test_normal_score_model_round_trip_through_predictpoints(qgis_processing, me
         "TARGETS": labelled_layer(targets), "OUTPUT": str(tmp_path / "means.gpkg")})
     means = [feature["zinc_est"] for feature in QgsVectorLayer(result["OUTPUT"], "means", "ogr").getFeatures()]
     np.testing.assert_allclose(means, document.transform.back_mean(mean, variance), rtol=1e-6)
+
+
+def test_normal_score_model_in_crossvalidate_and_simulate(qgis_processing, meuse, tmp_path):  # noqa: F811
+    model = fit(qgis_processing, meuse, tmp_path / "zinc.json", TRANSFORM="normalscore")["OUTPUT_MODEL"]
+    document = ModelDocument.load(model)
+    samples = point_layer(meuse.xy, {"zinc": meuse.zinc})
+    outputs = qgis_processing.run("fieldcast:crossvalidate", {"INPUT": samples, "FIELD": "zinc", "MODEL": model,
+                                                              "OUTPUT": "memory:"})
+    # Closed-form leave-one-out (Dubrule 1983) of the recorded scores; attribute-unit errors through the inverse.
+    scores = document.transform.forward(meuse.zinc)
+    expected = leave_one_out(meuse.xy, scores, document.covariance, document.mean).attribute_summary(
+        document.transform)
+    assert outputs["RMSE_ATTRIBUTE"] == pytest.approx(expected["RMSE_ATTRIBUTE"], rel=1e-9)
+    result = qgis_processing.run("fieldcast:simulate", {
+        "INPUT": samples, "FIELD": "zinc", "MODEL": model, "PIXEL_SIZE": 400.0, "REALIZATIONS": 4, "SEED": 3,
+        "OUTPUT": str(tmp_path / "sims.tif")})
+    bands = gdal.Open(result["OUTPUT"]).ReadAsArray()
+    low, high = document.transform.knots[0][0], document.transform.knots[-1][0]
+    assert bands.min() >= np.float32(low) and bands.max() <= np.float32(high)  # inside the stated tail bounds
 
 
 def test_boxcox_with_lambda_zero_fits_the_log_model(qgis_processing, meuse, tmp_path):  # noqa: F811
