@@ -103,6 +103,16 @@ def test_boxcox_lambda_estimated_by_the_fit(qgis_processing, meuse, tmp_path):  
     assert any("profile likelihood" in line for line in log.lines)
 
 
+def test_predictmany_learns_the_normal_scores_of_each_field(qgis_processing, meuse, tmp_path):  # noqa: F811
+    samples = point_layer(meuse.xy, {"zinc": meuse.zinc, "lead": meuse.lead})
+    qgis_processing.run("fieldcast:predictmany", {
+        "INPUT": samples, "FIELDS": ["zinc", "lead"], "TRANSFORM": "normalscore", **SETTINGS, "PIXEL_SIZE": 400.0,
+        "OUTPUT_FOLDER": str(tmp_path / "out")})
+    for field, values in (("zinc", meuse.zinc), ("lead", meuse.lead)):
+        document = ModelDocument.load(str(tmp_path / "out" / f"{field}_model.json"))
+        assert document.transform == Transform.normal_score(values, decluster(meuse.xy, values).weights)
+
+
 def test_shared_model_refuses_a_transform_learnt_per_field(qgis_processing, meuse, tmp_path):  # noqa: F811
     samples = point_layer(meuse.xy, {"zinc": meuse.zinc, "lead": meuse.lead})
     with pytest.raises(QgsProcessingException, match=r"BOXCOX_LAMBDA.*One correlation model for all fields"):
