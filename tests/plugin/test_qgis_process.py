@@ -415,6 +415,9 @@ REFUSALS = [
     ("fieldcast:predict", {"INPUT": "{samples}", "FIELD": "zinc", "MODEL": "{model}", "PIXEL_SIZE": 400,
                            "OUTPUT": "{read_only}"},
      ("(OUTPUT) exists and is read-only, so it is not replaced", "Make the file writable")),
+    ("fieldcast:fitmodel", {"INPUT": "{samples}", "FIELD": "zinc", **FIT_SETTINGS, "TRANSFORM": "boxcox",
+                            "BOXCOX_LAMBDA": 9, "OUTPUT_MODEL": "{out}/zinc.json"},
+     ("The Box-Cox lambda (BOXCOX_LAMBDA) must lie between -5 and 5", "Leave it empty to estimate it")),
 ]
 
 
@@ -423,7 +426,8 @@ REFUSALS = [
                               "extent-too-wide", "negative-seed", "geopackage-without-crs", "nan-azimuth",
                               "huge-partial-sill", "transform-as-text", "fit-as-text", "nan-known-mean",
                               "variance-beyond-float32", "values-near-1e300", "realisations-beyond-geotiff-bands",
-                              "mask-without-crs", "empty-mask", "output-on-mask", "read-only-output"])
+                              "mask-without-crs", "empty-mask", "output-on-mask", "read-only-output",
+                              "boxcox-lambda-out-of-range"])
 def test_refusals_through_qgis_process_name_cause_and_way_out_and_touch_nothing(profile, refusal_inputs, tmp_path,
                                                                                algorithm, parameters, fragments):
     out = tmp_path / "out"
