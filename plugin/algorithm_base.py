@@ -306,9 +306,7 @@ class FieldcastAlgorithm(QgsProcessingAlgorithm):
         """The transform and the engine's fit settings chosen with the parameters of :meth:`add_fit_parameters`
         (the one place the dialog's words become them)."""
         kind = self.choice(parameters, self.TRANSFORM, context)
-        given = parameters.get(self.BOXCOX_LAMBDA)
-        lam = self.parameterAsDouble(parameters, self.BOXCOX_LAMBDA, context) \
-            if kind == "boxcox" and given not in (None, "") else None
+        lam = self.optional_number(parameters, self.BOXCOX_LAMBDA, context) if kind == "boxcox" else None
         transform = Transform(kind, self.parameterAsDouble(parameters, self.LOG_OFFSET, context), lam)
         settings = FitOptions(kernel=self.choice(parameters, self.KERNEL, context),
                               anisotropy=self.parameterAsBoolean(parameters, self.ANISOTROPY, context),
@@ -328,8 +326,9 @@ class FieldcastAlgorithm(QgsProcessingAlgorithm):
         declustering = decluster(layer_samples.xy, layer_samples.values)
         for line in declustering.log_lines(layer_samples.working.units):
             feedback.pushInfo(line)
-        if declustering.warning():
-            feedback.pushWarning(declustering.warning())
+        clustered = declustering.warning()
+        if clustered:
+            feedback.pushWarning(clustered)
         if transform.kind == "boxcox" and not transform.complete:
             feedback.pushInfo("Estimating the Box-Cox lambda by profile likelihood (one fit per lambda tried).")
             raw, covariates = self.fit_covariates(prepare_samples(layer_samples, Transform(), feedback), sources,
