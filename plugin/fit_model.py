@@ -95,7 +95,8 @@ class FitModelAlgorithm(FieldcastAlgorithm):
           "and ΔAIC (the difference from the lowest AIC), the cell declustering of the samples (declustered mean; a "
           "warning when the sampling is strongly clustered), and the fit warnings."),
          ("Fit report", "HTML page (a temporary file unless you name one or skip it): the samples "
-          "used and left out, their histogram and map, their declustered mean and histogram, the empirical semivariogram of the residuals from the mean "
+          "used and left out, their histogram and map, their declustered mean and histogram, the empirical "
+          "semivariogram of the residuals from the mean "
           "in all directions and in four, with the fitted model drawn over it, every candidate model with its AIC "
           "and leave-one-out RMSE and the chosen one marked, the parameters in words, and the fit warnings. Read "
           "it before trusting a map made with this model. The model file and the report are written only when "
