@@ -47,6 +47,7 @@ from ..algorithms import (
     Cancelled,
     CovariateSet,
     CovariateSource,
+    Declustering,
     FieldcastError,
     FieldcastUsageError,
     FitOptions,
@@ -58,6 +59,8 @@ from ..algorithms import (
     SampleCovariates,
     Transform,
     WorkingCrs,
+    decluster,
+    fitted_transform,
     measurement_variance,
     refuse_read_only,
     remove_stale_files,
@@ -67,7 +70,7 @@ from ..algorithms import (
 from .destinations import destination_value, layer_file, refuse_clashes
 from .help_text import SHORT_DESCRIPTIONS, help_url, parameter_help, search_words
 from .icons import icon, icon_path
-from .model_source import describe_document, fit_document, load_document, log_fit
+from .model_source import describe_document, fit_document, load_document, log_fit, with_covariate_mean
 from .report.page import ReportError
 from .sample_reader import LayerSamples, ModelSamples, crs_wkt, prepare_samples, read_layer_samples
 from .whole_numbers import whole_number
@@ -140,6 +143,7 @@ class FieldcastAlgorithm(QgsProcessingAlgorithm):
     OUTPUT_REPORT = "OUTPUT_REPORT"
     TRANSFORM = "TRANSFORM"
     LOG_OFFSET = "LOG_OFFSET"
+    BOXCOX_LAMBDA = "BOXCOX_LAMBDA"
     KERNEL = "KERNEL"
     ANISOTROPY = "ANISOTROPY"
     TREND = "TREND"
@@ -290,11 +294,15 @@ class FieldcastAlgorithm(QgsProcessingAlgorithm):
             self.OUTPUT_REPORT, description, self.tr("HTML files (*.html)"), optional=True, createByDefault=True))
 
     def add_fit_parameters(self) -> None:
-        """TRANSFORM, LOG_OFFSET (advanced), KERNEL, ANISOTROPY, TREND and METHOD: the choices of a fit."""
+        """TRANSFORM, LOG_OFFSET and BOXCOX_LAMBDA (advanced), KERNEL, ANISOTROPY, TREND and METHOD: the choices of
+        a fit."""
         self.add_choice(self.TRANSFORM, self.tr("Transform"), TRANSFORM_KINDS, "none")
         self.addParameter(advanced(QgsProcessingParameterNumber(
             self.LOG_OFFSET, self.tr("Log offset (attribute units)"), type=QgsProcessingParameterNumber.Double,
             defaultValue=0.0)))
+        self.addParameter(advanced(QgsProcessingParameterNumber(
+            self.BOXCOX_LAMBDA, self.tr("Box-Cox lambda (empty = estimate)"), type=QgsProcessingParameterNumber.Double,
+            optional=True)))
         self.add_choice(self.KERNEL, self.tr("Covariance family"), KERNEL_CHOICES, "auto")
         self.addParameter(QgsProcessingParameterBoolean(self.ANISOTROPY, self.tr("Anisotropy"), defaultValue=True))
         self.add_choice(self.TREND, self.tr("Trend"), TREND_CHOICES, "constant")
@@ -303,8 +311,9 @@ class FieldcastAlgorithm(QgsProcessingAlgorithm):
     def fit_choices(self, parameters, context) -> tuple[Transform, FitOptions]:
         """The transform and the engine's fit settings chosen with the parameters of :meth:`add_fit_parameters`
         (the one place the dialog's words become them) and NUGGET."""
-        transform = Transform(self.choice(parameters, self.TRANSFORM, context),
-                              self.parameterAsDouble(parameters, self.LOG_OFFSET, context))
+        kind = self.choice(parameters, self.TRANSFORM, context)
+        lam = self.optional_number(parameters, self.BOXCOX_LAMBDA, context) if kind == "boxcox" else None
+        transform = Transform(kind, self.parameterAsDouble(parameters, self.LOG_OFFSET, context), lam)
         settings = FitOptions(kernel=self.choice(parameters, self.KERNEL, context),
                               anisotropy=self.parameterAsBoolean(parameters, self.ANISOTROPY, context),
                               mean=self.choice(parameters, self.TREND, context),
@@ -350,6 +359,36 @@ class FieldcastAlgorithm(QgsProcessingAlgorithm):
         feedback.pushInfo(target_words(variance, samples.error_variance))
         return variance
 
+    def complete_transform(self, layer_samples: LayerSamples, transform: Transform, settings: FitOptions,
+                           sources: list[CovariateSource], feedback) -> tuple[Transform, Declustering]:
+        """The transform of a fit completed from the samples (the engine's ``fitted_transform``), and the samples'
+        cell declustering, both logged (with the warning of strongly clustered sampling).
+
+        Normal-score knots come from every sample, weighted by the declustering weights. A Box-Cox lambda is
+        estimated on the samples as the fit sees them (coincident ones averaged in attribute units, covariates
+        read), with the trend and covariates of the fit.
+        """
+        declustering = decluster(layer_samples.xy, layer_samples.values)
+        for line in declustering.log_lines(layer_samples.working.units):
+            feedback.pushInfo(line)
+        clustered = declustering.warning()
+        if clustered:
+            feedback.pushWarning(clustered)
+        if transform.kind == "boxcox" and not transform.complete:
+            feedback.pushInfo("Estimating the Box-Cox lambda by profile likelihood (one fit per lambda tried).")
+            raw, covariates = self.fit_covariates(prepare_samples(layer_samples, Transform(), feedback), sources,
+                                                  layer_samples.working, feedback)
+            fitted = fitted_transform(transform, raw.xy, raw.values,
+                                      with_covariate_mean(settings, raw.xy, covariates, raw.covariates),
+                                      covariates=raw.covariates, progress=progress_callback(feedback, 0.0, 30.0),
+                                      should_stop=feedback.isCanceled)
+        else:
+            fitted = fitted_transform(transform, layer_samples.xy, layer_samples.values, settings,
+                                      declustering=declustering)
+        for line in fitted.log_lines():
+            feedback.pushInfo(line)
+        return fitted.transform, declustering
+
     def add_neighbourhood_parameters(self, per: str = "cell") -> None:
         """NEIGHBOURS (0 = all samples) and SEARCH_RADIUS (optional), both advanced; ``per`` is what each
         neighbourhood serves."""
@@ -367,8 +406,8 @@ class FieldcastAlgorithm(QgsProcessingAlgorithm):
             type=QgsProcessingParameterNumber.Double, optional=True))
 
     def add_backtransform_parameter(self) -> None:
-        """BACKTRANSFORM (advanced): median (default) or mean, for log models."""
-        self.add_choice(self.BACKTRANSFORM, self.tr("Back-transform (log models)"), BACKTRANSFORMS, "median",
+        """BACKTRANSFORM (advanced): median (default) or mean, for transformed models."""
+        self.add_choice(self.BACKTRANSFORM, self.tr("Back-transform (transformed models)"), BACKTRANSFORMS, "median",
                         expert=True)
 
     def neighbourhood(self, parameters, context) -> Neighbourhood:

@@ -101,9 +101,11 @@ class FitModelAlgorithm(FieldcastAlgorithm):
          TARGET_CRS_HELP],
         [("Model file", "JSON file with the fitted model, its CRS, transform and fit statistics."),
          ("Log", "The chosen model in words (family, anisotropy, effective range), every candidate with its AIC "
-          "and ΔAIC (the difference from the lowest AIC), and the fit warnings."),
+          "and ΔAIC (the difference from the lowest AIC), the cell declustering of the samples (declustered mean; a "
+          "warning when the sampling is strongly clustered), and the fit warnings."),
          ("Fit report", "HTML page (a temporary file unless you name one or skip it): the samples "
-          "used and left out, their histogram and map, the empirical semivariogram of the residuals from the mean "
+          "used and left out, their histogram and map, their declustered mean and histogram, the empirical "
+          "semivariogram of the residuals from the mean "
           "in all directions and in four, with the fitted model drawn over it, every candidate model with its AIC "
           "and leave-one-out RMSE and the chosen one marked, the parameters in words, and the fit warnings. Read "
           "it before trusting a map made with this model. The model file and the report are written only when "
@@ -131,6 +133,7 @@ class FitModelAlgorithm(FieldcastAlgorithm):
         report_path = self.report_destination(parameters, context)
         sources = self.covariate_sources(parameters, context)
         layer_samples = self.read_samples(parameters, context, feedback)
+        transform, declustering = self.complete_transform(layer_samples, transform, settings, sources, feedback)
         samples, covariates = self.fit_covariates(prepare_samples(layer_samples, transform, feedback), sources,
                                                   layer_samples.working, feedback)
         feedback.pushInfo(f"Fitting with {settings.describe()}"
@@ -145,6 +148,7 @@ class FitModelAlgorithm(FieldcastAlgorithm):
         if report_path:
             feedback.pushInfo(f"Leave-one-out of the {len(result.candidates)} candidate model(s) for the report.")
             report = fit_report_arguments(samples, layer_samples.skipped, result, document, feedback)
+            report.update(declustering=declustering, attribute_values=layer_samples.values)
         path = self.parameterAsFileOutput(parameters, self.OUTPUT_MODEL, context)
         document.save(path)
         outputs = {self.OUTPUT_MODEL: path}

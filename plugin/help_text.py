@@ -35,8 +35,17 @@ MODEL_FILE_HELP = (
 
 FIT_HELP = [
     ("Transform", "none, or log: model ln(value + log offset), for skewed positive data such as metal "
-     "concentrations. Log needs every value + offset > 0."),
-    ("Log offset", "Added to the values before the logarithm (attribute units, default 0)."),
+     "concentrations. Log needs every value + offset > 0. boxcox: model ((value + offset)^lambda - 1) / lambda "
+     "(Box-Cox; lambda 0 is the log), lambda given or estimated by profile likelihood, also needs value + offset > "
+     "0. normalscore: model the normal scores of the values (their distribution, weighted by cell declustering, "
+     "matched to a standard normal; linear between the values and in the tails to bounds one tenth of the data "
+     "range beyond them). Every later tool applies the transform recorded in the model file; boxcox and normalscore "
+     "maps are back-transformed through the inverse (median, quantiles) and by numerical integration (mean, "
+     "variance)."),
+    ("Log offset", "Added to the values before the logarithm or the Box-Cox power (attribute units, default 0)."),
+    ("Box-Cox lambda", "For boxcox only: the exponent, between -5 and 5 (0 = log, 1 = a shift only). Empty: "
+     "estimated in [-1, 2] by profile likelihood (the model refitted at each lambda tried, the exponential family "
+     "when the family is auto; slower), and the log gives the value."),
     ("Covariance family", "auto tries exponential, spherical, Gaussian, Matérn 3/2 and 5/2 and keeps "
      "the best by AIC; or choose one; matern also fits the smoothness."),
     ("Anisotropy", "Let the range depend on direction (an ellipse with an azimuth and a minor/major "
@@ -96,8 +105,9 @@ MAP_AREA_HELP = [
      "between neighbouring samples (the log says how much)."),
 ]
 
-BACKTRANSFORM_HELP = ("Back-transform", "For a log model only: median (exp(mu) - offset, the default, robust) or "
-                      "mean (exp(mu + s2/2) - offset).")
+BACKTRANSFORM_HELP = ("Back-transform", "For a transformed model only: median (exp(mu) - offset for log, the "
+                      "inverse transform of mu in general; the default, robust) or mean (exp(mu + s2/2) - offset for "
+                      "log; Gauss-Hermite quadrature for boxcox and normalscore).")
 
 NEIGHBOURHOOD_HELP = [
     ("Neighbours per cell", "0 (the default): every sample takes part in every cell (global kriging), up to "

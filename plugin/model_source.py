@@ -149,7 +149,7 @@ def describe_document(document: ModelDocument) -> str:
         parts.append(f"{structure.family} partial sill {structure.partial_sill:.4g}, range {structure.range:.4g} "
                      f"{document.units}, azimuth {structure.azimuth:.1f}°, ratio {structure.ratio:.3g}")
     transform = "no transform" if document.transform.kind == "none" else \
-        f"log transform (offset {document.transform.offset:g})"
+        f"transform: {document.transform.units_note} modelled"
     covariates = ", ".join(f"{c.name} ({c.kind}" + (f", baseline class {c.baseline:g})" if c.kind == "class" else ")")
                            for c in document.covariates.covariates)
     mean = f"{document.mean.kind} mean" + (f" with covariates {covariates}" if covariates else "")

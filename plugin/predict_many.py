@@ -202,17 +202,24 @@ class PredictManyAlgorithm(SurfaceAlgorithm):
                                  "(SHARED_MODEL).")
         folder = self.output_folder(parameters, context)
         transform, settings = self.fit_choices(parameters, context)
+        if shared and not transform.complete:
+            raise FieldcastError(f"One correlation model for all fields needs one transform for all of them, but "
+                                 f"{transform.kind} learns its {'lambda' if transform.kind == 'boxcox' else 'knots'} "
+                                 "from each field's values. Give a Box-Cox lambda (BOXCOX_LAMBDA), choose log or none, "
+                                 "or turn off 'One correlation model for all fields'.")
         target = self.parameterAsCrs(parameters, self.TARGET_CRS, context)
         template = self.grid_template(parameters, context)
         sources = self.covariate_sources(parameters, context)
-        prepared, covariates = [], []
+        prepared, covariates, transforms = [], [], []
         for field in fields:  # every field is checked before any file is written
             layer_samples = read_layer_samples(source, field, target, feedback, template, error_field)
-            samples, described = self.fit_covariates(prepare_samples(layer_samples, transform, feedback), sources,
+            completed, _ = self.complete_transform(layer_samples, transform, settings, sources, feedback)
+            samples, described = self.fit_covariates(prepare_samples(layer_samples, completed, feedback), sources,
                                                      layer_samples.working, feedback)
             prepared.append((layer_samples, samples))
             covariates.append(described)
-        run = FieldsRun(prepared, file_stems(fields), folder, transform, settings,
+            transforms.append(completed)
+        run = FieldsRun(prepared, file_stems(fields), folder, transforms, settings,
                         self.neighbourhood(parameters, context),
                         SurfaceScale(transform, self.choice(parameters, self.BACKTRANSFORM, context)), covariates)
         first_mean = MeanModel.for_data(settings.mean, prepared[0][1].xy, covariates[0].column_names)
@@ -239,15 +246,15 @@ class PredictManyAlgorithm(SurfaceAlgorithm):
                     raise Cancelled("Cancelled between fields.")
                 feedback.pushInfo(f"Field {index + 1} of {len(run.prepared)}: {field}. Fitting with "
                                   f"{run.settings.describe()}.")
-                document, result = fit_document(samples.xy, samples.values, run.transform, layer_samples.working,
-                                                field, run.settings,
+                document, result = fit_document(samples.xy, samples.values, run.transforms[index],
+                                                layer_samples.working, field, run.settings,
                                                 progress_callback(feedback, start, start + FIT_SHARE * share),
                                                 feedback.isCanceled, run.covariates[index], samples.covariates,
                                                 samples.error_variance, samples.error_field)
                 log_fit(feedback, samples.xy, samples.values, result, document, field, samples.covariates)
                 feedback.pushInfo(describe_document(document))
-                scale = replace(run.scale, measurement_variance=self.added_variance(parameters, context, document,
-                                                                                    samples, feedback))
+                added = self.added_variance(parameters, context, document, samples, feedback)
+                scale = replace(run.field_scale(index), measurement_variance=added)
                 key = (document.crs_wkt, samples.xy.tobytes())
                 if key in grids:
                     feedback.pushInfo("Same sample locations as an earlier field: its grid and mask are reused.")
@@ -281,7 +288,7 @@ class PredictManyAlgorithm(SurfaceAlgorithm):
         feedback.pushInfo(f"Fitting one correlation model to the {len(fields)} fields jointly with "
                           f"{run.settings.describe()}.")
         try:
-            fitted = fit_shared_documents(first.xy, values, run.transform, working, fields, run.settings,
+            fitted = fit_shared_documents(first.xy, values, run.transforms[0], working, fields, run.settings,
                                           progress_callback(feedback, 0, 100 * FIT_SHARE), feedback.isCanceled,
                                           run.covariates[0], first.covariates)
             for (document, result), field_values in zip(fitted, values.T):
@@ -311,11 +318,16 @@ class FieldsRun:
     prepared: list
     stems: dict[str, str]
     folder: str
-    transform: Transform
+    transforms: list[Transform]
     settings: FitOptions
     neighbourhood: Neighbourhood
     scale: SurfaceScale
     covariates: list[CovariateSet]
+
+    def field_scale(self, index: int) -> SurfaceScale:
+        """The output scale of field ``index``: its own transform (a Box-Cox lambda or normal-score knots of its
+        own)."""
+        return replace(self.scale, transform=self.transforms[index])
 
     def raster_paths(self, field: str) -> dict[str, str]:
         """The GeoTIFFs of a field, by the kinds of :data:`RASTER_KINDS`."""

@@ -13,11 +13,13 @@ import math
 from collections.abc import Callable
 from typing import Any
 
+import numpy as np
+
 from ..errors import FieldcastError
 from ..model.correlation import FAMILIES, SMOOTHNESS_BOUNDS
 from ..model.covariance import MAX_SILL
 from ..model.mean import MEAN_KINDS
-from ..model.transform import TRANSFORM_KINDS
+from ..model.transform import LAMBDA_LIMIT, TRANSFORM_KINDS
 from .covariates import COVARIATE_KINDS
 
 ADVICE = "Refit the model with 'Fit covariance model', or correct the file."
@@ -115,8 +117,24 @@ def check_document(data: dict, source: str, newest_version: int) -> None:
     check_covariance(check, data)
     check_mean(check, check.mapping(data, "mean"))
     transform = check.mapping(data, "transform")
-    check.text(transform, "kind", "transform.", TRANSFORM_KINDS, default="none")
+    kind = check.text(transform, "kind", "transform.", TRANSFORM_KINDS, default="none")
     check.number(transform, "offset", "transform.", "", default=0.0)
+    if kind == "boxcox":
+        check.number(transform, "lambda", "transform.", f" between {-LAMBDA_LIMIT:g} and {LAMBDA_LIMIT:g}",
+                     lambda v: abs(v) <= LAMBDA_LIMIT)
+    if kind == "normalscore":
+        check.value(transform, "knots", "transform.", "a list of at least three [value, score] pairs of finite "
+                    "numbers, both increasing", knots_usable)
+
+
+def knots_usable(item: Any) -> bool:
+    """Whether ``item`` is a usable list of normal-score knots ``[[z, y], ...]``."""
+    if not isinstance(item, list) or len(item) < 3 or not all(
+            isinstance(pair, list) and len(pair) == 2 and all(is_number(v) and math.isfinite(v) for v in pair)
+            for pair in item):
+        return False
+    table = np.array(item, dtype=float)
+    return bool(np.all(np.diff(table, axis=0) > 0))
 
 
 def check_covariance(check: DocumentCheck, data: dict) -> None:

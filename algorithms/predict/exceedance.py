@@ -63,7 +63,7 @@ def exceedance_probability(mean: np.ndarray, variance: np.ndarray, threshold: fl
     if target == "measurement":
         variance = variance + float(nugget)
     transform = Transform() if transform is None else transform
-    if transform.kind == "log" and threshold + transform.offset <= 0:
+    if transform.positive_only and threshold + transform.offset <= 0:
         # Z + offset > 0 always, so every cell exceeds a threshold at or below -offset.
         return np.ones_like(mean)
     level = float(transform.forward(np.array([threshold]))[0])

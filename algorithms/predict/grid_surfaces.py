@@ -22,7 +22,7 @@ from ..io.geotiff import GeoTiffWriter
 from ..io.grid import GridSpec
 from ..io.nodata_counts import NodataCounts, unwritable
 from ..io.staging import staged_together
-from ..model.transform import Transform
+from ..model.transform import HERMITE_ORDER, Transform
 from .block import DEFAULT_POINTS_PER_SIDE, block_predict
 from .exceedance import exceedance_probability
 from .extrapolation import ExtrapolationCheck
@@ -81,7 +81,8 @@ class SurfaceScale:
     transform : Transform
         Transform of the model.
     backtransform : str
-        ``"median"`` (``exp(mu) - offset``) or ``"mean"`` (``exp(mu + s2/2) - offset``) for a log model.
+        ``"median"`` (``exp(mu) - offset`` for a log model, the inverse transform ``g(mu)`` in general) or ``"mean"``
+        (``exp(mu + s2/2) - offset``; Gauss-Hermite quadrature of ``g`` for Box-Cox and normal-score models).
     support : str
         ``"point"`` (value at the cell centre) or ``"cell"`` (average over the cell).
     threshold : float or None
@@ -126,17 +127,15 @@ class SurfaceScale:
     def values(self, mean: np.ndarray, variance: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         """Prediction and variance in attribute units (squared for the variance)."""
         if self.backtransform == "mean":
-            prediction = self.transform.back_mean(mean, variance)
-        else:
-            prediction = self.transform.back_median(mean)
-        return prediction, self.transform.back_variance(mean, variance)
+            return self.transform.back_moments(mean, variance)
+        return self.transform.back_median(mean), self.transform.back_variance(mean, variance)
 
     def layers(self, mean: np.ndarray, variance: np.ndarray, kinds) -> dict[str, np.ndarray]:
         """The rasters named in ``kinds`` (of :data:`SURFACE_KINDS`) for modelling-scale ``mean`` and ``variance``."""
         prediction, back_variance = self.values(mean, variance)
         layers = {"prediction": prediction, "variance": back_variance}
         if "sd" in kinds:
-            layers["sd"] = self.transform.back_sd(mean, variance)
+            layers["sd"] = np.sqrt(back_variance)  # Transform.back_sd, without a second quadrature
         if "lower" in kinds:
             layers["lower"] = self.transform.back_quantile(mean, variance, -self.interval_z)
         if "upper" in kinds:
@@ -166,18 +165,42 @@ class SurfaceScale:
                           f"{where}, {self.variance_words})",
                     "lower": quantile.format(low, "-"), "upper": quantile.format(high, "+"),
                     "exceedance": exceedance}
+        if not self.transform.is_log:
+            return self._inverse_descriptions(field, where, exceedance, low, high)
         offset = self.transform.offset
         formula = "exp(mu) - offset" if self.backtransform == "median" else "exp(mu + s2/2) - offset"
         quantile = (f"{{}} quantile of {field} (attribute units; lognormal predictive distribution: exp(mu {{}} z s) "
                     f"- offset, offset {offset:g}; {where} in the log scale)")
-        return {"prediction": f"prediction of {field} (attribute units; log model back-transformed to the "
-                              f"{self.backtransform}: {formula}, offset {offset:g}; {where} in the log scale)",
-                "variance": f"variance of {field} (attribute units squared; lognormal: exp(2 mu + s2) (exp(s2) - 1), "
-                            f"{self.variance_words}; {where} in the log scale)",
-                "sd": f"standard error of {field} (attribute units; lognormal: exp(mu + s2/2) sqrt(exp(s2) - 1), "
-                      f"{self.variance_words}; {where} in the log scale)",
-                "lower": quantile.format(low, "-"), "upper": quantile.format(high, "+"),
-                "exceedance": exceedance + (" (threshold log-transformed like the data)" if exceedance else "")}
+        return band_words(f"prediction of {field} (attribute units; log model back-transformed to the "
+                          f"{self.backtransform}: {formula}, offset {offset:g}; {where} in the log scale)",
+                          f"variance of {field} (attribute units squared; lognormal: exp(2 mu + s2) (exp(s2) - 1), "
+                          f"{self.variance_words}; {where} in the log scale)",
+                          f"standard error of {field} (attribute units; lognormal: exp(mu + s2/2) sqrt(exp(s2) - 1), "
+                          f"{self.variance_words}; {where} in the log scale)",
+                          (quantile.format(low, "-"), quantile.format(high, "+")),
+                          exceedance + (" (threshold log-transformed like the data)" if exceedance else ""))
+
+    def _inverse_descriptions(self, field: str, where: str, exceedance: str, low: str, high: str) -> dict[str, str]:
+        """Band descriptions of a Box-Cox (lambda not 0) or normal-score model: back-transforms through the inverse
+        ``g`` and Gauss-Hermite quadrature (:mod:`..model.transform`)."""
+        scale = self.transform.units_note
+        quadrature = f"Gauss-Hermite quadrature, {HERMITE_ORDER} nodes"
+        formula = "g(mu), the inverse transform" if self.backtransform == "median" else f"E g(Y), {quadrature}"
+        quantile = f"{{}} quantile of {field} (attribute units; g(mu {{}} z s); {where} in the {scale})"
+        return band_words(f"prediction of {field} (attribute units; {scale} back-transformed to the "
+                          f"{self.backtransform}: {formula}; {where} in the {scale})",
+                          f"variance of {field} (attribute units squared; {quadrature}, {self.variance_words}; "
+                          f"{where} in the {scale})",
+                          f"standard error of {field} (attribute units; square root of the variance by {quadrature}, "
+                          f"{self.variance_words}; {where} in the {scale})",
+                          (quantile.format(low, "-"), quantile.format(high, "+")),
+                          exceedance + (" (threshold transformed like the data)" if exceedance else ""))
+
+
+def band_words(prediction: str, variance: str, sd: str, quantiles: tuple[str, str], exceedance: str) -> dict[str, str]:
+    """The band descriptions of :data:`SURFACE_KINDS` from their words (``quantiles``: the lower and upper end)."""
+    return {"prediction": prediction, "variance": variance, "sd": sd, "lower": quantiles[0], "upper": quantiles[1],
+            "exceedance": exceedance}
 
 
 @dataclass(frozen=True)

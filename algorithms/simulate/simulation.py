@@ -223,7 +223,7 @@ def simulate_conditional(xy: np.ndarray, values: np.ndarray, covariance: Covaria
             flat[:, start:stop] += known + residuals @ predictor.weights(cells[start:stop], block_covariates)
         steps.advance(1)
     if transform is not None and transform.kind != "none":
-        for realisation in realisations:  # one at a time, in place: back_median(y) = exp(y) - offset
+        for realisation in realisations:  # one at a time, in place, through the inverse transform g(y)
             realisation[...] = transform.back_median(realisation)
     warnings = list(generator.warnings)
     if sampler.jitter:

@@ -32,6 +32,18 @@ def histogram_plot(plotly: SimpleNamespace, histogram: dict[str, list[float]], l
     return as_plot(plotly.go.Figure(bars, layout), "fc-plot-histogram", height=340)
 
 
+def declustered_histogram_plot(plotly: SimpleNamespace, histogram: dict[str, list[float]], label: str) -> Plot:
+    """Side-by-side bars of the share of samples per bin, unweighted and with the declustering weights."""
+    edges = np.asarray(histogram["edges"])
+    centres = (0.5 * (edges[:-1] + edges[1:])).tolist()
+    bars = [plotly.go.Bar(x=centres, y=histogram[key], name=name, marker={"color": colour},
+                          hovertemplate="%{x:.4g}: %{y:.3f}<extra>" + name + "</extra>")
+            for key, name, colour in (("raw", "raw", TEAL), ("declustered", "declustered", AMBER))]
+    layout = base_layout(xaxis={"title": {"text": label}}, yaxis={"title": {"text": "share of the samples"}},
+                         barmode="group", showlegend=True)
+    return as_plot(plotly.go.Figure(bars, layout), "fc-plot-declustered", height=340)
+
+
 def pair_marker_sizes(pairs: np.ndarray) -> list[float]:
     """Marker diameters in pixels growing with the square root of the pair count (none for no lags)."""
     pairs = np.asarray(pairs, dtype=float)

@@ -14,14 +14,20 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 
 from ...algorithms import write_text_atomically
-from .fit_figures import directional_plot, histogram_plot, omnidirectional_plot, sample_map_plot
+from .fit_figures import (
+    declustered_histogram_plot,
+    directional_plot,
+    histogram_plot,
+    omnidirectional_plot,
+    sample_map_plot,
+)
 from .model_tables import family_name, parameter_rows, scale_words, variance_units
 from .page import ReportError, render
 from .plotting import load_plotly, plotly_context
 from .statistics import STATISTIC_LABELS, describe, histogram
 
 if TYPE_CHECKING:
-    from ...algorithms import EmpiricalVariogram, FitResult, ModelDocument, Samples
+    from ...algorithms import Declustering, EmpiricalVariogram, FitResult, ModelDocument, Samples
 
 MEAN_WORDS = {
     "known": "known mean (simple kriging)",
@@ -136,6 +142,15 @@ def data_section(samples: Samples, model: ModelDocument, skipped: Mapping[str, i
     }
 
 
+def declustering_section(declustering: Declustering, values: np.ndarray) -> dict[str, Any]:
+    """The cell declustering of the samples (attribute ``values``, every sample read): cell size, raw and declustered
+    mean, clustering indices, the warning (None) and the raw and declustered histograms."""
+    return {"cell_size": declustering.cell_size, "raw_mean": declustering.raw_mean,
+            "declustered_mean": declustering.declustered_mean, "clark_evans": declustering.clark_evans,
+            "effective_share": declustering.effective_share, "warning": declustering.warning(),
+            "histogram": declustering.histogram(values)}
+
+
 def mean_section(fit: FitResult, standard_errors: Sequence[float] = ()) -> dict[str, Any]:
     """Kind of mean in words, whether it varies in space (trend or covariates), its coefficients and their
     standard errors (None each when not computed), and the covariates' classes and baselines."""
@@ -165,6 +180,8 @@ def write_fit_report(
     crs_name: str,
     skipped: Mapping[str, int] | None = None,
     candidate_loo_rmse: Sequence[float | None] | None = None,
+    declustering: Declustering | None = None,
+    attribute_values: np.ndarray | None = None,
 ) -> None:
     """Write the HTML report of a model fit to ``path`` (through a temporary file in the same folder).
 
@@ -193,6 +210,9 @@ def write_fit_report(
     candidate_loo_rmse : sequence of float, optional
         Leave-one-out RMSE of each candidate in ``fit.candidates`` (modelling
         units); the column shows a dash when omitted.
+    declustering : Declustering, optional
+        The cell declustering of every sample read, with ``attribute_values`` (their values in attribute units):
+        the report then shows the declustered mean and histogram.
     """
     omnidirectional, directional = split_variograms(variograms)
     transform, field, units = model.transform, model.field, model.units
@@ -205,6 +225,7 @@ def write_fit_report(
     mean["covariates"] = model.covariates.to_list()
     warnings = warning_items(fit)
     records = [variogram_record(v) for v in [omnidirectional, *directional]]
+    declustered = None if declustering is None else declustering_section(declustering, attribute_values)
     plotly = load_plotly()
     plots = {}
     if plotly is not None:
@@ -213,6 +234,8 @@ def write_fit_report(
             "variogram": omnidirectional_plot(plotly, omnidirectional, fit.covariance, units, variance_unit),
             "directional": directional_plot(plotly, directional, fit.covariance, units, variance_unit)
             if directional else None,
+            "declustered": None if declustered is None else
+            declustered_histogram_plot(plotly, declustered["histogram"], field or "the attribute"),
             "sample_map": sample_map_plot(plotly, samples.xy, samples.values, samples.ids, fit.covariance, label,
                                           units),
         }
@@ -232,6 +255,7 @@ def write_fit_report(
         "fit": {"method": fit.method, "likelihood": fit.likelihood, "log_likelihood": fit.log_likelihood,
                 "aic": fit.aic, "bic": fit.bic, "n": fit.n, "n_parameters": fit.n_parameters},
         "warnings": [item["message"] for item in warnings],
+        "declustering": declustered,
     }
     text = render("fit.html.j2", {
         "title": f"Model fit report: {field}" if field else "Model fit report",
@@ -239,6 +263,6 @@ def write_fit_report(
         "transform": transform, "variance_unit": variance_unit,
         "data": data, "omnidirectional": omnidirectional, "directional": directional,
         "candidates": candidates, "parameters": parameters, "mean": mean, "fit": fit, "warnings": warnings,
-        "plots": plots, "embedded": embedded, **plotly_context(plotly),
+        "plots": plots, "embedded": embedded, "declustering": declustered, **plotly_context(plotly),
     })
     write_text_atomically(path, text, "the report")

@@ -37,6 +37,8 @@ def scale_words(transform: Transform, field: str) -> str:
     name = field or "the attribute"
     if transform.kind == "none":
         return name
+    if not transform.is_log:
+        return transform.units_note.replace("the attribute", name).replace("attribute", name)
     return f"natural log of {name}" if transform.offset == 0 else f"natural log of ({name} + {transform.offset:g})"
 
 
@@ -44,6 +46,8 @@ def variance_units(transform: Transform, field: str) -> str:
     """Units of variances in the modelling scale."""
     if transform.kind == "none":
         return f"({field or 'attribute'} units)\u00b2"
+    if not transform.is_log:
+        return f"({transform.kind} units)\u00b2"
     return "(log units)\u00b2"
 
 

@@ -278,7 +278,7 @@ def test_several_chunks_of_targets_each_get_their_own_values(qgis_processing, me
 @pytest.mark.parametrize("extra, message", [
     ({"NEIGHBOURS": 1}, r"NEIGHBOURS is 1, but the constant mean of the model needs at least 2 samples per target "
                         r"point\. Set NEIGHBOURS to 2 or more"),
-    ({"BACKTRANSFORM": "mode"}, r"BACKTRANSFORM \(Back-transform \(log models\)\) must be one of median, mean"),
+    ({"BACKTRANSFORM": "mode"}, r"BACKTRANSFORM \(Back-transform \(transformed models\)\) must be one of median, mean"),
     ({"NEIGHBOURS": 8, "SEARCH_RADIUS": -5.0}, r"SEARCH_RADIUS"),
 ])
 def test_bad_neighbourhood_or_backtransform_is_refused_and_nothing_written(qgis_processing, meuse_predict,  # noqa: F811

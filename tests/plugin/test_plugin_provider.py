@@ -15,7 +15,7 @@ from repo_package import REPO_ROOT
 CONTRACT = {
     "fitmodel": ("Fit covariance model",
                  {"INPUT", "FIELD", "COVARIATES", "CLASS_COVARIATES", "TRANSFORM", "LOG_OFFSET", "KERNEL",
-                  "ANISOTROPY", "TREND", "METHOD", "TARGET_CRS", "OUTPUT_MODEL", "OUTPUT_REPORT"},
+                  "BOXCOX_LAMBDA", "ANISOTROPY", "TREND", "METHOD", "TARGET_CRS", "OUTPUT_MODEL", "OUTPUT_REPORT"},
                  {"OUTPUT_MODEL", "OUTPUT_REPORT", "FAMILY", "PARTIAL_SILL", "RANGE", "EFFECTIVE_RANGE",
                   "NUGGET", "AZIMUTH", "RATIO", "LOG_LIKELIHOOD", "AIC"}),
     "predict": ("Predict surface",
@@ -28,7 +28,7 @@ CONTRACT = {
                  "OUTPUT_DISTANCE"}),
     "predictmany": ("Predict surfaces for several fields",
                     {"INPUT", "FIELDS", "COVARIATES", "CLASS_COVARIATES", "TRANSFORM", "LOG_OFFSET", "KERNEL",
-                     "ANISOTROPY", "TREND", "METHOD",
+                     "BOXCOX_LAMBDA", "ANISOTROPY", "TREND", "METHOD",
                      "SHARED_MODEL", "TEMPLATE", "EXTENT", "PIXEL_SIZE", "MASK", "TEMPLATE_NODATA_MASK", "MAP_AREA",
                      "HULL_MARGIN", "BACKTRANSFORM",
                      "NEIGHBOURS", "SEARCH_RADIUS", "TARGET_CRS", "OUTPUT_FOLDER"},
@@ -52,7 +52,7 @@ CONTRACT = {
                        "RMSE_ATTRIBUTE"}),
 }
 CHOICES = {
-    ("fitmodel", "TRANSFORM"): ["none", "log"],
+    ("fitmodel", "TRANSFORM"): ["none", "log", "boxcox", "normalscore"],
     ("fitmodel", "KERNEL"): ["auto", "exponential", "spherical", "gaussian", "matern32", "matern52", "matern"],
     ("fitmodel", "TREND"): ["constant", "linear", "quadratic"],
     ("fitmodel", "METHOD"): ["reml", "ml", "wls"],
@@ -60,7 +60,7 @@ CHOICES = {
     ("predict", "SUPPORT"): ["point", "cell"],
     ("predict", "MAP_AREA"): ["hull", "extent"],
     ("predictmany", "MAP_AREA"): ["hull", "extent"],
-    ("predictmany", "TRANSFORM"): ["none", "log"],
+    ("predictmany", "TRANSFORM"): ["none", "log", "boxcox", "normalscore"],
     ("predictmany", "KERNEL"): ["auto", "exponential", "spherical", "gaussian", "matern32", "matern52", "matern"],
     ("predictmany", "TREND"): ["constant", "linear", "quadratic"],
     ("predictmany", "METHOD"): ["reml", "ml", "wls"],

@@ -252,6 +252,26 @@ def test_predictpoints_at_the_samples_is_the_kriging_of_the_model(profile, meuse
     np.testing.assert_allclose(got[:, 1], np.exp(mu + s2 / 2) * np.sqrt(np.expm1(s2)), rtol=1e-9)
 
 
+def test_normal_score_model_through_qgis_process(profile, meuse_layer, meuse, tmp_path):
+    model_path = tmp_path / "zinc_scores.json"
+    run = run_algorithm(profile, "fieldcast:fitmodel", {"INPUT": meuse_layer, "FIELD": "zinc", **FIT_SETTINGS,
+                                                        "TRANSFORM": "normalscore", "OUTPUT_MODEL": model_path})
+    assert run.returncode == 0, run.messages
+    points = tmp_path / "scores_at_samples.gpkg"
+    run = run_algorithm(profile, "fieldcast:predictpoints", {"INPUT": meuse_layer, "FIELD": "zinc", "MODEL": model_path,
+                                                             "TARGETS": meuse_layer, "OUTPUT": points})
+    assert run.returncode == 0, run.messages
+    dataset = ogr.Open(str(points))
+    rows = {int(feature.GetField("id")): feature.GetField("zinc_est") for feature in dataset.GetLayer()}
+    document = ModelDocument.load(str(model_path))
+    assert document.transform.kind == "normalscore"
+    mu, _ = KrigingPredictor(meuse.xy, document.transform.forward(meuse.zinc), document.covariance,
+                             document.mean).predict(meuse.xy)
+    # The median of the back-transformed Gaussian is the inverse transform of the kriging mean (monotone).
+    got = np.array([rows[int(sample)] for sample in meuse.ids])
+    np.testing.assert_allclose(got, document.transform.back_median(mu), rtol=1e-9)
+
+
 def changed_model(folder: Path, name: str, document: dict, change) -> str:
     """``document`` after ``change(copy)`` written to ``folder/name.json`` (NaN as JSON's literal NaN); its path."""
     copy = json.loads(json.dumps(document))
@@ -395,6 +415,9 @@ REFUSALS = [
     ("fieldcast:predict", {"INPUT": "{samples}", "FIELD": "zinc", "MODEL": "{model}", "PIXEL_SIZE": 400,
                            "OUTPUT": "{read_only}"},
      ("(OUTPUT) exists and is read-only, so it is not replaced", "Make the file writable")),
+    ("fieldcast:fitmodel", {"INPUT": "{samples}", "FIELD": "zinc", **FIT_SETTINGS, "TRANSFORM": "boxcox",
+                            "BOXCOX_LAMBDA": 9, "OUTPUT_MODEL": "{out}/zinc.json"},
+     ("The Box-Cox lambda (BOXCOX_LAMBDA) must lie between -5 and 5", "Leave it empty to estimate it")),
 ]
 
 
@@ -403,7 +426,8 @@ REFUSALS = [
                               "extent-too-wide", "negative-seed", "geopackage-without-crs", "nan-azimuth",
                               "huge-partial-sill", "transform-as-text", "fit-as-text", "nan-known-mean",
                               "variance-beyond-float32", "values-near-1e300", "realisations-beyond-geotiff-bands",
-                              "mask-without-crs", "empty-mask", "output-on-mask", "read-only-output"])
+                              "mask-without-crs", "empty-mask", "output-on-mask", "read-only-output",
+                              "boxcox-lambda-out-of-range"])
 def test_refusals_through_qgis_process_name_cause_and_way_out_and_touch_nothing(profile, refusal_inputs, tmp_path,
                                                                                algorithm, parameters, fragments):
     out = tmp_path / "out"

@@ -3,6 +3,7 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
+from scipy import special
 
 from fieldcast.algorithms.errors import Cancelled, FieldcastError
 from fieldcast.algorithms.io.grid import GridSpec
@@ -156,6 +157,22 @@ def test_seed_makes_runs_reproducible_and_log_models_back_transform_cell_by_cell
     # ln is inverted by exp cell by cell (Transform.back_median is exp(y) - offset).
     assert np.allclose(again.realisations, np.exp(first.realisations), rtol=1e-12)
     assert not np.allclose(first.realisations, other.realisations)
+
+
+def test_boxcox_and_normal_score_realisations_back_transform_one_by_one(meuse_log_zinc, meuse):
+    # Each realisation of the modelling-scale field goes through the inverse transform cell by cell: Box-Cox
+    # inverse (lambda y + 1)^(1/lambda) as scipy.special.inv_boxcox gives it; normal scores through the knots.
+    first = simulate_meuse(meuse_log_zinc, "constant", 160.0, 2, 7)
+    boxcox = simulate_meuse(meuse_log_zinc, "constant", 160.0, 2, 7, transform=Transform("boxcox", 0.0, 0.25))
+    np.testing.assert_allclose(boxcox.realisations, special.inv_boxcox(first.realisations, 0.25), rtol=1e-12)
+    scores = Transform.normal_score(meuse.zinc)
+    xy, _ = meuse_log_zinc
+    plain, normal = (simulate_conditional(xy, scores.forward(meuse.zinc), MEUSE_LOG_ZINC, MeanModel.for_data(
+        "constant", xy), meuse_grid_spec(160.0), n_realisations=2, seed=7, transform=transform)
+        for transform in (None, scores))
+    z, y = np.array(scores.knots).T
+    assert np.ptp(plain.realisations) > 2.0  # the scores span the knots, not only a tail
+    np.testing.assert_allclose(normal.realisations, np.interp(plain.realisations, y, z), rtol=1e-12)
 
 
 def test_progress_and_cancel(meuse_log_zinc):
