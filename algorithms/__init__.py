@@ -110,6 +110,7 @@ _PUBLIC = {
     "NONDETECT_TREATMENTS": "censored.limits",
     "check_factor": "censored.limits",
     "check_limits": "censored.limits",
+    "censoring_words": "censored.limits",
     "minimum_pile_warning": "censored.limits",
     "parse_limit_texts": "censored.limits",
     "substituted": "censored.limits",

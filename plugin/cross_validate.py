@@ -27,7 +27,7 @@ from ..algorithms import (
 from .algorithm_base import FieldcastAlgorithm, progress_callback, push_log
 from .field_names import free_names
 from .field_types import field_type
-from .help_text import COVARIATE_HELP, MODEL_FILE_HELP, TARGET_CRS_HELP, compose_help
+from .help_text import COVARIATE_HELP, MODEL_FILE_HELP, NONDETECT_HELP, TARGET_CRS_HELP, compose_help
 from .report.crossvalidation_report import write_crossvalidation_report
 from .sample_reader import ModelSamples
 from .sinks import checked_sink
@@ -61,6 +61,7 @@ class CrossValidateAlgorithm(FieldcastAlgorithm):
           "location averaged)."),
          MODEL_FILE_HELP,
          *COVARIATE_HELP,
+         *NONDETECT_HELP,
          ("Neighbours per sample", "0 (the default): each sample is predicted from all the others (global "
           "kriging, computed in closed form), up to 5,000 samples; with more, each sample from its 64 nearest others "
           "and the log says so. A number k: from its k nearest other samples (local kriging; 16 to "
@@ -101,6 +102,7 @@ class CrossValidateAlgorithm(FieldcastAlgorithm):
         self.add_sample_parameters()
         self.add_model_parameter()
         self.add_covariate_parameters()
+        self.add_nondetect_parameters()
         self.add_neighbourhood_parameters("sample")
         self.add_target_crs_parameter()
         self.addParameter(QgsProcessingParameterFeatureSink(self.OUTPUT, self.tr("Cross-validation points")))

@@ -20,7 +20,7 @@ from ..algorithms import (
     residual_semivariograms,
 )
 from .algorithm_base import FieldcastAlgorithm, progress_callback
-from .help_text import COVARIATE_HELP, FIT_HELP, TARGET_CRS_HELP, compose_help
+from .help_text import COVARIATE_HELP, FIT_HELP, NONDETECT_HELP, TARGET_CRS_HELP, compose_help
 from .model_source import fit_document, log_fit
 from .report.fit_report import write_fit_report
 from .sample_reader import ModelSamples, prepare_samples
@@ -88,6 +88,7 @@ class FitModelAlgorithm(FieldcastAlgorithm):
         [("Sample points / Value field", "Point layer and its numeric attribute. NULL values are skipped; "
           "samples at the same location are averaged. Multipoints with several points are refused."),
          *COVARIATE_HELP,
+         *NONDETECT_HELP,
          *FIT_HELP,
          TARGET_CRS_HELP],
         [("Model file", "JSON file with the fitted model, its CRS, transform and fit statistics."),
@@ -108,6 +109,7 @@ class FitModelAlgorithm(FieldcastAlgorithm):
         self.add_sample_parameters()
         self.add_covariate_parameters()
         self.add_fit_parameters()
+        self.add_nondetect_parameters()
         self.add_target_crs_parameter()
         self.addParameter(QgsProcessingParameterFileDestination(
             self.OUTPUT_MODEL, self.tr("Model file"), self.tr("Fieldcast model (*.json)")))
@@ -121,14 +123,16 @@ class FitModelAlgorithm(FieldcastAlgorithm):
         report_path = self.report_destination(parameters, context)
         sources = self.covariate_sources(parameters, context)
         layer_samples = self.read_samples(parameters, context, feedback)
-        samples, covariates = self.fit_covariates(prepare_samples(layer_samples, transform, feedback), sources,
-                                                  layer_samples.working, feedback)
+        nondetects = self.nondetects(parameters, context)
+        samples, covariates = self.fit_covariates(prepare_samples(layer_samples, transform, feedback, nondetects),
+                                                  sources, layer_samples.working, feedback)
         feedback.pushInfo(f"Fitting with {settings.describe()}"
                           + (f", covariates {', '.join(covariates.column_names)}." if sources else "."))
         fit_percent = FIT_PERCENT_WITH_REPORT if report_path else 99.0
         document, result = fit_document(samples.xy, samples.values, transform, layer_samples.working,
                                         layer_samples.field, settings, progress_callback(feedback, 0.0, fit_percent),
-                                        feedback.isCanceled, covariates, samples.covariates)
+                                        feedback.isCanceled, covariates, samples.covariates, samples.censored,
+                                        self.censoring(layer_samples, samples, nondetects))
         log_fit(feedback, samples.xy, samples.values, result, document, columns=samples.covariates)
         report = None
         if report_path:

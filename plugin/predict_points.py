@@ -42,6 +42,7 @@ from .help_text import (
     BACKTRANSFORM_HELP,
     COVARIATE_HELP,
     MODEL_FILE_HELP,
+    NONDETECT_HELP,
     POINT_NEIGHBOURHOOD_HELP,
     TARGET_CRS_HELP,
     compose_help,
@@ -74,6 +75,7 @@ class PredictPointsAlgorithm(FieldcastAlgorithm):
           "to). NULL values are skipped; samples at one location are averaged."),
          MODEL_FILE_HELP,
          *COVARIATE_HELP,
+         *NONDETECT_HELP,
          ("Target points", "Point layer of the places to predict at, in any CRS: its points are reprojected to "
           "the working CRS for kriging, and the output keeps its own geometry, CRS and fields. Features without "
           "a geometry (or with an empty one) are copied with empty results and counted in the log; a multipoint "
@@ -102,6 +104,7 @@ class PredictPointsAlgorithm(FieldcastAlgorithm):
         self.add_sample_parameters()
         self.add_model_parameter()
         self.add_covariate_parameters()
+        self.add_nondetect_parameters()
         self.addParameter(QgsProcessingParameterFeatureSource(
             self.TARGETS, self.tr("Target points"), [QgsProcessing.TypeVectorPoint]))
         self.add_threshold_parameter()

@@ -13,6 +13,7 @@ from .help_text import (
     MAP_AREA_HELP,
     MODEL_FILE_HELP,
     NEIGHBOURHOOD_HELP,
+    NONDETECT_HELP,
     RASTER_TARGET_CRS_HELP,
     THRESHOLD_HELP,
     compose_help,
@@ -44,6 +45,7 @@ class PredictSurfaceAlgorithm(SurfaceAlgorithm):
           "to). NULL values are skipped; samples at one location are averaged."),
          MODEL_FILE_HELP,
          *COVARIATE_HELP,
+         *NONDETECT_HELP,
          *GRID_HELP,
          *MAP_AREA_HELP,
          BACKTRANSFORM_HELP,
@@ -91,6 +93,7 @@ class PredictSurfaceAlgorithm(SurfaceAlgorithm):
         self.add_sample_parameters()
         self.add_model_parameter()
         self.add_covariate_parameters()
+        self.add_nondetect_parameters()
         self.add_grid_parameters()
         self.add_map_area_parameters()
         self.add_backtransform_parameter()

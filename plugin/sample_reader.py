@@ -12,6 +12,7 @@ from dataclasses import dataclass
 
 import numpy as np
 from qgis.core import QgsCoordinateReferenceSystem, QgsFeatureRequest, QgsProcessingFeatureSource
+from qgis.PyQt.QtCore import QVariant
 
 from ..algorithms import (
     FieldcastError,
@@ -19,10 +20,14 @@ from ..algorithms import (
     Samples,
     Transform,
     WorkingCrs,
+    check_limits,
     check_samples,
     choose_working_crs,
     merge_coincident,
+    minimum_pile_warning,
+    parse_limit_texts,
     same_crs,
+    substituted,
     transform_points,
     undefined_crs_error,
 )
@@ -47,6 +52,8 @@ class LayerSamples:
     skipped : dict of str to int
         Features left out, by reason (only reasons that occurred), e.g.
         ``{"value is NULL or not a number": 2}``.
+    censored : ndarray of bool (n,), optional
+        True where the value is a reporting limit (the true value lies below it); None when none is.
     """
 
     xy: np.ndarray
@@ -55,6 +62,7 @@ class LayerSamples:
     working: WorkingCrs
     field: str
     skipped: dict[str, int]
+    censored: np.ndarray | None = None
 
 
 @dataclass(frozen=True)
@@ -64,7 +72,8 @@ class ModelSamples:
     ``xy`` is in the working CRS, ``values`` in the modelling scale; ``fids``
     belong to the first feature of each merged group; ``field`` names the attribute. ``merged_points``
     samples were averaged into ``merged_groups`` shared locations. ``covariates`` are the mean's covariate
-    columns at the samples (None without covariates).
+    columns at the samples (None without covariates). ``censored`` marks the samples whose value is a limit (in
+    the modelling scale; None when none is, or after substitution).
     """
 
     xy: np.ndarray
@@ -74,16 +83,36 @@ class ModelSamples:
     merged_groups: int
     merged_points: int
     covariates: np.ndarray | None = None
+    censored: np.ndarray | None = None
 
     def with_covariates(self, columns: np.ndarray, kept: np.ndarray) -> ModelSamples:
         """The samples ``kept`` (where every covariate has a value) with their covariate columns, checked again."""
         check_samples(self.xy[kept], self.values[kept])
         return ModelSamples(self.xy[kept], self.values[kept], self.fids[kept], self.field, self.merged_groups,
-                            self.merged_points, columns)
+                            self.merged_points, columns, None if self.censored is None else self.censored[kept])
+
+    def with_values(self, values: np.ndarray) -> ModelSamples:
+        """The samples with other values (e.g. the censored ones imputed) and no censored mark."""
+        return ModelSamples(self.xy, values, self.fids, self.field, self.merged_groups, self.merged_points,
+                            self.covariates)
+
+    def censored_count(self) -> int:
+        """How many samples are limits."""
+        return 0 if self.censored is None else int(self.censored.sum())
 
     def engine_samples(self) -> Samples:
         """The samples as the engine's :class:`Samples` (ids are the feature ids), e.g. for the fit report."""
-        return Samples(self.xy, self.values, self.fids, self.merged_groups, self.merged_points)
+        return Samples(self.xy, self.values, self.fids, self.merged_groups, self.merged_points, self.censored)
+
+
+@dataclass(frozen=True)
+class NonDetects:
+    """How values below a limit are read and treated: ``field`` (BELOW_LIMIT_FIELD, "" for none), ``treatment``
+    (NONDETECTS: "likelihood" or "substitution") and ``factor`` (SUBSTITUTION_FACTOR, the limit's multiplier)."""
+
+    field: str = ""
+    treatment: str = "likelihood"
+    factor: float = 0.5
 
 
 def crs_wkt(crs: QgsCoordinateReferenceSystem) -> str:
@@ -116,7 +145,8 @@ def feature_point(geometry, fid: int, layer: str = "the sample layer") -> tuple[
 
 
 def read_layer_samples(source: QgsProcessingFeatureSource, field: str, target_crs: QgsCoordinateReferenceSystem,
-                       feedback, template: RasterTemplate | None = None) -> LayerSamples:
+                       feedback, template: RasterTemplate | None = None,
+                       below_limit_field: str = "") -> LayerSamples:
     """Read point locations and one numeric attribute from a layer.
 
     Parameters
@@ -124,13 +154,15 @@ def read_layer_samples(source: QgsProcessingFeatureSource, field: str, target_cr
     source : QgsProcessingFeatureSource
         The point layer (only read).
     field : str
-        Name of a numeric attribute.
+        Name of a numeric attribute, or of a text one holding numbers and entries such as "<0.5" (a limit).
     target_crs : QgsCoordinateReferenceSystem
         Working CRS chosen by the user; an invalid CRS means "choose for me".
     feedback : QgsProcessingFeedback
         Receives the log lines.
     template : RasterTemplate, optional
         A template raster: its CRS is then the working CRS (``target_crs`` must be invalid or the same).
+    below_limit_field : str
+        A boolean or 0/1 field true where the value is a reporting limit ("" for none).
     """
     layer_crs = source.sourceCrs()
     if not layer_crs.isValid():
@@ -138,18 +170,25 @@ def read_layer_samples(source: QgsProcessingFeatureSource, field: str, target_cr
     index = source.fields().lookupField(field)
     if index < 0:
         raise FieldcastError(f"The sample layer has no field {field!r}; choose one of its numeric fields.")
-    if not source.fields().at(index).isNumeric():
+    numeric = source.fields().at(index).isNumeric()
+    if not numeric and source.fields().at(index).type() != QVariant.String:
         kind = source.fields().at(index).typeName()
-        raise FieldcastError(f"Field {field!r} holds {kind} values, not numbers. Choose a numeric field, or "
-                             "make one with the Field calculator (e.g. to_real(\"field\")).")
+        raise FieldcastError(f"Field {field!r} holds {kind} values, not numbers. Choose a numeric field (or a text "
+                             "field of numbers and entries such as \"<0.5\"), or make one with the Field calculator "
+                             "(e.g. to_real(\"field\")).")
+    flag_index = flag_field_index(source, below_limit_field)
     if source.featureCount() == 0:
         raise FieldcastError("The sample layer is empty. Choose a point layer that holds samples.")
-    request = QgsFeatureRequest().setSubsetOfAttributes([index])
-    points, values, fids = [], [], []
+    request = QgsFeatureRequest().setSubsetOfAttributes([index] + ([flag_index] if flag_index >= 0 else []))
+    points, values, fids, flagged, texts = [], [], [], [], []
     skipped_values = skipped_geometry = 0
     for feature in source.getFeatures(request):
         point = feature_point(feature.geometry(), feature.id())
-        value = _number(feature.attributes()[index])
+        attributes = feature.attributes()
+        value, below = _number(attributes[index]), False
+        if not numeric:
+            value, below = parse_limit_texts([_text(attributes[index])])
+            value, below = float(value[0]), bool(below[0])
         if point is None:
             skipped_geometry += 1
         elif not math.isfinite(value):
@@ -158,6 +197,8 @@ def read_layer_samples(source: QgsProcessingFeatureSource, field: str, target_cr
             points.append(point)
             values.append(value)
             fids.append(feature.id())
+            texts.append(below)
+            flagged.append(flag_index >= 0 and _flag(attributes[flag_index]))
     if skipped_values:
         feedback.pushInfo(f"Skipped {skipped_values} feature(s) whose {field} is NULL or not a number.")
     if skipped_geometry:
@@ -176,23 +217,79 @@ def read_layer_samples(source: QgsProcessingFeatureSource, field: str, target_cr
     xy = layer_xy if same_crs(layer_wkt, working.wkt) else transform_points(layer_xy, layer_wkt, working.wkt)
     skipped = {reason: count for reason, count in (("value is NULL or not a number", skipped_values),
                                                    ("no geometry", skipped_geometry)) if count}
-    return LayerSamples(xy, np.array(values, dtype=float), np.array(fids, dtype=np.int64), working, field, skipped)
+    values = np.array(values, dtype=float)
+    censored = np.array(texts, dtype=bool) | np.array(flagged, dtype=bool)
+    log_censored(feedback, field, below_limit_field, values, censored, int(np.sum(texts)), int(np.sum(flagged)))
+    return LayerSamples(xy, values, np.array(fids, dtype=np.int64), working, field, skipped,
+                        censored if censored.any() else None)
 
 
-def prepare_samples(samples: LayerSamples, transform: Transform, feedback) -> ModelSamples:
+def flag_field_index(source: QgsProcessingFeatureSource, name: str) -> int:
+    """Index of the BELOW_LIMIT_FIELD ``name`` (-1 for none); FieldcastError for a missing field or one that is
+    neither boolean, number nor text."""
+    if not name:
+        return -1
+    index = source.fields().lookupField(name)
+    if index < 0:
+        raise FieldcastError(f"The sample layer has no field {name!r} for BELOW_LIMIT_FIELD; choose one of its "
+                             "fields, or leave it empty.")
+    definition = source.fields().at(index)
+    if not (definition.isNumeric() or definition.type() in (QVariant.Bool, QVariant.String)):
+        raise FieldcastError(f"Field {name!r} (BELOW_LIMIT_FIELD) holds {definition.typeName()} values. Choose a "
+                             "boolean or 0/1 field that is true where the value is a reporting limit.")
+    return index
+
+
+def _text(value) -> str | None:
+    """A text attribute as Python text, None for NULL."""
+    return None if value is None or (hasattr(value, "isNull") and value.isNull()) else str(value)
+
+
+def _flag(value) -> bool:
+    """A BELOW_LIMIT_FIELD attribute as a mark: true, 1 or the text "true"/"1"/"yes"; NULL and anything else is
+    not a mark."""
+    if isinstance(value, str):
+        return value.strip().lower() in ("1", "true", "yes")
+    return isinstance(value, (bool, int, float)) and bool(value) and value == value
+
+
+def log_censored(feedback, field: str, flag_field: str, values: np.ndarray, censored: np.ndarray, texts: int,
+                 flagged: int) -> None:
+    """Say how many values are limits and where the marks came from; warn when many equal the smallest value."""
+    if censored.any():
+        parts = [f"{flagged} marked in {flag_field}"] * bool(flagged) + [f"{texts} written as \"<limit\""] * bool(texts)
+        feedback.pushInfo(f"{int(censored.sum())} of {len(values)} values of {field} are below a reporting limit "
+                          f"({', '.join(parts)}).")
+        check_limits(values, censored, field)
+    warning = minimum_pile_warning(values, censored, field)
+    if warning:
+        feedback.pushWarning(warning)
+
+
+def prepare_samples(samples: LayerSamples, transform: Transform, feedback,
+                    nondetects: NonDetects = NonDetects()) -> ModelSamples:
     """Transform values, average coincident points and check the result can be modelled.
+
+    Values below a limit are replaced by the limit times ``nondetects.factor`` (substitution, before the transform)
+    or kept as limits, transformed like the values (the likelihood treatment; a group of coincident samples with a
+    limit among them is a limit at the mean of its entries, see ``merge_coincident``).
 
     Raises
     ------
     FieldcastError
         For values the transform cannot take, fewer than three samples or a constant attribute.
     """
-    values = transform.forward(samples.values)
-    merged = merge_coincident(samples.xy, values, ids=np.arange(len(values)))
+    raw, censored = samples.values, samples.censored
+    if censored is not None and nondetects.treatment == "substitution":
+        raw, censored = substituted(raw, censored, nondetects.factor), None
+        feedback.pushInfo(f"Values below a limit replaced by {nondetects.factor:g} times their limit "
+                          "(NONDETECTS=substitution).")
+    values = transform.forward(raw)
+    merged = merge_coincident(samples.xy, values, ids=np.arange(len(values)), censored=censored)
     if merged.merged_groups:
         feedback.pushInfo(f"Averaged {merged.merged_points} samples at {merged.merged_groups} shared locations "
                           f"(in the modelling scale); {len(merged.values)} samples remain.")
     check_samples(merged.xy, merged.values)
     feedback.pushInfo(f"Using {len(merged.values)} samples of {samples.field}.")
     return ModelSamples(merged.xy, merged.values, samples.fids[merged.ids], samples.field, merged.merged_groups,
-                        merged.merged_points)
+                        merged.merged_points, censored=merged.censored)

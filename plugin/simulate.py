@@ -36,7 +36,15 @@ from ..algorithms import (
 )
 from .algorithm_base import advanced, progress_callback, push_log
 from .field_types import field_type
-from .help_text import COVARIATE_HELP, GRID_HELP, MODEL_FILE_HELP, RASTER_TARGET_CRS_HELP, THRESHOLD_HELP, compose_help
+from .help_text import (
+    COVARIATE_HELP,
+    GRID_HELP,
+    MODEL_FILE_HELP,
+    NONDETECT_HELP,
+    RASTER_TARGET_CRS_HELP,
+    THRESHOLD_HELP,
+    compose_help,
+)
 from .layer_style import style_on_load
 from .raster_algorithm import RasterAlgorithm
 from .sinks import checked_sink
@@ -80,6 +88,7 @@ class SimulateAlgorithm(RasterAlgorithm):
           "location averaged)."),
          MODEL_FILE_HELP,
          *COVARIATE_HELP,
+         *NONDETECT_HELP,
          *GRID_HELP,
          ("Number of realisations", "How many fields to draw (default 100, at most 65,535: the bands of one "
           "GeoTIFF). Shares and percentiles from 100 realisations are good to a few per cent; more give steadier "
@@ -115,6 +124,7 @@ class SimulateAlgorithm(RasterAlgorithm):
         self.add_sample_parameters()
         self.add_model_parameter()
         self.add_covariate_parameters()
+        self.add_nondetect_parameters()
         self.add_grid_parameters()
         self.addParameter(QgsProcessingParameterNumber(
             self.REALIZATIONS, self.tr("Number of realisations"), type=QgsProcessingParameterNumber.Integer,

@@ -77,10 +77,11 @@ def check_limits(values: np.ndarray, censored: np.ndarray, field: str) -> None:
 
 
 def minimum_pile_warning(values: np.ndarray, censored: np.ndarray, field: str) -> str | None:
-    """A warning when many detected values equal the smallest of them (perhaps unmarked limits), else None."""
-    detected = np.asarray(values, dtype=float)[~np.asarray(censored, dtype=bool)]
-    if len(detected) == 0:
+    """A warning when many values equal the smallest of them (perhaps unmarked limits), else None; None as well
+    when some values are marked as limits (the user has said which values are limits)."""
+    if np.any(censored):
         return None
+    detected = np.asarray(values, dtype=float)
     smallest = float(detected.min())
     count = int(np.count_nonzero(detected == smallest))
     if count < PILE_COUNT or count < PILE_SHARE * len(detected):
@@ -88,3 +89,13 @@ def minimum_pile_warning(values: np.ndarray, censored: np.ndarray, field: str) -
     return (f"{count} of {len(detected)} values of {field} equal its smallest value {smallest:g}. If these are "
             "values below a detection limit, give a field that marks them in BELOW_LIMIT_FIELD (or write them as "
             f"\"<{smallest:g}\" in a text value field), so the fit treats them as limits instead of values.")
+
+
+def censoring_words(summary: dict) -> str:
+    """The model file's ``fit["censored"]`` in words, for the log and the report."""
+    how = {"likelihood": "kept as limits in the likelihood (stochastic EM"
+                         + (f", {summary.get('iterations')} iterations, {summary.get('imputations')} imputations, "
+                            f"seed {summary.get('seed')})" if "iterations" in summary else ")"),
+           "substitution": f"replaced by {summary.get('factor', 0.5):g} times their limit (substitution)"}
+    return (f"Values below a limit: {summary['count']} of {summary['samples']} samples, "
+            f"{how.get(summary['treatment'], summary['treatment'])}.")

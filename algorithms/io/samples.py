@@ -44,6 +44,8 @@ class Samples:
     merged_points : int
         Number of input samples that went into those groups, so
         ``m = n - merged_points + merged_groups`` for ``n`` input samples.
+    censored : ndarray of bool, shape (m,), optional
+        True where the value is a limit (the true value lies below it); None when no sample was censored.
     """
 
     xy: np.ndarray
@@ -51,6 +53,7 @@ class Samples:
     ids: np.ndarray
     merged_groups: int
     merged_points: int
+    censored: np.ndarray | None = None
 
 
 def _sample_arrays(xy: np.ndarray, values: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -68,7 +71,8 @@ def _sample_arrays(xy: np.ndarray, values: np.ndarray) -> tuple[np.ndarray, np.n
 
 
 def merge_coincident(
-    xy: np.ndarray, values: np.ndarray, ids: np.ndarray | None = None, tolerance: float = 0.0
+    xy: np.ndarray, values: np.ndarray, ids: np.ndarray | None = None, tolerance: float = 0.0,
+    censored: np.ndarray | None = None,
 ) -> Samples:
     """Average the values of samples that share a location.
 
@@ -89,6 +93,10 @@ def merge_coincident(
     tolerance : float
         Largest distance (CRS units) at which two samples count as the same
         location; 0 merges exact duplicates only.
+    censored : ndarray of bool, shape (n,), optional
+        True where the value is a limit. A group with a censored member is censored at the mean of its values
+        and limits: each true value lies at or below its entry, so their mean lies below the mean of the
+        entries (the only statement the data make; a detected value in the group is not kept apart).
 
     Returns
     -------
@@ -107,8 +115,11 @@ def merge_coincident(
         raise FieldcastError(
             "Some samples have missing or infinite coordinates; drop those features or repair their geometry."
         )
+    flags = None if censored is None else np.asarray(censored, dtype=bool)
+    if flags is not None and flags.shape != (n,):
+        raise FieldcastError(f"Expected one censored flag per sample ({n}), got an array of shape {flags.shape}.")
     if n == 0:
-        return Samples(xy.copy(), values.copy(), ids.copy(), 0, 0)
+        return Samples(xy.copy(), values.copy(), ids.copy(), 0, 0, None if flags is None else flags.copy())
 
     label = _group_labels(xy, float(tolerance))
     # Renumber groups in the order of their first sample.
@@ -129,6 +140,7 @@ def merge_coincident(
         ids=ids[first_index].copy(),
         merged_groups=int(np.count_nonzero(merged)),
         merged_points=int(size[merged].sum()),
+        censored=None if flags is None else np.bincount(group, weights=flags) > 0,
     )
 
 

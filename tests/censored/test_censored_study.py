@@ -12,7 +12,6 @@ gap grows to about 15 % in runs of this study: the censored values then carry mo
 from __future__ import annotations
 
 import numpy as np
-from reference import gaussian_field
 
 from fieldcast.algorithms import (
     CovarianceModel,
@@ -23,6 +22,7 @@ from fieldcast.algorithms import (
     fit_censored,
     fit_with,
 )
+from reference import gaussian_field
 
 TRUE = CovarianceModel((Structure("exponential", 0.7, 0.3),), nugget=0.3)
 OPTIONS = FitOptions(kernel="exponential", anisotropy=False)
