@@ -82,3 +82,11 @@ def test_predictpoints_with_limits_logs_their_treatment(qgis_processing, meuse, 
                                                     "TARGETS": layer, "OUTPUT": str(tmp_path / "p.gpkg")},
                         feedback=feedback)
     assert "21 sample(s) below a limit enter kriging as their conditional mean" in feedback.textLog()
+
+
+def test_fit_report_says_how_the_limits_were_treated(qgis_processing, meuse, tmp_path):  # noqa: F811
+    layer = meuse_layer(meuse, tmp_path / "cd.gpkg")
+    report = tmp_path / "fit.html"
+    run(qgis_processing, {"INPUT": layer, "FIELD": "cd", "BELOW_LIMIT_FIELD": "below", "NONDETECTS": "substitution",
+                          "OUTPUT_MODEL": str(tmp_path / "m.json"), "OUTPUT_REPORT": str(report)})
+    assert "Values below a limit: 21 of 155 samples, replaced by 0.5 times their limit" in report.read_text("utf-8")
