@@ -33,12 +33,13 @@ from .help_text import (
     GRID_HELP,
     MAP_AREA_HELP,
     NEIGHBOURHOOD_HELP,
+    NONDETECT_HELP,
     RASTER_TARGET_CRS_HELP,
     compose_help,
 )
 from .layer_style import load_styled
 from .model_source import describe_document, fit_document, fit_shared_documents, log_fit
-from .sample_reader import prepare_samples, read_layer_samples
+from .sample_reader import NonDetects, prepare_samples, read_layer_samples
 from .surface_algorithm import SurfaceAlgorithm
 
 FIT_SHARE = 0.4
@@ -87,6 +88,7 @@ class PredictManyAlgorithm(SurfaceAlgorithm):
          ("Value fields", "One or more numeric attributes. Each field's NULL values are skipped "
           "separately, so the fields may have different samples; samples at one location are averaged."),
          *COVARIATE_HELP,
+         *NONDETECT_HELP,
          *FIT_HELP,
          ("One correlation model for all fields", "Off (default): each field gets a model of its own. On: one "
           "correlation model (family, ranges, anisotropy, nugget share) is fitted to all fields jointly, each field "
@@ -118,6 +120,7 @@ class PredictManyAlgorithm(SurfaceAlgorithm):
             self.FIELDS, self.tr("Value fields"), parentLayerParameterName=self.INPUT,
             type=QgsProcessingParameterField.Numeric, allowMultiple=True))
         self.add_covariate_parameters()
+        self.add_nondetect_parameters()
         self.add_fit_parameters()
         self.addParameter(QgsProcessingParameterBoolean(
             self.SHARED_MODEL, self.tr("One correlation model for all fields"), defaultValue=False))
@@ -191,15 +194,17 @@ class PredictManyAlgorithm(SurfaceAlgorithm):
         template = self.grid_template(parameters, context)
         sources = self.covariate_sources(parameters, context)
         prepared, covariates = [], []
+        nondetects = self.nondetects(parameters, context)
         for field in fields:  # every field is checked before any file is written
-            layer_samples = read_layer_samples(source, field, target, feedback, template)
-            samples, described = self.fit_covariates(prepare_samples(layer_samples, transform, feedback), sources,
-                                                     layer_samples.working, feedback)
+            layer_samples = read_layer_samples(source, field, target, feedback, template, nondetects.field)
+            samples, described = self.fit_covariates(prepare_samples(layer_samples, transform, feedback, nondetects),
+                                                     sources, layer_samples.working, feedback)
             prepared.append((layer_samples, samples))
             covariates.append(described)
         run = FieldsRun(prepared, file_stems(fields), folder, transform, settings,
                         self.neighbourhood(parameters, context),
-                        SurfaceScale(transform, self.choice(parameters, self.BACKTRANSFORM, context)), covariates)
+                        SurfaceScale(transform, self.choice(parameters, self.BACKTRANSFORM, context)), covariates,
+                        nondetects)
         first_mean = MeanModel.for_data(settings.mean, prepared[0][1].xy, covariates[0].column_names)
         neighbours, _ = run.neighbourhood.resolved(first_mean, "cell")  # refuse early
         refuse_local_covariates(first_mean, neighbours, len(prepared[0][1].values))
@@ -227,9 +232,12 @@ class PredictManyAlgorithm(SurfaceAlgorithm):
                 document, result = fit_document(samples.xy, samples.values, run.transform, layer_samples.working,
                                                 field, run.settings,
                                                 progress_callback(feedback, start, start + FIT_SHARE * share),
-                                                feedback.isCanceled, run.covariates[index], samples.covariates)
+                                                feedback.isCanceled, run.covariates[index], samples.covariates,
+                                                samples.censored,
+                                                self.censoring(layer_samples, samples, run.nondetects))
                 log_fit(feedback, samples.xy, samples.values, result, document, field, samples.covariates)
                 feedback.pushInfo(describe_document(document))
+                samples = self.imputed_samples(samples, document, feedback)
                 key = (document.crs_wkt, samples.xy.tobytes())
                 if key in grids:
                     feedback.pushInfo("Same sample locations as an earlier field: its grid and mask are reused.")
@@ -251,6 +259,12 @@ class PredictManyAlgorithm(SurfaceAlgorithm):
         """One correlation model fitted to all fields jointly; one kriging pass writes every field's rasters."""
         fields = [layer_samples.field for layer_samples, _ in run.prepared]
         first = run.prepared[0][1]
+        limited = [layer_samples.field for layer_samples, samples in run.prepared if samples.censored_count()]
+        if limited:
+            raise FieldcastError(
+                f"One correlation model for all fields does not take values below a limit, and {limited[0]!r} has "
+                "some. Turn off 'One correlation model for all fields' (SHARED_MODEL), or set "
+                "NONDETECTS=substitution.")
         for layer_samples, samples in run.prepared[1:]:
             if not np.array_equal(samples.xy, first.xy):
                 raise FieldcastError(
@@ -296,6 +310,7 @@ class FieldsRun:
     neighbourhood: Neighbourhood
     scale: SurfaceScale
     covariates: list[CovariateSet]
+    nondetects: NonDetects = NonDetects()
 
     def raster_paths(self, field: str) -> dict[str, str]:
         """The GeoTIFFs of a field, by the kinds of :data:`RASTER_KINDS`."""

@@ -90,3 +90,19 @@ def test_fit_report_says_how_the_limits_were_treated(qgis_processing, meuse, tmp
     run(qgis_processing, {"INPUT": layer, "FIELD": "cd", "BELOW_LIMIT_FIELD": "below", "NONDETECTS": "substitution",
                           "OUTPUT_MODEL": str(tmp_path / "m.json"), "OUTPUT_REPORT": str(report)})
     assert "Values below a limit: 21 of 155 samples, replaced by 0.5 times their limit" in report.read_text("utf-8")
+
+
+def test_predictmany_fits_limits_per_field_and_refuses_them_for_a_shared_model(qgis_processing, meuse,  # noqa: F811
+                                                                               tmp_path):
+    layer = meuse_layer(meuse, tmp_path / "cd.gpkg")
+    grid = {"EXTENT": "178440,181560,329600,333760 [EPSG:28992]", "PIXEL_SIZE": 400.0}
+    common = {"INPUT": layer, "FIELDS": ["cd"], "BELOW_LIMIT_FIELD": "below", **CHOICES, **grid}
+    del common["OUTPUT_REPORT"]
+    feedback = QgsProcessingFeedback()
+    qgis_processing.run("fieldcast:predictmany", {**common, "OUTPUT_FOLDER": str(tmp_path / "each")},
+                        feedback=feedback)
+    assert "cd: Values below a limit: 21 of 155 samples, kept as limits" in feedback.textLog()
+    with pytest.raises(QgsProcessingException, match="SHARED_MODEL"):
+        qgis_processing.run("fieldcast:predictmany", {**common, "SHARED_MODEL": True,
+                                                      "OUTPUT_FOLDER": str(tmp_path / "shared")})
+    assert not (tmp_path / "shared").exists() or not any((tmp_path / "shared").iterdir())
