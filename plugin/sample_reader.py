@@ -203,6 +203,10 @@ def read_layer_samples(source: QgsProcessingFeatureSource, field: str, target_cr
         feedback.pushInfo(f"Skipped {skipped_values} feature(s) whose {field} is NULL or not a number.")
     if skipped_geometry:
         feedback.pushInfo(f"Skipped {skipped_geometry} feature(s) without a geometry.")
+    if not points and not numeric:
+        raise FieldcastError(f"Field {field!r} holds text, and none of its entries are numbers or limits such as "
+                             "\"<0.5\", so these values are not numbers. Choose a numeric field, or make one with "
+                             "the Field calculator (e.g. to_real(\"field\")).")
     if not points:
         raise FieldcastError(f"The sample layer has no point with a value in {field!r} "
                              f"({skipped_values} NULL/NaN values, {skipped_geometry} empty geometries). "
