@@ -79,6 +79,8 @@ NO_FIELD = ("No value field chosen. Choose the numeric field of the sample layer
 FILE_OUTPUTS = (QgsProcessingParameterFileDestination, QgsProcessingParameterRasterDestination,
                 QgsProcessingParameterFeatureSink, QgsProcessingParameterVectorDestination,
                 QgsProcessingParameterFolderDestination)
+SPREAD_LEFT_OUT = ("variances, intervals and exceedance leave out the spread between those sets, so they are "
+                   "somewhat too narrow near these samples.")
 LAYER_INPUTS = (QgsProcessingParameterFeatureSource, QgsProcessingParameterVectorLayer,
                 QgsProcessingParameterRasterLayer, QgsProcessingParameterMapLayer, QgsProcessingParameterExtent)
 
@@ -438,12 +440,13 @@ class FieldcastAlgorithm(QgsProcessingAlgorithm):
         """The template raster whose CRS is the working CRS; None here (see ``RasterAlgorithm``)."""
         return None
 
-    def model_and_samples(self, parameters, context, feedback,
-                          progress: Callable[[float], None]) -> tuple[ModelDocument, ModelSamples]:
+    def model_and_samples(self, parameters, context, feedback, progress: Callable[[float], None],
+                          spread_included: bool = False) -> tuple[ModelDocument, ModelSamples]:
         """The model from MODEL, or one fitted with the default settings, and the samples in its scale.
 
         Values below a limit (likelihood treatment) are fitted as limits, and then replaced by their conditional
-        mean below the limit given the model (see :meth:`imputed_samples`)."""
+        mean below the limit given the model (see :meth:`imputed_samples`; ``spread_included`` when the caller krigs
+        every completed data set)."""
         layer_samples = self.read_samples(parameters, context, feedback)
         nondetects = self.nondetects(parameters, context)
         sources = self.covariate_sources(parameters, context) if self.parameterDefinition(self.COVARIATES) else []
@@ -468,10 +471,11 @@ class FieldcastAlgorithm(QgsProcessingAlgorithm):
                                             samples.censored, self.censoring(layer_samples, samples, nondetects))
             log_fit(feedback, samples.xy, samples.values, result, document, columns=samples.covariates)
         feedback.pushInfo(describe_document(document))
-        return document, self.imputed_samples(samples, document, feedback)
+        return document, self.imputed_samples(samples, document, feedback, spread_included)
 
     @staticmethod
-    def imputed_samples(samples: ModelSamples, document: ModelDocument, feedback) -> ModelSamples:
+    def imputed_samples(samples: ModelSamples, document: ModelDocument, feedback,
+                        spread_included: bool = False) -> ModelSamples:
         """The samples with each value below a limit replaced by its conditional mean below the limit given the
         model and the other samples (the mean of 20 joint draws, seeded), unchanged without such values.
 
@@ -482,12 +486,14 @@ class FieldcastAlgorithm(QgsProcessingAlgorithm):
             return samples
         completed = impute_censored(samples.xy, samples.values, samples.censored, document.covariance,
                                     document.mean, document.coefficients, samples.covariates)
-        feedback.pushWarning(
-            f"{samples.censored_count()} sample(s) below a limit enter kriging as their conditional mean below the "
-            "limit given the model (the average of 20 draws). Predictions equal the average over the drawn data "
-            "sets; variances, intervals and exceedance leave out the spread between those sets, so they are "
-            "somewhat too narrow near these samples.")
-        return samples.with_values(completed.mean(axis=0))
+        drawn = (f"{samples.censored_count()} sample(s) below a limit enter kriging as their conditional mean below "
+                 "the limit given the model (the average of 20 draws). Predictions equal the average over the drawn "
+                 "data sets; ")
+        if spread_included:
+            feedback.pushInfo(drawn + "variances add the spread between those sets (Rubin's rules).")
+        else:
+            feedback.pushWarning(drawn + SPREAD_LEFT_OUT)
+        return samples.with_values(completed.mean(axis=0), completed)
 
     # --- running -------------------------------------------------------------------------------------------
 

@@ -24,6 +24,7 @@ from ..algorithms import (
     CovariateSource,
     ExtrapolationCheck,
     FieldcastError,
+    ImputedKriging,
     LocalKrigingPredictor,
     SurfaceScale,
     TargetDraw,
@@ -34,7 +35,7 @@ from ..algorithms import (
     same_crs,
     transform_points,
 )
-from .algorithm_base import FieldcastAlgorithm, progress_callback, push_log
+from .algorithm_base import SPREAD_LEFT_OUT, FieldcastAlgorithm, progress_callback, push_log
 from .destinations import destination_value
 from .field_names import free_names, name_limit
 from .field_types import field_type
@@ -144,7 +145,8 @@ class PredictPointsAlgorithm(FieldcastAlgorithm):
         field = self.parameterAsString(parameters, self.FIELD, context)
         kinds = ["prediction", "variance", "sd"] + (["exceedance"] if threshold is not None else [])
         names = self.result_names(parameters, field, kinds, source, feedback)
-        document, samples = self.model_and_samples(parameters, context, feedback, progress_callback(feedback, 0, 20))
+        document, samples = self.model_and_samples(parameters, context, feedback, progress_callback(feedback, 0, 20),
+                                                   spread_included=True)
         sources = self.covariate_sources(parameters, context)
         predictor, lines = choose_predictor(samples.xy, samples.values, document.covariance, document.mean,
                                             self.neighbourhood(parameters, context), units=document.units,
@@ -158,6 +160,11 @@ class PredictPointsAlgorithm(FieldcastAlgorithm):
         for name in names:
             fields.append(QgsField(name, field_type("Double")))
         local = isinstance(predictor, LocalKrigingPredictor)
+        if samples.sets is not None and local:
+            feedback.pushWarning("With local kriging, " + SPREAD_LEFT_OUT)
+        elif samples.sets is not None:
+            predictor = ImputedKriging(samples.xy, samples.sets, document.covariance, document.mean,
+                                       samples.covariates)
         before = (predictor.singular_targets, predictor.ill_conditioned_targets) if local else (0, 0)
         with checked_sink(self, parameters, self.OUTPUT, context, fields, source.wkbType(),
                           source.sourceCrs()) as sink:

@@ -73,7 +73,8 @@ class ModelSamples:
     belong to the first feature of each merged group; ``field`` names the attribute. ``merged_points``
     samples were averaged into ``merged_groups`` shared locations. ``covariates`` are the mean's covariate
     columns at the samples (None without covariates). ``censored`` marks the samples whose value is a limit (in
-    the modelling scale; None when none is, or after substitution).
+    the modelling scale; None when none is, or after substitution); ``sets`` the completed data sets (m, n) whose
+    mean ``values`` is, once such samples are imputed.
     """
 
     xy: np.ndarray
@@ -84,6 +85,7 @@ class ModelSamples:
     merged_points: int
     covariates: np.ndarray | None = None
     censored: np.ndarray | None = None
+    sets: np.ndarray | None = None
 
     def with_covariates(self, columns: np.ndarray, kept: np.ndarray) -> ModelSamples:
         """The samples ``kept`` (where every covariate has a value) with their covariate columns, checked again."""
@@ -91,10 +93,11 @@ class ModelSamples:
         return ModelSamples(self.xy[kept], self.values[kept], self.fids[kept], self.field, self.merged_groups,
                             self.merged_points, columns, None if self.censored is None else self.censored[kept])
 
-    def with_values(self, values: np.ndarray) -> ModelSamples:
-        """The samples with other values (e.g. the censored ones imputed) and no censored mark."""
+    def with_values(self, values: np.ndarray, sets: np.ndarray | None = None) -> ModelSamples:
+        """The samples with other values (e.g. the censored ones imputed) and no censored mark; ``sets`` are the
+        completed data sets (m, n) those values average."""
         return ModelSamples(self.xy, values, self.fids, self.field, self.merged_groups, self.merged_points,
-                            self.covariates)
+                            self.covariates, sets=sets)
 
     def censored_count(self) -> int:
         """How many samples are limits."""

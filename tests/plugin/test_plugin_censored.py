@@ -81,7 +81,9 @@ def test_predictpoints_with_limits_logs_their_treatment(qgis_processing, meuse, 
     qgis_processing.run("fieldcast:predictpoints", {"INPUT": layer, "FIELD": "cd_text", "MODEL": str(model),
                                                     "TARGETS": layer, "OUTPUT": str(tmp_path / "p.gpkg")},
                         feedback=feedback)
-    assert "21 sample(s) below a limit enter kriging as their conditional mean" in feedback.textLog()
+    log = feedback.textLog()
+    assert "21 sample(s) below a limit enter kriging as their conditional mean" in log
+    assert "variances add the spread between those sets (Rubin's rules)" in log
 
 
 def test_fit_report_says_how_the_limits_were_treated(qgis_processing, meuse, tmp_path):  # noqa: F811
