@@ -79,8 +79,17 @@ NO_FIELD = ("No value field chosen. Choose the numeric field of the sample layer
 FILE_OUTPUTS = (QgsProcessingParameterFileDestination, QgsProcessingParameterRasterDestination,
                 QgsProcessingParameterFeatureSink, QgsProcessingParameterVectorDestination,
                 QgsProcessingParameterFolderDestination)
-SPREAD_LEFT_OUT = ("variances, intervals and exceedance leave out the spread between those sets, so they are "
-                   "somewhat too narrow near these samples.")
+
+
+def log_spread(feedback, included: bool, why: str = "") -> None:
+    """Say whether the variances of a run with samples below a limit add the spread between the completed data
+    sets (info) or leave it out (a warning; ``why`` names the reason, e.g. local kriging)."""
+    if included:
+        feedback.pushInfo("Variances add the spread between the completed data sets (Rubin's rules).")
+    else:
+        feedback.pushWarning(f"{why}Variances, intervals and exceedance leave out the spread between the completed "
+                             "data sets of the samples below a limit, so they are somewhat too narrow near them.")
+
 LAYER_INPUTS = (QgsProcessingParameterFeatureSource, QgsProcessingParameterVectorLayer,
                 QgsProcessingParameterRasterLayer, QgsProcessingParameterMapLayer, QgsProcessingParameterExtent)
 
@@ -446,7 +455,7 @@ class FieldcastAlgorithm(QgsProcessingAlgorithm):
 
         Values below a limit (likelihood treatment) are fitted as limits, and then replaced by their conditional
         mean below the limit given the model (see :meth:`imputed_samples`; ``spread_included`` when the caller krigs
-        every completed data set)."""
+        every completed data set, and says so with :func:`log_spread`)."""
         layer_samples = self.read_samples(parameters, context, feedback)
         nondetects = self.nondetects(parameters, context)
         sources = self.covariate_sources(parameters, context) if self.parameterDefinition(self.COVARIATES) else []
@@ -486,13 +495,11 @@ class FieldcastAlgorithm(QgsProcessingAlgorithm):
             return samples
         completed = impute_censored(samples.xy, samples.values, samples.censored, document.covariance,
                                     document.mean, document.coefficients, samples.covariates)
-        drawn = (f"{samples.censored_count()} sample(s) below a limit enter kriging as their conditional mean below "
-                 "the limit given the model (the average of 20 draws). Predictions equal the average over the drawn "
-                 "data sets; ")
-        if spread_included:
-            feedback.pushInfo(drawn + "variances add the spread between those sets (Rubin's rules).")
-        else:
-            feedback.pushWarning(drawn + SPREAD_LEFT_OUT)
+        feedback.pushInfo(f"{samples.censored_count()} sample(s) below a limit enter kriging as their conditional "
+                          "mean below the limit given the model (the average of 20 draws): predictions equal the "
+                          "average over the drawn data sets.")
+        if not spread_included:
+            log_spread(feedback, False)
         return samples.with_values(completed.mean(axis=0), completed)
 
     # --- running -------------------------------------------------------------------------------------------

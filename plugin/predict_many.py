@@ -237,7 +237,7 @@ class PredictManyAlgorithm(SurfaceAlgorithm):
                                                 self.censoring(layer_samples, samples, run.nondetects))
                 log_fit(feedback, samples.xy, samples.values, result, document, field, samples.covariates)
                 feedback.pushInfo(describe_document(document))
-                samples = self.imputed_samples(samples, document, feedback)
+                samples = self.imputed_samples(samples, document, feedback, spread_included=True)
                 key = (document.crs_wkt, samples.xy.tobytes())
                 if key in grids:
                     feedback.pushInfo("Same sample locations as an earlier field: its grid and mask are reused.")
@@ -248,7 +248,7 @@ class PredictManyAlgorithm(SurfaceAlgorithm):
                                    [(field, run.raster_paths(field))], feedback,
                                    progress_callback(feedback, start + FIT_SHARE * share, start + share),
                                    samples.covariates, self.cell_covariates(parameters, context, document,
-                                                                            grids[key][0]))
+                                                                            grids[key][0]), samples.sets)
                 document.save(run.model_path(field))
             except Cancelled as exc:
                 raise QgsProcessingException(self.tr(f"Cancelled at field {field}: no file was written.")) from exc

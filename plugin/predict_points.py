@@ -35,7 +35,7 @@ from ..algorithms import (
     same_crs,
     transform_points,
 )
-from .algorithm_base import SPREAD_LEFT_OUT, FieldcastAlgorithm, progress_callback, push_log
+from .algorithm_base import FieldcastAlgorithm, log_spread, progress_callback, push_log
 from .destinations import destination_value
 from .field_names import free_names, name_limit
 from .field_types import field_type
@@ -160,11 +160,11 @@ class PredictPointsAlgorithm(FieldcastAlgorithm):
         for name in names:
             fields.append(QgsField(name, field_type("Double")))
         local = isinstance(predictor, LocalKrigingPredictor)
-        if samples.sets is not None and local:
-            feedback.pushWarning("With local kriging, " + SPREAD_LEFT_OUT)
-        elif samples.sets is not None:
-            predictor = ImputedKriging(samples.xy, samples.sets, document.covariance, document.mean,
-                                       samples.covariates)
+        if samples.sets is not None:
+            log_spread(feedback, not local, "With local kriging: ")
+            if not local:
+                predictor = ImputedKriging(samples.xy, samples.sets, document.covariance, document.mean,
+                                           samples.covariates)
         before = (predictor.singular_targets, predictor.ill_conditioned_targets) if local else (0, 0)
         with checked_sink(self, parameters, self.OUTPUT, context, fields, source.wkbType(),
                           source.sourceCrs()) as sink:

@@ -125,7 +125,8 @@ class PredictSurfaceAlgorithm(SurfaceAlgorithm):
         check_interval(interval)  # before the samples are read or a model fitted
         paths = {kind: self.raster_destination(parameters, name, context) for kind, name in self.OUTPUT_KINDS.items()}
         paths["exceedance"] = exceedance_path
-        document, samples = self.model_and_samples(parameters, context, feedback, progress_callback(feedback, 0, 30))
+        document, samples = self.model_and_samples(parameters, context, feedback, progress_callback(feedback, 0, 30),
+                                                   spread_included=True)
         grid, inside = self.grid_and_mask(parameters, context, samples.xy, document.crs_wkt, document.units,
                                           feedback, n_bands=sum(1 for path in paths.values() if path))
         support = self.choice(parameters, self.SUPPORT, context)
@@ -134,7 +135,7 @@ class PredictSurfaceAlgorithm(SurfaceAlgorithm):
         self.krige_surface([document], samples.xy, samples.values, grid, inside, scale,
                            self.neighbourhood(parameters, context), [(samples.field, paths)], feedback,
                            progress_callback(feedback, 30, 100), samples.covariates,
-                           self.cell_covariates(parameters, context, document, grid))
+                           self.cell_covariates(parameters, context, document, grid), samples.sets)
         percents = {"lower": 50 * (1 - interval), "upper": 50 * (1 + interval)}
         for quantity, path in paths.items():
             style_on_load(context, path, samples.field, quantity, threshold=threshold, percent=percents.get(quantity))

@@ -83,7 +83,7 @@ def test_predictpoints_with_limits_logs_their_treatment(qgis_processing, meuse, 
                         feedback=feedback)
     log = feedback.textLog()
     assert "21 sample(s) below a limit enter kriging as their conditional mean" in log
-    assert "variances add the spread between those sets (Rubin's rules)" in log
+    assert "Variances add the spread between the completed data sets (Rubin's rules)." in log
 
 
 def test_fit_report_says_how_the_limits_were_treated(qgis_processing, meuse, tmp_path):  # noqa: F811
@@ -104,7 +104,25 @@ def test_predictmany_fits_limits_per_field_and_refuses_them_for_a_shared_model(q
     qgis_processing.run("fieldcast:predictmany", {**common, "OUTPUT_FOLDER": str(tmp_path / "each")},
                         feedback=feedback)
     assert "cd: Values below a limit: 21 of 155 samples, kept as limits" in feedback.textLog()
+    assert "Variances add the spread between the completed data sets" in feedback.textLog()
     with pytest.raises(QgsProcessingException, match="SHARED_MODEL"):
         qgis_processing.run("fieldcast:predictmany", {**common, "SHARED_MODEL": True,
                                                       "OUTPUT_FOLDER": str(tmp_path / "shared")})
     assert not (tmp_path / "shared").exists() or not any((tmp_path / "shared").iterdir())
+
+
+def test_predict_and_crossvalidate_with_limits_say_what_the_variances_hold(qgis_processing, meuse,  # noqa: F811
+                                                                            tmp_path):
+    layer = meuse_layer(meuse, tmp_path / "cd.gpkg")
+    model = tmp_path / "m.json"
+    run(qgis_processing, {"INPUT": layer, "FIELD": "cd_text", "OUTPUT_MODEL": str(model)})
+    grid = {"EXTENT": "178440,181560,329600,333760 [EPSG:28992]", "PIXEL_SIZE": 400.0}
+    feedback = QgsProcessingFeedback()
+    qgis_processing.run("fieldcast:predict", {"INPUT": layer, "FIELD": "cd_text", "MODEL": str(model), **grid,
+                                              "OUTPUT": str(tmp_path / "p.tif")}, feedback=feedback)
+    assert "Variances add the spread between the completed data sets" in feedback.textLog()
+    feedback = QgsProcessingFeedback()
+    qgis_processing.run("fieldcast:crossvalidate", {"INPUT": layer, "FIELD": "cd_text", "MODEL": str(model),
+                                                    "OUTPUT": str(tmp_path / "cv.gpkg"), "OUTPUT_REPORT": None},
+                        feedback=feedback)
+    assert "leave out the spread between the completed data sets" in feedback.textLog()
