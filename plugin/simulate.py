@@ -178,7 +178,10 @@ class SimulateAlgorithm(RasterAlgorithm):
             raise FieldcastError(f"Summaries and the realisation table need at least 2 realisations; got {count}. "
                                  "Ask for more realisations (100 is a good start), or only for the realisations.")
         document, samples = self.model_and_samples(parameters, context, feedback,
-                                                   progress_callback(feedback, 0, SIMULATION_PERCENT[0]))
+                                                   progress_callback(feedback, 0, SIMULATION_PERCENT[0]), True)
+        if samples.sets is not None:
+            feedback.pushInfo(f"Each realisation is conditioned on one of the {len(samples.sets)} completed data sets "
+                              "of the samples below a limit (realisation r on set r modulo their number).")
         neighbourhood = self.neighbourhood(parameters, context)
         neighbours, lines = neighbourhood.resolved(document.mean, "cell")
         refuse_local_covariates(document.mean, neighbours, len(samples.values))
@@ -196,7 +199,7 @@ class SimulateAlgorithm(RasterAlgorithm):
         result = simulate_conditional(samples.xy, samples.values, document.covariance, document.mean, grid,
                                       n_realisations=count, seed=seed, transform=document.transform,
                                       covariates=samples.covariates, grid_covariates=grid_covariates,
-                                      neighbours=neighbours, search_radius=search_radius,
+                                      neighbours=neighbours, search_radius=search_radius, value_sets=samples.sets,
                                       progress=progress_callback(feedback, *SIMULATION_PERCENT),
                                       should_stop=feedback.isCanceled)
         self.log_method(result, feedback)

@@ -126,3 +126,16 @@ def test_predict_and_crossvalidate_with_limits_say_what_the_variances_hold(qgis_
                                                     "OUTPUT": str(tmp_path / "cv.gpkg"), "OUTPUT_REPORT": None},
                         feedback=feedback)
     assert "leave out the spread between the completed data sets" in feedback.textLog()
+
+
+def test_simulate_with_limits_conditions_realisations_on_completed_sets(qgis_processing, meuse,  # noqa: F811
+                                                                        tmp_path):
+    layer = meuse_layer(meuse, tmp_path / "cd.gpkg")
+    model = tmp_path / "m.json"
+    run(qgis_processing, {"INPUT": layer, "FIELD": "cd_text", "OUTPUT_MODEL": str(model)})
+    feedback = QgsProcessingFeedback()
+    qgis_processing.run("fieldcast:simulate", {"INPUT": layer, "FIELD": "cd_text", "MODEL": str(model),
+                                               "EXTENT": "178440,181560,329600,333760 [EPSG:28992]",
+                                               "PIXEL_SIZE": 400.0, "REALIZATIONS": 3,
+                                               "OUTPUT": str(tmp_path / "sim.tif")}, feedback=feedback)
+    assert "Each realisation is conditioned on one of the 20 completed data sets" in feedback.textLog()
