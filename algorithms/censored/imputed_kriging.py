@@ -3,8 +3,9 @@
 Each completed data set holds the observed values and one joint draw of the censored values below their limits
 (:class:`.gibbs.TruncatedGibbs`). Kriging each of the ``m`` sets gives means ``mu_k`` and the one kriging variance
 ``W`` (it does not depend on the values); the combined prediction is ``mean(mu_k)`` and its variance
-``W + (1 + 1/m) B`` with ``B`` the variance of the ``mu_k`` across sets (Rubin's rules, Rubin 1987). Exceedance
-probabilities are averaged over the sets, and a conditional simulation conditions each realisation on one set.
+``W + (1 + 1/m) B`` with ``B`` the variance of the ``mu_k`` across sets (Rubin's rules, Rubin 1987); exceedance and
+quantiles follow from that mean and variance as for any kriging. A conditional simulation conditions each
+realisation on one set (``simulate_conditional(value_sets=...)``).
 All sets share one factorisation: :class:`..predict.kriging.KrigingPredictor` krigs them as columns.
 """
 from __future__ import annotations
@@ -15,8 +16,6 @@ import numpy as np
 
 from ..model.covariance import CovarianceModel
 from ..model.mean import MeanModel
-from ..model.transform import Transform
-from ..predict.exceedance import exceedance_probability
 from ..predict.kriging import KrigingPredictor
 from .stochastic_em import gibbs_for
 
@@ -68,13 +67,6 @@ class ImputedKriging:
         means, variance = self.predict_sets(xy0, covariates0, include_nugget=include_nugget, chunk_size=chunk_size,
                                             progress=progress, should_stop=should_stop)
         return combine_sets(means, variance)
-
-    def exceedance(self, xy0: np.ndarray, threshold: float, transform: Transform | None = None,
-                   covariates0: np.ndarray | None = None) -> np.ndarray:
-        """``P(Z(x) > threshold)`` at the targets, averaged over the sets (threshold in attribute units)."""
-        means, variance = self.predict_sets(xy0, covariates0)
-        return np.mean([exceedance_probability(means[:, k], variance, threshold, transform=transform)
-                        for k in range(means.shape[1])], axis=0)
 
 
 def combine_sets(means: np.ndarray, variance: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
