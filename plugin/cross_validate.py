@@ -113,6 +113,10 @@ class CrossValidateAlgorithm(FieldcastAlgorithm):
     def compute(self, parameters, context, feedback) -> dict:
         report_path = self.report_destination(parameters, context)
         document, samples = self.model_and_samples(parameters, context, feedback, progress_callback(feedback, 0, 80))
+        if samples.sets is not None:
+            feedback.pushWarning(f"The {int(np.count_nonzero(np.ptp(samples.sets, axis=0)))} sample(s) "
+                                 "below a limit are predicted against their conditional mean below the limit, not a "
+                                 "measured value: their errors and the statistics that include them are model-based.")
         result = self.cross_validation(parameters, context, feedback, document, samples)
         summary = {**result.summary(), **result.attribute_summary(document.transform)}
         feedback.pushInfo("Leave-one-out on {n} samples: ME {ME:.4g}, RMSE {RMSE:.4g}, MSDR {MSDR:.4g}, "

@@ -6,8 +6,10 @@ import pytest
 from scipy import integrate, stats
 
 from fieldcast.algorithms import (
+    Cancelled,
     CovarianceModel,
     FieldcastError,
+    FitOptions,
     GridSpec,
     ImputedKriging,
     KrigingPredictor,
@@ -15,6 +17,7 @@ from fieldcast.algorithms import (
     Structure,
     TruncatedGibbs,
     censored_log_likelihood,
+    fit_censored,
     impute_censored,
     minimum_pile_warning,
     parse_limit_texts,
@@ -182,3 +185,18 @@ def test_each_realisation_is_conditioned_on_its_own_completed_set():
     for r in range(5):
         shift = ((sets[r % 3] - VALUES) @ weights).reshape(grid.n_rows, grid.n_cols)
         assert np.allclose(drawn.realisations[r] - plain.realisations[r], shift, atol=1e-10)
+
+
+def test_a_cancelled_censored_fit_stops():
+    censored = np.zeros(len(XY), dtype=bool)
+    censored[4] = True
+    with pytest.raises(Cancelled):
+        fit_censored(XY, VALUES, censored, FitOptions(kernel="exponential", anisotropy=False),
+                     should_stop=lambda: True)
+
+
+def test_too_few_detected_values_are_refused_with_advice():
+    censored = np.ones(len(XY), dtype=bool)
+    censored[:2] = False
+    with pytest.raises(FieldcastError, match="at least 3 detected values"):
+        fit_censored(XY, VALUES, censored, FitOptions())

@@ -126,6 +126,7 @@ def test_predict_and_crossvalidate_with_limits_say_what_the_variances_hold(qgis_
                                                     "OUTPUT": str(tmp_path / "cv.gpkg"), "OUTPUT_REPORT": None},
                         feedback=feedback)
     assert "leave out the spread between the completed data sets" in feedback.textLog()
+    assert "The 21 sample(s) below a limit are predicted against their conditional mean" in feedback.textLog()
 
 
 def test_simulate_with_limits_conditions_realisations_on_completed_sets(qgis_processing, meuse,  # noqa: F811
