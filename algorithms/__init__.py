@@ -17,7 +17,9 @@ Subpackages, by what the toolbox does:
 ``io``
     samples, grids, masks, GeoTIFF writing, model files, atomic writes, staged outputs, CRS helpers;
 ``linalg``
-    stacks of small systems and the BLAS thread switch.
+    stacks of small systems and the BLAS thread switch;
+``censored``
+    values below detection limits: censored likelihood, Gibbs imputation, stochastic EM, imputed kriging.
 
 The names are loaded on first use (PEP 562 module ``__getattr__``), so importing
 the package costs nothing until a name is asked for: QGIS can load the plugin and
@@ -114,6 +116,21 @@ _PUBLIC = {
     "run_on_dask": "cluster.dask_runner",
     # linalg
     "CONDITION_ADVICE": "linalg.condition_policy",
+    # censored
+    "censored_log_likelihood": "censored.likelihood",
+    "TruncatedGibbs": "censored.gibbs",
+    "CensoredFit": "censored.stochastic_em",
+    "censoring_summary": "censored.stochastic_em",
+    "fit_censored": "censored.stochastic_em",
+    "ImputedKriging": "censored.imputed_kriging",
+    "impute_censored": "censored.imputed_kriging",
+    "NONDETECT_TREATMENTS": "censored.limits",
+    "check_factor": "censored.limits",
+    "check_limits": "censored.limits",
+    "censoring_words": "censored.limits",
+    "minimum_pile_warning": "censored.limits",
+    "parse_limit_texts": "censored.limits",
+    "substituted": "censored.limits",
     # simulate
     "UnconditionalGenerator": "simulate.circulant",
     "covariance_factor": "simulate.circulant",

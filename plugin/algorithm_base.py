@@ -42,6 +42,7 @@ from ..algorithms import (
     BACKTRANSFORMS,
     FIT_METHODS,
     KERNEL_CHOICES,
+    NONDETECT_TREATMENTS,
     PREDICT_TARGETS,
     TRANSFORM_KINDS,
     Cancelled,
@@ -59,8 +60,11 @@ from ..algorithms import (
     SampleCovariates,
     Transform,
     WorkingCrs,
+    censoring_summary,
+    check_factor,
     decluster,
     fitted_transform,
+    impute_censored,
     measurement_variance,
     refuse_read_only,
     remove_stale_files,
@@ -72,7 +76,7 @@ from .help_text import SHORT_DESCRIPTIONS, help_url, parameter_help, search_word
 from .icons import icon, icon_path
 from .model_source import describe_document, fit_document, load_document, log_fit, with_covariate_mean
 from .report.page import ReportError
-from .sample_reader import LayerSamples, ModelSamples, crs_wkt, prepare_samples, read_layer_samples
+from .sample_reader import LayerSamples, ModelSamples, NonDetects, crs_wkt, prepare_samples, read_layer_samples
 from .whole_numbers import whole_number
 
 TREND_CHOICES = ("constant", "linear", "quadratic")
@@ -81,6 +85,17 @@ NO_FIELD = ("No value field chosen. Choose the numeric field of the sample layer
 FILE_OUTPUTS = (QgsProcessingParameterFileDestination, QgsProcessingParameterRasterDestination,
                 QgsProcessingParameterFeatureSink, QgsProcessingParameterVectorDestination,
                 QgsProcessingParameterFolderDestination)
+
+
+def log_spread(feedback, included: bool, why: str = "") -> None:
+    """Say whether the variances of a run with samples below a limit add the spread between the completed data
+    sets (info) or leave it out (a warning; ``why`` names the reason, e.g. local kriging)."""
+    if included:
+        feedback.pushInfo("Variances add the spread between the completed data sets (Rubin's rules).")
+    else:
+        feedback.pushWarning(f"{why}Variances, intervals and exceedance leave out the spread between the completed "
+                             "data sets of the samples below a limit, so they are somewhat too narrow near them.")
+
 LAYER_INPUTS = (QgsProcessingParameterFeatureSource, QgsProcessingParameterVectorLayer,
                 QgsProcessingParameterRasterLayer, QgsProcessingParameterMapLayer, QgsProcessingParameterExtent)
 
@@ -157,6 +172,9 @@ class FieldcastAlgorithm(QgsProcessingAlgorithm):
     NUGGET = "NUGGET"
     ERROR_VARIANCE_FIELD = "ERROR_VARIANCE_FIELD"
     PREDICT_TARGET = "PREDICT_TARGET"
+    BELOW_LIMIT_FIELD = "BELOW_LIMIT_FIELD"
+    NONDETECTS = "NONDETECTS"
+    SUBSTITUTION_FACTOR = "SUBSTITUTION_FACTOR"
     ICON = "fieldcast.svg"
 
     def tr(self, text: str) -> str:
@@ -217,7 +235,37 @@ class FieldcastAlgorithm(QgsProcessingAlgorithm):
         self.add_input_parameter()
         self.addParameter(QgsProcessingParameterField(
             self.FIELD, self.tr("Value field"), defaultValue="", parentLayerParameterName=self.INPUT,
-            type=QgsProcessingParameterField.Numeric))
+            type=QgsProcessingParameterField.Any))
+
+    def add_nondetect_parameters(self) -> None:
+        """BELOW_LIMIT_FIELD (a field of INPUT true where the value is a reporting limit), NONDETECTS (likelihood or
+        substitution) and SUBSTITUTION_FACTOR, all advanced."""
+        self.addParameter(advanced(QgsProcessingParameterField(
+            self.BELOW_LIMIT_FIELD, self.tr("Below-limit field (true = the value is a reporting limit)"),
+            parentLayerParameterName=self.INPUT, type=QgsProcessingParameterField.Any, optional=True)))
+        self.add_choice(self.NONDETECTS, self.tr("Values below a limit"), NONDETECT_TREATMENTS, "likelihood",
+                        expert=True)
+        self.addParameter(advanced(QgsProcessingParameterNumber(
+            self.SUBSTITUTION_FACTOR, self.tr("Substitution factor (times the limit)"),
+            type=QgsProcessingParameterNumber.Double, defaultValue=0.5)))
+
+    def nondetects(self, parameters, context) -> NonDetects:
+        """The choices of :meth:`add_nondetect_parameters` (the defaults for an algorithm without them)."""
+        if self.parameterDefinition(self.NONDETECTS) is None:
+            return NonDetects()
+        factor = self.parameterAsDouble(parameters, self.SUBSTITUTION_FACTOR, context)
+        check_factor(factor)
+        return NonDetects(self.parameterAsString(parameters, self.BELOW_LIMIT_FIELD, context),
+                          self.choice(parameters, self.NONDETECTS, context), factor)
+
+    @staticmethod
+    def censoring(layer_samples: LayerSamples, samples: ModelSamples, nondetects: NonDetects) -> dict | None:
+        """The model file's entry for substituted limits (the engine's fit writes it for the likelihood), or
+        None."""
+        if layer_samples.censored is None or nondetects.treatment != "substitution":
+            return None
+        return censoring_summary(int(layer_samples.censored.sum()), len(samples.values), "substitution",
+                                 factor=nondetects.factor)
 
     def add_model_parameter(self) -> None:
         """MODEL: optional model file written by 'Fit covariance model'."""
@@ -479,16 +527,21 @@ class FieldcastAlgorithm(QgsProcessingAlgorithm):
         field = self.parameterAsString(parameters, self.FIELD, context)
         target = self.parameterAsCrs(parameters, self.TARGET_CRS, context)
         return read_layer_samples(source, field, target, feedback, self.grid_template(parameters, context),
-                                  self.error_field(parameters, context))
+                                  self.error_field(parameters, context), self.nondetects(parameters, context).field)
 
     def grid_template(self, parameters, context) -> RasterTemplate | None:
         """The template raster whose CRS is the working CRS; None here (see ``RasterAlgorithm``)."""
         return None
 
-    def model_and_samples(self, parameters, context, feedback,
-                          progress: Callable[[float], None]) -> tuple[ModelDocument, ModelSamples]:
-        """The model from MODEL, or one fitted with the default settings, and the samples in its scale."""
+    def model_and_samples(self, parameters, context, feedback, progress: Callable[[float], None],
+                          spread_included: bool = False) -> tuple[ModelDocument, ModelSamples]:
+        """The model from MODEL, or one fitted with the default settings, and the samples in its scale.
+
+        Values below a limit (likelihood treatment) are fitted as limits, and then replaced by their conditional
+        mean below the limit given the model (see :meth:`imputed_samples`; ``spread_included`` when the caller krigs
+        every completed data set, and says so with :func:`log_spread`)."""
         layer_samples = self.read_samples(parameters, context, feedback)
+        nondetects = self.nondetects(parameters, context)
         sources = self.covariate_sources(parameters, context) if self.parameterDefinition(self.COVARIATES) else []
         working = layer_samples.working
         path = self.parameterAsFile(parameters, self.MODEL, context)
@@ -499,20 +552,41 @@ class FieldcastAlgorithm(QgsProcessingAlgorithm):
                 feedback.pushWarning(f"The model was fitted to field {document.field!r}; "
                                      f"it is applied here to {layer_samples.field!r}.")
             self.log_measurement_settings(parameters, context, document, layer_samples.error_field, feedback)
-            samples = prepare_samples(layer_samples, document.transform, feedback)
+            samples = prepare_samples(layer_samples, document.transform, feedback, nondetects)
             samples = self.model_covariates(samples, document, sources, working, feedback)
         else:
             settings = FitOptions(nugget=self.fixed_nugget(parameters, context))
             feedback.pushInfo(f"No model file given: fitting a model with the default settings "
                               f"({settings.describe()}, no transform). Run 'Fit covariance model' to choose them.")
-            samples, covariates = self.fit_covariates(prepare_samples(layer_samples, Transform(), feedback), sources,
-                                                      working, feedback)
+            samples, covariates = self.fit_covariates(prepare_samples(layer_samples, Transform(), feedback,
+                                                                      nondetects), sources, working, feedback)
             document, result = fit_document(samples.xy, samples.values, Transform(), working, layer_samples.field,
                                             settings, progress, feedback.isCanceled, covariates, samples.covariates,
-                                            samples.error_variance, samples.error_field)
+                                            samples.error_variance, samples.error_field, samples.censored,
+                                            self.censoring(layer_samples, samples, nondetects))
             log_fit(feedback, samples.xy, samples.values, result, document, columns=samples.covariates)
         feedback.pushInfo(describe_document(document))
-        return document, samples
+        return document, self.imputed_samples(samples, document, feedback, spread_included)
+
+    @staticmethod
+    def imputed_samples(samples: ModelSamples, document: ModelDocument, feedback,
+                        spread_included: bool = False) -> ModelSamples:
+        """The samples with each value below a limit replaced by its conditional mean below the limit given the
+        model and the other samples (the mean of 20 joint draws, seeded), unchanged without such values.
+
+        Kriging is linear in the values, so the prediction equals the average of the predictions of the drawn
+        data sets; the kriging variance then leaves out the spread between those predictions (said in the log).
+        """
+        if not samples.censored_count():
+            return samples
+        completed = impute_censored(samples.xy, samples.values, samples.censored, document.covariance,
+                                    document.mean, document.coefficients, samples.covariates)
+        feedback.pushInfo(f"{samples.censored_count()} sample(s) below a limit enter kriging as their conditional "
+                          "mean below the limit given the model (the average of 20 draws): predictions equal the "
+                          "average over the drawn data sets.")
+        if not spread_included:
+            log_spread(feedback, False)
+        return samples.with_values(completed.mean(axis=0), completed)
 
     def log_measurement_settings(self, parameters, context, document: ModelDocument, error_field: str,
                                  feedback) -> None:

@@ -31,6 +31,7 @@ from .help_text import (
     COVARIATE_HELP,
     ERROR_VARIANCE_HELP,
     MODEL_FILE_HELP,
+    NONDETECT_HELP,
     NUGGET_HELP,
     TARGET_CRS_HELP,
     compose_help,
@@ -68,6 +69,7 @@ class CrossValidateAlgorithm(FieldcastAlgorithm):
           "location averaged)."),
          MODEL_FILE_HELP,
          *COVARIATE_HELP,
+         *NONDETECT_HELP,
          ("Neighbours per sample", "0 (the default): each sample is predicted from all the others (global "
           "kriging, computed in closed form), up to 5,000 samples; with more, each sample from its 64 nearest others "
           "and the log says so. A number k: from its k nearest other samples (local kriging; 16 to "
@@ -110,6 +112,7 @@ class CrossValidateAlgorithm(FieldcastAlgorithm):
         self.add_sample_parameters()
         self.add_model_parameter()
         self.add_covariate_parameters()
+        self.add_nondetect_parameters()
         self.add_neighbourhood_parameters("sample")
         self.add_measurement_parameters()
         self.add_target_crs_parameter()
@@ -121,6 +124,10 @@ class CrossValidateAlgorithm(FieldcastAlgorithm):
     def compute(self, parameters, context, feedback) -> dict:
         report_path = self.report_destination(parameters, context)
         document, samples = self.model_and_samples(parameters, context, feedback, progress_callback(feedback, 0, 80))
+        if samples.sets is not None:
+            feedback.pushWarning(f"The {int(np.count_nonzero(np.ptp(samples.sets, axis=0)))} sample(s) "
+                                 "below a limit are predicted against their conditional mean below the limit, not a "
+                                 "measured value: their errors and the statistics that include them are model-based.")
         result = self.cross_validation(parameters, context, feedback, document, samples)
         summary = {**result.summary(), **result.attribute_summary(document.transform)}
         feedback.pushInfo("Leave-one-out on {n} samples: ME {ME:.4g}, RMSE {RMSE:.4g}, MSDR {MSDR:.4g}, "

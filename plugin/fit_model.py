@@ -24,6 +24,7 @@ from .help_text import (
     COVARIATE_HELP,
     ERROR_VARIANCE_HELP,
     FIT_HELP,
+    NONDETECT_HELP,
     NUGGET_HELP,
     TARGET_CRS_HELP,
     compose_help,
@@ -95,6 +96,7 @@ class FitModelAlgorithm(FieldcastAlgorithm):
         [("Sample points / Value field", "Point layer and its numeric attribute. NULL values are skipped; "
           "samples at the same location are averaged. Multipoints with several points are refused."),
          *COVARIATE_HELP,
+         *NONDETECT_HELP,
          *FIT_HELP,
          NUGGET_HELP,
          ERROR_VARIANCE_HELP,
@@ -120,6 +122,7 @@ class FitModelAlgorithm(FieldcastAlgorithm):
         self.add_covariate_parameters()
         self.add_fit_parameters()
         self.add_measurement_parameters()
+        self.add_nondetect_parameters()
         self.add_target_crs_parameter()
         self.addParameter(QgsProcessingParameterFileDestination(
             self.OUTPUT_MODEL, self.tr("Model file"), self.tr("Fieldcast model (*.json)")))
@@ -134,15 +137,17 @@ class FitModelAlgorithm(FieldcastAlgorithm):
         sources = self.covariate_sources(parameters, context)
         layer_samples = self.read_samples(parameters, context, feedback)
         transform, declustering = self.complete_transform(layer_samples, transform, settings, sources, feedback)
-        samples, covariates = self.fit_covariates(prepare_samples(layer_samples, transform, feedback), sources,
-                                                  layer_samples.working, feedback)
+        nondetects = self.nondetects(parameters, context)
+        samples, covariates = self.fit_covariates(prepare_samples(layer_samples, transform, feedback, nondetects),
+                                                  sources, layer_samples.working, feedback)
         feedback.pushInfo(f"Fitting with {settings.describe()}"
                           + (f", covariates {', '.join(covariates.column_names)}." if sources else "."))
         fit_percent = FIT_PERCENT_WITH_REPORT if report_path else 99.0
         document, result = fit_document(samples.xy, samples.values, transform, layer_samples.working,
                                         layer_samples.field, settings, progress_callback(feedback, 0.0, fit_percent),
                                         feedback.isCanceled, covariates, samples.covariates, samples.error_variance,
-                                        samples.error_field)
+                                        samples.error_field, samples.censored,
+                                        self.censoring(layer_samples, samples, nondetects))
         log_fit(feedback, samples.xy, samples.values, result, document, columns=samples.covariates)
         report = None
         if report_path:

@@ -55,6 +55,17 @@ FIT_HELP = [
      "squares on the empirical semivariogram)."),
 ]
 
+NONDETECT_HELP = [
+    ("Below-limit field", "A boolean or 0/1 field of the samples, true where the value is a reporting limit (the "
+     "true value lies below it). A text value field may also hold entries such as \"<0.5\" or \"< 0.5\": the "
+     "number after < is the limit. The log counts both kinds; the model file records how many were censored."),
+    ("Values below a limit", "likelihood (default): limits stay inequalities in the model; the fit draws the "
+     "censored values below their limits (seeded, reproducible) and averages the model over its iterations. "
+     "substitution: each limit is replaced by the substitution factor times it, and then treated as a measured "
+     "value: simpler, but the fit and the map then rest on invented numbers."),
+    ("Substitution factor", "Multiplier of the limit for substitution, above 0 and at most 1 (default 0.5)."),
+]
+
 COVARIATE_HELP = [
     ("Covariate rasters", "Optional raster layers of continuous values that explain part of the value field "
      "(distance to a river, elevation, ...). Each enters the mean as one term whose coefficient is estimated "

@@ -17,8 +17,10 @@ from ..algorithms import (
     ModelDocument,
     Transform,
     WorkingCrs,
+    censoring_words,
     check_design,
     coefficient_line,
+    fit_censored,
     fit_log_lines,
     fit_shared,
     fit_with,
@@ -32,23 +34,34 @@ def fit_document(xy: np.ndarray, values: np.ndarray, transform: Transform, worki
                  settings: FitOptions, progress: Callable[[float], None] | None = None,
                  should_stop: Callable[[], bool] | None = None, covariates: CovariateSet | None = None,
                  columns: np.ndarray | None = None, error_variance: np.ndarray | None = None,
-                 error_field: str = "") -> tuple[ModelDocument, FitResult]:
+                 error_field: str = "", censored: np.ndarray | None = None,
+                 censoring: dict | None = None) -> tuple[ModelDocument, FitResult]:
     """Fit a covariance and mean model and wrap it, with its CRS and transform, as a model document.
 
     ``xy`` is in the working CRS and ``values`` in the modelling scale (after ``transform``); ``columns`` are the
     design columns of ``covariates`` at the samples (refused when collinear with the trend terms);
     ``error_variance`` the samples' measurement-error variances from the field ``error_field`` (its name goes
-    into the model file).
+    into the model file). ``censored`` marks values that are limits: the engine's ``fit_censored`` (stochastic
+    EM) fits them, and the document's ``fit["censored"]`` says so; ``censoring`` is that entry for limits already
+    substituted.
     Returns the document and the engine's fit result (candidates and all), which the fit report reads. The fit's
     warnings give distances in the working CRS's units.
     """
     settings = replace(with_covariate_mean(settings, xy, covariates, columns), units=working.units)
     if error_field:
         settings = replace(settings, error_variance_field=error_field)
-    result = fit_with(xy, values, settings, covariates=columns, progress=progress, should_stop=should_stop,
-                      error_variance=error_variance)
-    return result_document(result, transform, working, field, covariates,
-                           coefficient_errors(result, xy, values, columns, error_variance)), result
+    if censored is not None and censored.any():
+        fit = fit_censored(xy, values, censored, settings, covariates=columns, progress=progress,
+                           should_stop=should_stop)
+        result, censoring, values = fit.result, fit.summary(), fit.imputations.mean(axis=0)
+    else:
+        result = fit_with(xy, values, settings, covariates=columns, progress=progress, should_stop=should_stop,
+                          error_variance=error_variance)
+    document = result_document(result, transform, working, field, covariates,
+                               coefficient_errors(result, xy, values, columns, error_variance))
+    if censoring:
+        document.fit["censored"] = censoring
+    return document, result
 
 
 def with_covariate_mean(settings: FitOptions, xy: np.ndarray, covariates: CovariateSet | None,
@@ -110,6 +123,8 @@ def log_fit(feedback: QgsProcessingFeedback, xy: np.ndarray, values: np.ndarray,
     every line, for runs that fit several fields.
     """
     prefix = f"{label}: " if label else ""
+    if "censored" in document.fit:
+        feedback.pushInfo(prefix + censoring_words(document.fit["censored"]))
     for line in fit_log_lines(result, document.units):
         feedback.pushInfo(prefix + line)
     feedback.pushInfo(prefix + coefficient_line(document.mean.term_names, document.coefficients,

@@ -34,6 +34,7 @@ from .help_text import (
     GRID_HELP,
     MAP_AREA_HELP,
     NEIGHBOURHOOD_HELP,
+    NONDETECT_HELP,
     NUGGET_HELP,
     PREDICT_TARGET_HELP,
     RASTER_TARGET_CRS_HELP,
@@ -41,7 +42,7 @@ from .help_text import (
 )
 from .layer_style import load_styled
 from .model_source import describe_document, fit_document, fit_shared_documents, log_fit
-from .sample_reader import prepare_samples, read_layer_samples
+from .sample_reader import NonDetects, prepare_samples, read_layer_samples
 from .surface_algorithm import SurfaceAlgorithm
 
 FIT_SHARE = 0.4
@@ -90,6 +91,7 @@ class PredictManyAlgorithm(SurfaceAlgorithm):
          ("Value fields", "One or more numeric attributes. Each field's NULL values are skipped "
           "separately, so the fields may have different samples; samples at one location are averaged."),
          *COVARIATE_HELP,
+         *NONDETECT_HELP,
          *FIT_HELP,
          ("One correlation model for all fields", "Off (default): each field gets a model of its own. On: one "
           "correlation model (family, ranges, anisotropy, nugget share) is fitted to all fields jointly, each field "
@@ -124,6 +126,7 @@ class PredictManyAlgorithm(SurfaceAlgorithm):
             self.FIELDS, self.tr("Value fields"), parentLayerParameterName=self.INPUT,
             type=QgsProcessingParameterField.Numeric, allowMultiple=True))
         self.add_covariate_parameters()
+        self.add_nondetect_parameters()
         self.add_fit_parameters()
         self.addParameter(QgsProcessingParameterBoolean(
             self.SHARED_MODEL, self.tr("One correlation model for all fields"), defaultValue=False))
@@ -211,17 +214,20 @@ class PredictManyAlgorithm(SurfaceAlgorithm):
         template = self.grid_template(parameters, context)
         sources = self.covariate_sources(parameters, context)
         prepared, covariates, transforms = [], [], []
+        nondetects = self.nondetects(parameters, context)
         for field in fields:  # every field is checked before any file is written
-            layer_samples = read_layer_samples(source, field, target, feedback, template, error_field)
+            layer_samples = read_layer_samples(source, field, target, feedback, template, error_field,
+                                               nondetects.field)
             completed, _ = self.complete_transform(layer_samples, transform, settings, sources, feedback)
-            samples, described = self.fit_covariates(prepare_samples(layer_samples, completed, feedback), sources,
-                                                     layer_samples.working, feedback)
+            samples, described = self.fit_covariates(prepare_samples(layer_samples, completed, feedback, nondetects),
+                                                     sources, layer_samples.working, feedback)
             prepared.append((layer_samples, samples))
             covariates.append(described)
             transforms.append(completed)
         run = FieldsRun(prepared, file_stems(fields), folder, transforms, settings,
                         self.neighbourhood(parameters, context),
-                        SurfaceScale(transform, self.choice(parameters, self.BACKTRANSFORM, context)), covariates)
+                        SurfaceScale(transform, self.choice(parameters, self.BACKTRANSFORM, context)), covariates,
+                        nondetects)
         first_mean = MeanModel.for_data(settings.mean, prepared[0][1].xy, covariates[0].column_names)
         neighbours, _ = run.neighbourhood.resolved(first_mean, "cell")  # refuse early
         refuse_local_covariates(first_mean, neighbours, len(prepared[0][1].values))
@@ -250,9 +256,11 @@ class PredictManyAlgorithm(SurfaceAlgorithm):
                                                 layer_samples.working, field, run.settings,
                                                 progress_callback(feedback, start, start + FIT_SHARE * share),
                                                 feedback.isCanceled, run.covariates[index], samples.covariates,
-                                                samples.error_variance, samples.error_field)
+                                                samples.error_variance, samples.error_field, samples.censored,
+                                                self.censoring(layer_samples, samples, run.nondetects))
                 log_fit(feedback, samples.xy, samples.values, result, document, field, samples.covariates)
                 feedback.pushInfo(describe_document(document))
+                samples = self.imputed_samples(samples, document, feedback, spread_included=True)
                 added = self.added_variance(parameters, context, document, samples, feedback)
                 scale = replace(run.field_scale(index), measurement_variance=added)
                 key = (document.crs_wkt, samples.xy.tobytes())
@@ -265,7 +273,8 @@ class PredictManyAlgorithm(SurfaceAlgorithm):
                                    [(field, run.raster_paths(field))], feedback,
                                    progress_callback(feedback, start + FIT_SHARE * share, start + share),
                                    samples.covariates, self.cell_covariates(parameters, context, document,
-                                                                            grids[key][0]), samples.error_variance)
+                                                                            grids[key][0]), samples.error_variance,
+                                   samples.sets)
                 document.save(run.model_path(field))
             except Cancelled as exc:
                 raise QgsProcessingException(self.tr(f"Cancelled at field {field}: no file was written.")) from exc
@@ -276,6 +285,12 @@ class PredictManyAlgorithm(SurfaceAlgorithm):
         """One correlation model fitted to all fields jointly; one kriging pass writes every field's rasters."""
         fields = [layer_samples.field for layer_samples, _ in run.prepared]
         first = run.prepared[0][1]
+        limited = [layer_samples.field for layer_samples, samples in run.prepared if samples.censored_count()]
+        if limited:
+            raise FieldcastError(
+                f"One correlation model for all fields does not take values below a limit, and {limited[0]!r} has "
+                "some. Turn off 'One correlation model for all fields' (SHARED_MODEL), or set "
+                "NONDETECTS=substitution.")
         for layer_samples, samples in run.prepared[1:]:
             if not np.array_equal(samples.xy, first.xy):
                 raise FieldcastError(
@@ -323,6 +338,7 @@ class FieldsRun:
     neighbourhood: Neighbourhood
     scale: SurfaceScale
     covariates: list[CovariateSet]
+    nondetects: NonDetects = NonDetects()
 
     def field_scale(self, index: int) -> SurfaceScale:
         """The output scale of field ``index``: its own transform (a Box-Cox lambda or normal-score knots of its

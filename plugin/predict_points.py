@@ -24,6 +24,7 @@ from ..algorithms import (
     CovariateSource,
     ExtrapolationCheck,
     FieldcastError,
+    ImputedKriging,
     LocalKrigingPredictor,
     SurfaceScale,
     TargetDraw,
@@ -34,7 +35,7 @@ from ..algorithms import (
     same_crs,
     transform_points,
 )
-from .algorithm_base import FieldcastAlgorithm, progress_callback, push_log
+from .algorithm_base import FieldcastAlgorithm, log_spread, progress_callback, push_log
 from .destinations import destination_value
 from .field_names import free_names, name_limit
 from .field_types import field_type
@@ -43,6 +44,7 @@ from .help_text import (
     COVARIATE_HELP,
     ERROR_VARIANCE_HELP,
     MODEL_FILE_HELP,
+    NONDETECT_HELP,
     NUGGET_HELP,
     POINT_NEIGHBOURHOOD_HELP,
     PREDICT_TARGET_HELP,
@@ -77,6 +79,7 @@ class PredictPointsAlgorithm(FieldcastAlgorithm):
           "to). NULL values are skipped; samples at one location are averaged."),
          MODEL_FILE_HELP,
          *COVARIATE_HELP,
+         *NONDETECT_HELP,
          ("Target points", "Point layer of the places to predict at, in any CRS: its points are reprojected to "
           "the working CRS for kriging, and the output keeps its own geometry, CRS and fields. Features without "
           "a geometry (or with an empty one) are copied with empty results and counted in the log; a multipoint "
@@ -108,6 +111,7 @@ class PredictPointsAlgorithm(FieldcastAlgorithm):
         self.add_sample_parameters()
         self.add_model_parameter()
         self.add_covariate_parameters()
+        self.add_nondetect_parameters()
         self.addParameter(QgsProcessingParameterFeatureSource(
             self.TARGETS, self.tr("Target points"), [QgsProcessing.TypeVectorPoint]))
         self.add_threshold_parameter()
@@ -149,7 +153,8 @@ class PredictPointsAlgorithm(FieldcastAlgorithm):
         field = self.parameterAsString(parameters, self.FIELD, context)
         kinds = ["prediction", "variance", "sd"] + (["exceedance"] if threshold is not None else [])
         names = self.result_names(parameters, field, kinds, source, feedback)
-        document, samples = self.model_and_samples(parameters, context, feedback, progress_callback(feedback, 0, 20))
+        document, samples = self.model_and_samples(parameters, context, feedback, progress_callback(feedback, 0, 20),
+                                                   spread_included=True)
         sources = self.covariate_sources(parameters, context)
         predictor, lines = choose_predictor(samples.xy, samples.values, document.covariance, document.mean,
                                             self.neighbourhood(parameters, context), units=document.units,
@@ -165,6 +170,11 @@ class PredictPointsAlgorithm(FieldcastAlgorithm):
         for name in names:
             fields.append(QgsField(name, field_type("Double")))
         local = isinstance(predictor, LocalKrigingPredictor)
+        if samples.sets is not None:
+            log_spread(feedback, not local, "With local kriging: ")
+            if not local:
+                predictor = ImputedKriging(samples.xy, samples.sets, document.covariance, document.mean,
+                                           samples.covariates)
         before = (predictor.singular_targets, predictor.ill_conditioned_targets) if local else (0, 0)
         with checked_sink(self, parameters, self.OUTPUT, context, fields, source.wkbType(),
                           source.sourceCrs()) as sink:

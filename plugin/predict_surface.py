@@ -14,6 +14,7 @@ from .help_text import (
     MAP_AREA_HELP,
     MODEL_FILE_HELP,
     NEIGHBOURHOOD_HELP,
+    NONDETECT_HELP,
     NUGGET_HELP,
     PREDICT_TARGET_HELP,
     RASTER_TARGET_CRS_HELP,
@@ -47,6 +48,7 @@ class PredictSurfaceAlgorithm(SurfaceAlgorithm):
           "to). NULL values are skipped; samples at one location are averaged."),
          MODEL_FILE_HELP,
          *COVARIATE_HELP,
+         *NONDETECT_HELP,
          *GRID_HELP,
          *MAP_AREA_HELP,
          BACKTRANSFORM_HELP,
@@ -97,6 +99,7 @@ class PredictSurfaceAlgorithm(SurfaceAlgorithm):
         self.add_sample_parameters()
         self.add_model_parameter()
         self.add_covariate_parameters()
+        self.add_nondetect_parameters()
         self.add_grid_parameters()
         self.add_map_area_parameters()
         self.add_backtransform_parameter()
@@ -130,7 +133,8 @@ class PredictSurfaceAlgorithm(SurfaceAlgorithm):
         check_interval(interval)  # before the samples are read or a model fitted
         paths = {kind: self.raster_destination(parameters, name, context) for kind, name in self.OUTPUT_KINDS.items()}
         paths["exceedance"] = exceedance_path
-        document, samples = self.model_and_samples(parameters, context, feedback, progress_callback(feedback, 0, 30))
+        document, samples = self.model_and_samples(parameters, context, feedback, progress_callback(feedback, 0, 30),
+                                                   spread_included=True)
         grid, inside = self.grid_and_mask(parameters, context, samples.xy, document.crs_wkt, document.units,
                                           feedback, n_bands=sum(1 for path in paths.values() if path))
         support = self.choice(parameters, self.SUPPORT, context)
@@ -140,7 +144,8 @@ class PredictSurfaceAlgorithm(SurfaceAlgorithm):
         self.krige_surface([document], samples.xy, samples.values, grid, inside, scale,
                            self.neighbourhood(parameters, context), [(samples.field, paths)], feedback,
                            progress_callback(feedback, 30, 100), samples.covariates,
-                           self.cell_covariates(parameters, context, document, grid), samples.error_variance)
+                           self.cell_covariates(parameters, context, document, grid), samples.error_variance,
+                           samples.sets)
         percents = {"lower": 50 * (1 - interval), "upper": 50 * (1 + interval)}
         for quantity, path in paths.items():
             style_on_load(context, path, samples.field, quantity, threshold=threshold, percent=percents.get(quantity))

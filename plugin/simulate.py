@@ -41,6 +41,7 @@ from .help_text import (
     ERROR_VARIANCE_HELP,
     GRID_HELP,
     MODEL_FILE_HELP,
+    NONDETECT_HELP,
     NUGGET_HELP,
     RASTER_TARGET_CRS_HELP,
     THRESHOLD_HELP,
@@ -89,6 +90,7 @@ class SimulateAlgorithm(RasterAlgorithm):
           "location averaged)."),
          MODEL_FILE_HELP,
          *COVARIATE_HELP,
+         *NONDETECT_HELP,
          *GRID_HELP,
          ("Number of realisations", "How many fields to draw (default 100, at most 65,535: the bands of one "
           "GeoTIFF). Shares and percentiles from 100 realisations are good to a few per cent; more give steadier "
@@ -126,6 +128,7 @@ class SimulateAlgorithm(RasterAlgorithm):
         self.add_sample_parameters()
         self.add_model_parameter()
         self.add_covariate_parameters()
+        self.add_nondetect_parameters()
         self.add_grid_parameters()
         self.addParameter(QgsProcessingParameterNumber(
             self.REALIZATIONS, self.tr("Number of realisations"), type=QgsProcessingParameterNumber.Integer,
@@ -180,7 +183,10 @@ class SimulateAlgorithm(RasterAlgorithm):
             raise FieldcastError(f"Summaries and the realisation table need at least 2 realisations; got {count}. "
                                  "Ask for more realisations (100 is a good start), or only for the realisations.")
         document, samples = self.model_and_samples(parameters, context, feedback,
-                                                   progress_callback(feedback, 0, SIMULATION_PERCENT[0]))
+                                                   progress_callback(feedback, 0, SIMULATION_PERCENT[0]), True)
+        if samples.sets is not None:
+            feedback.pushInfo(f"Each realisation is conditioned on one of the {len(samples.sets)} completed data sets "
+                              "of the samples below a limit (realisation r on set r modulo their number).")
         neighbourhood = self.neighbourhood(parameters, context)
         neighbours, lines = neighbourhood.resolved(document.mean, "cell")
         refuse_local_covariates(document.mean, neighbours, len(samples.values))
@@ -199,7 +205,7 @@ class SimulateAlgorithm(RasterAlgorithm):
                                       n_realisations=count, seed=seed, transform=document.transform,
                                       covariates=samples.covariates, grid_covariates=grid_covariates,
                                       neighbours=neighbours, search_radius=search_radius,
-                                      error_variance=samples.error_variance,
+                                      error_variance=samples.error_variance, value_sets=samples.sets,
                                       progress=progress_callback(feedback, *SIMULATION_PERCENT),
                                       should_stop=feedback.isCanceled)
         self.log_method(result, feedback)

@@ -22,6 +22,7 @@ from ..algorithms import (
     FieldcastUsageError,
     FieldRasters,
     GridSpec,
+    ImputedKriging,
     LocalKrigingPredictor,
     ModelDocument,
     Neighbourhood,
@@ -33,7 +34,7 @@ from ..algorithms import (
     neighbourhood_gap,
     write_surfaces,
 )
-from .algorithm_base import advanced, push_log
+from .algorithm_base import advanced, log_spread, push_log
 from .raster_algorithm import RasterAlgorithm
 
 MAP_AREAS = ("hull", "extent")
@@ -145,7 +146,7 @@ class SurfaceAlgorithm(RasterAlgorithm):
                       outputs: Sequence[tuple[str, Mapping[str, str]]], feedback,
                       progress: Callable[[float], None], sample_covariates: np.ndarray | None = None,
                       cell_covariates: Callable[[int, int], np.ndarray] | None = None,
-                      error_variance: np.ndarray | None = None) -> None:
+                      error_variance: np.ndarray | None = None, sets: np.ndarray | None = None) -> None:
         """Krige every cell of ``grid`` and write the rasters of ``outputs`` (see :func:`.surface.write_surfaces`).
 
         One field: ``values`` (n,), one document and one ``(field name, paths)`` output. Several fields
@@ -154,7 +155,9 @@ class SurfaceAlgorithm(RasterAlgorithm):
         A ``"distance"`` path of the first output receives the distance to the nearest sample. The
         extrapolation counts (:class:`ExtrapolationCheck`) go to the log. With covariates, ``sample_covariates``
         are their design columns at the samples and ``cell_covariates(row_start, row_stop)`` at the cells of
-        those rows; ``error_variance`` the samples' measurement-error variances (ERROR_VARIANCE_FIELD).
+        those rows; ``error_variance`` the samples' measurement-error variances (ERROR_VARIANCE_FIELD). ``sets``
+        are the completed data sets (m, n) of samples below a limit, whose mean ``values`` is: global point kriging
+        krigs each and combines them (Rubin's rules), the log says when it cannot.
 
         Raises
         ------
@@ -166,6 +169,11 @@ class SurfaceAlgorithm(RasterAlgorithm):
                                             support=scale.support, units=document.units, covariates=sample_covariates,
                                             error_variance=error_variance)
         push_log(feedback, lines)
+        if sets is not None:
+            combined = scale.support == "point" and not isinstance(predictor, LocalKrigingPredictor)
+            log_spread(feedback, combined, "" if combined else "With local kriging or cell support: ")
+            if combined:
+                predictor = ImputedKriging(xy, sets, document.covariance, document.mean, sample_covariates)
         settings = {"fieldcast_support": scale.support}
         if document.transform.kind != "none":  # a back-transform applies to a transformed model only
             settings["fieldcast_backtransform"] = scale.backtransform

@@ -51,6 +51,8 @@ class Samples:
     error_variance : ndarray of shape (m,) or None
         Measurement-error variance of each sample (modelling units squared) when the input had one; a merged
         sample carries the combined variance of its group (see :func:`merge_coincident`).
+    censored : ndarray of bool, shape (m,), optional
+        True where the value is a limit (the true value lies below it); None when no sample was censored.
     """
 
     xy: np.ndarray
@@ -59,6 +61,7 @@ class Samples:
     merged_groups: int
     merged_points: int
     error_variance: np.ndarray | None = None
+    censored: np.ndarray | None = None
 
 
 def check_error_variance(error_variance: np.ndarray, n: int) -> np.ndarray:
@@ -145,6 +148,7 @@ def _sample_arrays(xy: np.ndarray, values: np.ndarray) -> tuple[np.ndarray, np.n
 def merge_coincident(
     xy: np.ndarray, values: np.ndarray, ids: np.ndarray | None = None, tolerance: float = 0.0,
     error_variance: np.ndarray | None = None,
+    censored: np.ndarray | None = None,
 ) -> Samples:
     """Average the values of samples that share a location.
 
@@ -170,6 +174,11 @@ def merge_coincident(
         inverse-variance weighted mean ``sum(y_i / e_i) / sum(1 / e_i)`` with the combined variance
         ``1 / sum(1 / e_i)`` (the best linear unbiased combination of independent measurements of one value);
         members with variance 0 are exact, and a group holding any merges to their plain mean with variance 0.
+    censored : ndarray of bool, shape (n,), optional
+        True where the value is a limit. A group with a censored member is censored at the mean of its values
+        and limits: each true value lies at or below its entry, so their mean lies below the mean of the
+        entries, and so does any weighted mean (the one with error variances too): the only statement the data
+        make; a detected value in the group is not kept apart.
 
     Returns
     -------
@@ -190,9 +199,13 @@ def merge_coincident(
         raise FieldcastError(
             "Some samples have missing or infinite coordinates; drop those features or repair their geometry."
         )
+    flags = None if censored is None else np.asarray(censored, dtype=bool)
+    if flags is not None and flags.shape != (n,):
+        raise FieldcastError(f"Expected one censored flag per sample ({n}), got an array of shape {flags.shape}.")
     if n == 0:
         return Samples(xy.copy(), values.copy(), ids.copy(), 0, 0,
-                       None if error_variance is None else error_variance.copy())
+                       None if error_variance is None else error_variance.copy(),
+                       None if flags is None else flags.copy())
 
     label = _group_labels(xy, float(tolerance))
     # Renumber groups in the order of their first sample.
@@ -217,6 +230,7 @@ def merge_coincident(
         merged_groups=int(np.count_nonzero(merged)),
         merged_points=int(size[merged].sum()),
         error_variance=combined,
+        censored=None if flags is None else np.bincount(group, weights=flags) > 0,
     )
 
 

@@ -129,6 +129,7 @@ def simulate_conditional(xy: np.ndarray, values: np.ndarray, covariance: Covaria
                          grid_covariates: np.ndarray | None = None, neighbours: int = 0,
                          search_radius: float | None = None, chunk_size: int = 4096,
                          max_bytes: float = MAX_REALISATION_BYTES, error_variance: np.ndarray | None = None,
+                         value_sets: np.ndarray | None = None,
                          progress: Callable[[float], None] | None = None,
                          should_stop: Callable[[], bool] | None = None) -> SimulationResult:
     """Conditional realisations of the latent field on ``grid``.
@@ -164,6 +165,9 @@ def simulate_conditional(xy: np.ndarray, values: np.ndarray, covariance: Covaria
     error_variance : ndarray of shape (n,), optional
         Per-sample measurement-error variances (modelling units squared): added to the diagonal of the kriging
         system, and drawn at the samples beside the nugget, so each realisation honours a datum within its error.
+    value_sets : ndarray of shape (m, n), optional
+        Completed data sets of samples with values below a limit (modelling scale): realisation ``r`` is
+        conditioned on set ``r mod m`` instead of ``values`` (which then only frames the kriging weights).
     progress, should_stop : callable, optional
         Progress fraction, reported per realisation and per block; ``should_stop()``
         is asked between realisations and blocks and raises :class:`Cancelled`.
@@ -204,7 +208,8 @@ def simulate_conditional(xy: np.ndarray, values: np.ndarray, covariance: Covaria
         steps.advance(1)
 
     known = mean.known_mean(1)[0]
-    residuals = (np.asarray(values, dtype=float) - known)[None, :] - at_samples  # (R, n)
+    data = np.asarray(values, dtype=float)[None, :] if value_sets is None else np.asarray(value_sets, dtype=float)
+    residuals = (data[np.arange(count) % len(data)] - known) - at_samples  # (R, n)
     flat = realisations.reshape(count, -1)
     cells = grid.cell_centres()
     unresolved = 0

@@ -13,7 +13,7 @@ from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
-from ...algorithms import write_text_atomically
+from ...algorithms import censoring_words, write_text_atomically
 from .fit_figures import (
     declustered_histogram_plot,
     directional_plot,
@@ -139,6 +139,7 @@ def data_section(samples: Samples, model: ModelDocument, skipped: Mapping[str, i
         "statistics": modelled,
         "statistic_rows": rows,
         "histogram": histogram(values),
+        "censoring": censoring_words(model.fit["censored"]) if "censored" in model.fit else "",
     }
 
 

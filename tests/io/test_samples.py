@@ -153,3 +153,13 @@ def test_check_samples_refuses_values_whose_squares_overflow():
         assert fragment in str(error.value)
     values[[4, 9]] = [1e50, -1e50]
     check_samples(xy, values)
+
+
+def test_a_group_with_a_limit_is_a_limit_at_the_mean_of_its_entries():
+    # Each true value lies at or below its entry, so their mean lies below the mean of the entries.
+    xy = np.array([[0.0, 0.0], [0.0, 0.0], [1.0, 0.0], [2.0, 0.0], [2.0, 0.0]])
+    merged = merge_coincident(xy, np.array([1.0, 3.0, 5.0, 2.0, 4.0]),
+                              censored=np.array([True, False, False, False, False]))
+    assert np.allclose(merged.values, [2.0, 5.0, 3.0])
+    assert merged.censored.tolist() == [True, False, False]
+    assert merge_coincident(xy, np.ones(5) + np.arange(5)).censored is None
