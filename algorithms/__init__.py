@@ -95,6 +95,9 @@ _PUBLIC = {
     "grid_targets": "predict.neighbourhood_check",
     "TargetDraw": "predict.neighbourhood_check",
     "neighbourhood_gap": "predict.neighbourhood_check",
+    "DESIGN_CRITERIA": "predict.design",
+    "Proposal": "predict.design",
+    "propose_samples": "predict.design",
     # linalg
     "CONDITION_ADVICE": "linalg.condition_policy",
     # simulate
@@ -106,6 +109,7 @@ _PUBLIC = {
     "summarise_realisations": "simulate.simulation",
     # io
     "area_words": "io.area_words",
+    "Region": "io.region",
     "Samples": "io.samples",
     "check_samples": "io.samples",
     "merge_coincident": "io.samples",

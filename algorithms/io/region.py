@@ -63,7 +63,8 @@ class Region:
         """About ``count`` points of a square lattice inside the region, and its spacing.
 
         The spacing is ``sqrt(area / count)``, lowered step by step (by 20 %) while fewer than ``count / 2``
-        points fall inside (thin or ragged regions), and points sit at the centres of the lattice's cells.
+        points fall inside (thin or ragged regions), and points sit at the centres of the cells of a lattice
+        centred on the region's bounds.
 
         Returns
         -------
@@ -77,13 +78,15 @@ class Region:
         while True:
             n_cols = max(1, math.ceil((x_max - x_min) / spacing))
             n_rows = max(1, math.ceil((y_max - y_min) / spacing))
-            grid = GridSpec(x_min, y_max, spacing, n_cols, n_rows)
+            left = x_min - (n_cols * spacing - (x_max - x_min)) / 2  # the lattice centred on the bounds
+            top = y_max + (n_rows * spacing - (y_max - y_min)) / 2
+            grid = GridSpec(left, top, spacing, n_cols, n_rows)
             inside = cell_mask(grid, self.shapes)
             if np.count_nonzero(inside) >= count / 2 or n_cols * n_rows > 16 * count:
                 break
             spacing *= 0.8
         rows, cols = np.nonzero(inside)
-        xy = np.column_stack([x_min + (cols + 0.5) * spacing, y_max - (rows + 0.5) * spacing])
+        xy = np.column_stack([left + (cols + 0.5) * spacing, top - (rows + 0.5) * spacing])
         return xy, spacing
 
     def contains(self, xy: np.ndarray) -> np.ndarray:

@@ -51,7 +51,7 @@ from scipy.spatial import cKDTree
 from ..errors import Cancelled, FieldcastError
 from .kriging import KrigingPredictor, as_points, column_squared_norms
 
-CRITERIA = ("variance", "classification")
+DESIGN_CRITERIA = ("variance", "classification")
 """What a design lowers: the mean kriging variance, or the expected misclassification against a threshold."""
 
 QUADRATURE_NODES = 10
@@ -76,7 +76,7 @@ class Proposal:
     xy : ndarray of shape (k, 2)
         Their coordinates (CRS units).
     criterion : str
-        One of :data:`CRITERIA`.
+        One of :data:`DESIGN_CRITERIA`.
     before : float
         The criterion with the samples only (u2 for variance; a probability for classification).
     after : ndarray of shape (k,)
@@ -180,8 +180,8 @@ def propose_samples(predictor: KrigingPredictor, evaluation_xy: np.ndarray, cand
 
 def _checked_settings(criterion: str, level: float | None, count: int, n_e: int, n_c: int) -> str:
     """``criterion`` when the settings are usable; FieldcastError saying what to change otherwise."""
-    if criterion not in CRITERIA:
-        raise FieldcastError(f"Unknown criterion {criterion!r}; choose one of {', '.join(CRITERIA)}.")
+    if criterion not in DESIGN_CRITERIA:
+        raise FieldcastError(f"Unknown criterion {criterion!r}; choose one of {', '.join(DESIGN_CRITERIA)}.")
     if criterion == "classification" and (level is None or not np.isfinite(level)):
         raise FieldcastError("The classification criterion needs a THRESHOLD (attribute units); give one, or "
                              "choose the variance criterion.")
