@@ -98,6 +98,7 @@ _PUBLIC = {
     "DESIGN_CRITERIA": "predict.design",
     "Proposal": "predict.design",
     "propose_samples": "predict.design",
+    "PAIR_BUDGET": "predict.design",
     # linalg
     "CONDITION_ADVICE": "linalg.condition_policy",
     # simulate
