@@ -46,6 +46,7 @@ from dataclasses import dataclass
 
 import numpy as np
 from scipy import stats
+from scipy.linalg import blas
 from scipy.spatial import cKDTree
 
 from ..errors import Cancelled, FieldcastError
@@ -224,13 +225,14 @@ class _DesignState:
         prior = covariance.field_variance
         self.variance_e = prior - column_squared_norms(w_e) + column_squared_norms(h_e)
         self.variance_c = prior - column_squared_norms(self.w_c) + column_squared_norms(self.h_c)
-        self.cross = np.empty((len(evaluation), len(candidates)))
+        self.cross = np.empty((len(evaluation), len(candidates)), order="F")
         for start in range(0, len(candidates), _CHUNK):
             if should_stop is not None and should_stop():
                 raise Cancelled("Proposing samples was cancelled.")
             stop = start + _CHUNK
             self.cross[:, start:stop] = (covariance.cross_covariance(evaluation, candidates[start:stop])
                                          - w_e.T @ self.w_c[:, start:stop] + h_e.T @ self.h_c[:, start:stop])
+        self.norms = column_squared_norms(self.cross)
         self.variance_e0 = self.variance_e.copy()
         self.terms: list[np.ndarray] = []
         self.h: np.ndarray | None = None
@@ -240,14 +242,19 @@ class _DesignState:
         return np.clip(self.variance_c, 0.0, None) + self.nugget
 
     def scores(self, score, free: np.ndarray) -> np.ndarray:
-        """The criterion after adding each candidate (inf for those not free)."""
-        values = np.full(len(self.candidates), np.inf)
+        """The criterion after adding each candidate (inf for those not free or adding nothing)."""
         measurement = self.measurement_variance()
+        usable = free & (measurement > 0)
+        divisor = np.where(usable, measurement, 1.0)
+        if self.h is None:  # mean variance: the mean of S(e, e) less the column's sum of squares over S(c, c) + nugget
+            values = np.mean(np.clip(self.variance_e, 0.0, None)) - self.norms / (divisor * len(self.variance_e))
+            return np.where(usable, values, np.inf)
+        values = np.full(len(self.candidates), np.inf)
         for start in range(0, len(self.candidates), _CHUNK):
-            columns = np.flatnonzero(free[start:start + _CHUNK] & (measurement[start:start + _CHUNK] > 0)) + start
-            if len(columns):
-                shrink = np.square(self.cross[:, columns]) / measurement[columns]
-                values[columns] = score(self.variance_e[:, None] - shrink)
+            stop = start + _CHUNK
+            if usable[start:stop].any():
+                shrink = np.square(self.cross[:, start:stop]) / divisor[start:stop]
+                values[start:stop] = np.where(usable[start:stop], score(self.variance_e[:, None] - shrink), np.inf)
         return values
 
     def mean_variance(self, variance: np.ndarray) -> np.ndarray:
@@ -271,7 +278,9 @@ class _DesignState:
             row -= term[pick] * term
         term_c = row / scale
         term_e = self.cross[:, pick] / scale
-        self.cross -= np.outer(term_e, term_c)
+        # Column sums of squares of S(E, C) after the update, from those before: (s - a b)^2 summed over e.
+        self.norms += np.square(term_c) * float(term_e @ term_e) - 2.0 * term_c * (term_e @ self.cross)
+        self.cross = blas.dger(-1.0, term_e, term_c, a=self.cross, overwrite_a=True)  # in place (Fortran order)
         self.variance_e = self.variance_e - np.square(term_e)
         self.variance_c = self.variance_c - np.square(term_c)
         self.terms.append(term_c)
