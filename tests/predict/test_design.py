@@ -12,6 +12,7 @@ from osgeo import ogr
 from scipy import stats
 
 from fieldcast.algorithms import FieldcastError, KrigingPredictor, MeanModel, Region, propose_samples
+from fieldcast.algorithms.predict import design
 from fieldcast.algorithms.predict.design import expected_misclassification
 from reference import MEUSE_LOG_ZINC
 
@@ -133,3 +134,14 @@ def test_classification_without_threshold_is_refused_with_advice(case):
     predictor, evaluation, candidates, _, _ = case
     with pytest.raises(FieldcastError, match="needs a THRESHOLD"):
         propose_samples(predictor, evaluation, candidates, 2, criterion="classification")
+
+
+def test_screened_classification_steps_match_exact_greedy_steps(case, meuse_grid, monkeypatch):
+    # 1,000 candidates: each step scores the best SCREENED by the first-order gain exactly; against every
+    # candidate scored exactly (SCREENED above the candidate count), two steps.
+    predictor, evaluation, _, _, _ = case
+    candidates = meuse_grid.xy[np.random.default_rng(8).permutation(len(meuse_grid.xy))[:1000]]
+    screened = propose_samples(predictor, evaluation, candidates, 2, criterion="classification", level=THRESHOLD)
+    monkeypatch.setattr(design, "SCREENED", 10_000)
+    exact = propose_samples(predictor, evaluation, candidates, 2, criterion="classification", level=THRESHOLD)
+    np.testing.assert_allclose(screened.after, exact.after, rtol=1e-3)
