@@ -7,31 +7,15 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
-from qgis.core import QgsFeature, QgsGeometry, QgsProcessingException, QgsProcessingFeedback, QgsVectorLayer
+from qgis.core import QgsFeature, QgsGeometry, QgsProcessingException, QgsVectorLayer
 
 from fieldcast.algorithms.io.model_file import ModelDocument
 from fieldcast.algorithms.predict.kriging import KrigingPredictor
-from qgis_support import CancelAfterFirstProgress, fieldcast_plugin, point_layer, qgis_processing  # noqa: F401
+from qgis_support import CancelAfterFirstProgress, Log, fieldcast_plugin, point_layer, qgis_processing  # noqa: F401
 
 FIT_SETTINGS = {"TRANSFORM": "log", "KERNEL": "spherical", "ANISOTROPY": False, "TREND": "constant",
                 "METHOD": "reml"}
 RECTANGLE = "POLYGON((179000 330500,180600 330500,180600 332500,179000 332500,179000 330500))"
-
-
-class Log(QgsProcessingFeedback):
-    """Feedback that keeps every log line."""
-
-    def __init__(self) -> None:
-        super().__init__()
-        self.lines: list[str] = []
-
-    def pushInfo(self, info: str) -> None:
-        self.lines.append(info)
-        super().pushInfo(info)
-
-    def pushWarning(self, warning: str) -> None:
-        self.lines.append(warning)
-        super().pushWarning(warning)
 
 
 def polygon_layer(wkt: str) -> QgsVectorLayer:
