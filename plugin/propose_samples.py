@@ -20,6 +20,7 @@ from qgis.core import (
 
 from ..algorithms import (
     DESIGN_CRITERIA,
+    GLOBAL_SAMPLE_LIMIT,
     PAIR_BUDGET,
     FieldcastError,
     KrigingPredictor,
@@ -161,6 +162,10 @@ class ProposeSamplesAlgorithm(FieldcastAlgorithm):
         count = self.parameterAsInt(parameters, self.COUNT, context)
         min_spacing = self.parameterAsDouble(parameters, self.MIN_SPACING, context)
         document, samples = self.model_and_samples(parameters, context, feedback, progress_callback(feedback, 0, 20))
+        if len(samples.xy) > GLOBAL_SAMPLE_LIMIT:
+            raise FieldcastError(f"The design kriges with all {len(samples.xy):,} samples, more than "
+                                 f"{GLOBAL_SAMPLE_LIMIT:,}. Choose fewer samples in INPUT (those near the REGION, "
+                                 "e.g. with 'Extract by location').")
         working = QgsCoordinateReferenceSystem.fromWkt(document.crs_wkt)
         source, features = self.layer_points(parameters, self.REGION, context, working)
         region = Region.from_shapes([bytes(feature.geometry().asWkb()) for feature in features],

@@ -123,3 +123,12 @@ def test_cancel_leaves_no_output(qgis_processing, meuse_model, tmp_path):  # noq
     with pytest.raises(QgsProcessingException, match="Cancelled"):
         run(qgis_processing, meuse_model, tmp_path / "cancelled.gpkg", feedback=CancelAfterFirstProgress(21.0))
     assert list(tmp_path.iterdir()) == []
+
+
+def test_more_samples_than_global_kriging_takes_are_refused_with_advice(qgis_processing, meuse_model, tmp_path):  # noqa: F811
+    rng = np.random.default_rng(9)
+    many = point_layer(np.column_stack([rng.uniform(178600, 181400, 5001), rng.uniform(329700, 333600, 5001)]),
+                       {"zinc": rng.uniform(100, 1000, 5001)})
+    with pytest.raises(QgsProcessingException, match=r"all 5,001 samples, more than 5,000.*fewer samples in INPUT"):
+        run(qgis_processing, (many, meuse_model[1]), tmp_path / "many.gpkg")
+    assert list(tmp_path.iterdir()) == []
