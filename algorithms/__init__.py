@@ -114,6 +114,10 @@ _PUBLIC = {
     "prepare_job": "cluster.job",
     "run_in_process": "cluster.runners",
     "run_on_dask": "cluster.dask_runner",
+    "DESIGN_CRITERIA": "predict.design",
+    "Proposal": "predict.design",
+    "propose_samples": "predict.design",
+    "PAIR_BUDGET": "predict.design",
     # linalg
     "CONDITION_ADVICE": "linalg.condition_policy",
     # censored
@@ -140,6 +144,7 @@ _PUBLIC = {
     "summarise_realisations": "simulate.simulation",
     # io
     "area_words": "io.area_words",
+    "Region": "io.region",
     "Samples": "io.samples",
     "FeatureReadings": "io.samples",
     "check_samples": "io.samples",

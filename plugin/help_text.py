@@ -14,6 +14,12 @@ CAUTIONS = (
     "judgement, not this output alone."
 )
 
+DESIGN_CAUTION = (
+    "A design is only as good as the model it rests on: refit the model when the new samples are in. Access, "
+    "safety and regulation come first: check every proposed place on site and follow local rules and licensed "
+    "professional judgement on where and how to sample."
+)
+
 WORKING_CRS_NOTE = (
     "Distances are measured in a projected working CRS: the layer's own CRS when it is projected; for a "
     "longitude/latitude layer the UTM zone of the data centre, unless you set a target CRS (or a template "
@@ -226,6 +232,8 @@ ALGORITHM_WORDS = {
     "predictpoints": ("points", "wells", "receptors", "prediction", "variance", "standard error", "exceedance",
                       "threshold", "point layer"),
     "crossvalidate": ("cross-validation", "leave-one-out", "validation", "residuals", "RMSE", "model check"),
+    "proposesamples": ("sampling design", "where to sample", "new samples", "monitoring network", "kriging variance",
+                       "misclassification", "threshold"),
 }
 """Further search words per algorithm name (the id after ``fieldcast:``)."""
 
@@ -236,6 +244,7 @@ SHORT_DESCRIPTIONS = {
     "simulate": "Draws conditional simulations of the field on a grid, with summaries and areas above a threshold.",
     "crossvalidate": "Checks a kriging model by leave-one-out prediction of the samples.",
     "predictpoints": "Kriges the value, its variance and standard error at the points of a layer, from samples.",
+    "proposesamples": "Proposes where to take new samples so as to lower the kriging variance or misclassification.",
 }
 """One line per algorithm name, shown in the toolbox tooltip."""
 

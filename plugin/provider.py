@@ -10,6 +10,7 @@ from .icons import icon, icon_path
 from .predict_many import PredictManyAlgorithm
 from .predict_points import PredictPointsAlgorithm
 from .predict_surface import PredictSurfaceAlgorithm
+from .propose_samples import ProposeSamplesAlgorithm
 from .simulate import SimulateAlgorithm
 
 PROVIDER_ICON = "fieldcast.svg"
@@ -43,5 +44,6 @@ class FieldcastProvider(QgsProcessingProvider):
 
     def loadAlgorithms(self) -> None:
         for algorithm in (FitModelAlgorithm(), PredictSurfaceAlgorithm(), PredictManyAlgorithm(),
-                          PredictPointsAlgorithm(), SimulateAlgorithm(), CrossValidateAlgorithm()):
+                          PredictPointsAlgorithm(), SimulateAlgorithm(), CrossValidateAlgorithm(),
+                          ProposeSamplesAlgorithm()):
             self.addAlgorithm(algorithm)

@@ -108,3 +108,19 @@ class CancelAfterFirstProgress(QgsProcessingFeedback):
         super().setProgress(progress)
         if progress > self.start_percent:
             self.cancel()
+
+
+class Log(QgsProcessingFeedback):
+    """Feedback that keeps every log line."""
+
+    def __init__(self) -> None:
+        super().__init__()
+        self.lines: list[str] = []
+
+    def pushInfo(self, info: str) -> None:
+        self.lines.append(info)
+        super().pushInfo(info)
+
+    def pushWarning(self, warning: str) -> None:
+        self.lines.append(warning)
+        super().pushWarning(warning)

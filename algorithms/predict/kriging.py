@@ -437,6 +437,29 @@ class KrigingPredictor:
             variance += column_squared_norms(self._trend_whiten(gap))
         return mean, checked_variance(variance, self.covariance.sill)
 
+    def error_factors(self, xy0: np.ndarray, covariates0: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:
+        """Factors of the kriging error covariance between targets: ``W = L^-1 C0`` and ``H = R^-1 D g``.
+
+        The covariance of the (latent) prediction errors at targets ``a`` and ``b`` is::
+
+            C(a, b) - c_a^T K^-1 c_b + g_a^T A^-1 g_b  =  C(a, b) - W_a^T W_b + H_a^T H_b
+
+        (the variance of :meth:`predict` on the diagonal), which is also the covariance of the latent field
+        at ``a`` and ``b`` given the samples when the trend coefficients have a flat prior (Rasmussen &
+        Williams 2006, section 2.7).
+
+        Returns
+        -------
+        W : ndarray of shape (n, m)
+        H : ndarray of shape (p, m); (0, m) for a known mean
+        """
+        targets = as_points(xy0, "Prediction locations")
+        covariates0 = target_covariates(covariates0, len(targets))
+        with ThreadPoolExecutor(max_workers=_WORKERS) as pool:
+            cross = self._cross_covariance(targets, pool)
+        whitened, gap = self._whitened_gap(cross, self.mean.design(targets, covariates0))
+        return whitened, (self._trend_whiten(gap) if len(gap) else gap)
+
     def weights(self, xy0: np.ndarray, covariates0: np.ndarray | None = None) -> np.ndarray:
         """Kriging weights ``lambda`` with ``mean(x0) = lambda^T y`` (plus the known mean term).
 

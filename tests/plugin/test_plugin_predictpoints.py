@@ -25,7 +25,7 @@ from scipy import stats
 from fieldcast.algorithms.io.model_file import ModelDocument
 from fieldcast.algorithms.predict.kriging import KrigingPredictor
 from qgis_process_support import template_centres
-from qgis_support import field_type, fieldcast_plugin, point_layer, qgis_processing  # noqa: F401 - fixtures
+from qgis_support import Log, field_type, fieldcast_plugin, point_layer, qgis_processing  # noqa: F401 - fixtures
 
 FIT_SETTINGS = {"TRANSFORM": "log", "KERNEL": "spherical", "ANISOTROPY": False, "TREND": "constant",
                 "METHOD": "reml"}
@@ -33,22 +33,6 @@ EXTENT = (179000.0, 330000.0, 180600.0, 332400.0)
 CELL = 200.0
 THRESHOLD = 500.0
 RESULTS = ["zinc_est", "zinc_var", "zinc_sd", "zinc_pexc"]
-
-
-class Log(QgsProcessingFeedback):
-    """Feedback that keeps every log line."""
-
-    def __init__(self) -> None:
-        super().__init__()
-        self.lines: list[str] = []
-
-    def pushInfo(self, info: str) -> None:
-        self.lines.append(info)
-        super().pushInfo(info)
-
-    def pushWarning(self, warning: str) -> None:
-        self.lines.append(warning)
-        super().pushWarning(warning)
 
 
 def labelled_layer(xy: np.ndarray, crs: str = "EPSG:28992", extra: dict[str, str] | None = None) -> QgsVectorLayer:

@@ -45,6 +45,10 @@ CONTRACT = {
                   "OUTPUT_EXCEEDANCE", "OUTPUT_P10", "OUTPUT_P90", "OUTPUT_TABLE"},
                  {"OUTPUT", "OUTPUT_MEAN", "OUTPUT_STDDEV", "OUTPUT_EXCEEDANCE", "OUTPUT_P10", "OUTPUT_P90",
                   "OUTPUT_TABLE", "AREA_P10", "AREA_P50", "AREA_P90"}),
+    "proposesamples": ("Propose new samples",
+                       {"INPUT", "FIELD", "MODEL", "COVARIATES", "CLASS_COVARIATES", "REGION", "COUNT", "CANDIDATES",
+                        "MIN_SPACING", "CRITERION", "THRESHOLD", "TARGET_CRS", "OUTPUT"},
+                       {"OUTPUT"}),
     "crossvalidate": ("Cross-validate model",
                       {"INPUT", "FIELD", "MODEL", "COVARIATES", "CLASS_COVARIATES", "NEIGHBOURS", "SEARCH_RADIUS",
                        "TARGET_CRS", "OUTPUT", "OUTPUT_REPORT"},
@@ -66,6 +70,7 @@ CHOICES = {
     ("predictmany", "METHOD"): ["reml", "ml", "wls"],
     ("predictmany", "BACKTRANSFORM"): ["median", "mean"],
     ("predictpoints", "BACKTRANSFORM"): ["median", "mean"],
+    ("proposesamples", "CRITERION"): ["variance", "classification"],
 }
 
 
