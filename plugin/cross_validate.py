@@ -27,7 +27,7 @@ from ..algorithms import (
 from .algorithm_base import FieldcastAlgorithm, progress_callback, push_log
 from .field_names import free_names
 from .field_types import field_type
-from .help_text import COVARIATE_HELP, MODEL_FILE_HELP, TARGET_CRS_HELP, compose_help
+from .help_text import COVARIATE_HELP, LOCAL_MEAN_HELP, MODEL_FILE_HELP, TARGET_CRS_HELP, compose_help
 from .report.crossvalidation_report import write_crossvalidation_report
 from .sample_reader import ModelSamples
 from .sinks import checked_sink
@@ -71,6 +71,7 @@ class CrossValidateAlgorithm(FieldcastAlgorithm):
           "the major axis; the search ellipse follows the model's anisotropy) are left out. Samples with too few "
           "others in range get no prediction (empty fields), are left out of the summary and the report, and the "
           "log says how many. Empty: no limit."),
+         LOCAL_MEAN_HELP,
          TARGET_CRS_HELP],
         [("Cross-validation points", "One point per sample (per location, where samples at one location were "
           "averaged) with the input layer's own fields (those of the first sample at the location), then "

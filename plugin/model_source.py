@@ -12,7 +12,6 @@ from ..algorithms import (
     FieldcastError,
     FitOptions,
     FitResult,
-    KrigingPredictor,
     MeanModel,
     ModelDocument,
     Transform,
@@ -25,6 +24,7 @@ from ..algorithms import (
     parse_crs,
     range_warning,
     same_crs,
+    trend_standard_errors,
 )
 
 
@@ -42,7 +42,7 @@ def fit_document(xy: np.ndarray, values: np.ndarray, transform: Transform, worki
     settings = replace(with_covariate_mean(settings, xy, covariates, columns), units=working.units)
     result = fit_with(xy, values, settings, covariates=columns, progress=progress, should_stop=should_stop)
     return result_document(result, transform, working, field, covariates,
-                           coefficient_errors(result, xy, values, columns)), result
+                           trend_standard_errors(xy, result.covariance, result.mean, columns)), result
 
 
 def with_covariate_mean(settings: FitOptions, xy: np.ndarray, covariates: CovariateSet | None,
@@ -54,15 +54,6 @@ def with_covariate_mean(settings: FitOptions, xy: np.ndarray, covariates: Covari
     mean = MeanModel.for_data(settings.mean, xy, covariates.column_names)
     check_design(mean.design(xy, columns), mean.term_names)
     return replace(settings, mean=mean)
-
-
-def coefficient_errors(result: FitResult, xy: np.ndarray, values: np.ndarray,
-                       columns: np.ndarray | None) -> np.ndarray:
-    """Standard errors of the fit's GLS coefficients given its covariance; empty for a Vecchia fit (the exact
-    system of a large data set is not formed)."""
-    if not result.likelihood.startswith("exact"):
-        return np.zeros(0)
-    return KrigingPredictor(xy, values, result.covariance, result.mean, columns).coefficient_errors()
 
 
 def result_document(result: FitResult, transform: Transform, working: WorkingCrs, field: str,
@@ -87,8 +78,8 @@ def fit_shared_documents(xy: np.ndarray, values: np.ndarray, transform: Transfor
     settings = replace(with_covariate_mean(settings, xy, covariates, columns), units=working.units)
     results = fit_shared(xy, values, settings, fields, covariates=columns, progress=progress, should_stop=should_stop)
     return [(result_document(result, transform, working, field, covariates,
-                             coefficient_errors(result, xy, values[:, k], columns)), result)
-            for k, (result, field) in enumerate(zip(results, fields))]
+                             trend_standard_errors(xy, result.covariance, result.mean, columns)), result)
+            for result, field in zip(results, fields)]
 
 
 def log_fit(feedback: QgsProcessingFeedback, xy: np.ndarray, values: np.ndarray, result: FitResult,

@@ -122,7 +122,7 @@ class SimulateAlgorithm(RasterAlgorithm):
         self.addParameter(advanced(QgsProcessingParameterNumber(
             self.SEED, self.tr("Random seed"), type=QgsProcessingParameterNumber.Integer, defaultValue=1,
             minValue=0)))
-        self.add_neighbourhood_parameters(per="cell")
+        self.add_neighbourhood_parameters(per="cell", local_mean=False)
         self.add_threshold_parameter()
         self.add_target_crs_parameter()
         self.addParameter(QgsProcessingParameterRasterDestination(self.OUTPUT, self.tr("Realisations")))

@@ -56,10 +56,15 @@ class Neighbourhood:
     search_radius : float or None
         Largest distance of a neighbour along the model's major axis (working CRS units; the search
         ellipse follows the anisotropy), None = no limit. Used with local kriging only.
+    local_mean : bool
+        LOCAL_MEAN: local kriging re-estimates the mean in each neighbourhood. False (the default) krigs the
+        residuals of the trend estimated once from all samples (:mod:`.global_trend`), the neighbours spread
+        over sectors; a constant or known mean is kriged in each neighbourhood either way.
     """
 
     neighbours: int = 0
     search_radius: float | None = None
+    local_mean: bool = False
 
     def resolved(self, mean: MeanModel, per: str, pool: str = "every sample") -> tuple[int, list[LogLine]]:
         """Check NEIGHBOURS against the mean model; return it with the log line for an ignored SEARCH_RADIUS.
@@ -126,7 +131,7 @@ def refuse_local_covariates(mean: MeanModel, neighbours: int, count: int, *, loc
 
 def choose_predictor(xy: np.ndarray, values: np.ndarray, covariance: CovarianceModel, mean: MeanModel,
                      neighbourhood: Neighbourhood, *, support: str = "point", units: str = "metre",
-                     per: str = "cell", covariates: np.ndarray | None = None, local_mean: bool = False,
+                     per: str = "cell", covariates: np.ndarray | None = None,
                      ) -> tuple[KrigingPredictor | LocalKrigingPredictor, list[LogLine]]:
     """The kriging predictor of a run, global or local, and the log lines that say which and why.
 
@@ -142,7 +147,7 @@ def choose_predictor(xy: np.ndarray, values: np.ndarray, covariance: CovarianceM
     covariance, mean : CovarianceModel, MeanModel
         The model.
     neighbourhood : Neighbourhood
-        NEIGHBOURS and SEARCH_RADIUS as chosen.
+        NEIGHBOURS, SEARCH_RADIUS and LOCAL_MEAN as chosen.
     support : str
         ``"point"`` or ``"cell"`` (block kriging, global only).
     units : str
@@ -151,10 +156,6 @@ def choose_predictor(xy: np.ndarray, values: np.ndarray, covariance: CovarianceM
         What each target is called in the log and the refusals ("cell", "target point").
     covariates : ndarray, shape (n, c), optional
         The mean's covariate columns at the samples, when it names covariates.
-    local_mean : bool
-        LOCAL_MEAN: local kriging re-estimates the mean in each neighbourhood. False (the default) krigs the
-        residuals of the trend estimated once from all samples (:mod:`.global_trend`), its neighbours spread
-        over sectors; a constant or known mean is kriged in each neighbourhood either way.
 
     Raises
     ------
@@ -164,6 +165,7 @@ def choose_predictor(xy: np.ndarray, values: np.ndarray, covariance: CovarianceM
     """
     count = len(values)
     neighbours, lines = _run_neighbours(neighbourhood, mean, count, per, support=support)
+    local_mean = neighbourhood.local_mean
     refuse_local_covariates(mean, neighbours, count, local_mean=local_mean, option=True)
     if neighbours == 0:
         lines.append(LogLine("info", f"Kriging from all {count} samples."))
@@ -181,7 +183,7 @@ def choose_predictor(xy: np.ndarray, values: np.ndarray, covariance: CovarianceM
 
 def cross_validate_with(xy: np.ndarray, values: np.ndarray, covariance: CovarianceModel, mean: MeanModel,
                         neighbourhood: Neighbourhood, *, covariates: np.ndarray | None = None, units: str = "metre",
-                        local_mean: bool = False, progress: Callable[[float], None] | None = None,
+                        progress: Callable[[float], None] | None = None,
                         should_stop: Callable[[], bool] | None = None) -> tuple[CrossValidation, list[LogLine]]:
     """Leave-one-out of a run, global (closed form) or local by the same rules as :func:`choose_predictor`,
     and the log lines that say which and how many samples got no prediction.
@@ -198,9 +200,7 @@ def cross_validate_with(xy: np.ndarray, values: np.ndarray, covariance: Covarian
         The mean's covariate columns at the samples.
     units : str
         Working CRS unit, for the log.
-    local_mean : bool
-        As for :func:`choose_predictor` (with the global trend its coefficients rest on every sample, the
-        left-out one included).
+        With the global trend (LOCAL_MEAN off) its coefficients rest on every sample, the left-out one included.
     progress, should_stop : callable, optional
         Progress (fraction) and cancel of the local leave-one-out.
 
@@ -212,6 +212,7 @@ def cross_validate_with(xy: np.ndarray, values: np.ndarray, covariance: Covarian
     """
     count = len(values)
     neighbours, lines = _run_neighbours(neighbourhood, mean, count, "sample", pool="every other sample")
+    local_mean = neighbourhood.local_mean
     refuse_local_covariates(mean, neighbours, count, local_mean=local_mean, option=True)
     if neighbours == 0:
         return leave_one_out(xy, values, covariance, mean, covariates), lines

@@ -188,4 +188,14 @@ def local_trend_options(xy: np.ndarray, values: np.ndarray, covariance: Covarian
     return ({"trend": trend, "sectors": SECTORS},
             f", spread over {SECTORS} sectors around the {mean.kind} trend"
             + (" and covariates" if mean.covariate_names else "")
-            + f" estimated once from all {len(xy):,} samples (GLS, {how})")
+            + f" estimated once from all {len(xy):,} samples (generalised least squares, {how})")
+
+
+def trend_standard_errors(xy: np.ndarray, covariance: CovarianceModel, mean: MeanModel,
+                          covariates: np.ndarray | None = None) -> np.ndarray:
+    """Standard errors ``sqrt(diag(V_beta))`` of the GLS trend coefficients given the covariance, one per term of
+    ``mean.term_names`` (empty for a known mean): exact up to :data:`EXACT_TREND_LIMIT` samples, from the Vecchia
+    approximation above (:func:`estimate_trend`; ``V_beta`` does not depend on the values)."""
+    if not mean.n_terms:
+        return np.zeros(0)
+    return estimate_trend(xy, np.zeros(len(xy)), covariance, mean, covariates).standard_errors

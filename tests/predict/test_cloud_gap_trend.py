@@ -50,7 +50,7 @@ def global_kriging(case):
 def local_kriging(case, local_mean):
     xy, values = case.xy[case.observed], case.values[case.observed]
     predictor, lines = choose_predictor(xy, values, case.covariance, MeanModel.for_data("linear", xy),
-                                        Neighbourhood(32), local_mean=local_mean)
+                                        Neighbourhood(32, local_mean=local_mean))
     cells = np.flatnonzero(case.gaps)
     predicted, variance = predictor.predict(case.xy[cells])
     assert predictor.last_unresolved == 0
@@ -65,7 +65,8 @@ def test_default_local_path_matches_global_kriging_in_the_gaps(case, global_krig
     # The check: RMSE at the gap cells within 3 % of exact global kriging's, and the 95 % intervals cover
     # the true signal at 93-97 % of the gap cells.
     cells, predicted, variance, lines = local_kriging(case, local_mean=False)
-    assert "estimated once from all 10,500 samples (GLS, with the Vecchia approximation)" in lines[-1].text
+    assert lines[-1].text.endswith("estimated once from all 10,500 samples (generalised least squares, with the "
+                                   "Vecchia approximation).")
     checked, global_predicted, _ = global_kriging
     at_checked = np.searchsorted(cells, checked)
     truth = case.signal[checked]
