@@ -121,6 +121,8 @@ _PUBLIC = {
     "CovariateSet": "io.covariates",
     "SampleCovariates": "io.covariates",
     "check_design": "io.covariates",
+    "covariate_mean": "io.covariates",
+    "CellCovariates": "io.covariates",
     "output_grid": "io.grid",
     "cell_mask": "io.mask",
     "hull_mask": "io.mask",

@@ -12,12 +12,11 @@ from ..algorithms import (
     FieldcastError,
     FitOptions,
     FitResult,
-    MeanModel,
     ModelDocument,
     Transform,
     WorkingCrs,
-    check_design,
     coefficient_line,
+    covariate_mean,
     fit_log_lines,
     fit_shared,
     fit_with,
@@ -51,9 +50,7 @@ def with_covariate_mean(settings: FitOptions, xy: np.ndarray, covariates: Covari
     trend at the samples; the settings unchanged without covariates."""
     if covariates is None or not covariates.covariates:
         return settings
-    mean = MeanModel.for_data(settings.mean, xy, covariates.column_names)
-    check_design(mean.design(xy, columns), mean.term_names)
-    return replace(settings, mean=mean)
+    return replace(settings, mean=covariate_mean(settings.mean, xy, covariates.column_names, columns))
 
 
 def result_document(result: FitResult, transform: Transform, working: WorkingCrs, field: str,
