@@ -120,3 +120,22 @@ def test_global_trend_variance_exceeds_simple_kriging_of_the_residuals(meuse, me
                                rtol=0, atol=1e-10)
     assert np.all(variance >= residual_variance - 1e-12)
     assert np.any(variance > residual_variance + 1e-4)
+
+
+def test_sector_search_takes_the_nearest_samples_of_each_sector(meuse, meuse_grid, log_zinc):
+    # Sector search (common practice): of the 8 * 16 nearest candidates, the 2 nearest in each of 8 equal angular
+    # sectors come first. Checked by brute force with numpy's sort on the isotropic Meuse model, whose search frame
+    # is (northing, easting): the major axis of azimuth 0 points north.
+    mean = MeanModel.for_data("linear", meuse.xy)
+    trend = estimate_trend(meuse.xy, log_zinc, MEUSE_LOG_ZINC, mean)
+    local = LocalKrigingPredictor(meuse.xy, log_zinc, MEUSE_LOG_ZINC, mean, neighbours=16, trend=trend, sectors=8)
+    targets = meuse_grid.xy[::50]
+    indices, weights = local.weights(targets)
+    assert np.all(np.isfinite(weights))
+    for target, chosen in zip(targets, indices):
+        offsets = meuse.xy - target
+        distance = np.hypot(*offsets.T)
+        pool = np.argsort(distance, kind="stable")[:128]
+        sector = np.minimum(((np.arctan2(offsets[pool, 0], offsets[pool, 1]) + np.pi) / (np.pi / 4)).astype(int), 7)
+        expected = {int(j) for s in range(8) for j in pool[sector == s][:2]}
+        assert expected <= set(chosen.tolist())
