@@ -165,6 +165,7 @@ class FieldcastAlgorithm(QgsProcessingAlgorithm):
     METHOD = "METHOD"
     NEIGHBOURS = "NEIGHBOURS"
     SEARCH_RADIUS = "SEARCH_RADIUS"
+    LOCAL_MEAN = "LOCAL_MEAN"
     THRESHOLD = "THRESHOLD"
     BACKTRANSFORM = "BACKTRANSFORM"
     COVARIATES = "COVARIATES"
@@ -437,15 +438,18 @@ class FieldcastAlgorithm(QgsProcessingAlgorithm):
             feedback.pushInfo(line)
         return fitted.transform, declustering
 
-    def add_neighbourhood_parameters(self, per: str = "cell") -> None:
-        """NEIGHBOURS (0 = all samples) and SEARCH_RADIUS (optional), both advanced; ``per`` is what each
-        neighbourhood serves."""
+    def add_neighbourhood_parameters(self, per: str = "cell", local_mean: bool = True) -> None:
+        """NEIGHBOURS (0 = all samples), SEARCH_RADIUS (optional) and, with ``local_mean``, LOCAL_MEAN, all
+        advanced; ``per`` is what each neighbourhood serves."""
         self.addParameter(advanced(QgsProcessingParameterNumber(
             self.NEIGHBOURS, self.tr(f"Neighbours per {per} (0 = all samples)"),
             type=QgsProcessingParameterNumber.Integer, defaultValue=0, minValue=0)))
         self.addParameter(advanced(QgsProcessingParameterNumber(
             self.SEARCH_RADIUS, self.tr("Search radius (working CRS units; empty = no limit)"),
             type=QgsProcessingParameterNumber.Double, optional=True, minValue=0.0)))
+        if local_mean:
+            self.addParameter(advanced(QgsProcessingParameterBoolean(
+                self.LOCAL_MEAN, self.tr("Re-estimate the mean in each neighbourhood"), defaultValue=False)))
 
     def add_threshold_parameter(self) -> None:
         """THRESHOLD: optional value in the attribute's original units."""
@@ -459,9 +463,11 @@ class FieldcastAlgorithm(QgsProcessingAlgorithm):
                         expert=True)
 
     def neighbourhood(self, parameters, context) -> Neighbourhood:
-        """The NEIGHBOURS and SEARCH_RADIUS chosen (SEARCH_RADIUS None when empty)."""
+        """The NEIGHBOURS, SEARCH_RADIUS and LOCAL_MEAN chosen (SEARCH_RADIUS None when empty)."""
+        local_mean = (self.parameterDefinition(self.LOCAL_MEAN) is not None
+                      and self.parameterAsBoolean(parameters, self.LOCAL_MEAN, context))
         return Neighbourhood(whole_number(self.given_value(parameters, self.NEIGHBOURS), "NEIGHBOURS", 0),
-                             self.optional_number(parameters, self.SEARCH_RADIUS, context))
+                             self.optional_number(parameters, self.SEARCH_RADIUS, context), local_mean)
 
     def given_value(self, parameters, name: str):
         """The value of parameter ``name`` as given, its default when left out or empty (for :func:`whole_number`)."""

@@ -30,6 +30,7 @@ from .field_types import field_type
 from .help_text import (
     COVARIATE_HELP,
     ERROR_VARIANCE_HELP,
+    LOCAL_MEAN_HELP,
     MODEL_FILE_HELP,
     NONDETECT_HELP,
     NUGGET_HELP,
@@ -82,6 +83,7 @@ class CrossValidateAlgorithm(FieldcastAlgorithm):
           "log says how many. Empty: no limit."),
          NUGGET_HELP,
          ERROR_VARIANCE_HELP,
+         LOCAL_MEAN_HELP,
          TARGET_CRS_HELP],
         [("Cross-validation points", "One point per sample (per location, where samples at one location were "
           "averaged) with the input layer's own fields (those of the first sample at the location), then "

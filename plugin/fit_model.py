@@ -64,7 +64,7 @@ def fit_report_arguments(samples: ModelSamples, skipped: Mapping[str, int], resu
     Cancelled
         When the user cancels.
     """
-    residuals = samples.values - result.mean.design(samples.xy, samples.covariates) @ result.coefficients
+    residuals = result.mean.residuals(samples.xy, samples.values, result.coefficients, samples.covariates)
     variograms = residual_semivariograms(samples.xy, residuals)
     try:
         loo_rmse = candidate_rmse(samples.xy, samples.values, [c.covariance for c in result.candidates],

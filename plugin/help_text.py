@@ -126,6 +126,17 @@ BACKTRANSFORM_HELP = ("Back-transform", "For a transformed model only: median (e
                       "inverse transform of mu in general; the default, robust) or mean (exp(mu + s2/2) - offset for "
                       "log; Gauss-Hermite quadrature for boxcox and normalscore).")
 
+LOCAL_MEAN_HELP = (
+    "Re-estimate the mean in each neighbourhood",
+    "With local kriging and a linear, quadratic or covariate trend only. Off (the default): the trend is "
+    "estimated once from all samples and each place krigs the residuals from its neighbours, spread around it "
+    "over 8 sectors; the variance includes the trend's estimation error. On: each neighbourhood fits its own "
+    "trend to its few samples, a locally varying mean. Where the neighbours sit on one side of the place (in "
+    "gaps, at the edges of the samples, beyond a cloud of points) that local trend is extrapolated, the "
+    "prediction can run away and the variance is too small there. A constant mean is estimated in each "
+    "neighbourhood either way; covariates need it off.",
+)
+
 NEIGHBOURHOOD_HELP = [
     ("Neighbours per cell", "0 (the default): every sample takes part in every cell (global kriging), up to "
      "5,000 samples; with more, each cell uses its 64 nearest samples and the log says so. A number k: each "
@@ -138,6 +149,7 @@ NEIGHBOURHOOD_HELP = [
     ("Search radius", "With local kriging only: neighbours farther than this (working CRS units, along the "
      "major axis; the search ellipse follows the model's anisotropy) are left out. Cells with too few samples "
      "in range are nodata, and the log says how many. Empty: no limit."),
+    LOCAL_MEAN_HELP,
 ]
 
 POINT_NEIGHBOURHOOD_HELP = [
@@ -150,6 +162,7 @@ POINT_NEIGHBOURHOOD_HELP = [
     ("Search radius", "With local kriging only: neighbours farther than this (working CRS units, along the "
      "major axis; the search ellipse follows the model's anisotropy) are left out. Points with too few samples "
      "in range get empty (NULL) results, and the log says how many. Empty: no limit."),
+    LOCAL_MEAN_HELP,
 ]
 
 THRESHOLD_HELP = (

@@ -12,14 +12,12 @@ from ..algorithms import (
     FieldcastError,
     FitOptions,
     FitResult,
-    KrigingPredictor,
-    MeanModel,
     ModelDocument,
     Transform,
     WorkingCrs,
     censoring_words,
-    check_design,
     coefficient_line,
+    covariate_mean,
     fit_censored,
     fit_log_lines,
     fit_shared,
@@ -27,6 +25,7 @@ from ..algorithms import (
     parse_crs,
     range_warning,
     same_crs,
+    trend_standard_errors,
 )
 
 
@@ -58,7 +57,7 @@ def fit_document(xy: np.ndarray, values: np.ndarray, transform: Transform, worki
         result = fit_with(xy, values, settings, covariates=columns, progress=progress, should_stop=should_stop,
                           error_variance=error_variance)
     document = result_document(result, transform, working, field, covariates,
-                               coefficient_errors(result, xy, values, columns, error_variance))
+                               trend_standard_errors(xy, result.covariance, result.mean, columns, error_variance))
     if censoring:
         document.fit["censored"] = censoring
     return document, result
@@ -70,19 +69,7 @@ def with_covariate_mean(settings: FitOptions, xy: np.ndarray, covariates: Covari
     trend at the samples; the settings unchanged without covariates."""
     if covariates is None or not covariates.covariates:
         return settings
-    mean = MeanModel.for_data(settings.mean, xy, covariates.column_names)
-    check_design(mean.design(xy, columns), mean.term_names)
-    return replace(settings, mean=mean)
-
-
-def coefficient_errors(result: FitResult, xy: np.ndarray, values: np.ndarray, columns: np.ndarray | None,
-                       error_variance: np.ndarray | None = None) -> np.ndarray:
-    """Standard errors of the fit's GLS coefficients given its covariance (and the samples' error variances);
-    empty for a Vecchia fit (the exact system of a large data set is not formed)."""
-    if not result.likelihood.startswith("exact"):
-        return np.zeros(0)
-    return KrigingPredictor(xy, values, result.covariance, result.mean, columns,
-                            error_variance).coefficient_errors()
+    return replace(settings, mean=covariate_mean(settings.mean, xy, covariates.column_names, columns))
 
 
 def result_document(result: FitResult, transform: Transform, working: WorkingCrs, field: str,
@@ -107,8 +94,8 @@ def fit_shared_documents(xy: np.ndarray, values: np.ndarray, transform: Transfor
     settings = replace(with_covariate_mean(settings, xy, covariates, columns), units=working.units)
     results = fit_shared(xy, values, settings, fields, covariates=columns, progress=progress, should_stop=should_stop)
     return [(result_document(result, transform, working, field, covariates,
-                             coefficient_errors(result, xy, values[:, k], columns)), result)
-            for k, (result, field) in enumerate(zip(results, fields))]
+                             trend_standard_errors(xy, result.covariance, result.mean, columns)), result)
+            for result, field in zip(results, fields)]
 
 
 def log_fit(feedback: QgsProcessingFeedback, xy: np.ndarray, values: np.ndarray, result: FitResult,

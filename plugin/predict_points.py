@@ -191,7 +191,7 @@ class PredictPointsAlgorithm(FieldcastAlgorithm):
                     feedback.setProgress(20 + 80 * min(sink.count / total, 1.0))
             kriging.write(chunk, feedback.isCanceled)
         self.log_counts(kriging, predictor, before, document.units, feedback)
-        if local:
+        if local and samples.covariates is None:
             log_gap(predictor, samples.xy, samples.values, kriging.draw.targets, feedback, "target points")
         feedback.setProgress(100)
         return {self.OUTPUT: sink.destination}

@@ -20,6 +20,7 @@ from qgis.core import (
 from ..algorithms import (
     MAX_BANDS,
     Cancelled,
+    CellCovariates,
     FieldcastError,
     GeoTiffWriter,
     GridSpec,
@@ -136,7 +137,7 @@ class SimulateAlgorithm(RasterAlgorithm):
         self.addParameter(advanced(QgsProcessingParameterNumber(
             self.SEED, self.tr("Random seed"), type=QgsProcessingParameterNumber.Integer, defaultValue=1,
             minValue=0)))
-        self.add_neighbourhood_parameters(per="cell")
+        self.add_neighbourhood_parameters(per="cell", local_mean=False)
         self.add_measurement_parameters()
         self.add_threshold_parameter()
         self.add_target_crs_parameter()
@@ -248,20 +249,13 @@ class SimulateAlgorithm(RasterAlgorithm):
         sources = self.covariate_sources(parameters, context)
         if not sources:
             return None, inside
-        columns = document.covariates.at_rows(sources, grid, 0, grid.n_rows, document.crs_wkt)
-        usable = np.all(np.isfinite(columns), axis=1).reshape(grid.n_rows, grid.n_cols)
-        missing = int(np.count_nonzero(~usable if inside is None else inside & ~usable))
-        limited = usable if inside is None else inside & usable
-        if not limited.any():
-            raise FieldcastError("No cell of the grid has a value in every covariate raster (or a class the samples "
-                                 "have). Choose covariate rasters that cover the grid, or another EXTENT or "
-                                 "TEMPLATE.")
-        if missing:
-            feedback.pushWarning(f"{missing:,} cells are nodata in every output because a covariate raster has no "
-                                 "value there (nodata, outside the raster, or a class no sample has, whose "
+        cells = CellCovariates.of(document.covariates.at_rows(sources, grid, 0, grid.n_rows, document.crs_wkt),
+                                  grid, inside)
+        if cells.missing:
+            feedback.pushWarning(f"{cells.missing:,} cells are nodata in every output because a covariate raster has "
+                                 "no value there (nodata, outside the raster, or a class no sample has, whose "
                                  "coefficient cannot be estimated); they are left out of the summaries.")
-        columns[~usable.ravel()] = 0.0
-        return columns, limited
+        return cells.columns, cells.inside
 
     @staticmethod
     def log_conditioning(neighbours: int, search_radius: float | None, count: int, units: str, feedback) -> None:

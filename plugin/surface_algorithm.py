@@ -70,8 +70,9 @@ def log_gap(predictor: LocalKrigingPredictor, xy: np.ndarray, values: np.ndarray
              "(modelling scale).")
     if max(gap.prediction, gap.variance) > GAP_WARNING:
         feedback.pushWarning(words + " More neighbours, or NEIGHBOURS = 0 (all samples), bring it closer. Local "
-                             "kriging estimates the mean from each cell's neighbours, which shows most at cells "
-                             "beyond the model's range from their samples; a spherical shape, a large nugget "
+                             "kriging estimates the mean from each cell's neighbours (a constant mean, or LOCAL_MEAN), "
+                             "which shows most at cells beyond the model's range from their samples; a spherical "
+                             "shape, a large nugget "
                              "share or a long range also let samples outside the neighbourhood matter.")
     else:
         feedback.pushInfo(words)
@@ -181,7 +182,11 @@ class SurfaceAlgorithm(RasterAlgorithm):
             settings["fieldcast_neighbours"] = predictor.neighbours
             if neighbourhood.search_radius is not None:
                 settings["fieldcast_search_radius"] = neighbourhood.search_radius
-            log_gap(predictor, xy, values, grid_targets(grid, inside), feedback)
+            settings["fieldcast_global_trend"] = "no" if predictor.trend is None else "yes"
+            if sample_covariates is None:
+                log_gap(predictor, xy, values, grid_targets(grid, inside), feedback)
+            else:
+                feedback.pushInfo("Neighbourhood check skipped: it compares at random cells without covariates.")
         if scale.threshold is not None:
             settings["fieldcast_threshold"] = scale.threshold
         if scale.measurement_variance is not None:

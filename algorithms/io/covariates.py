@@ -23,6 +23,7 @@ import numpy as np
 from osgeo import gdal
 
 from ..errors import FieldcastError, FieldcastUsageError
+from ..model.mean import MeanModel
 from .crs import defined_crs, same_crs, to_wkt2, transform_points
 from .grid import GridSpec
 from .template import open_raster
@@ -421,3 +422,50 @@ def _cell_size_in(dataset: gdal.Dataset, wkt: str, working_wkt: str) -> float:
         corners = transform_points(corners, wkt, working_wkt)
     return float(np.hypot(*(corners[1] - corners[0])) / math.sqrt(2.0))
 
+
+
+def covariate_mean(kind: str, xy: np.ndarray, column_names: Sequence[str], columns: np.ndarray) -> MeanModel:
+    """The mean model of a fit with covariates: trend ``kind`` in the samples' frame plus the design columns
+    ``column_names`` (their values ``columns`` at the samples ``xy``), refused by :func:`check_design` when
+    collinear with the trend."""
+    mean = MeanModel.for_data(kind, xy, tuple(column_names))
+    check_design(mean.design(xy, columns), mean.term_names)
+    return mean
+
+
+@dataclass(frozen=True)
+class CellCovariates:
+    """Covariate columns at every cell of a grid and the cells they leave usable.
+
+    Attributes
+    ----------
+    columns : ndarray of shape (n_rows * n_cols, c)
+        Design columns in raster order; zeros where a covariate has no value (those cells are outside
+        ``inside``, so the zeros only keep arrays finite).
+    inside : ndarray of bool, shape (n_rows, n_cols)
+        The given cell mask without the cells where a covariate has no value.
+    missing : int
+        Cells of the given mask dropped for a missing covariate value.
+    """
+
+    columns: np.ndarray
+    inside: np.ndarray
+    missing: int
+
+    @classmethod
+    def of(cls, columns: np.ndarray, grid: GridSpec, inside: np.ndarray | None) -> CellCovariates:
+        """From the columns at every cell (raster order, NaN rows where there is no value) and the cell mask.
+
+        Raises
+        ------
+        FieldcastError
+            When no cell of the mask has a value in every covariate.
+        """
+        usable = np.all(np.isfinite(columns), axis=1).reshape(grid.n_rows, grid.n_cols)
+        limited = usable if inside is None else inside & usable
+        if not limited.any():
+            raise FieldcastError("No cell of the grid has a value in every covariate raster (or a class the samples "
+                                 "have). Choose covariate rasters that cover the grid, or another EXTENT or "
+                                 "TEMPLATE.")
+        missing = int(np.count_nonzero(~usable if inside is None else inside & ~usable))
+        return cls(np.where(usable.reshape(-1, 1), columns, 0.0), limited, missing)

@@ -131,6 +131,14 @@ class MeanModel:
             return np.zeros((len(xy), 0))
         return np.column_stack(columns)
 
+    def residuals(self, xy: np.ndarray, values: np.ndarray, coefficients: np.ndarray,
+                  covariates: np.ndarray | None = None) -> np.ndarray:
+        """``values - F beta``: values (n,) at ``xy`` minus the mean with ``coefficients`` (order of
+        :attr:`term_names`) and the covariate columns at the same locations; minus the known value for a known
+        mean (attribute units)."""
+        return np.asarray(values, dtype=float) - self.known_mean(len(xy)) - self.design(xy, covariates) @ np.asarray(
+            coefficients, dtype=float).reshape(self.n_terms)
+
     def known_mean(self, n: int) -> np.ndarray:
         """The fixed mean vector for simple kriging (zeros for other kinds)."""
         return np.full(n, self.known_value if self.kind == "known" else 0.0)

@@ -19,6 +19,7 @@ from ..errors import FieldcastError
 from ..model.covariance import CovarianceModel
 from ..model.mean import MeanModel
 from .crossval import CrossValidation, leave_one_out, local_leave_one_out
+from .global_trend import local_trend_options
 from .kriging import KrigingPredictor
 from .local import LocalKrigingPredictor
 
@@ -55,10 +56,15 @@ class Neighbourhood:
     search_radius : float or None
         Largest distance of a neighbour along the model's major axis (working CRS units; the search
         ellipse follows the anisotropy), None = no limit. Used with local kriging only.
+    local_mean : bool
+        LOCAL_MEAN: local kriging re-estimates the mean in each neighbourhood. False (the default) krigs the
+        residuals of the trend estimated once from all samples (:mod:`.global_trend`), the neighbours spread
+        over sectors; a constant or known mean is kriged in each neighbourhood either way.
     """
 
     neighbours: int = 0
     search_radius: float | None = None
+    local_mean: bool = False
 
     def resolved(self, mean: MeanModel, per: str, pool: str = "every sample") -> tuple[int, list[LogLine]]:
         """Check NEIGHBOURS against the mean model; return it with the log line for an ignored SEARCH_RADIUS.
@@ -101,22 +107,26 @@ def _run_neighbours(neighbourhood: Neighbourhood, mean: MeanModel, count: int, p
     return neighbours, lines
 
 
-def refuse_local_covariates(mean: MeanModel, neighbours: int, count: int) -> None:
-    """FieldcastError when local kriging (``neighbours`` > 0 of ``count`` samples) meets a mean with covariates.
+def refuse_local_covariates(mean: MeanModel, neighbours: int, count: int, *, local_mean: bool = True,
+                            option: bool = False) -> None:
+    """FieldcastError when local kriging (``neighbours`` > 0 of ``count`` samples) that re-estimates the mean in
+    each neighbourhood (``local_mean``) meets a mean with covariates.
 
-    Covariate coefficients are estimated from all samples (GLS); local kriging would re-estimate them from each
-    neighbourhood's few samples and extrapolate a local trend, so it is refused until it can take the global
-    coefficients.
+    Covariate coefficients are estimated from all samples (GLS); local kriging that re-estimated them from each
+    neighbourhood's few samples would extrapolate a local trend. With ``local_mean`` False the global trend is
+    used (:mod:`.global_trend`) and nothing is refused. ``option`` says the run has the LOCAL_MEAN switch,
+    which the message then names.
     """
-    if not (neighbours and mean.covariate_names):
+    if not (neighbours and mean.covariate_names and local_mean):
         return
     automatic = count > GLOBAL_SAMPLE_LIMIT
     raise FieldcastError(
         "Covariates are kriged from all samples, so that their coefficients rest on every sample and not on "
         f"each neighbourhood's few; local kriging ({neighbours} neighbours"
         + (f", chosen because there are more than {GLOBAL_SAMPLE_LIMIT:,} samples" if automatic else "")
-        + ") does not take them yet. Set NEIGHBOURS to 0" + (", thin the samples" if automatic else "")
-        + ", or leave COVARIATES and CLASS_COVARIATES empty.")
+        + (") re-estimates the mean in each neighbourhood. Untick LOCAL_MEAN, set NEIGHBOURS to 0" if option
+           else ") does not take them yet. Set NEIGHBOURS to 0")
+        + (", thin the samples" if automatic else "") + ", or leave COVARIATES and CLASS_COVARIATES empty.")
 
 
 def choose_predictor(xy: np.ndarray, values: np.ndarray, covariance: CovarianceModel, mean: MeanModel,
@@ -138,7 +148,7 @@ def choose_predictor(xy: np.ndarray, values: np.ndarray, covariance: CovarianceM
     covariance, mean : CovarianceModel, MeanModel
         The model.
     neighbourhood : Neighbourhood
-        NEIGHBOURS and SEARCH_RADIUS as chosen.
+        NEIGHBOURS, SEARCH_RADIUS and LOCAL_MEAN as chosen.
     support : str
         ``"point"`` or ``"cell"`` (block kriging, global only).
     units : str
@@ -146,8 +156,7 @@ def choose_predictor(xy: np.ndarray, values: np.ndarray, covariance: CovarianceM
     per : str
         What each target is called in the log and the refusals ("cell", "target point").
     covariates : ndarray, shape (n, c), optional
-        The mean's covariate columns at the samples, when it names covariates (global kriging only, so that
-        their coefficients come from all samples).
+        The mean's covariate columns at the samples, when it names covariates.
     error_variance : ndarray, shape (n,), optional
         Per-sample measurement-error variances (modelling units squared), on the diagonal beside the nugget.
 
@@ -155,11 +164,12 @@ def choose_predictor(xy: np.ndarray, values: np.ndarray, covariance: CovarianceM
     ------
     FieldcastError
         If NEIGHBOURS is too small for the mean model, local kriging is asked for cell support, or local kriging
-        would be used with covariates.
+        that re-estimates the mean would be used with covariates.
     """
     count = len(values)
     neighbours, lines = _run_neighbours(neighbourhood, mean, count, per, support=support)
-    refuse_local_covariates(mean, neighbours, count)
+    local_mean = neighbourhood.local_mean
+    refuse_local_covariates(mean, neighbours, count, local_mean=local_mean, option=True)
     if neighbours == 0:
         lines.append(LogLine("info", f"Kriging from all {count} samples."))
         predictor = KrigingPredictor(xy, values, covariance, mean, covariates, error_variance)
@@ -167,10 +177,12 @@ def choose_predictor(xy: np.ndarray, values: np.ndarray, covariance: CovarianceM
     if support == "cell":
         raise FieldcastError("Cell support is computed from all samples (block kriging); local "
                              "neighbourhoods are for point support. Set NEIGHBOURS to 0, or SUPPORT to point.")
+    options, words = local_trend_options(xy, values, covariance, mean, covariates, local_mean, error_variance)
     lines.append(LogLine("info", f"Local kriging: each {per} from its {min(neighbours, count)} nearest "
-                                 f"samples{search_words(neighbourhood.search_radius, units)}."))
-    return LocalKrigingPredictor(xy, values, covariance, mean, neighbours=neighbours,
-                                 search_radius=neighbourhood.search_radius, error_variance=error_variance), lines
+                                 f"samples{search_words(neighbourhood.search_radius, units)}{words}."))
+    return LocalKrigingPredictor(xy, values, covariance, mean, neighbours=neighbours, covariates=covariates,
+                                 search_radius=neighbourhood.search_radius, error_variance=error_variance,
+                                 **options), lines
 
 
 def cross_validate_with(xy: np.ndarray, values: np.ndarray, covariance: CovarianceModel, mean: MeanModel,
@@ -189,12 +201,12 @@ def cross_validate_with(xy: np.ndarray, values: np.ndarray, covariance: Covarian
     xy, values, covariance, mean, neighbourhood
         As for :func:`choose_predictor` (one field of values).
     covariates : ndarray of shape (n, c), optional
-        The mean's covariate columns at the samples (global leave-one-out only, see
-        :func:`refuse_local_covariates`).
+        The mean's covariate columns at the samples.
     units : str
         Working CRS unit, for the log.
     error_variance : ndarray of shape (n,), optional
         Per-sample measurement-error variances, as for :func:`choose_predictor`.
+        With the global trend (LOCAL_MEAN off) its coefficients rest on every sample, the left-out one included.
     progress, should_stop : callable, optional
         Progress (fraction) and cancel of the local leave-one-out.
 
@@ -206,14 +218,17 @@ def cross_validate_with(xy: np.ndarray, values: np.ndarray, covariance: Covarian
     """
     count = len(values)
     neighbours, lines = _run_neighbours(neighbourhood, mean, count, "sample", pool="every other sample")
-    refuse_local_covariates(mean, neighbours, count)
+    local_mean = neighbourhood.local_mean
+    refuse_local_covariates(mean, neighbours, count, local_mean=local_mean, option=True)
     if neighbours == 0:
         return leave_one_out(xy, values, covariance, mean, covariates, error_variance), lines
     search_radius = neighbourhood.search_radius
+    options, words = local_trend_options(xy, values, covariance, mean, covariates, local_mean, error_variance)
     lines.append(LogLine("info", f"Local leave-one-out: each sample from its {min(neighbours, count - 1)} nearest "
-                                 f"other samples{search_words(search_radius, units)}."))
+                                 f"other samples{search_words(search_radius, units)}{words}."))
     result = local_leave_one_out(xy, values, covariance, mean, neighbours=neighbours, search_radius=search_radius,
-                                 error_variance=error_variance, progress=progress, should_stop=should_stop)
+                                 covariates=covariates, error_variance=error_variance, progress=progress,
+                                 should_stop=should_stop, **options)
     unresolved = count - result.summary()["n"]
     if unresolved == count:
         raise FieldcastError("No sample has enough other samples within SEARCH_RADIUS to be predicted. "

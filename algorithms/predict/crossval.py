@@ -42,6 +42,7 @@ from ..linalg.condition_policy import UNIT_ROUNDOFF
 from ..model.covariance import CovarianceModel
 from ..model.mean import MeanModel
 from ..model.transform import Transform
+from .global_trend import GlobalTrend
 from .kriging import MORE_SAMPLES_ADVICE, KrigingPredictor, cholesky_factor
 from .local import LocalKrigingPredictor
 
@@ -185,12 +186,14 @@ def leave_one_out(xy: np.ndarray, values: np.ndarray, covariance: CovarianceMode
 def local_leave_one_out(xy: np.ndarray, values: np.ndarray, covariance: CovarianceModel, mean: MeanModel, *,
                         neighbours: int, search_radius: float | None = None, covariates: np.ndarray | None = None,
                         error_variance: np.ndarray | None = None, progress: Callable[[float], None] | None = None,
-                        should_stop: Callable[[], bool] | None = None) -> CrossValidation:
+                        should_stop: Callable[[], bool] | None = None, trend: GlobalTrend | None = None,
+                        sectors: int = 1) -> CrossValidation:
     """Leave-one-out cross-validation with local kriging from each sample's nearest other samples.
 
     Each sample is predicted as by :class:`.neighbourhood.LocalKrigingPredictor`
     (same arguments) from its ``neighbours`` nearest other samples within
-    ``search_radius``, the trend re-estimated from them; the variance is that
+    ``search_radius``, the trend re-estimated from them (or, given ``trend`` and ``sectors``, the residuals of
+    that global trend kriged from neighbours spread over sectors); the variance is that
     of the error in predicting the observation (nugget included), as for
     :func:`leave_one_out`. With ``neighbours >= n - 1`` this is global
     leave-one-out. Samples with fewer than ``mean.n_terms + 1`` other samples
@@ -206,7 +209,7 @@ def local_leave_one_out(xy: np.ndarray, values: np.ndarray, covariance: Covarian
     """
     predictor = LocalKrigingPredictor(xy, values, covariance, mean, neighbours=neighbours,
                                       search_radius=search_radius, covariates=covariates,
-                                      error_variance=error_variance)
+                                      error_variance=error_variance, trend=trend, sectors=sectors)
     if predictor.n <= predictor.minimum_neighbours:
         raise FieldcastError(
             f"Leave-one-out with a {mean.kind} mean needs at least {predictor.minimum_neighbours + 1} samples; "

@@ -9,6 +9,14 @@ semi-axis ``search_radius``, minor semi-axis ``ratio * search_radius``, CRS
 units). A :class:`scipy.spatial.cKDTree` returns the ``neighbours`` nearest
 samples within the radius (all samples when there are fewer).
 
+Sectors. With ``sectors = s > 1`` the neighbours are spread around the
+target: of its ``SECTOR_POOL * k`` nearest candidates (:data:`SECTOR_POOL`), the
+``k // s`` nearest in each of ``s`` equal angular sectors of the search frame
+are taken first and the remaining slots filled by the nearest others (a
+sector search; common practice). Inside a gap (clouds, an unsampled block)
+the plain nearest samples all sit on its nearest edge; spread over sectors
+they come from every side, which is what global kriging would weigh.
+
 Kriging system. With the ``k`` neighbours, their covariance ``K`` (nugget on
 the diagonal), their design ``F`` (``k x p``, see :mod:`..model.mean`), the latent
 covariance ``c0`` between the target and the neighbours and the target's
@@ -39,6 +47,22 @@ but keeps ``A`` well conditioned; covariances are divided by the sill for
 the same reason. When every structure shares the first one's azimuth and
 ratio (as fitted models do), covariances are computed directly from
 distances in the search frame.
+
+Global trend. With ``trend=`` (a :class:`.global_trend.GlobalTrend`, the GLS
+coefficients ``beta`` and their covariance ``V_beta`` from all samples) and a
+mean with estimated terms, the neighbourhoods do not re-estimate the trend:
+they krig the residuals ``r = y - F beta`` by simple kriging (``p = 0``
+locally) and the trend's estimation error enters the variance as in
+universal kriging with the global coefficients (Cressie 1993, section 3.4)::
+
+    mean(x0)     = f0^T beta + (L^-1 c0)^T L^-1 r_N
+    variance(x0) = C(0) - |L^-1 c0|^2 + g^T V_beta g,   g = f0 - F_N^T K^-1 c0
+
+with ``f0`` and ``F_N`` in the mean model's own frame. With every sample as
+the neighbourhood this is global universal kriging exactly. Without
+``trend=`` (the locally varying mean) each neighbourhood estimates its own
+trend: where the neighbours sit on one side of the target (gaps, edges) that
+trend is extrapolated and its variance is too small.
 
 Batches. Targets are taken ``chunk_size`` at a time and grouped by
 neighbour set (as a set of samples): each distinct set is factorised once
@@ -89,13 +113,14 @@ from concurrent.futures import ThreadPoolExecutor
 import numpy as np
 from scipy.spatial import cKDTree
 
-from ..errors import Cancelled, FieldcastError
+from ..errors import Cancelled, FieldcastError, FieldcastUsageError
 from ..io.samples import check_error_variance
 from ..linalg.batched import back_substitution, cholesky_stack, forward_substitution
 from ..linalg.condition_policy import WARN_RECIPROCAL, stack_reciprocal_condition, usable
 from ..model.correlation import correlation
 from ..model.covariance import CovarianceModel, search_frame
 from ..model.mean import MeanModel
+from .global_trend import GlobalTrend
 from .kriging import (
     MORE_SAMPLES_ADVICE,
     as_points,
@@ -110,6 +135,9 @@ WORKERS = min(4, os.cpu_count() or 1)
 
 STACK_SIZE = 2048
 """Largest number of neighbour sets factorised, or targets solved, at once (bounds temporary memory)."""
+
+SECTOR_POOL = 8
+"""Candidates per neighbour slot searched for a sector search (``SECTOR_POOL * k`` nearest samples)."""
 
 LEAVE_ONE_OUT_CHUNK = 8192
 """Samples predicted at once by :meth:`LocalKrigingPredictor.leave_one_out` (between progress reports)."""
@@ -133,6 +161,12 @@ class LocalKrigingPredictor:
     error_variance : ndarray of shape (n,), optional
         Measurement-error variance of each sample (u2), added to the diagonal of each local ``K`` beside the
         nugget (as for :class:`.kriging.KrigingPredictor`).
+    trend : GlobalTrend, optional
+        The trend estimated once from all samples (:func:`.global_trend.estimate_trend`): the
+        neighbourhoods krig its residuals and its coefficient covariance enters the variance (module
+        docstring). None re-estimates the mean in each neighbourhood. Ignored for a known mean.
+    sectors : int
+        Equal angular sectors the neighbours are spread over (module docstring); 1 takes the nearest.
 
     After construction ``n`` is the number of samples, ``neighbours`` the
     number used per target (``min(neighbours, n)``) and
@@ -146,11 +180,13 @@ class LocalKrigingPredictor:
 
     def __init__(self, xy: np.ndarray, values: np.ndarray, covariance: CovarianceModel, mean: MeanModel, *,
                  neighbours: int = 32, search_radius: float | None = None,
-                 covariates: np.ndarray | None = None, error_variance: np.ndarray | None = None) -> None:
+                 covariates: np.ndarray | None = None, error_variance: np.ndarray | None = None,
+                 trend: GlobalTrend | None = None, sectors: int = 1) -> None:
         points = as_points(xy, "Sample coordinates")
         observed = as_value_columns(values, len(points))
         self.n = len(points)
-        self.minimum_neighbours = mean.n_terms + 1
+        self.trend = trend if mean.n_terms else None
+        self.minimum_neighbours = 1 if self.trend is not None else mean.n_terms + 1
         if int(neighbours) != neighbours or neighbours < self.minimum_neighbours:
             raise FieldcastError(
                 f"The number of neighbours must be a whole number of at least {self.minimum_neighbours} "
@@ -166,6 +202,8 @@ class LocalKrigingPredictor:
                 f"The search radius must be a positive distance in CRS units (or empty for no limit); "
                 f"got {search_radius!r}."
             )
+        if int(sectors) != sectors or sectors < 1:
+            raise FieldcastUsageError(f"sectors must be a whole number of at least 1; got {sectors!r}.")
         if error_variance is not None:
             error_variance = check_error_variance(error_variance, self.n)
         if covariance.nugget == 0 and (error_variance is None or not error_variance.min() > 0):
@@ -173,6 +211,7 @@ class LocalKrigingPredictor:
         self.error_variance = error_variance
         self.covariance = covariance
         self.mean = mean
+        self.sectors = int(sectors)
         self.neighbours = min(int(neighbours), self.n)
         self.search_radius = search_radius
         self.last_unresolved = 0
@@ -182,6 +221,11 @@ class LocalKrigingPredictor:
         self._single_field = observed.ndim == 1
         self._residual = (observed - mean.known_mean(1)[0]).reshape(self.n, -1)  # (n, fields)
         self._local_mean = MeanModel(mean.kind, mean.known_value, (0.0, 0.0), 1.0, mean.covariate_names)
+        self._global_design = np.zeros((self.n, 0))  # F in the mean's own frame, with a global trend only
+        if self.trend is not None:
+            self._global_design = mean.design(points, self._covariates)
+            self._residual = self._residual - self._global_design @ self.trend.coefficients.reshape(mean.n_terms, -1)
+            self._local_mean = MeanModel("known")
         first = covariance.structures[0]
         self._isotropic_in_frame = all(s.azimuth == first.azimuth and s.ratio == first.ratio
                                        for s in covariance.structures)
@@ -237,14 +281,17 @@ class LocalKrigingPredictor:
         factors[~solvable] = np.eye(k)  # refused systems: keep the solves finite, their targets become NaN
         covariates = None if self._covariates is None else self._covariates[sets]
         design = self._design((points - centre[:, None, :]) / scale[:, None, None], covariates)
-        fields = self._residual.shape[1]
-        white = forward_substitution(factors, np.concatenate([self._residual[sets], design], axis=2))
-        white_values, white_design = white[:, :, :fields], white[:, :, fields:]
+        fields, local_terms = self._residual.shape[1], design.shape[2]
+        white = forward_substitution(factors, np.concatenate([self._residual[sets], design,
+                                                              self._global_design[sets]], axis=2))
+        white_values = white[:, :, :fields]
+        white_design, white_global = white[:, :, fields:fields + local_terms], white[:, :, fields + local_terms:]
         trend_factors, trend_solvable = cholesky_stack(np.swapaxes(white_design, 1, 2) @ white_design)
         projected = np.einsum("uji,ujf->uif", white_design, white_values)
         coefficients = back_substitution(trend_factors, forward_substitution(trend_factors, projected))  # (u, p, m)
         white_residual = white_values - np.einsum("uij,ujf->uif", white_design, coefficients)  # L^-1 (y - F beta)
-        return {"factors": factors, "white_design": white_design, "trend_factors": trend_factors,
+        return {"factors": factors, "white_design": white_design, "white_global": white_global,
+                "trend_factors": trend_factors,
                 "coefficients": coefficients, "white_residual": white_residual,
                 "solvable": solvable & trend_solvable, "ill_conditioned": solvable & (estimate < WARN_RECIPROCAL),
                 "centre": centre, "scale": scale}
@@ -316,6 +363,11 @@ class LocalKrigingPredictor:
             white_gap = forward_substitution(system["trend_factors"][chosen], gap[:, :, None])[:, :, 0]
             found_variance = self.covariance.field_variance + self.covariance.sill * (
                 np.einsum("bi,bi->b", white_gap, white_gap) - np.einsum("bi,bi->b", white_cross, white_cross))
+            if self.trend is not None:  # covariates0 holds the targets' design rows f0 (see _predict_chunk)
+                rows0 = covariates0[rows]
+                found_mean += rows0 @ self.trend.coefficients.reshape(self.mean.n_terms, -1)
+                global_gap = rows0 - np.einsum("bjp,bj->bp", system["white_global"][chosen], white_cross)
+                found_variance += np.einsum("bp,pq,bq->b", global_gap, self.trend.coefficient_covariance, global_gap)
             unsolvable = self._unsolvable(system, chosen)
             found_mean[unsolvable] = np.nan
             found_variance[unsolvable] = np.nan
@@ -326,7 +378,12 @@ class LocalKrigingPredictor:
 
     def _predict_chunk(self, targets: np.ndarray, covariates0: np.ndarray | None, pool: ThreadPoolExecutor
                        ) -> tuple[np.ndarray, np.ndarray]:
-        """Means (b, fields) and variance (b,) (NaN where unresolved) for one chunk of targets."""
+        """Means (b, fields) and variance (b,) (NaN where unresolved) for one chunk of targets.
+
+        With a global trend the targets' design rows ``f0`` take the place of their covariates from here on.
+        """
+        if self.trend is not None:
+            covariates0 = self.mean.design(targets, covariates0)
         targets = search_frame(self.covariance.structures[0], targets)
         return self._predict_found(targets, covariates0, self._nearest(targets, self.neighbours), pool)
 
@@ -336,8 +393,25 @@ class LocalKrigingPredictor:
         Missing neighbours (fewer samples in range) are marked with index ``n`` and come last in each row.
         """
         radius = np.inf if self.search_radius is None else self.search_radius
-        _, found = self._tree.query(targets, k=k, distance_upper_bound=radius, workers=WORKERS)
-        return found.reshape(len(targets), k)
+        pool = k if self.sectors == 1 else min(self.n, SECTOR_POOL * k)
+        _, found = self._tree.query(targets, k=pool, distance_upper_bound=radius, workers=WORKERS)
+        found = found.reshape(len(targets), pool)
+        return found if pool == k else self._spread(targets, found, k)
+
+    def _spread(self, targets: np.ndarray, found: np.ndarray, k: int) -> np.ndarray:
+        """``k`` of the candidates ``found`` (b, pool; nearest first, missing = ``n``): ``k // sectors`` per sector
+        first, then the nearest others; missing ones last."""
+        candidates = self._frame_xy[np.minimum(found, self.n - 1)]
+        angle = np.arctan2(candidates[:, :, 1] - targets[:, None, 1], candidates[:, :, 0] - targets[:, None, 0])
+        sector = np.minimum(((angle + np.pi) * (self.sectors / (2 * np.pi))).astype(np.intp), self.sectors - 1)
+        rank = np.zeros(found.shape, dtype=np.intp)  # place of each candidate among the nearer ones of its sector
+        for s in range(self.sectors):
+            inside = sector == s
+            rank += np.where(inside, np.cumsum(inside, axis=1) - 1, 0)
+        pool = found.shape[1]
+        tier = np.where(found == self.n, 2, np.where(rank < k // self.sectors, 0, 1))
+        order = np.argsort(tier * pool + np.arange(pool), axis=1)[:, :k]
+        return np.take_along_axis(found, order, axis=1)
 
     def _groups_by_count(self, found: np.ndarray) -> list[tuple[int, np.ndarray]]:
         """``(k, rows)`` for each neighbour count ``k`` of at least :attr:`minimum_neighbours` in ``found`` (b, k)."""
@@ -399,7 +473,8 @@ class LocalKrigingPredictor:
         neighbours (module docstring), so that
         ``mean(x0) = sum_j weights[j] * (y[indices[j]] - m) + m`` with ``m``
         the known mean of simple kriging (0 otherwise; then the weights of a
-        target sum to one under ordinary kriging). All targets are solved at
+        target sum to one under ordinary kriging; with a global trend the weights act on the residuals
+        ``y - F beta`` and the target's trend ``f0^T beta`` is added instead of ``m``). All targets are solved at
         once: pass a few thousand at a time.
 
         Parameters
@@ -487,8 +562,8 @@ class LocalKrigingPredictor:
         anisotropy frame and the sample itself is dropped (if coincident
         samples tie with it, the farthest of the ``k + 1`` is dropped
         instead), so ``k = min(neighbours, n - 1)`` others remain. The local
-        system is the one of :meth:`predict`, its trend re-estimated from
-        those neighbours. ``progress`` and ``should_stop`` are as for
+        system is the one of :meth:`predict` (its trend re-estimated from
+        those neighbours, or the global trend's residuals kriged). ``progress`` and ``should_stop`` are as for
         :meth:`predict`; samples are taken :data:`LEAVE_ONE_OUT_CHUNK` at a time.
 
         Returns
@@ -501,6 +576,8 @@ class LocalKrigingPredictor:
             own error variance, when given), shared by the fields. Both NaN for samples with too few other
             samples within the search radius (or a singular local system),
             counted in :attr:`last_unresolved`.
+
+        With a global trend its coefficients come from all samples, the left-out one included.
         """
         k = min(self.neighbours, self.n - 1)
         found = self._nearest(self._frame_xy, k + 1)
@@ -509,10 +586,16 @@ class LocalKrigingPredictor:
         others = found[keep].reshape(self.n, k)
         mean, variance = self._in_chunks(
             self.n, LEAVE_ONE_OUT_CHUNK, lambda chunk, pool: self._predict_found(
-                self._frame_xy[chunk], None if self._covariates is None else self._covariates[chunk], others[chunk],
-                pool), progress, should_stop)
+                self._frame_xy[chunk], self._leave_one_out_terms(chunk), others[chunk], pool), progress, should_stop)
         own = 0.0 if self.error_variance is None else self.error_variance
         return mean, variance + self.covariance.nugget + own
+
+
+    def _leave_one_out_terms(self, chunk: slice) -> np.ndarray | None:
+        """What :meth:`_predict_found` takes beside samples ``chunk`` as targets: design rows or covariates."""
+        if self.trend is not None:
+            return self._global_design[chunk]
+        return None if self._covariates is None else self._covariates[chunk]
 
 
 ROW_HASH_SEED = 20261202

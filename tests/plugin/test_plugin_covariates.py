@@ -144,10 +144,11 @@ def test_later_steps_refuse_other_covariates_and_write_nothing(qgis_processing, 
         qgis_processing.run("fieldcast:predictpoints", {
             "INPUT": samples, "FIELD": "zinc", "MODEL": model, "TARGETS": labelled_layer(np.zeros((1, 2)) + 180000),
             "OUTPUT": str(path)})
-    with pytest.raises(QgsProcessingException, match="Covariates are kriged from all samples.*NEIGHBOURS to 0"):
+    with pytest.raises(QgsProcessingException, match="Covariates are kriged from all samples.*re-estimates the mean "
+                                                     "in each neighbourhood. Untick LOCAL_MEAN, set NEIGHBOURS to 0"):
         qgis_processing.run("fieldcast:crossvalidate", {
             "INPUT": samples, "FIELD": "zinc", "MODEL": model, "COVARIATES": [dist], "CLASS_COVARIATES": [ffreq],
-            "NEIGHBOURS": 16, "OUTPUT": str(path), "OUTPUT_REPORT": ""})
+            "NEIGHBOURS": 16, "LOCAL_MEAN": True, "OUTPUT": str(path), "OUTPUT_REPORT": ""})
     assert not path.exists()
 
 
@@ -158,6 +159,30 @@ def test_a_covariate_repeated_in_both_lists_is_refused(qgis_processing, covariat
         qgis_processing.run("fieldcast:fitmodel", {"INPUT": samples, **FIT, "COVARIATES": [dist],
                                                    "CLASS_COVARIATES": [dist], "OUTPUT_MODEL": str(path)})
     assert not path.exists()
+
+
+def test_local_predict_with_covariates_and_every_sample_as_neighbourhood_equals_kriging(qgis_processing, meuse,  # noqa: F811
+                                                                                         covariate_run, meuse_grid):
+    # Local kriging of the residuals of the trend estimated once from all samples, with every sample as the
+    # neighbourhood, is universal kriging with the covariates (Cressie 1993, section 3.4).
+    samples, dist, ffreq, model, _, folder = covariate_run
+    xy, values, read = read_samples(meuse, dist, ffreq)
+    log = Log()
+    path = folder / "zinc_local.tif"
+    qgis_processing.run("fieldcast:predict", {
+        "INPUT": samples, "FIELD": "zinc", "MODEL": model, "COVARIATES": [dist], "CLASS_COVARIATES": [ffreq],
+        "TEMPLATE": dist, "TEMPLATE_NODATA_MASK": False, "MAP_AREA": "extent", "NEIGHBOURS": len(values),
+        "OUTPUT": str(path), "OUTPUT_VARIANCE": "", "OUTPUT_SD": ""}, feedback=log)
+    prediction, centres = band(path), template_centres(path)
+    on_grid, cell_columns = published_cells(centres, meuse_grid)
+    document = ModelDocument.load(model)
+    mean, _ = KrigingPredictor(xy, values, document.covariance, document.mean, read.columns).predict(
+        centres[on_grid], cell_columns)
+    np.testing.assert_allclose(prediction[on_grid], np.exp(mean), rtol=1e-5)  # Float32 GeoTIFF
+    assert any(f"Local kriging: each cell from its {len(values)} nearest samples, spread over 8 sectors around the "
+               f"constant trend and covariates estimated once from all {len(values)} samples (generalised least "
+               "squares, exactly)." in line
+               for line in log.lines)
 
 
 def test_predict_with_covariates_on_their_grid_equals_kriging_and_counts_nodata(qgis_processing, meuse,  # noqa: F811
