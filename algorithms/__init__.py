@@ -65,6 +65,8 @@ _PUBLIC = {
     "LocalKrigingPredictor": "predict.local",
     "DEFAULT_POINTS_PER_SIDE": "predict.block",
     "block_predict": "predict.block",
+    "AREA_FIELDS": "predict.areas",
+    "assess_areas": "predict.areas",
     "CrossValidation": "predict.crossval",
     "leave_one_out": "predict.crossval",
     "local_leave_one_out": "predict.crossval",
