@@ -36,6 +36,7 @@ from ..model.covariance import CovarianceModel
 from ..model.mean import MeanModel
 from ..model.transform import Transform
 from ..simulate.circulant import covariance_factor
+from .choice import LogLine
 from .exceedance import exceedance_probability
 from .kriging import KrigingPredictor
 
@@ -83,24 +84,24 @@ class AreaAssessment:
     capped: int
     realisations: int
 
-    def log_lines(self, units: str) -> list[str]:
+    def log_lines(self, units: str) -> list[LogLine]:
         """The method in words for the run's log: discretisation, draws, flagged polygons."""
-        lines = [f"Each polygon's average is taken over regular points at a spacing of sqrt(area / {TARGET_POINTS}) "
-                 f"(here {np.min(self.spacing, initial=np.inf):.3g} to {np.max(self.spacing, initial=0):.3g} "
-                 f"{units}; {int(np.median(self.points)) if len(self.points) else 0} points per polygon at the "
-                 f"median, at most {MAX_POINTS}); probabilities and percentiles of a log model and the volumes "
-                 f"come from {self.realisations:,} draws of the points' joint law given the data."]
-        if self.capped:
-            lines.append(f"{self.capped:,} polygon(s) had more than {MAX_POINTS} points and were thinned evenly "
-                         f"to {MAX_POINTS}.")
+        median = int(np.median(self.points)) if len(self.points) else 0
+        lines = [LogLine("info", f"Each polygon's average is taken over regular points at a spacing of sqrt(area / "
+                                 f"{TARGET_POINTS}) (here {np.min(self.spacing, initial=np.inf):.3g} to "
+                                 f"{np.max(self.spacing, initial=0):.3g} {units}; {median} points per polygon at the "
+                                 f"median, at most {MAX_POINTS}); probabilities and percentiles of a log model and "
+                                 f"the volumes come from {self.realisations:,} draws of the points' joint law given "
+                                 "the data.")]
         flagged = int(np.count_nonzero(self.centroid_only))
-        if flagged:
-            lines.append(f"{flagged:,} polygon(s) are too small or thin for any discretisation point: they are "
-                         "kriged at their centroid (flagged in the output).")
         missing = int(np.count_nonzero(self.points == 0))
-        if missing:
-            lines.append(f"{missing:,} polygon(s) lie where a covariate raster has no value: their results are "
-                         "empty (NULL).")
+        for level, number, text in (
+                ("info", self.capped, f"had more than {MAX_POINTS} points and were thinned evenly to {MAX_POINTS}."),
+                ("warning", flagged, "are too small or thin for any discretisation point: they are kriged at their "
+                                     "centroid (flagged in the output)."),
+                ("warning", missing, "lie where a covariate raster has no value: their results are empty (NULL).")):
+            if number:
+                lines.append(LogLine(level, f"{number:,} polygon(s) {text}"))
         return lines
 
 

@@ -37,6 +37,10 @@ CONTRACT = {
                       {"INPUT", "FIELD", "MODEL", "COVARIATES", "CLASS_COVARIATES", "TARGETS", "THRESHOLD",
                        "BACKTRANSFORM", "NEIGHBOURS", "SEARCH_RADIUS", "TARGET_CRS", "OUTPUT"},
                       {"OUTPUT"}),
+    "assessareas": ("Assess areas",
+                    {"INPUT", "FIELD", "MODEL", "COVARIATES", "CLASS_COVARIATES", "AREAS", "THRESHOLD", "REALIZATIONS",
+                     "SEED", "DEPTH_FIELD", "DEPTH", "TARGET_CRS", "OUTPUT"},
+                    {"OUTPUT"}),
     "simulate": ("Simulate conditional fields",
                  {"INPUT", "FIELD", "MODEL", "COVARIATES", "CLASS_COVARIATES", "TEMPLATE", "EXTENT", "PIXEL_SIZE",
                   "MASK", "TEMPLATE_NODATA_MASK",
@@ -96,7 +100,7 @@ def test_metadata_names_every_algorithm_in_about_and_changelog():
         assert f'"{display}"' in general["about"] and display in general["changelog"], display
 
 
-def test_class_factory_registers_the_provider_with_six_algorithms(fieldcast_plugin):  # noqa: F811
+def test_class_factory_registers_the_provider_with_seven_algorithms(fieldcast_plugin):  # noqa: F811
     provider = QgsApplication.processingRegistry().providerById("fieldcast")
     assert provider is not None and provider.name() == "Fieldcast"
     assert sorted(a.name() for a in provider.algorithms()) == sorted(CONTRACT)

@@ -119,7 +119,7 @@ def test_a_sliver_is_kriged_at_its_centroid_and_flagged(meuse):
     result = assess_areas(meuse.xy, np.log(meuse.zinc), MEUSE_LOG_ZINC, MeanModel("constant"), Transform("log"),
                           [sliver], 500.0, realisations=50, seed=0)
     assert result.centroid_only.tolist() == [True] and result.points.tolist() == [1]
-    assert any("centroid" in line for line in result.log_lines("metres"))
+    assert any("centroid" in line.text for line in result.log_lines("metres"))
 
 
 def test_bad_inputs_say_what_to_change_and_cancel_stops(meuse):
