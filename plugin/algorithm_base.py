@@ -57,6 +57,7 @@ from ..algorithms import (
     SampleCovariates,
     Transform,
     WorkingCrs,
+    defined_crs,
     refuse_read_only,
     remove_stale_files,
     termination_cleanup,
@@ -330,6 +331,17 @@ class FieldcastAlgorithm(QgsProcessingAlgorithm):
         """The NEIGHBOURS and SEARCH_RADIUS chosen (SEARCH_RADIUS None when empty)."""
         return Neighbourhood(whole_number(self.given_value(parameters, self.NEIGHBOURS), "NEIGHBOURS", 0),
                              self.optional_number(parameters, self.SEARCH_RADIUS, context))
+
+    def feature_source(self, parameters, name: str, context, empty: str):
+        """The feature source of parameter ``name``, checked: a defined CRS, and refused with ``empty`` when it
+        has no feature."""
+        source = self.parameterAsSource(parameters, name, context)
+        if source is None:
+            raise QgsProcessingException(self.invalidSourceError(parameters, name))
+        defined_crs(crs_wkt(source.sourceCrs()), f"{source.sourceName()} ({name})")
+        if source.featureCount() == 0:
+            raise FieldcastError(empty)
+        return source
 
     def given_value(self, parameters, name: str):
         """The value of parameter ``name`` as given, its default when left out or empty (for :func:`whole_number`)."""

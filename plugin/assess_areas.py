@@ -11,20 +11,18 @@ from qgis.core import (
     QgsField,
     QgsFields,
     QgsProcessing,
-    QgsProcessingException,
     QgsProcessingParameterFeatureSink,
     QgsProcessingParameterFeatureSource,
     QgsProcessingParameterField,
     QgsProcessingParameterNumber,
 )
 
-from ..algorithms import AREA_FIELDS, FieldcastError, assess_areas, defined_crs, linear_units
+from ..algorithms import AREA_FIELDS, FieldcastError, assess_areas, linear_units
 from .algorithm_base import FieldcastAlgorithm, advanced, progress_callback, push_log
 from .destinations import destination_value
 from .field_names import name_limit, result_names
 from .field_types import field_type
 from .help_text import AREA_CAUTIONS, COVARIATE_HELP, MODEL_FILE_HELP, TARGET_CRS_HELP, compose_help
-from .sample_reader import crs_wkt
 from .sinks import checked_sink
 from .whole_numbers import whole_number
 
@@ -106,13 +104,8 @@ class AssessAreasAlgorithm(FieldcastAlgorithm):
 
     def areas(self, parameters, context):
         """The AREAS source, checked: a defined CRS and at least one feature."""
-        source = self.parameterAsSource(parameters, self.AREAS, context)
-        if source is None:
-            raise QgsProcessingException(self.invalidSourceError(parameters, self.AREAS))
-        defined_crs(crs_wkt(source.sourceCrs()), f"{source.sourceName()} (AREAS)")
-        if source.featureCount() == 0:
-            raise FieldcastError("The polygon layer (AREAS) is empty. Choose a layer that holds the units to assess.")
-        return source
+        return self.feature_source(parameters, self.AREAS, context, "The polygon layer (AREAS) is empty. Choose a "
+                                   "layer that holds the units to assess.")
 
     def depth_of(self, parameters, context):
         """A function giving a feature's depth (NaN for none), from DEPTH_FIELD or DEPTH; None without either."""

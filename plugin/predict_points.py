@@ -12,7 +12,6 @@ from qgis.core import (
     QgsField,
     QgsFields,
     QgsProcessing,
-    QgsProcessingException,
     QgsProcessingParameterFeatureSink,
     QgsProcessingParameterFeatureSource,
 )
@@ -23,13 +22,11 @@ from ..algorithms import (
     CovariateSet,
     CovariateSource,
     ExtrapolationCheck,
-    FieldcastError,
     LocalKrigingPredictor,
     SurfaceScale,
     TargetDraw,
     cell_predictor,
     choose_predictor,
-    defined_crs,
     predict_points,
     same_crs,
     transform_points,
@@ -113,14 +110,8 @@ class PredictPointsAlgorithm(FieldcastAlgorithm):
 
     def targets(self, parameters, context):
         """The TARGETS source, checked: a defined CRS and at least one feature."""
-        source = self.parameterAsSource(parameters, self.TARGETS, context)
-        if source is None:
-            raise QgsProcessingException(self.invalidSourceError(parameters, self.TARGETS))
-        defined_crs(crs_wkt(source.sourceCrs()), f"{source.sourceName()} (TARGETS)")
-        if source.featureCount() == 0:
-            raise FieldcastError("The target layer (TARGETS) is empty. Choose a point layer that holds the places "
-                                 "to predict at.")
-        return source
+        return self.feature_source(parameters, self.TARGETS, context, "The target layer (TARGETS) is empty. Choose a "
+                                   "point layer that holds the places to predict at.")
 
     def result_names(self, parameters, field: str, kinds: list[str], source, feedback) -> list[str]:
         """``<field>_est`` and the others for ``kinds``, clipped and de-duplicated against the target's fields."""
