@@ -161,7 +161,7 @@ def choose_predictor(xy: np.ndarray, values: np.ndarray, covariance: CovarianceM
         lines.append(LogLine("info", f"Kriging from all {count} samples."))
         predictor = KrigingPredictor(xy, values, covariance, mean, covariates)
         return predictor, lines + [LogLine("warning", warning) for warning in predictor.warnings]
-    if support == "cell":
+    if support != "point":
         raise FieldcastError("Cell support is computed from all samples (block kriging); local "
                              "neighbourhoods are for point support. Set NEIGHBOURS to 0, or SUPPORT to point.")
     lines.append(LogLine("info", f"Local kriging: each {per} from its {min(neighbours, count)} nearest "

@@ -49,7 +49,7 @@ from concurrent.futures import ThreadPoolExecutor
 import numpy as np
 from scipy import linalg
 
-from ..errors import Cancelled, FieldcastError
+from ..errors import Cancelled, FieldcastError, FieldcastUsageError
 from ..linalg.condition_policy import CONDITION_ADVICE, reciprocal_condition, usable, warning_text
 from ..model.covariance import CovarianceModel
 from ..model.mean import MeanModel
@@ -424,7 +424,8 @@ class KrigingPredictor:
             variance += column_squared_norms(self._trend_whiten(gap))
         return mean, checked_variance(variance, self.covariance.sill)
 
-    def joint_predict(self, xy0: np.ndarray, covariates0: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:
+    def joint_predict(self, xy0: np.ndarray, covariates0: np.ndarray | None = None, *,
+                      group_size: int | None = None) -> tuple[np.ndarray, np.ndarray]:
         """Kriging mean and full error covariance of the latent field at a few targets (one joint law).
 
         With ``C0`` the (n, m) cross-covariance, ``C00`` the (m, m) latent covariance among the targets
@@ -433,30 +434,40 @@ class KrigingPredictor:
 
             Sigma = C00 - C0^T K^-1 C0 + G^T A^-1 G
 
-        Its diagonal is :meth:`predict`'s variance. Memory is about ``8 (n + m) m`` bytes: for the few
-        hundred points of one polygon, not for a grid.
+        Its diagonal is :meth:`predict`'s variance. With ``group_size = k`` the targets are consecutive
+        groups of ``k`` (the points of one cell each) and only the covariance within each group is formed.
+        Memory is about ``8 (n + m) m`` bytes without groups (``8 (n + k) m`` with them).
 
         Returns
         -------
         mean : ndarray of shape (m,), or (m, fields)
             Prediction (u).
-        covariance : ndarray of shape (m, m)
+        covariance : ndarray of shape (m, m), or (m / k, k, k) with groups
             Error covariance of the latent field (u2), symmetric; its diagonal is never negative.
         """
         targets = as_points(xy0, "Prediction locations")
         covariates0 = target_covariates(covariates0, len(targets))
+        size = len(targets) if group_size is None else int(group_size)
+        if size < 1 or len(targets) % size:
+            raise FieldcastUsageError(f"{len(targets)} targets do not split into groups of {group_size}.")
         cross = self.covariance.cross_covariance(self.xy, targets)
         design0 = self.mean.design(targets, covariates0)
         whitened, gap = self._whitened_gap(cross, design0)
         mean = cross.T @ self._alpha + self.mean.known_mean(1)[0]
-        covariance = self.covariance.cross_covariance(targets, targets) - whitened.T @ whitened
+        groups = targets.reshape(-1, size, 2)
+        covariance = self.covariance.covariance_from_offsets(groups[:, :, None, 0] - groups[:, None, :, 0],
+                                                             groups[:, :, None, 1] - groups[:, None, :, 1])
+        whitened = whitened.reshape(self.n, -1, size)
+        covariance = covariance - np.einsum("nga,ngb->gab", whitened, whitened)
         if len(gap):
             mean += design0 @ self.coefficients
-            trend = self._trend_whiten(gap)
-            covariance += trend.T @ trend
-        covariance = (covariance + covariance.T) / 2.0
-        covariance[np.diag_indices_from(covariance)] = checked_variance(np.diag(covariance), self.covariance.sill)
-        return mean, covariance
+            trend = self._trend_whiten(gap).reshape(len(gap), -1, size)
+            covariance += np.einsum("pga,pgb->gab", trend, trend)
+        covariance = (covariance + covariance.transpose(0, 2, 1)) / 2.0
+        on_diagonal = np.arange(size)
+        covariance[:, on_diagonal, on_diagonal] = checked_variance(covariance[:, on_diagonal, on_diagonal],
+                                                                   self.covariance.sill)
+        return mean, covariance[0] if group_size is None else covariance
 
     def weights(self, xy0: np.ndarray, covariates0: np.ndarray | None = None) -> np.ndarray:
         """Kriging weights ``lambda`` with ``mean(x0) = lambda^T y`` (plus the known mean term).

@@ -61,7 +61,7 @@ CHOICES = {
     ("fitmodel", "TREND"): ["constant", "linear", "quadratic"],
     ("fitmodel", "METHOD"): ["reml", "ml", "wls"],
     ("predict", "BACKTRANSFORM"): ["median", "mean"],
-    ("predict", "SUPPORT"): ["point", "cell"],
+    ("predict", "SUPPORT"): ["point", "cell", "cell_log"],
     ("predict", "MAP_AREA"): ["hull", "extent"],
     ("predictmany", "MAP_AREA"): ["hull", "extent"],
     ("predictmany", "TRANSFORM"): ["none", "log"],

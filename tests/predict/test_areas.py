@@ -9,7 +9,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 from osgeo import ogr
-from scipy import linalg, stats
+from scipy import stats
 
 from fieldcast.algorithms.errors import Cancelled, FieldcastError
 from fieldcast.algorithms.io.polygons import discretise_polygon
@@ -18,7 +18,7 @@ from fieldcast.algorithms.model.transform import Transform
 from fieldcast.algorithms.predict import areas
 from fieldcast.algorithms.predict.areas import assess_areas
 from fieldcast.algorithms.predict.kriging import KrigingPredictor
-from reference import MEUSE_LOG_ZINC
+from reference import MEUSE_LOG_ZINC, ordinary_joint_law
 
 REALIZATIONS = 4000
 # An inland unit and one near the river (high zinc) with a hole, in EPSG:28992 metres (built for this test).
@@ -29,20 +29,6 @@ UNITS = ["POLYGON ((179900 331500, 180300 331500, 180300 331900, 179900 331900, 
 
 def wkb(wkt: str) -> bytes:
     return bytes(ogr.CreateGeometryFromWkt(wkt).ExportToWkb())
-
-
-def ordinary_joint_law(xy, y, covariance, points):
-    """Mean and covariance of the latent field at ``points`` given the data, from the Lagrange system."""
-    n = len(xy)
-    system = np.zeros((n + 1, n + 1))
-    system[:n, :n] = covariance.data_covariance(xy)
-    system[:n, n] = system[n, :n] = 1.0
-    right = np.vstack([covariance.cross_covariance(xy, points), np.ones((1, len(points)))])
-    solved = linalg.solve(system, right, assume_a="sym")
-    weights, multipliers = solved[:n], solved[n]
-    mean = weights.T @ y
-    joint = covariance.cross_covariance(points, points) - weights.T @ right[:n] - multipliers[:, None]
-    return mean, (joint + joint.T) / 2.0, weights
 
 
 def cdf_at(sample: np.ndarray, value: float) -> float:
