@@ -106,6 +106,7 @@ _PUBLIC = {
     "SimulationResult": "simulate.simulation",
     "simulate_conditional": "simulate.simulation",
     "summarise_realisations": "simulate.simulation",
+    "polygon_areas_above": "simulate.polygon_areas",
     # io
     "area_words": "io.area_words",
     "Samples": "io.samples",

@@ -5,8 +5,6 @@ import math
 
 import numpy as np
 from qgis.core import (
-    QgsCoordinateReferenceSystem,
-    QgsCoordinateTransform,
     QgsFeature,
     QgsField,
     QgsFields,
@@ -23,6 +21,7 @@ from .destinations import destination_value
 from .field_names import name_limit, result_names
 from .field_types import field_type
 from .help_text import AREA_CAUTIONS, COVARIATE_HELP, MODEL_FILE_HELP, TARGET_CRS_HELP, compose_help
+from .polygon_reader import working_polygons
 from .sinks import checked_sink
 from .whole_numbers import whole_number
 
@@ -137,17 +136,8 @@ class AssessAreasAlgorithm(FieldcastAlgorithm):
             feedback.pushInfo(renamed)
         document, samples = self.model_and_samples(parameters, context, feedback, progress_callback(feedback, 0, 20))
         sources = self.covariate_sources(parameters, context)
-        to_working = QgsCoordinateTransform(source.sourceCrs(), QgsCoordinateReferenceSystem.fromWkt(document.crs_wkt),
-                                            context.transformContext())
-        features, polygons, depths = [], [], []
-        for feature in source.getFeatures():
-            features.append(feature)
-            geometry = feature.geometry()
-            if geometry is None or geometry.isNull() or geometry.isEmpty():
-                continue
-            geometry.transform(to_working)
-            polygons.append((len(features) - 1, bytes(geometry.asWkb())))
-            depths.append(math.nan if depth_of is None else depth_of(feature))
+        features, polygons = working_polygons(source, document.crs_wkt, context)
+        depths = [math.nan if depth_of is None else depth_of(features[index]) for index, _ in polygons]
         covariates_at = None
         if sources:
             def covariates_at(xy):
