@@ -71,6 +71,8 @@ _PUBLIC = {
     "LocalKrigingPredictor": "predict.local",
     "DEFAULT_POINTS_PER_SIDE": "predict.block",
     "block_predict": "predict.block",
+    "AREA_FIELDS": "predict.areas",
+    "assess_areas": "predict.areas",
     "CrossValidation": "predict.crossval",
     "leave_one_out": "predict.crossval",
     "local_leave_one_out": "predict.crossval",
@@ -145,6 +147,7 @@ _PUBLIC = {
     "SimulationResult": "simulate.simulation",
     "simulate_conditional": "simulate.simulation",
     "summarise_realisations": "simulate.simulation",
+    "polygon_areas_above": "simulate.polygon_areas",
     # io
     "area_words": "io.area_words",
     "Region": "io.region",

@@ -63,6 +63,7 @@ from ..algorithms import (
     censoring_summary,
     check_factor,
     decluster,
+    defined_crs,
     fitted_transform,
     impute_censored,
     measurement_variance,
@@ -468,6 +469,17 @@ class FieldcastAlgorithm(QgsProcessingAlgorithm):
                       and self.parameterAsBoolean(parameters, self.LOCAL_MEAN, context))
         return Neighbourhood(whole_number(self.given_value(parameters, self.NEIGHBOURS), "NEIGHBOURS", 0),
                              self.optional_number(parameters, self.SEARCH_RADIUS, context), local_mean)
+
+    def feature_source(self, parameters, name: str, context, empty: str):
+        """The feature source of parameter ``name``, checked: a defined CRS, and refused with ``empty`` when it
+        has no feature."""
+        source = self.parameterAsSource(parameters, name, context)
+        if source is None:
+            raise QgsProcessingException(self.invalidSourceError(parameters, name))
+        defined_crs(crs_wkt(source.sourceCrs()), f"{source.sourceName()} ({name})")
+        if source.featureCount() == 0:
+            raise FieldcastError(empty)
+        return source
 
     def given_value(self, parameters, name: str):
         """The value of parameter ``name`` as given, its default when left out or empty (for :func:`whole_number`)."""

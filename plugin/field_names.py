@@ -34,3 +34,17 @@ def free_names(wanted: Sequence[str], taken: Iterable[str], limit: int | None = 
         used.add(candidate.lower())
         names.append(candidate)
     return names
+
+
+def result_names(field: str, suffixes: Sequence[str], taken: Iterable[str], limit: int | None) -> tuple[list[str], str]:
+    """``<field>_<suffix>`` per suffix, the field part clipped so the suffix survives ``limit``, de-duplicated
+    against ``taken`` by :func:`free_names`; and the log line that says which names changed ("" when none)."""
+    wanted = [f"{field}_{suffix}" for suffix in suffixes]
+    names = free_names([f"{field[:limit - len(suffix) - 1] if limit else field}_{suffix}" for suffix in suffixes],
+                       taken, limit)
+    changed = [f"{old} as {new}" for old, new in zip(wanted, names) if old != new]
+    if not changed:
+        return names, ""
+    reason = f"the output's format holds names of up to {limit} characters, and " if limit else ""
+    return names, (f"Result fields renamed ({reason}names the input layer already has get a number): "
+                   + ", ".join(changed) + ".")

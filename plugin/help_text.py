@@ -20,6 +20,11 @@ DESIGN_CAUTION = (
     "professional judgement on where and how to sample."
 )
 
+AREA_CAUTIONS = (
+    "A per-unit decision is only as good as the model behind it: check the model with 'Cross-validate model' "
+    "first. Access, safety and regulation come first; these probabilities inform, they do not decide."
+)
+
 WORKING_CRS_NOTE = (
     "Distances are measured in a projected working CRS: the layer's own CRS when it is projected; for a "
     "longitude/latitude layer the UTM zone of the data centre, unless you set a target CRS (or a template "
@@ -244,6 +249,8 @@ ALGORITHM_WORDS = {
                  "exceedance"),
     "predictpoints": ("points", "wells", "receptors", "prediction", "variance", "standard error", "exceedance",
                       "threshold", "point layer"),
+    "assessareas": ("polygons", "units", "parcels", "remediation", "block average", "exceedance", "volume",
+                    "threshold"),
     "crossvalidate": ("cross-validation", "leave-one-out", "validation", "residuals", "RMSE", "model check"),
     "proposesamples": ("sampling design", "where to sample", "new samples", "monitoring network", "kriging variance",
                        "misclassification", "threshold"),
@@ -258,6 +265,7 @@ SHORT_DESCRIPTIONS = {
     "crossvalidate": "Checks a kriging model by leave-one-out prediction of the samples.",
     "predictpoints": "Kriges the value, its variance and standard error at the points of a layer, from samples.",
     "proposesamples": "Proposes where to take new samples so as to lower the kriging variance or misclassification.",
+    "assessareas": "Per polygon: the expected average, its uncertainty and the probability it exceeds a limit.",
 }
 """One line per algorithm name, shown in the toolbox tooltip."""
 

@@ -12,7 +12,6 @@ from qgis.core import (
     QgsField,
     QgsFields,
     QgsProcessing,
-    QgsProcessingException,
     QgsProcessingParameterFeatureSink,
     QgsProcessingParameterFeatureSource,
 )
@@ -23,21 +22,19 @@ from ..algorithms import (
     CovariateSet,
     CovariateSource,
     ExtrapolationCheck,
-    FieldcastError,
     ImputedKriging,
     LocalKrigingPredictor,
     SurfaceScale,
     TargetDraw,
     cell_predictor,
     choose_predictor,
-    defined_crs,
     predict_points,
     same_crs,
     transform_points,
 )
 from .algorithm_base import FieldcastAlgorithm, log_spread, progress_callback, push_log
 from .destinations import destination_value
-from .field_names import free_names, name_limit
+from .field_names import name_limit, result_names
 from .field_types import field_type
 from .help_text import (
     BACKTRANSFORM_HELP,
@@ -125,26 +122,15 @@ class PredictPointsAlgorithm(FieldcastAlgorithm):
 
     def targets(self, parameters, context):
         """The TARGETS source, checked: a defined CRS and at least one feature."""
-        source = self.parameterAsSource(parameters, self.TARGETS, context)
-        if source is None:
-            raise QgsProcessingException(self.invalidSourceError(parameters, self.TARGETS))
-        defined_crs(crs_wkt(source.sourceCrs()), f"{source.sourceName()} (TARGETS)")
-        if source.featureCount() == 0:
-            raise FieldcastError("The target layer (TARGETS) is empty. Choose a point layer that holds the places "
-                                 "to predict at.")
-        return source
+        return self.feature_source(parameters, self.TARGETS, context, "The target layer (TARGETS) is empty. Choose a "
+                                   "point layer that holds the places to predict at.")
 
     def result_names(self, parameters, field: str, kinds: list[str], source, feedback) -> list[str]:
         """``<field>_est`` and the others for ``kinds``, clipped and de-duplicated against the target's fields."""
         limit = name_limit(destination_value(parameters.get(self.OUTPUT)))
-        wanted = [f"{field}_{SUFFIXES[kind]}" for kind in kinds]
-        names = free_names([f"{field[:limit - len(SUFFIXES[kind]) - 1] if limit else field}_{SUFFIXES[kind]}"
-                            for kind in kinds], source.fields().names(), limit)
-        changed = [f"{old} as {new}" for old, new in zip(wanted, names) if old != new]
-        if changed:
-            reason = (f"the output's format holds names of up to {limit} characters, and " if limit else "")
-            feedback.pushInfo(f"Result fields renamed ({reason}names the target layer already has get a number): "
-                              + ", ".join(changed) + ".")
+        names, line = result_names(field, [SUFFIXES[kind] for kind in kinds], source.fields().names(), limit)
+        if line:
+            feedback.pushInfo(line)
         return names
 
     def compute(self, parameters, context, feedback) -> dict:

@@ -55,8 +55,12 @@ class PredictSurfaceAlgorithm(SurfaceAlgorithm):
          ("Support", "point (default): the value at each cell centre, for maps of the attribute itself. cell: "
           "the average over each cell (block kriging with 4 x 4 points per cell), for decisions taken per area, "
           "such as whether a cell-sized unit must be remediated. Cell averages are smoother and their variance "
-          "is smaller, because small-scale variation averages out. For a log model the average is taken in the "
-          "log scale. Cell support uses all samples (NEIGHBOURS 0)."),
+          "is smaller, because small-scale variation averages out. For a log model, cell is the arithmetic average "
+          "in the attribute's units (the one remediation decisions use): its exact lognormal expected value and "
+          "variance, with quantiles and exceedance from a lognormal of the same two moments. cell_log: for a log "
+          "model the average of the logs over the cell, back-transformed; it lies below the arithmetic average and "
+          "is for comparison with earlier log-scale work only (without a transform it equals cell). Cell support "
+          "uses all samples (NEIGHBOURS 0)."),
          *NEIGHBOURHOOD_HELP,
          NUGGET_HELP,
          ERROR_VARIANCE_HELP,
@@ -103,8 +107,8 @@ class PredictSurfaceAlgorithm(SurfaceAlgorithm):
         self.add_grid_parameters()
         self.add_map_area_parameters()
         self.add_backtransform_parameter()
-        self.add_choice(self.SUPPORT, self.tr("Support (point = cell centre, cell = cell average)"), SUPPORTS,
-                        "point", expert=True)
+        self.add_choice(self.SUPPORT, self.tr("Support (point = cell centre, cell = cell average, "
+                                              "cell_log = log-scale average)"), SUPPORTS, "point", expert=True)
         self.add_neighbourhood_parameters()
         self.add_measurement_parameters()
         self.add_prediction_target_parameter()

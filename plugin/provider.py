@@ -4,6 +4,7 @@ from __future__ import annotations
 from qgis.core import QgsProcessingProvider
 
 from ..algorithms import __version__
+from .assess_areas import AssessAreasAlgorithm
 from .cross_validate import CrossValidateAlgorithm
 from .fit_model import FitModelAlgorithm
 from .icons import icon, icon_path
@@ -45,5 +46,5 @@ class FieldcastProvider(QgsProcessingProvider):
     def loadAlgorithms(self) -> None:
         for algorithm in (FitModelAlgorithm(), PredictSurfaceAlgorithm(), PredictManyAlgorithm(),
                           PredictPointsAlgorithm(), SimulateAlgorithm(), CrossValidateAlgorithm(),
-                          ProposeSamplesAlgorithm()):
+                          ProposeSamplesAlgorithm(), AssessAreasAlgorithm()):
             self.addAlgorithm(algorithm)

@@ -12,6 +12,7 @@ from qgis.core import (
     QgsProcessing,
     QgsProcessingOutputNumber,
     QgsProcessingParameterFeatureSink,
+    QgsProcessingParameterFeatureSource,
     QgsProcessingParameterNumber,
     QgsProcessingParameterRasterDestination,
     QgsWkbTypes,
@@ -30,6 +31,7 @@ from ..algorithms import (
     SimulationResult,
     area_words,
     covariate_extrapolation,
+    polygon_areas_above,
     refuse_local_covariates,
     search_words,
     simulate_conditional,
@@ -49,6 +51,7 @@ from .help_text import (
     compose_help,
 )
 from .layer_style import style_on_load
+from .polygon_reader import working_polygons
 from .raster_algorithm import RasterAlgorithm
 from .sinks import checked_sink
 from .whole_numbers import whole_number
@@ -75,6 +78,9 @@ class SimulateAlgorithm(RasterAlgorithm):
     """Draw conditional realisations of the field on a grid and summarise them."""
 
     REALIZATIONS = "REALIZATIONS"
+    AREAS = "AREAS"
+    DEPTH = "DEPTH"
+    OUTPUT_AREAS = "OUTPUT_AREAS"
     SEED = "SEED"
     OUTPUT = "OUTPUT"
     OUTPUT_TABLE = "OUTPUT_TABLE"
@@ -109,6 +115,11 @@ class SimulateAlgorithm(RasterAlgorithm):
          NUGGET_HELP,
          ERROR_VARIANCE_HELP,
          THRESHOLD_HELP,
+         ("Polygons for areas", "Optional polygon layer (AREAS: remediation units, parcels, fields; any CRS): with a "
+          "threshold, the area of each polygon above it in every realisation goes to the polygon area table. A "
+          "cell counts for a polygon when its centre lies inside it (holes left out, every part counted)."),
+         ("Depth for volumes", "Optional depth or thickness of every polygon (DEPTH): the table then also gives "
+          "the volume above the threshold (area times depth)."),
          RASTER_TARGET_CRS_HELP],
         [("Realisations", "Multiband Float32 GeoTIFF, one band per realisation, in attribute units (a log model "
           "is simulated in the log scale and back-transformed cell by cell)."),
@@ -122,7 +133,11 @@ class SimulateAlgorithm(RasterAlgorithm):
           "masked cells (attribute units). The spread of the area over the rows is the uncertainty of the area "
           "to act on."),
          ("AREA_P10 / AREA_P50 / AREA_P90", "Percentiles of that area over the realisations (with a threshold); "
-          "the log states them too.")],
+          "the log states them too."),
+         ("Polygon area table", "With AREAS: one row per polygon and realisation (no geometry): the polygon's "
+          "feature id, the realisation's number, the polygon's area above the threshold (CRS units squared) and, "
+          "with DEPTH, the volume above it. The spread over a polygon's rows is the uncertainty of its area to "
+          "act on; a design is only as good as the model, and access, safety and regulation come first.")],
     )
 
     def initAlgorithm(self, config=None):
@@ -155,6 +170,14 @@ class SimulateAlgorithm(RasterAlgorithm):
             createByDefault=True))
         for name, description, _ in AREA_OUTPUTS:
             self.addOutput(QgsProcessingOutputNumber(name, self.tr(description)))
+        self.addParameter(advanced(QgsProcessingParameterFeatureSource(
+            self.AREAS, self.tr("Polygons for areas"), [QgsProcessing.TypeVectorPolygon], optional=True)))
+        self.addParameter(advanced(QgsProcessingParameterNumber(
+            self.DEPTH, self.tr("Depth for volumes"), type=QgsProcessingParameterNumber.Double, optional=True,
+            minValue=0.0)))
+        self.addParameter(QgsProcessingParameterFeatureSink(
+            self.OUTPUT_AREAS, self.tr("Polygon area table"), QgsProcessing.TypeVector, optional=True,
+            createByDefault=False))
 
     def checkParameterValues(self, parameters, context):
         """Refuse REALIZATIONS and SEED outside their ranges with our advice (before Processing's generic message)."""
@@ -183,6 +206,7 @@ class SimulateAlgorithm(RasterAlgorithm):
         if count < 2 and (summaries or wants_table):
             raise FieldcastError(f"Summaries and the realisation table need at least 2 realisations; got {count}. "
                                  "Ask for more realisations (100 is a good start), or only for the realisations.")
+        areas_source = self.polygon_source(parameters, context, threshold)
         document, samples = self.model_and_samples(parameters, context, feedback,
                                                    progress_callback(feedback, 0, SIMULATION_PERCENT[0]), True)
         if samples.sets is not None:
@@ -228,6 +252,9 @@ class SimulateAlgorithm(RasterAlgorithm):
             style_on_load(context, path, samples.field, looks[name], threshold=threshold)
         if wants_table:
             outputs[self.OUTPUT_TABLE] = self.write_table(parameters, context, summary)
+        if areas_source is not None:
+            outputs[self.OUTPUT_AREAS] = self.write_polygon_areas(parameters, context, areas_source, result, grid,
+                                                                  threshold, inside, document.crs_wkt)
         if summary is not None and summary.area_above is not None:
             areas = summary.area_percentiles([percent for _, _, percent in AREA_OUTPUTS])
             outputs.update({name: float(area) for (name, _, _), area in zip(AREA_OUTPUTS, areas)})
@@ -330,6 +357,38 @@ class SimulateAlgorithm(RasterAlgorithm):
             for finished in writers:
                 finished.commit()
 
+    def polygon_source(self, parameters, context, threshold: float | None):
+        """The AREAS source (None when not given), refused without a THRESHOLD or a table to write to."""
+        if parameters.get(self.AREAS) in (None, ""):
+            return None
+        if threshold is None:
+            raise FieldcastError("Areas per polygon (AREAS) are areas above a threshold: set THRESHOLD, or leave "
+                                 "AREAS empty.")
+        if parameters.get(self.OUTPUT_AREAS) in (None, ""):
+            raise FieldcastError("AREAS is set but the polygon area table (OUTPUT_AREAS) is not: choose a file for "
+                                 "OUTPUT_AREAS, or leave AREAS empty.")
+        return self.feature_source(parameters, self.AREAS, context, "The polygon layer (AREAS) is empty. Choose a "
+                                   "layer that holds the units, or leave AREAS empty.")
+
+    def write_polygon_areas(self, parameters, context, source, result: SimulationResult, grid: GridSpec,
+                            threshold: float, inside: np.ndarray | None, working_wkt: str) -> str:
+        """The polygon area table: feature id, realisation, area (and volume) above the threshold, one row each."""
+        features, polygons = working_polygons(source, working_wkt, context)
+        found = polygon_areas_above(result.realisations, grid, [wkb for _, wkb in polygons], threshold,
+                                    depths=self.optional_number(parameters, self.DEPTH, context), mask=inside)
+        fields = QgsFields()
+        for name, kind in (("feature_id", "LongLong"), ("realisation", "Int"), ("area_above", "Double"),
+                           ("volume_above", "Double")):
+            fields.append(QgsField(name, field_type(kind)))
+        with checked_sink(self, parameters, self.OUTPUT_AREAS, context, fields, QgsWkbTypes.NoGeometry,
+                          QgsCoordinateReferenceSystem()) as sink:
+            for row, (index, _) in enumerate(polygons):
+                for number, (area, volume) in enumerate(zip(found.area_above[row], found.volume_above[row]), 1):
+                    feature = QgsFeature(fields)
+                    feature.setAttributes([features[index].id(), number, _number(area), _number(volume)])
+                    sink.add(feature)
+        return sink.destination
+
     def write_table(self, parameters, context, summary: RealisationSummary) -> str:
         """The realisation table: number, area above the threshold and mean over the mask, one row each."""
         fields = QgsFields()
@@ -344,6 +403,10 @@ class SimulateAlgorithm(RasterAlgorithm):
                 feature.setAttributes([index + 1, area, float(mean)])
                 sink.add(feature)
         return sink.destination
+
+
+def _number(value: float) -> float | None:
+    return float(value) if np.isfinite(value) else None
 
 
 def masked(values: np.ndarray, inside: np.ndarray | None) -> np.ndarray:

@@ -201,8 +201,8 @@ class SurfaceAlgorithm(RasterAlgorithm):
         check = ExtrapolationCheck.for_samples(xy, values, document.covariance, document.mean, scale.transform,
                                                [field for field, _ in outputs],
                                                [raster.variance_factor for raster in rasters], sample_covariates)
-        counts = write_surfaces(cell_predictor(predictor, scale.support, grid.pixel_size), grid, inside, scale,
-                                documents[0].crs_wkt, rasters, progress, feedback.isCanceled, check,
+        counts = write_surfaces(cell_predictor(predictor, scale.support, grid.pixel_size, scale.transform), grid,
+                                inside, scale, documents[0].crs_wkt, rasters, progress, feedback.isCanceled, check,
                                 outputs[0][1].get("distance", ""), cell_covariates)
         after = (predictor.singular_targets, predictor.ill_conditioned_targets) if local else (0, 0)
         log_unresolved(counts.unresolved, after[0] - before[0], after[1] - before[1], feedback)

@@ -12,7 +12,7 @@ from functools import lru_cache
 from pathlib import Path
 
 import numpy as np
-from scipy import stats
+from scipy import linalg, stats
 
 from fieldcast.algorithms import CovarianceModel, Structure, covariance_factor
 
@@ -154,3 +154,21 @@ def calibrated_coverage_range(n: int, probability: float = 0.999) -> tuple[float
     model: binomial(n, 0.95) quantiles over n (scipy.stats.binom; independence assumed as above)."""
     low, high = stats.binom.ppf([(1.0 - probability) / 2.0, (1.0 + probability) / 2.0], n, 0.95)
     return float(low) / n, float(high) / n
+
+
+def ordinary_joint_law(xy: np.ndarray, y: np.ndarray, covariance: CovarianceModel,
+                       points: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Mean, covariance and weights of the latent field at ``points`` given the data, by ordinary kriging.
+
+    Solved from the ordinary-kriging system with its Lagrange multiplier (Cressie 1993, *Statistics for
+    Spatial Data*, rev. ed., section 3.2), independently of the engine's GLS route.
+    """
+    n = len(xy)
+    system = np.zeros((n + 1, n + 1))
+    system[:n, :n] = covariance.data_covariance(xy)
+    system[:n, n] = system[n, :n] = 1.0
+    right = np.vstack([covariance.cross_covariance(xy, points), np.ones((1, len(points)))])
+    solved = linalg.solve(system, right, assume_a="sym")
+    weights, multipliers = solved[:n], solved[n]
+    joint = covariance.cross_covariance(points, points) - weights.T @ right[:n] - multipliers[:, None]
+    return weights.T @ y, (joint + joint.T) / 2.0, weights

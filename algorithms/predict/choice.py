@@ -174,7 +174,7 @@ def choose_predictor(xy: np.ndarray, values: np.ndarray, covariance: CovarianceM
         lines.append(LogLine("info", f"Kriging from all {count} samples."))
         predictor = KrigingPredictor(xy, values, covariance, mean, covariates, error_variance)
         return predictor, lines + [LogLine("warning", warning) for warning in predictor.warnings]
-    if support == "cell":
+    if support != "point":
         raise FieldcastError("Cell support is computed from all samples (block kriging); local "
                              "neighbourhoods are for point support. Set NEIGHBOURS to 0, or SUPPORT to point.")
     options, words = local_trend_options(xy, values, covariance, mean, covariates, local_mean, error_variance)

@@ -23,14 +23,17 @@ from ..io.grid import GridSpec
 from ..io.nodata_counts import NodataCounts, unwritable
 from ..io.staging import staged_together
 from ..model.transform import HERMITE_ORDER, Transform
-from .block import DEFAULT_POINTS_PER_SIDE, block_predict
+from .block import DEFAULT_POINTS_PER_SIDE, arithmetic_block_predict, block_predict
 from .exceedance import exceedance_probability
 from .extrapolation import ExtrapolationCheck
 from .kriging import KrigingPredictor
 from .local import LocalKrigingPredictor
 
 BACKTRANSFORMS = ("median", "mean")
-SUPPORTS = ("point", "cell")
+SUPPORTS = ("point", "cell", "cell_log")
+"""Point (cell centre), cell (the cell's arithmetic average in attribute units; for a log model the exact
+lognormal mean of the average, :func:`.block.arithmetic_block_predict`) and cell_log (a log model's average
+taken in the log scale, :func:`.block.block_predict`; the same as cell without a transform)."""
 SURFACE_KINDS = ("prediction", "variance", "sd", "lower", "upper", "exceedance")
 """The rasters :func:`write_surfaces` can write, in band-description order."""
 BLOCK_CELLS = 1 << 20
@@ -45,11 +48,16 @@ mean's covariate columns at the centres) is passed only when the mean names cova
 
 
 def cell_predictor(predictor: KrigingPredictor | LocalKrigingPredictor, support: str = "point",
-                   pixel_size: float = 0.0) -> CellPredictor:
+                   pixel_size: float = 0.0, transform: Transform | None = None) -> CellPredictor:
     """Kriging at cell centres or other points (``support == "point"``) or of cell averages of side
-    ``pixel_size`` (``"cell"``, block kriging; global :class:`KrigingPredictor` only; a cell's covariate columns
-    stand for their average over the cell)."""
-    if support == "cell":
+    ``pixel_size`` (``"cell"`` and ``"cell_log"``, block kriging; global :class:`KrigingPredictor` only; a cell's
+    covariate columns stand for their average over the cell). ``"cell"`` with a log ``transform`` gives the log-scale
+    equivalents of the arithmetic average (:func:`.block.arithmetic_block_predict`)."""
+    if support == "cell" and transform is not None and transform.kind == "log":
+        def predict(centres, progress, should_stop, covariates0=None):
+            return arithmetic_block_predict(predictor, centres, pixel_size, covariates0, progress=progress,
+                                            should_stop=should_stop)
+    elif support in ("cell", "cell_log"):
         def predict(centres, progress, should_stop, covariates0=None):
             return block_predict(predictor, centres, pixel_size, covariates0, progress=progress,
                                  should_stop=should_stop)
@@ -150,8 +158,12 @@ class SurfaceScale:
 
     def descriptions(self, field: str) -> dict[str, str]:
         """Band descriptions of the rasters of :data:`SURFACE_KINDS`."""
-        where = "at the cell centre" if self.support == "point" else \
-            f"average over the cell (block kriging, {DEFAULT_POINTS_PER_SIDE} x {DEFAULT_POINTS_PER_SIDE} points)"
+        points = f"{DEFAULT_POINTS_PER_SIDE} x {DEFAULT_POINTS_PER_SIDE} points"
+        arithmetic = self.support == "cell" and self.transform.kind == "log"
+        where = "at the cell centre" if self.support == "point" else f"average over the cell (block kriging, {points})"
+        in_log = (f"arithmetic average over the cell in attribute units ({points}; exact lognormal mean and "
+                  "variance, moment-matched lognormal for quantiles and exceedance)") if arithmetic else \
+            f"{where} in the log scale"
         exceedance = (f"probability that {field} ({where}) exceeds {self.threshold:g} attribute units, under the "
                       "Gaussian model of the kriging mean and variance" if self.threshold is not None else "")
         low, high = self.quantile_words()
@@ -170,13 +182,13 @@ class SurfaceScale:
         offset = self.transform.offset
         formula = "exp(mu) - offset" if self.backtransform == "median" else "exp(mu + s2/2) - offset"
         quantile = (f"{{}} quantile of {field} (attribute units; lognormal predictive distribution: exp(mu {{}} z s) "
-                    f"- offset, offset {offset:g}; {where} in the log scale)")
+                    f"- offset, offset {offset:g}; {in_log})")
         return band_words(f"prediction of {field} (attribute units; log model back-transformed to the "
-                          f"{self.backtransform}: {formula}, offset {offset:g}; {where} in the log scale)",
+                          f"{self.backtransform}: {formula}, offset {offset:g}; {in_log})",
                           f"variance of {field} (attribute units squared; lognormal: exp(2 mu + s2) (exp(s2) - 1), "
-                          f"{self.variance_words}; {where} in the log scale)",
+                          f"{self.variance_words}; {in_log})",
                           f"standard error of {field} (attribute units; lognormal: exp(mu + s2/2) sqrt(exp(s2) - 1), "
-                          f"{self.variance_words}; {where} in the log scale)",
+                          f"{self.variance_words}; {in_log})",
                           (quantile.format(low, "-"), quantile.format(high, "+")),
                           exceedance + (" (threshold log-transformed like the data)" if exceedance else ""))
 

@@ -326,15 +326,15 @@ def test_cell_support_with_covariates_is_block_kriging_with_the_cell_values(qgis
     path = folder / "zinc_blocks.tif"
     qgis_processing.run("fieldcast:predict", {
         "INPUT": samples, "FIELD": "zinc", "MODEL": model, "COVARIATES": [dist], "CLASS_COVARIATES": [ffreq],
-        "TEMPLATE": dist, "TEMPLATE_NODATA_MASK": False, "MAP_AREA": "extent", "SUPPORT": "cell",
+        "TEMPLATE": dist, "TEMPLATE_NODATA_MASK": False, "MAP_AREA": "extent", "SUPPORT": "cell_log",
         "OUTPUT": str(path), "OUTPUT_VARIANCE": "", "OUTPUT_SD": ""})
     prediction, centres = band(path), template_centres(path)
     on_grid, cell_columns = published_cells(centres, meuse_grid)
     document = ModelDocument.load(model)
     xy, values, read = read_samples(meuse, dist, ffreq)
     predictor = KrigingPredictor(xy, values, document.covariance, document.mean, read.columns)
-    # Block kriging (Journel & Huijbregts 1978) of the cell average, the covariates' cell values standing for
-    # their average over the cell (the output cells are the covariate raster's own cells here).
+    # Block kriging (Journel & Huijbregts 1978) of the log-scale cell average (cell_log), the covariates' cell
+    # values standing for their average over the cell (the output cells are the covariate raster's own cells here).
     mean, _ = block_predict(predictor, centres[on_grid][::50], 40.0, cell_columns[::50])
     np.testing.assert_array_equal(np.isfinite(prediction), on_grid)
     np.testing.assert_allclose(prediction[on_grid][::50], np.exp(mean), rtol=1e-5)

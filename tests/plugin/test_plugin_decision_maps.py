@@ -23,7 +23,7 @@ from scipy.spatial import cKDTree
 
 from fieldcast.algorithms.io.grid import GridSpec
 from fieldcast.algorithms.io.model_file import ModelDocument
-from fieldcast.algorithms.predict.block import block_predict
+from fieldcast.algorithms.predict.block import arithmetic_block_predict, block_predict
 from fieldcast.algorithms.predict.kriging import KrigingPredictor
 from qgis_support import fieldcast_plugin, point_layer, qgis_processing  # noqa: F401 - fixtures
 from test_plugin_meuse import MEUSE_GRID_EXTENT, band, cell_centres
@@ -95,7 +95,8 @@ def predicted(processing, parameters: dict, folder, support: str) -> dict[str, n
 def point_and_cell(qgis_processing, meuse, meuse_grid, zinc_model, tmp_path_factory) -> dict:  # noqa: F811
     folder = tmp_path_factory.mktemp("decision-maps")
     parameters = grid_parameters(meuse, meuse_grid, zinc_model)
-    return {support: predicted(qgis_processing, parameters, folder, support) for support in ("point", "cell")}
+    return {support: predicted(qgis_processing, parameters, folder, support)
+            for support in ("point", "cell", "cell_log")}
 
 
 def engine_predictor(meuse, model_path: str) -> KrigingPredictor:
@@ -129,11 +130,11 @@ def test_exceedance_is_high_along_the_river_and_low_far_from_it(point_and_cell, 
     assert np.mean(near) > 0.5 and np.mean(far) < 0.1
 
 
-def test_cell_support_is_block_kriging_of_the_cell_average(point_and_cell, meuse, zinc_model):
+def test_log_scale_cell_support_is_block_kriging_of_the_cell_average(point_and_cell, meuse, zinc_model):
     # Block kriging of the cell average (Journel & Huijbregts 1978, Mining Geostatistics): the engine's
     # block_predict is the reference for the numbers (tests/test_block_kriging.py checks it against
     # scikit-learn); here the plugin must write its mean, lognormal variance and exceedance.
-    point, cell = point_and_cell["point"], point_and_cell["cell"]
+    point, cell = point_and_cell["point"], point_and_cell["cell_log"]
     inside = np.isfinite(cell["OUTPUT"])
     assert np.array_equal(inside, np.isfinite(point["OUTPUT"]))
     centres = cell["centres"][inside]
@@ -144,6 +145,20 @@ def test_cell_support_is_block_kriging_of_the_cell_average(point_and_cell, meuse
     expected = stats.norm.sf(np.log(ZINC_THRESHOLD), loc=mu, scale=np.sqrt(s2))
     np.testing.assert_allclose(cell["OUTPUT_EXCEEDANCE"][inside], expected, atol=1e-6)
     assert np.max(np.abs(cell["OUTPUT"][inside] / point["OUTPUT"][inside] - 1.0)) > 1e-3
+
+
+def test_cell_support_of_a_log_model_writes_the_arithmetic_cell_average(point_and_cell, meuse, zinc_model):
+    # arithmetic_block_predict is the reference for the numbers (tests/predict/test_arithmetic_block.py checks it
+    # against fine conditional simulations); the default median back-transform gives exp(mu) of its moment-matched
+    # lognormal, the variance is the exact variance of the arithmetic average (Aitchison & Brown 1957).
+    cell, log_scale = point_and_cell["cell"], point_and_cell["cell_log"]
+    inside = np.isfinite(cell["OUTPUT"])
+    mu, s2 = arithmetic_block_predict(engine_predictor(meuse, zinc_model), cell["centres"][inside], COARSE_CELL)
+    np.testing.assert_allclose(cell["OUTPUT"][inside], np.exp(mu), rtol=2e-6)
+    np.testing.assert_allclose(cell["OUTPUT_VARIANCE"][inside], np.exp(2 * mu + s2) * np.expm1(s2), rtol=1e-5)
+    expected = stats.norm.sf(np.log(ZINC_THRESHOLD), loc=mu, scale=np.sqrt(s2))
+    np.testing.assert_allclose(cell["OUTPUT_EXCEEDANCE"][inside], expected, atol=1e-6)
+    assert np.mean(cell["OUTPUT"][inside]) > np.mean(log_scale["OUTPUT"][inside])
 
 
 def test_cell_average_variance_is_below_the_point_variance_away_from_samples(point_and_cell, meuse):

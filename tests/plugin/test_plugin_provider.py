@@ -37,14 +37,18 @@ CONTRACT = {
                       {"INPUT", "FIELD", "MODEL", "COVARIATES", "CLASS_COVARIATES", "TARGETS", "THRESHOLD",
                        "BACKTRANSFORM", "NEIGHBOURS", "SEARCH_RADIUS", "TARGET_CRS", "OUTPUT"},
                       {"OUTPUT"}),
+    "assessareas": ("Assess areas",
+                    {"INPUT", "FIELD", "MODEL", "COVARIATES", "CLASS_COVARIATES", "AREAS", "THRESHOLD", "REALIZATIONS",
+                     "SEED", "DEPTH_FIELD", "DEPTH", "TARGET_CRS", "OUTPUT"},
+                    {"OUTPUT"}),
     "simulate": ("Simulate conditional fields",
                  {"INPUT", "FIELD", "MODEL", "COVARIATES", "CLASS_COVARIATES", "TEMPLATE", "EXTENT", "PIXEL_SIZE",
                   "MASK", "TEMPLATE_NODATA_MASK",
                   "REALIZATIONS", "SEED", "NEIGHBOURS",
                   "SEARCH_RADIUS", "THRESHOLD", "TARGET_CRS", "OUTPUT", "OUTPUT_MEAN", "OUTPUT_STDDEV",
-                  "OUTPUT_EXCEEDANCE", "OUTPUT_P10", "OUTPUT_P90", "OUTPUT_TABLE"},
+                  "OUTPUT_EXCEEDANCE", "OUTPUT_P10", "OUTPUT_P90", "OUTPUT_TABLE", "AREAS", "DEPTH", "OUTPUT_AREAS"},
                  {"OUTPUT", "OUTPUT_MEAN", "OUTPUT_STDDEV", "OUTPUT_EXCEEDANCE", "OUTPUT_P10", "OUTPUT_P90",
-                  "OUTPUT_TABLE", "AREA_P10", "AREA_P50", "AREA_P90"}),
+                  "OUTPUT_TABLE", "AREA_P10", "AREA_P50", "AREA_P90", "OUTPUT_AREAS"}),
     "proposesamples": ("Propose new samples",
                        {"INPUT", "FIELD", "MODEL", "COVARIATES", "CLASS_COVARIATES", "REGION", "COUNT", "CANDIDATES",
                         "MIN_SPACING", "CRITERION", "THRESHOLD", "TARGET_CRS", "OUTPUT"},
@@ -61,7 +65,7 @@ CHOICES = {
     ("fitmodel", "TREND"): ["constant", "linear", "quadratic"],
     ("fitmodel", "METHOD"): ["reml", "ml", "wls"],
     ("predict", "BACKTRANSFORM"): ["median", "mean"],
-    ("predict", "SUPPORT"): ["point", "cell"],
+    ("predict", "SUPPORT"): ["point", "cell", "cell_log"],
     ("predict", "MAP_AREA"): ["hull", "extent"],
     ("predictmany", "MAP_AREA"): ["hull", "extent"],
     ("predictmany", "TRANSFORM"): ["none", "log", "boxcox", "normalscore"],
@@ -101,7 +105,7 @@ def test_metadata_names_every_algorithm_in_about_and_changelog():
         assert f'"{display}"' in general["about"] and display in general["changelog"], display
 
 
-def test_class_factory_registers_the_provider_with_six_algorithms(fieldcast_plugin):  # noqa: F811
+def test_class_factory_registers_the_provider_with_seven_algorithms(fieldcast_plugin):  # noqa: F811
     provider = QgsApplication.processingRegistry().providerById("fieldcast")
     assert provider is not None and provider.name() == "Fieldcast"
     assert sorted(a.name() for a in provider.algorithms()) == sorted(CONTRACT)
