@@ -24,7 +24,7 @@ inside the exact one by at most ``margin * (1 - cos(pi / 128))``, 0.03 % of the 
 
 
 @contextmanager
-def _quiet_gdal() -> Iterator[None]:
+def quiet_gdal() -> Iterator[None]:
     """Keep GDAL from printing; failures are reported through FieldcastError instead."""
     gdal.PushErrorHandler("CPLQuietErrorHandler")
     try:
@@ -35,7 +35,7 @@ def _quiet_gdal() -> Iterator[None]:
 
 def _geometry(shape: bytes | str, position: int) -> ogr.Geometry:
     """An OGR geometry from WKB bytes or WKT text; FieldcastError when unreadable or not a polygon."""
-    with _quiet_gdal():
+    with quiet_gdal():
         if isinstance(shape, (bytes, bytearray, memoryview)):
             geometry = ogr.CreateGeometryFromWkb(bytes(shape))
         else:
@@ -75,7 +75,7 @@ def cell_mask(grid: GridSpec, geometries: Sequence[bytes | str]) -> np.ndarray:
         feature.SetGeometry(shape)
         layer.CreateFeature(feature)
     # Neither side carries a CRS (the caller guarantees they match), which GDAL would warn about.
-    with _quiet_gdal():
+    with quiet_gdal():
         status = gdal.RasterizeLayer(raster, [1], layer, burn_values=[1])
     if status != 0:
         raise FieldcastError(f"GDAL could not rasterise the mask polygons: {gdal.GetLastErrorMsg()}.")
@@ -124,7 +124,7 @@ def hull_mask(grid: GridSpec, xy: np.ndarray, margin: float | None = None) -> tu
         point = ogr.Geometry(ogr.wkbPoint)
         point.AddPoint_2D(float(x), float(y))
         points.AddGeometry(point)
-    with _quiet_gdal():
+    with quiet_gdal():
         area = points.ConvexHull()
         if margin > 0:
             area = area.Buffer(margin, ARC_SEGMENTS)

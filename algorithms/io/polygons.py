@@ -19,6 +19,7 @@ import numpy as np
 from osgeo import ogr
 
 from ..errors import FieldcastError
+from .mask import quiet_gdal
 
 TARGET_POINTS = 64
 """Discretisation points per polygon with the adaptive spacing (8 x 8 over a square unit, common practice
@@ -26,8 +27,6 @@ for block averages is 4 x 4 to 10 x 10)."""
 
 MAX_POINTS = 400
 """Most discretisation points kept per polygon (a fixed fine spacing over a large unit is thinned evenly)."""
-
-ogr.UseExceptions()
 
 
 @dataclass(frozen=True)
@@ -54,10 +53,11 @@ class PolygonPoints:
 
 def polygon_geometry(wkb: bytes, what: str) -> ogr.Geometry:
     """A polygon or multipolygon geometry from WKB, refused with a message naming ``what`` otherwise."""
-    try:
-        geometry = ogr.CreateGeometryFromWkb(bytes(wkb))
-    except RuntimeError:
-        geometry = None
+    with quiet_gdal():  # GDAL's exception mode is the host's (QGIS's) choice: read None as unreadable
+        try:
+            geometry = ogr.CreateGeometryFromWkb(bytes(wkb))
+        except RuntimeError:
+            geometry = None
     if geometry is None or geometry.IsEmpty():
         raise FieldcastError(f"{what} has no readable polygon geometry; fix or remove it (e.g. with 'Fix "
                              "geometries' or 'Remove null geometries').")

@@ -15,7 +15,7 @@ from osgeo import ogr
 
 from ..errors import FieldcastError
 from .grid import GridSpec
-from .mask import POLYGON_TYPES, _quiet_gdal, cell_mask
+from .mask import POLYGON_TYPES, cell_mask, quiet_gdal
 
 
 @dataclass(frozen=True)
@@ -44,13 +44,13 @@ class Region:
                                  "polygon layer that outlines where new samples may go.")
         union = None
         for position, shape in enumerate(shapes):
-            with _quiet_gdal():
+            with quiet_gdal():
                 geometry = (ogr.CreateGeometryFromWkb(bytes(shape)) if isinstance(shape, (bytes, bytearray))
                             else ogr.CreateGeometryFromWkt(str(shape)))
             if geometry is None or ogr.GT_Flatten(geometry.GetGeometryType()) not in POLYGON_TYPES:
                 raise FieldcastError(f"Geometry {position + 1} of {name} is no readable polygon. Use a polygon "
                                      "layer, repaired first with 'Fix geometries' if needed.")
-            with _quiet_gdal():
+            with quiet_gdal():
                 union = geometry if union is None else union.Union(geometry)
         area = 0.0 if union is None or union.IsEmpty() else float(union.GetArea())
         if not area > 0 or ogr.GT_Flatten(union.GetGeometryType()) not in POLYGON_TYPES:
