@@ -19,7 +19,7 @@ from fieldcast.algorithms.io.polygons import discretise_polygon
 from fieldcast.algorithms.model.mean import MeanModel
 from fieldcast.algorithms.model.transform import Transform
 from fieldcast.algorithms.predict.areas import assess_areas
-from reference import MEUSE_LOG_ZINC
+from reference import MEUSE_LOG_ZINC, ordinary_joint_law
 
 # An inland unit and one near the river, in EPSG:28992 metres (built for this test).
 UNITS = ["POLYGON ((179900 331500, 180300 331500, 180300 331900, 179900 331900, 179900 331500))",
@@ -31,15 +31,8 @@ SETS = 6
 def bordered_block(xy, y, points, diagonal):
     """Mean and variance of the average over ``points`` by ordinary kriging with ``diagonal`` added to the samples'
     covariance (nugget included), from the bordered system solved directly (Cressie 1993, sections 3.2, 5.2)."""
-    model, n = MEUSE_LOG_ZINC, len(xy)
-    system = np.ones((n + 1, n + 1))
-    system[:n, :n] = model.cross_covariance(xy, xy) + np.diag(model.nugget + diagonal)
-    system[n, n] = 0.0
-    right = np.vstack([model.cross_covariance(xy, points), np.ones((1, len(points)))])
-    solved = np.linalg.solve(system, right)
-    weights, multipliers = solved[:n], solved[n]
-    joint = model.cross_covariance(points, points) - weights.T @ right[:n] - multipliers[:, None]
-    return float(np.mean(weights.T @ y)), float(np.mean(joint))
+    mu, joint, _ = ordinary_joint_law(xy, y, MEUSE_LOG_ZINC, points, diagonal)
+    return float(np.mean(mu)), float(np.mean(joint))
 
 
 @pytest.fixture(scope="module")
