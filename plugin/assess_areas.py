@@ -16,11 +16,20 @@ from qgis.core import (
 )
 
 from ..algorithms import AREA_FIELDS, FieldcastError, assess_areas, linear_units
-from .algorithm_base import FieldcastAlgorithm, advanced, progress_callback, push_log
+from .algorithm_base import FieldcastAlgorithm, advanced, log_spread, progress_callback, push_log
 from .destinations import destination_value
 from .field_names import name_limit, result_names
 from .field_types import field_type
-from .help_text import AREA_CAUTIONS, COVARIATE_HELP, MODEL_FILE_HELP, TARGET_CRS_HELP, compose_help
+from .help_text import (
+    AREA_CAUTIONS,
+    COVARIATE_HELP,
+    ERROR_VARIANCE_HELP,
+    MODEL_FILE_HELP,
+    NONDETECT_HELP,
+    NUGGET_HELP,
+    TARGET_CRS_HELP,
+    compose_help,
+)
 from .polygon_reader import working_polygons
 from .sinks import checked_sink
 from .whole_numbers import whole_number
@@ -52,6 +61,7 @@ class AssessAreasAlgorithm(FieldcastAlgorithm):
         [("Sample points / Value field", "The samples to predict from (the same kind the model was fitted to)."),
          MODEL_FILE_HELP,
          *COVARIATE_HELP,
+         *NONDETECT_HELP,
          ("Polygons to assess", "Polygon layer of the units (AREAS), in any CRS: polygons are reprojected to the "
           "working CRS; holes and multipart polygons are respected. Each is covered by about 64 regular points "
           "(spacing sqrt(area / 64), at most 400 points; the log states the spacings). A polygon too small or thin "
@@ -64,6 +74,8 @@ class AssessAreasAlgorithm(FieldcastAlgorithm):
          ("Depth field", "Optional field of the polygon layer with each unit's depth or thickness, for volumes "
           "(depth units times the working CRS's area units)."),
          ("Depth", "Optional constant depth or thickness for every unit, instead of a depth field."),
+         NUGGET_HELP,
+         ERROR_VARIANCE_HELP,
          TARGET_CRS_HELP],
         [("Assessed areas", "A copy of the polygon layer (its geometry, CRS and every field) with, for the value "
           "field FIELD: FIELD_mean, the expected arithmetic average over the polygon in attribute units (for a log "
@@ -81,6 +93,7 @@ class AssessAreasAlgorithm(FieldcastAlgorithm):
         self.add_sample_parameters()
         self.add_model_parameter()
         self.add_covariate_parameters()
+        self.add_nondetect_parameters()
         self.addParameter(QgsProcessingParameterFeatureSource(
             self.AREAS, self.tr("Polygons to assess"), [QgsProcessing.TypeVectorPolygon]))
         self.addParameter(QgsProcessingParameterNumber(
@@ -97,6 +110,7 @@ class AssessAreasAlgorithm(FieldcastAlgorithm):
             type=QgsProcessingParameterField.Numeric, optional=True))
         self.addParameter(QgsProcessingParameterNumber(
             self.DEPTH, self.tr("Depth"), type=QgsProcessingParameterNumber.Double, optional=True, minValue=0.0))
+        self.add_measurement_parameters()
         self.add_target_crs_parameter()
         self.addParameter(QgsProcessingParameterFeatureSink(
             self.OUTPUT, self.tr("Assessed areas"), QgsProcessing.TypeVectorPolygon))
@@ -134,7 +148,10 @@ class AssessAreasAlgorithm(FieldcastAlgorithm):
                                       name_limit(destination_value(parameters.get(self.OUTPUT))))
         if renamed:
             feedback.pushInfo(renamed)
-        document, samples = self.model_and_samples(parameters, context, feedback, progress_callback(feedback, 0, 20))
+        document, samples = self.model_and_samples(parameters, context, feedback, progress_callback(feedback, 0, 20),
+                                                   spread_included=True)
+        if samples.sets is not None:
+            log_spread(feedback, True)
         sources = self.covariate_sources(parameters, context)
         features, polygons = working_polygons(source, document.crs_wkt, context)
         depths = [math.nan if depth_of is None else depth_of(features[index]) for index, _ in polygons]
@@ -145,8 +162,8 @@ class AssessAreasAlgorithm(FieldcastAlgorithm):
         result = assess_areas(
             samples.xy, samples.values, document.covariance, document.mean, document.transform,
             [wkb for _, wkb in polygons], threshold, realisations=count, seed=seed, depths=np.array(depths),
-            covariates=samples.covariates,
-            covariates_at=covariates_at,
+            covariates=samples.covariates, covariates_at=covariates_at, error_variance=samples.error_variance,
+            value_sets=samples.sets,
             progress=progress_callback(feedback, 20, 90), should_stop=feedback.isCanceled)
         push_log(feedback, result.log_lines(linear_units(document.crs_wkt)))
         rows = {index: position for position, (index, _) in enumerate(polygons)}

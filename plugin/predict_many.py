@@ -13,6 +13,7 @@ from qgis.core import (
     QgsProcessingParameterField,
     QgsProcessingParameterFolderDestination,
 )
+from qgis.PyQt.QtCore import QVariant
 
 from ..algorithms import (
     Cancelled,
@@ -88,7 +89,8 @@ class PredictManyAlgorithm(SurfaceAlgorithm):
         "per field, in one run: fields sampled at the same locations share the grid and mask, and with one "
         "correlation model for all fields also the kriging systems.",
         [("Sample points", "The point layer."),
-         ("Value fields", "One or more numeric attributes. Each field's NULL values are skipped "
+         ("Value fields", "One or more numeric attributes, or text ones holding numbers and limits such as \"<0.5\" "
+          "(read as values below that limit; the log counts them per field). Each field's NULL values are skipped "
           "separately, so the fields may have different samples; samples at one location are averaged."),
          *COVARIATE_HELP,
          *NONDETECT_HELP,
@@ -124,7 +126,7 @@ class PredictManyAlgorithm(SurfaceAlgorithm):
         self.add_input_parameter()
         self.addParameter(QgsProcessingParameterField(
             self.FIELDS, self.tr("Value fields"), parentLayerParameterName=self.INPUT,
-            type=QgsProcessingParameterField.Numeric, allowMultiple=True))
+            type=QgsProcessingParameterField.Any, allowMultiple=True))
         self.add_covariate_parameters()
         self.add_nondetect_parameters()
         self.add_fit_parameters()
@@ -179,16 +181,18 @@ class PredictManyAlgorithm(SurfaceAlgorithm):
         return folder
 
     def chosen_fields(self, parameters, context, source) -> list[str]:
-        """FIELDS without repeats (never empty: see :meth:`checkParameterValues`), each checked to be numeric."""
+        """FIELDS without repeats (never empty: see :meth:`checkParameterValues`), each checked to be numeric or
+        text (numbers and "<x" limits, read by ``read_layer_samples``)."""
         fields = list(dict.fromkeys(self.parameterAsFields(parameters, self.FIELDS, context)))
         for field in fields:
             index = source.fields().lookupField(field)
             if index < 0:
                 raise FieldcastError(f"The sample layer has no field {field!r}; choose among its numeric fields.")
-            if not source.fields().at(index).isNumeric():
-                raise FieldcastError(f"Field {field!r} holds {source.fields().at(index).typeName()} values, not "
-                                     "numbers. Leave it out of 'Value fields', or make a numeric copy with the "
-                                     "Field calculator (e.g. to_real(\"field\")).")
+            definition = source.fields().at(index)
+            if not (definition.isNumeric() or definition.type() == QVariant.String):
+                raise FieldcastError(f"Field {field!r} holds {definition.typeName()} values, not numbers or text "
+                                     "such as \"<0.5\". Leave it out of 'Value fields', or make a numeric copy "
+                                     "with the Field calculator (e.g. to_real(\"field\")).")
         return fields
 
     def compute(self, parameters, context, feedback) -> dict:

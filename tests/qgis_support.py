@@ -124,3 +124,15 @@ class Log(QgsProcessingFeedback):
     def pushWarning(self, warning: str) -> None:
         self.lines.append(warning)
         super().pushWarning(warning)
+
+
+def polygon_layer(wkts: list[str], crs: str | None = "EPSG:28992") -> QgsVectorLayer:
+    """A memory polygon layer named "site" holding ``wkts``; ``crs=None`` gives it no CRS."""
+    layer = QgsVectorLayer(f"Polygon?crs={crs or ''}", "site", "memory")
+    features = []
+    for wkt in wkts:
+        feature = QgsFeature()
+        feature.setGeometry(QgsGeometry.fromWkt(wkt))
+        features.append(feature)
+    layer.dataProvider().addFeatures(features)
+    return layer

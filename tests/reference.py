@@ -156,16 +156,17 @@ def calibrated_coverage_range(n: int, probability: float = 0.999) -> tuple[float
     return float(low) / n, float(high) / n
 
 
-def ordinary_joint_law(xy: np.ndarray, y: np.ndarray, covariance: CovarianceModel,
-                       points: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+def ordinary_joint_law(xy: np.ndarray, y: np.ndarray, covariance: CovarianceModel, points: np.ndarray,
+                       error_variance: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Mean, covariance and weights of the latent field at ``points`` given the data, by ordinary kriging.
 
     Solved from the ordinary-kriging system with its Lagrange multiplier (Cressie 1993, *Statistics for
-    Spatial Data*, rev. ed., section 3.2), independently of the engine's GLS route.
+    Spatial Data*, rev. ed., section 3.2), independently of the engine's GLS route; ``error_variance`` (n,), when
+    given, is added to the samples' diagonal beside the nugget.
     """
     n = len(xy)
     system = np.zeros((n + 1, n + 1))
-    system[:n, :n] = covariance.data_covariance(xy)
+    system[:n, :n] = covariance.data_covariance(xy) + np.diag(np.zeros(n) if error_variance is None else error_variance)
     system[:n, n] = system[n, :n] = 1.0
     right = np.vstack([covariance.cross_covariance(xy, points), np.ones((1, len(points)))])
     solved = linalg.solve(system, right, assume_a="sym")

@@ -18,7 +18,12 @@ jointly Gaussian with the kriging mean ``mu`` and error covariance ``S``
 The share of the polygon expected above the threshold is the mean of the points' exceedance
 probabilities; with a depth, the volume above the threshold per draw is ``area * share_r * depth`` and
 its P10/P50/P90 are over the draws. Only the latent field counts (the nugget, measurement error and
-micro-scale variation, averages out over a unit). With more than :data:`GLOBAL_AREA_LIMIT` samples each
+micro-scale variation, averages out over a unit; per-sample measurement-error variances only enter the
+samples' diagonal). With completed data sets of samples below a limit (``value_sets``, m x n) every set is
+kriged with the one factorisation; the polygon's mean is the average of the sets' means and its variance the
+average within-set variance plus ``(1 + 1/m)`` times the variance of the sets' means (Rubin's rules, Rubin
+1987, as :class:`..censored.imputed_kriging.ImputedKriging` does for points), and draw ``r`` is conditioned on
+set ``r mod m``. With more than :data:`GLOBAL_AREA_LIMIT` samples each
 polygon is kriged from the union of the :data:`AREA_NEIGHBOURS` nearest samples of each of its points.
 """
 from __future__ import annotations
@@ -30,6 +35,7 @@ import numpy as np
 from scipy import stats
 from scipy.spatial import cKDTree
 
+from ..censored.imputed_kriging import combine_sets
 from ..errors import Cancelled, FieldcastError
 from ..io.polygons import MAX_POINTS, TARGET_POINTS, PolygonPoints, discretise_polygon
 from ..model.covariance import CovarianceModel
@@ -109,11 +115,13 @@ class _PolygonKriging:
     """Which predictor kriges a polygon: one global predictor, or one from the polygon's nearest samples."""
 
     def __init__(self, xy: np.ndarray, values: np.ndarray, covariance: CovarianceModel, mean: MeanModel,
-                 covariates: np.ndarray | None) -> None:
-        self.xy, self.values, self.covariance, self.mean, self.covariates = xy, values, covariance, mean, covariates
+                 covariates: np.ndarray | None, error_variance: np.ndarray | None) -> None:
+        self.xy, self.values, self.covariance, self.mean = xy, values, covariance, mean
+        self.covariates, self.error_variance = covariates, error_variance
         self.local = len(xy) > GLOBAL_AREA_LIMIT
         self.tree = cKDTree(xy) if self.local else None
-        self.global_predictor = None if self.local else KrigingPredictor(xy, values, covariance, mean, covariates)
+        self.global_predictor = None if self.local else KrigingPredictor(xy, values, covariance, mean, covariates,
+                                                                         error_variance)
 
     def predictor(self, points: np.ndarray) -> KrigingPredictor:
         if not self.local:
@@ -121,7 +129,8 @@ class _PolygonKriging:
         _, nearest = self.tree.query(points, k=min(AREA_NEIGHBOURS, len(self.xy)))
         chosen = np.unique(nearest)
         return KrigingPredictor(self.xy[chosen], self.values[chosen], self.covariance, self.mean,
-                                None if self.covariates is None else self.covariates[chosen])
+                                None if self.covariates is None else self.covariates[chosen],
+                                None if self.error_variance is None else self.error_variance[chosen])
 
 
 def thinned(points: np.ndarray) -> np.ndarray:
@@ -135,19 +144,26 @@ def polygon_average(mu: np.ndarray, joint: np.ndarray, transform: Transform, thr
                     draws: np.ndarray) -> tuple[float, float, float, np.ndarray]:
     """Mean, sd, exceedance probability and P10/P50/P90 of one polygon's arithmetic average (attribute units).
 
-    ``draws`` are the draws of the points' latent field (k, R); used for the log model's probability and
-    percentiles, which have no closed form.
+    ``mu`` holds the kriging means of the points (k, m), one column per completed data set (m = 1 without
+    values below a limit); the set results are combined by Rubin's rules (module docstring). ``draws`` are the
+    draws of the points' latent field (k, R); used for the log model's probability and percentiles, which have
+    no closed form.
     """
     if transform.kind == "none":
-        mean, sd = float(np.mean(mu)), float(np.sqrt(max(np.mean(joint), 0.0)))
+        means = np.mean(mu, axis=0)
+        within = np.array([max(float(np.mean(joint)), 0.0)])
+    else:
+        point_means = np.exp(mu + 0.5 * np.diag(joint)[:, None])
+        means = np.mean(point_means, axis=0) - transform.offset
+        pair_sums = np.einsum("im,jm,ij->m", point_means, point_means, np.expm1(joint))
+        within = np.array([max(float(np.mean(pair_sums)) / len(mu) ** 2, 0.0)])
+    combined, variance = combine_sets(means[None, :], within)
+    mean, sd = float(combined[0]), float(np.sqrt(variance[0]))
+    if transform.kind == "none":
         pexc = float(exceedance_probability(np.array([mean]), np.array([sd * sd]), threshold)[0])
         return mean, sd, pexc, mean + sd * stats.norm.ppf(np.array(PERCENTS) / 100.0)
-    point_means = np.exp(mu + 0.5 * np.diag(joint))
-    mean = float(np.mean(point_means)) - transform.offset
-    variance = float(np.mean(np.outer(point_means, point_means) * np.expm1(joint)))
     averages = np.mean(np.exp(draws), axis=0) - transform.offset
-    return mean, float(np.sqrt(max(variance, 0.0))), float(np.mean(averages > threshold)), \
-        np.percentile(averages, PERCENTS)
+    return mean, sd, float(np.mean(averages > threshold)), np.percentile(averages, PERCENTS)
 
 
 def assess_areas(xy: np.ndarray, values: np.ndarray, covariance: CovarianceModel, mean: MeanModel,
@@ -155,6 +171,7 @@ def assess_areas(xy: np.ndarray, values: np.ndarray, covariance: CovarianceModel
                  seed: int | None = None, depths: np.ndarray | float | None = None,
                  covariates: np.ndarray | None = None,
                  covariates_at: Callable[[np.ndarray], np.ndarray] | None = None, spacing: float | None = None,
+                 error_variance: np.ndarray | None = None, value_sets: np.ndarray | None = None,
                  progress: Callable[[float], None] | None = None,
                  should_stop: Callable[[], bool] | None = None) -> AreaAssessment:
     """Average, spread and exceedance of the attribute over each polygon, and the share and volume above a threshold.
@@ -182,6 +199,12 @@ def assess_areas(xy: np.ndarray, values: np.ndarray, covariance: CovarianceModel
         Design columns at points (k, 2) -> (k, q), NaN where there is no value; needed with covariates.
     spacing : float, optional
         Fixed discretisation spacing (CRS units) instead of the adaptive one.
+    error_variance : ndarray of shape (n,), optional
+        Measurement-error variance of each sample (modelling units squared), added to the samples' diagonal
+        beside the nugget.
+    value_sets : ndarray of shape (m, n), optional
+        Completed data sets of samples below a limit (modelling scale), kriged instead of ``values``; the
+        results combine them by Rubin's rules and draw ``r`` is conditioned on set ``r mod m``.
     progress, should_stop : callable, optional
         Progress per polygon; ``should_stop()`` true raises :class:`Cancelled`.
 
@@ -201,7 +224,8 @@ def assess_areas(xy: np.ndarray, values: np.ndarray, covariance: CovarianceModel
     results = {name: np.full(count, np.nan) for name in AREA_FIELDS}
     centroid_only, points_used, capped = np.zeros(count, dtype=bool), np.zeros(count, dtype=int), 0
     spacings = np.zeros(count)
-    kriging = _PolygonKriging(xy, values, covariance, mean, covariates)
+    columns_kriged = values if value_sets is None else np.atleast_2d(np.asarray(value_sets, dtype=float)).T
+    kriging = _PolygonKriging(xy, columns_kriged, covariance, mean, covariates, error_variance)
     rng = np.random.default_rng(seed)
     level = float(transform.forward(np.array([threshold]))[0]) if threshold + transform.offset > 0 else -np.inf
     for index, wkb in enumerate(polygons):
@@ -221,13 +245,16 @@ def assess_areas(xy: np.ndarray, values: np.ndarray, covariance: CovarianceModel
         if not len(points):
             continue
         mu, joint = kriging.predictor(points).joint_predict(points, columns)
-        draws = mu[:, None] + covariance_factor(joint) @ rng.standard_normal((len(points), int(realisations)))
+        mu = mu.reshape(len(points), -1)
+        conditioning = mu[:, np.arange(int(realisations)) % mu.shape[1]]
+        draws = conditioning + covariance_factor(joint) @ rng.standard_normal((len(points), int(realisations)))
         average = polygon_average(mu, joint, transform, threshold, draws)
         for name, value in zip(("mean", "sd", "pexc"), average[:3]):
             results[name][index] = value
         for percent, value in zip(PERCENTS, average[3]):
             results[f"p{percent:.0f}"][index] = value
-        results["share_above"][index] = float(np.mean(exceedance_probability(mu, np.diag(joint), threshold,
+        point_mean, point_variance = combine_sets(mu, np.diag(joint))
+        results["share_above"][index] = float(np.mean(exceedance_probability(point_mean, point_variance, threshold,
                                                                              transform=transform)))
         if np.isfinite(depth[index]):
             volumes = unit.area * np.mean(draws > level, axis=0) * depth[index]

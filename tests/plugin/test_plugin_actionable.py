@@ -11,9 +11,9 @@ from pathlib import Path
 
 import numpy as np
 import pytest
-from qgis.core import QgsFeature, QgsGeometry, QgsProcessingFeedback, QgsVectorLayer
+from qgis.core import QgsProcessingFeedback
 
-from qgis_support import fieldcast_plugin, point_layer, qgis_processing  # noqa: F401 - fixtures
+from qgis_support import fieldcast_plugin, point_layer, polygon_layer, qgis_processing  # noqa: F401 - fixtures
 from test_plugin_bad_inputs import (  # noqa: F401 - meuse_layer, model_file and run_refused are fixtures
     QUICK_FIT,
     meuse_layer,
@@ -87,18 +87,6 @@ def test_extent_ten_times_the_samples_is_accepted(qgis_processing, meuse, meuse_
 
 
 # --- masks ---------------------------------------------------------------------------------------------------
-
-def polygon_layer(wkts: list[str], crs: str | None = "EPSG:28992") -> QgsVectorLayer:
-    """A memory polygon layer named "site" holding ``wkts``; ``crs=None`` gives it no CRS."""
-    layer = QgsVectorLayer(f"Polygon?crs={crs or ''}", "site", "memory")
-    features = []
-    for wkt in wkts:
-        feature = QgsFeature()
-        feature.setGeometry(QgsGeometry.fromWkt(wkt))
-        features.append(feature)
-    layer.dataProvider().addFeatures(features)
-    return layer
-
 
 MEUSE_SQUARE = "POLYGON((179000 330000, 182000 330000, 182000 334000, 179000 334000, 179000 330000))"
 
