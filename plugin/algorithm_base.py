@@ -137,6 +137,7 @@ class FieldcastAlgorithm(QgsProcessingAlgorithm):
     OUTPUT_REPORT = "OUTPUT_REPORT"
     TRANSFORM = "TRANSFORM"
     LOG_OFFSET = "LOG_OFFSET"
+    LIKELIHOOD_NEIGHBOURS = "LIKELIHOOD_NEIGHBOURS"
     KERNEL = "KERNEL"
     ANISOTROPY = "ANISOTROPY"
     TREND = "TREND"
@@ -284,7 +285,8 @@ class FieldcastAlgorithm(QgsProcessingAlgorithm):
             self.OUTPUT_REPORT, description, self.tr("HTML files (*.html)"), optional=True, createByDefault=True))
 
     def add_fit_parameters(self) -> None:
-        """TRANSFORM, LOG_OFFSET (advanced), KERNEL, ANISOTROPY, TREND and METHOD: the choices of a fit."""
+        """TRANSFORM, LOG_OFFSET (advanced), KERNEL, ANISOTROPY, TREND, METHOD and LIKELIHOOD_NEIGHBOURS (advanced):
+        the choices of a fit."""
         self.add_choice(self.TRANSFORM, self.tr("Transform"), TRANSFORM_KINDS, "none")
         self.addParameter(advanced(QgsProcessingParameterNumber(
             self.LOG_OFFSET, self.tr("Log offset (attribute units)"), type=QgsProcessingParameterNumber.Double,
@@ -293,6 +295,9 @@ class FieldcastAlgorithm(QgsProcessingAlgorithm):
         self.addParameter(QgsProcessingParameterBoolean(self.ANISOTROPY, self.tr("Anisotropy"), defaultValue=True))
         self.add_choice(self.TREND, self.tr("Trend"), TREND_CHOICES, "constant")
         self.add_choice(self.METHOD, self.tr("Fitting method"), FIT_METHODS, "reml")
+        self.addParameter(advanced(QgsProcessingParameterNumber(
+            self.LIKELIHOOD_NEIGHBOURS, self.tr("Likelihood neighbours (above 2,000 samples)"),
+            type=QgsProcessingParameterNumber.Integer, defaultValue=FitOptions().likelihood_neighbours, minValue=1)))
 
     def fit_choices(self, parameters, context) -> tuple[Transform, FitOptions]:
         """The transform and the engine's fit settings chosen with the parameters of :meth:`add_fit_parameters`
@@ -302,7 +307,9 @@ class FieldcastAlgorithm(QgsProcessingAlgorithm):
         settings = FitOptions(kernel=self.choice(parameters, self.KERNEL, context),
                               anisotropy=self.parameterAsBoolean(parameters, self.ANISOTROPY, context),
                               mean=self.choice(parameters, self.TREND, context),
-                              method=self.choice(parameters, self.METHOD, context))
+                              method=self.choice(parameters, self.METHOD, context),
+                              likelihood_neighbours=self.parameterAsInt(parameters, self.LIKELIHOOD_NEIGHBOURS,
+                                                                        context))
         return transform, settings
 
     def add_neighbourhood_parameters(self, per: str = "cell") -> None:

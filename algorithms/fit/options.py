@@ -19,6 +19,7 @@ from ..model.mean import MEAN_KINDS, MeanModel
 from ..model.parameters import ParameterLayout
 from .likelihood import jitter_message
 from .search import MAX_ITERATIONS, SearchProblem
+from .vecchia import DEFAULT_NEIGHBOURS
 
 FIT_METHODS = ("reml", "ml", "wls")
 """Fitting methods: restricted likelihood, full likelihood, weighted least squares on the variogram."""
@@ -176,8 +177,15 @@ class FitOptions:
     units: str = "coordinate units"
     """The coordinates' unit in the words of the fit's warnings (the working CRS's, e.g. ``"metre"``); the
     default for callers that do not know it."""
+    likelihood_neighbours: int = DEFAULT_NEIGHBOURS
+    """Conditioning-set size of the Vecchia likelihood (fits above :data:`.fitting.VECCHIA_THRESHOLD` samples)."""
 
     def __post_init__(self) -> None:
+        count = self.likelihood_neighbours
+        if isinstance(count, bool) or not isinstance(count, (int, np.integer)) or count < 1:
+            raise FieldcastError(f"The likelihood neighbours (LIKELIHOOD_NEIGHBOURS) must be a whole number of 1 or "
+                                 f"more; got {count!r}. Give a positive whole number (default {DEFAULT_NEIGHBOURS}; "
+                                 "more is closer to the exact likelihood and slower).")
         limit = self.max_iterations
         if isinstance(limit, bool) or not isinstance(limit, (int, np.integer)) or limit < 1:
             raise FieldcastError(f"The optimiser's iteration limit must be a whole number of 1 or more; got "
