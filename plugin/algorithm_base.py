@@ -160,6 +160,7 @@ class FieldcastAlgorithm(QgsProcessingAlgorithm):
     TRANSFORM = "TRANSFORM"
     LOG_OFFSET = "LOG_OFFSET"
     BOXCOX_LAMBDA = "BOXCOX_LAMBDA"
+    LIKELIHOOD_NEIGHBOURS = "LIKELIHOOD_NEIGHBOURS"
     KERNEL = "KERNEL"
     ANISOTROPY = "ANISOTROPY"
     TREND = "TREND"
@@ -344,8 +345,8 @@ class FieldcastAlgorithm(QgsProcessingAlgorithm):
             self.OUTPUT_REPORT, description, self.tr("HTML files (*.html)"), optional=True, createByDefault=True))
 
     def add_fit_parameters(self) -> None:
-        """TRANSFORM, LOG_OFFSET and BOXCOX_LAMBDA (advanced), KERNEL, ANISOTROPY, TREND and METHOD: the choices of
-        a fit."""
+        """TRANSFORM, LOG_OFFSET and BOXCOX_LAMBDA (advanced), KERNEL, ANISOTROPY, TREND, METHOD and
+        LIKELIHOOD_NEIGHBOURS (advanced): the choices of a fit."""
         self.add_choice(self.TRANSFORM, self.tr("Transform"), TRANSFORM_KINDS, "none")
         self.addParameter(advanced(QgsProcessingParameterNumber(
             self.LOG_OFFSET, self.tr("Log offset (attribute units)"), type=QgsProcessingParameterNumber.Double,
@@ -357,6 +358,9 @@ class FieldcastAlgorithm(QgsProcessingAlgorithm):
         self.addParameter(QgsProcessingParameterBoolean(self.ANISOTROPY, self.tr("Anisotropy"), defaultValue=True))
         self.add_choice(self.TREND, self.tr("Trend"), TREND_CHOICES, "constant")
         self.add_choice(self.METHOD, self.tr("Fitting method"), FIT_METHODS, "reml")
+        self.addParameter(advanced(QgsProcessingParameterNumber(
+            self.LIKELIHOOD_NEIGHBOURS, self.tr("Likelihood neighbours (above 2,000 samples)"),
+            type=QgsProcessingParameterNumber.Integer, defaultValue=FitOptions().likelihood_neighbours, minValue=1)))
 
     def fit_choices(self, parameters, context) -> tuple[Transform, FitOptions]:
         """The transform and the engine's fit settings chosen with the parameters of :meth:`add_fit_parameters`
@@ -368,7 +372,9 @@ class FieldcastAlgorithm(QgsProcessingAlgorithm):
                               anisotropy=self.parameterAsBoolean(parameters, self.ANISOTROPY, context),
                               mean=self.choice(parameters, self.TREND, context),
                               method=self.choice(parameters, self.METHOD, context),
-                              nugget=self.fixed_nugget(parameters, context))
+                              nugget=self.fixed_nugget(parameters, context),
+                              likelihood_neighbours=self.parameterAsInt(parameters, self.LIKELIHOOD_NEIGHBOURS,
+                                                                        context))
         return transform, settings
 
     # --- measurement error --------------------------------------------------------------------------------

@@ -64,6 +64,10 @@ FIT_HELP = [
     ("Trend", "Mean of the field: constant, or a linear or quadratic surface of the coordinates."),
     ("Fitting method", "reml (restricted maximum likelihood, the default), ml, or wls (weighted least "
      "squares on the empirical semivariogram)."),
+    ("Likelihood neighbours (above 2,000 samples)", "With more than 2,000 samples the likelihood is the Vecchia "
+     "approximation: each sample is conditioned on this many nearest samples earlier in a spread-out (maximin) "
+     "order (default 30). More is closer to the exact likelihood and slower. There, auto also compares one "
+     "structure with a short- plus a long-range pair and keeps the lower AIC."),
 ]
 
 NONDETECT_HELP = [

@@ -37,6 +37,8 @@ def model_words(covariance: CovarianceModel, units: str) -> str:
 def _candidate_words(candidate: CandidateFit, lowest: float, chosen: bool) -> str:
     delta = candidate.aic - lowest
     setting = "anisotropic" if candidate.anisotropy else "isotropic"
+    if len(candidate.covariance.structures) > 1:
+        setting += ", two structures (short and long range)"
     mark = " (chosen)" if chosen else (" (about as well supported)" if delta < CLOSE_AIC else "")
     return f"  {candidate.family}, {setting}: AIC {candidate.aic:.2f}, ΔAIC {delta:.2f}{mark}"
 

@@ -20,6 +20,7 @@ from ..model.mean import MEAN_KINDS, MeanModel
 from ..model.parameters import ParameterLayout
 from .likelihood import jitter_message
 from .search import MAX_ITERATIONS, SearchProblem
+from .vecchia import DEFAULT_NEIGHBOURS
 
 FIT_METHODS = ("reml", "ml", "wls")
 """Fitting methods: restricted likelihood, full likelihood, weighted least squares on the variogram."""
@@ -195,7 +196,16 @@ class FitOptions:
     """The name the per-sample measurement-error variances (the fits' ``error_variance`` argument) go by in the
     model file and the log (the plugin gives the field's)."""
 
+    likelihood_neighbours: int = DEFAULT_NEIGHBOURS
+    """Conditioning-set size of the Vecchia likelihood (fits above :data:`.fitting.VECCHIA_THRESHOLD` samples)."""
+
+
     def __post_init__(self) -> None:
+        count = self.likelihood_neighbours
+        if isinstance(count, bool) or not isinstance(count, (int, np.integer)) or count < 1:
+            raise FieldcastError(f"The likelihood neighbours (LIKELIHOOD_NEIGHBOURS) must be a whole number of 1 or "
+                                 f"more; got {count!r}. Give a positive whole number (default {DEFAULT_NEIGHBOURS}; "
+                                 "more is closer to the exact likelihood and slower).")
         if self.nugget is not None:
             check_variance("fixed nugget (NUGGET)", self.nugget)
             if self.method == "wls":

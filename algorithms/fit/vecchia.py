@@ -28,13 +28,17 @@ are applied to ``K~`` (same constant convention)::
 i.e. REML is the restricted likelihood of the Gaussian model with covariance
 ``K~`` (``log|K~| = sum log d_i``, ``F^T K~^-1 F = R^T Q~^T Q~ R``).
 
-Ordering. Coarse to fine on nested grids (an approximation of the max-min
-ordering that Guinness 2018, *Technometrics* 60(4), 415-429, found to
-sharpen Vecchia approximations; reference from memory): level ``l`` lays a
-``2^l x 2^l`` grid over the bounding square and adds, from every cell that holds no point yet, the
-remaining point nearest the cell centre; the points of a level are shuffled
-(fixed seed). Every point thus comes after a coarse cover of the region, so
-its previous neighbours surround it. Costs ``O(n log n)``.
+Ordering. Exact maximin (Guinness 2018, *Technometrics* 60(4), 415-429, who
+found it gives markedly better approximations than coordinate or random
+orderings): the first sample is the one nearest the centroid, and each next
+one is the remaining sample farthest from all samples placed so far. Every
+sample thus comes after a cover of the region at its own spacing, so its
+previous neighbours surround it and some lie far away (they carry the long
+scales). Computed with a max-heap of each remaining sample's distance to the
+placed set, updated lazily: when sample ``i`` is placed at distance ``l_i``,
+only samples within ``l_i`` of it can get closer, and a k-d tree finds them.
+About ``O(n log^2 n)`` (``l_k`` falls like ``k^-1/2`` for a spread-out set);
+coincident samples come last.
 
 Neighbours. Found with :class:`scipy.spatial.cKDTree` in the anisotropy
 frame of a structure (:func:`..model.covariance.search_frame`; isotropic when
@@ -56,6 +60,7 @@ per sample; the covariance derivatives come from
 """
 from __future__ import annotations
 
+import heapq
 from collections.abc import Callable
 from dataclasses import dataclass
 
@@ -73,7 +78,9 @@ from ..model.parameters import ParameterLayout, covariance_derivatives
 from .likelihood import LIKELIHOOD_METHODS, LOG_2PI, OVERFLOW_REMEDY, TREND_WHAT, MeanBasis, check_finite_terms
 
 DEFAULT_NEIGHBOURS = 30
-"""Conditioning-set size ``m`` (Datta et al. 2016 find 15-25 enough in their examples, from memory; common practice)."""
+"""Conditioning-set size ``m``: from the measured accuracy/time curve of tools/vecchia_neighbours_curve.py
+(DEVELOPERS.md): at 30 the two-scale gap case loses under 1 of log-likelihood at 2,000 samples, and going to 40 or
+50 costs 1.5-2.5 times the evaluation time for under 0.6 more."""
 
 SEARCH_BLOCK = 1024
 """Points per block of the previous-neighbour search."""
@@ -81,46 +88,41 @@ SEARCH_BLOCK = 1024
 ROWS_PER_PASS = 2048
 """Samples whose conditional systems are built and solved at once (bounds temporary memory)."""
 
-MAX_LEVELS = 60
-"""Grid levels of the ordering before the leftover (coincident) points are appended."""
-
-
-def coarse_to_fine_order(points: np.ndarray, seed: int = 0) -> np.ndarray:
-    """Ordering of the points from a coarse cover of their region to fine detail (see module docstring).
+def maximin_order(points: np.ndarray) -> np.ndarray:
+    """Exact maximin ordering of the points (see module docstring).
 
     Parameters
     ----------
     points : ndarray of shape (n, 2)
-    seed : int
-        Seed of the shuffle within each level.
 
     Returns
     -------
     ndarray of shape (n,)
-        A permutation: ``order[i]`` is the sample placed ``i``-th.
+        A permutation: ``order[i]`` is the sample placed ``i``-th; ``order[i]`` is, among the samples not in
+        ``order[:i]``, one farthest from them (ties broken by the lower index).
     """
     n = len(points)
-    rng = np.random.default_rng(seed)
-    low = points.min(axis=0)
-    span = float(np.max(points.max(axis=0) - low)) or 1.0
+    tree = cKDTree(points)
+    first = int(np.argmin(np.hypot(*(points - points.mean(axis=0)).T)))
+    gap = np.hypot(*(points - points[first]).T)  # distance of each sample to the placed ones
     taken = np.zeros(n, dtype=bool)
-    order = []
-    for level in range(MAX_LEVELS):
-        cells = 2 ** level
-        size = span / cells
-        cell = np.minimum(((points - low) / size).astype(np.int64), cells - 1)
-        key = cell[:, 0] * cells + cell[:, 1]
-        free = np.flatnonzero(~taken & ~np.isin(key, key[taken]))
-        centre_gap = np.hypot(*(points[free] - low - (cell[free] + 0.5) * size).T)
-        by_cell = np.lexsort((centre_gap, key[free]))
-        _, first = np.unique(key[free][by_cell], return_index=True)
-        chosen = rng.permutation(free[by_cell][first])
-        taken[chosen] = True
-        order.append(chosen)
-        if taken.all():
-            break
-    order.append(np.flatnonzero(~taken))
-    return np.concatenate(order)
+    taken[first] = True
+    heap = [(-g, i) for i, g in enumerate(gap.tolist()) if i != first]
+    heapq.heapify(heap)
+    order = [first]
+    while heap:
+        negative_gap, i = heapq.heappop(heap)
+        if taken[i] or -negative_gap != gap[i]:  # placed already, or a stale (larger) distance
+            continue
+        taken[i] = True
+        order.append(i)
+        near = np.asarray(tree.query_ball_point(points[i], -negative_gap), dtype=np.intp)
+        distance = np.hypot(*(points[near] - points[i]).T)
+        closer = (distance < gap[near]) & ~taken[near]
+        gap[near[closer]] = distance[closer]
+        for entry in zip((-distance[closer]).tolist(), near[closer].tolist()):
+            heapq.heappush(heap, entry)
+    return np.array(order, dtype=np.intp)
 
 
 def previous_neighbours(points: np.ndarray, m: int) -> tuple[np.ndarray, np.ndarray]:
@@ -196,7 +198,7 @@ class VecchiaPlan:
         if int(neighbours) != neighbours or neighbours < 1:
             raise FieldcastError(f"The Vecchia neighbour count must be a whole number >= 1; got {neighbours!r}.")
         frame = np.asarray(xy, dtype=float) if structure is None else search_frame(structure, np.asarray(xy, float))
-        order = coarse_to_fine_order(frame)
+        order = maximin_order(frame)
         index, valid = previous_neighbours(frame[order], min(int(neighbours), len(frame) - 1))
         return cls(order, index, valid)
 
@@ -292,6 +294,14 @@ class VecchiaData:
             "solved_y": solved[:, :, 1],
             "solved_q": solved[:, :, 2:],
         }
+
+    def regression(self, model: CovarianceModel) -> tuple[np.ndarray, np.ndarray]:
+        """The regression coefficients ``b_i`` (rows, over ``plan.neighbours``; 0 where missing) and the conditional
+        variances ``d_i`` of every position of the ordering: ``K~^-1 = B^T D^-1 B``."""
+        n = len(self.y)
+        parts = [self._conditionals(model, slice(start, min(start + ROWS_PER_PASS, n)))
+                 for start in range(0, n, ROWS_PER_PASS)]
+        return np.concatenate([part["b"] for part in parts]), np.concatenate([part["d"] for part in parts])
 
     def evaluate(self, model: CovarianceModel, layout: ParameterLayout | None = None,
                  should_stop: Callable[[], bool] | None = None) -> VecchiaTerms:

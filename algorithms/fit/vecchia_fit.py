@@ -6,20 +6,25 @@ hands over to :func:`fit_vecchia`, whose cost per evaluation is ``O(n m^3)``
 time and ``O(n m)`` memory (``m`` conditioning neighbours). The fit runs in
 two steps:
 
-1. Model choice on a subset. The exact fit (:func:`.exact_fit.fit_exact`, same
-   kernel, anisotropy, nested, mean and method settings) on
-   :data:`SUBSET_SIZE` samples drawn at random (fixed seed) chooses the
-   family, anisotropy and structures by AIC and gives the starting values.
-   The subset has enough samples to tell the families apart at a fraction of
-   the cost; its criteria are not comparable with those on all samples, so
-   the result lists the chosen model only.
+1. Family choice on a subset. The exact fit (:func:`.exact_fit.fit_exact`, same
+   kernel, anisotropy, mean and method settings) on :data:`SUBSET_SIZE` samples
+   drawn at random (fixed seed) chooses the family and anisotropy by AIC and
+   gives the starting values. The subset has enough samples to tell the families
+   apart at a fraction of the cost; its criteria are not comparable with those
+   on all samples, so the number of scales is not chosen there (a sparse
+   subset misses the short scale).
 2. Vecchia refinement on all samples. L-BFGS-B with the analytic Vecchia
    gradient, on the same standardised units and parameter bounds as the
    exact fit (:mod:`.search`, :mod:`..model.parameters`). The conditioning sets
-   are searched in the anisotropy frame of the starting model and kept fixed
-   while optimising (so the objective is smooth); for an anisotropic model
-   they are searched again in the frame of the estimate and the optimiser
-   restarts from it once.
+   (``FitOptions.likelihood_neighbours`` of them per sample) are searched in the
+   anisotropy frame of the starting model and kept fixed while optimising (so
+   the objective is smooth); for an anisotropic model they are searched again in
+   the frame of the estimate and the optimiser restarts from it once.
+3. Number of scales (``kernel="auto"``, ``nested`` off). The subset also chooses
+   the family of a two-structure model (a second exact fit, ``nested`` on), which
+   is then fitted on all samples too, from the best (by Vecchia likelihood) of
+   that subset fit and the starts of :mod:`.vecchia_scales`; the model with the
+   lower AIC on the Vecchia likelihood is kept, and both are listed as candidates.
 
 The reported log-likelihood, AIC and BIC are those of the Vecchia
 approximation at the estimate; ``FitResult.likelihood`` says
@@ -27,6 +32,7 @@ approximation at the estimate; ``FitResult.likelihood`` says
 """
 from __future__ import annotations
 
+import math
 from collections.abc import Callable
 from dataclasses import replace
 
@@ -49,7 +55,8 @@ from .options import (
     mean_model_for,
 )
 from .search import SearchProblem
-from .vecchia import DEFAULT_NEIGHBOURS, VecchiaData, VecchiaObjective, VecchiaPlan
+from .vecchia import VecchiaData, VecchiaObjective, VecchiaPlan
+from .vecchia_scales import two_scale_starts
 
 SUBSET_SIZE = 1000
 """Samples of the exact fit that chooses the model and the starting values."""
@@ -95,8 +102,41 @@ def _optimise(problem: SearchProblem, layout: ParameterLayout, start: np.ndarray
     return theta, terms.minus_two_log_likelihood, terms.basis_coefficients, convergence_warning(result)
 
 
-def fit_vecchia(xy: np.ndarray, values: np.ndarray, options: FitOptions, *,
-                neighbours: int = DEFAULT_NEIGHBOURS, subset_size: int = SUBSET_SIZE,
+def _candidate(problem: SearchProblem, layout: ParameterLayout, theta: np.ndarray, minus_two: float,
+               stopped: str | None, units: str) -> CandidateFit:
+    """A Vecchia fit in data units with its criteria and bound (and convergence) warnings."""
+    model = problem.to_data_units(layout.unpack(theta))
+    log_likelihood = problem.log_likelihood(minus_two)
+    aic, bic, _ = information_criteria(problem, log_likelihood, layout)
+    messages = bound_warnings(layout, layout.pack(model), parameter_bounds(layout, problem.data_scales), units)
+    if stopped:
+        messages.append(stopped)
+    return CandidateFit(layout.family, layout.anisotropy, log_likelihood, aic, bic, model, messages)
+
+
+def _two_scale_fit(problem: SearchProblem, single: ParameterLayout, theta: np.ndarray, nested: CandidateFit,
+                   neighbours: int, progress: Callable[[float], None] | None
+                   ) -> tuple[ParameterLayout, tuple[np.ndarray, float, np.ndarray, str | None]]:
+    """The two-structure Vecchia fit from the best start (by Vecchia likelihood): the subset's two-structure fit
+    ``nested`` and, when it has the one-structure fit's family, :func:`.vecchia_scales.two_scale_starts`."""
+    layout = ParameterLayout(nested.family, 2, nested.anisotropy, single.smoothness, single.nugget)
+    subset_model = problem.to_internal_units(nested.covariance)
+    starts = [subset_model]
+    if nested.family == single.family and nested.anisotropy == single.anisotropy:
+        starts += two_scale_starts(problem, single.unpack(theta), subset_model)
+    plan = VecchiaPlan.build(problem.xy, neighbours, subset_model.structures[0])
+    data = VecchiaData(problem.xy, problem.y, problem.basis, problem.method, plan, problem.error_variance)
+    scored = []
+    for start in starts:
+        packed = layout.pack(start)
+        if layout.anisotropy:
+            packed[layout.index("azimuth")] = math.radians(start.structures[0].azimuth)
+        scored.append((data.evaluate(start).minus_two_log_likelihood, packed))
+    best = min(scored, key=lambda pair: pair[0])[1]
+    return layout, _optimise(problem, layout, best, neighbours, progress)
+
+
+def fit_vecchia(xy: np.ndarray, values: np.ndarray, options: FitOptions, *, subset_size: int = SUBSET_SIZE,
                 covariates: np.ndarray | None = None, progress: Callable[[float], None] | None = None,
                 should_stop: Callable[[], bool] | None = None, error_variance: np.ndarray | None = None) -> FitResult:
     """Fit a covariance model to many samples with the Vecchia likelihood (see the module docstring).
@@ -106,11 +146,10 @@ def fit_vecchia(xy: np.ndarray, values: np.ndarray, options: FitOptions, *,
     xy, values : ndarray
         As for :func:`.fitting.fit_model`.
     options : FitOptions
-        The settings of :func:`.fitting.fit_model` (``method`` "reml" or "ml").
-    neighbours : int
-        Conditioning-set size ``m`` of the Vecchia likelihood.
+        The settings of :func:`.fitting.fit_model` (``method`` "reml" or "ml"); ``likelihood_neighbours`` is the
+        conditioning-set size ``m`` of the Vecchia likelihood.
     subset_size : int
-        Samples of the exact fit that chooses the model (all if fewer).
+        Samples of the exact fit that chooses the family (all if fewer).
     covariates : ndarray of shape (n, k), optional
         External-drift columns for the mean.
     progress, should_stop : callable, optional
@@ -122,10 +161,10 @@ def fit_vecchia(xy: np.ndarray, values: np.ndarray, options: FitOptions, *,
     Returns
     -------
     FitResult
-        ``likelihood`` is ``"vecchia (m neighbours)"``; ``candidates`` holds
-        the chosen model only.
+        ``likelihood`` is ``"vecchia (m neighbours)"``; ``candidates`` holds the Vecchia fits compared (one, or
+        one and two structures for ``kernel="auto"``).
     """
-    kernel, method = options.kernel, options.method
+    kernel, method, neighbours = options.kernel, options.method, options.likelihood_neighbours
     check_fit_choices(kernel, method, options.nested, options.smoothness)
     if method == "wls":
         raise FieldcastError("The Vecchia fit maximises a likelihood; choose METHOD reml or ml.")
@@ -136,30 +175,42 @@ def fit_vecchia(xy: np.ndarray, values: np.ndarray, options: FitOptions, *,
     mean_model = mean_model_for(options.mean, points, covariates, options.known_mean)
     design = mean_model.design(points, covariates)
     n = len(observed)
+    compare_scales = kernel == "auto" and not options.nested
+    share = 0.35 if compare_scales else 0.5
     subset = np.sort(np.random.default_rng(0).choice(n, min(subset_size, n), replace=False))
-    rough = fit_exact(points[subset], observed[subset], replace(options, mean=mean_model),
-                      covariates=None if covariates is None else np.asarray(covariates)[subset],
-                      progress=None if progress is None else (lambda f: progress(0.5 * f)), should_stop=should_stop,
-                      error_variance=None if error_variance is None else error_variance[subset])
-    chosen = min(rough.candidates, key=lambda c: c.aic)
+    subset_options = replace(options, mean=mean_model)
+    subset_covariates = None if covariates is None else np.asarray(covariates)[subset]
+    scales = (False, True) if compare_scales else (options.nested,)
+    rough = [fit_exact(points[subset], observed[subset], replace(subset_options, nested=nested),
+                       covariates=subset_covariates, should_stop=should_stop,
+                       error_variance=None if error_variance is None else error_variance[subset],
+                       progress=None if progress is None else (lambda f, k=k: progress(share * (k + f) / len(scales))))
+             for k, nested in enumerate(scales)]
+    chosen = min(rough[0].candidates, key=lambda c: c.aic)
+    layout = ParameterLayout(chosen.family, len(chosen.covariance.structures), chosen.anisotropy, options.smoothness)
     problem = SearchProblem.standardise(points, observed - mean_model.known_mean(n), design, method,
                                         should_stop, options.max_iterations, options.nugget, error_variance)
     layout = ParameterLayout(chosen.family, len(chosen.covariance.structures), chosen.anisotropy, options.smoothness,
                              problem.nugget)
     start = layout.pack(problem.to_internal_units(chosen.covariance))
-    theta, minus_two, basis_coefficients, stopped = _optimise(problem, layout, start, neighbours, progress)
-    model = problem.to_data_units(layout.unpack(theta))
-    log_likelihood = problem.log_likelihood(minus_two)
-    aic, bic, k = information_criteria(problem, log_likelihood, layout)
-    messages = data_warnings(points, model, options.units) + bound_warnings(
-        layout, layout.pack(model), parameter_bounds(layout, problem.data_scales), options.units)
-    if stopped:
-        messages.append(stopped)
+    stage = None if progress is None else (lambda f: progress(share + (0.65 - share) * (f - 0.5) / 0.5))
+    theta, minus_two, coefficients, stopped = _optimise(problem, layout, start, neighbours,
+                                                        stage if compare_scales else progress)
+    fits = [(_candidate(problem, layout, theta, minus_two, stopped, options.units), layout, coefficients)]
+    if compare_scales:
+        later = None if progress is None else (lambda f: progress(0.65 + 0.35 * (f - 0.5) / 0.5))
+        subset_nested = min(rough[1].candidates, key=lambda c: c.aic)
+        two, (theta2, minus_two2, coefficients2, stopped2) = _two_scale_fit(problem, layout, theta, subset_nested,
+                                                                           neighbours, later)
+        fits.append((_candidate(problem, two, theta2, minus_two2, stopped2, options.units), two, coefficients2))
+    candidate, layout, basis_coefficients = min(fits, key=lambda fit: fit[0].aic)
+    model = candidate.covariance
+    _, _, k = information_criteria(problem, candidate.log_likelihood, layout)
+    messages = data_warnings(points, model, options.units) + list(candidate.warnings)
     coefficients = problem.basis.coefficients(basis_coefficients) * problem.value_scale
     if progress is not None:
         progress(1.0)
-    candidate = CandidateFit(layout.family, layout.anisotropy, log_likelihood, aic, bic, model, list(messages))
-    return FitResult(model, mean_model, coefficients, method, log_likelihood, aic, bic, n, k, messages,
-                     likelihood=f"vecchia ({min(neighbours, n - 1)} neighbours)", candidates=[candidate],
-                     fixed_nugget=options.nugget,
+    return FitResult(model, mean_model, coefficients, method, candidate.log_likelihood, candidate.aic, candidate.bic,
+                     n, k, messages, likelihood=f"vecchia ({min(neighbours, n - 1)} neighbours)",
+                     candidates=[fit[0] for fit in fits], fixed_nugget=options.nugget,
                      error_variance_field=None if error_variance is None else options.error_variance_field)
