@@ -18,7 +18,8 @@ from reference import MEUSE_LOG_ZINC
 REALISATIONS = 400
 GRID = GridSpec.from_extent(178500.0, 329600.0, 181600.0, 333700.0, 160.0)  # the Meuse samples' extent
 CELLS = np.array([0, 7, GRID.n_cells // 2 + 3, GRID.n_cells // 3, GRID.n_cells - 5, GRID.n_cells - 1])
-"""A few cells: the four corners region (far from samples, where the trend's uncertainty weighs most) and inside."""
+"""A few cells: near the north-west and south-east corners (far from the samples, where the trend's uncertainty
+weighs most) and inside."""
 
 
 @pytest.fixture(scope="module")
@@ -92,3 +93,17 @@ def test_local_trend_realisations_are_reproducible_with_a_seed(meuse_data):
     np.testing.assert_array_equal(first, run(5))
     assert not np.allclose(first, run(6))
 
+
+
+def test_each_completed_data_set_gets_its_own_trend(meuse_data):
+    # Realisation r is conditioned on data set r mod m with that set's GLS coefficients: a second set shifted
+    # by 0.5 shifts universal kriging's mean by exactly 0.5 (its weights sum to one; Cressie 1993, 3.4), so the
+    # odd realisations converge to kriging of the shifted set, the even ones to kriging of the first set.
+    xy, values, _, _ = meuse_data
+    mean_model = MeanModel.for_data("linear", xy)
+    sets = np.stack([values, values + 0.5])
+    result = simulate_conditional(xy, values, MEUSE_LOG_ZINC, mean_model, GRID, n_realisations=REALISATIONS,
+                                  seed=21, neighbours=len(xy), value_sets=sets)
+    mean, variance = KrigingPredictor(xy, values, MEUSE_LOG_ZINC, mean_model).predict(GRID.cell_centres())
+    assert_converges_at_cells(result.realisations[0::2], mean, variance)
+    assert_converges_at_cells(result.realisations[1::2], mean + 0.5, variance)
