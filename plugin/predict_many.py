@@ -235,7 +235,7 @@ class PredictManyAlgorithm(SurfaceAlgorithm):
         first_mean = MeanModel.for_data(settings.mean, prepared[0][1].xy, covariates[0].column_names)
         neighbours, _ = run.neighbourhood.resolved(first_mean, "cell")  # refuse early
         refuse_local_covariates(first_mean, neighbours, len(prepared[0][1].values),
-                                local_mean=run.neighbourhood.local_mean, option=True)
+                                local_mean=run.neighbourhood.local_mean)
         if shared:
             self.predict_shared(run, parameters, context, feedback)
         else:

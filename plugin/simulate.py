@@ -43,6 +43,7 @@ from .help_text import (
     COVARIATE_HELP,
     ERROR_VARIANCE_HELP,
     GRID_HELP,
+    LOCAL_MEAN_HELP,
     MODEL_FILE_HELP,
     NONDETECT_HELP,
     NUGGET_HELP,
@@ -107,11 +108,15 @@ class SimulateAlgorithm(RasterAlgorithm):
          ("Neighbours per cell", "0 (the default): every sample conditions every cell (global kriging weights). "
           "A number k: each cell is conditioned on its k nearest samples (local kriging weights; 16 to 64 is "
           "common practice), faster for many samples; the realisations then have the local kriging mean and "
-          "variance. It must be more than the number of trend terms (at least 2 for a constant mean)."),
+          "variance. A linear, quadratic or covariate trend is estimated once from all samples and each "
+          "realisation adds it with its coefficients drawn from their estimation uncertainty (unless the mean is "
+          "re-estimated in each neighbourhood). It must be more than the number of trend terms (at least 2 for a "
+          "constant mean)."),
          ("Search radius", "With neighbours only: samples farther than this (working CRS units, along the major "
           "axis; the search ellipse follows the model's anisotropy) are left out. Cells with too few samples in "
           "range are nodata in every realisation and left out of the summaries, areas and means; the log says "
           "how many. Empty: no limit."),
+         LOCAL_MEAN_HELP,
          NUGGET_HELP,
          ERROR_VARIANCE_HELP,
          THRESHOLD_HELP,
@@ -152,7 +157,7 @@ class SimulateAlgorithm(RasterAlgorithm):
         self.addParameter(advanced(QgsProcessingParameterNumber(
             self.SEED, self.tr("Random seed"), type=QgsProcessingParameterNumber.Integer, defaultValue=1,
             minValue=0)))
-        self.add_neighbourhood_parameters(per="cell", local_mean=False)
+        self.add_neighbourhood_parameters(per="cell")
         self.add_measurement_parameters()
         self.add_threshold_parameter()
         self.add_target_crs_parameter()
@@ -214,7 +219,7 @@ class SimulateAlgorithm(RasterAlgorithm):
                               "of the samples below a limit (realisation r on set r modulo their number).")
         neighbourhood = self.neighbourhood(parameters, context)
         neighbours, lines = neighbourhood.resolved(document.mean, "cell")
-        refuse_local_covariates(document.mean, neighbours, len(samples.values))
+        refuse_local_covariates(document.mean, neighbours, len(samples.values), local_mean=neighbourhood.local_mean)
         search_radius = neighbourhood.search_radius
         grid, inside = self.grid_and_mask(parameters, context, samples.xy, document.crs_wkt, document.units,
                                           feedback, n_bands=1 + len(summaries))  # realisations: checked below
@@ -230,6 +235,7 @@ class SimulateAlgorithm(RasterAlgorithm):
                                       n_realisations=count, seed=seed, transform=document.transform,
                                       covariates=samples.covariates, grid_covariates=grid_covariates,
                                       neighbours=neighbours, search_radius=search_radius,
+                                      local_mean=neighbourhood.local_mean,
                                       error_variance=samples.error_variance, value_sets=samples.sets,
                                       progress=progress_callback(feedback, *SIMULATION_PERCENT),
                                       should_stop=feedback.isCanceled)

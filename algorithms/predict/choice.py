@@ -107,15 +107,13 @@ def _run_neighbours(neighbourhood: Neighbourhood, mean: MeanModel, count: int, p
     return neighbours, lines
 
 
-def refuse_local_covariates(mean: MeanModel, neighbours: int, count: int, *, local_mean: bool = True,
-                            option: bool = False) -> None:
+def refuse_local_covariates(mean: MeanModel, neighbours: int, count: int, *, local_mean: bool = True) -> None:
     """FieldcastError when local kriging (``neighbours`` > 0 of ``count`` samples) that re-estimates the mean in
     each neighbourhood (``local_mean``) meets a mean with covariates.
 
     Covariate coefficients are estimated from all samples (GLS); local kriging that re-estimated them from each
     neighbourhood's few samples would extrapolate a local trend. With ``local_mean`` False the global trend is
-    used (:mod:`.global_trend`) and nothing is refused. ``option`` says the run has the LOCAL_MEAN switch,
-    which the message then names.
+    used (:mod:`.global_trend`) and nothing is refused; the message names the LOCAL_MEAN switch.
     """
     if not (neighbours and mean.covariate_names and local_mean):
         return
@@ -124,8 +122,7 @@ def refuse_local_covariates(mean: MeanModel, neighbours: int, count: int, *, loc
         "Covariates are kriged from all samples, so that their coefficients rest on every sample and not on "
         f"each neighbourhood's few; local kriging ({neighbours} neighbours"
         + (f", chosen because there are more than {GLOBAL_SAMPLE_LIMIT:,} samples" if automatic else "")
-        + (") re-estimates the mean in each neighbourhood. Untick LOCAL_MEAN, set NEIGHBOURS to 0" if option
-           else ") does not take them yet. Set NEIGHBOURS to 0")
+        + ") re-estimates the mean in each neighbourhood. Untick LOCAL_MEAN, set NEIGHBOURS to 0"
         + (", thin the samples" if automatic else "") + ", or leave COVARIATES and CLASS_COVARIATES empty.")
 
 
@@ -169,7 +166,7 @@ def choose_predictor(xy: np.ndarray, values: np.ndarray, covariance: CovarianceM
     count = len(values)
     neighbours, lines = _run_neighbours(neighbourhood, mean, count, per, support=support)
     local_mean = neighbourhood.local_mean
-    refuse_local_covariates(mean, neighbours, count, local_mean=local_mean, option=True)
+    refuse_local_covariates(mean, neighbours, count, local_mean=local_mean)
     if neighbours == 0:
         lines.append(LogLine("info", f"Kriging from all {count} samples."))
         predictor = KrigingPredictor(xy, values, covariance, mean, covariates, error_variance)
@@ -219,7 +216,7 @@ def cross_validate_with(xy: np.ndarray, values: np.ndarray, covariance: Covarian
     count = len(values)
     neighbours, lines = _run_neighbours(neighbourhood, mean, count, "sample", pool="every other sample")
     local_mean = neighbourhood.local_mean
-    refuse_local_covariates(mean, neighbours, count, local_mean=local_mean, option=True)
+    refuse_local_covariates(mean, neighbours, count, local_mean=local_mean)
     if neighbours == 0:
         return leave_one_out(xy, values, covariance, mean, covariates, error_variance), lines
     search_radius = neighbourhood.search_radius

@@ -14,7 +14,15 @@ With ``neighbours > 0`` the weights are local
 (:meth:`.neighbourhood.LocalKrigingPredictor.weights`): each cell's kriged
 residual is ``sum_k w[cell, k] * r[idx[cell, k]]`` over its ``k`` nearest
 samples, gathered for all realisations at once; cells with too few neighbours
-within the search radius are NaN in every realisation.
+within the search radius are NaN in every realisation. With a linear, quadratic or
+covariate trend and ``local_mean`` False the neighbourhoods do not re-estimate the
+trend: it is estimated once from all samples by generalised least squares
+(:mod:`..predict.global_trend`), the residuals are conditioned by local simple
+kriging (the neighbours spread over sectors), and each realisation adds the trend
+with its own coefficients: this conditions on the data with a flat prior on the
+coefficients, realisation ``r`` drawing them from their GLS posterior
+``N(beta_hat, V_beta)`` (:mod:`.trend_draw`), so the trend's estimation
+uncertainty is in the spread of the realisations.
 Over realisations ``Z_cond(x)`` has the kriging mean and, per cell, the kriging
 variance of the latent field (nugget excluded). The weights do not depend on the
 realisation: they are computed once per block of cells, and all realisations of
@@ -38,10 +46,12 @@ from ..io.grid import GridSpec, format_bytes
 from ..model.covariance import CovarianceModel
 from ..model.mean import MeanModel
 from ..model.transform import Transform
+from ..predict.global_trend import local_trend_options
 from ..predict.kriging import KrigingPredictor
 from ..predict.local import LocalKrigingPredictor
 from .circulant import UnconditionalGenerator
 from .conditioning import SampleDraw, choose_neighbourhood
+from .trend_draw import TrendDraws
 
 MAX_REALISATION_BYTES = 4e9
 """Default limit on the memory held by the realisations (bytes)."""
@@ -74,7 +84,8 @@ class SimulationResult:
         Cells left as NaN in every realisation (local conditioning: too few
         neighbours within the search radius, or a singular local system).
     notes : list of str
-        Enlarged paddings of an embedding that ended exact: information for the log.
+        How local conditioning treats the trend, and enlarged paddings of an embedding that ended exact:
+        information for the log.
     """
 
     realisations: np.ndarray
@@ -127,7 +138,7 @@ def simulate_conditional(xy: np.ndarray, values: np.ndarray, covariance: Covaria
                          grid: GridSpec, *, n_realisations: int, seed: int | None = None,
                          transform: Transform | None = None, covariates: np.ndarray | None = None,
                          grid_covariates: np.ndarray | None = None, neighbours: int = 0,
-                         search_radius: float | None = None, chunk_size: int = 4096,
+                         search_radius: float | None = None, local_mean: bool = False, chunk_size: int = 4096,
                          max_bytes: float = MAX_REALISATION_BYTES, error_variance: np.ndarray | None = None,
                          value_sets: np.ndarray | None = None,
                          progress: Callable[[float], None] | None = None,
@@ -158,6 +169,11 @@ def simulate_conditional(xy: np.ndarray, values: np.ndarray, covariance: Covaria
     search_radius : float, optional
         Major semi-axis of the search ellipse (CRS units) when ``neighbours > 0``;
         None searches all samples.
+    local_mean : bool
+        With ``neighbours > 0``: re-estimate a linear, quadratic or covariate trend in each neighbourhood
+        (universal kriging weights of the neighbours) instead of conditioning the residuals of the trend
+        estimated from all samples, with coefficients drawn per realisation (module docstring). A constant or
+        known mean is kriged in each neighbourhood either way.
     chunk_size : int
         Cells per block of kriging weights; memory about ``8 n chunk_size`` bytes.
     max_bytes : float
@@ -186,10 +202,16 @@ def simulate_conditional(xy: np.ndarray, values: np.ndarray, covariance: Covaria
     if not covariance.field_variance > 0:
         raise FieldcastError("The covariance model has no spatial structure (every partial sill is zero), so there "
                              "is no field to simulate; fit a model with a structure, or map the kriging mean.")
+    notes = []
     if neighbours:
+        options, words = local_trend_options(xy, values, covariance, mean, covariates, local_mean, error_variance)
         predictor = LocalKrigingPredictor(xy, values, covariance, mean, neighbours=neighbours,
                                           search_radius=search_radius, covariates=covariates,
-                                          error_variance=error_variance)
+                                          error_variance=error_variance, **options)
+        if words:
+            notes.append(f"Local conditioning{words}"
+                         + ("; each realisation adds that trend with its coefficients drawn from their distribution "
+                            "given the data, so the trend's uncertainty is in the spread." if options else "."))
     else:
         predictor = KrigingPredictor(xy, values, covariance, mean, covariates, error_variance)
     generator, sampler, window = _unconditional_sources(covariance, grid, np.asarray(xy, dtype=float),
@@ -210,6 +232,11 @@ def simulate_conditional(xy: np.ndarray, values: np.ndarray, covariance: Covaria
     known = mean.known_mean(1)[0]
     data = np.asarray(values, dtype=float)[None, :] if value_sets is None else np.asarray(value_sets, dtype=float)
     residuals = (data[np.arange(count) % len(data)] - known) - at_samples  # (R, n)
+    draws = None
+    if neighbours and predictor.trend is not None:
+        draws = TrendDraws.draw(predictor.trend, np.asarray(xy, dtype=float), data, covariance, mean, covariates,
+                                count, rng, error_variance)
+        residuals -= draws.at_samples
     flat = realisations.reshape(count, -1)
     cells = grid.cell_centres()
     unresolved = 0
@@ -221,7 +248,7 @@ def simulate_conditional(xy: np.ndarray, values: np.ndarray, covariance: Covaria
             indices, weights = predictor.weights(cells[start:stop], block_covariates)
             unresolved += predictor.last_unresolved
             block = flat[:, start:stop]
-            block += known
+            block += known if draws is None else draws.at_cells(cells[start:stop], block_covariates)
             for slot in range(indices.shape[1]):  # gather one neighbour slot at a time: memory 8 R chunk_size
                 block += residuals[:, indices[:, slot]] * weights[:, slot]
         else:
@@ -236,7 +263,7 @@ def simulate_conditional(xy: np.ndarray, values: np.ndarray, covariance: Covaria
                         f"smooth model); a jitter of {sampler.jitter:.0e} of the field variance was added to draw the "
                         "unconditional values at the samples.")
     return SimulationResult(realisations, grid, generator.method, generator.padded_shape, sampler.side, seed,
-                            warnings, unresolved, list(generator.notes))
+                            warnings, unresolved, notes + list(generator.notes))
 
 
 class _Steps:

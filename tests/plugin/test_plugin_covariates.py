@@ -18,7 +18,9 @@ from fieldcast.algorithms.io.crs import to_wkt2
 from fieldcast.algorithms.io.model_file import ModelDocument
 from fieldcast.algorithms.predict.block import block_predict
 from fieldcast.algorithms.predict.crossval import leave_one_out
+from fieldcast.algorithms.predict.global_trend import estimate_trend
 from fieldcast.algorithms.predict.kriging import KrigingPredictor
+from fieldcast.algorithms.predict.local import LocalKrigingPredictor
 from qgis_process_support import template_centres
 from qgis_support import fieldcast_plugin, point_layer, qgis_processing  # noqa: F401 - fixtures
 from reference import write_meuse_covariates
@@ -215,6 +217,15 @@ def test_predict_with_covariates_on_their_grid_equals_kriging_and_counts_nodata(
                for line in log.lines)
 
 
+def read_realisations(path: Path, count: int) -> np.ndarray:
+    """The ``count`` bands of a realisations GeoTIFF, (count, cells) in raster order, NaN where nodata."""
+    dataset = gdal.Open(str(path))
+    realisations = np.stack([dataset.GetRasterBand(k + 1).ReadAsArray().astype(float).ravel()
+                             for k in range(count)])
+    realisations[realisations == dataset.GetRasterBand(1).GetNoDataValue()] = np.nan
+    return realisations
+
+
 def test_simulate_with_covariates_is_centred_on_kriging_with_them(qgis_processing, meuse, covariate_run,  # noqa: F811
                                                                  meuse_grid):
     samples, dist, ffreq, model, _, folder = covariate_run
@@ -225,11 +236,7 @@ def test_simulate_with_covariates_is_centred_on_kriging_with_them(qgis_processin
         "INPUT": samples, "FIELD": "zinc", "MODEL": model, "COVARIATES": [dist], "CLASS_COVARIATES": [ffreq],
         "TEMPLATE": dist, "TEMPLATE_NODATA_MASK": False, "REALIZATIONS": count, "SEED": 7, "OUTPUT": str(path)},
         feedback=log)
-    dataset = gdal.Open(str(path))
-    realisations = np.stack([dataset.GetRasterBand(k + 1).ReadAsArray().astype(float).ravel()
-                             for k in range(count)])
-    nodata = dataset.GetRasterBand(1).GetNoDataValue()
-    realisations[realisations == nodata] = np.nan
+    realisations = read_realisations(path, count)
     centres = template_centres(path)
     on_grid, cell_columns = published_cells(centres, meuse_grid)
     np.testing.assert_array_equal(np.isfinite(realisations).all(axis=0), on_grid)
@@ -249,6 +256,40 @@ def test_simulate_with_covariates_is_centred_on_kriging_with_them(qgis_processin
     # normal with the kriging mean and variance, so the standardised mean of 100 realisations is about N(0, 1).
     z = (np.log(realisations[:, on_grid]).mean(axis=0) - mean) / np.sqrt(variance / count)
     assert abs(np.mean(z)) < 1.0 and np.mean(z ** 2) < 3.0
+
+
+def test_local_simulate_with_covariates_is_centred_on_local_kriging_around_the_global_trend(
+        qgis_processing, meuse, covariate_run, meuse_grid):  # noqa: F811
+    # NEIGHBOURS=16 with covariates: the covariate trend is estimated once from all samples (GLS) and each
+    # realisation conditions its residuals on its 16 neighbours, so (Journel & Huijbregts 1978, conditioning by
+    # kriging) the log of the realisations is centred on local kriging around that trend; LOCAL_MEAN on refuses.
+    samples, dist, ffreq, model, _, folder = covariate_run
+    log = Log()
+    path = folder / "local_realisations.tif"
+    count = 60
+    parameters = {"INPUT": samples, "FIELD": "zinc", "MODEL": model, "COVARIATES": [dist],
+                  "CLASS_COVARIATES": [ffreq], "TEMPLATE": dist, "TEMPLATE_NODATA_MASK": False,
+                  "REALIZATIONS": count, "SEED": 4, "NEIGHBOURS": 16, "OUTPUT": str(path)}
+    qgis_processing.run("fieldcast:simulate", parameters, feedback=log)
+    realisations = read_realisations(path, count)
+    on_grid, cell_columns = published_cells(template_centres(path), meuse_grid)
+    np.testing.assert_array_equal(np.isfinite(realisations).all(axis=0), on_grid)
+    xy, values, read = read_samples(meuse, dist, ffreq)
+    assert any(f"Local conditioning, spread over 8 sectors around the constant trend and covariates estimated once "
+               f"from all {len(values)} samples" in line and "coefficients drawn" in line for line in log.lines)
+    document = ModelDocument.load(model)
+    trend = estimate_trend(xy, values, document.covariance, document.mean, read.columns)
+    local = LocalKrigingPredictor(xy, values, document.covariance, document.mean, neighbours=16,
+                                  covariates=read.columns, trend=trend, sectors=8)
+    mean, variance = local.predict(template_centres(path)[on_grid], cell_columns)
+    # The standardised mean of 60 realisations per cell is about N(0, 1) (normal theory).
+    z = (np.log(realisations[:, on_grid]).mean(axis=0) - mean) / np.sqrt(variance / count)
+    assert abs(np.mean(z)) < 1.0 and np.mean(z ** 2) < 3.0
+    refused = folder / "local_mean_realisations.tif"
+    with pytest.raises(QgsProcessingException, match="Covariates are kriged from all samples.*re-estimates the mean "
+                                                     "in each neighbourhood. Untick LOCAL_MEAN, set NEIGHBOURS to 0"):
+        qgis_processing.run("fieldcast:simulate", {**parameters, "LOCAL_MEAN": True, "OUTPUT": str(refused)})
+    assert not refused.exists()
 
 
 @pytest.mark.parametrize("shared", [False, True])
