@@ -117,7 +117,7 @@ def test_metadata_names_every_algorithm_in_about_and_changelog():
         assert f'"{display}"' in general["about"] and display in general["changelog"], display
 
 
-def test_class_factory_registers_the_provider_with_seven_algorithms(fieldcast_plugin):  # noqa: F811
+def test_class_factory_registers_the_provider_with_eight_algorithms(fieldcast_plugin):  # noqa: F811
     provider = QgsApplication.processingRegistry().providerById("fieldcast")
     assert provider is not None and provider.name() == "Fieldcast"
     assert sorted(a.name() for a in provider.algorithms()) == sorted(CONTRACT)
