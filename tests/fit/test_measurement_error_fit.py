@@ -121,11 +121,11 @@ def test_exact_fit_keeps_a_fixed_nugget_and_records_it(meuse, nugget):
 
 def test_vecchia_fit_keeps_a_fixed_nugget_and_uses_the_error_variances(data):
     xy, values, error_variance = data
-    options = FitOptions(kernel="exponential", anisotropy=False, nugget=0.02)
-    result = fit_vecchia(xy, values, options, neighbours=20, subset_size=80, error_variance=error_variance)
+    options = FitOptions(kernel="exponential", anisotropy=False, nugget=0.02, likelihood_neighbours=20)
+    result = fit_vecchia(xy, values, options, subset_size=80, error_variance=error_variance)
     assert result.covariance.nugget == 0.02
     assert result.summary()["error_variance_field"] == "error variances"
-    without = fit_vecchia(xy, values, options, neighbours=20, subset_size=80)
+    without = fit_vecchia(xy, values, options, subset_size=80)
     assert without.covariance.field_variance != pytest.approx(result.covariance.field_variance, rel=1e-3)
 
 
