@@ -208,9 +208,9 @@ class ProposeSamplesAlgorithm(FieldcastAlgorithm):
             return None
         threshold = self.optional_number(parameters, self.THRESHOLD, context)
         transform = document.transform
-        if transform.kind == "log" and threshold + transform.offset <= 0:
-            raise FieldcastError(f"THRESHOLD {threshold:g} is at or below minus the log offset, so every place "
-                                 "exceeds it and there is nothing to classify. Give a higher THRESHOLD.")
+        if transform.positive_only and threshold + transform.offset <= 0:
+            raise FieldcastError(f"THRESHOLD {threshold:g} is at or below minus the model's offset (LOG_OFFSET), so "
+                                 "every place exceeds it and there is nothing to classify. Give a higher THRESHOLD.")
         return float(transform.forward(np.array([threshold]))[0])
 
     @staticmethod

@@ -525,13 +525,6 @@ class KrigingPredictor:
             whitened = whitened + self._whitened_design @ self._trend_solve(gap)
         return self._inverse_factor.T @ whitened
 
-    def coefficient_errors(self) -> np.ndarray:
-        """Standard errors of the GLS coefficients given the covariance: ``sqrt(diag((F^T K^-1 F)^-1))``
-        (Cressie 1993, section 3.4), in the units of each coefficient, order of ``mean.term_names``."""
-        if not self.mean.n_terms:
-            return np.zeros(0)
-        return np.sqrt(np.diag(self._trend_solve(np.eye(self.mean.n_terms))))
-
     def projected_precision(self) -> tuple[np.ndarray, np.ndarray]:
         """Matrix ``Q`` and vector ``Q y`` used by closed-form cross-validation.
 

@@ -107,6 +107,7 @@ def test_classification_proposals_say_they_use_the_current_map(qgis_processing, 
     ({"REGION": "empty"}, r"holds no polygons.*polygon layer that outlines"),
     ({"CANDIDATES": "outside"}, r"lies inside REGION.*candidate places inside the region"),
     ({"CRITERION": "classification"}, r"needs a Threshold \(THRESHOLD.*CRITERION to variance"),
+    ({"CRITERION": "classification", "THRESHOLD": -1.0}, r"minus the model's offset \(LOG_OFFSET\).*higher THRESHOLD"),
 ])
 def test_bad_inputs_are_refused_with_advice_and_write_nothing(qgis_processing, meuse_model, tmp_path, extra,  # noqa: F811
                                                               message):

@@ -123,7 +123,8 @@ def test_local_leave_one_out_with_all_others_is_the_brute_force_one(data):
 
 def test_coincident_samples_merge_to_the_inverse_variance_weighted_mean():
     # Independent measurements y_i of one value with variances e_i: the best linear unbiased estimate is
-    # sum(y_i / e_i) / sum(1 / e_i), with variance 1 / sum(1 / e_i) (the textbook weighted mean). Invented values.
+    # sum(y_i / e_i) / sum(1 / e_i), with variance 1 / sum(1 / e_i) (the inverse-variance weighted mean; from
+    # memory). Invented values for the formula.
     xy = np.array([[0.0, 0.0], [0.0, 0.0], [5.0, 5.0], [9.0, 1.0], [9.0, 1.0]])
     values = np.array([1.0, 4.0, 2.0, 3.0, 7.0])
     error_variance = np.array([0.1, 0.4, 0.2, 0.0, 0.5])
