@@ -139,6 +139,9 @@ STACK_SIZE = 2048
 SECTOR_POOL = 8
 """Candidates per neighbour slot searched for a sector search (``SECTOR_POOL * k`` nearest samples)."""
 
+SECTOR_FIRST_POOL = 3
+"""Candidates per neighbour slot tried first in a sector search (the full pool only where they do not settle it)."""
+
 LEAVE_ONE_OUT_CHUNK = 8192
 """Samples predicted at once by :meth:`LocalKrigingPredictor.leave_one_out` (between progress reports)."""
 
@@ -391,27 +394,45 @@ class LocalKrigingPredictor:
         """Indices (b, k) of the ``k`` nearest samples within the search radius of targets (b, 2, search frame).
 
         Missing neighbours (fewer samples in range) are marked with index ``n`` and come last in each row.
+        A sector search first spreads the ``SECTOR_FIRST_POOL * k`` nearest candidates and searches the full pool
+        only for the targets where that shorter list could choose otherwise (:meth:`_spread`).
         """
-        radius = np.inf if self.search_radius is None else self.search_radius
         pool = k if self.sectors == 1 else min(self.n, SECTOR_POOL * k)
-        _, found = self._tree.query(targets, k=pool, distance_upper_bound=radius, workers=WORKERS)
-        found = found.reshape(len(targets), pool)
-        return found if pool == k else self._spread(targets, found, k)
+        if pool == k:
+            return self._query(targets, k)
+        short = min(pool, SECTOR_FIRST_POOL * k)
+        found, settled = self._spread(targets, self._query(targets, short), k)
+        if short < pool and not settled.all():
+            again = np.flatnonzero(~settled)
+            found[again] = self._spread(targets[again], self._query(targets[again], pool), k)[0]
+        return found
 
-    def _spread(self, targets: np.ndarray, found: np.ndarray, k: int) -> np.ndarray:
+    def _query(self, targets: np.ndarray, k: int) -> np.ndarray:
+        """Indices (b, k) of the ``k`` nearest samples within the search radius, nearest first (missing = ``n``)."""
+        radius = np.inf if self.search_radius is None else self.search_radius
+        _, found = self._tree.query(targets, k=k, distance_upper_bound=radius, workers=WORKERS)
+        return found.reshape(len(targets), k)
+
+    def _spread(self, targets: np.ndarray, found: np.ndarray, k: int) -> tuple[np.ndarray, np.ndarray]:
         """``k`` of the candidates ``found`` (b, pool; nearest first, missing = ``n``): ``k // sectors`` per sector
-        first, then the nearest others; missing ones last."""
+        first, then the nearest others; missing ones last.
+
+        Also says for each target whether the choice is settled: a longer candidate list that starts with
+        ``found`` chooses the same when ``found`` ends in range (no more samples) or already fills every sector's
+        ``k // sectors`` slots, since candidates further out only ever take the slots left after those.
+        """
         candidates = self._frame_xy[np.minimum(found, self.n - 1)]
         angle = np.arctan2(candidates[:, :, 1] - targets[:, None, 1], candidates[:, :, 0] - targets[:, None, 0])
         sector = np.minimum(((angle + np.pi) * (self.sectors / (2 * np.pi))).astype(np.intp), self.sectors - 1)
-        rank = np.zeros(found.shape, dtype=np.intp)  # place of each candidate among the nearer ones of its sector
-        for s in range(self.sectors):
-            inside = sector == s
-            rank += np.where(inside, np.cumsum(inside, axis=1) - 1, 0)
-        pool = found.shape[1]
-        tier = np.where(found == self.n, 2, np.where(rank < k // self.sectors, 0, 1))
-        order = np.argsort(tier * pool + np.arange(pool), axis=1)[:, :k]
-        return np.take_along_axis(found, order, axis=1)
+        inside = sector[:, None, :] == np.arange(self.sectors)[:, None]  # (b, sectors, pool)
+        before = np.cumsum(inside, axis=2, dtype=np.int16)  # candidates so far in each sector, this one included
+        rank = np.take_along_axis(before, sector[:, None, :], axis=1)[:, 0, :] - 1  # among nearer ones of its sector
+        quota = k // self.sectors
+        missing = found == self.n
+        tier = np.where(missing, 2, np.where(rank < quota, 0, 1)).astype(np.int8)
+        order = np.argsort(tier, axis=1, kind="stable")[:, :k]
+        settled = missing[:, -1] | (before[:, :, -1].min(axis=1) >= quota)
+        return np.take_along_axis(found, order, axis=1), settled
 
     def _groups_by_count(self, found: np.ndarray) -> list[tuple[int, np.ndarray]]:
         """``(k, rows)`` for each neighbour count ``k`` of at least :attr:`minimum_neighbours` in ``found`` (b, k)."""

@@ -138,3 +138,22 @@ def test_sector_search_takes_the_nearest_samples_of_each_sector(meuse, meuse_gri
         sector = np.minimum(((np.arctan2(offsets[pool, 0], offsets[pool, 1]) + np.pi) / (np.pi / 4)).astype(int), 7)
         expected = {int(j) for s in range(8) for j in pool[sector == s][:2]}
         assert expected <= set(chosen.tolist())
+
+
+@pytest.mark.parametrize("neighbours", [12, 20])
+def test_sector_search_fills_the_other_slots_with_the_nearest_remaining_candidates(meuse, meuse_grid, log_zinc,
+                                                                                     neighbours):
+    # The whole sector rule (common practice), by brute force over the 8 * k nearest candidates: the k // 8 nearest
+    # in each sector, then the nearest of the rest up to k. Cells on the grid's edge leave sectors short within the
+    # shorter first candidate list, so both the short and the full search are exercised.
+    mean = MeanModel.for_data("linear", meuse.xy)
+    local = LocalKrigingPredictor(meuse.xy, log_zinc, MEUSE_LOG_ZINC, mean, neighbours=neighbours, sectors=8,
+                                  trend=estimate_trend(meuse.xy, log_zinc, MEUSE_LOG_ZINC, mean))
+    indices, _ = local.weights(meuse_grid.xy[::7])
+    for target, chosen in zip(meuse_grid.xy[::7], indices):
+        offsets = meuse.xy - target
+        pool = np.argsort(np.hypot(*offsets.T), kind="stable")[:8 * neighbours]
+        sector = np.minimum(((np.arctan2(offsets[pool, 0], offsets[pool, 1]) + np.pi) / (np.pi / 4)).astype(int), 7)
+        first = [int(j) for s in range(8) for j in pool[sector == s][:neighbours // 8]]
+        rest = [int(j) for j in pool if int(j) not in first][:neighbours - len(first)]
+        assert set(chosen.tolist()) == set(first + rest)
