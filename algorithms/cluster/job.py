@@ -150,6 +150,8 @@ class GridRun:
         The CRS's linear unit, for the log.
     lines : list of LogLine
         What preparing the run has to say.
+    singular : int
+        Cells left nodata because their neighbours made a singular system (local kriging), set by the runner.
     """
 
     predictor: KrigingPredictor | LocalKrigingPredictor
@@ -162,10 +164,16 @@ class GridRun:
     distance_path: str = ""
     units: str = "metre"
     lines: list[LogLine] = field(default_factory=list)
+    singular: int = 0
 
     def cell_predictor(self) -> CellPredictor:
         """Kriging at cell centres with the run's predictor (:func:`..predict.grid_surfaces.cell_predictor`)."""
         return cell_predictor(self.predictor)
+
+
+def singular_targets(predictor: KrigingPredictor | LocalKrigingPredictor) -> int:
+    """Cells a local predictor left nodata for a singular neighbour system so far (0 for global kriging)."""
+    return predictor.singular_targets if isinstance(predictor, LocalKrigingPredictor) else 0
 
 
 def job_grid(job: GridJob, xy: np.ndarray, document: ModelDocument) -> GridSpec:
