@@ -96,6 +96,8 @@ def parser() -> OneLineParser:
                        "sample spacing)")
     parse.add_argument("--template", default="", help="raster whose grid the outputs take (in the model's CRS), "
                        "instead of --extent and --pixel-size")
+    parse.add_argument("--template-nodata", choices=("mask", "map"), default="mask", help="mask (default): the "
+                       "--template's nodata cells stay nodata; map: krige them too")
     parse.add_argument("--map-area", choices=MAP_AREAS, default="hull", help="hull (default): only cells near the "
                        "samples' convex hull; extent: every cell")
     parse.add_argument("--hull-margin", type=number, help="how far the hull is grown (model CRS units; default: the "
@@ -136,7 +138,8 @@ def job_of(options: argparse.Namespace) -> GridJob:
     outputs = {kind: getattr(options, option.replace("-", "_")) for kind, option in OUTPUT_OPTIONS.items()}
     return GridJob(options.model, options.samples, options.field, outputs, options.extent, options.pixel_size,
                    options.template, options.layer, Neighbourhood(options.neighbours, options.search_radius),
-                   options.backtransform, options.threshold, options.interval, options.map_area, options.hull_margin)
+                   options.backtransform, options.threshold, options.interval, options.map_area, options.hull_margin,
+                   options.template_nodata)
 
 
 def runner(options: argparse.Namespace) -> Callable[[GridRun, Callable[[float], None]], NodataCounts]:
