@@ -16,7 +16,7 @@ import pytest
 from cluster_support import EXTENT, PIXEL, job_outputs, same_rasters
 
 from fieldcast.algorithms import GridJob, Neighbourhood, prepare_job, run_in_process
-from fieldcast.algorithms.cluster.cli import main
+from fieldcast.algorithms.cluster.cli import main, unresolved_words
 from repo_package import REPO_ROOT
 from requirements_check import skip_unless_available
 
@@ -61,6 +61,7 @@ REFUSALS = [
     ({"--pixel-size": "-5"}, "Enter a pixel size larger than zero"),
     ({"--extent": "0,0,900000,900000"}, "or leave --extent empty to use the samples' extent"),
     ({"--neighbours": "1"}, "Set --neighbours to 2 or more"),
+    ({"--layout": "vrt"}, "--layout vrt writes the blocks of a Dask run as tiles; give --workers or --scheduler"),
     ({"--map-area": "box"}, "argument --map-area: invalid choice: 'box' (choose from 'hull', 'extent')"),
     ({"--extent": "178605,329714,178705,329814", "--hull-margin": "0"},
      "Enlarge --hull-margin, or set --map-area to extent"),  # the lower left corner of the samples' box
@@ -135,3 +136,23 @@ def test_command_line_on_two_local_workers_equals_one_process(job_files, tmp_pat
                                        neighbourhood=Neighbourhood(16))))  # MAP_AREA hull, as the command line
     for kind in ("prediction", "sd"):
         assert same_rasters(outputs[kind], here[kind]), kind
+
+
+@skip_unless_available(HAVE_DASK, "dask and distributed are not installed (python3-dask, python3-distributed)")
+def test_command_line_vrt_layout_on_two_local_workers_equals_one_process(job_files, tmp_path):
+    options = {"--out": str(job_files.folder / "zinc.vrt"), "--neighbours": "16", "--workers": "2",
+               "--layout": "vrt"}
+    done = run_elsewhere(tmp_path, ["-m", f"{FOLDER_NAME}.algorithms.cluster", *arguments(job_files, **options)])
+    assert done.returncode == 0, done.stderr
+    assert sorted(path.name for path in job_files.folder.iterdir()) == ["zinc.vrt", "zinc_rows0000000.tif"]
+    assert 'relativeToVRT="1">zinc_rows0000000.tif<' in (job_files.folder / "zinc.vrt").read_text()
+    here = str(job_files.folder / "here.tif")
+    run_in_process(prepare_job(GridJob(job_files.model, job_files.samples, "zinc", {"prediction": here}, EXTENT,
+                                       PIXEL, neighbourhood=Neighbourhood(16))))
+    assert same_rasters(job_files.folder / "zinc.vrt", here)
+
+
+def test_cells_of_singular_neighbour_systems_are_counted_apart():
+    assert "1,200 cell(s) are nodata, 7 of them because their neighbours make a singular system" in \
+        unresolved_words(1200, 7)
+    assert "singular" not in unresolved_words(1200, 0)

@@ -15,7 +15,16 @@ from dataclasses import replace
 import pytest
 from cluster_support import EXTENT, KINDS, PIXEL, job_outputs, same_rasters
 
-from fieldcast.algorithms import Cancelled, GridJob, Neighbourhood, prepare_job, run_in_process, run_on_dask
+from fieldcast.algorithms import (
+    Cancelled,
+    CovarianceModel,
+    GridJob,
+    Neighbourhood,
+    Structure,
+    prepare_job,
+    run_in_process,
+    run_on_dask,
+)
 from fieldcast.algorithms.predict import grid_surfaces
 from repo_package import PACKAGE_NAME, REPO_ROOT
 from requirements_check import skip_unless_available
@@ -85,3 +94,20 @@ def test_cancelled_dask_run_leaves_no_file(job_files, scheduler, blocks_of_256_r
                     progress=asked.append)
     assert asked == [256 / 410]
     assert list(job_files.folder.iterdir()) == []  # no output, no tile and no temporary file
+
+
+def test_singular_neighbour_systems_are_counted_on_the_workers(job_files, scheduler, blocks_of_256_rows):
+    # Not a fitted model: a Gaussian correlation without nugget, chosen so that some local systems of 30 Meuse
+    # neighbours are numerically singular (the Gaussian family's matrices are notoriously ill-conditioned, from
+    # memory) and their cells are left nodata.
+    document = replace(job_files.document, covariance=CovarianceModel((Structure("gaussian", 0.6, 1000.0),)))
+    document.save(job_files.model)
+    job = GridJob(job_files.model, job_files.samples, "zinc", {}, EXTENT, PIXEL, neighbourhood=Neighbourhood(30),
+                  map_area="extent")
+    here = prepare_job(replace(job, outputs={"prediction": str(job_files.folder / "here.tif")}))
+    counts_here = run_in_process(here)
+    spread = prepare_job(replace(job, outputs={"prediction": str(job_files.folder / "dask.tif")}))
+    counts_spread = run_on_dask(spread, scheduler=scheduler)
+    assert 0 < spread.singular == here.singular <= counts_here.unresolved
+    assert counts_spread == counts_here
+    assert same_rasters(job_files.folder / "here.tif", job_files.folder / "dask.tif")
