@@ -28,7 +28,8 @@ PROGRAM = "fieldcast"
 OPTION_WORDS = {"EXTENT": "--extent", "PIXEL_SIZE": "--pixel-size", "TEMPLATE": "--template",
                 "NEIGHBOURS": "--neighbours", "SEARCH_RADIUS": "--search-radius", "THRESHOLD": "--threshold",
                 "INTERVAL_PROBABILITY": "--interval", "BACKTRANSFORM": "--backtransform",
-                "MAP_AREA": "--map-area", "HULL_MARGIN": "--hull-margin"}
+                "MAP_AREA": "--map-area", "HULL_MARGIN": "--hull-margin",
+                "TEMPLATE_NODATA_MASK to false": "--template-nodata map"}
 """Toolbox parameter names in the engine's messages, and the options that set them here."""
 DESCRIPTION = ("Krige a grid from a Fieldcast model file and point samples, in this process or on Dask. The results "
                "are model-based estimates: read the variance or standard error beside the prediction; decisions "

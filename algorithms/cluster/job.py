@@ -191,10 +191,10 @@ def job_grid(job: GridJob, xy: np.ndarray, document: ModelDocument) -> tuple[Gri
     """
     if not job.template:
         return output_grid(xy, job.extent, job.pixel_size, document.units), None
-    name = f"The template raster {os.path.basename(job.template)} (--template)"
+    name = f"the template raster {os.path.basename(job.template)} (--template)"
     template = RasterTemplate.read(job.template, name)
     if not same_crs(template.crs_wkt, document.crs_wkt):
-        raise FieldcastError(f"{name} is not in the model's CRS, so its cells would not line up with the model's "
+        raise FieldcastError(f"The{name[3:]} is not in the model's CRS, so its cells would not line up with the model's "
                              "distances. Warp it to the model's CRS first (gdalwarp -t_srs), or use --extent and "
                              "--pixel-size instead.")
     return template.grid, template

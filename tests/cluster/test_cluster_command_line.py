@@ -12,11 +12,14 @@ import os
 import subprocess
 import sys
 
+import numpy as np
 import pytest
 from cluster_support import EXTENT, PIXEL, job_outputs, same_rasters
+from osgeo import gdal
 
 from fieldcast.algorithms import GridJob, Neighbourhood, prepare_job, run_in_process
 from fieldcast.algorithms.cluster.cli import main, unresolved_words
+from qgis_process_support import COLUMNS, ROWS, TEMPLATE_NODATA, write_template
 from repo_package import REPO_ROOT
 from requirements_check import skip_unless_available
 
@@ -156,3 +159,23 @@ def test_cells_of_singular_neighbour_systems_are_counted_apart():
     assert "1,200 cell(s) are nodata, 7 of them because their neighbours make a singular system" in \
         unresolved_words(1200, 7)
     assert "singular" not in unresolved_words(1200, 0)
+
+
+@pytest.mark.parametrize(("kept", "advice"), [
+    (None, "Every cell of the template raster template.tif (--template) is nodata, so as a mask it keeps no cell. "
+           "Set --template-nodata map to use only its grid"),
+    ((slice(0, 10), slice(0, 10)), "No cell of the map area has a value in the template raster template.tif "
+                                   "(--template). Give --template-nodata map"),
+], ids=["all-nodata", "values-outside-the-hull"])
+def test_template_nodata_that_leaves_no_cell_is_refused(job_files, tmp_path, kept, advice):
+    template = write_template(tmp_path / "template.tif", nodata_block=False)
+    dataset = gdal.Open(template, gdal.GA_Update)
+    values = np.full((ROWS, COLUMNS), TEMPLATE_NODATA, dtype=np.int16)
+    if kept is not None:  # values only in the north-west corner, outside the samples' hull
+        values[kept] = 7
+    dataset.GetRasterBand(1).WriteArray(values)
+    dataset = None
+    status, text = run_main(arguments(job_files, **{"--template": template, "--extent": None,
+                                                    "--pixel-size": None}))
+    assert status == 2 and advice in text, text
+    assert list(job_files.folder.iterdir()) == []
