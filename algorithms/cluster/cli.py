@@ -137,6 +137,10 @@ def job_of(options: argparse.Namespace) -> GridJob:
         raise FieldcastError("--layout vrt writes the blocks of a Dask run as tiles; give --workers or --scheduler, "
                              "or leave out --layout to write GeoTIFFs in this process.")
     outputs = {kind: getattr(options, option.replace("-", "_")) for kind, option in OUTPUT_OPTIONS.items()}
+    for kind, path in outputs.items():
+        if options.layout == "vrt" and path and not path.lower().endswith(".vrt"):
+            raise FieldcastError(f"--layout vrt writes each output as a VRT, but --{OUTPUT_OPTIONS[kind]} is {path}. "
+                                 "Give it a name ending in .vrt, or leave out --layout.")
     return GridJob(options.model, options.samples, options.field, outputs, options.extent, options.pixel_size,
                    options.template, options.layer, Neighbourhood(options.neighbours, options.search_radius),
                    options.backtransform, options.threshold, options.interval, options.map_area, options.hull_margin,

@@ -194,9 +194,9 @@ def job_grid(job: GridJob, xy: np.ndarray, document: ModelDocument) -> tuple[Gri
     name = f"the template raster {os.path.basename(job.template)} (--template)"
     template = RasterTemplate.read(job.template, name)
     if not same_crs(template.crs_wkt, document.crs_wkt):
-        raise FieldcastError(f"The{name[3:]} is not in the model's CRS, so its cells would not line up with the model's "
-                             "distances. Warp it to the model's CRS first (gdalwarp -t_srs), or use --extent and "
-                             "--pixel-size instead.")
+        raise FieldcastError(f"The{name[3:]} is not in the model's CRS, so its cells would not line up with the "
+                             "model's distances. Warp it to the model's CRS first (gdalwarp -t_srs), or use --extent "
+                             "and --pixel-size instead.")
     return template.grid, template
 
 

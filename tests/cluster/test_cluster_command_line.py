@@ -65,6 +65,7 @@ REFUSALS = [
     ({"--extent": "0,0,900000,900000"}, "or leave --extent empty to use the samples' extent"),
     ({"--neighbours": "1"}, "Set --neighbours to 2 or more"),
     ({"--layout": "vrt"}, "--layout vrt writes the blocks of a Dask run as tiles; give --workers or --scheduler"),
+    ({"--layout": "vrt", "--workers": "2"}, "--layout vrt writes each output as a VRT, but --out is"),
     ({"--map-area": "box"}, "argument --map-area: invalid choice: 'box' (choose from 'hull', 'extent')"),
     ({"--extent": "178605,329714,178705,329814", "--hull-margin": "0"},
      "Enlarge --hull-margin, or set --map-area to extent"),  # the lower left corner of the samples' box
