@@ -1,7 +1,8 @@
 """The command line of the engine: a grid kriged from a model file outside QGIS, in one process or on Dask.
 
 ``python -m <plugin folder>.algorithms.cluster --model zinc.json --samples meuse.gpkg --field zinc
---pixel-size 10 --out zinc.tif [--variance zinc_var.tif] [--workers 2 | --scheduler tcp://host:8786]``
+--pixel-size 10 --out zinc.tif [--variance zinc_var.tif] [--workers 2 | --scheduler tcp://host:8786]
+[--layout vrt]``
 
 Every bad input ends the run with one line that says what to change and exit status 2; a cancel
 (Ctrl-C, SIGTERM) with status 130. No output file is left in either case.
@@ -20,13 +21,15 @@ from ..io.nodata_counts import NodataCounts
 from ..predict.choice import LogLine, Neighbourhood
 from ..predict.grid_surfaces import BACKTRANSFORMS
 from .job import MAP_AREAS, GridJob, GridRun, prepare_job
+from .stored_rasters import LAYOUTS
 
 PROGRAM = "fieldcast"
 """What starts every line the command line prints."""
 OPTION_WORDS = {"EXTENT": "--extent", "PIXEL_SIZE": "--pixel-size", "TEMPLATE": "--template",
                 "NEIGHBOURS": "--neighbours", "SEARCH_RADIUS": "--search-radius", "THRESHOLD": "--threshold",
                 "INTERVAL_PROBABILITY": "--interval", "BACKTRANSFORM": "--backtransform",
-                "MAP_AREA": "--map-area", "HULL_MARGIN": "--hull-margin"}
+                "MAP_AREA": "--map-area", "HULL_MARGIN": "--hull-margin",
+                "TEMPLATE_NODATA_MASK to false": "--template-nodata map"}
 """Toolbox parameter names in the engine's messages, and the options that set them here."""
 DESCRIPTION = ("Krige a grid from a Fieldcast model file and point samples, in this process or on Dask. The results "
                "are model-based estimates: read the variance or standard error beside the prediction; decisions "
@@ -94,6 +97,8 @@ def parser() -> OneLineParser:
                        "sample spacing)")
     parse.add_argument("--template", default="", help="raster whose grid the outputs take (in the model's CRS), "
                        "instead of --extent and --pixel-size")
+    parse.add_argument("--template-nodata", choices=("mask", "map"), default="mask", help="mask (default): the "
+                       "--template's nodata cells stay nodata; map: krige them too")
     parse.add_argument("--map-area", choices=MAP_AREAS, default="hull", help="hull (default): only cells near the "
                        "samples' convex hull; extent: every cell")
     parse.add_argument("--hull-margin", type=number, help="how far the hull is grown (model CRS units; default: the "
@@ -109,6 +114,9 @@ def parser() -> OneLineParser:
     parse.add_argument("--neighbours", type=whole_number, default=0, help="nearest samples per cell (default 0: "
                        "every sample, local kriging above 5,000)")
     parse.add_argument("--search-radius", type=number, help="largest distance of a neighbour (with --neighbours)")
+    parse.add_argument("--layout", choices=LAYOUTS, default="tiff", help="tiff (default): each output one tiled "
+                       "GeoTIFF; vrt: each output (give it a .vrt name) a VRT of one GeoTIFF per block of rows beside "
+                       "it (with --workers or --scheduler)")
     where = parse.add_mutually_exclusive_group()
     where.add_argument("--workers", type=whole_number, help="krige on a local Dask cluster of this many worker "
                        "processes (needs dask and distributed)")
@@ -125,10 +133,18 @@ def job_of(options: argparse.Namespace) -> GridJob:
     if options.workers is not None and options.workers < 1:
         raise FieldcastError(f"--workers is {options.workers}; a Dask cluster needs at least 1 worker. Give 1 or "
                              "more, or leave out --workers to run in this process.")
+    if options.layout == "vrt" and options.workers is None and not options.scheduler:
+        raise FieldcastError("--layout vrt writes the blocks of a Dask run as tiles; give --workers or --scheduler, "
+                             "or leave out --layout to write GeoTIFFs in this process.")
     outputs = {kind: getattr(options, option.replace("-", "_")) for kind, option in OUTPUT_OPTIONS.items()}
+    for kind, path in outputs.items():
+        if options.layout == "vrt" and path and not path.lower().endswith(".vrt"):
+            raise FieldcastError(f"--layout vrt writes each output as a VRT, but --{OUTPUT_OPTIONS[kind]} is {path}. "
+                                 "Give it a name ending in .vrt, or leave out --layout.")
     return GridJob(options.model, options.samples, options.field, outputs, options.extent, options.pixel_size,
                    options.template, options.layer, Neighbourhood(options.neighbours, options.search_radius),
-                   options.backtransform, options.threshold, options.interval, options.map_area, options.hull_margin)
+                   options.backtransform, options.threshold, options.interval, options.map_area, options.hull_margin,
+                   options.template_nodata)
 
 
 def runner(options: argparse.Namespace) -> Callable[[GridRun, Callable[[float], None]], NodataCounts]:
@@ -140,7 +156,7 @@ def runner(options: argparse.Namespace) -> Callable[[GridRun, Callable[[float], 
     from .dask_runner import import_distributed, run_on_dask
     import_distributed()
     return lambda run, progress: run_on_dask(run, workers=options.workers or 2, scheduler=options.scheduler,
-                                             progress=progress)
+                                             layout=options.layout, progress=progress)
 
 
 def printer(stream) -> Callable[[float], None]:
@@ -160,6 +176,16 @@ def say(lines: Sequence[LogLine], stream) -> None:
     for line in lines:
         prefix = "warning: " if line.level == "warning" else ""
         print(f"{PROGRAM}: {prefix}{command_words(line.text)}", file=stream)
+
+
+def unresolved_words(unresolved: int, singular: int) -> str:
+    """The warning for ``unresolved`` cells left nodata, ``singular`` of them for a singular neighbour system."""
+    if not singular:
+        return (f"{unresolved:,} cell(s) are nodata: fewer samples than the mean model needs lie within "
+                "--search-radius of them. Enlarge --search-radius, or leave it out, to fill them.")
+    return (f"{unresolved:,} cell(s) are nodata, {singular:,} of them because their neighbours make a singular "
+            "system (samples too close together for the model), the others for too few samples within "
+            "--search-radius. Change --neighbours, or merge samples that lie very close together, to fill them.")
 
 
 def main(argv: Sequence[str] | None = None, stream=None) -> int:
@@ -187,10 +213,7 @@ def main(argv: Sequence[str] | None = None, stream=None) -> int:
         print(f"{PROGRAM}: internal error ({type(exc).__name__}: {exc}). Please report it with the command line "
               "used.", file=stream)
         return 1
-    unresolved = ([LogLine("warning", f"{counts.unresolved:,} cell(s) are nodata: fewer samples than the mean "
-                                      "model needs lie within --search-radius of them, or their neighbours make a "
-                                      "singular system. Enlarge --search-radius, or leave it out, to fill them.")]
-                  if counts.unresolved else [])
+    unresolved = [LogLine("warning", unresolved_words(counts.unresolved, run.singular))] if counts.unresolved else []
     say(unresolved + [LogLine("warning", text) for text in counts.warnings()] + run.check.lines(run.units), stream)
     written = [path for path in job.outputs.values() if path]
     print(f"{PROGRAM}: wrote {', '.join(written)}.", file=stream)

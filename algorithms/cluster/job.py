@@ -71,6 +71,8 @@ class GridJob:
         nodata); ``"extent"``: every cell.
     hull_margin : float, optional
         How far the hull is grown (CRS units); None = the median sample spacing (:func:`..io.mask.hull_mask`).
+    template_nodata : str
+        ``"mask"``: the template's nodata cells stay nodata; ``"map"``: they are kriged too.
     """
 
     model: str
@@ -87,6 +89,7 @@ class GridJob:
     interval: float = 0.9
     map_area: str = "hull"
     hull_margin: float | None = None
+    template_nodata: str = "mask"
 
     def check_outputs(self) -> None:
         """Refuse outputs that cannot be written as asked, before any work.
@@ -150,6 +153,8 @@ class GridRun:
         The CRS's linear unit, for the log.
     lines : list of LogLine
         What preparing the run has to say.
+    singular : int
+        Cells left nodata because their neighbours made a singular system (local kriging), set by the runner.
     """
 
     predictor: KrigingPredictor | LocalKrigingPredictor
@@ -162,14 +167,21 @@ class GridRun:
     distance_path: str = ""
     units: str = "metre"
     lines: list[LogLine] = field(default_factory=list)
+    singular: int = 0
 
     def cell_predictor(self) -> CellPredictor:
         """Kriging at cell centres with the run's predictor (:func:`..predict.grid_surfaces.cell_predictor`)."""
         return cell_predictor(self.predictor)
 
 
-def job_grid(job: GridJob, xy: np.ndarray, document: ModelDocument) -> GridSpec:
-    """The grid of the job: the template's exactly, or EXTENT and PIXEL_SIZE (see :func:`..io.grid.output_grid`).
+def singular_targets(predictor: KrigingPredictor | LocalKrigingPredictor) -> int:
+    """Cells a local predictor left nodata for a singular neighbour system so far (0 for global kriging)."""
+    return predictor.singular_targets if isinstance(predictor, LocalKrigingPredictor) else 0
+
+
+def job_grid(job: GridJob, xy: np.ndarray, document: ModelDocument) -> tuple[GridSpec, RasterTemplate | None]:
+    """The grid of the job: the template's exactly (and the template), or EXTENT and PIXEL_SIZE (see
+    :func:`..io.grid.output_grid`; no template).
 
     Raises
     ------
@@ -178,14 +190,34 @@ def job_grid(job: GridJob, xy: np.ndarray, document: ModelDocument) -> GridSpec:
         size.
     """
     if not job.template:
-        return output_grid(xy, job.extent, job.pixel_size, document.units)
-    name = f"The template raster {os.path.basename(job.template)} (--template)"
+        return output_grid(xy, job.extent, job.pixel_size, document.units), None
+    name = f"the template raster {os.path.basename(job.template)} (--template)"
     template = RasterTemplate.read(job.template, name)
     if not same_crs(template.crs_wkt, document.crs_wkt):
-        raise FieldcastError(f"{name} is not in the model's CRS, so its cells would not line up with the model's "
-                             "distances. Warp it to the model's CRS first (gdalwarp -t_srs), or use --extent and "
-                             "--pixel-size instead.")
-    return template.grid
+        raise FieldcastError(f"The{name[3:]} is not in the model's CRS, so its cells would not line up with the "
+                             "model's distances. Warp it to the model's CRS first (gdalwarp -t_srs), or use --extent "
+                             "and --pixel-size instead.")
+    return template.grid, template
+
+
+def template_cells(template: RasterTemplate, inside: np.ndarray | None) -> tuple[np.ndarray | None, list[LogLine]]:
+    """``inside`` (None: every cell) without the template's nodata cells, and the log line that says how many.
+
+    Raises
+    ------
+    FieldcastError
+        When no cell of the map area has a value in the template.
+    """
+    valid = template.valid_cells()
+    if valid is None:
+        return inside, []
+    kept = valid if inside is None else valid & inside
+    if not kept.any():
+        raise FieldcastError(f"No cell of the map area has a value in {template.name}. Give --template-nodata map "
+                             "to krige its nodata cells too, or set --map-area to extent.")
+    return kept, [LogLine("info", f"Template nodata: {template.grid.n_cells - int(valid.sum()):,} of "
+                                  f"{template.grid.n_cells:,} cells are nodata in {template.name} and stay nodata "
+                                  "(give --template-nodata map to krige them).")]
 
 
 def map_area(job: GridJob, grid: GridSpec, xy: np.ndarray, units: str) -> tuple[np.ndarray | None, list[LogLine]]:
@@ -230,8 +262,11 @@ def prepare_job(job: GridJob) -> GridRun:
     if merged.merged_groups:
         lines.append(LogLine("info", f"Averaged {merged.merged_points} samples at {merged.merged_groups} shared "
                                      f"locations (in the modelling scale); {len(merged.values)} samples remain."))
-    grid = job_grid(job, merged.xy, document)
+    grid, template = job_grid(job, merged.xy, document)
     inside, area = map_area(job, grid, merged.xy, document.units)
+    if template is not None and job.template_nodata == "mask":
+        inside, nodata = template_cells(template, inside)
+        area += nodata
     scale = SurfaceScale(document.transform, job.backtransform, "point", job.threshold, job.interval)
     predictor, choice = choose_predictor(merged.xy, merged.values, document.covariance, document.mean,
                                          job.neighbourhood, units=document.units)

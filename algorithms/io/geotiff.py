@@ -162,6 +162,12 @@ class GeoTiffWriter:
     def __enter__(self) -> GeoTiffWriter:
         return self
 
+    @property
+    def staged_path(self) -> str:
+        """The temporary name the file is written under; after :meth:`commit` inside an
+        :class:`.staging.OutputSet` the finished file waits there for the set's commit."""
+        return self._temp_path
+
     def __exit__(self, exc_type, exc_value, traceback) -> None:
         if self._dataset is not None:
             self.abort()

@@ -12,11 +12,14 @@ import os
 import subprocess
 import sys
 
+import numpy as np
 import pytest
 from cluster_support import EXTENT, PIXEL, job_outputs, same_rasters
+from osgeo import gdal
 
 from fieldcast.algorithms import GridJob, Neighbourhood, prepare_job, run_in_process
-from fieldcast.algorithms.cluster.cli import main
+from fieldcast.algorithms.cluster.cli import main, unresolved_words
+from qgis_process_support import COLUMNS, ROWS, TEMPLATE_NODATA, write_template
 from repo_package import REPO_ROOT
 from requirements_check import skip_unless_available
 
@@ -61,6 +64,8 @@ REFUSALS = [
     ({"--pixel-size": "-5"}, "Enter a pixel size larger than zero"),
     ({"--extent": "0,0,900000,900000"}, "or leave --extent empty to use the samples' extent"),
     ({"--neighbours": "1"}, "Set --neighbours to 2 or more"),
+    ({"--layout": "vrt"}, "--layout vrt writes the blocks of a Dask run as tiles; give --workers or --scheduler"),
+    ({"--layout": "vrt", "--workers": "2"}, "--layout vrt writes each output as a VRT, but --out is"),
     ({"--map-area": "box"}, "argument --map-area: invalid choice: 'box' (choose from 'hull', 'extent')"),
     ({"--extent": "178605,329714,178705,329814", "--hull-margin": "0"},
      "Enlarge --hull-margin, or set --map-area to extent"),  # the lower left corner of the samples' box
@@ -135,3 +140,43 @@ def test_command_line_on_two_local_workers_equals_one_process(job_files, tmp_pat
                                        neighbourhood=Neighbourhood(16))))  # MAP_AREA hull, as the command line
     for kind in ("prediction", "sd"):
         assert same_rasters(outputs[kind], here[kind]), kind
+
+
+@skip_unless_available(HAVE_DASK, "dask and distributed are not installed (python3-dask, python3-distributed)")
+def test_command_line_vrt_layout_on_two_local_workers_equals_one_process(job_files, tmp_path):
+    options = {"--out": str(job_files.folder / "zinc.vrt"), "--neighbours": "16", "--workers": "2",
+               "--layout": "vrt"}
+    done = run_elsewhere(tmp_path, ["-m", f"{FOLDER_NAME}.algorithms.cluster", *arguments(job_files, **options)])
+    assert done.returncode == 0, done.stderr
+    assert sorted(path.name for path in job_files.folder.iterdir()) == ["zinc.vrt", "zinc_rows0000000.tif"]
+    assert 'relativeToVRT="1">zinc_rows0000000.tif<' in (job_files.folder / "zinc.vrt").read_text()
+    here = str(job_files.folder / "here.tif")
+    run_in_process(prepare_job(GridJob(job_files.model, job_files.samples, "zinc", {"prediction": here}, EXTENT,
+                                       PIXEL, neighbourhood=Neighbourhood(16))))
+    assert same_rasters(job_files.folder / "zinc.vrt", here)
+
+
+def test_cells_of_singular_neighbour_systems_are_counted_apart():
+    assert "1,200 cell(s) are nodata, 7 of them because their neighbours make a singular system" in \
+        unresolved_words(1200, 7)
+    assert "singular" not in unresolved_words(1200, 0)
+
+
+@pytest.mark.parametrize(("kept", "advice"), [
+    (None, "Every cell of the template raster template.tif (--template) is nodata, so as a mask it keeps no cell. "
+           "Set --template-nodata map to use only its grid"),
+    ((slice(0, 10), slice(0, 10)), "No cell of the map area has a value in the template raster template.tif "
+                                   "(--template). Give --template-nodata map"),
+], ids=["all-nodata", "values-outside-the-hull"])
+def test_template_nodata_that_leaves_no_cell_is_refused(job_files, tmp_path, kept, advice):
+    template = write_template(tmp_path / "template.tif", nodata_block=False)
+    dataset = gdal.Open(template, gdal.GA_Update)
+    values = np.full((ROWS, COLUMNS), TEMPLATE_NODATA, dtype=np.int16)
+    if kept is not None:  # values only in the north-west corner, outside the samples' hull
+        values[kept] = 7
+    dataset.GetRasterBand(1).WriteArray(values)
+    dataset = None
+    status, text = run_main(arguments(job_files, **{"--template": template, "--extent": None,
+                                                    "--pixel-size": None}))
+    assert status == 2 and advice in text, text
+    assert list(job_files.folder.iterdir()) == []

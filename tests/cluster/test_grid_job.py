@@ -7,7 +7,7 @@ checked against scipy.stats in tests/predict/test_grid_surfaces.py, so here the 
 from __future__ import annotations
 
 import pytest
-from cluster_support import EXTENT, KINDS, PIXEL, job_outputs, same_rasters
+from cluster_support import EXTENT, KINDS, PIXEL, job_outputs, read_raster, same_rasters
 
 from fieldcast.algorithms import (
     Cancelled,
@@ -24,6 +24,7 @@ from fieldcast.algorithms import (
     run_in_process,
     write_surfaces,
 )
+from qgis_process_support import COLUMNS, ROWS, write_template
 from reference import MEUSE_LOG_ZINC
 
 
@@ -60,3 +61,20 @@ def test_cancel_during_the_run_leaves_no_file(job_files):
     with pytest.raises(Cancelled):
         run_in_process(run, should_stop=second_call)
     assert list(job_files.folder.iterdir()) == []  # no output and no temporary file
+
+
+@pytest.mark.parametrize("nodata", ["mask", "map"])
+def test_template_nodata_cells_stay_nodata_unless_mapped(job_files, tmp_path, nodata):
+    template = write_template(tmp_path / "template.tif")  # its top-left 10 x 20 cells hold the nodata value
+    paths = job_outputs(job_files.folder, "template")
+    run = prepare_job(GridJob(job_files.model, job_files.samples, "zinc", {"prediction": paths["prediction"]},
+                              template=template, map_area="extent", template_nodata=nodata))
+    run_in_process(run)
+    values = read_raster(paths["prediction"])[0]
+    if nodata == "map":
+        assert run.inside is None and (values != -9999).all()
+    else:
+        assert run.inside.shape == (ROWS, COLUMNS) and not run.inside[:10, :20].any()
+        assert run.inside.sum() == ROWS * COLUMNS - 200
+        assert (values[:10, :20] == -9999).all() and (values[10:] != -9999).all()
+        assert any(line.text.startswith("Template nodata: 200 of 6,860 cells") for line in run.lines)
