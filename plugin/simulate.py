@@ -142,7 +142,7 @@ class SimulateAlgorithm(RasterAlgorithm):
          ("Polygon area table", "With AREAS: one row per polygon and realisation (no geometry): the polygon's "
           "feature id, the realisation's number, the polygon's area above the threshold (CRS units squared) and, "
           "with DEPTH, the volume above it. The spread over a polygon's rows is the uncertainty of its area to "
-          "act on; a design is only as good as the model, and access, safety and regulation come first.")],
+          "act on; it is only as good as the model behind it, and access, safety and regulation come first.")],
     )
 
     def initAlgorithm(self, config=None):
