@@ -19,7 +19,7 @@ NAME = re.compile(r"(?<![\w.'\"-])([A-Z][A-Z0-9]{2,}(?:_[A-Z0-9]+)*)(?!\w)")
 """An upper-case word of three or more characters, possibly joined by underscores."""
 
 ABBREVIATIONS = {"AIC", "BIC", "BFGS", "CRS", "EPSG", "FFT", "GDAL", "HTML", "JSON", "MSDR", "NULL", "QGIS", "SIGTERM",
-                 "REML", "RMSE", "UTM", "P10", "P50", "P90"}
+                 "REML", "RMSE", "UTM", "VRT", "P10", "P50", "P90"}
 """Upper-case words of messages that are abbreviations, not parameter names."""
 
 
