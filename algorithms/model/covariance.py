@@ -108,6 +108,8 @@ class Structure:
 
     def axis_offsets(self, dx: np.ndarray, dy: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         """Offsets along the major and minor axes, in CRS units."""
+        if self.azimuth == 0.0:  # the rotation below is then exact: skip its four array operations
+            return dy, dx
         theta = math.radians(self.azimuth)
         s, c = math.sin(theta), math.cos(theta)
         return dx * s + dy * c, dx * c - dy * s
@@ -142,13 +144,15 @@ class Structure:
         """Covariance ``partial_sill * rho(r)`` for offsets ``dx, dy``."""
         return self.partial_sill * correlation(self.family, self.scaled_distance(dx, dy), self.smoothness)
 
-    def gradients_from_offsets(self, dx: np.ndarray, dy: np.ndarray) -> dict[str, np.ndarray]:
+    def gradients_from_offsets(self, dx: np.ndarray, dy: np.ndarray, anisotropy: bool = True) -> dict[str, np.ndarray]:
         """Derivatives of the covariance with respect to the fit parameters.
 
         Keys are ``log_partial_sill``, ``log_range``, ``log_ratio`` and
-        ``azimuth`` (per radian). Derivatives with respect to the Matérn
-        smoothness are not given in closed form (the order derivative of
-        the Bessel function has none); the fitter differences them.
+        ``azimuth`` (per radian); the last two only when ``anisotropy`` (an
+        isotropic fit does not need them, and they cost a third of the work).
+        Derivatives with respect to the Matérn smoothness are not given in
+        closed form (the order derivative of the Bessel function has none);
+        the fitter differences them.
         """
         major, minor = self.axis_offsets(dx, dy)
         a, q = self.range, self.ratio
@@ -157,6 +161,8 @@ class Structure:
         r = np.sqrt(u * u + v * v)
         rho = correlation(self.family, r, self.smoothness)
         drho = self.partial_sill * correlation_derivative(self.family, r, self.smoothness)
+        if not anisotropy:
+            return {"log_partial_sill": self.partial_sill * rho, "log_range": -drho * r}
         safe_r = np.where(r > 0, r, 1.0)
         # r^2 = u^2 + v^2 with u = major / a, v = minor / (a q)
         dr_dlog_range = -r

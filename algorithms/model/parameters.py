@@ -230,7 +230,7 @@ def covariance_derivatives(
     covariance = np.zeros_like(dx)
     derivatives: list[tuple[int, np.ndarray, float]] = []
     for k, structure in enumerate(model.structures, start=1):
-        gradients = structure.gradients_from_offsets(dx, dy)
+        gradients = structure.gradients_from_offsets(dx, dy, layout.anisotropy)
         covariance += gradients["log_partial_sill"]
         derivatives.append((layout.index(f"log_partial_sill_{k}"), gradients["log_partial_sill"],
                             structure.partial_sill))
