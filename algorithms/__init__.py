@@ -173,6 +173,7 @@ _PUBLIC = {
     "output_grid": "io.grid",
     "cell_mask": "io.mask",
     "hull_mask": "io.mask",
+    "hull_map_area": "io.mask",
     "checked_cell_mask": "io.mask",
     "GeoTiffWriter": "io.geotiff",
     "NodataCounts": "io.nodata_counts",

@@ -30,7 +30,7 @@ from ..algorithms import (
     cell_predictor,
     choose_predictor,
     grid_targets,
-    hull_mask,
+    hull_map_area,
     neighbourhood_gap,
     write_surfaces,
 )
@@ -118,15 +118,8 @@ class SurfaceAlgorithm(RasterAlgorithm):
             if margin is not None:
                 feedback.pushWarning("HULL_MARGIN is ignored: MAP_AREA is extent, so every cell is mapped.")
             return grid, inside
-        near, margin = hull_mask(grid, xy, margin)
-        limited = near if inside is None else near & inside
-        if not limited.any():
-            raise FieldcastError(f"No cell centre lies within {margin:g} {units} of the samples' convex hull"
-                                 f"{' and inside the mask' if inside is not None else ''}. Enlarge HULL_MARGIN, "
-                                 "or set MAP_AREA to extent to map every cell.")
-        feedback.pushInfo(f"Map area: {int(limited.sum()):,} of {grid.n_cells:,} cells lie within {margin:.4g} {units} "
-                          "of the samples' convex hull (MAP_AREA hull, HULL_MARGIN); the others are nodata. Set "
-                          "MAP_AREA to extent to map every cell.")
+        limited, line = hull_map_area(grid, xy, margin, units, inside)
+        feedback.pushInfo(line)
         return grid, limited
 
     def cell_covariates(self, parameters, context, document: ModelDocument,

@@ -17,7 +17,7 @@ import numpy as np
 from ..errors import FieldcastError
 from ..io.crs import same_crs
 from ..io.grid import GridSpec, output_grid
-from ..io.mask import hull_mask
+from ..io.mask import hull_map_area
 from ..io.model_file import ModelDocument
 from ..io.samples import check_samples, merge_coincident
 from ..io.staging import refuse_read_only
@@ -232,13 +232,8 @@ def map_area(job: GridJob, grid: GridSpec, xy: np.ndarray, units: str) -> tuple[
         raise FieldcastError(f"MAP_AREA is {job.map_area!r}; choose one of {', '.join(MAP_AREAS)}.")
     if job.map_area == "extent":
         return None, []
-    inside, margin = hull_mask(grid, xy, job.hull_margin)
-    if not inside.any():
-        raise FieldcastError(f"No cell centre lies within {margin:g} {units} of the samples' convex hull. Enlarge "
-                             "HULL_MARGIN, or set MAP_AREA to extent to map every cell.")
-    return inside, [LogLine("info", f"Map area: {int(inside.sum()):,} of {grid.n_cells:,} cells lie within "
-                                    f"{margin:.4g} {units} of the samples' convex hull (MAP_AREA hull, HULL_MARGIN); "
-                                    "the others are nodata. Set MAP_AREA to extent to map every cell.")]
+    inside, line = hull_map_area(grid, xy, job.hull_margin, units)
+    return inside, [LogLine("info", line)]
 
 
 def prepare_job(job: GridJob) -> GridRun:

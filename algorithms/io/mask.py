@@ -134,6 +134,27 @@ def hull_mask(grid: GridSpec, xy: np.ndarray, margin: float | None = None) -> tu
     return cell_mask(grid, [area.ExportToWkb()]), margin
 
 
+def hull_map_area(grid: GridSpec, xy: np.ndarray, margin: float | None, units: str,
+                  inside: np.ndarray | None = None) -> tuple[np.ndarray, str]:
+    """The cells MAP_AREA hull keeps: :func:`hull_mask`, within ``inside`` (another mask, e.g. MASK) when given,
+    and the log line that says how many.
+
+    Raises
+    ------
+    FieldcastError
+        When no cell is kept (besides :func:`hull_mask`'s refusals).
+    """
+    near, margin = hull_mask(grid, xy, margin)
+    kept = near if inside is None else near & inside
+    if not kept.any():
+        raise FieldcastError(f"No cell centre lies within {margin:g} {units} of the samples' convex hull"
+                             f"{' and inside the mask' if inside is not None else ''}. Enlarge HULL_MARGIN, "
+                             "or set MAP_AREA to extent to map every cell.")
+    return kept, (f"Map area: {int(kept.sum()):,} of {grid.n_cells:,} cells lie within {margin:.4g} {units} of the "
+                  "samples' convex hull (MAP_AREA hull, HULL_MARGIN); the others are nodata. Set MAP_AREA to extent "
+                  "to map every cell.")
+
+
 def checked_cell_mask(grid: GridSpec, geometries: Sequence[bytes | str], layer_name: str = "layer",
                       units: str = "CRS unit") -> np.ndarray:
     """:func:`cell_mask`, refusing a mask that leaves no cell and saying why.
