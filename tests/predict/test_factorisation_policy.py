@@ -17,6 +17,7 @@ from fieldcast.algorithms.errors import FieldcastError
 from fieldcast.algorithms.linalg.batched import cholesky_stack
 from fieldcast.algorithms.linalg.condition_policy import (
     WARN_RECIPROCAL,
+    certified_reciprocal_condition,
     reciprocal_condition,
     refuse_level,
     stack_reciprocal_condition,
@@ -96,8 +97,8 @@ def test_local_64_neighbours_at_1000_m_leaves_refused_systems_unresolved_and_cou
     assert np.array_equal(unresolved, np.isnan(variance))
     assert unresolved.sum() > 0 and local.last_unresolved == unresolved.sum()
     assert local.singular_targets == unresolved.sum()  # every target has 64 samples in range
-    # Reference: numpy's exact condition number of each target's neighbour matrix (nearest 64 samples).
-    _, neighbours = cKDTree(meuse.xy).query(targets, k=64)
+    # Reference: numpy's exact condition number of each target's neighbour matrix (its 64 samples).
+    neighbours, _ = local.weights(targets)
     condition = np.array([one_norm_condition(gaussian(1000.0).data_covariance(meuse.xy[rows]))
                           for rows in neighbours])
     assert np.all(condition[unresolved] > 1.0 / refuse_level(64))  # refused only past the refuse level
@@ -114,7 +115,7 @@ def test_local_16_neighbours_at_1000_m_is_resolved_and_equals_a_reference_solve(
     # weights of opposite sign) are the model's exact answer: check the worst against the bordered ordinary-kriging
     # system (Cressie 1993, section 3.2) solved by scipy.
     worst = int(np.argmax(np.abs(mean - np.mean(log_zinc))))
-    _, rows = cKDTree(meuse.xy).query(targets[worst], k=16)
+    rows = local.weights(targets[worst:worst + 1])[0][0]
     model = gaussian(1000.0)
     system = np.ones((17, 17))
     system[:16, :16] = model.data_covariance(meuse.xy[rows])
@@ -146,3 +147,40 @@ def test_stacked_estimate_equals_lapack_dpocon_for_each_matrix(meuse):
         for matrix, ok, value in zip(matrices, positive, stacked):
             expected = reciprocal_condition(matrix, linalg.cholesky(matrix, lower=True)) if ok else 0.0
             assert value == pytest.approx(expected, rel=1e-8, abs=0.0)
+
+
+@pytest.mark.parametrize("k", [8, 32, 64])
+def test_certified_floor_never_exceeds_the_exact_reciprocal_condition(meuse, k):
+    # The floor (Golub & Van Loan 2013, Matrix Computations, sections 2.3.2 and 8.1) against numpy's exact 1-norm
+    # condition number, on the neighbour matrices (over the sill) of Meuse samples under the published-style
+    # spherical model with its nugget, with and without per-sample error variances.
+    rows = cKDTree(meuse.xy).query(meuse.xy[::5], k=k)[1]
+    errors = np.random.default_rng(3).uniform(0.0, 0.2, len(meuse.xy))  # invented error variances
+    sill = MEUSE_LOG_ZINC.sill
+    for error_variance in (np.zeros(len(meuse.xy)), errors):
+        for set_rows in rows:
+            own = error_variance[set_rows]
+            matrix = (MEUSE_LOG_ZINC.data_covariance(meuse.xy[set_rows]) + np.diag(own)) / sill
+            floor = certified_reciprocal_condition(k, (MEUSE_LOG_ZINC.nugget + own.min()) / sill,
+                                                   1.0 + own.max() / sill)
+            assert 0.0 < floor <= 1.0 / one_norm_condition(matrix)
+
+
+def test_local_decisions_are_those_of_the_estimate_alone(meuse, meuse_grid, log_zinc, constant, monkeypatch):
+    # Where the floor clears the warning level the estimate would too (it never underestimates the reciprocal
+    # condition, Hager 1984), so skipping it changes nothing: same predictions and tallies with the floor disabled,
+    # for a well-conditioned model with nugget and a Gaussian model without one (refused and warned systems).
+    import fieldcast.algorithms.predict.local as local_module
+    for model, k in ((MEUSE_LOG_ZINC, 32), (gaussian(1000.0), 64), (gaussian(300.0), 32)):
+        results = []
+        for disabled in (False, True):
+            if disabled:
+                monkeypatch.setattr(local_module, "certified_reciprocal_condition",
+                                    lambda size, least, largest: np.zeros(np.shape(least)))
+            local = LocalKrigingPredictor(meuse.xy, log_zinc, model, constant, neighbours=k)
+            mean, variance = local.predict(meuse_grid.xy[::4])
+            results.append((mean, variance, local.singular_targets, local.ill_conditioned_targets))
+            monkeypatch.undo()
+        np.testing.assert_array_equal(results[0][0], results[1][0])
+        np.testing.assert_array_equal(results[0][1], results[1][1])
+        assert results[0][2:] == results[1][2:]

@@ -124,10 +124,12 @@ def test_global_trend_variance_exceeds_simple_kriging_of_the_residuals(meuse, me
 def test_sector_search_takes_the_nearest_samples_of_each_sector(meuse, meuse_grid, log_zinc):
     # Sector search (common practice): of the 8 * 16 nearest candidates, the 2 nearest in each of 8 equal angular
     # sectors come first. Checked by brute force with numpy's sort on the isotropic Meuse model, whose search frame
-    # is (northing, easting): the major axis of azimuth 0 points north.
+    # is (northing, easting): the major axis of azimuth 0 points north. Each target searches its own
+    # (tile_spacings=None); tests/predict/test_neighbourhood.py checks the shared sets.
     mean = MeanModel.for_data("linear", meuse.xy)
     trend = estimate_trend(meuse.xy, log_zinc, MEUSE_LOG_ZINC, mean)
-    local = LocalKrigingPredictor(meuse.xy, log_zinc, MEUSE_LOG_ZINC, mean, neighbours=16, trend=trend, sectors=8)
+    local = LocalKrigingPredictor(meuse.xy, log_zinc, MEUSE_LOG_ZINC, mean, neighbours=16, trend=trend, sectors=8,
+                                  tile_spacings=None)
     targets = meuse_grid.xy[::50]
     indices, weights = local.weights(targets)
     assert np.all(np.isfinite(weights))
@@ -148,7 +150,7 @@ def test_sector_search_fills_the_other_slots_with_the_nearest_remaining_candidat
     # shorter first candidate list, so both the short and the full search are exercised.
     mean = MeanModel.for_data("linear", meuse.xy)
     local = LocalKrigingPredictor(meuse.xy, log_zinc, MEUSE_LOG_ZINC, mean, neighbours=neighbours, sectors=8,
-                                  trend=estimate_trend(meuse.xy, log_zinc, MEUSE_LOG_ZINC, mean))
+                                  trend=estimate_trend(meuse.xy, log_zinc, MEUSE_LOG_ZINC, mean), tile_spacings=None)
     indices, _ = local.weights(meuse_grid.xy[::7])
     for target, chosen in zip(meuse_grid.xy[::7], indices):
         offsets = meuse.xy - target

@@ -77,10 +77,12 @@ def test_local_kriging_equals_the_bordered_system_of_each_neighbourhood(data, me
     xy, values, error_variance = data
     mean_model = MeanModel.for_data("constant", xy)
     xy0 = meuse_grid.xy[::97]
-    mean, variance = LocalKrigingPredictor(xy, values, MEUSE_LOG_ZINC, mean_model, neighbours=16,
-                                           error_variance=error_variance).predict(xy0)
-    for j, target in enumerate(xy0):  # isotropic model: the search frame is the plain distance
-        near = np.argsort(np.hypot(*(xy - target).T))[:16]
+    predictor = LocalKrigingPredictor(xy, values, MEUSE_LOG_ZINC, mean_model, neighbours=16,
+                                      error_variance=error_variance)
+    mean, variance = predictor.predict(xy0)
+    sets, _ = predictor.weights(xy0)  # each target's neighbourhood (own or shared, tests/predict/test_neighbourhood.py)
+    for j, target in enumerate(xy0):
+        near = sets[j]
         local = MeanModel.for_data("constant", xy[near])
         expected_mean, expected_variance = bordered(xy[near], values[near], local.design(xy[near]), target[None],
                                                     local.design(target[None]), error_variance[near])

@@ -95,11 +95,14 @@ def test_fewer_neighbours_never_shrink_the_variance(meuse, meuse_grid, log_zinc,
     # The kriging predictor has the smallest error variance among unbiased linear predictors (Cressie 1993,
     # section 3.4; Goldberger 1962, JASA 57). The 8 nearest samples are a subset of the 64 nearest, which are a
     # subset of all, so the smaller set's predictor is a candidate for the larger: variance(k=8) >= variance(k=64)
-    # >= variance(global), up to round-off.
+    # >= variance(global), up to round-off. Each target searches its own nearest (tile_spacings=None), which makes
+    # the sets nested.
     mean = mean_model(kind, meuse, log_zinc)
     _, global_variance = KrigingPredictor(meuse.xy, log_zinc, model, mean).predict(meuse_grid.xy)
-    _, wide = LocalKrigingPredictor(meuse.xy, log_zinc, model, mean, neighbours=64).predict(meuse_grid.xy)
-    _, narrow = LocalKrigingPredictor(meuse.xy, log_zinc, model, mean, neighbours=8).predict(meuse_grid.xy)
+    _, wide = LocalKrigingPredictor(meuse.xy, log_zinc, model, mean, neighbours=64,
+                                    tile_spacings=None).predict(meuse_grid.xy)
+    _, narrow = LocalKrigingPredictor(meuse.xy, log_zinc, model, mean, neighbours=8,
+                                      tile_spacings=None).predict(meuse_grid.xy)
     round_off = 1e-9 * model.sill
     assert np.all(wide >= global_variance - round_off)
     assert np.all(narrow >= wide - round_off)
