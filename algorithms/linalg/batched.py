@@ -15,7 +15,12 @@ Computations*, 4th ed., section 3.1; from memory).
 """
 from __future__ import annotations
 
+import os
+
 import numpy as np
+
+WORKERS = min(4, os.cpu_count() or 1)
+"""Threads that factorise and solve stacks at once (numpy releases the GIL in its loops and LAPACK)."""
 
 
 def cholesky_stack(matrices: np.ndarray) -> tuple[np.ndarray, np.ndarray]:

@@ -25,6 +25,7 @@ neighbourhood's few samples never re-estimate, and extrapolate, the trend.
 """
 from __future__ import annotations
 
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
 
 import numpy as np
@@ -32,7 +33,7 @@ from scipy import linalg
 
 from ..errors import FieldcastError
 from ..fit.vecchia import DEFAULT_NEIGHBOURS, VecchiaPlan
-from ..linalg.batched import cholesky_stack, forward_substitution
+from ..linalg.batched import WORKERS, cholesky_stack, forward_substitution
 from ..linalg.condition_policy import CONDITION_ADVICE
 from ..model.covariance import CovarianceModel
 from ..model.mean import MeanModel
@@ -82,7 +83,8 @@ def _vecchia_whitened(points: np.ndarray, columns: np.ndarray, covariance: Covar
     own = np.zeros(len(points)) if error_variance is None else np.asarray(error_variance, dtype=float)[plan.order]
     m = plan.size
     whitened = np.empty_like(ordered)
-    for start in range(0, len(ordered), WHITEN_ROWS):
+
+    def whiten(start: int) -> None:
         rows = slice(start, start + WHITEN_ROWS)
         valid = plan.valid[rows]
         near = ordered_xy[plan.neighbours[rows]]  # (r, m, 2)
@@ -106,6 +108,9 @@ def _vecchia_whitened(points: np.ndarray, columns: np.ndarray, covariance: Covar
                                  "numerically singular at these samples. " + CONDITION_ADVICE)
         whitened[rows] = ((ordered[rows] - np.einsum("rj,rjc->rc", white_cross, white_columns))
                           / np.sqrt(conditional)[:, None])
+
+    with ThreadPoolExecutor(max_workers=WORKERS) as pool:
+        list(pool.map(whiten, range(0, len(ordered), WHITEN_ROWS)))  # list() re-raises a worker's refusal
     return whitened
 
 

@@ -49,7 +49,6 @@ for points by :meth:`KrigingPredictor.predict` and for blocks by
 """
 from __future__ import annotations
 
-import os
 from collections.abc import Callable
 from concurrent.futures import ThreadPoolExecutor
 
@@ -58,6 +57,7 @@ from scipy import linalg
 
 from ..errors import Cancelled, FieldcastError, FieldcastUsageError
 from ..io.samples import check_error_variance
+from ..linalg.batched import WORKERS
 from ..linalg.condition_policy import CONDITION_ADVICE, reciprocal_condition, usable, warning_text
 from ..model.covariance import CovarianceModel
 from ..model.mean import MeanModel
@@ -74,10 +74,6 @@ _BLOCK_ROWS = 128
 
 _PIECE_COLUMNS = 256
 """Targets per cross-covariance piece (keeps temporaries small enough for the cache)."""
-
-_WORKERS = min(4, os.cpu_count() or 1)
-"""Threads evaluating cross-covariance pieces (numpy releases the GIL in its loops)."""
-
 
 def as_points(xy: np.ndarray, what: str) -> np.ndarray:
     """Validate an (n, 2) coordinate array; raise FieldcastError naming ``what``."""
@@ -377,7 +373,7 @@ class KrigingPredictor:
         covariates0 = target_covariates(covariates0, total)
         prediction = np.empty((total,) + self._alpha.shape[1:])
         variance = np.empty(total)
-        with ThreadPoolExecutor(max_workers=_WORKERS) as pool:
+        with ThreadPoolExecutor(max_workers=WORKERS) as pool:
             for start in range(0, total, int(chunk_size)):
                 if should_stop is not None and should_stop():
                     raise Cancelled("Kriging prediction was cancelled.")
@@ -455,7 +451,7 @@ class KrigingPredictor:
         """
         targets = as_points(xy0, "Prediction locations")
         covariates0 = target_covariates(covariates0, len(targets))
-        with ThreadPoolExecutor(max_workers=_WORKERS) as pool:
+        with ThreadPoolExecutor(max_workers=WORKERS) as pool:
             cross = self._cross_covariance(targets, pool)
         whitened, gap = self._whitened_gap(cross, self.mean.design(targets, covariates0))
         return whitened, (self._trend_whiten(gap) if len(gap) else gap)
@@ -518,7 +514,7 @@ class KrigingPredictor:
         """
         targets = as_points(xy0, "Prediction locations")
         covariates0 = target_covariates(covariates0, len(targets))
-        with ThreadPoolExecutor(max_workers=_WORKERS) as pool:
+        with ThreadPoolExecutor(max_workers=WORKERS) as pool:
             cross = self._cross_covariance(targets, pool)
         whitened, gap = self._whitened_gap(cross, self.mean.design(targets, covariates0))
         if len(gap):

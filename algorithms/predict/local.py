@@ -129,7 +129,6 @@ from __future__ import annotations
 
 import math
 import numbers
-import os
 from collections.abc import Callable
 from concurrent.futures import ThreadPoolExecutor
 
@@ -138,7 +137,7 @@ from scipy.spatial import ConvexHull, QhullError, cKDTree
 
 from ..errors import Cancelled, FieldcastError, FieldcastUsageError
 from ..io.samples import check_error_variance
-from ..linalg.batched import back_substitution, cholesky_stack, forward_substitution
+from ..linalg.batched import WORKERS, back_substitution, cholesky_stack, forward_substitution
 from ..linalg.condition_policy import (
     WARN_RECIPROCAL,
     certified_reciprocal_condition,
@@ -157,9 +156,6 @@ from .kriging import (
     checked_variance,
     target_covariates,
 )
-
-WORKERS = min(4, os.cpu_count() or 1)
-"""Threads factorising and solving stacks at once (numpy releases the GIL in its loops and LAPACK)."""
 
 STACK_SIZE = 2048
 """Largest number of neighbour sets factorised, or targets solved, at once (bounds temporary memory)."""
