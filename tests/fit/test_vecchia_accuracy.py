@@ -16,11 +16,10 @@ from fieldcast.algorithms.fit.vecchia import (
     DEFAULT_NEIGHBOURS,
     VecchiaData,
     VecchiaPlan,
-    maximin_order,
-    previous_neighbours,
     vecchia_log_likelihood,
 )
 from fieldcast.algorithms.fit.vecchia_accuracy import vecchia_divergence
+from fieldcast.algorithms.fit.vecchia_order import maximin_order, previous_neighbours
 from fieldcast.algorithms.model.covariance import CovarianceModel, Structure
 from fieldcast.algorithms.model.mean import MeanModel
 from reference import gaussian_field
