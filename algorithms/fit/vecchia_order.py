@@ -152,9 +152,12 @@ class _CellGaps:
         self.block_max = self.by_block.max(axis=1)
 
     def largest(self) -> tuple[int, int]:
-        """The remaining sample of largest gap (lowest index among equal ones) and that gap's bits."""
+        """The remaining sample of largest gap (lowest index among equal ones) and that gap's bits; ``(-1,
+        _PLACED)`` when all are placed."""
         block = int(self.block_max.argmax())
         top = int(self.block_max[block])
+        if top == _PLACED:
+            return -1, top
         hits = np.flatnonzero(self.by_block[block] == top)
         if len(hits) == 1 and np.count_nonzero(self.block_max == top) == 1:
             return int(self.sample[block * GAP_BLOCK + hits[0]]), top
@@ -211,7 +214,7 @@ def maximin_order(points: np.ndarray) -> np.ndarray:
     gap = np.hypot(*(points - points[first]).T)
     tree = cKDTree(points)
     near, near_distance, reach = _nearest_lists(points, tree)
-    early_end = float(np.quantile(reach, EARLY_SHARE))
+    early_end = float(np.quantile(reach, EARLY_SHARE)) if np.isfinite(reach).all() else math.inf
     cells = _CellGaps(points, gap, CELL_SCALE * early_end if math.isfinite(early_end) else 0.0)
     cells.place(first, 0.0)
     order = [first]
@@ -286,7 +289,7 @@ def previous_neighbours(points: np.ndarray, m: int) -> tuple[np.ndarray, np.ndar
     valid = np.zeros((n, m), dtype=bool)
     start = 0
     while start < n and m > 0:
-        end = min(n, max(int(start * GROWTH), FIRST_BLOCK * m))
+        end = min(n, max(math.ceil(start * GROWTH), FIRST_BLOCK * m))
         tree = cKDTree(points[:end])
         for first in range(start, end, ROWS_PER_QUERY):
             pending = np.arange(first, min(first + ROWS_PER_QUERY, end))
