@@ -13,7 +13,7 @@ from scipy.spatial.distance import cdist
 from scipy.stats import multivariate_normal
 
 from cloud_gaps import true_covariance
-from fieldcast.algorithms.errors import FieldcastError
+from fieldcast.algorithms.errors import FieldcastError, FieldcastUsageError
 from fieldcast.algorithms.fit.likelihood import MeanBasis, log_likelihood
 from fieldcast.algorithms.fit.vecchia import (
     DEFAULT_NEIGHBOURS,
@@ -89,6 +89,7 @@ POINT_SETS = {
     "scattered 2000": lambda: scattered(2000, 21),
     "clustered": lambda: np.concatenate([scattered(700, 22) * 0.01 + 200.0, scattered(300, 23)]),
     "with duplicates": lambda: with_duplicates(24),
+    "20 repeats of 30 places": lambda: np.repeat(scattered(30, 27), 20, axis=0),
     "lattice 40 x 50": lambda: lattice_window(40, 50),
     "rotated lattice": lambda: lattice_window(30, 30) @ np.array([[0.6, 0.8], [-0.8, 0.6]]),
     "on a line": lambda: np.column_stack([np.arange(300.0), np.zeros(300)]),
@@ -142,9 +143,11 @@ def test_the_plan_orders_and_searches_in_the_structures_frame(anisotropic):
     assert small.size == 4 and np.array_equal(small.valid.sum(axis=1), np.arange(5))
 
 
-def test_the_ordering_refuses_missing_coordinates():
+def test_the_ordering_refuses_missing_coordinates_and_the_search_a_negative_count():
     with pytest.raises(FieldcastError, match="finite coordinates"):
         maximin_order(np.array([[0.0, 1.0], [np.nan, 2.0]]))
+    with pytest.raises(FieldcastUsageError, match="whole m >= 0"):
+        previous_neighbours(scattered(5, 1), -1)
 
 
 def test_each_sample_of_the_maximin_ordering_is_farthest_from_those_before():
