@@ -28,22 +28,8 @@ are applied to ``K~`` (same constant convention)::
 i.e. REML is the restricted likelihood of the Gaussian model with covariance
 ``K~`` (``log|K~| = sum log d_i``, ``F^T K~^-1 F = R^T Q~^T Q~ R``).
 
-Ordering. Exact maximin (Guinness 2018, *Technometrics* 60(4), 415-429, who
-found it gives markedly better approximations than coordinate or random
-orderings): the first sample is the one nearest the centroid, and each next
-one is the remaining sample farthest from all samples placed so far. Every
-sample thus comes after a cover of the region at its own spacing, so its
-previous neighbours surround it and some lie far away (they carry the long
-scales). Computed with a max-heap of each remaining sample's distance to the
-placed set, updated lazily: when sample ``i`` is placed at distance ``l_i``,
-only samples within ``l_i`` of it can get closer, and a k-d tree finds them.
-About ``O(n log^2 n)`` (``l_k`` falls like ``k^-1/2`` for a spread-out set);
-coincident samples come last.
-
-Neighbours. Found with :class:`scipy.spatial.cKDTree` in the anisotropy
-frame of a structure (:func:`..model.covariance.search_frame`; isotropic when
-none is given), by blocks of :data:`SEARCH_BLOCK` points in the ordering: a
-tree of all earlier blocks plus a direct search within the block.
+Ordering and conditioning sets: :mod:`.vecchia_order` (exact maximin
+ordering, Guinness 2018; each sample's nearest earlier samples).
 
 Gradient (analytic). For a parameter ``t``, with ``rho_i = (B z)_i`` the
 residual of ``z = y - Q beta``, ``G_i = (B Q)_i`` and ``A = Q~^T Q~``::
@@ -60,13 +46,11 @@ per sample; the covariance derivatives come from
 """
 from __future__ import annotations
 
-import heapq
 from collections.abc import Callable
 from dataclasses import dataclass
 
 import numpy as np
 from scipy import linalg
-from scipy.spatial import cKDTree
 
 from ..errors import Cancelled, FieldcastError
 from ..io.samples import check_samples
@@ -76,98 +60,15 @@ from ..model.covariance import CovarianceModel, Structure, search_frame
 from ..model.mean import MeanModel
 from ..model.parameters import ParameterLayout, covariance_derivatives
 from .likelihood import LIKELIHOOD_METHODS, LOG_2PI, OVERFLOW_REMEDY, TREND_WHAT, MeanBasis, check_finite_terms
+from .vecchia_order import maximin_order, previous_neighbours
 
 DEFAULT_NEIGHBOURS = 30
 """Conditioning-set size ``m``: from the measured accuracy/time curve of tools/vecchia_neighbours_curve.py
 (DEVELOPERS.md): at 30 the two-scale gap case loses under 1 of log-likelihood at 2,000 samples, and going to 40 or
 50 costs 1.5-2.5 times the evaluation time for under 0.6 more."""
 
-SEARCH_BLOCK = 1024
-"""Points per block of the previous-neighbour search."""
-
 ROWS_PER_PASS = 2048
 """Samples whose conditional systems are built and solved at once (bounds temporary memory)."""
-
-def maximin_order(points: np.ndarray) -> np.ndarray:
-    """Exact maximin ordering of the points (see module docstring).
-
-    Parameters
-    ----------
-    points : ndarray of shape (n, 2)
-
-    Returns
-    -------
-    ndarray of shape (n,)
-        A permutation: ``order[i]`` is the sample placed ``i``-th; ``order[i]`` is, among the samples not in
-        ``order[:i]``, one farthest from them (ties broken by the lower index).
-    """
-    n = len(points)
-    tree = cKDTree(points)
-    first = int(np.argmin(np.hypot(*(points - points.mean(axis=0)).T)))
-    gap = np.hypot(*(points - points[first]).T)  # distance of each sample to the placed ones
-    taken = np.zeros(n, dtype=bool)
-    taken[first] = True
-    heap = [(-g, i) for i, g in enumerate(gap.tolist()) if i != first]
-    heapq.heapify(heap)
-    order = [first]
-    while heap:
-        negative_gap, i = heapq.heappop(heap)
-        if taken[i] or -negative_gap != gap[i]:  # placed already, or a stale (larger) distance
-            continue
-        taken[i] = True
-        order.append(i)
-        near = np.asarray(tree.query_ball_point(points[i], -negative_gap), dtype=np.intp)
-        distance = np.hypot(*(points[near] - points[i]).T)
-        closer = (distance < gap[near]) & ~taken[near]
-        gap[near[closer]] = distance[closer]
-        for entry in zip((-distance[closer]).tolist(), near[closer].tolist()):
-            heapq.heappush(heap, entry)
-    return np.array(order, dtype=np.intp)
-
-
-def previous_neighbours(points: np.ndarray, m: int) -> tuple[np.ndarray, np.ndarray]:
-    """The ``m`` nearest earlier points of every point of an ordered set.
-
-    Parameters
-    ----------
-    points : ndarray of shape (n, 2)
-        Points in their Vecchia order.
-    m : int
-        Neighbours per point (point ``i`` has ``min(i, m)``).
-
-    Returns
-    -------
-    index : ndarray of int, shape (n, m)
-        Positions (in the ordering) of the neighbours, nearest first; 0 where missing.
-    valid : ndarray of bool, shape (n, m)
-        False where point ``i`` has fewer than ``m`` earlier points.
-    """
-    n = len(points)
-    index = np.zeros((n, m), dtype=np.intp)
-    distance = np.full((n, m), np.inf)
-    for start in range(0, n, SEARCH_BLOCK):
-        here = points[start:start + SEARCH_BLOCK]
-        size = len(here)
-        gap = np.hypot(here[:, None, 0] - here[None, :, 0], here[:, None, 1] - here[None, :, 1])
-        gap[np.triu_indices(size)] = np.inf  # only earlier points of the block
-        kept = min(m, size)
-        inside = np.argpartition(gap, kept - 1, axis=1)[:, :kept]
-        found_gap = [np.take_along_axis(gap, inside, axis=1)]
-        found_index = [inside + start]
-        if start:
-            kept = min(m, start)
-            tree_gap, tree_index = cKDTree(points[:start]).query(here, k=kept)
-            found_gap.append(tree_gap.reshape(size, kept))
-            found_index.append(tree_index.reshape(size, kept))
-        all_gap = np.concatenate(found_gap, axis=1)
-        all_index = np.concatenate(found_index, axis=1)
-        best = np.argsort(all_gap, axis=1, kind="stable")[:, :m]
-        width = best.shape[1]
-        distance[start:start + size, :width] = np.take_along_axis(all_gap, best, axis=1)
-        index[start:start + size, :width] = np.take_along_axis(all_index, best, axis=1)
-    valid = np.isfinite(distance)
-    index[~valid] = 0
-    return index, valid
 
 
 @dataclass(frozen=True)
