@@ -132,8 +132,8 @@ class _CellGaps:
         self.low_x, self.low_y = float(low[0]), float(low[1])
         extent = points.max(axis=0) - low
         n = len(points)
-        # at most about 13 n cells: side^2 >= area / 4n and side >= longest extent / 4n
-        self.side = max(side, math.sqrt(float(extent[0] * extent[1]) / (4 * n)), float(extent.max()) / (4 * n))
+        # at most 3 n + 1 cells: side^2 >= area / n and side >= longest extent / n
+        self.side = max(side, math.sqrt(float(extent[0] * extent[1]) / n), float(extent.max()) / n)
         if self.side == 0.0:  # all samples at one place
             self.side = 1.0
         self.columns, self.rows = (int(count) for count in extent // self.side + 1)
