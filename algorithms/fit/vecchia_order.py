@@ -183,15 +183,16 @@ class _CellGaps:
         last_column = min(int((x + reach - self.low_x) // self.side), (1 << 31) - 1)
         rows = self.occupied_rows[bisect.bisect_left(self.occupied_rows, int((y - reach - self.low_y) // self.side)):
                                   bisect.bisect_right(self.occupied_rows, int((y + reach - self.low_y) // self.side))]
+        cells, gap, xs, ys, by_block, block_max = self.cells, self.gap, self.x, self.y, self.by_block, self.block_max
         for row in rows:
-            start = bisect.bisect_left(self.cells, (row << 31) | first_column)
-            end = bisect.bisect_right(self.cells, (row << 31) | last_column)
+            start = bisect.bisect_left(cells, (row << 31) | first_column)
+            end = bisect.bisect_right(cells, (row << 31) | last_column)
             if start == end:
                 continue
-            gaps = self.gap[start:end]
-            np.minimum(gaps, _bits(np.hypot(self.x[start:end] - x, self.y[start:end] - y)), out=gaps)
+            gaps = gap[start:end]
+            np.minimum(gaps, np.hypot(xs[start:end] - x, ys[start:end] - y).view(np.int64), out=gaps)
             blocks = slice(start // GAP_BLOCK, (end - 1) // GAP_BLOCK + 1)
-            self.block_max[blocks] = self.by_block[blocks].max(axis=1)
+            block_max[blocks] = by_block[blocks].max(axis=1)
 
     def in_sample_order(self) -> np.ndarray:
         """The gap bits indexed by sample."""
