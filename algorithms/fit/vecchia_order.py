@@ -15,8 +15,8 @@ order is a pure function of the coordinates. Two phases:
 
 * early (while the largest gap is at least the :data:`EARLY_SHARE` quantile
   of the samples' :data:`NEAR_COUNT`-th neighbour distances, and above 0):
-  the samples sorted by square cells, so
-  the disc around ``i`` is a few contiguous runs (one per row of cells),
+  the samples sorted by square cells (only the occupied ones kept), so the
+  disc around ``i`` is a few contiguous runs (one per occupied row of cells),
   updated in place by ``numpy.minimum``; the largest gap is found from the
   maxima of blocks of :data:`GAP_BLOCK` samples;
 * late: each sample's :data:`NEAR_COUNT` nearest samples, found once by one
@@ -48,6 +48,7 @@ twice as many, until the answer is certain.
 """
 from __future__ import annotations
 
+import bisect
 import heapq
 import math
 
@@ -128,21 +129,24 @@ class _CellGaps:
     """The gaps of the early phase: samples sorted by square cells of side ``side``, gaps as bit patterns."""
 
     def __init__(self, points: np.ndarray, gap: np.ndarray, side: float) -> None:
+        """Cells of ``side`` (0: from the bounding box) over ``points``, holding their float gaps ``gap``."""
         low = points.min(axis=0)
         self.low_x, self.low_y = float(low[0]), float(low[1])
         extent = points.max(axis=0) - low
+        if side == 0.0:  # no spacing known: about one sample per cell of the bounding box
+            side = max(math.sqrt(float(extent[0] * extent[1]) / len(points)), float(extent.max()) / len(points))
+        # at most 2^30 cells along an axis, so a cell's id (row << 31 | column) fits an int64; only occupied cells
+        # are kept, so small cells cost nothing where there are no samples
+        self.side = max(side, float(extent.max()) / 2 ** 30) or 1.0
+        column = ((points[:, 0] - self.low_x) // self.side).astype(np.int64)
+        row = ((points[:, 1] - self.low_y) // self.side).astype(np.int64)
+        cell = (row << 31) | column  # the cells of a row from one column to another have consecutive ids
         n = len(points)
-        # at most about 13 n cells: side^2 >= area / 4n and side >= longest extent / 4n
-        self.side = max(side, math.sqrt(float(extent[0] * extent[1]) / (4 * n)), float(extent.max()) / (4 * n))
-        if self.side == 0.0:  # all samples at one place
-            self.side = 1.0
-        self.columns, self.rows = (int(count) for count in extent // self.side + 1)
-        cell = ((points[:, 1] - self.low_y) // self.side).astype(np.intp) * self.columns + (
-            (points[:, 0] - self.low_x) // self.side).astype(np.intp)
         self.sample = np.argsort(cell, kind="stable")  # sample at each cell-sorted position
         self.position = np.empty(n, dtype=np.intp)
         self.position[self.sample] = np.arange(n)
-        self.cell_start = np.searchsorted(cell[self.sample], np.arange(self.columns * self.rows + 1)).tolist()
+        self.cells = cell[self.sample].tolist()
+        self.occupied_rows = np.unique(row).tolist()
         self.x = points[self.sample, 0]
         self.y = points[self.sample, 1]
         self.margin = 1e-9 * float(np.abs(points).max())  # rounding of the cell index, in coordinate units
@@ -176,18 +180,19 @@ class _CellGaps:
         x, y = float(self.x[here]), float(self.y[here])
         reach = radius * (1.0 + 1e-9) + self.margin
         first_column = max(int((x - reach - self.low_x) // self.side), 0)
-        last_column = min(int((x + reach - self.low_x) // self.side), self.columns - 1)
-        first_row = max(int((y - reach - self.low_y) // self.side), 0)
-        last_row = min(int((y + reach - self.low_y) // self.side), self.rows - 1)
-        for row in range(first_row, last_row + 1):
-            start = self.cell_start[row * self.columns + first_column]
-            end = self.cell_start[row * self.columns + last_column + 1]
+        last_column = min(int((x + reach - self.low_x) // self.side), (1 << 31) - 1)
+        rows = self.occupied_rows[bisect.bisect_left(self.occupied_rows, int((y - reach - self.low_y) // self.side)):
+                                  bisect.bisect_right(self.occupied_rows, int((y + reach - self.low_y) // self.side))]
+        cells, gap, xs, ys, by_block, block_max = self.cells, self.gap, self.x, self.y, self.by_block, self.block_max
+        for row in rows:
+            start = bisect.bisect_left(cells, (row << 31) | first_column)
+            end = bisect.bisect_right(cells, (row << 31) | last_column)
             if start == end:
                 continue
-            gaps = self.gap[start:end]
-            np.minimum(gaps, _bits(np.hypot(self.x[start:end] - x, self.y[start:end] - y)), out=gaps)
+            gaps = gap[start:end]
+            np.minimum(gaps, np.hypot(xs[start:end] - x, ys[start:end] - y).view(np.int64), out=gaps)
             blocks = slice(start // GAP_BLOCK, (end - 1) // GAP_BLOCK + 1)
-            self.block_max[blocks] = self.by_block[blocks].max(axis=1)
+            block_max[blocks] = by_block[blocks].max(axis=1)
 
     def in_sample_order(self) -> np.ndarray:
         """The gap bits indexed by sample."""
@@ -219,7 +224,7 @@ def maximin_order(points: np.ndarray) -> np.ndarray:
     tree = cKDTree(points)
     near, near_distance, reach = _nearest_lists(points, tree)
     early_end = float(np.quantile(reach, EARLY_SHARE)) if np.isfinite(reach).all() else math.inf
-    cells = _CellGaps(points, gap, CELL_SCALE * early_end if math.isfinite(early_end) else 0.0)
+    cells = _CellGaps(points, gap, CELL_SCALE * early_end if math.isfinite(early_end) else 0.0)  # 0: unknown
     cells.place(first, 0.0)
     order = [first]
     # infinite when every list holds all samples (no early phase); at least 1, the smallest positive float, so

@@ -90,6 +90,7 @@ POINT_SETS = {
     "clustered": lambda: np.concatenate([scattered(700, 22) * 0.01 + 200.0, scattered(300, 23)]),
     "with duplicates": lambda: with_duplicates(24),
     "20 repeats of 30 places": lambda: np.repeat(scattered(30, 27), 20, axis=0),
+    "one far sample": lambda: np.concatenate([scattered(800, 28) * 1e-3, [[1e5, -3.0]]]),
     "lattice 40 x 50": lambda: lattice_window(40, 50),
     "rotated lattice": lambda: lattice_window(30, 30) @ np.array([[0.6, 0.8], [-0.8, 0.6]]),
     "on a line": lambda: np.column_stack([np.arange(300.0), np.zeros(300)]),
