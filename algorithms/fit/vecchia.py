@@ -212,6 +212,14 @@ class VecchiaPlan:
         """Largest conditioning-set size ``m``."""
         return self.neighbours.shape[1]
 
+    def nearest(self, neighbours: int) -> VecchiaPlan:
+        """The same ordering with each set cut to its ``neighbours`` nearest (the sets are kept nearest first), as
+        :meth:`build` with that count gives them (up to ties in distance); at most :attr:`size`."""
+        if neighbours >= self.size:
+            return self
+        return VecchiaPlan(self.order, np.ascontiguousarray(self.neighbours[:, :neighbours]),
+                           np.ascontiguousarray(self.valid[:, :neighbours]))
+
 
 @dataclass(frozen=True)
 class VecchiaTerms:

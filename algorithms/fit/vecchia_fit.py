@@ -15,15 +15,21 @@ two steps:
    subset misses the short scale).
 2. Vecchia refinement on all samples. L-BFGS-B with the analytic Vecchia
    gradient, on the same standardised units and parameter bounds as the
-   exact fit (:mod:`.search`, :mod:`..model.parameters`). The conditioning sets
-   (``FitOptions.likelihood_neighbours`` of them per sample) are searched in the
+   exact fit (:mod:`.search`, :mod:`..model.parameters`), first with
+   :data:`WARM_START_NEIGHBOURS` (10) conditioning neighbours per sample, then,
+   from that estimate, with ``FitOptions.likelihood_neighbours`` of them (the
+   warm start of Guinness 2021). The conditioning sets are searched in the
    anisotropy frame of the starting model and kept fixed while optimising (so
-   the objective is smooth); for an anisotropic model they are searched again in
-   the frame of the estimate and the optimiser restarts from it once.
+   the objective is smooth); the sets of 10 are the nearest 10 of the full
+   sets. An isotropic frame does not depend on the parameters, so all
+   isotropic fits share one ordering and one set of neighbours; for an
+   anisotropic model the sets are searched again in the frame of the estimate
+   and the optimiser restarts from it once.
 3. Number of scales (``kernel="auto"``, ``nested`` off). The subset also chooses
    the family of a two-structure model (a second exact fit, ``nested`` on), which
    is then fitted on all samples too, from the best (by Vecchia likelihood) of
-   that subset fit and the starts of :mod:`.vecchia_scales`; the model with the
+   that subset fit and the starts of :mod:`.vecchia_scales`, compared with 10
+   neighbours as the first optimisation runs; the model with the
    lower AIC on the Vecchia likelihood is kept, and both are listed as candidates.
 
 The reported log-likelihood, AIC and BIC are those of the Vecchia
@@ -40,6 +46,7 @@ import numpy as np
 
 from ..errors import FieldcastError
 from ..io.samples import check_samples
+from ..model.covariance import CovarianceModel
 from ..model.parameters import ParameterLayout, parameter_bounds
 from .bound_warnings import bound_warnings
 from .data_warnings import data_warnings
@@ -68,19 +75,51 @@ statistical uncertainty: a change of 0.5 in ``l`` is about one standard error al
 GRADIENT_TOLERANCE = 1e-2
 """... or when no log-likelihood derivative (per log-parameter) exceeds this."""
 
+WARM_START_NEIGHBOURS = 10
+"""Conditioning-set size of the first optimisation of every fit on all samples, whose estimate starts the one with
+``FitOptions.likelihood_neighbours``: an evaluation with 10 neighbours costs a fraction of one with 30, and the
+optimum moves little between them, so the costly evaluations are spent near the optimum (Guinness 2021, *Stat.
+Comput.* 31:25, does the same and reports that it saves most of the time)."""
 
-def _optimise(problem: SearchProblem, layout: ParameterLayout, start: np.ndarray, neighbours: int,
+
+class _Plans:
+    """Conditioning sets of the fits on all samples.
+
+    The maximin ordering and the nearest previous neighbours of an isotropic model do not depend on its
+    parameters, so every isotropic fit shares one plan; an anisotropic model gets a plan searched in its own frame.
+    """
+
+    def __init__(self, xy: np.ndarray, neighbours: int) -> None:
+        self.xy, self.neighbours = xy, neighbours
+        self._isotropic: VecchiaPlan | None = None
+
+    def for_model(self, model: CovarianceModel, anisotropy: bool) -> VecchiaPlan:
+        """The plan whose sets are searched in the frame of ``model`` (shared when ``anisotropy`` is off)."""
+        if anisotropy:
+            return VecchiaPlan.build(self.xy, self.neighbours, model.structures[0])
+        if self._isotropic is None:
+            self._isotropic = VecchiaPlan.build(self.xy, self.neighbours)
+        return self._isotropic
+
+
+def _optimise(problem: SearchProblem, layout: ParameterLayout, start: np.ndarray, plans: _Plans,
               progress: Callable[[float], None] | None) -> tuple[np.ndarray, float, np.ndarray, str | None]:
-    """Vecchia fit from ``start`` (sets rebuilt once for anisotropy).
+    """Vecchia fit from ``start``: warm start with :data:`WARM_START_NEIGHBOURS`, then all ``m`` (sets searched
+    again in the frame of the estimate for anisotropy).
 
     Returns ``theta``, ``-2 l``, the basis coefficients and the last run's :func:`.minimiser.convergence_warning`.
     """
     bounds = parameter_bounds(layout, problem.internal_scales)
     theta = clamped(start, bounds)
-    rounds = 2 if layout.anisotropy else 1
+    plan = plans.for_model(layout.unpack(theta), layout.anisotropy)
+    runs = [plan.nearest(WARM_START_NEIGHBOURS)] if plan.size > WARM_START_NEIGHBOURS else []
+    runs.append(plan)
+    rounds = len(runs) + (1 if layout.anisotropy else 0)
     for round_index in range(rounds):
-        plan = VecchiaPlan.build(problem.xy, neighbours, layout.unpack(theta).structures[0])
-        data = VecchiaData(problem.xy, problem.y, problem.basis, problem.method, plan, problem.error_variance)
+        if round_index == len(runs):
+            runs.append(plans.for_model(layout.unpack(theta), layout.anisotropy))
+        data = VecchiaData(problem.xy, problem.y, problem.basis, problem.method, runs[round_index],
+                           problem.error_variance)
 
         def on_step(evaluations: int, done: int = round_index) -> None:
             if progress is not None:
@@ -115,16 +154,17 @@ def _candidate(problem: SearchProblem, layout: ParameterLayout, theta: np.ndarra
 
 
 def _two_scale_fit(problem: SearchProblem, single: ParameterLayout, theta: np.ndarray, nested: CandidateFit,
-                   neighbours: int, progress: Callable[[float], None] | None
+                   plans: _Plans, progress: Callable[[float], None] | None
                    ) -> tuple[ParameterLayout, tuple[np.ndarray, float, np.ndarray, str | None]]:
-    """The two-structure Vecchia fit from the best start (by Vecchia likelihood): the subset's two-structure fit
-    ``nested`` and, when it has the one-structure fit's family, :func:`.vecchia_scales.two_scale_starts`."""
+    """The two-structure Vecchia fit from the best start (by the Vecchia likelihood with
+    :data:`WARM_START_NEIGHBOURS`, that of its first optimisation): the subset's two-structure fit ``nested``
+    and, when it has the one-structure fit's family, :func:`.vecchia_scales.two_scale_starts`."""
     layout = ParameterLayout(nested.family, 2, nested.anisotropy, single.smoothness, single.nugget)
     subset_model = problem.to_internal_units(nested.covariance)
     starts = [subset_model]
     if nested.family == single.family and nested.anisotropy == single.anisotropy:
         starts += two_scale_starts(problem, single.unpack(theta), subset_model)
-    plan = VecchiaPlan.build(problem.xy, neighbours, subset_model.structures[0])
+    plan = plans.for_model(subset_model, layout.anisotropy).nearest(WARM_START_NEIGHBOURS)
     data = VecchiaData(problem.xy, problem.y, problem.basis, problem.method, plan, problem.error_variance)
     scored = []
     for start in starts:
@@ -133,7 +173,7 @@ def _two_scale_fit(problem: SearchProblem, single: ParameterLayout, theta: np.nd
             packed[layout.index("azimuth")] = math.radians(start.structures[0].azimuth)
         scored.append((data.evaluate(start).minus_two_log_likelihood, packed))
     best = min(scored, key=lambda pair: pair[0])[1]
-    return layout, _optimise(problem, layout, best, neighbours, progress)
+    return layout, _optimise(problem, layout, best, plans, progress)
 
 
 def fit_vecchia(xy: np.ndarray, values: np.ndarray, options: FitOptions, *, subset_size: int = SUBSET_SIZE,
@@ -194,14 +234,15 @@ def fit_vecchia(xy: np.ndarray, values: np.ndarray, options: FitOptions, *, subs
                              problem.nugget)
     start = layout.pack(problem.to_internal_units(chosen.covariance))
     stage = None if progress is None else (lambda f: progress(share + (0.65 - share) * (f - 0.5) / 0.5))
-    theta, minus_two, coefficients, stopped = _optimise(problem, layout, start, neighbours,
+    plans = _Plans(problem.xy, neighbours)
+    theta, minus_two, coefficients, stopped = _optimise(problem, layout, start, plans,
                                                         stage if compare_scales else progress)
     fits = [(_candidate(problem, layout, theta, minus_two, stopped, options.units), layout, coefficients)]
     if compare_scales:
         later = None if progress is None else (lambda f: progress(0.65 + 0.35 * (f - 0.5) / 0.5))
         subset_nested = min(rough[1].candidates, key=lambda c: c.aic)
         two, (theta2, minus_two2, coefficients2, stopped2) = _two_scale_fit(problem, layout, theta, subset_nested,
-                                                                           neighbours, later)
+                                                                           plans, later)
         fits.append((_candidate(problem, two, theta2, minus_two2, stopped2, options.units), two, coefficients2))
     candidate, layout, basis_coefficients = min(fits, key=lambda fit: fit[0].aic)
     model = candidate.covariance
