@@ -66,7 +66,9 @@ also gives the covariance itself.
 from __future__ import annotations
 
 import heapq
+import os
 from collections.abc import Callable
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
 
 import numpy as np
@@ -76,6 +78,7 @@ from scipy.spatial import cKDTree
 from ..errors import Cancelled, FieldcastError
 from ..io.samples import check_samples
 from ..linalg.batched import back_substitution, cholesky_stack, forward_substitution
+from ..linalg.blas_threads import single_blas_thread
 from ..linalg.condition_policy import FIT_CONDITION_ADVICE, checked_cholesky
 from ..model.covariance import CovarianceModel, Structure, search_frame
 from ..model.mean import MeanModel
@@ -92,6 +95,11 @@ SEARCH_BLOCK = 1024
 
 ROWS_PER_PASS = 2048
 """Samples whose conditional systems are built and solved at once (bounds temporary memory)."""
+
+PASS_THREADS = min(os.cpu_count() or 1, 4)
+"""Threads that build and solve the passes of one evaluation at once (numpy releases the interpreter lock in its
+array loops and factorisations; BLAS is held to one thread meanwhile). On the 2-core development machine two threads
+cut an evaluation of 26,250 samples with 30 neighbours from 2.2-2.5 s to 1.1-1.5 s (measured under a load of 1.5)."""
 
 def maximin_order(points: np.ndarray) -> np.ndarray:
     """Exact maximin ordering of the points (see module docstring).
@@ -354,11 +362,13 @@ class VecchiaData:
                  should_stop: Callable[[], bool] | None = None) -> VecchiaTerms:
         """``-2 l`` of ``model`` and, when a layout is given, its gradient in that layout's parameters."""
         n, p = self.q.shape
-        parts = []
-        for start in range(0, n, ROWS_PER_PASS):
+        def one_pass(start: int) -> dict[str, np.ndarray]:
             if should_stop is not None and should_stop():
                 raise Cancelled("The likelihood evaluation was cancelled.")
-            parts.append(self._conditionals(model, slice(start, min(start + ROWS_PER_PASS, n)), layout))
+            return self._conditionals(model, slice(start, min(start + ROWS_PER_PASS, n)), layout)
+
+        with single_blas_thread(), ThreadPoolExecutor(PASS_THREADS) as pool:
+            parts = list(pool.map(one_pass, range(0, n, ROWS_PER_PASS)))
         joined = {key: np.concatenate([part[key] for part in parts]) for key in parts[0] if key != "b"}
         d = joined["d"]
         if not np.all(d > 0):
