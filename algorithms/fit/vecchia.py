@@ -62,6 +62,21 @@ samples, beside the value's, keeps these few numbers per sample and
 parameter, and the gradient is summed once ``beta`` is known. The covariance
 derivatives come from :func:`.parameters.covariance_derivatives`, which
 also gives the covariance itself.
+
+Information (Guinness 2021, *Stat. Comput.* 31:25, section 3). ``y_i`` given
+``y_N(i)`` is normal with mean ``b_i^T y_N(i)`` and variance ``d_i``; the
+expected product of the scores of that conditional, with ``y_N(i)`` of
+covariance ``K_N``, summed over the samples, is the expected Hessian of
+``-2 l``::
+
+    I_jk = sum_i 2 db_ij^T K_N db_ik / d_i + dd_ij dd_ik / d_i^2
+         = sum_i 2 (L^-1 r_ij)^T (L^-1 r_ik) / d_i + dd_ij dd_ik / d_i^2   (K_N = L L^T)
+
+With all previous samples as neighbours it is twice the Fisher information
+``1/2 tr(K^-1 dK_j K^-1 dK_k)`` of the covariance parameters (Harville 1977,
+*JASA* 72, 320-338; the mean's block is zero). The same matrix serves the
+REML fit: the restricted information ``1/2 tr(P dK_j P dK_k)`` differs from it
+by terms in the ``p`` trend columns, small beside the ``n`` of the sum.
 """
 from __future__ import annotations
 
@@ -231,11 +246,13 @@ class VecchiaPlan:
 
 @dataclass(frozen=True)
 class VecchiaTerms:
-    """One evaluation: ``-2 l``, GLS coefficients for the columns of ``Q``, optional gradient."""
+    """One evaluation: ``-2 l``, GLS coefficients for the columns of ``Q``, optional gradient and information (the
+    expected Hessian of ``-2 l``, see the module docstring)."""
 
     minus_two_log_likelihood: float
     basis_coefficients: np.ndarray
     gradient: np.ndarray | None
+    information: np.ndarray | None = None
 
 
 class VecchiaData:
@@ -282,10 +299,11 @@ class VecchiaData:
         neighbours = np.where(valid, self.error_variance[np.where(valid, self.plan.neighbours[rows], 0)], 0.0)
         return np.concatenate([neighbours, self.error_variance[rows, None]], axis=1)
 
-    def _conditionals(self, model: CovarianceModel, rows: slice,
-                      layout: ParameterLayout | None = None) -> dict[str, np.ndarray]:
+    def _conditionals(self, model: CovarianceModel, rows: slice, layout: ParameterLayout | None = None,
+                      information: bool = False) -> dict[str, np.ndarray]:
         """``b_i``, ``d_i``, ``(B y)_i``, ``(B Q)_i`` and ``K_N^-1 [y_N, Q_N]`` for the rows; with a ``layout`` also
-        the per-sample derivative pieces ``dd_i``, ``y_N^T db_i`` and ``Q_N^T db_i`` of every parameter."""
+        the per-sample derivative pieces ``dd_i``, ``y_N^T db_i`` and ``Q_N^T db_i`` of every parameter, and with
+        ``information`` the rows' share of the information matrix."""
         m = self.plan.size
         first, second = self._triangle
         valid = self.plan.valid[rows]
@@ -322,13 +340,16 @@ class VecchiaData:
             "solved_q": solved[:, :, 2:],
         }
         if layout is not None:
-            part.update(self._derivative_pieces(layout, model, rows, derivatives, part))
+            part.update(self._derivative_pieces(layout, model, rows, derivatives, part,
+                                                factors if information else None))
         return part
 
     def _derivative_pieces(self, layout: ParameterLayout, model: CovarianceModel, rows: slice,
-                           derivatives: list[tuple[int, np.ndarray, float]],
-                           part: dict[str, np.ndarray]) -> dict[str, np.ndarray]:
-        """``dd_i`` (c, P), ``y_N^T db_i`` (c, P) and ``Q_N^T db_i`` (c, P, p) of every parameter.
+                           derivatives: list[tuple[int, np.ndarray, float]], part: dict[str, np.ndarray],
+                           factors: np.ndarray | None) -> dict[str, np.ndarray]:
+        """``dd_i`` (c, P), ``y_N^T db_i`` (c, P) and ``Q_N^T db_i`` (c, P, p) of every parameter; with the Cholesky
+        ``factors`` of the ``K_N``, also the rows' share of the information,
+        ``sum_i 2 db_i^T K_N db_i / d_i + dd_i dd_i^T / d_i^2`` with ``db_j^T K_N db_k = (L^-1 r_j)^T (L^-1 r_k)``.
 
         With ``e_i = (b_i, -1)``: ``dK e_i = (-r_i, dc_i^T b_i - dC(0))`` with ``r_i = dc_i - dK_N b_i``, so
         ``dd_i = e_i^T dK e_i`` and ``x^T db_i = (K_N^-1 x)^T r_i`` (``dK``: the derivative of the joint set's
@@ -347,8 +368,14 @@ class VecchiaData:
         if layout.nugget is None:  # dK = nugget I on the joint set
             product[:, layout.index("log_nugget")] = model.nugget * e
         r = np.where(self.plan.valid[rows, None, :], -product[:, :, :m], 0.0)
-        return {"dd": np.einsum("cka,ca->ck", product, e), "yr": np.einsum("ckj,cj->ck", r, part["solved_y"]),
-                "qr": r @ part["solved_q"]}
+        pieces = {"dd": np.einsum("cka,ca->ck", product, e), "yr": np.einsum("ckj,cj->ck", r, part["solved_y"]),
+                  "qr": r @ part["solved_q"]}
+        if factors is not None:
+            white_r = forward_substitution(factors, np.swapaxes(r, 1, 2)) / np.sqrt(part["d"])[:, None, None]
+            scaled_dd = pieces["dd"] / part["d"][:, None]
+            pieces["information"] = (2.0 * np.einsum("cmj,cmk->jk", white_r, white_r)
+                                     + scaled_dd.T @ scaled_dd)[None]
+        return pieces
 
     def regression(self, model: CovarianceModel) -> tuple[np.ndarray, np.ndarray]:
         """The regression coefficients ``b_i`` (rows, over ``plan.neighbours``; 0 where missing) and the conditional
@@ -359,13 +386,14 @@ class VecchiaData:
         return np.concatenate([part["b"] for part in parts]), np.concatenate([part["d"] for part in parts])
 
     def evaluate(self, model: CovarianceModel, layout: ParameterLayout | None = None,
-                 should_stop: Callable[[], bool] | None = None) -> VecchiaTerms:
-        """``-2 l`` of ``model`` and, when a layout is given, its gradient in that layout's parameters."""
+                 should_stop: Callable[[], bool] | None = None, information: bool = False) -> VecchiaTerms:
+        """``-2 l`` of ``model`` and, when a layout is given, its gradient in that layout's parameters (and with
+        ``information`` the information matrix of the module docstring)."""
         n, p = self.q.shape
         def one_pass(start: int) -> dict[str, np.ndarray]:
             if should_stop is not None and should_stop():
                 raise Cancelled("The likelihood evaluation was cancelled.")
-            return self._conditionals(model, slice(start, min(start + ROWS_PER_PASS, n)), layout)
+            return self._conditionals(model, slice(start, min(start + ROWS_PER_PASS, n)), layout, information)
 
         with single_blas_thread(), ThreadPoolExecutor(PASS_THREADS) as pool:
             parts = list(pool.map(one_pass, range(0, n, ROWS_PER_PASS)))
@@ -399,7 +427,8 @@ class VecchiaData:
             trend_weight = linalg.cho_solve(gram, (white_q / root[:, None]).T, check_finite=False).T  # A^-1 G_i/d_i
             h -= np.einsum("cp,cp->c", joined["G"], trend_weight) / d
             w_r -= 2.0 * np.einsum("ckp,cp->ck", joined["qr"], trend_weight)
-        return VecchiaTerms(value, beta, h @ joined["dd"] + w_r.sum(axis=0))
+        gradient = h @ joined["dd"] + w_r.sum(axis=0)
+        return VecchiaTerms(value, beta, gradient, joined["information"].sum(axis=0) if information else None)
 
 
 class VecchiaObjective:
@@ -417,17 +446,36 @@ class VecchiaObjective:
         self.should_stop = should_stop
         self.evaluations = 0
         self.jitter = 0.0
+        self._last: tuple[bytes, VecchiaTerms] | None = None
 
     def value(self, theta: np.ndarray) -> float:
         """``-2 l`` at ``theta``."""
+        return self.terms(theta).minus_two_log_likelihood
+
+    def terms(self, theta: np.ndarray) -> VecchiaTerms:
+        """The evaluation at ``theta``: the remembered one of :meth:`value_gradient_information` at the same point,
+        else the value alone (no gradient)."""
+        if self._last is not None and self._last[0] == np.asarray(theta, dtype=float).tobytes():
+            return self._last[1]
         self.evaluations += 1
-        return self.data.evaluate(self.layout.unpack(theta), None, self.should_stop).minus_two_log_likelihood
+        return self.data.evaluate(self.layout.unpack(theta), None, self.should_stop)
 
     def value_and_gradient(self, theta: np.ndarray) -> tuple[float, np.ndarray]:
         """``-2 l`` and its gradient with respect to ``theta``."""
         self.evaluations += 1
         terms = self.data.evaluate(self.layout.unpack(theta), self.layout, self.should_stop)
         return terms.minus_two_log_likelihood, terms.gradient
+
+    def value_gradient_information(self, theta: np.ndarray) -> tuple[float, np.ndarray, np.ndarray]:
+        """``-2 l``, its gradient and the Vecchia information matrix (the expected Hessian of ``-2 l``); the last
+        point asked is remembered (a Newton step asks for its accepted trial point again)."""
+        key = np.asarray(theta, dtype=float).tobytes()
+        if self._last is None or self._last[0] != key:
+            self.evaluations += 1
+            terms = self.data.evaluate(self.layout.unpack(theta), self.layout, self.should_stop, information=True)
+            self._last = (key, terms)
+        terms = self._last[1]
+        return terms.minus_two_log_likelihood, terms.gradient, terms.information
 
 
 def vecchia_evaluation(xy: np.ndarray, values: np.ndarray, covariance: CovarianceModel, mean: MeanModel, *,

@@ -4,7 +4,7 @@ The exact likelihood costs ``O(n^3)`` time and ``O(n^2)`` memory per
 evaluation; above :data:`.fitting.VECCHIA_THRESHOLD` samples :func:`.fitting.fit_model`
 hands over to :func:`fit_vecchia`, whose cost per evaluation is ``O(n m^3)``
 time and ``O(n m)`` memory (``m`` conditioning neighbours). The fit runs in
-two steps:
+three steps:
 
 1. Family choice on a subset. The exact fit (:func:`.exact_fit.fit_exact`, same
    kernel, anisotropy, mean and method settings) on :data:`SUBSET_SIZE` samples
@@ -13,18 +13,22 @@ two steps:
    apart at a fraction of the cost; its criteria are not comparable with those
    on all samples, so the number of scales is not chosen there (a sparse
    subset misses the short scale).
-2. Vecchia refinement on all samples. L-BFGS-B with the analytic Vecchia
-   gradient, on the same standardised units and parameter bounds as the
-   exact fit (:mod:`.search`, :mod:`..model.parameters`), first with
-   :data:`WARM_START_NEIGHBOURS` (10) conditioning neighbours per sample, then,
-   from that estimate, with ``FitOptions.likelihood_neighbours`` of them (the
-   warm start of Guinness 2021). The conditioning sets are searched in the
+2. Vecchia refinement on all samples, on the same standardised units and
+   parameter bounds as the exact fit (:mod:`.search`, :mod:`..model.parameters`).
+   First with :data:`WARM_START_NEIGHBOURS` (10) conditioning neighbours per
+   sample: Fisher scoring (:func:`.search.newton_steps` with the Vecchia
+   information of :mod:`.vecchia`), then L-BFGS-B with the analytic gradient
+   from there (the start may be far from the optimum, where scoring's steps
+   are capped). Then, from that estimate, with ``FitOptions.likelihood_neighbours``
+   of them by Fisher scoring alone, which near the optimum converges in a
+   few of the costly evaluations (the warm start and the scoring of Guinness
+   2021, *Stat. Comput.* 31:25). The conditioning sets are searched in the
    anisotropy frame of the starting model and kept fixed while optimising (so
    the objective is smooth); the sets of 10 are the nearest 10 of the full
    sets. An isotropic frame does not depend on the parameters, so all
    isotropic fits share one ordering and one set of neighbours; for an
    anisotropic model the sets are searched again in the frame of the estimate
-   and the optimiser restarts from it once.
+   and Fisher scoring runs once more from it.
 3. Number of scales (``kernel="auto"``, ``nested`` off). The subset also chooses
    the family of a two-structure model (a second exact fit, ``nested`` on), which
    is then fitted on all samples too, from the best (by Vecchia likelihood) of
@@ -43,6 +47,7 @@ from collections.abc import Callable
 from dataclasses import replace
 
 import numpy as np
+from scipy import optimize
 
 from ..errors import FieldcastError
 from ..io.samples import check_samples
@@ -61,7 +66,7 @@ from .options import (
     information_criteria,
     mean_model_for,
 )
-from .search import SearchProblem
+from .search import NEWTON_ITERATIONS, SearchProblem, newton_steps
 from .vecchia import VecchiaData, VecchiaObjective, VecchiaPlan
 from .vecchia_scales import two_scale_starts
 
@@ -69,7 +74,7 @@ SUBSET_SIZE = 1000
 """Samples of the exact fit that chooses the model and the starting values."""
 
 LOG_LIKELIHOOD_TOLERANCE = 1e-3
-"""L-BFGS-B stops when an iteration gains less than about this much log-likelihood (far below the
+"""L-BFGS-B and Fisher scoring stop when an iteration gains less than about this much log-likelihood (far below the
 statistical uncertainty: a change of 0.5 in ``l`` is about one standard error along one parameter)."""
 
 GRADIENT_TOLERANCE = 1e-2
@@ -104,10 +109,11 @@ class _Plans:
 
 def _optimise(problem: SearchProblem, layout: ParameterLayout, start: np.ndarray, plans: _Plans,
               progress: Callable[[float], None] | None) -> tuple[np.ndarray, float, np.ndarray, str | None]:
-    """Vecchia fit from ``start``: warm start with :data:`WARM_START_NEIGHBOURS`, then all ``m`` (sets searched
-    again in the frame of the estimate for anisotropy).
+    """Vecchia fit from ``start``: with :data:`WARM_START_NEIGHBOURS` by Fisher scoring and L-BFGS-B, then with all
+    ``m`` by Fisher scoring (once more with sets searched again in the frame of the estimate for anisotropy).
 
-    Returns ``theta``, ``-2 l``, the basis coefficients and the last run's :func:`.minimiser.convergence_warning`.
+    Returns ``theta``, ``-2 l``, the basis coefficients and the convergence warning of the last run
+    (:func:`.minimiser.convergence_warning`).
     """
     bounds = parameter_bounds(layout, problem.internal_scales)
     theta = clamped(start, bounds)
@@ -120,25 +126,29 @@ def _optimise(problem: SearchProblem, layout: ParameterLayout, start: np.ndarray
             runs.append(plans.for_model(layout.unpack(theta), layout.anisotropy))
         data = VecchiaData(problem.xy, problem.y, problem.basis, problem.method, runs[round_index],
                            problem.error_variance)
-
-        def on_step(evaluations: int, done: int = round_index) -> None:
-            if progress is not None:
-                progress(0.5 + 0.5 * (done + min(evaluations / 60.0, 0.95)) / rounds)
-
         objective = VecchiaObjective(data, layout, problem.should_stop)
-
-        def minus_two_log_likelihood(x: np.ndarray, objective: VecchiaObjective = objective,
-                                     on_step: Callable[[int], None] = on_step) -> tuple[float, np.ndarray]:
-            value = objective.value_and_gradient(x)
-            on_step(objective.evaluations)
-            return value
-
-        result = minimise(minus_two_log_likelihood, theta, bounds, samples=len(data.y),
-                          log_likelihood_tolerance=LOG_LIKELIHOOD_TOLERANCE, gradient_tolerance=GRADIENT_TOLERANCE,
-                          max_iterations=problem.max_iterations)
-        theta = result.x
-    terms = data.evaluate(layout.unpack(theta))
+        theta, result = _scoring_run(objective, theta, bounds, problem.max_iterations, polish=round_index == 0)
+        if progress is not None:
+            progress(0.5 + 0.5 * (round_index + 1) / rounds)
+    terms = objective.terms(theta)
     return theta, terms.minus_two_log_likelihood, terms.basis_coefficients, convergence_warning(result)
+
+
+def _scoring_run(objective: VecchiaObjective, theta: np.ndarray, bounds: list, max_iterations: int,
+                 polish: bool) -> tuple[np.ndarray, optimize.OptimizeResult]:
+    """Fisher scoring (:func:`.search.newton_steps` with the Vecchia information) from ``theta``, and with ``polish``
+    L-BFGS-B after it (the first run of a fit, which may start far from the optimum, where scoring's steps are
+    capped). Returns the estimate and the run's outcome as :func:`.minimiser.convergence_warning` reads it."""
+    iterations = min(NEWTON_ITERATIONS, max_iterations)
+    theta, converged = newton_steps(objective, theta, bounds, log_likelihood_tolerance=LOG_LIKELIHOOD_TOLERANCE,
+                                    iterations=iterations)
+    if polish:
+        result = minimise(objective.value_and_gradient, theta, bounds, samples=len(objective.data.y),
+                          log_likelihood_tolerance=LOG_LIKELIHOOD_TOLERANCE, gradient_tolerance=GRADIENT_TOLERANCE,
+                          max_iterations=max_iterations)
+        return result.x, result
+    message = "converged" if converged else "Fisher scoring reached the iteration limit"
+    return theta, optimize.OptimizeResult(x=theta, success=converged, nit=iterations, message=message)
 
 
 def _candidate(problem: SearchProblem, layout: ParameterLayout, theta: np.ndarray, minus_two: float,
