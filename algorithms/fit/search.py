@@ -268,10 +268,14 @@ def newton_steps(objective: InformationObjective, theta: np.ndarray, bounds: lis
     The exact fit gives the average information, the Vecchia fit the expected one (Fisher scoring). A
     parameter on a bound whose gradient pushes outwards is held; a step that does not lower ``-2 l`` is halved (up
     to five times) before the steps stop. Near the optimum this converges in a few evaluations, where L-BFGS-B,
-    which learns the curvature as it goes, needs many more.
+    which learns the curvature as it goes, needs many more. The steps also stop, without trying the next, when it
+    would gain less than ``log_likelihood_tolerance`` of log-likelihood by the quadratic model: the Newton
+    decrement ``g^T I^-1 g / 2`` of ``-2 l`` below twice the tolerance (Boyd & Vandenberghe 2004, *Convex
+    Optimization*, section 9.5.1).
 
-    Returns the parameters and whether the steps converged: a step gained less than ``log_likelihood_tolerance``
-    of log-likelihood, or none could gain (True), rather than the ``iterations`` running out (False).
+    Returns the parameters and whether the steps converged: a step gained, or would gain, less than
+    ``log_likelihood_tolerance`` of log-likelihood, or none could gain (True), rather than the ``iterations``
+    running out (False).
     """
     low = np.array([-np.inf if b[0] is None else b[0] for b in bounds])
     high = np.array([np.inf if b[1] is None else b[1] for b in bounds])
@@ -285,6 +289,8 @@ def newton_steps(objective: InformationObjective, theta: np.ndarray, bounds: lis
             step = np.zeros_like(theta)
             step[free] = -np.linalg.solve(block + 1e-9 * np.trace(block) * np.eye(len(block)), gradient[free])
         except np.linalg.LinAlgError:
+            return theta, True
+        if -0.5 * float(gradient @ step) < 2.0 * log_likelihood_tolerance:  # the step's predicted gain in -2 l
             return theta, True
         step *= min(1.0, NEWTON_LONGEST_STEP / max(np.abs(step).max(), 1e-300))
         trial = np.clip(theta + step, low, high)
