@@ -26,9 +26,10 @@ three steps:
    anisotropy frame of the starting model and kept fixed while optimising (so
    the objective is smooth); the sets of 10 are the nearest 10 of the full
    sets. An isotropic frame does not depend on the parameters, so all
-   isotropic fits share one ordering and one set of neighbours; for an
-   anisotropic model the sets are searched again in the frame of the estimate
-   and Fisher scoring runs once more from it.
+   isotropic fits share one ordering and one set of neighbours (and an
+   anisotropic frame met again reuses its plan); for an anisotropic model the
+   sets are searched again in the frame of the estimate and Fisher scoring
+   runs once more from it.
 3. Number of scales (``kernel="auto"``, ``nested`` off). The subset also chooses
    the family of a two-structure model (a second exact fit, ``nested`` on), which
    is then fitted on all samples too, from the best (by Vecchia likelihood) of
@@ -88,23 +89,24 @@ Comput.* 31:25, does the same and reports that it saves most of the time)."""
 
 
 class _Plans:
-    """Conditioning sets of the fits on all samples.
+    """Conditioning sets of the fits on all samples, one plan per search frame.
 
-    The maximin ordering and the nearest previous neighbours of an isotropic model do not depend on its
-    parameters, so every isotropic fit shares one plan; an anisotropic model gets a plan searched in its own frame.
+    The maximin ordering and the nearest previous neighbours depend on a model only through the frame of its first
+    structure (its azimuth and ratio), so every isotropic fit shares one plan, and an anisotropic frame met again
+    reuses its plan (the two-structure fit starts in the frame its starts were compared in).
     """
 
     def __init__(self, xy: np.ndarray, neighbours: int) -> None:
         self.xy, self.neighbours = xy, neighbours
-        self._isotropic: VecchiaPlan | None = None
+        self._built: dict[tuple[float, float] | None, VecchiaPlan] = {}
 
     def for_model(self, model: CovarianceModel, anisotropy: bool) -> VecchiaPlan:
-        """The plan whose sets are searched in the frame of ``model`` (shared when ``anisotropy`` is off)."""
-        if anisotropy:
-            return VecchiaPlan.build(self.xy, self.neighbours, model.structures[0])
-        if self._isotropic is None:
-            self._isotropic = VecchiaPlan.build(self.xy, self.neighbours)
-        return self._isotropic
+        """The plan whose sets are searched in the frame of ``model`` (Euclidean when ``anisotropy`` is off)."""
+        first = model.structures[0]
+        frame = (first.azimuth, first.ratio) if anisotropy else None
+        if frame not in self._built:
+            self._built[frame] = VecchiaPlan.build(self.xy, self.neighbours, first if anisotropy else None)
+        return self._built[frame]
 
 
 def _optimise(problem: SearchProblem, layout: ParameterLayout, start: np.ndarray, plans: _Plans,
