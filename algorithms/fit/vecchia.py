@@ -372,9 +372,9 @@ class VecchiaData:
                   "qr": r @ part["solved_q"]}
         if factors is not None:
             white_r = forward_substitution(factors, np.swapaxes(r, 1, 2)) / np.sqrt(part["d"])[:, None, None]
+            white_r = white_r.reshape(-1, layout.n_parameters)  # rows: (sample, neighbour) pairs
             scaled_dd = pieces["dd"] / part["d"][:, None]
-            pieces["information"] = (2.0 * np.einsum("cmj,cmk->jk", white_r, white_r)
-                                     + scaled_dd.T @ scaled_dd)[None]
+            pieces["information"] = 2.0 * white_r.T @ white_r + scaled_dd.T @ scaled_dd
         return pieces
 
     def regression(self, model: CovarianceModel) -> tuple[np.ndarray, np.ndarray]:
@@ -397,7 +397,8 @@ class VecchiaData:
 
         with single_blas_thread(), ThreadPoolExecutor(PASS_THREADS) as pool:
             parts = list(pool.map(one_pass, range(0, n, ROWS_PER_PASS)))
-        joined = {key: np.concatenate([part[key] for part in parts]) for key in parts[0] if key != "b"}
+        joined = {key: np.concatenate([part[key] for part in parts]) for key in parts[0]
+                  if key not in ("b", "information")}
         d = joined["d"]
         if not np.all(d > 0):
             raise FieldcastError(
@@ -428,7 +429,7 @@ class VecchiaData:
             h -= np.einsum("cp,cp->c", joined["G"], trend_weight) / d
             w_r -= 2.0 * np.einsum("ckp,cp->ck", joined["qr"], trend_weight)
         gradient = h @ joined["dd"] + w_r.sum(axis=0)
-        return VecchiaTerms(value, beta, gradient, joined["information"].sum(axis=0) if information else None)
+        return VecchiaTerms(value, beta, gradient, sum(part["information"] for part in parts) if information else None)
 
 
 class VecchiaObjective:
