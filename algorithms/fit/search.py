@@ -39,6 +39,7 @@ from __future__ import annotations
 import math
 from collections.abc import Callable
 from dataclasses import dataclass, replace
+from typing import Protocol
 
 import numpy as np
 from scipy.spatial import ConvexHull, QhullError, cKDTree
@@ -107,6 +108,15 @@ def diameter(xy: np.ndarray) -> float:
     except QhullError:  # collinear points: the ends of their bounding box span them
         corners = np.array([xy.min(axis=0), xy.max(axis=0)])
     return float(np.max(np.hypot(*(corners[:, None, :] - corners[None, :, :]).T)))
+
+
+class InformationObjective(Protocol):
+    """What :func:`newton_steps` needs: ``-2 l``, and with its gradient an information matrix (its expected or
+    average Hessian)."""
+
+    def value(self, theta: np.ndarray) -> float: ...
+
+    def value_gradient_information(self, theta: np.ndarray) -> tuple[float, np.ndarray, np.ndarray]: ...
 
 
 @dataclass(frozen=True)
@@ -250,27 +260,38 @@ def planned_steps(n: int, n_families: int, settings: tuple[bool, ...], nested: b
     return n_families * per_family
 
 
-def _newton(objective: LikelihoodObjective, theta: np.ndarray, bounds: list) -> np.ndarray:
-    """Projected Newton steps on ``-2 l`` with the average information as Hessian.
+def newton_steps(objective: InformationObjective, theta: np.ndarray, bounds: list, *,
+                 log_likelihood_tolerance: float = LOG_LIKELIHOOD_TOLERANCE,
+                 iterations: int = NEWTON_ITERATIONS) -> tuple[np.ndarray, bool]:
+    """Projected Newton steps on ``-2 l`` with an information matrix as Hessian.
 
-    A parameter on a bound whose gradient pushes outwards is held; a step
-    that does not lower ``-2 l`` is halved (up to five times) before the
-    steps stop. Near the optimum this converges in a few evaluations, where
-    L-BFGS-B, which learns the curvature as it goes, needs many more.
+    The exact fit gives the average information, the Vecchia fit the expected one (Fisher scoring). A
+    parameter on a bound whose gradient pushes outwards is held; a step that does not lower ``-2 l`` is halved (up
+    to five times) before the steps stop. Near the optimum this converges in a few evaluations, where L-BFGS-B,
+    which learns the curvature as it goes, needs many more. The steps also stop, without trying the next, when it
+    would gain less than ``log_likelihood_tolerance`` of log-likelihood by the quadratic model: the Newton
+    decrement ``g^T I^-1 g / 2`` of ``-2 l`` below twice the tolerance (Boyd & Vandenberghe 2004, *Convex
+    Optimization*, section 9.5.1).
+
+    Returns the parameters and whether the steps converged: a step gained, or would gain, less than
+    ``log_likelihood_tolerance`` of log-likelihood, or none could gain (True), rather than the ``iterations``
+    running out (False).
     """
     low = np.array([-np.inf if b[0] is None else b[0] for b in bounds])
     high = np.array([np.inf if b[1] is None else b[1] for b in bounds])
     value, gradient, information = objective.value_gradient_information(theta)
-    for _ in range(NEWTON_ITERATIONS):
+    for _ in range(iterations):
         free = ~(((theta <= low) & (gradient > 0)) | ((theta >= high) & (gradient < 0)))
         if not free.any():
-            break
+            return theta, True
         block = information[np.ix_(free, free)]
         try:
             step = np.zeros_like(theta)
             step[free] = -np.linalg.solve(block + 1e-9 * np.trace(block) * np.eye(len(block)), gradient[free])
         except np.linalg.LinAlgError:
-            break
+            return theta, True
+        if -0.5 * float(gradient @ step) < 2.0 * log_likelihood_tolerance:  # the step's predicted gain in -2 l
+            return theta, True
         step *= min(1.0, NEWTON_LONGEST_STEP / max(np.abs(step).max(), 1e-300))
         trial = np.clip(theta + step, low, high)
         trial_value = objective.value_gradient_information(trial)[0]  # kept for the next step if accepted
@@ -281,13 +302,13 @@ def _newton(objective: LikelihoodObjective, theta: np.ndarray, bounds: list) -> 
             trial = np.clip(theta + step, low, high)
             trial_value = objective.value(trial)
         if not trial_value < value:
-            break
+            return theta, True
         gain = value - trial_value
         theta = trial
-        if gain < 2.0 * LOG_LIKELIHOOD_TOLERANCE:
-            break
+        if gain < 2.0 * log_likelihood_tolerance:
+            return theta, True
         value, gradient, information = objective.value_gradient_information(theta)
-    return theta
+    return theta, False
 
 
 def _optimise(problem: SearchProblem, layout: ParameterLayout, starts: list[np.ndarray],
@@ -306,7 +327,7 @@ def _optimise(problem: SearchProblem, layout: ParameterLayout, starts: list[np.n
 
     best: SearchFit | None = None
     for start in starts:
-        first = _newton(objective, start, bounds) if refine else start
+        first = newton_steps(objective, start, bounds)[0] if refine else start
         result = minimise(objective.value_and_gradient, first, bounds, samples=len(problem.y),
                           log_likelihood_tolerance=LOG_LIKELIHOOD_TOLERANCE, gradient_tolerance=GRADIENT_TOLERANCE,
                           max_iterations=problem.max_iterations)

@@ -37,16 +37,37 @@ residual of ``z = y - Q beta``, ``G_i = (B Q)_i`` and ``A = Q~^T Q~``::
     d(-2l)/dt = sum_i g_i^T db_i/dt + h_i dd_i/dt
     h_i = 1/d_i - rho_i^2/d_i^2 - [REML] G_i^T A^-1 G_i / d_i^2
     g_i = -2 rho_i z_N(i) / d_i  - [REML] 2 Q_N(i) A^-1 G_i / d_i
-    db_i = K_N^-1 (dc_i - dK_N b_i),   dd_i = dC(0) - 2 dc_i^T b_i + b_i^T dK_N b_i
+    db_i = K_N^-1 r_i,  r_i = dc_i - dK_N b_i,   dd_i = dC(0) - 2 dc_i^T b_i + b_i^T dK_N b_i
 
-(``beta`` is profiled, so its own derivative drops out). This is one
-contraction of ``d(joint covariance of N(i) and i)/dt`` with a small matrix
-per sample; the covariance derivatives come from
-:func:`.parameters.covariance_derivatives`.
+(``beta`` is profiled, so its own derivative drops out). With ``e_i = (b_i, -1)``
+and ``dS_i`` the derivative of the joint covariance of ``(N(i), i)``,
+``dS_i e_i = (-r_i, dc_i^T b_i - dC(0))`` and ``dd_i = e_i^T dS_i e_i``; and
+``g_i^T db_i = (K_N^-1 g_i)^T r_i`` needs only ``(K_N^-1 y_N)^T r_i`` and
+``(K_N^-1 Q_N)^T r_i``, which do not depend on ``beta``. So one pass over the
+samples, beside the value's, keeps these few numbers per sample and
+parameter, and the gradient is summed once ``beta`` is known. The covariance
+derivatives come from :func:`.parameters.covariance_derivatives`, which
+also gives the covariance itself.
+
+Information (Guinness 2021, *Stat. Comput.* 31:25, section 3). ``y_i`` given
+``y_N(i)`` is normal with mean ``b_i^T y_N(i)`` and variance ``d_i``; the
+expected product of the scores of that conditional, with ``y_N(i)`` of
+covariance ``K_N``, summed over the samples, is the expected Hessian of
+``-2 l``::
+
+    I_jk = sum_i 2 db_ij^T K_N db_ik / d_i + dd_ij dd_ik / d_i^2
+         = sum_i 2 (L^-1 r_ij)^T (L^-1 r_ik) / d_i + dd_ij dd_ik / d_i^2   (K_N = L L^T)
+
+With all previous samples as neighbours it is twice the Fisher information
+``1/2 tr(K^-1 dK_j K^-1 dK_k)`` of the covariance parameters (Harville 1977,
+*JASA* 72, 320-338; the mean's block is zero). The same matrix serves the
+REML fit: the restricted information ``1/2 tr(P dK_j P dK_k)`` differs from it
+by terms in the ``p`` trend columns, small beside the ``n`` of the sum.
 """
 from __future__ import annotations
 
 from collections.abc import Callable
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
 
 import numpy as np
@@ -54,7 +75,8 @@ from scipy import linalg
 
 from ..errors import Cancelled, FieldcastError
 from ..io.samples import check_samples
-from ..linalg.batched import back_substitution, cholesky_stack, forward_substitution
+from ..linalg.batched import WORKERS, back_substitution, cholesky_stack, forward_substitution
+from ..linalg.blas_threads import single_blas_thread
 from ..linalg.condition_policy import FIT_CONDITION_ADVICE, checked_cholesky
 from ..model.covariance import CovarianceModel, Structure, search_frame
 from ..model.mean import MeanModel
@@ -108,14 +130,24 @@ class VecchiaPlan:
         """Largest conditioning-set size ``m``."""
         return self.neighbours.shape[1]
 
+    def nearest(self, neighbours: int) -> VecchiaPlan:
+        """The same ordering with each set cut to its ``neighbours`` nearest (the sets are kept nearest first), as
+        :meth:`build` with that count gives them (up to ties in distance); at most :attr:`size`."""
+        if neighbours >= self.size:
+            return self
+        return VecchiaPlan(self.order, np.ascontiguousarray(self.neighbours[:, :neighbours]),
+                           np.ascontiguousarray(self.valid[:, :neighbours]))
+
 
 @dataclass(frozen=True)
 class VecchiaTerms:
-    """One evaluation: ``-2 l``, GLS coefficients for the columns of ``Q``, optional gradient."""
+    """One evaluation: ``-2 l``, GLS coefficients for the columns of ``Q``, optional gradient and information (the
+    expected Hessian of ``-2 l``, see the module docstring)."""
 
     minus_two_log_likelihood: float
     basis_coefficients: np.ndarray
     gradient: np.ndarray | None
+    information: np.ndarray | None = None
 
 
 class VecchiaData:
@@ -162,13 +194,20 @@ class VecchiaData:
         neighbours = np.where(valid, self.error_variance[np.where(valid, self.plan.neighbours[rows], 0)], 0.0)
         return np.concatenate([neighbours, self.error_variance[rows, None]], axis=1)
 
-    def _conditionals(self, model: CovarianceModel, rows: slice) -> dict[str, np.ndarray]:
-        """``b_i``, ``d_i``, ``(B y)_i``, ``(B Q)_i`` and ``K_N^-1 [y_N, Q_N]`` for the rows."""
+    def _conditionals(self, model: CovarianceModel, rows: slice, layout: ParameterLayout | None = None,
+                      information: bool = False) -> dict[str, np.ndarray]:
+        """``b_i``, ``d_i``, ``(B y)_i``, ``(B Q)_i`` and ``K_N^-1 [y_N, Q_N]`` for the rows; with a ``layout`` also
+        the per-sample derivative pieces ``dd_i``, ``y_N^T db_i`` and ``Q_N^T db_i`` of every parameter, and with
+        ``information`` the rows' share of the information matrix."""
         m = self.plan.size
         first, second = self._triangle
         valid = self.plan.valid[rows]
         joint = np.empty((len(valid), m + 1, m + 1))
-        pairs = model.covariance_from_offsets(*self._offsets(rows))
+        offsets = self._offsets(rows)
+        if layout is None:
+            pairs, derivatives = model.covariance_from_offsets(*offsets), []
+        else:
+            pairs, derivatives = covariance_derivatives(layout, model, *offsets)
         joint[:, first, second] = pairs
         joint[:, second, first] = pairs
         joint[:, np.arange(m + 1), np.arange(m + 1)] += model.nugget + self._joint_error_variance(rows, valid)
@@ -187,7 +226,7 @@ class VecchiaData:
         white = forward_substitution(factors, right)  # L^-1 [c, y_N, Q_N] with K_N = L L^T
         solved = back_substitution(factors, white)  # K_N^-1 [c, y_N, Q_N]
         b = solved[:, :, 0]
-        return {
+        part = {
             "b": b,
             "d": joint[:, m, m] - np.einsum("cj,cj->c", white[:, :, 0], white[:, :, 0]),
             "u": self.y[rows] - np.einsum("cj,cj->c", b, neighbour_y),
@@ -195,6 +234,43 @@ class VecchiaData:
             "solved_y": solved[:, :, 1],
             "solved_q": solved[:, :, 2:],
         }
+        if layout is not None:
+            part.update(self._derivative_pieces(layout, model, rows, derivatives, part,
+                                                factors if information else None))
+        return part
+
+    def _derivative_pieces(self, layout: ParameterLayout, model: CovarianceModel, rows: slice,
+                           derivatives: list[tuple[int, np.ndarray, float]], part: dict[str, np.ndarray],
+                           factors: np.ndarray | None) -> dict[str, np.ndarray]:
+        """``dd_i`` (c, P), ``y_N^T db_i`` (c, P) and ``Q_N^T db_i`` (c, P, p) of every parameter; with the Cholesky
+        ``factors`` of the ``K_N``, also the rows' share of the information,
+        ``sum_i 2 db_i^T K_N db_i / d_i + dd_i dd_i^T / d_i^2`` with ``db_j^T K_N db_k = (L^-1 r_j)^T (L^-1 r_k)``.
+
+        With ``e_i = (b_i, -1)``: ``dK e_i = (-r_i, dc_i^T b_i - dC(0))`` with ``r_i = dc_i - dK_N b_i``, so
+        ``dd_i = e_i^T dK e_i`` and ``x^T db_i = (K_N^-1 x)^T r_i`` (``dK``: the derivative of the joint set's
+        covariance, given as one triangle of its pairs; 0 in ``r_i`` for a missing neighbour).
+        """
+        m = self.plan.size
+        first, second = self._triangle
+        b = part["b"]
+        e = np.concatenate([b, -np.ones((len(b), 1))], axis=1)
+        product = np.zeros((len(b), layout.n_parameters, m + 1))
+        derivative_matrix = np.empty((len(b), m + 1, m + 1))
+        for index, derivative, _ in derivatives:
+            derivative_matrix[:, first, second] = derivative
+            derivative_matrix[:, second, first] = derivative
+            product[:, index] += np.einsum("cab,cb->ca", derivative_matrix, e)
+        if layout.nugget is None:  # dK = nugget I on the joint set
+            product[:, layout.index("log_nugget")] = model.nugget * e
+        r = np.where(self.plan.valid[rows, None, :], -product[:, :, :m], 0.0)
+        pieces = {"dd": np.einsum("cka,ca->ck", product, e), "yr": np.einsum("ckj,cj->ck", r, part["solved_y"]),
+                  "qr": r @ part["solved_q"]}
+        if factors is not None:
+            white_r = forward_substitution(factors, np.swapaxes(r, 1, 2)) / np.sqrt(part["d"])[:, None, None]
+            white_r = white_r.reshape(-1, layout.n_parameters)  # rows: (sample, neighbour) pairs
+            scaled_dd = pieces["dd"] / part["d"][:, None]
+            pieces["information"] = 2.0 * white_r.T @ white_r + scaled_dd.T @ scaled_dd
+        return pieces
 
     def regression(self, model: CovarianceModel) -> tuple[np.ndarray, np.ndarray]:
         """The regression coefficients ``b_i`` (rows, over ``plan.neighbours``; 0 where missing) and the conditional
@@ -205,24 +281,28 @@ class VecchiaData:
         return np.concatenate([part["b"] for part in parts]), np.concatenate([part["d"] for part in parts])
 
     def evaluate(self, model: CovarianceModel, layout: ParameterLayout | None = None,
-                 should_stop: Callable[[], bool] | None = None) -> VecchiaTerms:
-        """``-2 l`` of ``model`` and, when a layout is given, its gradient in that layout's parameters."""
+                 should_stop: Callable[[], bool] | None = None, information: bool = False) -> VecchiaTerms:
+        """``-2 l`` of ``model`` and, when a layout is given, its gradient in that layout's parameters (and with
+        ``information`` the information matrix of the module docstring)."""
         n, p = self.q.shape
-        passes = [slice(start, min(start + ROWS_PER_PASS, n)) for start in range(0, n, ROWS_PER_PASS)]
-        parts = []
-        for rows in passes:
+        def one_pass(start: int) -> dict[str, np.ndarray]:
             if should_stop is not None and should_stop():
                 raise Cancelled("The likelihood evaluation was cancelled.")
-            parts.append(self._conditionals(model, rows))
-        d = np.concatenate([part["d"] for part in parts])
+            return self._conditionals(model, slice(start, min(start + ROWS_PER_PASS, n)), layout, information)
+
+        with single_blas_thread(), ThreadPoolExecutor(WORKERS) as pool:
+            parts = list(pool.map(one_pass, range(0, n, ROWS_PER_PASS)))
+        joined = {key: np.concatenate([part[key] for part in parts]) for key in parts[0]
+                  if key not in ("b", "information")}
+        d = joined["d"]
         if not np.all(d > 0):
             raise FieldcastError(
                 "The Vecchia likelihood met a conditional variance <= 0: the covariance model is numerically "
                 "singular at these samples. " + FIT_CONDITION_ADVICE
             )
         root = np.sqrt(d)
-        white_y = np.concatenate([part["u"] for part in parts]) / root
-        white_q = np.concatenate([part["G"] for part in parts]) / root[:, None]
+        white_y = joined["u"] / root
+        white_q = joined["G"] / root[:, None]
         value = float(np.sum(np.log(d)))
         beta = np.zeros(0)
         if p:
@@ -235,40 +315,16 @@ class VecchiaData:
         check_finite_terms(value, beta)
         if layout is None:
             return VecchiaTerms(value, beta, None)
-        trend_weight = None
+        rho_over_d = residual / root
+        # d(-2l)/dt = sum_i h_i dd_i + (K_N^-1 g_i)^T r_i (module docstring)
+        h = 1.0 / d - rho_over_d ** 2
+        w_r = -2.0 * rho_over_d[:, None] * (joined["yr"] - joined["qr"] @ beta)
         if p and self.method == "reml":
             trend_weight = linalg.cho_solve(gram, (white_q / root[:, None]).T, check_finite=False).T  # A^-1 G_i/d_i
-        gradient = np.zeros(layout.n_parameters)
-        for rows, part in zip(passes, parts):
-            gradient += self._gradient(model, layout, rows, part, residual[rows] / root[rows], beta,
-                                       None if trend_weight is None else trend_weight[rows])
-        return VecchiaTerms(value, beta, gradient)
-
-    def _gradient(self, model: CovarianceModel, layout: ParameterLayout, rows: slice, part: dict,
-                  rho_over_d: np.ndarray, beta: np.ndarray, trend_weight: np.ndarray | None) -> np.ndarray:
-        """Contribution of the rows to ``d(-2 l)/dtheta`` (formulas in the module docstring)."""
-        b, d = part["b"], part["d"]
-        solved_z = part["solved_y"] - part["solved_q"] @ beta  # K_N^-1 z_N
-        w = -2.0 * rho_over_d[:, None] * solved_z
-        h = 1.0 / d - rho_over_d ** 2
-        if trend_weight is not None:
-            w -= 2.0 * np.einsum("cjp,cp->cj", part["solved_q"], trend_weight)
-            h -= np.einsum("cp,cp->c", part["G"], trend_weight) / d
-        m = self.plan.size
-        weight = np.empty((len(d), m + 1, m + 1))
-        bw = b[:, :, None] * w[:, None, :]
-        weight[:, :m, :m] = h[:, None, None] * b[:, :, None] * b[:, None, :] - 0.5 * (bw + np.swapaxes(bw, 1, 2))
-        weight[:, :m, m] = weight[:, m, :m] = 0.5 * (w - 2.0 * h[:, None] * b)
-        weight[:, m, m] = h
-        first, second = self._triangle
-        pair_weight = weight[:, first, second] * np.where(first == second, 1.0, 2.0)
-        _, derivatives = covariance_derivatives(layout, model, *self._offsets(rows))
-        gradient = np.zeros(layout.n_parameters)
-        for index, derivative, _ in derivatives:
-            gradient[index] += float(np.einsum("cp,cp->", derivative, pair_weight))
-        if layout.nugget is None:
-            gradient[layout.index("log_nugget")] = model.nugget * float(np.einsum("cjj->", weight))
-        return gradient
+            h -= np.einsum("cp,cp->c", joined["G"], trend_weight) / d
+            w_r -= 2.0 * np.einsum("ckp,cp->ck", joined["qr"], trend_weight)
+        gradient = h @ joined["dd"] + w_r.sum(axis=0)
+        return VecchiaTerms(value, beta, gradient, sum(part["information"] for part in parts) if information else None)
 
 
 class VecchiaObjective:
@@ -286,17 +342,36 @@ class VecchiaObjective:
         self.should_stop = should_stop
         self.evaluations = 0
         self.jitter = 0.0
+        self._last: tuple[bytes, VecchiaTerms] | None = None
 
     def value(self, theta: np.ndarray) -> float:
         """``-2 l`` at ``theta``."""
+        return self.terms(theta).minus_two_log_likelihood
+
+    def terms(self, theta: np.ndarray) -> VecchiaTerms:
+        """The evaluation at ``theta``: the remembered one of :meth:`value_gradient_information` at the same point,
+        else the value alone (no gradient)."""
+        if self._last is not None and self._last[0] == np.asarray(theta, dtype=float).tobytes():
+            return self._last[1]
         self.evaluations += 1
-        return self.data.evaluate(self.layout.unpack(theta), None, self.should_stop).minus_two_log_likelihood
+        return self.data.evaluate(self.layout.unpack(theta), None, self.should_stop)
 
     def value_and_gradient(self, theta: np.ndarray) -> tuple[float, np.ndarray]:
         """``-2 l`` and its gradient with respect to ``theta``."""
         self.evaluations += 1
         terms = self.data.evaluate(self.layout.unpack(theta), self.layout, self.should_stop)
         return terms.minus_two_log_likelihood, terms.gradient
+
+    def value_gradient_information(self, theta: np.ndarray) -> tuple[float, np.ndarray, np.ndarray]:
+        """``-2 l``, its gradient and the Vecchia information matrix (the expected Hessian of ``-2 l``); the last
+        point asked is remembered (a Newton step asks for its accepted trial point again)."""
+        key = np.asarray(theta, dtype=float).tobytes()
+        if self._last is None or self._last[0] != key:
+            self.evaluations += 1
+            terms = self.data.evaluate(self.layout.unpack(theta), self.layout, self.should_stop, information=True)
+            self._last = (key, terms)
+        terms = self._last[1]
+        return terms.minus_two_log_likelihood, terms.gradient, terms.information
 
 
 def vecchia_evaluation(xy: np.ndarray, values: np.ndarray, covariance: CovarianceModel, mean: MeanModel, *,

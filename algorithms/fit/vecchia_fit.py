@@ -4,7 +4,7 @@ The exact likelihood costs ``O(n^3)`` time and ``O(n^2)`` memory per
 evaluation; above :data:`.fitting.VECCHIA_THRESHOLD` samples :func:`.fitting.fit_model`
 hands over to :func:`fit_vecchia`, whose cost per evaluation is ``O(n m^3)``
 time and ``O(n m)`` memory (``m`` conditioning neighbours). The fit runs in
-two steps:
+three steps:
 
 1. Family choice on a subset. The exact fit (:func:`.exact_fit.fit_exact`, same
    kernel, anisotropy, mean and method settings) on :data:`SUBSET_SIZE` samples
@@ -13,17 +13,28 @@ two steps:
    apart at a fraction of the cost; its criteria are not comparable with those
    on all samples, so the number of scales is not chosen there (a sparse
    subset misses the short scale).
-2. Vecchia refinement on all samples. L-BFGS-B with the analytic Vecchia
-   gradient, on the same standardised units and parameter bounds as the
-   exact fit (:mod:`.search`, :mod:`..model.parameters`). The conditioning sets
-   (``FitOptions.likelihood_neighbours`` of them per sample) are searched in the
+2. Vecchia refinement on all samples, on the same standardised units and
+   parameter bounds as the exact fit (:mod:`.search`, :mod:`..model.parameters`).
+   First with :data:`WARM_START_NEIGHBOURS` (10) conditioning neighbours per
+   sample: Fisher scoring (:func:`.search.newton_steps` with the Vecchia
+   information of :mod:`.vecchia`), then L-BFGS-B with the analytic gradient
+   from there (the start may be far from the optimum, where scoring's steps
+   are capped). Then, from that estimate, with ``FitOptions.likelihood_neighbours``
+   of them by Fisher scoring alone, which near the optimum converges in a
+   few of the costly evaluations (the warm start and the scoring of Guinness
+   2021, *Stat. Comput.* 31:25). The conditioning sets are searched in the
    anisotropy frame of the starting model and kept fixed while optimising (so
-   the objective is smooth); for an anisotropic model they are searched again in
-   the frame of the estimate and the optimiser restarts from it once.
+   the objective is smooth); the sets of 10 are the nearest 10 of the full
+   sets. An isotropic frame does not depend on the parameters, so all
+   isotropic fits share one ordering and one set of neighbours (and an
+   anisotropic frame met again reuses its plan); for an anisotropic model the
+   sets are searched again in the frame of the estimate and Fisher scoring
+   runs once more from it.
 3. Number of scales (``kernel="auto"``, ``nested`` off). The subset also chooses
    the family of a two-structure model (a second exact fit, ``nested`` on), which
    is then fitted on all samples too, from the best (by Vecchia likelihood) of
-   that subset fit and the starts of :mod:`.vecchia_scales`; the model with the
+   that subset fit and the starts of :mod:`.vecchia_scales`, compared with 10
+   neighbours as the first optimisation runs; the model with the
    lower AIC on the Vecchia likelihood is kept, and both are listed as candidates.
 
 The reported log-likelihood, AIC and BIC are those of the Vecchia
@@ -37,9 +48,11 @@ from collections.abc import Callable
 from dataclasses import replace
 
 import numpy as np
+from scipy import optimize
 
 from ..errors import FieldcastError
 from ..io.samples import check_samples
+from ..model.covariance import CovarianceModel
 from ..model.parameters import ParameterLayout, parameter_bounds
 from .bound_warnings import bound_warnings
 from .data_warnings import data_warnings
@@ -54,7 +67,7 @@ from .options import (
     information_criteria,
     mean_model_for,
 )
-from .search import SearchProblem
+from .search import NEWTON_ITERATIONS, SearchProblem, newton_steps
 from .vecchia import VecchiaData, VecchiaObjective, VecchiaPlan
 from .vecchia_scales import two_scale_starts
 
@@ -62,44 +75,82 @@ SUBSET_SIZE = 1000
 """Samples of the exact fit that chooses the model and the starting values."""
 
 LOG_LIKELIHOOD_TOLERANCE = 1e-3
-"""L-BFGS-B stops when an iteration gains less than about this much log-likelihood (far below the
+"""L-BFGS-B and Fisher scoring stop when an iteration gains less than about this much log-likelihood (far below the
 statistical uncertainty: a change of 0.5 in ``l`` is about one standard error along one parameter)."""
 
 GRADIENT_TOLERANCE = 1e-2
 """... or when no log-likelihood derivative (per log-parameter) exceeds this."""
 
+WARM_START_NEIGHBOURS = 10
+"""Conditioning-set size of the first optimisation of every fit on all samples, whose estimate starts the one with
+``FitOptions.likelihood_neighbours``: an evaluation with 10 neighbours costs a fraction of one with 30, and the
+optimum moves little between them, so the costly evaluations are spent near the optimum (Guinness 2021, *Stat.
+Comput.* 31:25, does the same and reports that it saves most of the time)."""
 
-def _optimise(problem: SearchProblem, layout: ParameterLayout, start: np.ndarray, neighbours: int,
+
+class _Plans:
+    """Conditioning sets of the fits on all samples, one plan per search frame.
+
+    The maximin ordering and the nearest previous neighbours depend on a model only through the frame of its first
+    structure (its azimuth and ratio), so every isotropic fit shares one plan, and an anisotropic frame met again
+    reuses its plan (the two-structure fit starts in the frame its starts were compared in).
+    """
+
+    def __init__(self, xy: np.ndarray, neighbours: int) -> None:
+        self.xy, self.neighbours = xy, neighbours
+        self._built: dict[tuple[float, float] | None, VecchiaPlan] = {}
+
+    def for_model(self, model: CovarianceModel, anisotropy: bool) -> VecchiaPlan:
+        """The plan whose sets are searched in the frame of ``model`` (Euclidean when ``anisotropy`` is off)."""
+        first = model.structures[0]
+        frame = (first.azimuth, first.ratio) if anisotropy else None
+        if frame not in self._built:
+            self._built[frame] = VecchiaPlan.build(self.xy, self.neighbours, first if anisotropy else None)
+        return self._built[frame]
+
+
+def _optimise(problem: SearchProblem, layout: ParameterLayout, start: np.ndarray, plans: _Plans,
               progress: Callable[[float], None] | None) -> tuple[np.ndarray, float, np.ndarray, str | None]:
-    """Vecchia fit from ``start`` (sets rebuilt once for anisotropy).
+    """Vecchia fit from ``start``: with :data:`WARM_START_NEIGHBOURS` by Fisher scoring and L-BFGS-B, then with all
+    ``m`` by Fisher scoring (once more with sets searched again in the frame of the estimate for anisotropy).
 
-    Returns ``theta``, ``-2 l``, the basis coefficients and the last run's :func:`.minimiser.convergence_warning`.
+    Returns ``theta``, ``-2 l``, the basis coefficients and the convergence warning of the last run
+    (:func:`.minimiser.convergence_warning`).
     """
     bounds = parameter_bounds(layout, problem.internal_scales)
     theta = clamped(start, bounds)
-    rounds = 2 if layout.anisotropy else 1
+    plan = plans.for_model(layout.unpack(theta), layout.anisotropy)
+    runs = [plan.nearest(WARM_START_NEIGHBOURS)] if plan.size > WARM_START_NEIGHBOURS else []
+    runs.append(plan)
+    rounds = len(runs) + (1 if layout.anisotropy else 0)
     for round_index in range(rounds):
-        plan = VecchiaPlan.build(problem.xy, neighbours, layout.unpack(theta).structures[0])
-        data = VecchiaData(problem.xy, problem.y, problem.basis, problem.method, plan, problem.error_variance)
-
-        def on_step(evaluations: int, done: int = round_index) -> None:
-            if progress is not None:
-                progress(0.5 + 0.5 * (done + min(evaluations / 60.0, 0.95)) / rounds)
-
+        if round_index == len(runs):
+            runs.append(plans.for_model(layout.unpack(theta), layout.anisotropy))
+        data = VecchiaData(problem.xy, problem.y, problem.basis, problem.method, runs[round_index],
+                           problem.error_variance)
         objective = VecchiaObjective(data, layout, problem.should_stop)
-
-        def minus_two_log_likelihood(x: np.ndarray, objective: VecchiaObjective = objective,
-                                     on_step: Callable[[int], None] = on_step) -> tuple[float, np.ndarray]:
-            value = objective.value_and_gradient(x)
-            on_step(objective.evaluations)
-            return value
-
-        result = minimise(minus_two_log_likelihood, theta, bounds, samples=len(data.y),
-                          log_likelihood_tolerance=LOG_LIKELIHOOD_TOLERANCE, gradient_tolerance=GRADIENT_TOLERANCE,
-                          max_iterations=problem.max_iterations)
-        theta = result.x
-    terms = data.evaluate(layout.unpack(theta))
+        theta, result = _scoring_run(objective, theta, bounds, problem.max_iterations, polish=round_index == 0)
+        if progress is not None:
+            progress(0.5 + 0.5 * (round_index + 1) / rounds)
+    terms = objective.terms(theta)
     return theta, terms.minus_two_log_likelihood, terms.basis_coefficients, convergence_warning(result)
+
+
+def _scoring_run(objective: VecchiaObjective, theta: np.ndarray, bounds: list, max_iterations: int,
+                 polish: bool) -> tuple[np.ndarray, optimize.OptimizeResult]:
+    """Fisher scoring (:func:`.search.newton_steps` with the Vecchia information) from ``theta``, and with ``polish``
+    L-BFGS-B after it (the first run of a fit, which may start far from the optimum, where scoring's steps are
+    capped). Returns the estimate and the run's outcome as :func:`.minimiser.convergence_warning` reads it."""
+    iterations = min(NEWTON_ITERATIONS, max_iterations)
+    theta, converged = newton_steps(objective, theta, bounds, log_likelihood_tolerance=LOG_LIKELIHOOD_TOLERANCE,
+                                    iterations=iterations)
+    if polish:
+        result = minimise(objective.value_and_gradient, theta, bounds, samples=len(objective.data.y),
+                          log_likelihood_tolerance=LOG_LIKELIHOOD_TOLERANCE, gradient_tolerance=GRADIENT_TOLERANCE,
+                          max_iterations=max_iterations)
+        return result.x, result
+    message = "converged" if converged else "Fisher scoring reached the iteration limit"
+    return theta, optimize.OptimizeResult(x=theta, success=converged, nit=iterations, message=message)
 
 
 def _candidate(problem: SearchProblem, layout: ParameterLayout, theta: np.ndarray, minus_two: float,
@@ -115,16 +166,17 @@ def _candidate(problem: SearchProblem, layout: ParameterLayout, theta: np.ndarra
 
 
 def _two_scale_fit(problem: SearchProblem, single: ParameterLayout, theta: np.ndarray, nested: CandidateFit,
-                   neighbours: int, progress: Callable[[float], None] | None
+                   plans: _Plans, progress: Callable[[float], None] | None
                    ) -> tuple[ParameterLayout, tuple[np.ndarray, float, np.ndarray, str | None]]:
-    """The two-structure Vecchia fit from the best start (by Vecchia likelihood): the subset's two-structure fit
-    ``nested`` and, when it has the one-structure fit's family, :func:`.vecchia_scales.two_scale_starts`."""
+    """The two-structure Vecchia fit from the best start (by the Vecchia likelihood with
+    :data:`WARM_START_NEIGHBOURS`, that of its first optimisation): the subset's two-structure fit ``nested``
+    and, when it has the one-structure fit's family, :func:`.vecchia_scales.two_scale_starts`."""
     layout = ParameterLayout(nested.family, 2, nested.anisotropy, single.smoothness, single.nugget)
     subset_model = problem.to_internal_units(nested.covariance)
     starts = [subset_model]
     if nested.family == single.family and nested.anisotropy == single.anisotropy:
         starts += two_scale_starts(problem, single.unpack(theta), subset_model)
-    plan = VecchiaPlan.build(problem.xy, neighbours, subset_model.structures[0])
+    plan = plans.for_model(subset_model, layout.anisotropy).nearest(WARM_START_NEIGHBOURS)
     data = VecchiaData(problem.xy, problem.y, problem.basis, problem.method, plan, problem.error_variance)
     scored = []
     for start in starts:
@@ -133,7 +185,7 @@ def _two_scale_fit(problem: SearchProblem, single: ParameterLayout, theta: np.nd
             packed[layout.index("azimuth")] = math.radians(start.structures[0].azimuth)
         scored.append((data.evaluate(start).minus_two_log_likelihood, packed))
     best = min(scored, key=lambda pair: pair[0])[1]
-    return layout, _optimise(problem, layout, best, neighbours, progress)
+    return layout, _optimise(problem, layout, best, plans, progress)
 
 
 def fit_vecchia(xy: np.ndarray, values: np.ndarray, options: FitOptions, *, subset_size: int = SUBSET_SIZE,
@@ -194,14 +246,15 @@ def fit_vecchia(xy: np.ndarray, values: np.ndarray, options: FitOptions, *, subs
                              problem.nugget)
     start = layout.pack(problem.to_internal_units(chosen.covariance))
     stage = None if progress is None else (lambda f: progress(share + (0.65 - share) * (f - 0.5) / 0.5))
-    theta, minus_two, coefficients, stopped = _optimise(problem, layout, start, neighbours,
+    plans = _Plans(problem.xy, neighbours)
+    theta, minus_two, coefficients, stopped = _optimise(problem, layout, start, plans,
                                                         stage if compare_scales else progress)
     fits = [(_candidate(problem, layout, theta, minus_two, stopped, options.units), layout, coefficients)]
     if compare_scales:
         later = None if progress is None else (lambda f: progress(0.65 + 0.35 * (f - 0.5) / 0.5))
         subset_nested = min(rough[1].candidates, key=lambda c: c.aic)
         two, (theta2, minus_two2, coefficients2, stopped2) = _two_scale_fit(problem, layout, theta, subset_nested,
-                                                                           neighbours, later)
+                                                                           plans, later)
         fits.append((_candidate(problem, two, theta2, minus_two2, stopped2, options.units), two, coefficients2))
     candidate, layout, basis_coefficients = min(fits, key=lambda fit: fit[0].aic)
     model = candidate.covariance

@@ -20,7 +20,9 @@ import os
 import numpy as np
 
 WORKERS = min(4, os.cpu_count() or 1)
-"""Threads that factorise and solve stacks at once (numpy releases the GIL in its loops and LAPACK)."""
+"""Threads that factorise and solve stacks at once (numpy releases the GIL in its loops and LAPACK): local and global
+kriging, the trend's whitening and the passes of a Vecchia evaluation. On the 2-core development machine two threads
+cut a Vecchia evaluation of 26,250 samples with 30 neighbours from 2.2-2.5 s to 1.1-1.5 s (under a load of 1.5)."""
 
 
 def cholesky_stack(matrices: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
