@@ -102,13 +102,17 @@ def test_local_runs_report_how_far_they_are_from_global_kriging(qgis_processing,
 
 def test_local_cells_solve_the_ordinary_kriging_system_of_their_nearest_samples(qgis_processing, zinc, meuse):  # noqa: F811
     # Ordinary kriging system with a Lagrange multiplier (Cressie 1993, Statistics for Spatial Data, rev. ed.,
-    # section 3.2), solved here with numpy on the k nearest samples (isotropic model: Euclidean nearest).
+    # section 3.2), solved here with numpy on each cell's neighbourhood: k samples that hold its 4 nearest
+    # (isotropic model: Euclidean nearest; shared neighbourhoods, tests/predict/test_shared_neighbourhoods.py).
     k = 12
     prediction, _, centres = predict(qgis_processing, zinc, "local12", NEIGHBOURS=k)
     document = ModelDocument.load(zinc[1])
     values = np.log(meuse.zinc)
-    _, nearest = cKDTree(meuse.xy).query(centres[::97], k=k)
-    for centre, cell, chosen in zip(centres[::97], prediction[::97], nearest):
+    sets, _ = LocalKrigingPredictor(meuse.xy, values, document.covariance, document.mean,
+                                    neighbours=k).weights(centres[::97])
+    _, nearest = cKDTree(meuse.xy).query(centres[::97], k=4)
+    for centre, cell, chosen, own in zip(centres[::97], prediction[::97], sets, nearest):
+        assert set(own.tolist()) <= set(chosen.tolist())
         system = np.ones((k + 1, k + 1))
         system[:k, :k] = document.covariance.data_covariance(meuse.xy[chosen])
         system[k, k] = 0.0
