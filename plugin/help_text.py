@@ -149,7 +149,8 @@ LOCAL_MEAN_HELP = (
 NEIGHBOURHOOD_HELP = [
     ("Neighbours per cell", "0 (the default): every sample takes part in every cell (global kriging), up to "
      "5,000 samples; with more, each cell uses its 64 nearest samples and the log says so. A number k: each "
-     "cell is kriged from its k nearest samples (local kriging; 16 to 64 is common practice), faster for many "
+     "cell is kriged from its k nearest samples (local kriging; 16 to 64 is common practice; nearby cells share "
+     "one search where it holds each cell's own 4 nearest), faster for many "
      "samples and following local changes of the mean. It must be more than the number of trend terms (at "
      "least 2 for a constant mean). Local kriging is an approximation whose closeness depends on the model: "
      "with up to 2,000 samples the log reports how far it is from kriging with all samples at 500 cells drawn "
@@ -164,7 +165,8 @@ NEIGHBOURHOOD_HELP = [
 POINT_NEIGHBOURHOOD_HELP = [
     ("Neighbours per point", "0 (the default): every sample takes part in every target point (global kriging), "
      "up to 5,000 samples; with more, each point uses its 64 nearest samples and the log says so. A number k: "
-     "each point is kriged from its k nearest samples (local kriging; 16 to 64 is common practice), as 'Predict "
+     "each point is kriged from its k nearest samples (local kriging; 16 to 64 is common practice; nearby points "
+     "share one search where it holds each point's own 4 nearest), as 'Predict "
      "surface' does with the same setting. It must be more than the number of trend terms (at least 2 for a "
      "constant mean). With up to 2,000 samples the log reports how far local kriging is from kriging with all "
      "samples at up to 500 target points drawn at random, and warns above 1 %."),

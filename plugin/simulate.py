@@ -107,7 +107,8 @@ class SimulateAlgorithm(RasterAlgorithm):
           "give the same fields."),
          ("Neighbours per cell", "0 (the default): every sample conditions every cell (global kriging weights). "
           "A number k: each cell is conditioned on its k nearest samples (local kriging weights; 16 to 64 is "
-          "common practice), faster for many samples; the realisations then have the local kriging mean and "
+          "common practice; nearby cells share one search where it holds each cell's own 4 nearest), faster "
+          "for many samples; the realisations then have the local kriging mean and "
           "variance. A linear, quadratic or covariate trend is estimated once from all samples and each "
           "realisation adds it with its coefficients drawn from their estimation uncertainty (unless the mean is "
           "re-estimated in each neighbourhood). It must be more than the number of trend terms (at least 2 for a "
