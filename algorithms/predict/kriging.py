@@ -75,6 +75,7 @@ _BLOCK_ROWS = 128
 _PIECE_COLUMNS = 256
 """Targets per cross-covariance piece (keeps temporaries small enough for the cache)."""
 
+
 def as_points(xy: np.ndarray, what: str) -> np.ndarray:
     """Validate an (n, 2) coordinate array; raise FieldcastError naming ``what``."""
     points = np.asarray(xy, dtype=float)

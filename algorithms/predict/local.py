@@ -77,9 +77,9 @@ otherwise (a tile across the edge of a gap or of the samples) it searches
 its own. Under the screening effect the nearest samples carry most of the
 weight (Stein 2002, *Ann. Statist.* 30(1), 298-323), so the guard keeps the
 predictions close to those from each target's own set. Mean and variance
-are then the kriging mean and the exact error variance (under the model) of
-the linear predictor on the set used, so the variance stays honest for the
-weights applied; it can exceed that of the target's own set slightly. The
+come from the same formulas as for a target's own set, applied to the set
+used, so the variance describes the weights actually applied; it can exceed
+that of the target's own set slightly. The
 choice depends only on the target and its tile, not on how targets are
 chunked or tiled for output. It is off (every target its own search) with a
 search radius, when ``k`` covers all samples, or with ``tile_spacings=None``.
