@@ -175,11 +175,15 @@ def choose_predictor(xy: np.ndarray, values: np.ndarray, covariance: CovarianceM
         raise FieldcastError("Cell support is computed from all samples (block kriging); local "
                              "neighbourhoods are for point support. Set NEIGHBOURS to 0, or SUPPORT to point.")
     options, words = local_trend_options(xy, values, covariance, mean, covariates, local_mean, error_variance)
+    predictor = LocalKrigingPredictor(xy, values, covariance, mean, neighbours=neighbours, covariates=covariates,
+                                      search_radius=neighbourhood.search_radius, error_variance=error_variance,
+                                      **options)
+    shared = ("" if predictor.tile_side is None else
+              f"; nearby {per}s share one neighbour search where it holds each {per}'s own "
+              f"{predictor.guarded_nearest} nearest")
     lines.append(LogLine("info", f"Local kriging: each {per} from its {min(neighbours, count)} nearest "
-                                 f"samples{search_words(neighbourhood.search_radius, units)}{words}."))
-    return LocalKrigingPredictor(xy, values, covariance, mean, neighbours=neighbours, covariates=covariates,
-                                 search_radius=neighbourhood.search_radius, error_variance=error_variance,
-                                 **options), lines
+                                 f"samples{search_words(neighbourhood.search_radius, units)}{words}{shared}."))
+    return predictor, lines
 
 
 def cross_validate_with(xy: np.ndarray, values: np.ndarray, covariance: CovarianceModel, mean: MeanModel,
