@@ -178,11 +178,10 @@ def choose_predictor(xy: np.ndarray, values: np.ndarray, covariance: CovarianceM
     predictor = LocalKrigingPredictor(xy, values, covariance, mean, neighbours=neighbours, covariates=covariates,
                                       search_radius=neighbourhood.search_radius, error_variance=error_variance,
                                       **options)
-    shared = ("" if predictor.tile_side is None else
-              f"; nearby {per}s share one neighbour search where it holds each {per}'s own "
-              f"{predictor.guarded_nearest} nearest")
+    sharing = predictor.sharing_words(per)
+    shared = f" ({sharing})" if sharing else ""
     lines.append(LogLine("info", f"Local kriging: each {per} from its {min(neighbours, count)} nearest "
-                                 f"samples{search_words(neighbourhood.search_radius, units)}{words}{shared}."))
+                                 f"samples{search_words(neighbourhood.search_radius, units)}{shared}{words}."))
     return predictor, lines
 
 

@@ -276,6 +276,14 @@ class LocalKrigingPredictor:
         self.tile_side = self._shared_tile_side(tile_spacings)
         self.guarded_nearest = max(1, min(GUARDED_NEAREST, self.neighbours // self.sectors))
 
+    def sharing_words(self, per: str) -> str:
+        """The shared neighbourhoods in words for a log ("" when every target searches its own); ``per`` names a
+        target ("cell", "target point")."""
+        if self.tile_side is None:
+            return ""
+        return (f"nearby {per}s share one neighbour search where it holds each {per}'s own {self.guarded_nearest} "
+                "nearest")
+
     def _shared_tile_side(self, tile_spacings: float | None) -> float | None:
         """Side of the shared-neighbourhood tiles (search frame), or None when targets search their own."""
         if tile_spacings is not None and not (isinstance(tile_spacings, numbers.Real)

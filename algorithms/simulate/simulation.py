@@ -212,6 +212,8 @@ def simulate_conditional(xy: np.ndarray, values: np.ndarray, covariance: Covaria
             notes.append(f"Local conditioning{words}"
                          + ("; each realisation adds that trend with its coefficients drawn from their distribution "
                             "given the data, so the trend's uncertainty is in the spread." if options else "."))
+        if predictor.sharing_words("cell"):
+            notes.append(f"Local conditioning: {predictor.sharing_words('cell')}.")
     else:
         predictor = KrigingPredictor(xy, values, covariance, mean, covariates, error_variance)
     generator, sampler, window = _unconditional_sources(covariance, grid, np.asarray(xy, dtype=float),

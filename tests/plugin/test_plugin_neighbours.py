@@ -82,8 +82,8 @@ def test_neighbours_k_is_the_engine_local_kriging(qgis_processing, zinc, meuse):
     expected, expected_variance = back_transformed(*engine.predict(centres))
     np.testing.assert_allclose(prediction, expected, rtol=1e-6)
     np.testing.assert_allclose(variance, expected_variance, rtol=1e-5)
-    assert ("Local kriging: each cell from its 16 nearest samples; nearby cells share one neighbour search where it "
-            "holds each cell's own 4 nearest." in feedback.textLog())
+    assert ("Local kriging: each cell from its 16 nearest samples (nearby cells share one neighbour search where it "
+            "holds each cell's own 4 nearest)." in feedback.textLog())
 
 
 def test_local_runs_report_how_far_they_are_from_global_kriging(qgis_processing, zinc, meuse):  # noqa: F811

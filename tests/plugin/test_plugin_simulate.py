@@ -171,6 +171,8 @@ def test_local_conditioning_writes_bands_and_counts_nodata(qgis_processing, meus
         assert np.array_equal(np.isfinite(realisation).ravel(), expected)
     assert np.nanmin(local) > 0.0
     assert "each cell on its 16 nearest samples" in feedback.textLog()
+    assert "Local conditioning: nearby cells share one neighbour search where it holds each cell's own" in \
+        feedback.textLog()
     assert "nodata in every realisation" not in feedback.textLog()
     # A 100 m search leaves some masked cells with fewer than 2 samples in range: nodata in every band, logged,
     # and left out of the mean raster.
